@@ -1,0 +1,167 @@
+"""File helpers every layer uses: atomic writes, JSON with complex numbers.
+
+Outputs are written to a temporary file in the same folder, fsync'd and
+renamed over the target, so a crash leaves either the old file or the new
+one, never half of one.  JSON is the only serialisation format (no pickle).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+from collections.abc import Iterable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from benchfit.errors import InputError
+
+
+def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
+    """Write ``data`` to ``path`` atomically (temp file, fsync, rename).
+
+    Returns
+    -------
+    Path
+        The path written.
+    """
+    path = Path(path)
+    folder = path.parent if str(path.parent) else Path(".")
+    folder.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    try:  # make the rename itself durable
+        dfd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(dfd)
+        finally:
+            os.close(dfd)
+    except OSError:
+        pass
+    return path
+
+
+def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
+    """Write UTF-8 ``text`` to ``path`` atomically."""
+    return write_bytes_atomic(path, text.encode("utf-8"))
+
+
+def append_lines_durable(path: str | os.PathLike, lines: Iterable[str]) -> None:
+    """Append lines to a file and fsync before returning (capture, batch rows)."""
+    with open(path, "a", encoding="utf-8", newline="\n") as fh:
+        for line in lines:
+            fh.write(line if line.endswith("\n") else line + "\n")
+        fh.flush()
+        os.fsync(fh.fileno())
+
+
+def encode_complex(values: Any) -> list[list[float]]:
+    """Complex array-like -> list of ``[re, im]`` pairs (the JSON form)."""
+    arr = np.atleast_1d(np.asarray(values, dtype=complex))
+    return [[float(v.real), float(v.imag)] for v in arr]
+
+
+def decode_complex(pairs: Any, *, what: str = "value") -> np.ndarray:
+    """List of ``[re, im]`` pairs (or plain reals) -> complex numpy array."""
+    out = []
+    for p in pairs or []:
+        if isinstance(p, (int, float)):
+            out.append(complex(p, 0.0))
+        elif isinstance(p, (list, tuple)) and len(p) == 2:
+            out.append(complex(float(p[0]), float(p[1])))
+        else:
+            raise InputError(f"{what}: expected [re, im] pairs, found {p!r}")
+    return np.asarray(out, dtype=complex)
+
+
+def _default(o: Any) -> Any:
+    if isinstance(o, np.ndarray):
+        if np.iscomplexobj(o):
+            return encode_complex(o)
+        return o.tolist()
+    if isinstance(o, (np.floating,)):
+        return float(o)
+    if isinstance(o, (np.integer,)):
+        return int(o)
+    if isinstance(o, (np.bool_,)):
+        return bool(o)
+    if isinstance(o, complex):
+        return [o.real, o.imag]
+    if isinstance(o, Path):
+        return str(o)
+    if hasattr(o, "to_dict"):
+        return o.to_dict()
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
+def _clean_nonfinite(o: Any) -> Any:
+    # JSON has no NaN/inf; write them as null / "inf" strings a reader can map back.
+    if isinstance(o, float):
+        if math.isnan(o):
+            return None
+        if math.isinf(o):
+            return "inf" if o > 0 else "-inf"
+        return o
+    if isinstance(o, dict):
+        return {k: _clean_nonfinite(v) for k, v in o.items()}
+    if isinstance(o, (list, tuple)):
+        return [_clean_nonfinite(v) for v in o]
+    return o
+
+
+def to_json_text(obj: Any, *, indent: int | None = 2) -> str:
+    """Serialise ``obj`` (dicts, lists, numpy values, objects with ``to_dict``) to JSON."""
+    plain = json.loads(json.dumps(obj, default=_default))
+    return json.dumps(_clean_nonfinite(plain), indent=indent, allow_nan=False)
+
+
+def write_json_atomic(path: str | os.PathLike, obj: Any) -> Path:
+    """Write ``obj`` as JSON to ``path`` atomically."""
+    return write_text_atomic(path, to_json_text(obj) + "\n")
+
+
+def read_json(path: str | os.PathLike) -> dict[str, Any]:
+    """Read a JSON object from ``path``; bad files raise :class:`InputError`."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise InputError("file not found", source=str(path)) from None
+    except IsADirectoryError:
+        raise InputError("is a folder, expected a JSON file", source=str(path)) from None
+    except UnicodeDecodeError:
+        raise InputError("not UTF-8 text; expected a JSON file", source=str(path)) from None
+    except OSError as e:
+        raise InputError(f"cannot read: {e.strerror}", source=str(path)) from None
+    try:
+        obj = json.loads(text)
+    except json.JSONDecodeError as e:
+        raise InputError(f"not valid JSON ({e.msg})", source=str(path), line=e.lineno) from None
+    if not isinstance(obj, dict):
+        raise InputError("expected a JSON object at the top level", source=str(path))
+    return obj
+
+
+def as_float(value: Any) -> float:
+    """Inverse of the non-finite encoding in :func:`to_json_text`."""
+    if value is None:
+        return float("nan")
+    if value == "inf":
+        return float("inf")
+    if value == "-inf":
+        return float("-inf")
+    return float(value)

@@ -1,0 +1,1 @@
+"""Loop design and prediction: margins, networks, synthesis, E-series, tolerance spread."""

@@ -1,0 +1,1 @@
+"""Output: plots, HTML report, exports (CSV curves, SPICE).  Reads result objects only."""

@@ -1,0 +1,1 @@
+"""Step and load-step traces: model-free measurements and lmfit step fits."""

@@ -1,0 +1,41 @@
+"""Lower layers never import upper ones (the rule in DEVELOPERS.md)."""
+
+import ast
+from pathlib import Path
+
+import pytest
+
+PKG = Path(__file__).resolve().parents[1] / "benchfit"
+
+# layer rank: a module may import only from its own rank or lower.
+RANK = {"errors": 0, "provenance": 0, "fileio": 0, "data": 1, "bench": 1, "fitting": 2,
+        "loop": 3, "steps": 3, "output": 4, "batch": 5, "cli": 6}
+
+
+def _layer(parts: tuple[str, ...]) -> str | None:
+    if len(parts) < 2 or parts[0] != "benchfit":
+        return None
+    return parts[1].removesuffix(".py")
+
+
+def _imports(path: Path):
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            yield node.module
+        elif isinstance(node, ast.Import):
+            for a in node.names:
+                yield a.name
+
+
+@pytest.mark.parametrize("path", sorted(PKG.rglob("*.py")), ids=lambda p: str(p.relative_to(PKG)))
+def test_no_upward_imports(path):
+    rel = path.relative_to(PKG.parent).with_suffix("")
+    own = _layer(rel.parts)
+    if own not in RANK:
+        return
+    for mod in _imports(path):
+        other = _layer(tuple(mod.split(".")))
+        if other in RANK:
+            assert RANK[other] <= RANK[own] or other == own, f"{rel} (layer {own}) imports {mod}"
+    # steps and loop are siblings: steps may use loop results only through plain data.
