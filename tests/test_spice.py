@@ -84,6 +84,37 @@ def _flatten(subs, top):
     return flat
 
 
+def _stamps(parsed, n: int, s: complex):
+    """(row, column, value) entries of the MNA matrix; index -1 is ground (dropped)."""
+    out = []
+    for p in parsed:
+        kind = p[0]
+        if kind in "rc":
+            _, a, c, val = p
+            y = 1.0 / val if kind == "r" else s * val
+            out += [(a, a, y), (c, c, y), (a, c, -y), (c, a, -y)]
+        elif kind == "g":  # current gm*(Vc+ - Vc-) flows from n+ through the source to n-
+            _, np_, nm, cp, cm, gm = p
+            out += [(np_, cp, gm), (np_, cm, -gm), (nm, cp, -gm), (nm, cm, gm)]
+        elif kind in "ev":  # branch current k; V(n+) - V(n-) = gain (Vc+ - Vc-)  or  = AC value
+            np_, nm = p[1], p[2]
+            k = n + p[-1]
+            out += [(np_, k, 1), (nm, k, -1), (k, np_, 1), (k, nm, -1)]
+            if kind == "e":
+                _, _, _, cp, cm, gain, _ = p
+                out += [(k, cp, -gain), (k, cm, gain)]
+        elif kind == "t":
+            _, a1, a2, b1, b2, z0, td, br = p
+            k1, k2 = n + br, n + br + 1   # currents into the line at port 1 and port 2
+            d = np.exp(-s * td)
+            out += [(a1, k1, 1), (a2, k1, -1), (b1, k2, 1), (b2, k2, -1),
+                    # V1 - Z0 I1 - d (V2 + Z0 I2) = 0
+                    (k1, a1, 1), (k1, a2, -1), (k1, k1, -z0), (k1, b1, -d), (k1, b2, d), (k1, k2, -d * z0),
+                    # V2 - Z0 I2 - d (V1 + Z0 I1) = 0
+                    (k2, b1, 1), (k2, b2, -1), (k2, k2, -z0), (k2, a1, -d), (k2, a2, d), (k2, k1, -d * z0)]
+    return out
+
+
 def mna_ac(netlist: str, freq_hz: np.ndarray, probe: str) -> np.ndarray:
     """AC voltage at node ``probe`` for every frequency (all V sources are the AC stimuli)."""
     subs, top = _parse(netlist)
@@ -123,41 +154,13 @@ def mna_ac(netlist: str, freq_hz: np.ndarray, probe: str) -> np.ndarray:
         s = 2j * np.pi * f
         A = np.zeros((size, size), dtype=complex)
         b = np.zeros(size, dtype=complex)
-
-        def add(i, j, v):
+        for entry in _stamps(parsed, n, s):
+            i, j, v = entry
             if i >= 0 and j >= 0:
                 A[i, j] += v
-
         for p in parsed:
-            kind = p[0]
-            if kind in "rc":
-                _, a, c, val = p
-                y = 1.0 / val if kind == "r" else s * val
-                add(a, a, y); add(c, c, y); add(a, c, -y); add(c, a, -y)
-            elif kind == "g":  # current gm*(Vc+ - Vc-) flows from n+ through the source to n-
-                _, np_, nm, cp, cm, gm = p
-                add(np_, cp, gm); add(np_, cm, -gm); add(nm, cp, -gm); add(nm, cm, gm)
-            elif kind == "e":
-                _, np_, nm, cp, cm, gain, br = p
-                k = n + br
-                add(np_, k, 1); add(nm, k, -1)
-                add(k, np_, 1); add(k, nm, -1); add(k, cp, -gain); add(k, cm, gain)
-            elif kind == "v":
-                _, np_, nm, ac, br = p
-                k = n + br
-                add(np_, k, 1); add(nm, k, -1); add(k, np_, 1); add(k, nm, -1)
-                b[k] = ac
-            elif kind == "t":
-                _, a1, a2, b1, b2, z0, td, br = p
-                k1, k2 = n + br, n + br + 1   # currents into the line at port 1 and port 2
-                add(a1, k1, 1); add(a2, k1, -1); add(b1, k2, 1); add(b2, k2, -1)
-                d = np.exp(-s * td)
-                # V1 - Z0 I1 - d (V2 + Z0 I2) = 0
-                add(k1, a1, 1); add(k1, a2, -1); A[k1, k1] += -z0
-                add(k1, b1, -d); add(k1, b2, d); A[k1, k2] += -d * z0
-                # V2 - Z0 I2 - d (V1 + Z0 I1) = 0
-                add(k2, b1, 1); add(k2, b2, -1); A[k2, k2] += -z0
-                add(k2, a1, -d); add(k2, a2, d); A[k2, k1] += -d * z0
+            if p[0] == "v":
+                b[n + p[4]] = p[3]
         x = np.linalg.solve(A, b)
         out[fi] = x[nodes[probe]]
     return out
