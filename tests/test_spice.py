@@ -252,3 +252,18 @@ def test_newline_in_source_name_cannot_inject_an_element(tmp_path):
     text = p.read_text()
     assert not any(ln.startswith("V9") for ln in text.splitlines())
     _assert_matches(m, np.logspace(-1, 3, 20))
+
+
+def test_cli_export_spice(tmp_path, capsys):
+    from benchfit.cli import main
+
+    m = PlantModel(zeros=[-W * 4e4], poles=np.roots([1, W * 3e3 / 2, (W * 3e3) ** 2]), k=1e5)
+    m.to_json(tmp_path / "m.json")
+    out = tmp_path / "p.cir"
+    assert main(["export-spice", str(tmp_path / "m.json"), "-o", str(out), "--name", "buck"]) == 0
+    assert "SUBCKT buck" in capsys.readouterr().out
+    h = mna_ac(out.read_text() + "V1 a 0 AC 1\nX1 a y buck\n", F, "y")
+    np.testing.assert_allclose(h, m.response(F), rtol=1e-3)
+    (tmp_path / "bad.json").write_text('{"kind": "design", "plant": {"freq_hz": [1, 2]}}')
+    assert main(["export-spice", str(tmp_path / "bad.json"), "-o", str(out)]) == 2
+    assert "measured data, not a model" in capsys.readouterr().err

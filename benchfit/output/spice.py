@@ -238,3 +238,51 @@ def _comment_safe(text: str) -> str:
 def write_spice(model: PlantModel, path: str | os.PathLike, name: str = "plant") -> Path:
     """Write :func:`spice_subcircuit` of ``model`` to ``path`` atomically."""
     return write_text_atomic(path, spice_subcircuit(model, name))
+
+
+#: What ``export-spice`` can take out of a design file.
+DESIGN_PARTS = ("plant", "compensator", "compensator-ideal", "loop", "loop-ideal")
+
+
+def model_from_file(path: str | os.PathLike, part: str = "plant") -> PlantModel:
+    """The PlantModel in a model, fit-result or design JSON file.
+
+    Parameters
+    ----------
+    path
+        JSON file: a model, a fit result (its ``model``), or a design.
+    part
+        For a design file, which model: one of :data:`DESIGN_PARTS`
+        (snapped parts unless ``-ideal``).  Ignored for other files.
+
+    Raises
+    ------
+    InputError
+        When the file holds no such model (e.g. the plant of a design made
+        from measured data, which has no model).
+    """
+    from benchfit.fileio import read_json
+
+    d = read_json(path)
+    if d.get("kind") != "design":
+        try:
+            return PlantModel.from_dict(d)
+        except InputError as e:
+            raise InputError(e.message, source=str(path)) from None
+    if part not in DESIGN_PARTS:
+        raise InputError(f"{part!r}; expected one of {', '.join(DESIGN_PARTS)}", source="--part")
+    which = "ideal" if part.endswith("-ideal") else "snapped"
+    base = part.removesuffix("-ideal")
+    if base == "plant":
+        obj = d.get("plant")
+    elif base == "compensator":
+        obj = (d.get("compensator") or {}).get(which)
+    else:
+        obj = (d.get("loop_model") or {}).get(which)
+    if not isinstance(obj, dict) or "poles" not in obj:
+        what = "measured data, not a model" if base in ("plant", "loop") else "missing"
+        raise InputError(f"the design's {part} is {what}; nothing to export", source=str(path))
+    try:
+        return PlantModel.from_dict(obj)
+    except InputError as e:
+        raise InputError(f"{part}: {e.message}", source=str(path)) from None

@@ -1,0 +1,33 @@
+"""`benchfit export-spice`: a model (or a design's plant/compensator) as a SPICE subcircuit."""
+
+from __future__ import annotations
+
+import argparse
+
+from benchfit.cli.common import add_json_flag, emit
+from benchfit.output.spice import DESIGN_PARTS, model_from_file, write_spice
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "export-spice", help="write a fitted model as a SPICE subcircuit (R, C, E, G, T only)",
+        description="Write a model as a SPICE3 subcircuit '.SUBCKT NAME in out' built from "
+                    "resistors, capacitors, controlled sources and (for a delay) a matched "
+                    "lossless line, so any SPICE simulator can use the measured plant.")
+    p.add_argument("model", metavar="MODEL_JSON", help="model, fit result or design JSON")
+    p.add_argument("-o", "--output", required=True, metavar="CIR", help="netlist file to write")
+    p.add_argument("--name", default="plant", help="subcircuit name (default plant)")
+    p.add_argument("--part", default="plant", choices=DESIGN_PARTS,
+                   help="for a design file: which model to export (default plant)")
+    add_json_flag(p)
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    model = model_from_file(args.model, args.part)
+    path = write_spice(model, args.output, args.name)
+    emit(args, {"output": str(path), "name": args.name, "order": model.order,
+                "zeros": len(model.zeros), "delay_s": model.delay_s},
+         f"wrote {path}: .SUBCKT {args.name} in out (order {model.order}, "
+         f"{len(model.zeros)} zeros, delay {model.delay_s:g} s)")
+    return 0
