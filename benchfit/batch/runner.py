@@ -1,0 +1,328 @@
+"""Running a lot: find the sweeps, run the task on each (serially, in a process pool
+or on Dask), append each row as it finishes, resume an interrupted lot.
+
+All three paths submit :func:`benchfit.batch.task.run_task` with the same
+settings and keep at most a small window of files in flight, so memory does
+not grow with the lot: a sweep is read inside the task and dropped with it.
+"""
+
+from __future__ import annotations
+
+import glob
+import os
+import sys
+import time
+from collections.abc import Iterator, Sequence
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import dataclass, field
+from itertools import islice
+from pathlib import Path
+from typing import Any, TextIO
+
+from benchfit.batch.progress import Progress
+from benchfit.batch.table import (
+    columns,
+    format_row,
+    header_line,
+    read_table,
+    repair_torn_tail,
+    write_parquet,
+)
+from benchfit.batch.task import TaskSettings, run_task, unit_id
+from benchfit.errors import InputError
+from benchfit.fileio import append_lines_durable
+from benchfit.provenance import Provenance
+
+#: File suffixes taken from a folder (a glob takes whatever it matches).
+SWEEP_SUFFIXES = (".csv", ".tsv", ".txt", ".dat", ".s1p", ".s2p", ".json")
+
+
+def _is_glob(spec: str) -> bool:
+    return any(ch in spec for ch in "*?[")
+
+
+def find_sweeps(spec: str | os.PathLike, exclude: Sequence[str | os.PathLike] = ()) -> list[str]:
+    """The sweep files of a lot, sorted.
+
+    Parameters
+    ----------
+    spec
+        A folder (every file with a sweep suffix below it, hidden files
+        skipped) or a glob pattern (``**`` recurses).
+    exclude
+        Files never taken (the lot's own output files).
+
+    Raises
+    ------
+    InputError
+        When the folder or pattern names no file.
+    """
+    spec = str(spec)
+    skip = {os.path.abspath(p) for p in exclude}
+    if os.path.isdir(spec):
+        found = [str(p) for p in Path(spec).rglob("*")
+                 if p.is_file() and p.suffix.lower() in SWEEP_SUFFIXES
+                 and not any(part.startswith(".") for part in p.relative_to(spec).parts)]
+    elif _is_glob(spec):
+        found = [p for p in glob.glob(spec, recursive=True) if os.path.isfile(p)]
+    elif os.path.isfile(spec):
+        found = [spec]
+    else:
+        raise InputError("no such folder or file, and not a glob pattern", source=spec)
+    files = sorted(p for p in found if os.path.abspath(p) not in skip)
+    if not files:
+        raise InputError(f"no sweep files found (folders take {', '.join(SWEEP_SUFFIXES)})",
+                         source=spec)
+    return files
+
+
+@dataclass(frozen=True)
+class LotRun:
+    """What one run of a lot did.
+
+    Parameters
+    ----------
+    output
+        The result table written (CSV or Parquet).
+    rows_csv
+        The CSV the rows were streamed into (the output itself for CSV).
+    files
+        Files in the lot.
+    resumed
+        Files skipped because a previous run had finished them.
+    ran
+        Files run now.
+    counts
+        Rows of this run by status (pass, fail, measured, error).
+    seconds
+        Wall time of this run, s.
+    workers
+        Parallel workers used (1 for serial).
+    executor
+        ``"serial"``, ``"pool"`` or ``"dask"``.
+    provenance
+        The lot's settings.
+    """
+
+    output: str
+    rows_csv: str
+    files: int
+    resumed: int
+    ran: int
+    counts: dict[str, int]
+    seconds: float
+    workers: int
+    executor: str
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="batch"))
+
+    @property
+    def seconds_per_sweep(self) -> float:
+        """Wall time per file run now (s); nan when none ran."""
+        return self.seconds / self.ran if self.ran else float("nan")
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "kind": "lot_run", "output": self.output, "rows_csv": self.rows_csv,
+            "files": self.files, "resumed": self.resumed, "ran": self.ran,
+            "counts": dict(self.counts), "seconds": self.seconds, "workers": self.workers,
+            "executor": self.executor, "provenance": self.provenance.to_dict(),
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> LotRun:
+        return cls(output=d["output"], rows_csv=d["rows_csv"], files=int(d["files"]),
+                   resumed=int(d["resumed"]), ran=int(d["ran"]),
+                   counts={k: int(v) for k, v in d["counts"].items()},
+                   seconds=float(d["seconds"]), workers=int(d["workers"]),
+                   executor=str(d["executor"]), provenance=Provenance.from_dict(d.get("provenance")))
+
+
+# ----- execution paths: each yields rows as they finish, with a bounded window in flight -----
+def _failed_row(path: str, exc: BaseException) -> dict[str, Any]:
+    # The task itself never raises; this is a worker that died (killed, out of memory...).
+    return {"file": path, "unit": unit_id(path), "status": "error",
+            "error": f"worker failed ({type(exc).__name__}: {exc})".replace("\n", " ")}
+
+
+def _serial(files: Sequence[str], settings: TaskSettings) -> Iterator[dict[str, Any]]:
+    for p in files:
+        yield run_task(p, settings)
+
+
+def _pool(files: Sequence[str], settings: TaskSettings, workers: int) -> Iterator[dict[str, Any]]:
+    import multiprocessing as mp
+
+    # forkserver: children start from a clean process, safe even when the parent
+    # runs threads (a Dask client, a notebook); spawn where it is not available.
+    method = "forkserver" if "forkserver" in mp.get_all_start_methods() else "spawn"
+    window = 4 * workers
+    todo = iter(files)
+    with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context(method)) as ex:
+        running = {ex.submit(run_task, p, settings): p for p in islice(todo, window)}
+        while running:
+            finished, _ = wait(running, return_when=FIRST_COMPLETED)
+            for fut in finished:
+                path = running.pop(fut)
+                try:
+                    yield fut.result()
+                except Exception as e:  # noqa: BLE001
+                    yield _failed_row(path, e)
+                nxt = next(todo, None)
+                if nxt is not None:
+                    running[ex.submit(run_task, nxt, settings)] = nxt
+
+
+def _dask_client(address: Any):
+    try:
+        from distributed import Client
+    except ImportError:
+        raise InputError("running on Dask needs the 'distributed' package: "
+                         "pip install 'benchfit[cluster]'", source="--dask") from None
+    if hasattr(address, "submit"):  # already a client (notebooks, tests)
+        return address, False
+    try:
+        return Client(str(address), timeout="10s"), True
+    except (OSError, TimeoutError) as e:
+        raise InputError(f"cannot reach a Dask scheduler at {address} ({e})", source="--dask") from None
+
+
+def _dask(files: Sequence[str], settings: TaskSettings, address: Any) -> Iterator[dict[str, Any]]:
+    from distributed import as_completed
+
+    client, owned = _dask_client(address)
+    try:
+        nworkers = max(1, sum(w.get("nthreads", 1)
+                              for w in client.scheduler_info().get("workers", {}).values()))
+        window = 4 * nworkers
+        todo = iter(files)
+        futures = {}
+        pending = as_completed()
+        for p in islice(todo, window):
+            fut = client.submit(run_task, p, settings, pure=False)
+            futures[fut.key] = p
+            pending.add(fut)
+        for fut in pending:
+            path = futures.pop(fut.key)
+            try:
+                yield fut.result()
+            except Exception as e:  # noqa: BLE001
+                yield _failed_row(path, e)
+            fut.release()
+            nxt = next(todo, None)
+            if nxt is not None:
+                f2 = client.submit(run_task, nxt, settings, pure=False)
+                futures[f2.key] = nxt
+                pending.add(f2)
+    finally:
+        if owned:
+            client.close()
+
+
+def dask_workers(address: Any) -> int:
+    """Worker threads on the cluster at ``address`` (a client or scheduler address)."""
+    client, owned = _dask_client(address)
+    try:
+        return max(1, sum(w.get("nthreads", 1)
+                          for w in client.scheduler_info().get("workers", {}).values()))
+    finally:
+        if owned:
+            client.close()
+
+
+# ----- the lot ----------------------------------------------------------------------------------
+def rows_path_for(output: str | os.PathLike) -> Path:
+    """Where rows stream to: the output CSV itself, or ``<output>.rows.csv`` for Parquet."""
+    out = Path(output)
+    return out.with_name(out.name + ".rows.csv") if out.suffix.lower() == ".parquet" else out
+
+
+def _norm(p: str) -> str:
+    return os.path.normcase(os.path.abspath(p))
+
+
+def _prepare(rows_csv: Path, cols: list[str], resume: bool) -> set[str]:
+    """Start or resume the row file; return the files already done."""
+    if rows_csv.exists() and rows_csv.stat().st_size > 0:
+        if not resume:
+            raise InputError("exists; pass --resume to continue that lot, or remove it",
+                             source=str(rows_csv))
+        repair_torn_tail(rows_csv)
+        old_cols, rows = read_table(rows_csv)
+        if not old_cols:
+            append_lines_durable(rows_csv, [header_line(cols)])
+            return set()
+        if old_cols != cols:
+            raise InputError(f"has columns {old_cols[len(old_cols) - 3:]}... that differ from this "
+                             "lot's (other limits or --param?); use the same settings or a new -o",
+                             source=str(rows_csv))
+        return {_norm(r["file"]) for r in rows}
+    rows_csv.parent.mkdir(parents=True, exist_ok=True)
+    with open(rows_csv, "w", encoding="utf-8"):  # empty file, then the header durably
+        pass
+    append_lines_durable(rows_csv, [header_line(cols)])
+    return set()
+
+
+def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathLike, *,
+            workers: int | None = None, dask: Any = None, resume: bool = False,
+            progress: TextIO | None = sys.stderr) -> LotRun:
+    """Run every file of a lot and write the result table.
+
+    Parameters
+    ----------
+    files
+        Sweep files (see :func:`find_sweeps`).
+    settings
+        Fit options, design, limits and reported parameters.
+    output
+        Result table, ``.csv`` or ``.parquet``.  Rows are appended to the CSV
+        (for Parquet, ``<output>.rows.csv``) as they finish; Parquet is
+        written at the end, atomically, sorted by file.
+    workers
+        Local processes; None for ``os.cpu_count()``; 1 runs in this process.
+    dask
+        A Dask scheduler address (``tcp://host:port``) or a ``distributed.Client``;
+        when given, ``workers`` is ignored.
+    resume
+        Continue an existing row file: files already in it are skipped, and a
+        last line torn by a kill is cut first.  Without it an existing output
+        is an error, so a finished lot is never overwritten by accident.
+    progress
+        Stream for the progress line (None for silence).
+
+    Returns
+    -------
+    LotRun
+    """
+    cols = columns(settings.param_names)
+    rows_csv = rows_path_for(output)
+    done = _prepare(rows_csv, cols, resume)
+    todo = [f for f in files if _norm(f) not in done]
+    if dask is not None:
+        executor, nworkers, rows = "dask", dask_workers(dask), _dask(todo, settings, dask)
+    else:
+        nworkers = max(1, int(workers or os.cpu_count() or 1))
+        nworkers = min(nworkers, max(1, len(todo)))
+        if nworkers == 1:
+            executor, rows = "serial", _serial(todo, settings)
+        else:
+            executor, rows = "pool", _pool(todo, settings, nworkers)
+    bar = Progress(len(todo), stream=progress)
+    counts: dict[str, int] = {}
+    t0 = time.perf_counter()
+    for row in rows:
+        append_lines_durable(rows_csv, [format_row(row, cols)])
+        counts[row["status"]] = counts.get(row["status"], 0) + 1
+        bar.update(row["status"])
+    bar.close()
+    seconds = time.perf_counter() - t0
+    if Path(output).suffix.lower() == ".parquet":
+        table_cols, table_rows = read_table(rows_csv)
+        write_parquet(table_cols, sorted(table_rows, key=lambda r: r["file"]), output)
+    return LotRun(output=str(output), rows_csv=str(rows_csv), files=len(files),
+                  resumed=len(files) - len(todo), ran=len(todo), counts=counts,
+                  seconds=seconds, workers=nworkers, executor=executor,
+                  provenance=Provenance(step="batch", sources=tuple(files[:1]) + (
+                      (f"... {len(files)} files",) if len(files) > 1 else ()),
+                      settings={**settings.describe(), "workers": nworkers,
+                                "executor": executor}))
