@@ -1,0 +1,314 @@
+"""Model-free measurements of a step response on a scope trace.
+
+Definitions (all times from the step instant unless said otherwise):
+
+- initial / final level: median of the flat part before the step / of the last
+  10 % of the record (robust statistics over windows, never single samples);
+- step instant: the last sample before the 10 % crossing at which the
+  (smoothed) output is still within the noise of the initial level, unless
+  given;
+- rise time: first 10 % crossing to first 90 % crossing of the step;
+- overshoot: peak beyond the final level, % of the step; undershoot: largest
+  excursion past the initial level against the step's direction before the
+  90 % crossing (a non-minimum-phase dip), % of the step;
+- settling time: when the output last leaves final ± band (default 2 % of the step);
+- ringing frequency and log decrement from the lobes about the final level;
+- noise: robust standard deviation of the flat part before the step.
+
+Noisy records are smoothed with a Savitzky-Golay window just wide enough that
+the smoothed noise is 0.2 % of the step; the width used is reported.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from benchfit.errors import InputError
+from benchfit.fileio import as_float
+from benchfit.provenance import Provenance
+from benchfit.steps.features import (
+    clipped_runs,
+    difference_sigma,
+    first_crossing,
+    last_exit,
+    make_smoother,
+    ringing,
+    robust_sigma,
+    trace_arrays,
+)
+from benchfit.steps.models import zeta_from_log_decrement
+
+#: Fraction of the record whose median is the final level.
+TAIL_FRACTION = 0.10
+#: A step smaller than this many noise standard deviations is "no step".
+MIN_STEP_SIGMAS = 8.0
+#: Fewest samples before the step for the noise estimate to come from there.
+MIN_PRE_SAMPLES = 10
+
+_FLOAT_FIELDS = (
+    "initial_v", "final_v", "step_v", "step_time_s", "overshoot_pct", "undershoot_pct", "peak_v",
+    "peak_time_s", "rise_time_s", "t10_s", "t90_s", "settling_time_s", "band", "ringing_freq_hz",
+    "log_decrement", "zeta_from_decrement", "noise_v", "sample_interval_s",
+)
+
+
+@dataclass(frozen=True)
+class StepMeasurement:
+    """What a step trace shows, without any model.
+
+    Parameters
+    ----------
+    initial_v, final_v, step_v
+        Levels before and after the step, and their difference (V).
+    step_time_s
+        Step instant on the trace's time axis (s).
+    overshoot_pct, undershoot_pct
+        Peak beyond the final level, and dip against the step direction, in % of |step|.
+    peak_v, peak_time_s
+        Level at the peak, and its time after the step instant (s).
+    rise_time_s, t10_s, t90_s
+        10–90 % rise time, and the two crossing times on the trace's axis (s).
+    settling_time_s
+        Time after the step instant until the output stays within final ± band (s);
+        NaN when it never does within the record.
+    band
+        Settling band as a fraction of |step|.
+    ringing_freq_hz, log_decrement, zeta_from_decrement
+        Ringing about the final level (NaN when there are too few lobes), the log
+        decrement per full period, and the ζ it implies for a second-order response.
+    lobes
+        Number of ringing lobes found above the noise.
+    noise_v, noise_source
+        Noise standard deviation (V) and where it was estimated.
+    pre_step_samples, samples, sample_interval_s
+        Samples before the step, in the record, and the median sample interval.
+    smoothing_samples
+        Savitzky-Golay window used for the crossings (1: none).
+    clipped_samples, clipped_levels_v
+        Samples in runs of identical extreme values (probable clipping) and those values.
+    channel
+        Channel measured.
+    warnings
+        Anything that makes a figure less trustworthy.
+    provenance
+        Source file and settings.
+    """
+
+    initial_v: float
+    final_v: float
+    step_v: float
+    step_time_s: float
+    overshoot_pct: float
+    undershoot_pct: float
+    peak_v: float
+    peak_time_s: float
+    rise_time_s: float
+    t10_s: float
+    t90_s: float
+    settling_time_s: float
+    band: float
+    ringing_freq_hz: float
+    log_decrement: float
+    zeta_from_decrement: float
+    lobes: int
+    noise_v: float
+    noise_source: str
+    pre_step_samples: int
+    samples: int
+    sample_interval_s: float
+    smoothing_samples: int
+    clipped_samples: int = 0
+    clipped_levels_v: tuple[float, ...] = ()
+    channel: str = ""
+    warnings: tuple[str, ...] = ()
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="measure_step"))
+
+    def to_dict(self) -> dict[str, Any]:
+        d: dict[str, Any] = {"kind": "step_measurement"}
+        d.update({k: getattr(self, k) for k in _FLOAT_FIELDS})
+        d.update(lobes=self.lobes, noise_source=self.noise_source, pre_step_samples=self.pre_step_samples,
+                 samples=self.samples, smoothing_samples=self.smoothing_samples,
+                 clipped_samples=self.clipped_samples, clipped_levels_v=list(self.clipped_levels_v),
+                 channel=self.channel, warnings=list(self.warnings),
+                 provenance=self.provenance.to_dict())
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> StepMeasurement:
+        try:
+            kw = {k: as_float(d[k]) for k in _FLOAT_FIELDS}
+            return cls(**kw, lobes=int(d["lobes"]), noise_source=str(d["noise_source"]),
+                       pre_step_samples=int(d["pre_step_samples"]), samples=int(d["samples"]),
+                       smoothing_samples=int(d["smoothing_samples"]),
+                       clipped_samples=int(d.get("clipped_samples", 0)),
+                       clipped_levels_v=tuple(float(v) for v in d.get("clipped_levels_v", ())),
+                       channel=str(d.get("channel", "")), warnings=tuple(d.get("warnings", ())),
+                       provenance=Provenance.from_dict(d.get("provenance")))
+        except KeyError as e:
+            raise InputError(f"step measurement has no {e.args[0]!r}") from None
+
+
+def _levels(y, i_step, guard):
+    """Initial level, noise and their source from the samples before the step."""
+    pre = y[: max(0, i_step - guard)]
+    if pre.size >= MIN_PRE_SAMPLES:
+        y0 = float(np.median(pre))
+        return y0, robust_sigma(pre), f"flat part before the step ({pre.size} samples)", pre.size
+    head = y[: max(1, min(5, i_step + 1))]
+    return float(np.median(head)), float("nan"), "", pre.size
+
+
+def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
+                 band_v: float | None = None, step_time_s: float | None = None) -> StepMeasurement:
+    """Measure a step response (reference step or any step-like transition).
+
+    Parameters
+    ----------
+    data
+        A :class:`~benchfit.data.TimeTrace` or a ``(time_s, samples)`` pair.
+    channel
+        Channel name or 0-based index (default: the first).
+    band
+        Settling band as a fraction of |step| (0.02 = ±2 %).
+    band_v
+        Settling band in volts; overrides ``band`` when given.
+    step_time_s
+        The step instant when known (e.g. the trigger at t = 0); found from the trace otherwise.
+
+    Raises
+    ------
+    InputError
+        NaN samples, no step (flat trace), a step too close to the end of the record.
+    """
+    t, y, name, source = trace_arrays(data, channel)
+    n = y.size
+    warnings: list[str] = []
+    if not 0 < band < 1:
+        raise InputError(f"settling band {band!r} must lie between 0 and 1 (a fraction of the step)",
+                         source="--band")
+    sig_d = difference_sigma(y)
+    k_tail = max(5, int(round(TAIL_FRACTION * n)))
+    y0 = float(np.median(y[: max(5, n // 50)]))
+    y1 = float(np.median(y[-k_tail:]))
+    _check_step(y0, y1, sig_d, y, name, source)
+
+    smoother = make_smoother(sig_d / abs(y1 - y0), n)
+    ys = smoother(y)
+    guard = smoother.width // 2 + 1
+    given = step_time_s is not None
+    if given:
+        if not t[0] <= step_time_s < t[-1]:
+            raise InputError(f"step time {step_time_s:g} s lies outside the record "
+                             f"({t[0]:g}..{t[-1]:g} s)", source="--step-time")
+        i_s = int(np.searchsorted(t, step_time_s))
+    noise = sig_d
+    noise_source = "sample-to-sample differences (no flat part before the step)"
+    pre_n = 0
+    for _ in range(2):  # rough levels -> step instant -> levels from the flat parts -> again
+        step = y1 - y0
+        u = (ys - y0) / step
+        if not given:
+            i_s = _step_index(u, noise * smoother.gain / abs(step))
+        y0, pre_sigma, src, pre_n = _levels(y, i_s, guard)
+        if src:
+            noise, noise_source = pre_sigma, src
+        y1 = float(np.median(y[-k_tail:]))
+        _check_step(y0, y1, noise if noise > 0 else sig_d, y, name, source)
+    step = y1 - y0
+    u = (ys - y0) / step
+    t_s = float(step_time_s) if given else float(t[i_s])
+    if pre_n < MIN_PRE_SAMPLES:
+        warnings.append(f"only {pre_n} samples before the step: initial level from the first samples, "
+                        "noise from sample-to-sample differences")
+    rel_noise = noise * smoother.gain / abs(step)  # smoothed noise, fraction of the step
+
+    t10 = first_crossing(t, u, 0.1, i_s)
+    t90 = first_crossing(t, u, 0.9, i_s)
+    i90 = int(np.searchsorted(t, t90)) if np.isfinite(t90) else n
+    if not np.isfinite(t90) or i90 >= n - k_tail or (t[-1] - t_s) < 3.0 * (t90 - t_s):
+        raise InputError(
+            f"channel {name!r}: the step at t = {t_s:.6g} s is too close to the end of the record "
+            f"(ends at {t[-1]:.6g} s); expected a settled flat part after the step, several rise "
+            "times long (capture a longer record or move the trigger earlier)", source=source)
+    tail = ys[-k_tail:]
+    if np.ptp(tail) > max(2.0 * band * abs(step), 8.0 * rel_noise * abs(step)):
+        warnings.append("the output still moves in the last 10 % of the record; the final level "
+                        "(and everything relative to it) is uncertain")
+
+    post = u[i_s:]
+    j_pk = int(np.argmax(post))
+    floor = 3.0 * rel_noise
+    over = post[j_pk] - 1.0
+    overshoot = 100.0 * over if over > floor else 0.0
+    dip = -float(np.min(u[i_s:i90 + 1]))
+    undershoot = 100.0 * dip if dip > floor else 0.0
+    peak_time = float(t[i_s + j_pk] - t_s)
+
+    band_frac = band if band_v is None else abs(band_v) / abs(step)
+    if band_frac <= floor:
+        warnings.append(f"settling band ±{100 * band_frac:.3g} % is within the noise "
+                        f"({100 * rel_noise:.3g} % of the step after smoothing); settling time unreliable")
+    t_set, settled = last_exit(t, u - 1.0, band_frac, i_s)
+    if not settled:
+        warnings.append(f"the output does not stay within ±{100 * band_frac:.3g} % before the record ends")
+    ring = ringing(t[i_s:], post - 1.0, max(4.0 * rel_noise, 1e-4))
+    zeta_dec = zeta_from_log_decrement(ring.log_decrement) if ring.log_decrement > 0 else float("nan")
+
+    mask, levels = clipped_runs(y, ignore_levels=(y0, y1) if noise == 0 else ())
+    if mask.any():
+        first = float(t[np.flatnonzero(mask)[0]])
+        warnings.append(f"{int(mask.sum())} samples sit in runs at the record's extreme "
+                        f"{', '.join(f'{v:.6g} V' for v in levels)} (from t = {first:.6g} s): the scope "
+                        "probably clipped; levels and overshoot near them are unreliable")
+    return StepMeasurement(
+        initial_v=y0, final_v=y1, step_v=step, step_time_s=t_s,
+        overshoot_pct=float(overshoot), undershoot_pct=float(undershoot),
+        peak_v=float(y0 + step * post[j_pk]), peak_time_s=peak_time,
+        rise_time_s=float(t90 - t10), t10_s=t10, t90_s=t90,
+        settling_time_s=float(t_set - t_s) if settled else float("nan"), band=float(band_frac),
+        ringing_freq_hz=ring.freq_hz, log_decrement=ring.log_decrement, zeta_from_decrement=zeta_dec,
+        lobes=len(ring.lobe_peaks), noise_v=float(noise), noise_source=noise_source,
+        pre_step_samples=int(pre_n), samples=int(n), sample_interval_s=float(np.median(np.diff(t))),
+        smoothing_samples=smoother.width, clipped_samples=int(mask.sum()),
+        clipped_levels_v=tuple(levels), channel=name, warnings=tuple(warnings),
+        provenance=Provenance(step="measure_step", sources=(source,) if source else (),
+                              settings={"channel": name, "band": band, "band_v": band_v,
+                                        "step_time_s": step_time_s}),
+    )
+
+
+def _check_step(y0, y1, sigma, y, name, source):
+    scale = max(float(np.max(np.abs(y))), 1e-300)
+    if abs(y1 - y0) > max(MIN_STEP_SIGMAS * sigma, 1e-9 * scale):
+        return
+    # No level change start to end: is there a late edge, or nothing at all?
+    away = np.abs(y - y0) > max(MIN_STEP_SIGMAS * sigma, 1e-9 * scale)
+    runs = np.convolve(away.astype(int), np.ones(5, int), mode="valid") == 5
+    n = y.size
+    if runs.any():
+        i = int(np.flatnonzero(runs)[0])
+        if i >= n - 2 * max(5, int(round(TAIL_FRACTION * n))):
+            raise InputError(
+                f"channel {name!r}: the step starts at sample {i + 1} of {n}, too close to the end of "
+                "the record; expected a settled flat part after the step (capture a longer record "
+                "or move the trigger earlier)", source=source)
+        raise InputError(
+            f"channel {name!r}: the trace leaves its start level ({y0:.6g}) and comes back to it; "
+            "expected a step from one level to another (for a load step use the load-step mode)",
+            source=source)
+    raise InputError(
+        f"channel {name!r}: no step found; the start ({y0:.6g}) and end ({y1:.6g}) levels differ by "
+        f"{abs(y1 - y0):.3g}, less than {MIN_STEP_SIGMAS:g}x the noise ({sigma:.3g}); expected a "
+        "trace that steps from one level to another", source=source)
+
+
+def _step_index(u: np.ndarray, rel_noise: float) -> int:
+    """Last sample before the first 10 % crossing still within the noise of the start level."""
+    above = np.flatnonzero(u >= 0.1)
+    i10 = int(above[0]) if above.size else u.size - 1
+    thr = max(4.0 * rel_noise, 2e-3)
+    quiet = np.flatnonzero(np.abs(u[: i10 + 1]) <= thr)
+    return int(quiet[-1]) if quiet.size else 0
