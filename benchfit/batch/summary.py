@@ -17,12 +17,14 @@ import numpy as np
 from benchfit.batch.limits import Limits
 from benchfit.batch.table import PARAM_PREFIX
 from benchfit.fileio import as_float, write_bytes_atomic
+from benchfit.output.style import MEASURED, TARGET, log_axis, new_figure, styled
 from benchfit.provenance import Provenance
 
 #: Figures summarised when present, in report order.
 FIGURES = ("phase_margin_deg", "gain_margin_db", "crossover_hz", "phase_crossover_hz",
            "delay_margin_s", "modulus_margin", "fit_rms_db", "fit_rms_deg")
 PERCENTILES = (1, 5, 50, 95, 99)
+_WORST_FIGURES = ("phase_margin_deg", "gain_margin_db", "crossover_hz", "fit_rms_db")
 
 
 def _figure_stats(values: np.ndarray) -> dict[str, float]:
@@ -89,7 +91,9 @@ class LotSummary:
         return cls(total=int(d["total"]), counts={k: int(v) for k, v in d["counts"].items()},
                    yield_fraction=None if y is None else float(y),
                    figures={k: {s: as_float(x) for s, x in v.items()} for k, v in d["figures"].items()},
-                   worst=list(d.get("worst", [])), fail_reasons=dict(d.get("fail_reasons", {})),
+                   worst=[{k: as_float(v) if k in _WORST_FIGURES else v for k, v in w.items()}
+                          for w in d.get("worst", [])],
+                   fail_reasons=dict(d.get("fail_reasons", {})),
                    errors=list(d.get("errors", [])),
                    provenance=Provenance.from_dict(d.get("provenance")))
 
@@ -139,9 +143,8 @@ def summarise(rows: Sequence[dict[str, Any]], *, n_worst: int = 10,
     sign = 1.0 if key == "phase_margin_deg" else -1.0  # least margin, or largest residual
     ranked = sorted((r for r in good if r.get(key) is not None and not math.isnan(r[key])),
                     key=lambda r: (sign * r[key], r["file"]))
-    keep = ("phase_margin_deg", "gain_margin_db", "crossover_hz", "fit_rms_db")
     worst = [{"unit": r.get("unit"), "file": r["file"], "status": r.get("status"),
-              "reason": r.get("reason") or "", **{k: r.get(k) for k in keep if r.get(k) is not None}}
+              "reason": r.get("reason") or "", **{k: r.get(k) for k in _WORST_FIGURES if r.get(k) is not None}}
              for r in ranked[:n_worst]]
     reasons = Counter(_reason_kind(x) for r in rows if r.get("status") == "fail"
                       for x in (r.get("reason") or "").split("; ") if x)
@@ -166,49 +169,54 @@ _LIMIT_LINES = {
 }
 
 
-def plot_histograms(rows: Sequence[dict[str, Any]], path: str | os.PathLike, *,
-                    limits: Limits | None = None, bins: int = 40) -> Path:
-    """Histograms of each summarised figure, limits drawn as dashed lines, written as PNG.
+def _limit_values(name: str, limits: Limits | None) -> list[float]:
+    if limits is None:
+        return []
+    if name in _LIMIT_LINES:
+        vals = _LIMIT_LINES[name](limits)
+    elif name.startswith(PARAM_PREFIX) and name[len(PARAM_PREFIX):] in limits.parameters:
+        vals = limits.parameters[name[len(PARAM_PREFIX):]].to_list()
+    else:
+        vals = []
+    return [v for v in vals if v is not None]
 
-    Returns
-    -------
-    Path
-        The file written (atomically).
+
+@styled
+def histogram_figure(rows: Sequence[dict[str, Any]], *, limits: Limits | None = None):
+    """A matplotlib Figure: one histogram per summarised figure, limits as dashed lines.
+
+    Error rows are left out; frequencies spanning more than a decade get a log axis.
     """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
     good = [r for r in rows if r.get("status") != "error"]
-    names = [n for n in (*FIGURES, *sorted({k for r in good for k in r if k.startswith(PARAM_PREFIX)}))
+    extra = sorted({k for r in good for k in r if k.startswith(PARAM_PREFIX)})
+    names = [n for n in (*FIGURES, *extra)
              if any(r.get(n) is not None and math.isfinite(r[n]) for r in good)]
     ncol = 3
     nrow = max(1, math.ceil(len(names) / ncol))
-    fig, axes = plt.subplots(nrow, ncol, figsize=(4 * ncol, 2.8 * nrow), squeeze=False)
+    fig = new_figure(4.0 * ncol, 2.9 * nrow)
+    axes = fig.subplots(nrow, ncol, squeeze=False)
     for ax, name in zip(axes.flat, names, strict=False):
         v = np.array([r[name] for r in good if r.get(name) is not None and math.isfinite(r[name])])
-        logx = name.endswith("_hz") and np.all(v > 0) and v.max() / v.min() > 10
-        edges = (np.geomspace(v.min(), v.max(), bins + 1) if logx and v.min() != v.max()
-                 else bins)
-        ax.hist(v, bins=edges, color="0.45")
+        bins = int(np.clip(2 * np.sqrt(v.size), 5, 60))
+        logx = bool(name.endswith("_hz") and np.all(v > 0) and v.max() / v.min() > 10)
+        edges = np.geomspace(v.min(), v.max(), bins + 1) if logx else bins
+        ax.set_axisbelow(True)
+        ax.hist(v, bins=edges, color=MEASURED, alpha=0.75, edgecolor="white", linewidth=0.5)
         if logx:
-            ax.set_xscale("log")
-        if limits is not None and name in _LIMIT_LINES:
-            for x in _LIMIT_LINES[name](limits):
-                if x is not None:
-                    ax.axvline(x, color="tab:red", linestyle="--", linewidth=1)
-        if name.startswith(PARAM_PREFIX):
-            w = (limits.parameters.get(name[len(PARAM_PREFIX):]) if limits else None)
-            for x in (w.to_list() if w else []):
-                if x is not None:
-                    ax.axvline(x, color="tab:red", linestyle="--", linewidth=1)
-        ax.set_title(f"{name} (n={v.size})", fontsize=9)
-        ax.tick_params(labelsize=8)
+            log_axis(ax, "x")
+        for x in _limit_values(name, limits):
+            ax.axvline(x, color=TARGET, linestyle="--", linewidth=1.5)
+        ax.set_title(f"{name} (n={v.size})")
+        ax.set_ylabel("units")
     for ax in list(axes.flat)[len(names):]:
         ax.set_visible(False)
-    fig.tight_layout()
+    return fig
+
+
+def plot_histograms(rows: Sequence[dict[str, Any]], path: str | os.PathLike, *,
+                    limits: Limits | None = None) -> Path:
+    """Write :func:`histogram_figure` as a PNG, atomically; returns the path."""
+    fig = histogram_figure(rows, limits=limits)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100)
-    plt.close(fig)
+    fig.savefig(buf, format="png")
     return write_bytes_atomic(path, buf.getvalue())

@@ -273,7 +273,8 @@ def run_task(path: str | os.PathLike, settings: TaskSettings) -> dict[str, Any]:
         status, reasons = judge(row, settings.limits)
         row.update(status=status, reason="; ".join(reasons))
     except BenchfitError as e:
-        row.update(status="error", error=_one_line(str(e)))
+        text = _one_line(str(e))  # the row names the file already
+        row.update(status="error", error=text.removeprefix(f"{path}: "))
     except Exception as e:  # noqa: BLE001 - a lot must survive any one file
         row.update(status="error", error=_one_line(f"internal error ({type(e).__name__}: {e})"))
     row["warnings"] = "; ".join(_one_line(w) for w in dict.fromkeys(warnings))

@@ -1,0 +1,154 @@
+"""Running lots: identical rows on every path, bad files become error rows, resume after a kill."""
+
+import os
+import signal
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+
+from benchfit.batch.limits import parse_limits
+from benchfit.batch.runner import find_sweeps, run_lot
+from benchfit.batch.synth_lot import make_lot
+from benchfit.batch.table import read_table
+from benchfit.batch.task import TaskSettings, run_task
+from benchfit.data import TimeTrace, write_trace_csv
+from benchfit.errors import InputError
+
+# Common practice, no source: a converter loop is commonly held to >= 45 deg phase margin
+# and >= 6 dB gain margin.  The generated lot sits near 56 deg / 17 dB, crossover near 25 kHz.
+LIMITS = parse_limits("[margins]\nmin_phase_margin_deg = 45\nmin_gain_margin_db = 6\n"
+                      "crossover_hz = [10e3, 60e3]\nrequire_stable = true\n")
+
+
+@pytest.fixture(scope="module")
+def lot(tmp_path_factory):
+    """12 generated loop sweeps plus a corrupt, an empty and a non-sweep file."""
+    d = tmp_path_factory.mktemp("lot")
+    make_lot(d, 12, quantity="loop", seed=3)
+    (d / "corrupt.csv").write_bytes(bytes(np.random.default_rng(0).integers(0, 256, 3000, dtype=np.uint8)))
+    (d / "empty.csv").write_bytes(b"")
+    t = np.linspace(0, 1e-3, 200)
+    write_trace_csv(TimeTrace(time_s=t, channels={"vout": np.sin(t * 1e4)}), d / "scope_step.csv")
+    (d / "notes.txt").write_text("unit 7 reworked, C12 replaced\n")
+    return d
+
+
+def _rows(path):
+    return sorted(read_table(path)[1], key=lambda r: r["file"])
+
+
+def test_bad_files_become_error_rows_and_the_rest_pass(lot, tmp_path):
+    files = find_sweeps(lot)
+    out = tmp_path / "r.csv"
+    info = run_lot(files, TaskSettings(limits=LIMITS), out, workers=1, progress=None)
+    rows = _rows(out)
+    assert len(rows) == len(files) == 16 and info.ran == 16
+    by_name = {os.path.basename(r["file"]): r for r in rows}
+    bad = ("corrupt.csv", "empty.csv", "scope_step.csv", "notes.txt")
+    for name in bad:
+        r = by_name[name]
+        assert r["status"] == "error", name
+        assert r["error"], name
+        assert r["phase_margin_deg"] is None
+    good = [r for n, r in by_name.items() if n not in bad]
+    assert len(good) == 12
+    assert all(r["status"] == "pass" and r["reason"] is None for r in good), good
+    # unit identity comes from the header's serial; the file name is the fallback
+    assert by_name["unit_00004.csv"]["unit"] == "SN03-00004"
+    assert by_name["notes.txt"]["unit"] == "notes"
+    assert info.counts == {"pass": 12, "error": 4}
+
+
+def test_serial_pool_and_dask_give_identical_rows(lot, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    files = find_sweeps(lot)
+    settings = TaskSettings(limits=LIMITS, params=())
+    run_lot(files, settings, tmp_path / "serial.csv", workers=1, progress=None)
+    info = run_lot(files, settings, tmp_path / "pool.csv", workers=2, progress=None)
+    assert info.executor == "pool" and info.workers == 2
+    with distributed.LocalCluster(processes=False, n_workers=1, threads_per_worker=2,
+                                  dashboard_address=None) as cluster:
+        info = run_lot(files, settings, tmp_path / "dask.csv", dask=cluster.scheduler_address,
+                       progress=None)
+    assert info.executor == "dask"
+    serial = _rows(tmp_path / "serial.csv")
+    assert len(serial) == len(files)
+    assert _rows(tmp_path / "pool.csv") == serial
+    assert _rows(tmp_path / "dask.csv") == serial
+
+
+def test_task_row_matches_library_margins(lot):
+    # The row carries the margins module's figures unchanged (no second computation).
+    from benchfit.data import read_sweep
+    from benchfit.loop.margins import margins_from_data
+
+    path = str(lot / "unit_00002.csv")
+    row = run_task(path, TaskSettings())
+    r = read_sweep(path)
+    m = margins_from_data(r.freq_hz, r.response)
+    assert row["status"] == "measured" and row["margins_from"] == "data"
+    assert row["phase_margin_deg"] == m.phase_margin_deg
+    assert row["crossover_hz"] == m.crossover_hz
+    assert row["gain_margin_db"] == m.gain_margin_db
+    assert row["points"] == 401 and row["quantity"] == "loop"
+
+
+def test_existing_output_needs_resume(lot, tmp_path):
+    files = find_sweeps(lot)[:2]
+    out = tmp_path / "r.csv"
+    run_lot(files, TaskSettings(), out, workers=1, progress=None)
+    with pytest.raises(InputError, match="--resume"):
+        run_lot(files, TaskSettings(), out, workers=1, progress=None)
+    # resuming a finished lot runs nothing and changes nothing
+    before = out.read_text()
+    info = run_lot(files, TaskSettings(), out, workers=1, resume=True, progress=None)
+    assert info.ran == 0 and info.resumed == 2 and out.read_text() == before
+    # other columns (a new --param) cannot be appended to the same table
+    with pytest.raises(InputError, match="columns"):
+        run_lot(files, TaskSettings(params=("k",)), out, workers=1, resume=True, progress=None)
+
+
+def _cli(*args):
+    return [sys.executable, "-m", "benchfit", "batch", *map(str, args)]
+
+
+def test_resume_after_kill_has_no_duplicate_and_no_missing_rows(tmp_path):
+    lot = tmp_path / "lot"
+    files = make_lot(lot, 80, quantity="loop", seed=5)
+    out = tmp_path / "r.csv"
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1")
+    proc = subprocess.Popen(_cli(lot, "-o", out, "--workers", 1, "--quiet"), env=env,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    deadline = time.monotonic() + 60
+    rows_seen = 0
+    while time.monotonic() < deadline and proc.poll() is None:
+        if out.exists():
+            rows_seen = out.read_text().count("\n") - 1
+            if rows_seen >= 5:
+                break
+        time.sleep(0.005)
+    proc.send_signal(signal.SIGKILL)
+    proc.wait()
+    assert proc.returncode == -signal.SIGKILL, "the lot finished before it could be killed"
+    done_before = read_table(out)[1]
+    assert 5 <= len(done_before) < 80
+    # a write torn by the kill: half a line with no newline at the end
+    with open(out, "a") as fh:
+        fh.write(str(files[0]) + ",SN05-000")
+    res = subprocess.run(_cli(lot, "-o", out, "--workers", 2, "--resume", "--json"), env=env,
+                         capture_output=True, text=True, timeout=300)
+    assert res.returncode == 0, res.stderr
+    rows = read_table(out)[1]
+    names = [r["file"] for r in rows]
+    assert len(names) == len(set(names)) == 80
+    assert sorted(names) == sorted(str(f) for f in files)
+    # rows written before the kill are kept as they were
+    assert rows[:len(done_before)] == done_before
+    import json
+    report = json.loads(res.stdout)
+    assert report["run"]["resumed"] == len(done_before)
+    assert report["run"]["ran"] == 80 - len(done_before)
+    assert report["summary"]["total"] == 80
