@@ -1,0 +1,362 @@
+"""Read a frequency sweep from whatever text an analyzer exported.
+
+:func:`read_sweep` dispatches on content: benchfit's canonical CSV, Touchstone
+v1, or a delimited text table in any dialect (see :mod:`benchfit.data.dialect`
+for separator / decimal / header detection and :mod:`benchfit.data.columns`
+for what the column names mean).  Everything detected can be overridden.
+
+The result carries ``meta["dialect"]`` (what was detected and used) and
+``meta["warnings"]`` (things the user should look at).
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_sweep
+from benchfit.data.columns import Column, TracePair, classify_all, pair_traces
+from benchfit.data.dialect import Block, find_blocks, load_text, sniff
+from benchfit.data.response import QUANTITIES, FrequencyResponse
+from benchfit.data.touchstone import looks_like_touchstone, ports_from_name, read_touchstone
+from benchfit.data.units import freq_factor
+from benchfit.errors import InputError
+from benchfit.provenance import Provenance
+
+_COLUMN_WORDS = {
+    "freq": ("freq", "auto"), "f": ("freq", "auto"), "frequency": ("freq", "auto"),
+    "mag": ("mag", "auto"), "gain": ("mag", "auto"), "db": ("mag", "db"), "mag_db": ("mag", "db"),
+    "lin": ("mag", "linear"), "mag_lin": ("mag", "linear"), "linear": ("mag", "linear"),
+    "phase": ("phase", "auto"), "deg": ("phase", "deg"), "phase_deg": ("phase", "deg"),
+    "rad": ("phase", "rad"), "phase_rad": ("phase", "rad"),
+    "re": ("re", "auto"), "real": ("re", "auto"), "im": ("im", "auto"), "imag": ("im", "auto"),
+    "coherence": ("coherence", "auto"), "coh": ("coherence", "auto"),
+    "stddev": ("stddev", "auto"), "weight": ("weight", "auto"),
+    "skip": ("skip", "auto"), "-": ("skip", "auto"), "_": ("skip", "auto"),
+}
+
+
+def parse_columns(spec: str | list[str] | tuple[str, ...]) -> list[tuple[str, str]]:
+    """'freq,mag,phase' -> [(role, form), ...]; see :data:`_COLUMN_WORDS` for the words."""
+    words = spec.split(",") if isinstance(spec, str) else list(spec)
+    out = []
+    for w in words:
+        key = w.strip().lower()
+        if key not in _COLUMN_WORDS:
+            raise InputError(f"{w.strip()!r} is not a column word; expected one of "
+                             + ", ".join(sorted(_COLUMN_WORDS)), source="--columns")
+        out.append(_COLUMN_WORDS[key])
+    roles = [r for r, _ in out]
+    if "freq" not in roles or not ({"mag", "phase"} <= set(roles) or {"re", "im"} <= set(roles)):
+        raise InputError(f"{spec!r} needs a frequency column and mag+phase or re+im",
+                         source="--columns")
+    return out
+
+
+def _columns_from_spec(spec: list[tuple[str, str]], ncols: int, source: str) -> list[Column]:
+    if len(spec) > ncols:
+        raise InputError(f"--columns names {len(spec)} columns but the rows have {ncols}",
+                         source=source)
+    return [Column(index=i, name=f"{role}" + (f" ({form})" if form != "auto" else ""), role=role,
+                   form=form) for i, (role, form) in enumerate(spec)]
+
+
+def _check_choice(value: str, allowed: tuple[str, ...], option: str) -> str:
+    v = str(value).lower()
+    if v not in allowed:
+        raise InputError(f"{value!r}; expected one of {', '.join(allowed)}", source=option)
+    return v
+
+
+def _select_trace(traces: list[tuple[str, Block, TracePair]], trace: int | str | None,
+                  source: str, warnings: list[str]) -> tuple[int, str, Block, TracePair]:
+    labels = [t[0] for t in traces]
+    if trace is None:
+        if len(traces) > 1:
+            warnings.append(f"file holds {len(traces)} traces ({'; '.join(labels)}); read trace 1 "
+                            f"({labels[0]}); pick another with trace=N or a name")
+        return (0, *traces[0])
+    if isinstance(trace, int) or str(trace).strip().isdigit():
+        k = int(trace)
+        if not 1 <= k <= len(traces):
+            raise InputError(f"trace {k} does not exist; the file holds {len(traces)}: "
+                             + "; ".join(f"{i + 1}={lab}" for i, lab in enumerate(labels)),
+                             source="--trace")
+        return (k - 1, *traces[k - 1])
+    want = str(trace).strip().lower()
+    hits = [i for i, lab in enumerate(labels) if want == lab.lower()]
+    if not hits:
+        hits = [i for i, lab in enumerate(labels) if want in lab.lower()]
+    if len(hits) != 1:
+        raise InputError(f"{'no' if not hits else 'more than one'} trace matches {trace!r}; the file "
+                         "holds " + "; ".join(f"{i + 1}={lab}" for i, lab in enumerate(labels)),
+                         source="--trace")
+    return (hits[0], *traces[hits[0]])
+
+
+def _decide_mag(values: np.ndarray, col: Column, override: str, lines: np.ndarray, source: str,
+                warnings: list[str]) -> str:
+    form = override if override != "auto" else col.form
+    if form == "auto":
+        if np.any(values < 0):
+            form = "db"
+        else:
+            form = "linear"
+            warnings.append(f"magnitude column {col.name!r} states no unit and has no negative "
+                            "value, so it was read as linear; use mag='db' (--mag-db) if it is dB")
+    if form == "linear" and np.any(values < 0):
+        i = int(np.flatnonzero(values < 0)[0])
+        raise InputError(f"linear magnitude {values[i]:g} is negative; expected >= 0 (if the column "
+                         "is in dB, use --mag-db)", source=source, line=int(lines[i]), column=col.name)
+    if form == "db" and np.all(values >= 0) and values.min() < 1e-2 and values.max() >= 1:
+        # A dB column that only holds values >= 0 falling to near zero is more likely a linear
+        # magnitude decaying over decades (common practice, no source).
+        warnings.append(f"magnitude column {col.name!r} is read as dB but looks linear (all values "
+                        f"between {values.min():.3g} and {values.max():.3g}); use --mag-linear if so")
+    return form
+
+
+def _decide_phase(values: np.ndarray, col: Column, override: str, warnings: list[str]) -> str:
+    form = override if override != "auto" else col.form
+    if form == "auto":
+        peak = float(np.max(np.abs(values)))
+        if 0.2 < peak <= np.pi * 1.001:
+            form = "rad"
+            warnings.append(f"phase column {col.name!r} states no unit and stays within ±π; read as "
+                            "radians (use --phase-deg if it is degrees)")
+        else:
+            form = "deg"
+    return form
+
+
+def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phase,
+                 warnings: list[str]) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray],
+                                               dict[str, Any], list[Column], bool, list[str]]:
+    lines = text.splitlines()
+    d = sniff(lines, source)
+    blocks = find_blocks(lines, d, source)
+    spec = parse_columns(columns) if columns is not None else None
+    traces: list[tuple[str, Block, TracePair]] = []
+    problems: list[str] = []
+    for bi, blk in enumerate(blocks):
+        ncols = blk.data.shape[1]
+        if spec is not None:
+            cols = _columns_from_spec(spec, ncols, source)
+        elif blk.names is not None:
+            cols = classify_all(blk.names, blk.units)
+        else:
+            problems.append(f"no header line above the numbers at line {int(blk.line_no[0])}"
+                            + (f" (the line above, {blk.header_text!r}, does not have {ncols} names)"
+                               if blk.header_text else ""))
+            continue
+        pairs, pair_warn = pair_traces(cols)
+        if not pairs:
+            problems.append(f"the names {[c.name for c in cols]} (line {blk.header_line}) give no "
+                            "frequency column with a magnitude/phase or real/imaginary pair")
+            continue
+        if spec is None:
+            warnings.extend(pair_warn)
+        for k, p in enumerate(pairs):
+            parts = [x for x in ((blk.title or "") if len(blocks) > 1 else "",
+                                 p.label if len(pairs) > 1 else "") if x]
+            label = " ".join(parts) or f"trace {len(traces) + 1}"
+            if len(blocks) > 1 and not parts:
+                label = f"block {bi + 1}"
+            traces.append((label, blk, p))
+    if not traces:
+        raise InputError(problems[0] + "; give the columns, e.g. columns='freq,mag,phase' "
+                         "(--columns freq,mag,phase)", source=source)
+    k, label, blk, pair = _select_trace(traces, trace, source, warnings)
+    data, lines_no = blk.data, blk.line_no
+    f_unit = freq_unit or pair.freq.unit or "Hz"
+    f = data[:, pair.freq.index] * freq_factor(f_unit, exact_case=freq_unit is None)
+    a, b = data[:, pair.first.index], data[:, pair.second.index]
+    if pair.kind == "mag_phase":
+        mag_form = _decide_mag(a, pair.first, mag, lines_no, source, warnings)
+        ph_form = _decide_phase(b, pair.second, phase, warnings)
+        m = 10.0 ** (a / 20.0) if mag_form == "db" else a
+        h = m * np.exp(1j * (b if ph_form == "rad" else np.radians(b)))
+    else:
+        mag_form = ph_form = None
+        h = a + 1j * b
+    bad = np.flatnonzero(f <= 0)
+    if bad.size:
+        i = int(bad[0])
+        raise InputError(f"frequency {data[i, pair.freq.index]:g} {f_unit} is not positive; "
+                         "expected frequencies > 0", source=source, line=int(lines_no[i]),
+                         column=pair.freq.name)
+    extras = {c.role: data[:, c.index] for c in pair.extras}
+    dialect = {
+        "format": "table",
+        **d.to_dict(),
+        "header": "names and unit row" if blk.units else ("names" if blk.names else "none"),
+        "header_line": blk.header_line,
+        "first_data_line": int(lines_no[0]),
+        "freq_unit": f_unit + ("" if (freq_unit or pair.freq.unit) else " (assumed)"),
+        "data_form": pair.kind,
+        "mag_form": mag_form,
+        "phase_form": ph_form,
+        "trace": k + 1,
+        "trace_label": label,
+        "traces": [t[0] for t in traces],
+    }
+    impedance = any(c.impedance for c in (pair.first, pair.second))
+    return f, h, extras, dialect, pair.columns(), impedance, blk.notes
+
+
+def _order(f: np.ndarray, h: np.ndarray, extras: dict[str, np.ndarray], warnings: list[str]
+           ) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray], str]:
+    """Sort by frequency and average repeated frequencies."""
+    steps = np.diff(f)
+    order = "ascending"
+    if np.all(steps < 0):
+        order = "descending (sorted)"
+    elif not np.all(steps > 0):
+        order = "mixed (sorted)" if np.any(steps < 0) else "ascending"
+    if order != "ascending":
+        idx = np.argsort(f, kind="stable")
+        f, h = f[idx], h[idx]
+        extras = {k: v[idx] for k, v in extras.items()}
+        if order.startswith("mixed"):
+            warnings.append("frequencies were out of order; sorted")
+    uniq, inv, counts = np.unique(f, return_inverse=True, return_counts=True)
+    if uniq.size != f.size:
+        n_dup = int(np.sum(counts > 1))
+        warnings.append(f"{n_dup} frequencies appear more than once; their values were averaged")
+
+        def avg(v):
+            return np.bincount(inv, weights=v, minlength=uniq.size) / counts
+
+        h = avg(h.real) + 1j * avg(h.imag)
+        extras = {k: avg(v) for k, v in extras.items()}
+        f = uniq
+    return f, h, extras, order
+
+
+def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = None,
+               trace: int | str | None = None, freq_unit: str | None = None,
+               mag: str = "auto", phase: str = "auto", param: str | None = None,
+               quantity: str | None = None) -> FrequencyResponse:
+    """Read a frequency sweep from a text export, a Touchstone file or a canonical CSV.
+
+    Parameters
+    ----------
+    path
+        The file.  Its content decides how it is read, not its name (except
+        that '.sNp' names a Touchstone file's port count).
+    columns
+        Column meanings in order, e.g. ``"freq,mag,phase"``, ``"freq,db,deg"``,
+        ``"freq,re,im"``, ``"skip,freq,db,rad"``; needed for a file with no header,
+        and overrides the header when given.
+    trace
+        Which trace when the file holds several: 1-based number or (part of) its name.
+    freq_unit
+        'Hz', 'kHz', 'MHz' or 'GHz' for the frequency column (default: from the header, else Hz).
+    mag
+        'auto', 'db' or 'linear'.
+    phase
+        'auto', 'deg' or 'rad'.
+    param
+        Touchstone parameter ('S21', 'S11', 'Z11'...); default S21 for a two-port, S11
+        for a one-port.
+    quantity
+        What was measured, one of :data:`benchfit.data.QUANTITIES` (default: 'impedance'
+        when the columns say ohms, else 'unknown').
+
+    Returns
+    -------
+    FrequencyResponse
+        Sorted by frequency; ``meta`` holds ``dialect``, ``warnings``, ``columns`` and
+        ``notes`` (metadata lines found above the data).
+
+    Raises
+    ------
+    InputError
+        Naming file, line and column: empty file, no numeric rows, non-numeric or
+        non-finite cell, non-positive frequency, a single point, mismatched column
+        count, unknown Touchstone option, unknown override value.
+    """
+    source = str(path)
+    mag = _check_choice(mag, ("auto", "db", "linear"), "--mag")
+    phase = _check_choice(phase, ("auto", "deg", "rad"), "--phase")
+    if freq_unit is not None:
+        freq_factor(freq_unit, exact_case=False)  # validates early
+    if quantity is not None and quantity not in QUANTITIES:
+        raise InputError(f"{quantity!r}; expected one of {', '.join(QUANTITIES)}", source="--quantity")
+    settings = {k: v for k, v in dict(columns=columns, trace=trace, freq_unit=freq_unit, mag=mag,
+                                      phase=phase, param=param, quantity=quantity).items()
+                if v is not None and v != "auto"}
+    text = load_text(path)
+    first = text.lstrip().split("\n", 1)[0].strip()
+    if first == SWEEP_MAGIC:
+        resp = read_canonical_sweep(path, text=text)
+        meta = dict(resp.meta)
+        meta.setdefault("warnings", [])
+        meta["dialect"] = {"format": "benchfit canonical CSV", "separator": "comma", "decimal": ".",
+                           "header": "names", "freq_unit": "Hz", "data_form": "re_im"}
+        meta["columns"] = [{"index": i, "name": n, "role": n if n != "freq_hz" else "freq",
+                            "unit": "Hz" if i == 0 else None, "form": "auto"}
+                           for i, n in enumerate(("freq_hz", "re", "im"))]
+        return replace(resp, quantity=quantity or resp.quantity, meta=meta,
+                       provenance=Provenance(step="read_sweep", sources=(source,), settings=settings,
+                                             parents=resp.provenance.parents))
+    if first == TRACE_MAGIC:
+        raise InputError("this is a benchfit trace file (time series); read it with read_trace "
+                         "or 'benchfit step'", source=source, line=1)
+
+    warnings: list[str] = []
+    notes: list[str] = []
+    impedance = False
+    if looks_like_touchstone(path, text):
+        ts = read_touchstone(text, source, param=param, ports=ports_from_name(path))
+        f, h, extras = ts.freq_hz, ts.values, {}
+        dialect = {"format": "touchstone v1", "ports": ts.ports, "parameter": ts.param,
+                   "data_form": ts.options["format"], "freq_unit": ts.options["freq_unit"],
+                   "r_ohm": ts.options["r_ohm"], "option_line": ts.options["line"]}
+        cols = [{"index": 0, "name": "frequency", "role": "freq", "unit": ts.options["freq_unit"],
+                 "form": "auto"}, {"index": None, "name": ts.param, "role": ts.param,
+                                   "unit": None, "form": ts.options["format"]}]
+        impedance = ts.param.startswith("Z")
+        if any(v is not None for v in (columns, trace)):
+            warnings.append("columns/trace do not apply to a Touchstone file; use param")
+        if np.any(f <= 0):
+            raise InputError(f"frequency {f[f <= 0][0]:g} Hz is not positive", source=source)
+    else:
+        if param is not None:
+            warnings.append("param applies to Touchstone files only; ignored")
+        f, h, extras, dialect, used, impedance, notes = _table_sweep(
+            text, source, columns=columns, trace=trace, freq_unit=freq_unit, mag=mag, phase=phase,
+            warnings=warnings)
+        cols = [c.to_dict() for c in used]
+    if f.size < 2:
+        raise InputError(f"only {f.size} data point; a sweep needs at least 2", source=source)
+    f, h, extras, order = _order(f, h, extras, warnings)
+    if f.size < 2:
+        raise InputError("all rows have the same frequency; a sweep needs at least 2", source=source)
+    dialect["order"] = order
+    if not np.all(np.isfinite(h)):
+        i = int(np.flatnonzero(~np.isfinite(h))[0])
+        raise InputError(f"response at {f[i]:g} Hz overflows (magnitude too large to represent)",
+                         source=source)
+    if quantity is None:
+        quantity = "impedance" if impedance else "unknown"
+    coherence = extras.get("coherence")
+    meta = {
+        "source": Path(source).name,
+        "dialect": dialect,
+        "columns": cols,
+        "warnings": warnings,
+        "notes": notes[:40],
+    }
+    try:
+        return FrequencyResponse(
+            freq_hz=f, response=h, stddev=extras.get("stddev"), weight=extras.get("weight"),
+            coherence=coherence, quantity=quantity, meta=meta,
+            provenance=Provenance(step="read_sweep", sources=(source,), settings=settings))
+    except InputError as e:
+        raise InputError(e.message, source=source) from None
+

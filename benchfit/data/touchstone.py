@@ -1,0 +1,238 @@
+"""Touchstone version 1 files (.s1p, .s2p, ... .sNp).
+
+The format is the open standard of the IBIS Open Forum ("Touchstone File
+Format Specification", version 1.1):
+
+* ``!`` starts a comment, anywhere on a line;
+* the option line ``# <freq unit> <parameter> <format> R <ohms>`` comes before
+  the data; every field is optional, defaults ``GHz S MA R 50``; only the first
+  option line counts;
+* formats: RI (real, imaginary), MA (magnitude, angle in degrees), DB (dB, angle
+  in degrees);
+* two-port data are ordered N11 N21 N12 N22 on one line; other port counts
+  are row-major (N11 N12 ... N1n N21 ...), wrapped over lines;
+* Z and Y parameters are normalised to R (so Z = value·R, Y = value/R);
+* a two-port file may end with noise parameters, which start where the
+  frequency stops increasing; they are not read.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass
+
+import numpy as np
+
+from benchfit.errors import InputError
+
+_EXT = re.compile(r"\.s(\d+)p$", re.IGNORECASE)
+_FREQ = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
+_OPTION_WORDS = {"hz", "khz", "mhz", "ghz", "s", "y", "z", "h", "g", "ma", "ri", "db", "r"}
+
+
+def _is_option_line(s: str) -> bool:
+    """'# GHz S MA R 50': every word an option word (the number only after R)."""
+    toks = s.lstrip()[1:].split()
+    if not toks:
+        return False
+    for k, t in enumerate(toks):
+        if t.lower() in _OPTION_WORDS:
+            continue
+        if k > 0 and toks[k - 1].lower() == "r":
+            try:
+                float(t)
+                continue
+            except ValueError:
+                return False
+        return False
+    return True
+
+
+@dataclass(frozen=True)
+class TouchstoneData:
+    """One parameter read from a Touchstone file.
+
+    Attributes
+    ----------
+    freq_hz
+        Frequencies in Hz, as in the file.
+    values
+        Complex values of the chosen parameter (Z in ohm, Y in S after de-normalising).
+    ports
+        Port count.
+    options
+        The option line as understood: freq_unit, parameter, format, r_ohm, line.
+    param
+        Name of the parameter read, e.g. 'S21'.
+    """
+
+    freq_hz: np.ndarray
+    values: np.ndarray
+    ports: int
+    options: dict
+    param: str
+
+
+def ports_from_name(path: str | os.PathLike) -> int | None:
+    """Port count from a '.sNp' extension, or None."""
+    m = _EXT.search(str(path))
+    return int(m.group(1)) if m else None
+
+
+def looks_like_touchstone(path: str | os.PathLike, text: str) -> bool:
+    """True for a '.sNp' name, or text whose first non-comment line is an option line."""
+    if ports_from_name(path):
+        return True
+    for line in text.splitlines():
+        s = line.split("!", 1)[0].strip()
+        if s:
+            return s.startswith("#") and _is_option_line(s)
+    return False
+
+
+def _options(line: str, source: str, lineno: int) -> dict:
+    opts = {"freq_unit": "GHz", "parameter": "S", "format": "MA", "r_ohm": 50.0, "line": lineno}
+    toks = line.lstrip()[1:].split()
+    i = 0
+    while i < len(toks):
+        t = toks[i].lower()
+        if t in _FREQ:
+            opts["freq_unit"] = {"hz": "Hz", "khz": "kHz", "mhz": "MHz", "ghz": "GHz"}[t]
+        elif t in ("s", "y", "z", "h", "g"):
+            opts["parameter"] = t.upper()
+        elif t in ("ma", "ri", "db"):
+            opts["format"] = t.upper()
+        elif t == "r":
+            if i + 1 >= len(toks):
+                raise InputError("option line: 'R' must be followed by the reference resistance",
+                                 source=source, line=lineno)
+            try:
+                opts["r_ohm"] = float(toks[i + 1])
+            except ValueError:
+                raise InputError(f"option line: reference resistance {toks[i + 1]!r} is not a number",
+                                 source=source, line=lineno) from None
+            if not opts["r_ohm"] > 0:
+                raise InputError(f"option line: reference resistance {toks[i + 1]} must be > 0",
+                                 source=source, line=lineno)
+            i += 1
+        else:
+            raise InputError(
+                f"unknown option {toks[i]!r} in the option line; expected a frequency unit "
+                "(Hz kHz MHz GHz), a parameter (S Y Z H G), a format (MA RI DB) or 'R <ohms>'",
+                source=source, line=lineno)
+        i += 1
+    return opts
+
+
+def _param_index(param: str, ports: int, kind: str, source: str) -> tuple[int, int, str]:
+    m = re.fullmatch(r"\s*([SYZHG])?(\d)(\d)\s*", param, re.IGNORECASE)
+    if not m:
+        raise InputError(f"{param!r} is not a parameter name; expected e.g. S21 or S11", source="--param")
+    letter = (m.group(1) or kind).upper()
+    if letter != kind:
+        raise InputError(f"{source} holds {kind} parameters; asked for {param!r} "
+                         f"(use e.g. {kind}{'21' if ports == 2 else '11'})", source="--param")
+    i, j = int(m.group(2)), int(m.group(3))
+    if not (1 <= i <= ports and 1 <= j <= ports):
+        raise InputError(f"{param!r} does not exist in a {ports}-port file", source="--param")
+    return i - 1, j - 1, f"{letter}{i}{j}"
+
+
+def read_touchstone(text: str, source: str, *, param: str | None = None,
+                    ports: int | None = None) -> TouchstoneData:
+    """Parse Touchstone v1 ``text`` and return one parameter.
+
+    Parameters
+    ----------
+    text
+        File contents.
+    source
+        File name, for messages.
+    param
+        Parameter to read ('S21', '11', 'Z11'...).  Default S21 for a two-port,
+        N11 otherwise.
+    ports
+        Port count (from the extension); inferred from the first data line if None.
+
+    Raises
+    ------
+    InputError
+        Unknown option, non-numeric value, wrong value count (with line numbers),
+        bad parameter name.
+    """
+    opts: dict | None = None
+    values: list[float] = []
+    where: list[int] = []
+    per_line: list[tuple[int, int]] = []  # (line, count) of each data line
+    for k, raw in enumerate(text.splitlines(), start=1):
+        s = raw.split("!", 1)[0].strip()
+        if not s:
+            continue
+        if s.startswith("#"):
+            if opts is None:
+                opts = _options(s, source, k)
+            continue  # later option lines are ignored, as the standard says
+        if s.startswith("["):
+            raise InputError(f"Touchstone 2 keyword {s.split()[0]!r}; only version 1 files are read",
+                             source=source, line=k)
+        toks = s.split()
+        for t in toks:
+            try:
+                values.append(float(t))
+            except ValueError:
+                raise InputError(f"non-numeric value {t!r}; expected a number", source=source,
+                                 line=k) from None
+            where.append(k)
+        per_line.append((k, len(toks)))
+    if opts is None:
+        opts = _options("#", source, 0)
+        opts["line"] = None
+    if not values:
+        raise InputError("no data lines; expected frequency and parameter values", source=source)
+    if ports is None:
+        first = per_line[0][1]
+        ports = {3: 1, 9: 2}.get(first)
+        if ports is None:
+            raise InputError(f"cannot tell the port count from {first} values on the first data line; "
+                             "name the file .s1p / .s2p / .sNp", source=source, line=per_line[0][0])
+    m = 1 + 2 * ports * ports
+    arr = np.asarray(values)
+    if ports <= 2:
+        rows, last_f = [], -np.inf
+        pos = 0
+        for line, count in per_line:
+            if ports == 2 and count == 5 and rows and arr[pos] <= last_f:
+                break  # noise parameters begin
+            if count != m:
+                raise InputError(f"{count} values, expected {m} (frequency + {m - 1} for a "
+                                 f"{ports}-port)", source=source, line=line)
+            rows.append(arr[pos:pos + m])
+            last_f = arr[pos]
+            pos += count
+        table = np.vstack(rows)
+    else:
+        if arr.size % m:
+            raise InputError(f"{arr.size} values do not make whole points of {m} values each",
+                             source=source, line=where[-1])
+        table = arr.reshape(-1, m)
+    freq = table[:, 0] * _FREQ[opts["freq_unit"].lower()]
+    a, b = table[:, 1::2], table[:, 2::2]
+    fmt = opts["format"]
+    if fmt == "RI":
+        vals = a + 1j * b
+    elif fmt == "MA":
+        vals = a * np.exp(1j * np.radians(b))
+    else:
+        vals = 10.0 ** (a / 20.0) * np.exp(1j * np.radians(b))
+    kind = opts["parameter"]
+    if param is None:
+        param = f"{kind}21" if ports == 2 else f"{kind}11"
+    i, j, name = _param_index(param, ports, kind, source)
+    col = (j * 2 + i) if ports == 2 else (i * ports + j)
+    v = vals[:, col]
+    if kind == "Z":
+        v = v * opts["r_ohm"]
+    elif kind == "Y":
+        v = v / opts["r_ohm"]
+    return TouchstoneData(freq_hz=freq, values=v, ports=ports, options=opts, param=name)

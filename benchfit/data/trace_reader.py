@@ -1,0 +1,281 @@
+"""Read a scope export (time record of one or more channels) into a TimeTrace.
+
+Uses the same dialect sniffing as the sweep reader.  Time comes from a time
+column (unit from its name, a unit row, a 'horizontal units' line, or the
+``time_unit`` override) or, when there is none, from a sample-interval (or
+sample-rate) metadata line plus an optional start-time / trigger-point line.
+Channel values are scaled to V or A from units in their names (mV, mA...).
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_trace
+from benchfit.data.dialect import Block, Dialect, find_blocks, load_text, sniff
+from benchfit.data.trace import TimeTrace
+from benchfit.data.units import (
+    SIGNAL_UNITS,
+    find_time_unit,
+    rate_value_hz,
+    time_factor,
+    time_value_s,
+)
+from benchfit.errors import InputError
+from benchfit.provenance import Provenance
+
+_TIME_NAME = re.compile(r"^(time|t|x|sec|secs|second|seconds|s|zeit|temps|tiempo)$")
+_UNIT_IN_NAME = re.compile(r"[\(\[]\s*([^\)\]]*?)\s*[\)\]]")
+_KEYS = {
+    "interval": ("sampleinterval", "samplinginterval", "sampleperiod", "samplingperiod", "xincrement",
+                 "increment", "dt", "deltat", "timeperpoint", "timestep", "timeresolution"),
+    "rate": ("samplerate", "samplingrate", "samplingfrequency", "fs", "srate"),
+    "start": ("starttime", "xstart", "t0", "timeoffset", "xorigin", "xoffset", "horizontaloffset",
+              "firsttime", "start"),
+    "trigger": ("triggerpoint", "triggerindex", "triggersample", "pretriggersamples"),
+    "time_unit": ("horizontalunits", "horizontalunit", "timeunits", "timeunit", "xunits", "xunit"),
+}
+
+
+def _split_name(name: str) -> tuple[str, str | None]:
+    """'CH2 (mV)' -> ('CH2', 'mV'); 'Vout_mV' -> ('Vout', 'mV'); 'CH1' -> ('CH1', None)."""
+    m = _UNIT_IN_NAME.search(name)
+    if m:
+        return (name[:m.start()] + name[m.end():]).strip() or name.strip(), m.group(1)
+    m = re.match(r"^(.*?)[\s_/]+([A-Za-zµμ]{1,3})$", name.strip())
+    if m and (m.group(2).lower() in SIGNAL_UNITS or m.group(2).lower() in ("s", "ms", "us", "µs", "ns")):
+        return m.group(1).strip(), m.group(2)
+    return name.strip(), None
+
+
+def _is_time_name(name: str) -> bool:
+    base, unit = _split_name(name)
+    b = base.strip().lower()
+    return bool(_TIME_NAME.match(b)) or b.startswith("time") or (
+        unit is not None and unit.lower() in ("s", "ms", "us", "µs", "μs", "ns") and b in ("", "x"))
+
+
+def _metadata(notes: list[str], d: Dialect) -> dict[str, tuple[str, str]]:
+    """Known timing keys found in the metadata lines -> (raw value, the line's text)."""
+    out: dict[str, tuple[str, str]] = {}
+    for note in notes:
+        key = value = None
+        for sep in ((d.separator,) if d.separator != "whitespace" else ()) + (":", "=", ",", "\t", ";"):
+            if sep in note:
+                k, _, v = note.partition(sep)
+                key, value = k, v.strip().strip(d.separator if d.separator != "whitespace" else " ")
+                break
+        if key is None:
+            parts = note.rsplit(None, 1)
+            if len(parts) != 2:
+                continue
+            key, value = parts
+        norm = re.sub(r"[^a-z0-9]", "", key.lower())
+        value = value.strip()
+        if d.separator not in (",", "whitespace") and d.separator in value:
+            value = " ".join(x for x in value.split(d.separator) if x.strip())
+        for what, names in _KEYS.items():
+            if norm in names and what not in out:
+                out[what] = (value, note)
+    return out
+
+
+def _time_axis(block: Block, time_col: int | None, names: list[str], units: list[str] | None,
+               meta_keys: dict, time_unit: str | None, sample_interval_s: float | None,
+               source: str, warnings: list[str]) -> tuple[np.ndarray, dict[str, Any]]:
+    n = block.data.shape[0]
+    info: dict[str, Any] = {}
+    if time_col is not None:
+        unit = time_unit
+        how = "option"
+        if unit is None:
+            unit = find_time_unit(_split_name(names[time_col])[1] or "") if names else None
+            how = "column name"
+        if unit is None and units:
+            unit = find_time_unit(units[time_col])
+            how = "unit row"
+        if unit is None and "time_unit" in meta_keys:
+            unit = find_time_unit(meta_keys["time_unit"][0])
+            how = "metadata line"
+        if unit is None:
+            unit, how = "s", "assumed"
+        t = block.data[:, time_col] * time_factor(unit, source="time unit")
+        info.update(time_source="time column", time_unit=unit, time_unit_from=how)
+        return _check_time(t, block.line_no, source, warnings), info
+    dt = sample_interval_s
+    how = "option"
+    if dt is None and "interval" in meta_keys:
+        raw, line = meta_keys["interval"]
+        default = find_time_unit(meta_keys["time_unit"][0]) if "time_unit" in meta_keys else "s"
+        dt = time_value_s(raw, default_unit=default or "s")
+        how = f"metadata: {line}"
+        if dt is None:
+            raise InputError(f"sample interval {raw!r} is not a time; expected e.g. 2e-7 or 200 ns",
+                             source=source)
+    if dt is None and "rate" in meta_keys:
+        raw, line = meta_keys["rate"]
+        rate = rate_value_hz(raw)
+        if rate is None or rate <= 0:
+            raise InputError(f"sample rate {raw!r} is not a rate; expected e.g. 5e6 or 5 MSa/s",
+                             source=source)
+        dt, how = 1.0 / rate, f"metadata: {line}"
+    if dt is None:
+        raise InputError("no time column and no sample-interval line; give the interval "
+                         "(--sample-interval) or name a column 'time'", source=source)
+    if not dt > 0:
+        raise InputError(f"sample interval {dt:g} s must be > 0", source=source)
+    t0 = 0.0
+    if "start" in meta_keys:
+        v = time_value_s(meta_keys["start"][0])
+        if v is not None:
+            t0 = v
+    elif "trigger" in meta_keys:
+        try:
+            t0 = -float(meta_keys["trigger"][0].split()[0].replace(",", ".")) * dt
+        except ValueError:
+            pass
+    info.update(time_source="sample interval", sample_interval_from=how, t0_s=t0)
+    return t0 + dt * np.arange(n), info
+
+
+def _check_time(t: np.ndarray, line_no: np.ndarray, source: str, warnings: list[str]) -> np.ndarray:
+    steps = np.diff(t)
+    if np.all(steps > 0):
+        return t
+    n = t.size
+    mean = (t[-1] - t[0]) / (n - 1)
+    uniform = t[0] + mean * np.arange(n)
+    if mean > 0 and np.all(steps >= 0) and np.max(np.abs(t - uniform)) <= 1.5 * mean:
+        # Repeated times: the export printed too few digits; the samples are evenly spaced.
+        warnings.append("time column repeats values (printed with too few digits); rebuilt an "
+                        "evenly spaced time axis from the first and last time")
+        return uniform
+    i = int(np.flatnonzero(steps <= 0)[0]) + 1
+    raise InputError(f"time {t[i]:g} s does not increase from the row before ({t[i - 1]:g} s)",
+                     source=source, line=int(line_no[i]))
+
+
+def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
+               columns: str | list[str] | None = None, time_unit: str | None = None,
+               sample_interval_s: float | None = None) -> TimeTrace:
+    """Read a scope export (CSV/TSV/whitespace, any decimal mark) or a canonical trace CSV.
+
+    Parameters
+    ----------
+    path
+        The file.
+    channel
+        Keep only this channel: its name (case-insensitive, units stripped, e.g. 'CH2')
+        or 0-based index among the channels.  Default: all channels.
+    columns
+        Column names in order, e.g. ``"time,CH1,CH2"`` or ``"CH1"``; 'time' marks the time
+        column and 'skip' drops one.  Needed only when the file has no header.
+    time_unit
+        Unit of the time column ('s', 'ms', 'us', 'ns'), overriding what the file says.
+    sample_interval_s
+        Sample interval in s when the file has no time column and no interval line.
+
+    Returns
+    -------
+    TimeTrace
+        Time in s; channels in V (or A) by the unit in their names.  ``meta`` holds
+        ``dialect``, ``units``, ``warnings`` and ``notes``.
+
+    Raises
+    ------
+    InputError
+        Bad file (with line numbers), unknown channel, no way to know the time.
+    """
+    source = str(path)
+    settings = {k: v for k, v in dict(channel=channel, columns=columns, time_unit=time_unit,
+                                      sample_interval_s=sample_interval_s).items() if v is not None}
+    if time_unit is not None:
+        time_factor(time_unit)
+    text = load_text(path)
+    first = text.lstrip().split("\n", 1)[0].strip()
+    if first == TRACE_MAGIC:
+        tr = read_canonical_trace(path, text=text)
+        meta = {**tr.meta, "dialect": {"format": "benchfit canonical CSV"}}
+        meta.setdefault("warnings", [])
+        tr = TimeTrace(time_s=tr.time_s, channels=tr.channels, meta=meta,
+                       provenance=Provenance(step="read_trace", sources=(source,), settings=settings,
+                                             parents=tr.provenance.parents))
+        return _pick(tr, channel) if channel is not None else tr
+    if first == SWEEP_MAGIC:
+        raise InputError("this is a benchfit sweep file (frequency response); read it with "
+                         "read_sweep", source=source, line=1)
+    lines = text.splitlines()
+    d = sniff(lines, source, min_columns=1)
+    blocks = find_blocks(lines, d, source)
+    warnings: list[str] = []
+    block = max(blocks, key=lambda b: b.data.shape[0])
+    if len(blocks) > 1:
+        warnings.append(f"file holds {len(blocks)} blocks of rows; read the longest "
+                        f"(from line {int(block.line_no[0])})")
+    ncols = block.data.shape[1]
+    units = block.units
+    if columns is not None:
+        names = [c.strip() for c in (columns.split(",") if isinstance(columns, str) else columns)]
+        if len(names) != ncols:
+            raise InputError(f"{len(names)} names given but the rows have {ncols} columns",
+                             source="--columns")
+        header = "option"
+    elif block.names is not None:
+        names, header = list(block.names), "names" + (" and unit row" if units else "")
+    else:
+        names, header = [], "none"
+    keep = [i for i, nm in enumerate(names) if nm.lower() not in ("skip", "-", "_")] if names else \
+        list(range(ncols))
+    time_col = next((i for i in keep if names and _is_time_name(names[i])), None)
+    if not names:
+        first_col = block.data[:, 0]
+        steps = np.diff(first_col)
+        if ncols >= 2 and np.all(steps > 0) and steps.max() <= 1.5 * steps.min():
+            time_col = 0  # an evenly rising first column is the time
+            warnings.append("no header: took column 1 as time"
+                            + ("" if time_unit else " in seconds (give time_unit if not)"))
+        names = ["time" if i == time_col else f"ch{i + 1 - (time_col is not None)}"
+                 for i in range(ncols)]
+    meta_keys = _metadata(block.notes, d)
+    t, tinfo = _time_axis(block, time_col, names, units, meta_keys, time_unit, sample_interval_s,
+                          source, warnings)
+    channels: dict[str, np.ndarray] = {}
+    ch_units: dict[str, str] = {}
+    for i in keep:
+        if i == time_col:
+            continue
+        base, unit = _split_name(names[i])
+        if unit is None and units:
+            unit = units[i].strip("[]() ") or None
+        scale, si = SIGNAL_UNITS.get((unit or "v").lower(), (1.0, unit or "V"))
+        name = base or f"ch{i + 1}"
+        while name in channels:
+            name += "_"
+        channels[name] = block.data[:, i] * scale
+        ch_units[name] = si if unit else "V (assumed)"
+    if not channels:
+        raise InputError("no channel columns besides time", source=source)
+    meta = {
+        "source": Path(source).name,
+        "dialect": {"format": "table", **d.to_dict(), "header": header,
+                    "header_line": block.header_line, "first_data_line": int(block.line_no[0]),
+                    **tinfo},
+        "units": ch_units,
+        "warnings": warnings,
+        "notes": block.notes[:40],
+    }
+    tr = TimeTrace(time_s=t, channels=channels, meta=meta,
+                   provenance=Provenance(step="read_trace", sources=(source,), settings=settings))
+    return _pick(tr, channel) if channel is not None else tr
+
+
+def _pick(tr: TimeTrace, channel: str | int) -> TimeTrace:
+    """The trace with only ``channel`` (by name, case-insensitive, or 0-based index)."""
+    values = tr.channel(channel)
+    name = next(n for n, v in tr.channels.items() if v is values)
+    return TimeTrace(time_s=tr.time_s, channels={name: values}, meta=tr.meta, provenance=tr.provenance)

@@ -1,0 +1,385 @@
+"""Generate benchfit's sample data from physical models of circuits of our own.
+
+Run ``python sample_data/generate.py`` (optionally ``--out DIR``).  The output is
+deterministic: fixed random seeds and fixed number formats, so regenerating
+gives byte-identical files.  The script uses numpy and scipy only (not
+benchfit), so the files are an independent check on benchfit's readers and
+fits.  ``scenarios.json`` holds each scenario's component values, noise and
+exact true model (zeros, poles in rad/s, gain k in scipy's zpk sense, delay).
+
+Scenarios
+---------
+buck_plant.csv
+    Control-to-output (duty → output voltage) response of a small voltage-mode
+    buck converter: Vin 12 V, PWM ramp 1 V peak-to-peak, L 10 µH with 30 mΩ
+    winding resistance, C 100 µF with 20 mΩ ESR, 1 Ω load, plus a 150 ns
+    PWM/sampling delay.  10 Hz–1 MHz, 401 log-spaced points.  Noise: 0.1 dB
+    and 0.5° (Gaussian, standard deviation) on magnitude and phase.  Written as
+    an analyzer might on a European PC: metadata lines, semicolon separator,
+    decimal comma, CRLF line ends, ``Frequency (Hz);Gain (dB);Phase (°)``.
+ldo_loop.csv
+    Loop gain (return ratio) of a 3.3 V linear post-regulator with a PMOS pass
+    device and a 22 µF ceramic output capacitor (3 mΩ ESR, 0.8 nH ESL): feedback
+    divider 1.2 V/3.3 V, error amplifier 3000 V/V with poles at 300 Hz and
+    150 kHz and a compensation zero at 40 kHz, pass device gm 2 S with 100 Ω
+    output resistance, 16.5 Ω load (200 mA).  About 37° of phase margin near
+    100 kHz: the closed loop peaks by about 4 dB (a resonant loop).  10 Hz–2 MHz,
+    301 points.  Noise: 0.2 % on magnitude, 0.3° on phase.  Tab separated,
+    frequency in kHz, linear magnitude, phase in degrees, a coherence column.
+opamp_buffer.s2p
+    Unity-gain op-amp buffer driving 470 pF through its 50 Ω open-loop output
+    resistance; op amp A0 = 1e5 with poles at 100 Hz and 30 MHz (10 MHz gain-
+    bandwidth).  About 32° of phase margin: S21 (taken as the buffer's voltage
+    gain, the fixture's port 2 being a high-impedance probe) peaks by about
+    5 dB near 7 MHz.  S11: the 50 Ω input termination in parallel with 5 pF
+    input capacitance; S22: the closed-loop output impedance (Ro/(1+A) in
+    parallel with the load); S12: 0.05 pF feed-through.  10 kHz–100 MHz, 201
+    points, Touchstone v1, ``# MHz S MA R 50``.  Noise 0.05 dB / 0.2° on S21.
+buck_zout.csv
+    Open-loop output impedance of the same buck (duty fixed, input a stiff
+    source): (rL + sL) ∥ R ∥ (ESR + 1/sC).  10 Hz–1 MHz, 301 points, real and
+    imaginary parts in ohm, comma separated.  Noise: 0.5 % complex Gaussian.
+step_trace.csv
+    Scope record of a reference step on the compensated buck: CH1 the reference
+    (0.80 V → 0.85 V at t = 0), CH2 the output (3.300 V → 3.50625 V, gain
+    3.3/0.8) with a second-order response, ζ = 0.3 and 5 kHz ringing.  2000
+    samples every 1 µs from −200 µs (pre-trigger).  Noise 0.5 mV on CH1, 2 mV
+    (1 % of the step) on CH2.  Comma separated, metadata lines, time in µs.
+load_step_trace.csv
+    Output deviation of the compensated buck for a 0.5 A → 1.5 A load step:
+    closed-loop output impedance taken as Rp·2ζωn·s/(s² + 2ζωn·s + ωn²) with
+    Rp = 40 mΩ, fn = 8 kHz, ζ = 0.4.  2000 samples every 0.5 µs from −100 µs;
+    no time column (a 'Sample interval' line instead).  Channels ``Iout (A)``
+    (noise 5 mA) and ``Vout AC (mV)`` (noise 0.3 mV).  Semicolon separator,
+    decimal comma.
+dialects/
+    The same scenarios written in other dialects the readers accept: a
+    whitespace file with a commented header, kHz, phase in radians and a
+    descending sweep; two traces side by side; two traces stacked in blocks;
+    UTF-8 with BOM, CRLF and a unit row; a Touchstone one-port of Z parameters.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+import numpy as np
+from scipy import signal
+
+HERE = Path(__file__).resolve().parent
+TWO_PI = 2.0 * np.pi
+
+
+# --------------------------------------------------------------------------------------
+# models (polynomials in s, highest power first)
+# --------------------------------------------------------------------------------------
+def buck_parts(r_load: float = 1.0) -> dict:
+    return {"vin_v": 12.0, "v_ramp_v": 1.0, "l_h": 10e-6, "r_l_ohm": 30e-3, "c_f": 100e-6,
+            "esr_ohm": 20e-3, "r_load_ohm": r_load, "delay_s": 150e-9}
+
+
+def buck_plant_tf(p: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Duty → vout: (Vin/Vm)·R(1 + s·rc·C) / ((rL + sL)(1 + s(R + rc)C) + R(1 + s·rc·C))."""
+    R, rc, C, L, rL = p["r_load_ohm"], p["esr_ohm"], p["c_f"], p["l_h"], p["r_l_ohm"]
+    num = (p["vin_v"] / p["v_ramp_v"]) * R * np.array([rc * C, 1.0])
+    den = np.polyadd(np.polymul([L, rL], [(R + rc) * C, 1.0]), R * np.array([rc * C, 1.0]))
+    return num, den
+
+
+def buck_zout_tf(p: dict) -> tuple[np.ndarray, np.ndarray]:
+    """(rL + sL) ∥ R ∥ (rc + 1/sC), same denominator as the plant."""
+    R, rc, C, L, rL = p["r_load_ohm"], p["esr_ohm"], p["c_f"], p["l_h"], p["r_l_ohm"]
+    num = np.polymul([L, rL], R * np.array([rc * C, 1.0]))
+    den = np.polyadd(np.polymul([L, rL], [(R + rc) * C, 1.0]), R * np.array([rc * C, 1.0]))
+    return num, den
+
+
+def ldo_parts() -> dict:
+    return {"beta": 1.2 / 3.3, "a0": 3000.0, "f_amp_pole_hz": 300.0, "f_gate_pole_hz": 150e3,
+            "f_comp_zero_hz": 40e3, "gm_s": 2.0, "r_out_pass_ohm": 100.0, "r_load_ohm": 16.5,
+            "c_f": 22e-6, "esr_ohm": 3e-3, "esl_h": 0.8e-9}
+
+
+def ldo_loop_tf(p: dict) -> tuple[np.ndarray, np.ndarray]:
+    """T = β·A(s)·gm·Zo, Zo = Ro ∥ RL ∥ (ESR + s·ESL + 1/sC)."""
+    wa, wg, wz = (TWO_PI * p[k] for k in ("f_amp_pole_hz", "f_gate_pole_hz", "f_comp_zero_hz"))
+    C = p["c_f"]
+    P = np.array([p["esl_h"] * C, p["esr_ohm"] * C, 1.0])  # Zc = P / (sC)
+    G = 1.0 / p["r_out_pass_ohm"] + 1.0 / p["r_load_ohm"]
+    zo_den = np.polyadd(G * P, [C, 0.0])  # Zo = P / (G·P + sC)
+    num = p["beta"] * p["a0"] * p["gm_s"] * np.polymul([1.0 / wz, 1.0], P)
+    den = np.polymul(np.polymul([1.0 / wa, 1.0], [1.0 / wg, 1.0]), zo_den)
+    return num, den
+
+
+def buffer_parts() -> dict:
+    return {"a0": 1e5, "f_pole1_hz": 100.0, "f_pole2_hz": 30e6, "r_out_ohm": 50.0, "c_load_f": 470e-12,
+            "c_in_f": 5e-12, "c_feed_f": 0.05e-12, "z0_ohm": 50.0}
+
+
+def buffer_tf(p: dict) -> tuple[np.ndarray, np.ndarray]:
+    """H = A0 / ((1 + s/ω1)(1 + s/ω2)(1 + s·Ro·CL) + A0)."""
+    w1, w2 = TWO_PI * p["f_pole1_hz"], TWO_PI * p["f_pole2_hz"]
+    den = np.polymul(np.polymul([1.0 / w1, 1.0], [1.0 / w2, 1.0]), [p["r_out_ohm"] * p["c_load_f"], 1.0])
+    den = np.polyadd(den, [p["a0"]])
+    return np.array([p["a0"]]), den
+
+
+def zpk_dict(num: np.ndarray, den: np.ndarray, delay_s: float = 0.0) -> dict:
+    """Exact zeros/poles (rad/s) and k of num/den, as JSON lists of [re, im]."""
+    z, p, k = signal.tf2zpk(num, den)
+    pairs = lambda v: [[float(x.real), float(x.imag)] for x in sorted(v, key=lambda c: (abs(c), c.imag))]  # noqa: E731
+    return {"zeros": pairs(z), "poles": pairs(p), "k": float(k), "delay_s": float(delay_s)}
+
+
+def evaluate(num: np.ndarray, den: np.ndarray, f: np.ndarray, delay_s: float = 0.0) -> np.ndarray:
+    s = 1j * TWO_PI * f
+    return np.polyval(num, s) / np.polyval(den, s) * np.exp(-s * delay_s)
+
+
+def wrap_deg(h: np.ndarray) -> np.ndarray:
+    """Phase in (-180, 180] degrees, as analyzers print it."""
+    return np.degrees(np.angle(h))
+
+
+# --------------------------------------------------------------------------------------
+# writers (each a dialect of its own)
+# --------------------------------------------------------------------------------------
+def dc(x: float, fmt: str) -> str:
+    """A number with a decimal comma."""
+    return (fmt % x).replace(".", ",")
+
+
+def write(path: Path, text: str, newline: str = "\n", bom: bool = False) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    data = text.replace("\n", newline).encode("utf-8")
+    path.write_bytes((b"\xef\xbb\xbf" if bom else b"") + data)
+
+
+def gen_buck_plant(out: Path, scen: dict) -> None:
+    p = buck_parts()
+    f = np.logspace(1, 6, 401)
+    num, den = buck_plant_tf(p)
+    h = evaluate(num, den, f, p["delay_s"])
+    rng = np.random.default_rng(20240101)
+    mag_db = 20 * np.log10(np.abs(h)) + rng.normal(0.0, 0.1, f.size)
+    ph = np.degrees(np.angle(h * np.exp(1j * np.radians(rng.normal(0.0, 0.5, f.size)))))
+    lines = ["Sweep export", "Instrument;benchfit sample generator (simulated analyzer)",
+             "Measurement;control-to-output, buck converter", "Points;401",
+             "IF bandwidth;10 Hz", "", "Frequency (Hz);Gain (dB);Phase (°)"]
+    lines += [f"{dc(fi, '%.6g')};{dc(m, '%.3f')};{dc(a, '%.2f')}" for fi, m, a in zip(f, mag_db, ph)]
+    write(out / "buck_plant.csv", "\n".join(lines) + "\n", newline="\r\n")
+    scen["buck_plant.csv"] = {
+        "what": "control-to-output of a voltage-mode buck (duty -> Vout)", "quantity": "plant",
+        "parts": p, "noise": {"mag_db_std": 0.1, "phase_deg_std": 0.5},
+        "freq_hz": [float(f[0]), float(f[-1]), int(f.size)], "truth": zpk_dict(num, den, p["delay_s"]),
+        "seed": 20240101}
+
+    # variant: whitespace, commented header, kHz, radians, descending
+    rows = [f"{fi / 1e3:.6e}  {m:+.4f}  {np.radians(a):+.5f}" for fi, m, a in zip(f, mag_db, ph)][::-1]
+    text = ("# buck converter control-to-output (same data as ../buck_plant.csv)\n"
+            "# swept from high to low frequency\n"
+            "# freq[kHz]  gain[dB]  phase[rad]\n" + "\n".join(rows) + "\n")
+    write(out / "dialects" / "buck_plant_descending_rad.txt", text)
+
+    # variant: two loads side by side
+    p10 = buck_parts(10.0)
+    n10, d10 = buck_plant_tf(p10)
+    h10 = evaluate(n10, d10, f, p10["delay_s"])
+    rng2 = np.random.default_rng(20240102)
+    h10n = h10 * 10 ** (rng2.normal(0, 0.1, f.size) / 20) * np.exp(1j * np.radians(rng2.normal(0, 0.5, f.size)))
+    hn = 10 ** (mag_db / 20) * np.exp(1j * np.radians(ph))  # the noisy heavy-load data above
+    lines = ["Frequency (Hz),Gain heavy (dB),Phase heavy (deg),Gain light (dB),Phase light (deg)"]
+    lines += [f"{fi:.6g},{20 * np.log10(abs(a)):.3f},{np.degrees(np.angle(a)):.2f},"
+              f"{20 * np.log10(abs(b)):.3f},{np.degrees(np.angle(b)):.2f}" for fi, a, b in zip(f, hn, h10n)]
+    write(out / "dialects" / "two_loads.csv", "\n".join(lines) + "\n")
+    scen["dialects/two_loads.csv"] = {
+        "what": "buck control-to-output at 1 ohm (heavy) and 10 ohm (light) load, side by side",
+        "quantity": "plant", "traces": {"heavy": zpk_dict(num, den, p["delay_s"]),
+                                        "light": zpk_dict(n10, d10, p10["delay_s"])},
+        "parts_light": p10}
+
+    # variant: the same two loads stacked in blocks, real/imaginary, tab separated
+    text = ["Stacked export: one block per trace", ""]
+    for title, hh in (("Trace: heavy load (1 ohm)", hn), ("Trace: light load (10 ohm)", h10n)):
+        text += [title, "Freq/Hz\tRe\tIm"]
+        text += [f"{fi:.6g}\t{v.real:.6e}\t{v.imag:.6e}" for fi, v in zip(f, hh)]
+        text += [""]
+    write(out / "dialects" / "stacked_traces.tsv", "\n".join(text))
+    scen["dialects/stacked_traces.tsv"] = dict(scen["dialects/two_loads.csv"])
+
+
+def gen_buck_zout(out: Path, scen: dict) -> None:
+    p = buck_parts()
+    f = np.logspace(1, 6, 301)
+    num, den = buck_zout_tf(p)
+    z = evaluate(num, den, f)
+    rng = np.random.default_rng(20240103)
+    zn = z * (1 + 0.005 * (rng.normal(size=f.size) + 1j * rng.normal(size=f.size)) / np.sqrt(2))
+    lines = ["Frequency [Hz],Z real [Ohm],Z imag [Ohm]"]
+    lines += [f"{fi:.6e},{v.real:.6e},{v.imag:.6e}" for fi, v in zip(f, zn)]
+    write(out / "buck_zout.csv", "\n".join(lines) + "\n")
+    scen["buck_zout.csv"] = {
+        "what": "open-loop output impedance of the buck: (rL + sL) || R || (ESR + 1/sC)",
+        "quantity": "impedance", "parts": p, "noise": {"complex_relative_std": 0.005},
+        "freq_hz": [float(f[0]), float(f[-1]), int(f.size)], "truth": zpk_dict(num, den), "seed": 20240103}
+
+    # variant: the same impedance as a Touchstone one-port of Z parameters, normalised to 50 ohm
+    rows = [f"{fi / 1e3:.6f} {v.real / 50.0:.9e} {v.imag / 50.0:.9e}" for fi, v in zip(f, zn)]
+    text = ("! buck open-loop output impedance (same data as ../buck_zout.csv)\n"
+            "! Z parameters, normalised to R as Touchstone version 1 requires\n"
+            "# kHz Z RI R 50\n" + "\n".join(rows) + "\n")
+    write(out / "dialects" / "buck_zout.s1p", text)
+    scen["dialects/buck_zout.s1p"] = dict(scen["buck_zout.csv"])
+
+
+def gen_ldo(out: Path, scen: dict) -> None:
+    p = ldo_parts()
+    f = np.logspace(1, np.log10(2e6), 301)
+    num, den = ldo_loop_tf(p)
+    t = evaluate(num, den, f)
+    rng = np.random.default_rng(20240104)
+    mag = np.abs(t) * (1 + rng.normal(0, 0.002, f.size))
+    ph = np.degrees(np.angle(t * np.exp(1j * np.radians(rng.normal(0, 0.3, f.size)))))
+    coh = np.clip(1 - 0.02 * rng.random(f.size) - 0.05 / (1 + (np.abs(t) - 1) ** 2), 0, 1)
+    lines = ["# Loop gain, 3.3 V linear post-regulator, 22 uF ceramic output capacitor",
+             "# injection across 10 ohm in the feedback path; T = -B/A",
+             "Freq (kHz)\tMagnitude (V/V)\tPhase (deg)\tCoherence"]
+    lines += [f"{fi / 1e3:.5e}\t{m:.5e}\t{a:.2f}\t{c:.4f}" for fi, m, a, c in zip(f, mag, ph, coh)]
+    write(out / "ldo_loop.csv", "\n".join(lines) + "\n")
+    cl = t / (1 + t)
+    i = int(np.argmin(np.abs(np.abs(t) - 1)))
+    scen["ldo_loop.csv"] = {
+        "what": "loop gain (return ratio) of a PMOS linear regulator with a 22 uF ceramic capacitor",
+        "quantity": "loop", "parts": p, "noise": {"mag_relative_std": 0.002, "phase_deg_std": 0.3},
+        "freq_hz": [float(f[0]), float(f[-1]), int(f.size)], "truth": zpk_dict(num, den),
+        "approx": {"crossover_hz": float(f[i]), "phase_margin_deg": float(180 + np.degrees(np.angle(t[i]))),
+                   "closed_loop_peak_db": float(20 * np.log10(np.abs(cl).max()))},
+        "seed": 20240104}
+
+    # variant: UTF-8 with BOM, CRLF, names row + unit row, dB/deg, comma separated
+    lines = ["Frequency,Magnitude,Phase", "Hz,dB,deg"]
+    lines += [f"{fi:.6g},{20 * np.log10(m):.4f},{a:.2f}" for fi, m, a in zip(f, mag, ph)]
+    write(out / "dialects" / "ldo_loop_bom_units.csv", "\n".join(lines) + "\n", newline="\r\n", bom=True)
+    scen["dialects/ldo_loop_bom_units.csv"] = dict(scen["ldo_loop.csv"])
+
+
+def gen_buffer(out: Path, scen: dict) -> None:
+    p = buffer_parts()
+    f = np.logspace(4, 8, 201)
+    s = 1j * TWO_PI * f
+    num, den = buffer_tf(p)
+    s21 = evaluate(num, den, f)
+    a_ol = p["a0"] / ((1 + s / (TWO_PI * p["f_pole1_hz"])) * (1 + s / (TWO_PI * p["f_pole2_hz"])))
+    z_out = 1 / (1 / (p["r_out_ohm"] / (1 + a_ol)) + s * p["c_load_f"])
+    z_in = 1 / (1 / p["z0_ohm"] + s * p["c_in_f"])
+    z0 = p["z0_ohm"]
+    s11 = (z_in - z0) / (z_in + z0)
+    s22 = (z_out - z0) / (z_out + z0)
+    s12 = s * p["c_feed_f"] * z0 / 2
+    rng = np.random.default_rng(20240105)
+    s21n = s21 * 10 ** (rng.normal(0, 0.05, f.size) / 20) * np.exp(1j * np.radians(rng.normal(0, 0.2, f.size)))
+    rows = []
+    for k in range(f.size):
+        vals = [s11[k], s21n[k], s12[k], s22[k]]
+        rows.append(f"{f[k] / 1e6:.6f} " + " ".join(f"{abs(v):.6e} {np.degrees(np.angle(v)):.3f}" for v in vals))
+    text = ("! Capacitively loaded op-amp buffer (benchfit sample generator)\n"
+            "! Unity-gain buffer, 50 ohm open-loop output resistance, 470 pF load\n"
+            "# MHz S MA R 50\n"
+            "! freq magS11 angS11 magS21 angS21 magS12 angS12 magS22 angS22\n"
+            + "\n".join(rows) + "\n")
+    write(out / "opamp_buffer.s2p", text)
+    scen["opamp_buffer.s2p"] = {
+        "what": "unity-gain op-amp buffer into 470 pF; S21 = buffer voltage gain", "quantity": "closed",
+        "parts": p, "noise": {"s21_mag_db_std": 0.05, "s21_phase_deg_std": 0.2},
+        "freq_hz": [float(f[0]), float(f[-1]), int(f.size)], "truth": zpk_dict(num, den),
+        "seed": 20240105}
+
+
+def second_order_step(t: np.ndarray, zeta: float, wn: float) -> np.ndarray:
+    """Unit step response of wn²/(s² + 2ζwn·s + wn²), zero before t = 0."""
+    wd = wn * np.sqrt(1 - zeta ** 2)
+    tt = np.maximum(t, 0.0)
+    y = 1 - np.exp(-zeta * wn * tt) * (np.cos(wd * tt) + zeta / np.sqrt(1 - zeta ** 2) * np.sin(wd * tt))
+    return np.where(t >= 0, y, 0.0)
+
+
+def gen_step(out: Path, scen: dict) -> None:
+    zeta, fd = 0.3, 5e3
+    wn = TWO_PI * fd / np.sqrt(1 - zeta ** 2)
+    n, dt, t0 = 2000, 1e-6, -200e-6
+    t = t0 + dt * np.arange(n)
+    ref0, ref1 = 0.80, 0.85
+    gain = 3.3 / 0.8
+    y = ref0 * gain + (ref1 - ref0) * gain * second_order_step(t, zeta, wn)
+    rng = np.random.default_rng(20240106)
+    ch1 = np.where(t >= 0, ref1, ref0) + rng.normal(0, 0.5e-3, n)
+    ch2 = y + rng.normal(0, 2e-3, n)
+    lines = ["Model,benchfit sample generator (simulated scope)", f"Record Length,{n}",
+             "Sample Interval,1.0E-06", "Trigger Point,200", "Source,CH1 CH2", "Vertical Units,V",
+             "Horizontal Units,us", "", "Time (us),CH1 (V),CH2 (V)"]
+    lines += [f"{ti * 1e6:.1f},{a:.5f},{b:.5f}" for ti, a, b in zip(t, ch1, ch2)]
+    write(out / "step_trace.csv", "\n".join(lines) + "\n")
+    scen["step_trace.csv"] = {
+        "what": "reference step on the compensated buck: CH1 reference, CH2 output",
+        "channels": {"CH1": "reference (V)", "CH2": "output (V)"},
+        "truth": {"zeta": zeta, "f_ring_hz": fd, "fn_hz": wn / TWO_PI, "t_step_s": 0.0,
+                  "ch1_before_v": ref0, "ch1_after_v": ref1, "ch2_before_v": ref0 * gain,
+                  "ch2_after_v": ref1 * gain, "overshoot_fraction": float(np.exp(-np.pi * zeta / np.sqrt(1 - zeta ** 2)))},
+        "sampling": {"n": n, "dt_s": dt, "t0_s": t0},
+        "noise": {"ch1_v_std": 0.5e-3, "ch2_v_std": 2e-3}, "seed": 20240106}
+
+
+def gen_load_step(out: Path, scen: dict) -> None:
+    zeta, fn, rp, di = 0.4, 8e3, 40e-3, 1.0
+    wn = TWO_PI * fn
+    wd = wn * np.sqrt(1 - zeta ** 2)
+    n, dt, t0 = 2000, 0.5e-6, -100e-6
+    t = t0 + dt * np.arange(n)
+    tt = np.maximum(t, 0)
+    v = np.where(t >= 0, -di * rp * 2 * zeta * wn / wd * np.exp(-zeta * wn * tt) * np.sin(wd * tt), 0.0)
+    i_load = np.where(t >= 0, 1.5, 0.5)
+    rng = np.random.default_rng(20240107)
+    i_n = i_load + rng.normal(0, 5e-3, n)
+    v_n = v + rng.normal(0, 0.3e-3, n)
+    lines = ["Scope export (benchfit sample generator)", "Sample interval;500 ns", "Start time;-100 us",
+             f"Points;{n}", "", "Iout (A);Vout AC (mV)"]
+    lines += [f"{dc(a, '%.4f')};{dc(b * 1e3, '%.3f')}" for a, b in zip(i_n, v_n)]
+    write(out / "load_step_trace.csv", "\n".join(lines) + "\n")
+    scen["load_step_trace.csv"] = {
+        "what": "output deviation of the compensated buck for a 0.5 A -> 1.5 A load step",
+        "channels": {"Iout": "load current (A)", "Vout AC": "output deviation (V, file in mV)"},
+        "truth": {"zcl": "Rp*2*zeta*wn*s/(s^2 + 2*zeta*wn*s + wn^2)", "rp_ohm": rp, "fn_hz": fn,
+                  "zeta": zeta, "delta_i_a": di, "t_step_s": 0.0,
+                  "peak_deviation_v": float(v.min())},
+        "sampling": {"n": n, "dt_s": dt, "t0_s": t0},
+        "noise": {"iout_a_std": 5e-3, "vout_v_std": 0.3e-3}, "seed": 20240107}
+
+
+def generate(out: Path = HERE) -> list[Path]:
+    """Write every sample file under ``out``; return the paths written."""
+    out = Path(out)
+    scen: dict = {}
+    for gen in (gen_buck_plant, gen_buck_zout, gen_ldo, gen_buffer, gen_step, gen_load_step):
+        gen(out, scen)
+    doc = {"about": "true models and settings of benchfit's sample data; written by generate.py",
+           "units": "zeros and poles in rad/s ([re, im]); k in scipy's zpk convention; SI units",
+           "scenarios": scen}
+    write(out / "scenarios.json", json.dumps(doc, indent=2, sort_keys=True) + "\n")
+    return sorted(p for p in out.rglob("*") if p.is_file() and p.suffix != ".py")
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--out", type=Path, default=HERE, help="folder to write into (default: this one)")
+    args = ap.parse_args(argv)
+    for p in generate(args.out):
+        print(p)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
