@@ -1,0 +1,499 @@
+"""Swept capture saved segment by segment, so nothing measured is ever lost.
+
+The frequency grid is split into segments that land on grid points.  In
+``sweep`` mode each segment is one native sweep of the instrument (configure
+start/stop/points, trigger, ``*OPC?``, read the frequency axis the instrument
+reports and the data); in ``step`` mode each point is its own segment (set
+the CW frequency, trigger, ``*OPC?``, read one point).
+
+After each segment its rows are appended to the output CSV and fsync'd, then
+a small manifest (``OUT.csv.capture.json``) recording how many segments and
+bytes are safely on disk is atomically replaced.  The output is a canonical
+sweep CSV (:mod:`benchfit.data.canonical`) after every append.  ``resume``
+truncates anything past the manifest's byte count (a torn last line, or rows
+of a segment whose manifest update never landed) and carries on, so the
+finished file has no duplicate and no missing point.  At the end the header
+is rewritten atomically with the end time.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import os
+import signal
+import threading
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from benchfit.bench.profile import Profile
+from benchfit.bench.session import Session
+from benchfit.data.canonical import SWEEP_MAGIC, read_canonical_sweep
+from benchfit.data.response import QUANTITIES, FrequencyResponse
+from benchfit.errors import InputError, InstrumentError
+from benchfit.fileio import append_lines_durable, read_json, write_json_atomic, write_text_atomic
+from benchfit.provenance import Provenance
+
+MAX_POINTS = 100001
+
+
+def _now() -> str:
+    return _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
+
+
+@dataclass(frozen=True)
+class CaptureSettings:
+    """What to measure.
+
+    Parameters
+    ----------
+    start_hz, stop_hz
+        Sweep limits in Hz.
+    points
+        Points in the whole grid.
+    spacing
+        ``"log"`` or ``"lin"``.
+    level_v
+        Source level in V (None: leave the instrument's setting).
+    bandwidth_hz
+        Measurement bandwidth in Hz (None: leave it).
+    mode
+        ``"sweep"`` (instrument sweeps each segment) or ``"step"`` (point by point).
+    segment_points
+        Points per native sweep in sweep mode; 0 sweeps the whole grid at once.
+    quantity
+        What is measured (written to the file header).
+    """
+
+    start_hz: float
+    stop_hz: float
+    points: int
+    spacing: str = "log"
+    level_v: float | None = None
+    bandwidth_hz: float | None = None
+    mode: str = "sweep"
+    segment_points: int = 0
+    quantity: str = "unknown"
+
+    def validate(self) -> None:
+        """Raise :class:`InputError` naming the option that is out of range."""
+        if not (np.isfinite(self.start_hz) and self.start_hz > 0):
+            raise InputError(f"{self.start_hz} Hz: expected a positive frequency", source="--start")
+        if not (np.isfinite(self.stop_hz) and self.stop_hz > self.start_hz):
+            raise InputError(f"{self.stop_hz} Hz: expected a frequency above --start "
+                             f"({self.start_hz} Hz)", source="--stop")
+        if not 2 <= int(self.points) <= MAX_POINTS:
+            raise InputError(f"{self.points}: expected 2..{MAX_POINTS}", source="--points")
+        if self.spacing not in ("log", "lin"):
+            raise InputError(f"{self.spacing!r}: expected log or lin", source="--spacing")
+        if self.mode not in ("sweep", "step"):
+            raise InputError(f"{self.mode!r}: expected sweep or step", source="--mode")
+        if self.level_v is not None and not self.level_v > 0:
+            raise InputError(f"{self.level_v} V: expected a positive level", source="--level")
+        if self.bandwidth_hz is not None and not self.bandwidth_hz > 0:
+            raise InputError(f"{self.bandwidth_hz} Hz: expected a positive bandwidth", source="--bandwidth")
+        if self.segment_points < 0 or self.segment_points == 1:
+            raise InputError(f"{self.segment_points}: expected 0 (whole sweep) or at least 2",
+                             source="--segment-points")
+        if self.quantity not in QUANTITIES:
+            raise InputError(f"{self.quantity!r}: expected one of {QUANTITIES}", source="--quantity")
+
+    def grid(self) -> np.ndarray:
+        """The requested frequencies in Hz."""
+        i = np.arange(self.points) / (self.points - 1)
+        if self.spacing == "log":
+            return self.start_hz * (self.stop_hz / self.start_hz) ** i
+        return self.start_hz + (self.stop_hz - self.start_hz) * i
+
+    def segments(self) -> list[tuple[int, int]]:
+        """Index ranges ``[i0, i1)`` of the grid, one per native sweep or point."""
+        n = int(self.points)
+        if self.mode == "step":
+            return [(i, i + 1) for i in range(n)]
+        seg = self.segment_points if 0 < self.segment_points < n else n
+        out = [(i, min(i + seg, n)) for i in range(0, n, seg)]
+        if len(out) > 1 and out[-1][1] - out[-1][0] < 2:  # a sweep needs two points
+            out[-2:] = [(out[-2][0], n)]
+        return out
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> CaptureSettings:
+        return cls(**{k: d[k] for k in cls.__dataclass_fields__ if k in d})
+
+
+@dataclass(frozen=True)
+class CaptureResult:
+    """What a capture run did.
+
+    ``points_saved`` counts rows acknowledged in the manifest (on disk and fsync'd).
+    ``status`` is ``"complete"`` or ``"interrupted"`` (Ctrl-C).
+    """
+
+    path: str
+    manifest_path: str
+    status: str
+    points_saved: int
+    points_total: int
+    instrument: str
+    profile: str
+    resource: str
+    started: str
+    finished: str
+    settings: dict[str, Any]
+    session: dict[str, int] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="capture"))
+
+    @property
+    def complete(self) -> bool:
+        return self.status == "complete"
+
+    def to_dict(self) -> dict[str, Any]:
+        d = {k: getattr(self, k) for k in self.__dataclass_fields__}
+        d["warnings"] = list(self.warnings)
+        d["provenance"] = self.provenance.to_dict()
+        d["kind"] = "capture_result"
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> CaptureResult:
+        kw = {k: d[k] for k in cls.__dataclass_fields__ if k in d}
+        kw["warnings"] = tuple(kw.get("warnings", ()))
+        kw["provenance"] = Provenance.from_dict(d.get("provenance"))
+        return cls(**kw)
+
+    def summary(self) -> str:
+        if self.complete:
+            return f"captured {self.points_saved} points into {self.path}"
+        return (f"stopped: {self.points_saved} of {self.points_total} points saved in {self.path}; "
+                "run the same command with --resume to continue")
+
+
+def manifest_path(out: str | os.PathLike) -> Path:
+    """Where the manifest of capture ``out`` lives."""
+    return Path(str(out) + ".capture.json")
+
+
+def to_complex(values: np.ndarray, form: str, *, what: str = "data") -> np.ndarray:
+    """Interleaved pairs per point -> complex response.
+
+    ``re_im``: real, imaginary; ``db_deg``: 20·log10|H| in dB, phase in deg;
+    ``lin_deg``: |H|, phase in deg.
+    """
+    v = np.asarray(values, dtype=float)
+    if v.size % 2:
+        raise InstrumentError(f"{what}: {v.size} values, expected pairs (two per point)")
+    a, b = v[0::2], v[1::2]
+    if form == "re_im":
+        return a + 1j * b
+    mag = 10.0 ** (a / 20.0) if form == "db_deg" else a
+    return mag * np.exp(1j * np.radians(b))
+
+
+def _row(f: float, h: complex) -> str:
+    return f"{f:.12e},{h.real:.12e},{h.imag:.12e}"
+
+
+def _header_text(meta: dict[str, Any], prov: Provenance, quantity: str) -> str:
+    # The canonical sweep header (benchfit.data.canonical), written before any row.
+    return (f"{SWEEP_MAGIC}\n# quantity: {quantity}\n# meta: {json.dumps(meta, default=str)}\n"
+            f"# provenance: {json.dumps(prov.to_dict(), default=str)}\nfreq_hz,re,im\n")
+
+
+class _StopFlag:
+    """First Ctrl-C asks the loop to stop after the current point; a second aborts."""
+
+    def __init__(self) -> None:
+        self.requested = False
+        self._old = None
+
+    def __enter__(self) -> _StopFlag:
+        if threading.current_thread() is threading.main_thread():
+            self._old = signal.signal(signal.SIGINT, self._handle)
+        return self
+
+    def _handle(self, signum, frame) -> None:
+        if self.requested:
+            raise KeyboardInterrupt
+        self.requested = True
+
+    def __exit__(self, *exc) -> None:
+        if self._old is not None:
+            signal.signal(signal.SIGINT, self._old)
+
+
+class Capture:
+    """One capture into one file (fresh or resumed).
+
+    Parameters
+    ----------
+    session
+        An open instrument session whose profile is an analyzer profile.
+    settings
+        What to measure.
+    out
+        Output CSV path; the manifest sits beside it.
+    resource
+        Resource name recorded in the file.
+    progress
+        Called as ``progress(points_saved, points_total)`` after each segment.
+    """
+
+    def __init__(self, session: Session, settings: CaptureSettings, out: str | os.PathLike, *,
+                 resource: str = "", progress: Callable[[int, int], None] | None = None) -> None:
+        settings.validate()
+        self.session = session
+        self.profile: Profile = session.profile
+        self.settings = settings
+        self.out = Path(out)
+        self.manifest_file = manifest_path(out)
+        self.resource = resource or session.name
+        self.progress = progress or (lambda done, total: None)
+        self.warnings: list[str] = []
+        self._check_profile()
+
+    def _check_profile(self) -> None:
+        p, s = self.profile, self.settings
+        if p.kind != "analyzer":
+            raise InputError(f"profile {p.name!r} is a {p.kind} profile; capture needs an analyzer "
+                             "profile", source="--profile")
+        if s.mode == "step":
+            p.require("cw", "--mode step")
+        if s.level_v is not None:
+            p.require("level", "--level")
+        if s.bandwidth_hz is not None:
+            p.require("bandwidth", "--bandwidth")
+        if s.mode == "sweep":
+            p.require(f"spacing_{s.spacing}", f"--spacing {s.spacing}")
+
+    # ----- files ---------------------------------------------------------------------
+    def _write_manifest(self, m: dict[str, Any]) -> None:
+        m["updated"] = _now()
+        write_json_atomic(self.manifest_file, m)
+
+    def _fresh(self, idn: str) -> dict[str, Any]:
+        if self.out.exists():
+            raise InputError("output file exists; pass --resume to continue that capture or "
+                             "choose another file", source=str(self.out))
+        started = _now()
+        meta = {"instrument": idn, "profile": self.profile.name, "resource": self.resource,
+                "settings": self.settings.to_dict(), "start_time": started, "end_time": None,
+                "complete": False}
+        prov = Provenance(step="capture", sources=(self.resource,),
+                          settings={"profile": self.profile.name, **self.settings.to_dict()})
+        header = _header_text(meta, prov, self.settings.quantity)
+        write_text_atomic(self.out, header)
+        m = {"kind": "capture_manifest", "version": 1, "settings": self.settings.to_dict(),
+             "profile": self.profile.name, "resource": self.resource, "instrument": idn,
+             "started": started, "segments_total": len(self.settings.segments()),
+             "segments_done": 0, "rows": 0, "bytes": len(header.encode("utf-8")), "last_freq_hz": None,
+             "complete": False}
+        self._write_manifest(m)
+        return m
+
+    def _resumed(self) -> dict[str, Any]:
+        if not self.manifest_file.exists():
+            raise InputError(f"no capture manifest {self.manifest_file.name} beside it; nothing to "
+                             "resume", source=str(self.out))
+        m = read_json(self.manifest_file)
+        if m.get("kind") != "capture_manifest":
+            raise InputError("not a capture manifest", source=str(self.manifest_file))
+        old = CaptureSettings.from_dict(m.get("settings", {})).to_dict()
+        for key, value in self.settings.to_dict().items():
+            if old.get(key) != value:
+                opt = "--" + key.replace("_hz", "").replace("_v", "").replace("_", "-")
+                raise InputError(f"{value!r} differs from the capture being resumed ({old.get(key)!r}); "
+                                 "resume with the same settings", source=opt)
+        if m.get("profile") != self.profile.name:
+            raise InputError(f"{self.profile.name!r} differs from the capture being resumed "
+                             f"({m.get('profile')!r})", source="--profile")
+        if not self.out.exists():
+            raise InputError("output file is missing; cannot resume", source=str(self.out))
+        size = self.out.stat().st_size
+        want = int(m["bytes"])
+        if size < want:
+            raise InputError(f"file holds {size} bytes but the manifest recorded {want}; the file was "
+                             "changed after capture, cannot resume safely", source=str(self.out))
+        if size > want:
+            self.warnings.append(f"discarded {size - want} bytes after the last acknowledged segment "
+                                 "(a torn or unacknowledged write); they are measured again")
+            with open(self.out, "r+b") as fh:
+                fh.truncate(want)
+                fh.flush()
+                os.fsync(fh.fileno())
+        return m
+
+    def _finish_file(self, m: dict[str, Any], finished: str) -> None:
+        text = self.out.read_text(encoding="utf-8")
+        lines = text.split("\n")
+        for i, line in enumerate(lines[:8]):
+            if line.startswith("# meta: "):
+                meta = json.loads(line[len("# meta: "):])
+                meta.update(end_time=finished, complete=True, points=m["rows"],
+                            session=self.session.stats())
+                lines[i] = "# meta: " + json.dumps(meta, default=str)
+        new = "\n".join(lines)
+        write_text_atomic(self.out, new)
+        m.update(complete=True, bytes=len(new.encode("utf-8")), finished=finished)
+        self._write_manifest(m)
+
+    # ----- instrument ----------------------------------------------------------------
+    def _configure(self) -> None:
+        p, s, ses = self.profile, self.settings, self.session
+        if p.has("clear_status"):
+            ses.write(p.command("clear_status"))
+        if p.reset_on_start and p.has("reset"):
+            ses.write(p.command("reset"))
+        stale = ses.drain_errors()  # entries from before this capture are not ours
+        if stale:
+            self.warnings.append("cleared earlier instrument errors: "
+                                 + "; ".join(f"{c} {t}" for c, t in stale))
+        if p.has(f"format_{p.encoding}"):
+            ses.configure(p.command(f"format_{p.encoding}"))
+        if p.is_binary and p.has(f"byte_order_{p.byte_order}"):
+            ses.configure(p.command(f"byte_order_{p.byte_order}"))
+        if s.level_v is not None:
+            ses.configure(p.command("level", level_v=s.level_v))
+        if s.bandwidth_hz is not None:
+            ses.configure(p.command("bandwidth", bandwidth_hz=s.bandwidth_hz))
+        if s.mode == "sweep":
+            ses.configure(p.command(f"spacing_{s.spacing}"))
+            if p.has("sweep_mode"):
+                ses.configure(p.command("sweep_mode"))
+        elif p.has("step_mode"):
+            ses.configure(p.command("step_mode"))
+
+    def _trigger_and_wait(self) -> None:
+        cmd = self.profile.command("trigger")
+        self.session.write(cmd)
+        self.session.check_errors(cmd)
+        self.session.wait_complete()
+
+    def _measure_sweep(self, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        p, ses = self.profile, self.session
+        ses.configure(p.command("start", start_hz=float(f[0])))
+        ses.configure(p.command("stop", stop_hz=float(f[-1])))
+        ses.configure(p.command("points", points=int(f.size)))
+        self._trigger_and_wait()
+        axis = ses.query_values(p.command("axis_query"))
+        data_cmd = p.command("data_query")
+        h = to_complex(ses.query_values(data_cmd), p.response_form, what=data_cmd)
+        if axis.size != h.size:
+            raise InstrumentError(f"frequency axis has {axis.size} points but the data has {h.size}",
+                                  resource=self.session.name, command=data_cmd)
+        if axis.size != f.size:
+            self.warnings.append(f"instrument measured {axis.size} points where {f.size} were asked "
+                                 f"({f[0]:g}..{f[-1]:g} Hz); its own frequency axis is used")
+        return axis, h
+
+    def _measure_point(self, f: float) -> tuple[np.ndarray, np.ndarray]:
+        p, ses = self.profile, self.session
+        ses.configure(p.command("cw", freq_hz=f))
+        self._trigger_and_wait()
+        if p.has("cw_query"):
+            f = float(ses.query(p.command("cw_query")).strip())
+        data_cmd = p.command("data_query")
+        h = to_complex(ses.query_values(data_cmd), p.response_form, what=data_cmd)
+        if h.size != 1:
+            raise InstrumentError(f"expected one point, the instrument returned {h.size}",
+                                  resource=self.session.name, command=data_cmd)
+        return np.array([f]), h
+
+    # ----- the loop ------------------------------------------------------------------
+    def run(self, *, resume: bool = False) -> CaptureResult:
+        """Capture (or continue) the whole grid; returns what was saved.
+
+        Raises
+        ------
+        InstrumentError
+            On an instrument error, lost connection or exhausted retries; every
+            segment finished before it is on disk and ``resume`` continues.
+        """
+        m = self._resumed() if resume else None
+        idn = self.session.identify()
+        if m is not None and m.get("complete"):
+            return self._result(m, "complete")
+        if m is not None and m.get("instrument") != idn:
+            self.warnings.append(f"resuming with instrument {idn!r}; the capture began with "
+                                 f"{m.get('instrument')!r}")
+        self._configure()
+        if m is None:
+            m = self._fresh(idn)
+        grid = self.settings.grid()
+        segs = self.settings.segments()
+        total = self.settings.points
+        status = "complete"
+        self.progress(m["rows"], total)
+        with _StopFlag() as stop:
+            try:
+                for k in range(int(m["segments_done"]), len(segs)):
+                    if stop.requested:
+                        status = "interrupted"
+                        break
+                    i0, i1 = segs[k]
+                    if self.settings.mode == "step":
+                        f, h = self._measure_point(float(grid[i0]))
+                    else:
+                        f, h = self._measure_sweep(grid[i0:i1])
+                    self._append(m, k, f, h)
+                    self.progress(m["rows"], total)
+                if status == "complete":
+                    self.session.check_errors("end of capture")
+            except KeyboardInterrupt:
+                status = "interrupted"
+            except InstrumentError as e:
+                raise InstrumentError(f"{e}; {m['rows']} of {total} points are saved in {self.out}; "
+                                      "run the same command with --resume to continue") from None
+        if status == "complete":
+            self._finish_file(m, _now())
+            read_canonical_sweep(self.out)  # the finished file must read back
+        return self._result(m, status)
+
+    def _append(self, m: dict[str, Any], k: int, f: np.ndarray, h: np.ndarray) -> None:
+        last = m.get("last_freq_hz")
+        rows = []
+        for fi, hi in zip(f, h, strict=True):
+            if not (np.isfinite(fi) and fi > 0 and np.isfinite(hi)):
+                raise InstrumentError(f"instrument returned a non-finite point at {fi} Hz",
+                                      resource=self.session.name)
+            if last is not None and fi <= last:
+                self.warnings.append(f"dropped {fi:g} Hz: not above the previous point {last:g} Hz")
+                continue
+            rows.append(_row(float(fi), complex(hi)))
+            last = float(fi)
+        if rows:
+            append_lines_durable(self.out, rows)
+        m.update(segments_done=k + 1, rows=m["rows"] + len(rows), bytes=self.out.stat().st_size,
+                 last_freq_hz=last)
+        self._write_manifest(m)
+
+    def _result(self, m: dict[str, Any], status: str) -> CaptureResult:
+        return CaptureResult(
+            path=str(self.out), manifest_path=str(self.manifest_file), status=status,
+            points_saved=int(m["rows"]), points_total=self.settings.points,
+            instrument=str(m.get("instrument", "")), profile=self.profile.name, resource=self.resource,
+            started=str(m.get("started", "")), finished=str(m.get("finished", "")),
+            settings=self.settings.to_dict(), session=self.session.stats(),
+            warnings=tuple(self.warnings),
+            provenance=Provenance(step="capture", sources=(self.resource,),
+                                  settings={"profile": self.profile.name, "out": str(self.out),
+                                            **self.settings.to_dict()}))
+
+
+def run_capture(session: Session, settings: CaptureSettings, out: str | os.PathLike, *,
+                resume: bool = False, resource: str = "",
+                progress: Callable[[int, int], None] | None = None) -> CaptureResult:
+    """Capture ``settings`` from ``session`` into ``out`` (see :class:`Capture`)."""
+    return Capture(session, settings, out, resource=resource, progress=progress).run(resume=resume)
+
+
+def read_capture(out: str | os.PathLike) -> FrequencyResponse:
+    """Read a capture file (finished or partial) as a FrequencyResponse."""
+    return read_canonical_sweep(out)
