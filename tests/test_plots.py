@@ -25,8 +25,8 @@ def _tick_texts(ax):
 @pytest.mark.parametrize("value,unit,text", [
     # SI prefixes (BIPM, The International System of Units, 9th ed., 2019, table 7).
     (1e3, "", "1k"), (1e4, "", "10k"), (1e6, "", "1M"), (100.0, "", "100"),
-    (4.7e3, "Ω", "4.7kΩ"), (2.2e-9, "F", "2.2nF"), (1e-6, "s", "1µs"), (999.95, "", "1k"),
-    (0.0, "V", "0V"), (-3.3e-3, "A", "-3.3mA"),
+    (4.7e3, "Ω", "4.7 kΩ"), (2.2e-9, "F", "2.2 nF"), (1e-6, "s", "1 µs"), (999.95, "", "1k"),
+    (0.0, "V", "0 V"), (-3.3e-3, "A", "-3.3 mA"), (50.0, "Hz", "50 Hz"),
 ])
 def test_engineering_text(value, unit, text):
     assert style.eng(value, unit) == text
@@ -80,3 +80,128 @@ def test_bode_fit_model_phase_follows_measured_branch():
     fig = bode_fit(resp, m)
     model_line = fig.axes[1].get_lines()[1]
     assert abs(model_line.get_ydata()[0] - resp.phase_deg[0]) < 1.0
+
+
+# ----- loop pictures -------------------------------------------------------------------------
+def _loop():
+    """A type-3 compensated buck loop from the design layer, with its margins."""
+    from benchfit.loop.loopgain import Loop, LoopPlant
+    from benchfit.loop.synthesis import Targets, synthesize
+
+    b = buck_plant()   # with a 0.5 us delay, so the loop has a phase crossing and a gain margin
+    lp = LoopPlant(PlantModel(zeros=b.zeros, poles=b.poles, k=b.k, delay_s=0.5e-6))
+    syn = synthesize("type3", lp, Targets(crossover_hz=20e3, phase_margin_deg=55))
+    loop = Loop(lp, syn.network)
+    return lp, loop, loop.model(), loop.margins()
+
+
+def test_loop_gain_draws_margins_where_read():
+    from benchfit.output.plots import loop_gain
+
+    _, _, T, m = _loop()
+    fig = loop_gain(T, m)
+    ax_m, ax_p = fig.axes
+    assert (ax_m.get_ylabel(), ax_p.get_ylabel(), ax_p.get_xlabel()) == ("|T| (dB)", "∠T (deg)", "Frequency (Hz)")
+    texts = " ".join(t.get_text() for ax in fig.axes for t in ax.texts)
+    assert f"phase margin {m.phase_margin_deg:.1f}°" in texts
+    assert f"gain margin {m.gain_margin_db:.1f} dB" in texts
+    # the PM arrow starts at -180 deg and ends at angle(T(fc)) = PM - 180 (PM definition)
+    arrow = [a for a in ax_p.texts if hasattr(a, "arrow_patch") and a.arrow_patch is not None][0]
+    assert arrow.xy[1] == pytest.approx(m.phase_margin_deg - 180.0, abs=0.5)
+    assert arrow.xyann[1] == pytest.approx(-180.0, abs=0.5)
+    # every gain crossing in view is marked on the 0 dB line
+    circles = [ln for ln in ax_m.get_lines() if ln.get_marker() == "o" and len(ln.get_xdata()) == 1]
+    assert len(circles) == sum(c["kind"] == "gain" for c in m.crossings)
+    # the plotted |T| at the crossover is 0 dB (definition of the gain crossover)
+    line = ax_m.get_lines()[0]
+    assert np.interp(np.log10(m.crossover_hz), np.log10(line.get_xdata()), line.get_ydata()) == \
+        pytest.approx(0.0, abs=0.05)
+
+
+def test_nyquist_modulus_circle_touches_the_curve():
+    from matplotlib.patches import Circle
+
+    from benchfit.output.plots import nyquist
+
+    _, _, T, m = _loop()
+    fig = nyquist(T, m)
+    ax = fig.axes[0]
+    assert (ax.get_xlabel(), ax.get_ylabel()) == ("Re T (V/V)", "Im T (V/V)")
+    circles = [p for p in ax.patches if isinstance(p, Circle)]
+    mm = [c for c in circles if tuple(c.center) == (-1, 0)][0]
+    assert mm.radius == pytest.approx(m.modulus_margin)
+    # the curve's closest approach to -1 equals the radius (modulus margin = min |1 + T|)
+    x, y = ax.get_lines()[0].get_data()
+    assert np.min(np.hypot(np.asarray(x) + 1, y)) == pytest.approx(m.modulus_margin, rel=2e-3)
+
+
+def test_crossing_view_marks_crossing_and_rate_of_closure():
+    from benchfit.output.plots import crossing_view
+
+    lp, loop, _, m = _loop()
+    fig = crossing_view(lp.response, loop.compensator(), target_crossover_hz=20e3,
+                        achieved_crossover_hz=m.crossover_hz, band_hz=(10, 1e6))
+    ax = fig.axes[0]
+    assert (ax.get_xlabel(), ax.get_ylabel(), ax.get_xscale()) == ("Frequency (Hz)", "Gain (dB)", "log")
+    text = " ".join(t.get_text() for t in ax.texts)
+    assert "rate of closure" in text and "dB/decade" in text
+    mark = [ln for ln in ax.get_lines() if ln.get_marker() == "o"][0]
+    # |P·H| = 1/|C| where |T| = 1: the crossing is the loop's crossover
+    assert mark.get_xdata()[0] == pytest.approx(m.crossover_hz, rel=0.01)
+    # slopes: plant about -37 dB/dec there, 1/|C| about -14 -> closure between 20 and 27
+    roc = float(text.split("rate of closure ")[1].split(" ")[0])
+    assert 15 < roc < 30
+    labels = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert any(t.startswith("target crossover 20 kHz") for t in labels)
+
+
+# ----- predictions ---------------------------------------------------------------------------
+def test_spread_histograms_counts_targets_and_yield():
+    from benchfit.output.plots import spread_histograms
+
+    rng = np.random.default_rng(0)
+    pm = rng.normal(55, 3, 500)
+    fc = 20e3 * np.exp(rng.normal(0, 0.1, 500))
+    gm = np.where(np.arange(500) < 3, np.inf, rng.normal(20, 1, 500))
+    fig = spread_histograms(pm, fc, gm, pm_min_deg=50, crossover_target_hz=20e3, gm_min_db=10,
+                            yield_fraction=0.95)
+    axes = fig.axes
+    assert [ax.get_xlabel() for ax in axes] == ["Phase margin (deg)", "Crossover (Hz)", "Gain margin (dB)"]
+    assert axes[0].get_ylabel() == "Draws (count)"
+    assert sum(p.get_height() for p in axes[0].patches) == 500
+    assert sum(p.get_height() for p in axes[2].patches) == 497
+    assert "yield 95.0 %" in fig.get_suptitle()
+    assert "3 draws: none" in " ".join(t.get_text() for t in axes[2].texts)
+    assert any(ln.get_xdata()[0] == 50 for ln in axes[0].get_lines())
+
+
+def test_step_response_panels_units_and_overlay():
+    from benchfit.output.curves import Curve
+    from benchfit.output.plots import step_response
+
+    t = np.linspace(0, 2e-4, 201)
+    step = Curve("predicted", "time_s", t, 1 - np.exp(-t / 2e-5), unit="V")
+    load = Curve("load step 1 A", "time_s", t, -0.05 * np.exp(-t / 3e-5), unit="V")
+    meas = Curve("scope", "time_s", t, 1 - np.exp(-t / 2.2e-5), unit="V")
+    fig = step_response(step, load, measured=meas)
+    a1, a2 = fig.axes
+    assert a1.get_xlabel() == "Time (µs)" and a1.get_ylabel() == "Output (V)"
+    assert a2.get_ylabel() == "Output deviation (V)"
+    assert [ln.get_label() for ln in a1.get_lines()[:2]] == ["scope", "predicted"]
+    assert a1.get_lines()[1].get_xdata()[-1] == pytest.approx(200.0)
+
+
+def test_output_impedance_log_axes_and_peak():
+    from benchfit.output.curves import Curve
+    from benchfit.output.plots import output_impedance
+
+    f = np.logspace(1, 6, 200)
+    s = 2j * np.pi * f
+    zol = 1 / (1 / (0.01 + s * 2e-6) + s * 100e-6)
+    zcl = zol / (1 + 1e5 / s)
+    fig = output_impedance(Curve("open", "freq_hz", f, zol, unit="ohm"),
+                           Curve("closed", "freq_hz", f, zcl, unit="ohm"))
+    ax = fig.axes[0]
+    assert (ax.get_xscale(), ax.get_yscale()) == ("log", "log")
+    assert (ax.get_xlabel(), ax.get_ylabel()) == ("Frequency (Hz)", "|Z| (Ω)")
+    assert "peak" in ax.texts[0].get_text()

@@ -84,7 +84,9 @@ F = TypeVar("F", bound=Callable[..., Any])
 
 
 def eng(value: float, unit: str = "", digits: int = 3) -> str:
-    """Engineering-prefix text of a number: ``eng(4700, 'Ω') -> '4.7kΩ'``.
+    """Engineering-prefix text of a number: ``eng(4700, 'Ω') -> '4.7 kΩ'``, ``eng(1e4) -> '10k'``.
+
+    With a unit, a space separates number and unit (SI Brochure, 9th ed., 5.4.3).
 
     Parameters
     ----------
@@ -98,7 +100,7 @@ def eng(value: float, unit: str = "", digits: int = 3) -> str:
     if value is None or not math.isfinite(value):
         return f"{value} {unit}".strip() if value is not None else "n/a"
     if value == 0:
-        return f"0{unit}" if unit else "0"
+        return f"0 {unit}" if unit else "0"
     exp3 = int(math.floor(math.log10(abs(value)) / 3.0) * 3)
     exp3 = max(min(exp3, 12), -15)
     mant = value / 10.0 ** exp3
@@ -106,7 +108,7 @@ def eng(value: float, unit: str = "", digits: int = 3) -> str:
     if "e" in text:  # rounding carried into the next prefix (e.g. 999.9 -> 1e+03)
         exp3 = min(exp3 + 3, 12)
         text = f"{value / 10.0 ** exp3:.{digits}g}"
-    return f"{text}{_PREFIXES[exp3]}{unit}"
+    return f"{text} {_PREFIXES[exp3]}{unit}" if unit else f"{text}{_PREFIXES[exp3]}"
 
 
 def _tick_text(value: float, _pos: Any = None) -> str:

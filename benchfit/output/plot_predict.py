@@ -1,0 +1,186 @@
+"""Prediction pictures: tolerance spread, step and load step, output impedance."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+from matplotlib.figure import Figure
+
+from benchfit.output import style
+from benchfit.output.curves import Curve
+from benchfit.output.plot_common import FREQ_LABEL, time_scale
+from benchfit.output.style import ENG_FORMATTER, eng, log_axis, new_figure, note, styled
+
+
+def _hist(ax, values: np.ndarray, *, log: bool, color: str) -> None:
+    v = values[np.isfinite(values)]
+    if v.size == 0:
+        ax.text(0.5, 0.5, "no finite values", transform=ax.transAxes, ha="center")
+        return
+    bins: int | np.ndarray = 30
+    if log and np.all(v > 0):
+        lo, hi = float(v.min()), float(v.max())
+        if hi > 10 * lo:   # a wide spread reads best on a log axis
+            bins = np.logspace(np.log10(lo), np.log10(hi), 31)
+            log_axis(ax)
+        else:              # a narrow one on a linear axis, still with prefixes
+            ax.xaxis.set_major_formatter(ENG_FORMATTER)
+    ax.hist(v, bins=bins, color=color, edgecolor="white", linewidth=0.5, alpha=0.95)
+
+
+@styled
+def spread_histograms(pm_deg: Sequence[float], crossover_hz: Sequence[float],
+                      gm_db: Sequence[float] | None = None, *, pm_min_deg: float | None = None,
+                      crossover_target_hz: float | None = None, gm_min_db: float | None = None,
+                      yield_fraction: float | None = None, what: str = "part tolerances",
+                      title: str | None = None) -> Figure:
+    """Histograms of phase margin, crossover (and gain margin) over Monte Carlo draws.
+
+    Parameters
+    ----------
+    pm_deg, crossover_hz, gm_db
+        One value per draw (degrees, Hz, dB).  Infinite gain margins (no
+        phase crossing) are counted in the note, not drawn.
+    pm_min_deg, crossover_target_hz, gm_min_db
+        Targets, drawn as vertical lines.
+    yield_fraction
+        Fraction of draws meeting every target (0..1), written on the figure.
+    what
+        What was varied, for the note.
+
+    Returns
+    -------
+    Figure
+        Two or three axes: count against phase margin (deg), crossover (Hz)
+        and gain margin (dB).
+    """
+    pm = np.asarray(pm_deg, dtype=float)
+    fc = np.asarray(crossover_hz, dtype=float)
+    panels = [("Phase margin (deg)", pm, False, pm_min_deg, "minimum"),
+              ("Crossover (Hz)", fc, True, crossover_target_hz, "target")]
+    if gm_db is not None:
+        panels.append(("Gain margin (dB)", np.asarray(gm_db, dtype=float), False, gm_min_db, "minimum"))
+    fig = new_figure(3.4 * len(panels) + 0.8, 3.9)
+    axes = fig.subplots(1, len(panels), sharey=True)
+    for ax, (label, vals, log, target, kind) in zip(axes, panels, strict=True):
+        _hist(ax, vals, log=log, color=style.SPREAD)
+        finite = vals[np.isfinite(vals)]
+        if finite.size:
+            med = float(np.median(finite))
+            ax.axvline(med, color=style.MODEL, lw=1.6, label=f"median {eng(med, 'Hz') if log else f'{med:.1f}'}")
+        if target is not None and math.isfinite(target):
+            ax.axvline(target, color=style.TARGET, ls="--", lw=2.0,
+                       label=f"{kind} {eng(target, 'Hz') if log else f'{target:g}'}")
+        n_inf = int(np.sum(np.isinf(vals)))
+        if n_inf:
+            note(ax, f"{n_inf} draws: none (∞)", loc="upper left")
+        ax.set_xlabel(label)
+        ax.legend(loc="upper right", fontsize=8)
+    axes[0].set_ylabel("Draws (count)")
+    n = len(pm)
+    head = title or f"Spread over {n} draws of {what}"
+    if yield_fraction is not None:
+        ok = yield_fraction >= 0.99
+        fig.suptitle(f"{head}: yield {100 * yield_fraction:.1f} %", fontweight="bold",
+                     color=style.BLACK if ok else style.WARN, x=0.01, ha="left", fontsize=11.5)
+    else:
+        fig.suptitle(head, fontweight="bold", x=0.01, ha="left", fontsize=11.5)
+    return fig
+
+
+@styled
+def step_response(step: Curve | None = None, load_step: Curve | None = None, *,
+                  measured: Curve | None = None, step_spread: tuple[Curve, Curve] | None = None,
+                  title: str | None = None) -> Figure:
+    """Predicted reference step and load step, with a measured trace overlaid.
+
+    Parameters
+    ----------
+    step
+        Predicted response to a reference step (time in s; unit of the values
+        as in the curve, e.g. V or 1 for a normalised step).
+    load_step
+        Predicted output deviation for a load-current step (V).
+    measured
+        A measured trace already brought to the step's scale and time origin,
+        drawn over ``step``.
+    step_spread
+        Lower and upper envelope of the step over tolerance draws (shaded).
+
+    Returns
+    -------
+    Figure
+        One axes per given prediction, time on x in a readable unit.
+    """
+    panels = [(c, name) for c, name in ((step, "step"), (load_step, "load step")) if c is not None]
+    if not panels:
+        raise ValueError("step_response needs a step or a load step")
+    t_max = max(float(c.x[-1]) for c, _ in panels)
+    factor, unit = time_scale(t_max)
+    fig = new_figure(8.0, 3.4 * len(panels) + 0.6)
+    axes = np.atleast_1d(fig.subplots(len(panels), 1))
+    for ax, (c, name) in zip(axes, panels, strict=True):
+        if name == "step" and step_spread is not None:
+            lo, hi = step_spread
+            ax.fill_between(lo.x * factor, lo.y, hi.y, color=style.SPREAD, alpha=0.35, lw=0,
+                            label="spread over tolerances")
+        if name == "step" and measured is not None:
+            ax.plot(measured.x * factor, measured.y, "-", color=style.MEASURED, lw=1.0, alpha=0.85,
+                    label=measured.name or "measured")
+        color = style.MODEL if name == "step" else style.SECOND
+        ax.plot(c.x * factor, c.y, "-", color=color, lw=2.0, label=c.name or f"predicted {name}")
+        ax.axhline(0.0, color="#777777", lw=0.8)
+        ax.set_xlim(min(0.0, float(c.x[0]) * factor), t_max * factor)
+        ax.set_ylabel(f"{'Output' if name == 'step' else 'Output deviation'} ({_unit_text(c.unit)})")
+        ax.set_xlabel(f"Time ({unit})")
+        ax.legend(loc="best", fontsize=8.5)
+        ax.set_title("Reference step" if name == "step" else "Load step", fontsize=10.5)
+    fig.suptitle(title or "Predicted time response", fontweight="bold", x=0.01, ha="left", fontsize=11.5)
+    return fig
+
+
+def _unit_text(unit: str) -> str:
+    return {"1": "V/V", "ohm": "Ω"}.get(unit, unit)
+
+
+@styled
+def output_impedance(open_loop: Curve, closed_loop: Curve, *, measured: Curve | None = None,
+                     title: str | None = None) -> Figure:
+    """|Z| of the output, open loop and closed loop (Zcl = Zol / (1 + T)), against frequency.
+
+    Parameters
+    ----------
+    open_loop, closed_loop
+        Impedance curves (complex, ohm) against frequency (Hz).
+    measured
+        Optional measured open-loop impedance, drawn as points.
+
+    Returns
+    -------
+    Figure
+        One log-log axes: impedance (Ω) against frequency (Hz).
+    """
+    fig = new_figure(8.0, 4.8)
+    ax = fig.add_subplot(1, 1, 1)
+    log_axis(ax, "x")
+    log_axis(ax, "y")
+    if measured is not None:
+        ax.plot(measured.x, np.abs(measured.y), ".", color=style.MEASURED, ms=4, label=measured.name or "measured")
+    ax.plot(open_loop.x, np.abs(open_loop.y), "--", color=style.SECOND, lw=2.0,
+            label=open_loop.name or "open loop")
+    ax.plot(closed_loop.x, np.abs(closed_loop.y), "-", color=style.MODEL, lw=2.0,
+            label=closed_loop.name or "closed loop")
+    zc = np.abs(closed_loop.y)
+    i = int(np.argmax(zc))
+    ax.plot([closed_loop.x[i]], [zc[i]], "v", color=style.WARN, ms=8)
+    ax.annotate(f"peak {eng(float(zc[i]), 'Ω')} at {eng(float(closed_loop.x[i]), 'Hz')}",
+                (closed_loop.x[i], zc[i]), textcoords="offset points", xytext=(8, 8),
+                color=style.WARN, fontsize=9.5)
+    ax.set_xlim(closed_loop.x[0], closed_loop.x[-1])
+    ax.set_xlabel(FREQ_LABEL)
+    ax.set_ylabel("|Z| (Ω)")
+    ax.legend(loc="best", fontsize=8.5)
+    ax.set_title(title or "Output impedance, open and closed loop")
+    return fig
