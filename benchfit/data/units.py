@@ -106,7 +106,7 @@ def time_value_s(text: str, default_unit: str = "s") -> float | None:
     value, unit = q
     unit = unit or default_unit
     if unit.lower() in TIME_UNITS:
-        return value * TIME_UNITS[unit.lower()]
+        return float(f"{value * TIME_UNITS[unit.lower()]:.15g}")  # -100 us -> -1e-4, not -9.99..e-5
     return None
 
 
