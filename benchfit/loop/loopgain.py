@@ -155,25 +155,13 @@ class Loop:
         return self.plant.plant.with_response(self.response(f), quantity="loop", step="loop_gain",
                                               settings={"network": self.network.to_dict()})
 
-    def grid(self) -> np.ndarray:
-        f = [f for f in self.network.corners_hz()["zeros_hz"] + self.network.corners_hz()["poles_hz"]]
-        f.append(self.network.integrator_hz())
-        hi = max(f) * 100
-        if self.opamp is not None:
-            hi = max(hi, self.opamp.gbw_hz * 10)
-        return self.plant.grid(min(f) / 100, hi)
-
     def margins(self) -> Any:
-        """Margins of T (benchfit.loop.margins), from the model or the data."""
+        """Margins of T (:mod:`benchfit.loop.margins`), from the model or the data."""
         from benchfit.loop import margins as mg
 
         if self.plant.is_data:
-            f = self.plant.plant.freq_hz
-            return mg.margins_from_data(f, self.response(f))
-        g = self.grid()
-        t = self.model()
-        return mg.margins_from_model(t.response, float(g[0]), float(g[-1]),
-                                     unstable_open_loop_poles=self.plant.unstable_poles)
+            return mg.margins_of_sweep(self.data())
+        return mg.margins_of_model(self.model(), unstable_open_loop_poles=self.plant.unstable_poles)
 
 
 def plant_from_measured_loop(measured_loop: FrequencyResponse, old: Network,

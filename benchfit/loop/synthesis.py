@@ -269,11 +269,14 @@ def rate_of_closure(kind: str, lp: LoopPlant, f_hz: np.ndarray) -> np.ndarray:
 
 
 # ----- search over design phase margin, crossover -------------------------------------------
-def _margins_rows(freq_hz: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _margins_rows(freq_hz: np.ndarray, t: np.ndarray,
+                  unstable: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     from benchfit.loop.margins import margins_batch
 
-    out = margins_batch(freq_hz, t)
-    return np.asarray(out["pm_deg"], dtype=float), np.asarray(out["gm_db"], dtype=float)
+    out = margins_batch(freq_hz, t, unstable_open_loop_poles=unstable)
+    # an unstable closed loop meets nothing, whatever its main-crossover phase margin
+    pm = np.where(out["stable"], np.asarray(out["pm_deg"], dtype=float), -np.inf)
+    return pm, np.asarray(out["gm_db"], dtype=float), np.asarray(out["crossover_hz"], dtype=float)
 
 
 class _Placer:
@@ -298,14 +301,20 @@ class _Placer:
         return net, boost, k, notes
 
     def worst(self, nets: list[Network], fc: float) -> tuple[np.ndarray, np.ndarray]:
-        """Worst PM and GM over corners for each candidate network."""
+        """Worst PM and GM over corners for each candidate network.
+
+        A candidate whose main crossover on the first corner is not at ``fc``
+        (another crossing took over) counts as failing: PM −inf.
+        """
         pm_w = np.full(len(nets), np.inf)
         gm_w = np.full(len(nets), np.inf)
         hi = fc * 1e3 if self.opamp is None else max(fc * 1e3, self.opamp.gbw_hz * 10)
-        for lp in self.corners:
+        for i, lp in enumerate(self.corners):
             g = lp.grid(fc / 1e3, hi)
             t = np.array([lp.response(g) * n.response(g, self.opamp) for n in nets])
-            pm, gm = _margins_rows(g, t)
+            pm, gm, fx = _margins_rows(g, t, lp.unstable_poles)
+            if i == 0:
+                pm = np.where(np.abs(np.log(fx / fc)) < math.log(1.03), pm, -np.inf)
             pm_w = np.minimum(pm_w, np.where(np.isfinite(pm), pm, -np.inf))
             gm_w = np.minimum(gm_w, np.where(np.isnan(gm), -np.inf, gm))
         return pm_w, gm_w
@@ -418,8 +427,9 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
             place(kind, complex(corners[0].response(np.array([fc]))[0]), fc,
                   targets.phase_margin_deg, r_in)
             raise DesignError(f"no {kind} placement at {fc:.4g} Hz")
-        return finish(fallback, [f"targets not met at {fc:.4g} Hz: worst phase margin "
-                                 f"{pm:.1f}°, worst gain margin {gm:.1f} dB"])
+        why = (f"worst phase margin {pm:.1f}°, worst gain margin {gm:.1f} dB" if np.isfinite(pm)
+               else "the closed loop is unstable or crosses over elsewhere on some plant")
+        return finish(fallback, [f"targets not met at {fc:.4g} Hz: {why}"])
     lo = max(lp.band_hz[0] for lp in corners)
     hi = min(lp.band_hz[1] for lp in corners)
     if opamp is not None:
