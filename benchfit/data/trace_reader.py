@@ -53,7 +53,7 @@ def _split_name(name: str) -> tuple[str, str | None]:
     return name.strip(), None
 
 
-def _is_time_name(name: str) -> bool:
+def is_time_name(name: str) -> bool:
     base, unit = _split_name(name)
     b = base.strip().lower()
     return bool(_TIME_NAME.match(b)) or b.startswith("time") or (
@@ -231,7 +231,7 @@ def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
         names, header = [], "none"
     keep = [i for i, nm in enumerate(names) if nm.lower() not in ("skip", "-", "_")] if names else \
         list(range(ncols))
-    time_col = next((i for i in keep if names and _is_time_name(names[i])), None)
+    time_col = next((i for i in keep if names and is_time_name(names[i])), None)
     if not names:
         first_col = block.data[:, 0]
         steps = np.diff(first_col)
