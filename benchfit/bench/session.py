@@ -164,8 +164,8 @@ class Session:
                 if self.idn is None and line.count(",") >= 3 and not line.startswith("#"):
                     return
         except _Timeout:
-            raise InstrumentError("instrument stopped answering: no reply to the identify query "
-                                  "sent to resynchronise", resource=self.name,
+            raise InstrumentError("instrument stopped answering (no reply to the identify query "
+                                  "sent to resynchronise; the connection may be lost)", resource=self.name,
                                   command=after or idn_cmd) from None
         raise InstrumentError(f"could not resynchronise: {MAX_RESYNC_DISCARDS} stale replies",
                               resource=self.name, command=after or idn_cmd)

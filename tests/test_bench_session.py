@@ -1,0 +1,96 @@
+"""Session reliability over genuine pyvisa code paths: retry, resync, error queue, lost link."""
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+from benchfit.bench.profile import find_profile
+from benchfit.bench.sim_transport import simulated_session
+from benchfit.bench.simulator import Faults, SimulatedAnalyzer
+from benchfit.errors import InstrumentError
+
+
+def lowpass(f):
+    return 1.0 / (1.0 + 1j * np.asarray(f) / 1e3)
+
+
+def profile(**changes):
+    base = dataclasses.replace(find_profile("generic-analyzer"), timeout_s=0.25, retries=2)
+    return dataclasses.replace(base, **changes)
+
+
+def test_late_reply_after_timeout_is_discarded_by_resync(tmp_path):
+    # Query 2 (the first FREQ:STAR?) answers 0.4 s late: after the 0.25 s timeout.  Without the
+    # resync its late answer would be read as the reply to the next query.
+    inst = SimulatedAnalyzer(lowpass, faults=Faults(timeout_on_query=2, late_reply_s=0.4))
+    with simulated_session(inst, profile(), folder=tmp_path) as s:
+        s.identify()                              # query 1
+        s.write("FREQ:STAR 123")
+        assert float(s.query("FREQ:STAR?")) == 123.0   # query 2 times out, resync, retry
+        s.write("FREQ:STOP 4567")
+        assert float(s.query("FREQ:STOP?")) == 4567.0  # stays in step afterwards
+        assert s.stats() == {"timeouts": 1, "resyncs": 1, "malformed": 0}
+
+
+def test_lost_reply_is_retried(tmp_path):
+    inst = SimulatedAnalyzer(lowpass, faults=Faults(timeout_on_query=2, late_reply_s=None))
+    with simulated_session(inst, profile(), folder=tmp_path) as s:
+        s.identify()
+        assert s.query("*OPC?") == "1"
+        assert s.timeouts == 1
+
+
+def test_retries_exhausted_names_resource_and_command(tmp_path):
+    inst = SimulatedAnalyzer(lowpass)
+    with simulated_session(inst, profile(retries=1), folder=tmp_path) as s:
+        s.identify()
+        # data query before any sweep: the instrument answers nothing (and logs -230)
+        with pytest.raises(InstrumentError) as info:
+            s.query_values("CALC:DATA? SDAT")
+        msg = str(info.value)
+        assert "TCPIP0::simulated::inst0::INSTR" in msg and "CALC:DATA? SDAT" in msg
+        assert "tried 2 times" in msg and "no answer within 0.25 s" in msg
+        assert [c for c, _ in s.drain_errors()] == [-230, -230]
+
+
+def test_bad_command_becomes_instrument_error_naming_it(tmp_path):
+    inst = SimulatedAnalyzer(lowpass)
+    with simulated_session(inst, profile(), folder=tmp_path) as s:
+        s.configure("SENS:FREQ:STAR 100")
+        with pytest.raises(InstrumentError) as info:
+            s.configure("SENS:BWID:WRONG 10")
+        msg = str(info.value)
+        assert "'SENS:BWID:WRONG 10'" in msg and "-113 Undefined header" in msg
+        assert s.drain_errors() == []             # the queue was drained
+
+
+def test_several_errors_reported_in_order(tmp_path):
+    inst = SimulatedAnalyzer(lowpass)
+    with simulated_session(inst, profile(), folder=tmp_path) as s:
+        s.write("FREQ:STAR 1e12")
+        s.write("NOPE")
+        assert [c for c, _ in s.drain_errors()] == [-222, -113]
+
+
+def test_malformed_block_is_retried(tmp_path):
+    inst = SimulatedAnalyzer(lowpass, noise=0.0, freq_resolution_hz=0.0,
+                             faults=Faults(corrupt_block_on_query=3))
+    with simulated_session(inst, profile(), folder=tmp_path) as s:
+        s.identify()                                          # query 1
+        s.configure("FORM:DATA REAL,64;FREQ:STAR 10;FREQ:STOP 1e3;SWE:POIN 3;INIT")  # query 2
+        f = s.query_values("FREQ:DATA?")                      # query 3: corrupt, then retried
+        np.testing.assert_allclose(f, [10, 100, 1000])
+        assert s.timeouts == 1 and s.resyncs == 1
+
+
+@pytest.mark.parametrize("transport", ["sim", "tcp"])
+def test_dropped_connection_is_a_clear_error(tmp_path, transport):
+    inst = SimulatedAnalyzer(lowpass, faults=Faults(drop_on_query=2))
+    with simulated_session(inst, profile(), transport=transport, folder=tmp_path) as s:
+        s.identify()
+        with pytest.raises(InstrumentError) as info:
+            s.query("FREQ:STAR?")
+            s.query("FREQ:STAR?")
+        # pyvisa-sim raises at once; pyvisa-py on a closed socket only times out
+        assert "connection lost" in str(info.value) or "stopped answering" in str(info.value)
