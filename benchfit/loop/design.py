@@ -359,12 +359,17 @@ class Design:
             s = self.synthesis
             lines.append(f"placed for crossover {s.crossover_hz:.4g} Hz: plant phase "
                          f"{s.plant_phase_deg:.1f}°, boost {s.boost_deg:.1f}°, K {s.k:.3g}")
-        lines.append(f"{'part':6}{'ideal':>14}{'snapped':>12}")
+        given = self.method == "check"
+        lines.append(f"{'part':6}{'given':>14}" if given else f"{'part':6}{'ideal':>14}{'snapped':>12}")
         for n, v in self.ideal.network.parts.items():
             unit = "ohm" if n[0] == "R" else "F"
-            lines.append(f"{n:6}{_eng(v, unit):>14}{_eng(self.snapped.network.parts[n], unit):>12}")
-        lines.append(f"series: R {self.series.get('resistor')}, C {self.series.get('capacitor')}")
-        for label, p in (("ideal", self.ideal), ("snapped", self.snapped)):
+            lines.append(f"{n:6}{_eng(v, unit):>14}"
+                         + ("" if given else f"{_eng(self.snapped.network.parts[n], unit):>12}"))
+        if not given:
+            lines.append(f"series: R {self.series.get('resistor')}, C {self.series.get('capacitor')}")
+        preds = (("given", self.snapped),) if given else (("ideal", self.ideal),
+                                                           ("snapped", self.snapped))
+        for label, p in preds:
             m = p.worst_margins()
             name = f" (worst: {self.corners[p.worst].name})" if len(self.corners) > 1 else ""
             lines.append(f"{label:8} PM {m.phase_margin_deg:6.1f}° at {m.crossover_hz:.4g} Hz, "

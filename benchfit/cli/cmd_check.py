@@ -1,0 +1,60 @@
+"""`benchfit check`: predict the loop with a given set of parts (e.g. what is on the board)."""
+
+from __future__ import annotations
+
+import argparse
+
+from benchfit.cli.cmd_design import parse_tolerance
+from benchfit.cli.common import add_json_flag, emit, parse_si, warn
+from benchfit.errors import InputError
+from benchfit.loop.design import Design, check_parts, with_parts
+from benchfit.loop.designfile import load_plant
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "check", help="predict the margins of a design's parts (or changed parts) on a plant",
+        description="Take the network, sensing and op-amp of a design file, optionally change "
+                    "some parts, and predict the loop margins on the given plant(s) (default: the "
+                    "plants the design was made for).")
+    p.add_argument("plants", nargs="*", metavar="PLANT",
+                   help="model JSON, fit-result JSON or sweep file (several = corners)")
+    p.add_argument("--design", required=True, metavar="JSON", help="design file from benchfit design")
+    p.add_argument("--parts", metavar="R1=10k,C1=4.7n,...", help="parts to change (SI prefixes)")
+    p.add_argument("--draws", type=int, default=0, metavar="N", help="Monte Carlo draws (default 0)")
+    p.add_argument("--tolerance", metavar="R%:C%", help="part tolerances in percent (default 1:10)")
+    p.add_argument("--seed", type=int, help="random seed for the Monte Carlo")
+    add_json_flag(p)
+    p.set_defaults(func=run)
+
+
+def parse_parts(text: str | None) -> dict[str, float]:
+    out: dict[str, float] = {}
+    for item in (text or "").split(","):
+        if not item.strip():
+            continue
+        name, sep, value = item.partition("=")
+        if not sep:
+            raise InputError(f"{item!r}: expected NAME=VALUE, e.g. R1=10k", source="--parts")
+        out[name.strip().upper()] = parse_si(value, "--parts")
+    return out
+
+
+def run(args: argparse.Namespace) -> int:
+    d = Design.from_json(args.design)
+    net = with_parts(d.snapped.network, parse_parts(args.parts))
+    if args.plants:
+        corners = [load_plant(p, d.sensing) for p in args.plants]
+    else:
+        corners = list(d.corners)
+    if args.draws < 0:
+        raise InputError(f"{args.draws}: expected a number of draws >= 0", source="--draws")
+    tol = parse_tolerance(args.tolerance) if args.tolerance else (0.01, 0.10)
+    result = check_parts(corners, net, opamp=d.opamp, targets=d.targets, tolerances=tol,
+                         draws=args.draws, seed=args.seed,
+                         sources=tuple(args.plants) + (args.design,))
+    if not args.json:
+        for w in result.warnings:
+            warn(w)
+    emit(args, result.to_dict(), result.report().split("\nwarning: ")[0])
+    return 0
