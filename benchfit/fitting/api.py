@@ -1,0 +1,327 @@
+"""``fit()``: from a measured FrequencyResponse to a FitResult.
+
+Steps: band selection → per-point σ (weights.py) → delay estimate (delay.py)
+→ vector fitting at a given or automatically chosen order (vectfit.py,
+order.py) → physical parameters (parameters.py) with spurious zeros and
+cancelling artefacts removed → lmfit refinement with uncertainties
+(refine.py) → statistics and warnings (result.py).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from benchfit.data.response import FrequencyResponse
+from benchfit.errors import FitError, InputError
+from benchfit.fitting.delay import excess_phase_delay, search_delay
+from benchfit.fitting.model import PlantModel
+from benchfit.fitting.order import CHI_OK, Attempt, Context, attempt, choose_order, polish
+from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk, to_zpk
+from benchfit.fitting.refine import Refined, log_residual, refine
+from benchfit.fitting.result import FitResult, Parameter
+from benchfit.fitting.vectfit import vf_to_zpk
+from benchfit.fitting.weights import point_sigma, scatter_sigma, vf_weight
+
+#: Zeros beyond this multiple of the top frequency are dropped (not identifiable in band).
+ZERO_LIMIT = 3.0
+#: A delay whose phase at f_max is below this (rad) is not worth a parameter.
+DELAY_MIN_PHASE = 0.05
+#: Residual above this multiple of the noise floor gets a warning (common practice, no source).
+FAR_ABOVE_FLOOR = 2.0
+_DB = 20.0 / np.log(10.0)
+
+
+def _check_options(order, delay, weighting, integrators) -> None:
+    if not (order == "auto" or (isinstance(order, (int, np.integer)) and not isinstance(order, bool)
+                                and order >= 1)):
+        raise InputError(f"{order!r}: expected 'auto' or a whole number >= 1", source="--order")
+    if isinstance(delay, str):
+        if delay not in ("auto", "none"):
+            raise InputError(f"{delay!r}: expected auto, none or a delay in seconds", source="--delay")
+    elif not (isinstance(delay, (int, float)) and np.isfinite(delay) and delay >= 0):
+        raise InputError(f"{delay!r}: expected auto, none or a delay >= 0 s", source="--delay")
+    if weighting not in ("relative", "absolute"):
+        raise InputError(f"{weighting!r}: expected relative or absolute", source="--weighting")
+    if not (integrators == "auto" or (isinstance(integrators, (int, np.integer))
+                                      and 0 <= integrators <= 3)):
+        raise InputError(f"{integrators!r}: expected auto or 0..3", source="--integrators")
+
+
+def _slope(f: np.ndarray, mag: np.ndarray, part: slice) -> float:
+    """Median log-log slope of |H| (decades of |H| per decade of f) over ``part``."""
+    g = np.gradient(np.log(mag), np.log(f))[part]
+    return float(np.median(g)) if g.size else 0.0
+
+
+def detect_integrators(f: np.ndarray, h: np.ndarray) -> int:
+    """Integrators seen at the bottom of the band: slope −m and phase −90°·m (common practice)."""
+    n = f.shape[0]
+    part = slice(0, max(3, n // 20))
+    m = int(round(-_slope(f, np.abs(h), part)))
+    if m <= 0:
+        return 0
+    ph = np.degrees(np.angle(h[part]))
+    # phase of gain/s^m: −90·m (or +180 offset for an inverting gain)
+    err = np.abs(((ph + 90.0 * m) + 90.0) % 180.0 - 90.0)
+    return min(m, 3) if float(np.median(err)) < 20.0 else 0
+
+
+def _clean_zpk(zeros, poles, k, f_min, f_max) -> tuple[np.ndarray, np.ndarray, float, list[str]]:
+    """Drop zeros far above the band and pole/zero pairs that cancel below it.
+
+    The gain k is adjusted so the response in the band is unchanged to first
+    order: a dropped zero z contributes (s − z) ≈ −z there.
+    """
+    notes = []
+    w_max = TWO_PI * f_max
+    far = np.abs(zeros) > ZERO_LIMIT * w_max
+    if np.any(far):
+        notes.append(f"dropped {int(far.sum())} zero(s) above {ZERO_LIMIT:g}× the top frequency "
+                     "(not identifiable in the band)")
+    k = float(np.real(k * np.prod(-zeros[far])))
+    zeros = zeros[~far]
+    # A pole and a zero closer than 1 % of their frequency, below the band, are a VF artefact.
+    keep_p = np.ones(poles.shape[0], bool)
+    keep_z = np.ones(zeros.shape[0], bool)
+    w_min = TWO_PI * f_min
+    for i, p in enumerate(poles):
+        if abs(p) >= w_min or not keep_p[i]:
+            continue
+        d = np.abs(zeros - p)
+        d[~keep_z] = np.inf
+        j = int(np.argmin(d)) if d.size else -1
+        if j >= 0 and d[j] < 0.01 * abs(p):
+            keep_p[i] = keep_z[j] = False
+    removed = int((~keep_p).sum())
+    if removed:
+        notes.append(f"removed {removed} pole/zero pair(s) cancelling below the band")
+    k = float(np.real(k * np.prod(-zeros[~keep_z]) / np.prod(-poles[~keep_p])))
+    return zeros[keep_z], poles[keep_p], k, notes
+
+
+def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, bool]:
+    """Direct/proportional terms from the magnitude slope at the top of the band."""
+    n = f.shape[0]
+    s = _slope(f, np.abs(h), slice(n - max(3, n // 10), n)) + integrators
+    return s > -0.5, s > 0.5
+
+
+def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[Attempt, list[Attempt], float, bool]:
+    """Vector fit at the given or chosen order, with the delay fixed, absent or searched.
+
+    With ``delay="auto"`` two hypotheses are scanned, no delay and a delay
+    started at the excess-phase estimate; the delay is kept only when it
+    lets fewer poles (or the same poles, clearly better) reach the floor.
+    """
+    fixed_tau = float(delay) if not isinstance(delay, str) else 0.0
+    tau0 = excess_phase_delay(f, h) if delay == "auto" else 0.0
+    try_delay = delay == "auto" and tau0 * TWO_PI * f[-1] >= DELAY_MIN_PHASE
+    if order != "auto":
+        n = int(order)
+        att = attempt(ctx, n, fixed_tau)
+        if try_delay:
+            att_d = search_delay(ctx, n, tau0, att.vf.poles)
+            if att_d.chi < 0.8 * att.chi:
+                return att_d, [], att_d.tau_s, True
+        return att, [], fixed_tau, False
+    att, scan = choose_order(ctx, fixed_tau)
+    if not try_delay:
+        return att, scan, fixed_tau, False
+    att_d, scan_d = choose_order(ctx, tau0, n_max=att.order)
+    att_d = search_delay(ctx, att_d.order, tau0, att_d.vf.poles)
+    for lower in range(max(att_d.order - 2, 1), att_d.order):
+        a2 = attempt(ctx, lower, att_d.tau_s)
+        scan_d.append(a2)
+        if a2.chi <= max(CHI_OK, 1.05 * att_d.chi):
+            att_d = a2
+            break
+    if att_d.order < att.order or (att_d.order == att.order and att_d.chi < 0.8 * att.chi):
+        return att_d, scan_d, att_d.tau_s, True
+    return att, scan, 0.0, False
+
+
+def fit(
+    resp: FrequencyResponse,
+    order: int | str = "auto",
+    delay: float | str = "auto",
+    band: tuple[float | None, float | None] | None = None,
+    fix: dict[str, float] | None = None,
+    weighting: str = "relative",
+    integrators: int | str = 0,
+    bounds: dict[str, tuple[float, float]] | None = None,
+) -> FitResult:
+    """Fit a pole/zero model (with optional delay) to a measured response.
+
+    Parameters
+    ----------
+    resp
+        The measured sweep.
+    order
+        Number of poles (integrators not counted), or ``"auto"``: raise the
+        order until the residual reaches the noise floor.
+    delay
+        ``"auto"`` (estimate and fit a transport delay when the phase shows
+        one), ``"none"``, or a known delay in seconds (held fixed).
+    band
+        (f_min_hz, f_max_hz) to fit; either may be None.
+    fix
+        Parameters held at given values, by name (e.g. ``{"zero1_hz": 12e3}``).
+    weighting
+        ``"relative"`` (errors in dB and degrees; default) or ``"absolute"``
+        (plain complex error, 1/stddev weights when the file has them).
+    integrators
+        Poles fixed at the origin (a measured loop gain), or ``"auto"``.
+    bounds
+        (lower, upper) limits per parameter name.
+
+    Returns
+    -------
+    FitResult
+
+    Raises
+    ------
+    InputError
+        Bad options or a band with too few points.
+    FitError
+        The data cannot be fitted as asked (too few points, constant response...).
+    """
+    if not isinstance(resp, FrequencyResponse):
+        raise InputError(f"expected a FrequencyResponse, got {type(resp).__name__}")
+    _check_options(order, delay, weighting, integrators)
+    settings: dict[str, Any] = {"order": order, "delay": delay, "band": list(band) if band else None,
+                                "fix": dict(fix or {}), "weighting": weighting,
+                                "integrators": integrators,
+                                "bounds": {k: list(v) for k, v in (bounds or {}).items()}}
+    if band is not None:
+        resp = resp.band(*band)
+    f, h = resp.freq_hz, resp.response
+    n_pts = f.shape[0]
+    mag = np.abs(h)
+    if np.any(mag == 0):
+        raise FitError("the response is exactly zero at some points; a log fit needs |H| > 0")
+    lnm, ph = np.log(mag), np.unwrap(np.angle(h))
+    if np.ptp(lnm) < 1e-9 and np.ptp(ph) < 1e-9:
+        raise FitError("the response is constant over the band: there is nothing for poles and "
+                       "zeros to fit (a pure gain)")
+    sigma = point_sigma(h, resp.stddev, resp.coherence, resp.weight)
+    m = detect_integrators(f, h) if integrators == "auto" else int(integrators)
+    scale = TWO_PI * float(np.sqrt(f[0] * f[-1]))
+    s_sc = 1j * TWO_PI * f / scale
+    direct, prop = _hf_terms(f, h, m)
+    w = vf_weight(h, sigma, weighting, resp.stddev)
+    if not np.any(w > 0):
+        raise FitError("no point has a usable weight")
+    ctx = Context(s=s_sc, scale=scale, h=h, sigma=sigma, w=w, integrators=m,
+                  direct=direct, proportional=prop)
+
+    # ----- delay and order ------------------------------------------------------
+    notes: list[str] = []
+    if order != "auto":
+        need = int(order) + 3
+        if n_pts < need:
+            raise FitError(f"order {order} needs at least {need} points in the band; it holds {n_pts}")
+    att, scan, tau, fit_delay = _order_and_delay(ctx, f, h, order, delay)
+    att = polish(ctx, att)
+    if not np.isfinite(att.chi):
+        raise FitError("vector fitting failed: the model does not evaluate on the band "
+                       "(check the data for gaps or exact zeros)")
+
+    # ----- physical parameters and refinement -------------------------------------
+    zeros, poles, k = vf_to_zpk(att.vf, scale)
+    zeros, poles, k, clean_notes = _clean_zpk(zeros, poles, k, f[0], f[-1])
+    notes += clean_notes
+    k_h = k * scale ** m  # the VF model was of H·(s/scale)^m
+    has_delay = fit_delay or (not isinstance(delay, str) and delay > 0)
+    st, v0 = from_zpk(zeros, poles, k_h, tau, integrators=m, delay=has_delay)
+    fixed = dict(fix or {})
+    if has_delay and not fit_delay:
+        fixed.setdefault("delay_s", float(delay))
+    s = 1j * TWO_PI * f
+    sig_abs = None
+    if weighting == "absolute":
+        sig_abs = resp.stddev if resp.stddev is not None else np.full(
+            n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
+    ref = refine(st, v0, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
+                 weighting=weighting, sig_abs=sig_abs)
+    if fit_delay and "delay_s" not in fixed:
+        i = st.names.index("delay_s")
+        tv, te = ref.values[i], ref.stderr[i]
+        if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
+            # Not significant: drop the delay parameter and refine again without it.
+            keep = [j for j in range(len(st.names)) if j != i]
+            st = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs, m, False)
+            ref = refine(st, ref.values[keep], s, h, sigma.mag, sigma.phase, fix=fixed,
+                         bounds=bounds, weighting=weighting, sig_abs=sig_abs)
+            notes.append("delay estimate not significant; fitted without delay")
+    return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings)
+
+
+def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed, settings) -> FitResult:
+    f, h = resp.freq_hz, resp.response
+    s = 1j * TWO_PI * f
+    zeros, poles, k, tau = to_zpk(st, ref.values)
+    model = PlantModel(zeros=zeros, poles=poles, k=k, delay_s=max(tau, 0.0),
+                       provenance=resp.provenance.derive("fit", settings))
+    r = log_residual(st, ref.values, s, np.log(h))
+    r_db, r_deg = _DB * r.real, np.degrees(r.imag)
+    chi = float(np.sqrt(0.5 * np.mean((r.real / sigma.mag) ** 2 + (r.imag / sigma.phase) ** 2)))
+    gain_unit = "ohm" if resp.quantity == "impedance" else ""
+    if st.integrators:
+        gain_unit = (gain_unit + "·" if gain_unit else "") + (
+            "rad/s" if st.integrators == 1 else f"(rad/s)^{st.integrators}")
+    units = st.units(gain_unit)
+    params = tuple(
+        Parameter(name=nm, value=float(ref.values[i]), stderr=float(ref.stderr[i]), unit=units[i],
+                  fixed=nm in fixed)
+        for i, nm in enumerate(st.names))
+    cov = np.asarray(ref.covariance, dtype=float)
+    with np.errstate(all="ignore"):
+        d = np.sqrt(np.diag(cov))
+        corr = cov / np.outer(d, d) if cov.size else cov
+    warnings = list(notes)
+    converged = bool(att.vf.converged and ref.success)
+    if not att.vf.converged:
+        warnings.append(f"vector fitting did not converge in {att.vf.iterations} iterations")
+    if not ref.success:
+        warnings.append(f"refinement did not converge: {ref.message}")
+    if np.any(~np.isfinite(ref.stderr[[i for i, nm in enumerate(st.names) if nm not in fixed]])):
+        warnings.append("some uncertainties could not be estimated (parameters not identifiable)")
+    for p in params:
+        if p.name.endswith("_hz") and (abs(p.value) < 0.9 * f[0] or abs(p.value) > 1.1 * f[-1]):
+            warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "
+                            f"{f[0]:.4g}..{f[-1]:.4g} Hz: poorly identified")
+    if att.vf.flipped:
+        warnings.append(f"{att.vf.flipped} right-half-plane pole(s) were mirrored into the left "
+                        "half-plane; if the plant is really unstable, this model is wrong")
+    if not model.is_stable:
+        warnings.append("the refined model has right-half-plane poles")
+    if chi > FAR_ABOVE_FLOOR:
+        warnings.append(f"residual is {chi:.1f}× the noise floor: the model misses part of the "
+                        "response (try a higher --order or a narrower --band)")
+    stats = {
+        "rms_db": float(np.sqrt(np.mean(r_db ** 2))),
+        "rms_deg": float(np.sqrt(np.mean(r_deg ** 2))),
+        "max_db": float(np.max(np.abs(r_db))),
+        "max_deg": float(np.max(np.abs(r_deg))),
+        "reduced_chi2": float(ref.redchi),
+        "points": int(f.shape[0]),
+        "f_min_hz": float(f[0]),
+        "f_max_hz": float(f[-1]),
+        "order": int(model.order),
+        "iterations": int(att.vf.iterations),
+        "evaluations": int(ref.evaluations),
+        "converged": converged,
+        "noise_floor_db": sigma.floor_db,
+        "noise_floor_deg": sigma.floor_deg,
+        "noise_source": sigma.source,
+        "residual_over_floor": chi,
+        "delay_s": float(max(tau, 0.0)),
+    }
+    return FitResult(
+        model=model, parameters=params, stats=stats, warnings=tuple(warnings),
+        order_scan=tuple(a.summary() for a in scan), varied=ref.varied,
+        covariance=cov, correlation=corr, integrators=st.integrators,
+        provenance=resp.provenance.derive("fit", settings),
+    )

@@ -1,0 +1,258 @@
+"""FitResult: the fitted model, its physical parameters with σ, and fit statistics."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from benchfit.errors import InputError
+from benchfit.fileio import as_float, read_json, write_json_atomic
+from benchfit.fitting.model import PlantModel
+from benchfit.fitting.parameters import Structure, log_response
+from benchfit.provenance import Provenance
+
+#: Statistics keys every FitResult carries.
+STAT_KEYS = ("rms_db", "rms_deg", "max_db", "max_deg", "reduced_chi2", "points", "f_min_hz",
+             "f_max_hz", "order", "iterations", "converged", "noise_floor_db")
+
+
+@dataclass(frozen=True)
+class Parameter:
+    """One physical parameter of the fitted model.
+
+    Parameters
+    ----------
+    name
+        Stable name (see :mod:`benchfit.fitting.parameters`).
+    value
+        Best-fit value, in ``unit``.
+    stderr
+        One-sigma standard error (NaN when fixed or not estimable).
+    unit
+        SI unit ("Hz", "s", "" for dimensionless).
+    fixed
+        True when held at a user-given value.
+    """
+
+    name: str
+    value: float
+    stderr: float = float("nan")
+    unit: str = ""
+    fixed: bool = False
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "value": self.value, "stderr": self.stderr,
+                "unit": self.unit, "fixed": self.fixed}
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> Parameter:
+        return cls(name=str(d["name"]), value=as_float(d["value"]),
+                   stderr=as_float(d.get("stderr")), unit=str(d.get("unit", "")),
+                   fixed=bool(d.get("fixed", False)))
+
+
+def _matrix(a: Any, n: int) -> np.ndarray:
+    if a is None:
+        return np.zeros((n, n))
+    m = np.array([[as_float(x) for x in row] for row in a], dtype=float).reshape(n, n)
+    m.setflags(write=False)
+    return m
+
+
+@dataclass(frozen=True, eq=False)
+class FitResult:
+    """Result of :func:`benchfit.fitting.fit`.
+
+    Attributes
+    ----------
+    model
+        The fitted :class:`PlantModel` (zeros, poles, k, delay_s; rad/s).
+    parameters
+        Physical parameters with standard errors.
+    stats
+        Fit statistics: see :data:`STAT_KEYS` (plus a few extra keys).
+    warnings
+        Things the user should know (not converged, pole outside band...).
+    order_scan
+        One dict per order tried by the automatic order choice
+        (order, rms_db, rms_deg, chi: rms normalised residual).
+    varied
+        Names of the varied parameters, the row/column order of
+        ``covariance`` and ``correlation``.
+    covariance, correlation
+        Of the varied physical parameters (units as in ``parameters``).
+    integrators
+        Number of poles fixed at the origin.
+    provenance
+        Source file and every setting used.
+    """
+
+    model: PlantModel
+    parameters: tuple[Parameter, ...]
+    stats: dict[str, Any]
+    warnings: tuple[str, ...] = ()
+    order_scan: tuple[dict[str, Any], ...] = ()
+    varied: tuple[str, ...] = ()
+    covariance: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    correlation: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    integrators: int = 0
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="fit"))
+
+    # ----- parameters ---------------------------------------------------------------
+    @property
+    def structure(self) -> Structure:
+        return Structure.from_names(tuple(p.name for p in self.parameters), self.integrators)
+
+    @property
+    def values(self) -> np.ndarray:
+        """Parameter values in :attr:`parameters` order."""
+        return np.array([p.value for p in self.parameters], dtype=float)
+
+    def parameter(self, name: str) -> Parameter:
+        """The parameter called ``name``."""
+        for p in self.parameters:
+            if p.name == name:
+                return p
+        raise KeyError(f"no parameter {name!r}; have {', '.join(p.name for p in self.parameters)}")
+
+    def response(self, freq_hz: np.ndarray) -> np.ndarray:
+        """Model response at ``freq_hz`` (Hz)."""
+        return self.model.response(freq_hz)
+
+    def draw_responses(self, freq_hz: np.ndarray, n: int,
+                       rng: np.random.Generator | None = None) -> np.ndarray:
+        """Responses with the physical parameters drawn from the fit's covariance.
+
+        Parameters
+        ----------
+        freq_hz
+            Frequencies (Hz).
+        n
+            Number of draws.
+        rng
+            Random generator (``np.random.default_rng()`` when None).
+
+        Returns
+        -------
+        ndarray
+            Shape (n, len(freq_hz)), complex.
+        """
+        rng = np.random.default_rng() if rng is None else rng
+        f = np.asarray(freq_hz, dtype=float).reshape(-1)
+        st = self.structure
+        base = self.values
+        draws = np.tile(base, (int(n), 1))
+        names = [p.name for p in self.parameters]
+        idx = [names.index(v) for v in self.varied]
+        cov = np.asarray(self.covariance, dtype=float)
+        if idx and np.all(np.isfinite(cov)):
+            # eigh-based square root tolerates a (numerically) singular covariance.
+            evals, evecs = np.linalg.eigh(0.5 * (cov + cov.T))
+            root = evecs * np.sqrt(np.clip(evals, 0.0, None))
+            z = rng.standard_normal((int(n), len(idx)))
+            draws[:, idx] += z @ root.T
+        return np.exp(log_response(st, draws, 2j * np.pi * f))
+
+    # ----- report -------------------------------------------------------------------
+    def report(self) -> str:
+        """Compact text report: parameters ± σ, strong correlations, statistics."""
+        st = self.stats
+        src = ", ".join(self.provenance.sources) or "in-memory data"
+        lines = [f"fit of {src}: order {st.get('order')}"
+                 + (f" (+{self.integrators} integrator{'s' * (self.integrators > 1)})"
+                    if self.integrators else "")
+                 + f", {st.get('points')} points, {st.get('f_min_hz', 0):.4g}..{st.get('f_max_hz', 0):.4g} Hz",
+                 "",
+                 f"  {'parameter':<18} {'value':>13} {'± 1σ':>11} {'rel':>8}  unit"]
+        for p in self.parameters:
+            if p.fixed:
+                err, rel = "fixed", ""
+            elif np.isfinite(p.stderr):
+                err = f"{p.stderr:.3g}"
+                rel = f"{abs(p.stderr / p.value) * 100:.2g}%" if p.value else ""
+            else:
+                err, rel = "n/a", ""
+            lines.append(f"  {p.name:<18} {p.value:>13.6g} {err:>11} {rel:>8}  {p.unit}")
+        strong = []
+        c = np.asarray(self.correlation)
+        for i in range(len(self.varied)):
+            for j in range(i + 1, len(self.varied)):
+                if np.isfinite(c[i, j]) and abs(c[i, j]) > 0.7:
+                    strong.append(f"{self.varied[i]}~{self.varied[j]} {c[i, j]:+.2f}")
+        if strong:
+            lines += ["", "  correlations above 0.7: " + ", ".join(strong)]
+        lines += [
+            "",
+            f"  residual  rms {st.get('rms_db', float('nan')):.3g} dB / {st.get('rms_deg', float('nan')):.3g} deg,"
+            f"  max {st.get('max_db', float('nan')):.3g} dB / {st.get('max_deg', float('nan')):.3g} deg",
+            f"  noise floor {st.get('noise_floor_db', float('nan')):.3g} dB / "
+            f"{st.get('noise_floor_deg', float('nan')):.3g} deg,"
+            f"  reduced chi2 {st.get('reduced_chi2', float('nan')):.3g},"
+            f"  {'converged' if st.get('converged') else 'NOT converged'}"
+            f" ({st.get('iterations')} VF iterations, {st.get('evaluations', 0)} refinement evaluations)",
+        ]
+        if self.order_scan:
+            scan = ", ".join(f"{d['order']}:{d['rms_db']:.2g}dB" for d in self.order_scan)
+            lines.append(f"  order scan (order:rms) {scan}")
+        for w in self.warnings:
+            lines.append(f"  warning: {w}")
+        return "\n".join(lines)
+
+    # ----- JSON ---------------------------------------------------------------------
+    def to_dict(self) -> dict[str, Any]:
+        fit_keys = ("rms_db", "rms_deg", "max_db", "max_deg", "reduced_chi2", "order", "converged")
+        return {
+            "kind": "fit_result",
+            "model": self.model.to_dict(),
+            "parameters": [p.to_dict() for p in self.parameters],
+            "fit": {k: self.stats.get(k) for k in fit_keys},
+            "stats": dict(self.stats),
+            "warnings": list(self.warnings),
+            "order_scan": [dict(d) for d in self.order_scan],
+            "varied": list(self.varied),
+            "covariance": np.asarray(self.covariance).tolist(),
+            "correlation": np.asarray(self.correlation).tolist(),
+            "integrators": self.integrators,
+            "provenance": self.provenance.to_dict(),
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> FitResult:
+        if not isinstance(d, dict) or "model" not in d or "parameters" not in d:
+            raise InputError("expected a fit result with 'model' and 'parameters'")
+        varied = tuple(str(v) for v in d.get("varied", ()))
+        n = len(varied)
+        stats = {k: (as_float(v) if v is None or v in ("inf", "-inf") else v)
+                 for k, v in dict(d.get("stats", {})).items()}
+        return cls(
+            model=PlantModel.from_dict(d["model"]),
+            parameters=tuple(Parameter.from_dict(p) for p in d["parameters"]),
+            stats=stats,
+            warnings=tuple(str(w) for w in d.get("warnings", ())),
+            order_scan=tuple(dict(x) for x in d.get("order_scan", ())),
+            varied=varied,
+            covariance=_matrix(d.get("covariance"), n),
+            correlation=_matrix(d.get("correlation"), n),
+            integrators=int(d.get("integrators", 0)),
+            provenance=Provenance.from_dict(d.get("provenance")),
+        )
+
+    def to_json(self, path: str | os.PathLike) -> None:
+        """Write to ``path`` as JSON (atomically)."""
+        write_json_atomic(path, self.to_dict())
+
+    @classmethod
+    def from_json(cls, path: str | os.PathLike) -> FitResult:
+        try:
+            return cls.from_dict(read_json(path))
+        except InputError as e:
+            if e.source is None:
+                raise InputError(e.message, source=str(path)) from None
+            raise
+
+    def __repr__(self) -> str:
+        return (f"FitResult(order={self.stats.get('order')}, rms_db={self.stats.get('rms_db', 0):.3g}, "
+                f"rms_deg={self.stats.get('rms_deg', 0):.3g}, converged={self.stats.get('converged')})")

@@ -1,0 +1,387 @@
+"""Vector fitting of one complex frequency response, written here in numpy.
+
+Method (published):
+
+* B. Gustavsen and A. Semlyen, "Rational approximation of frequency domain
+  responses by vector fitting", IEEE Trans. Power Delivery 14(3), 1999:
+  pole relocation by fitting ``sigma(s)·H(s)`` and ``sigma(s)`` with common
+  poles, new poles = zeros of ``sigma``.
+* B. Gustavsen, "Improving the pole relocating properties of vector fitting",
+  IEEE Trans. Power Delivery 21(3), 2006: relaxed non-triviality constraint
+  (``sigma``'s constant term is free; one extra equation fixes the scale).
+* D. Deschrijver, M. Mrozowski, T. Dhaene and D. De Zutter, "Macromodeling of
+  multiport systems using a fast implementation of the vector fitting
+  method", IEEE Microwave Wireless Compon. Lett. 18(6), 2008: QR of the
+  stacked system so only the ``sigma`` block is solved.
+
+Everything here works in *scaled* complex frequency ``s / omega_scale`` so a
+sweep over six decades stays well conditioned; :func:`vf_to_zpk` converts the
+result back to rad/s.  The model is
+
+    H(s) = sum_i r_i / (s - p_i) + d + s·e
+
+with real coefficients: complex poles come in exact conjugate pairs, each
+pair carried by two real unknowns.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import linalg
+
+from benchfit.errors import FitError
+
+#: |d~| below this (relative) means the relaxed solve degenerated; re-solve with it fixed.
+_RELAX_TOL = 1e-8
+#: A pole with |Im| below this fraction of |p| is treated as real.
+_REAL_TOL = 1e-9
+
+
+@dataclass(frozen=True)
+class VFResult:
+    """Pole/residue model in scaled frequency (see module docstring).
+
+    Attributes
+    ----------
+    poles, residues
+        Complex, full conjugate sets (scaled units).
+    d, e
+        Direct and proportional terms (real; ``e`` in scaled units).
+    iterations
+        Pole-relocation iterations done.
+    converged
+        True when the poles stopped moving before the iteration cap.
+    flipped
+        Number of unstable poles mirrored into the left half-plane during the
+        last relocation (a hint the plant may really be unstable).
+    """
+
+    poles: np.ndarray
+    residues: np.ndarray
+    d: float
+    e: float
+    iterations: int
+    converged: bool
+    flipped: int
+
+    def at(self, s: np.ndarray) -> np.ndarray:
+        """Evaluate at scaled complex frequency ``s``."""
+        s = np.asarray(s, dtype=complex)
+        h = (self.residues[None, :] / (s[:, None] - self.poles[None, :])).sum(axis=1)
+        return h + self.d + s * self.e
+
+
+def _split(poles: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Real poles and the upper members of complex pairs."""
+    poles = np.asarray(poles, dtype=complex)
+    isreal = np.abs(poles.imag) <= _REAL_TOL * np.maximum(np.abs(poles), 1e-300)
+    return poles[isreal].real.astype(complex), poles[~isreal & (poles.imag > 0)]
+
+
+def _arrange(poles: np.ndarray) -> np.ndarray:
+    """Canonical order: real poles, then each upper pair member followed by its conjugate."""
+    re, cx = _split(poles)
+    re = np.sort(re.real).astype(complex)
+    cx = cx[np.argsort(np.abs(cx))]
+    out = list(re)
+    for p in cx:
+        out += [p, np.conj(p)]
+    return np.asarray(out, dtype=complex)
+
+
+def _basis(s: np.ndarray, poles: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Real-coefficient partial-fraction basis Φ (n_s × N complex) and a kind vector.
+
+    ``kind`` is 0 for a real pole, 1 for the first and 2 for the second
+    column of a complex pair (1/(s-a)+1/(s-a*) and j/(s-a)-j/(s-a*)).
+    """
+    n = poles.shape[0]
+    inv = 1.0 / (s[:, None] - poles[None, :])
+    phi = np.empty_like(inv)
+    kind = np.zeros(n, dtype=int)
+    i = 0
+    while i < n:
+        if poles[i].imag == 0.0:
+            phi[:, i] = inv[:, i]
+            i += 1
+        else:
+            phi[:, i] = inv[:, i] + inv[:, i + 1]
+            phi[:, i + 1] = 1j * inv[:, i] - 1j * inv[:, i + 1]
+            kind[i], kind[i + 1] = 1, 2
+            i += 2
+    return phi, kind
+
+
+def _coeffs_to_residues(c: np.ndarray, kind: np.ndarray) -> np.ndarray:
+    r = c.astype(complex)
+    for i in np.flatnonzero(kind == 1):
+        r[i] = c[i] + 1j * c[i + 1]
+        r[i + 1] = c[i] - 1j * c[i + 1]
+    return r
+
+
+def _realify(rows: np.ndarray) -> np.ndarray:
+    return np.vstack([rows.real, rows.imag])
+
+
+def _colscale(a: np.ndarray) -> np.ndarray:
+    n = np.linalg.norm(a, axis=0)
+    n[n == 0] = 1.0
+    return 1.0 / n
+
+
+def _relocate(s, h, w, poles, direct, proportional):
+    """One relaxed pole-relocation step; returns (new poles, flipped count)."""
+    phi, kind = _basis(s, poles)
+    n_s, n = phi.shape
+    n_num = n + int(direct) + int(proportional)
+    ncol = n_num + n + 1
+    # Real system [num | den], complex rows stacked as (real; imag), built in place.
+    a = np.empty((2 * n_s, ncol))
+    wphi = w[:, None] * phi
+    a[:n_s, :n], a[n_s:, :n] = wphi.real, wphi.imag
+    j = n
+    if direct:
+        a[:n_s, j], a[n_s:, j] = w, 0.0
+        j += 1
+    if proportional:
+        a[:n_s, j], a[n_s:, j] = (w * s).real, (w * s).imag
+        j += 1
+    wh = w * h
+    den = -wh[:, None] * phi
+    a[:n_s, j: j + n], a[n_s:, j: j + n] = den.real, den.imag
+    a[:n_s, -1], a[n_s:, -1] = -wh.real, -wh.imag
+    scale_cols = _colscale(a)
+    a *= scale_cols
+    # Relaxation row: Re sum_k sigma(s_k) = n_s, scaled like the data rows.
+    scale = np.linalg.norm(wh) / n_s
+    relax = np.empty(n + 1)
+    relax[:n] = phi.real.sum(axis=0)
+    relax[n] = n_s
+    relax *= scale * scale_cols[n_num:]
+    # Fast VF: QR of [num | den]; only the R22 block (sigma unknowns) matters
+    # because the right-hand side of these rows is zero.
+    r = np.linalg.qr(a, mode="r")
+    lhs = np.vstack([r[n_num: n_num + n + 1, n_num:], relax[None, :]])
+    rhs = np.zeros(lhs.shape[0])
+    rhs[-1] = n_s * scale
+    x = linalg.lstsq(lhs, rhs, check_finite=False)[0]
+    x = x * scale_cols[n_num:]
+    c_sig, d_sig = x[:n], x[n]
+    if abs(d_sig) < _RELAX_TOL or not np.isfinite(d_sig):
+        # Degenerate relaxed solution (Gustavsen 2006, sec. III): fix d~ and re-solve.
+        d_fix = _RELAX_TOL if not (d_sig < 0) else -_RELAX_TOL
+        b2 = -a[:, -1] * (d_fix / scale_cols[-1])
+        y = linalg.lstsq(a[:, :-1], b2, check_finite=False)[0]
+        c_sig = y[n_num:] * scale_cols[n_num:-1]
+        d_sig = d_fix
+    # Zeros of sigma: eig(A - b c~ / d~) in real state-space form.
+    am = np.zeros((n, n))
+    bm = np.zeros(n)
+    i = 0
+    while i < n:
+        p = poles[i]
+        if kind[i] == 0:
+            am[i, i] = p.real
+            bm[i] = 1.0
+            i += 1
+        else:
+            am[i, i], am[i, i + 1] = p.real, p.imag
+            am[i + 1, i], am[i + 1, i + 1] = -p.imag, p.real
+            bm[i] = 2.0
+            i += 2
+    new = linalg.eigvals(am - np.outer(bm, c_sig) / d_sig, check_finite=False)
+    flipped = int(np.sum(new.real > 0))
+    new = np.where(new.real > 0, -np.conj(new), new)
+    # A pole exactly on the axis would make the basis singular on a measured point.
+    tiny = 1e-12 * max(np.max(np.abs(new)), 1e-300)
+    new = np.where(np.abs(new.real) < tiny, new - tiny, new)
+    return _arrange(new), flipped
+
+
+def fit_residues(s, h, w, poles, direct=True, proportional=False):
+    """Weighted least-squares residues, d and e for fixed poles.
+
+    Returns
+    -------
+    residues, d, e
+    """
+    phi, kind = _basis(s, poles)
+    cols = [phi]
+    if direct:
+        cols.append(np.ones((s.shape[0], 1), dtype=complex))
+    if proportional:
+        cols.append(s[:, None])
+    m = np.hstack(cols)
+    a = _realify(w[:, None] * m)
+    b = np.concatenate([(w * h).real, (w * h).imag])
+    sc = _colscale(a)
+    x = linalg.lstsq(a * sc, b, check_finite=False, lapack_driver="gelsy")[0] * sc
+    n = poles.shape[0]
+    res = _coeffs_to_residues(x[:n], kind)
+    d = float(x[n]) if direct else 0.0
+    e = float(x[n + int(direct)]) if proportional else 0.0
+    return res, d, e
+
+
+def initial_poles(n: int, w_min: float, w_max: float, *, damping: float = 0.01) -> np.ndarray:
+    """``n`` starting poles spread log-uniformly over [w_min, w_max] (scaled units).
+
+    Lightly damped complex pairs (Gustavsen & Semlyen 1999, sec. 4: imaginary
+    part 100× the real part), plus one real pole when ``n`` is odd.
+    """
+    if n <= 0:
+        return np.zeros(0, dtype=complex)
+    n_pairs = n // 2
+    out = []
+    if n % 2:
+        out.append(-np.sqrt(w_min * w_max) + 0j)
+    if n_pairs:
+        beta = np.geomspace(w_min, w_max, n_pairs) if n_pairs > 1 else np.array([np.sqrt(w_min * w_max)])
+        for b in beta:
+            out += [complex(-damping * b, b), complex(-damping * b, -b)]
+    return _arrange(np.asarray(out))
+
+
+def _pole_change(old: np.ndarray, new: np.ndarray) -> float:
+    if old.shape != new.shape:
+        return np.inf
+    ro, co = _split(old)
+    rn, cn = _split(new)
+    if ro.shape != rn.shape:
+        return np.inf
+    a = np.concatenate([np.sort(ro.real), co[np.argsort(np.abs(co))].real,
+                        co[np.argsort(np.abs(co))].imag])
+    b = np.concatenate([np.sort(rn.real), cn[np.argsort(np.abs(cn))].real,
+                        cn[np.argsort(np.abs(cn))].imag])
+    mag = np.concatenate([np.abs(np.sort(ro.real)), np.abs(co[np.argsort(np.abs(co))]),
+                          np.abs(co[np.argsort(np.abs(co))])])
+    return float(np.max(np.abs(a - b) / np.maximum(mag, 1e-300))) if a.size else 0.0
+
+
+def vector_fit(
+    s: np.ndarray,
+    h: np.ndarray,
+    weight: np.ndarray,
+    poles: np.ndarray,
+    *,
+    direct: bool = True,
+    proportional: bool = False,
+    max_iter: int = 30,
+    tol: float = 1e-9,
+) -> VFResult:
+    """Fit ``h`` at scaled frequencies ``s`` with poles started at ``poles``.
+
+    Parameters
+    ----------
+    s
+        Scaled complex frequencies (``1j·omega/omega_scale``).
+    h
+        Complex response.
+    weight
+        Real positive weight per point (multiplies the complex error).
+    poles
+        Starting poles (scaled), conjugate pairs complete.
+    direct, proportional
+        Include the constant term d and the term s·e.
+    max_iter
+        Iteration cap for pole relocation.
+    tol
+        Convergence: largest relative pole move below ``tol``.
+
+    Returns
+    -------
+    VFResult
+    """
+    s = np.asarray(s, dtype=complex)
+    h = np.asarray(h, dtype=complex)
+    w = np.asarray(weight, dtype=float)
+    poles = _arrange(np.asarray(poles, dtype=complex))
+    n_unknown = 2 * poles.shape[0] + 1 + int(direct) + int(proportional)
+    if 2 * s.shape[0] < n_unknown:
+        raise FitError(
+            f"order {poles.shape[0]} needs at least {(n_unknown + 1) // 2} points; "
+            f"the band holds {s.shape[0]}"
+        )
+    converged = False
+    flipped = 0
+    it = 0
+    for it in range(1, max_iter + 1):
+        new, flipped = _relocate(s, h, w, poles, direct, proportional)
+        change = _pole_change(poles, new)
+        poles = new
+        if change < tol:
+            converged = True
+            break
+    res, d, e = fit_residues(s, h, w, poles, direct, proportional)
+    return VFResult(poles=poles, residues=res, d=d, e=e, iterations=it,
+                    converged=converged, flipped=flipped)
+
+
+def vf_to_zpk(vf: VFResult, scale: float) -> tuple[np.ndarray, np.ndarray, float]:
+    """Zeros, poles and gain (scipy zpk, s in rad/s) of a scaled VF model.
+
+    Zeros are the finite generalized eigenvalues of the system pencil
+    ``[[A, B], [C, D]] - s·[[E, 0], [0, 0]]`` (a descriptor realisation that
+    also covers the ``s·e`` term), which avoids forming polynomials.
+    """
+    p = vf.poles
+    n = p.shape[0]
+    # Real state-space form of the pole/residue model.
+    a = np.zeros((n, n))
+    b = np.zeros(n)
+    c = np.zeros(n)
+    i = 0
+    while i < n:
+        if p[i].imag == 0.0:
+            a[i, i], b[i], c[i] = p[i].real, 1.0, vf.residues[i].real
+            i += 1
+        else:
+            a[i, i], a[i, i + 1] = p[i].real, p[i].imag
+            a[i + 1, i], a[i + 1, i + 1] = -p[i].imag, p[i].real
+            b[i] = 2.0
+            c[i], c[i + 1] = vf.residues[i].real, vf.residues[i].imag
+            i += 2
+    m = n + (2 if vf.e else 0)
+    big_a = np.zeros((m + 1, m + 1))
+    big_e = np.zeros((m + 1, m + 1))
+    big_a[:n, :n] = a
+    big_e[:n, :n] = np.eye(n)
+    big_a[:n, m] = b
+    big_a[m, :n] = c
+    big_a[m, m] = vf.d
+    if vf.e:
+        # y gets e·u': states x1 = u', x2 = u with E = [[0,1],[0,0]], A = I.
+        big_a[n, n] = big_a[n + 1, n + 1] = 1.0
+        big_e[n, n + 1] = 1.0
+        big_a[n + 1, m] = -1.0
+        big_a[m, n] = vf.e
+    with np.errstate(all="ignore"):
+        lam = linalg.eigvals(big_a, big_e, check_finite=False)
+    ref = max(float(np.max(np.abs(p))) if n else 1.0, 1.0)
+    zeros = lam[np.isfinite(lam) & (np.abs(lam) < 1e12 * ref)]
+    zeros = _arrange_zeros(zeros)
+    # Gain from the value at the middle of the band (|s| = 1 in scaled units).
+    s0 = 1j
+    h0 = vf.at(np.array([s0]))[0]
+    ratio = np.prod(s0 - p) / np.prod(s0 - zeros) if zeros.size or n else 1.0
+    k_scaled = float(np.real(h0 * ratio))
+    poles_rad = p * scale
+    zeros_rad = zeros * scale
+    k = k_scaled * scale ** (n - zeros.shape[0])
+    return zeros_rad, poles_rad, k
+
+
+def _arrange_zeros(z: np.ndarray) -> np.ndarray:
+    """Zeros with exact conjugate pairs (numerical noise removed)."""
+    z = np.asarray(z, dtype=complex)
+    tol = 1e-7 * np.maximum(np.abs(z), 1e-300)
+    isreal = np.abs(z.imag) <= tol
+    re = z[isreal].real
+    up = z[~isreal & (z.imag > 0)]
+    out = list(np.sort(re).astype(complex))
+    for q in up[np.argsort(np.abs(up))]:
+        out += [q, np.conj(q)]
+    return np.asarray(out, dtype=complex)

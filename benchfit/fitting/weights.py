@@ -1,0 +1,150 @@
+"""Per-point uncertainty of a measured response, and the weights the fit uses.
+
+The fit works on the complex log of the response: ``ln|H|`` (nepers) and the
+phase (rad).  Each point gets a standard deviation for both, from (first
+match wins):
+
+* the file's ``stddev`` column (σ of the complex response; a circular complex
+  error spreads σ/√2 into each of the two log components),
+* its ``coherence`` column (relative σ ∝ √((1−γ²)/γ²), Bendat & Piersol,
+  *Random Data*, the standard FRF-estimate error), scaled by the scatter,
+* its ``weight`` column (σ ∝ 1/weight), scaled by the scatter,
+* otherwise the point-to-point scatter of the data itself.
+
+The scatter is the robust spread of second differences (for white noise,
+var(x[k−1] − 2x[k] + x[k+1]) = 6σ²), taken in a running window so a noise
+floor that rises where the response is small is followed.  All of it is
+relative: multiplying the data by a constant changes no weight.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import ndimage
+
+from benchfit.errors import FitError
+
+#: Smallest relative σ allowed (numerical precision of measured data, ~1e-9 dB).
+SIGMA_MIN = 1e-10
+#: A notch deeper than this fraction of the running median magnitude gets no extra weight.
+NOTCH_FLOOR = 0.1
+_MAD = 1.4826
+
+
+@dataclass(frozen=True)
+class PointSigma:
+    """Per-point σ of ln|H| (nepers) and phase (rad), and where it came from."""
+
+    mag: np.ndarray
+    phase: np.ndarray
+    source: str
+
+    @property
+    def floor_db(self) -> float:
+        """rms σ of the magnitude in dB (the noise floor the residual is compared to)."""
+        return float(20.0 / np.log(10.0) * np.sqrt(np.mean(self.mag ** 2)))
+
+    @property
+    def floor_deg(self) -> float:
+        """rms σ of the phase in degrees."""
+        return float(np.degrees(np.sqrt(np.mean(self.phase ** 2))))
+
+
+def _window(n: int) -> int:
+    w = max(21, n // 10)
+    w = min(w, n)
+    return w if w % 2 else max(w - 1, 1)
+
+
+def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
+    """Running robust σ of a real sequence from its second differences.
+
+    Parameters
+    ----------
+    x
+        The sequence (ln|H| or unwrapped phase).
+    rel
+        Optional known relative σ shape; the scatter then fixes only its scale.
+    """
+    n = x.shape[0]
+    if n < 3:
+        return np.full(n, SIGMA_MIN)
+    d2 = np.abs(x[:-2] - 2.0 * x[1:-1] + x[2:]) / np.sqrt(6.0)
+    if rel is not None:
+        r = rel[1:-1]
+        scale = _MAD * np.median(d2 / r)
+        return np.maximum(scale * rel, SIGMA_MIN)
+    d2 = np.concatenate([d2[:1], d2, d2[-1:]])
+    local = _MAD * ndimage.median_filter(d2, size=_window(n), mode="nearest")
+    glob = _MAD * np.median(d2)
+    # A local estimate far below the global one is curvature luck, not a quieter meter.
+    return np.maximum(np.maximum(local, 0.3 * glob), SIGMA_MIN)
+
+
+def point_sigma(h: np.ndarray, stddev=None, coherence=None, weight=None) -> PointSigma:
+    """σ of ln|H| and of phase per point (see module docstring).
+
+    Raises
+    ------
+    FitError
+        When the given stddev/coherence/weight column has no usable value.
+    """
+    h = np.asarray(h, dtype=complex)
+    mag = np.abs(h)
+    if np.any(mag == 0):
+        raise FitError("the response is exactly zero at some points; the log fit needs |H| > 0 "
+                       "(restrict --band or remove those points)")
+    lnm = np.log(mag)
+    ph = np.unwrap(np.angle(h))
+    if stddev is not None:
+        sd = np.asarray(stddev, dtype=float)
+        ok = np.isfinite(sd) & (sd > 0)
+        if not np.any(ok):
+            raise FitError("the stddev column holds no finite positive value")
+        sd = np.where(ok, sd, np.max(sd[ok]) * 1e3)
+        rel = np.maximum(sd / (np.sqrt(2.0) * mag), SIGMA_MIN)
+        return PointSigma(rel, rel.copy(), "stddev")
+    if coherence is not None:
+        g = np.asarray(coherence, dtype=float)
+        ok = np.isfinite(g) & (g > 0)
+        if not np.any(ok):
+            raise FitError("the coherence column holds no finite positive value")
+        g = np.clip(np.where(ok, g, 1e-6), 1e-6, 1.0 - 1e-9)
+        shape = np.sqrt((1.0 - g) / g)
+        return PointSigma(scatter_sigma(lnm, shape), scatter_sigma(ph, shape), "coherence")
+    if weight is not None:
+        wt = np.asarray(weight, dtype=float)
+        ok = np.isfinite(wt) & (wt > 0)
+        if not np.any(ok):
+            raise FitError("the weight column holds no finite positive value")
+        shape = 1.0 / np.where(ok, wt, np.min(wt[ok]) * 1e-3)
+        return PointSigma(scatter_sigma(lnm, shape), scatter_sigma(ph, shape), "weight")
+    return PointSigma(scatter_sigma(lnm), scatter_sigma(ph), "scatter")
+
+
+def vf_weight(h: np.ndarray, sigma: PointSigma, weighting: str = "relative",
+              stddev=None) -> np.ndarray:
+    """Weight of each point's complex error in vector fitting.
+
+    ``relative``: 1 / (|H|·σ_rel), with |H| floored at :data:`NOTCH_FLOOR` of
+    its running median so notches and the noise floor cannot dominate.
+    ``absolute``: 1 / stddev when given, else 1 (plain complex error).
+    The result is normalised to a maximum of 1.
+    """
+    mag = np.abs(np.asarray(h, dtype=complex))
+    if weighting == "absolute":
+        w = 1.0 / np.asarray(stddev, dtype=float) if stddev is not None else np.ones_like(mag)
+        w = np.where(np.isfinite(w) & (w > 0), w, 0.0)
+    else:
+        n = mag.shape[0]
+        lm = np.log(mag)
+        run = np.exp(ndimage.median_filter(lm, size=min(n, max(5, n // 50) | 1), mode="nearest"))
+        floored = np.maximum(mag, NOTCH_FLOOR * run)
+        rel = np.sqrt(0.5 * (sigma.mag ** 2 + sigma.phase ** 2))
+        w = 1.0 / (floored * rel)
+    top = np.max(w)
+    if not np.isfinite(top) or top <= 0:
+        raise FitError("no point has a usable weight")
+    return w / top
