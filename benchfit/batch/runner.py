@@ -12,7 +12,7 @@ import glob
 import os
 import sys
 import time
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field
 from itertools import islice
@@ -265,7 +265,8 @@ def _prepare(rows_csv: Path, cols: list[str], resume: bool) -> set[str]:
 
 def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathLike, *,
             workers: int | None = None, dask: Any = None, resume: bool = False,
-            progress: TextIO | None = sys.stderr) -> LotRun:
+            progress: TextIO | None = sys.stderr,
+            on_row: Callable[[dict[str, Any]], None] | None = None) -> LotRun:
     """Run every file of a lot and write the result table.
 
     Parameters
@@ -289,6 +290,8 @@ def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathL
         is an error, so a finished lot is never overwritten by accident.
     progress
         Stream for the progress line (None for silence).
+    on_row
+        Called with each row once it is written (a notebook's live view, a benchmark's probe).
 
     Returns
     -------
@@ -314,6 +317,8 @@ def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathL
         append_lines_durable(rows_csv, [format_row(row, cols)])
         counts[row["status"]] = counts.get(row["status"], 0) + 1
         bar.update(row["status"])
+        if on_row is not None:
+            on_row(row)
     bar.close()
     seconds = time.perf_counter() - t0
     if Path(output).suffix.lower() == ".parquet":

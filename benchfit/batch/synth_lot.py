@@ -26,7 +26,7 @@ from benchfit.fitting.model import PlantModel
 from benchfit.provenance import Provenance
 
 #: Nominal parts and the unit-to-unit spread (1 sigma, as a fraction) of each.
-NOMINAL = {"vin_v": 12.0, "vramp_v": 1.0, "l_h": 4.7e-6, "c_f": 100e-6, "esr_ohm": 0.010,
+NOMINAL = {"vin_v": 12.0, "vramp_v": 1.0, "l_h": 4.7e-6, "c_f": 100e-6, "esr_ohm": 0.020,
            "dcr_ohm": 0.015, "load_ohm": 1.0, "fsw_hz": 500e3}
 SPREAD = {"vin_v": 0.0, "vramp_v": 0.03, "l_h": 0.07, "c_f": 0.08, "esr_ohm": 0.15,
           "dcr_ohm": 0.10, "load_ohm": 0.05, "fsw_hz": 0.0}
@@ -85,7 +85,7 @@ def unit_parts(seed: int, index: int) -> dict[str, float]:
 
 
 def unit_sweep(seed: int, index: int, *, quantity: str = "plant", points: int = 401,
-               f_min_hz: float = 100.0, f_max_hz: float = 200e3,
+               f_min_hz: float = 100.0, f_max_hz: float = 300e3,
                noise: float = 0.004) -> FrequencyResponse:
     """One unit's measured sweep.
 

@@ -39,7 +39,7 @@ BASE_COLUMNS: tuple[tuple[str, type], ...] = (
     ("delay_margin_s", float),
     ("modulus_margin", float),
     ("modulus_freq_hz", float),
-    ("crossings", int),           # number of gain and phase crossings found
+    ("gain_crossings", int),      # times |T| crosses 1 (more than one: conditionally stable)
     ("closed_loop_stable", bool),
     ("fit_order", int),
     ("fit_delay_s", float),

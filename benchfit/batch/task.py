@@ -23,8 +23,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 from benchfit.batch.limits import Limits, judge
 from benchfit.batch.table import PARAM_PREFIX
 from benchfit.errors import BenchfitError, InputError
@@ -180,7 +178,7 @@ def _margin_cells(m) -> dict[str, Any]:
         "delay_margin_s": num(m.delay_margin_s),
         "modulus_margin": num(m.modulus_margin),
         "modulus_freq_hz": num(getattr(m, "modulus_freq_hz", None)),
-        "crossings": len(m.crossings or ()),
+        "gain_crossings": sum(1 for c in (m.crossings or ()) if c.get("kind") == "gain"),
         "closed_loop_stable": None if m.closed_loop_stable is None else bool(m.closed_loop_stable),
     }
 
@@ -209,14 +207,16 @@ def _fit_cells(fr, param_names: tuple[str, ...]) -> dict[str, Any]:
     return cells
 
 
-def _fit(resp, s: TaskSettings):
+def _fit(resp, s: TaskSettings, *, loop: bool = False):
     from benchfit.fitting import fit
 
-    return fit(resp, order=s.order, delay=s.delay, band=s.band, weighting=s.weighting)
+    # A loop gain usually holds the compensator's integrator: let the fit find it.
+    extra = {"integrators": "auto"} if loop else {}
+    return fit(resp, order=s.order, delay=s.delay, band=s.band, weighting=s.weighting, **extra)
 
 
 def _measure(path: str, s: TaskSettings, row: dict[str, Any], warnings: list[str]) -> None:
-    from benchfit.loop.margins import margins_from_data, margins_from_model
+    from benchfit.loop.margins import margins_from_data, margins_of_model
 
     resp = _read(path)
     quantity = s.quantity or resp.quantity
@@ -227,7 +227,7 @@ def _measure(path: str, s: TaskSettings, row: dict[str, Any], warnings: list[str
         row.update(_margin_cells(m), margins_from="data")
         warnings.extend(m.warnings)
         if s.param_names:
-            fr = _fit(resp, s)
+            fr = _fit(resp, s, loop=True)
             row.update(_fit_cells(fr, s.param_names))
             warnings.extend(fr.warnings)
         return
@@ -240,12 +240,15 @@ def _measure(path: str, s: TaskSettings, row: dict[str, Any], warnings: list[str
         warnings.append(f"a {quantity} sweep is not a plant; no loop formed with the design")
         return
     t = s.design.loop(fr.model)
-    unstable = int(np.count_nonzero(t.poles.real > 0))
-    # The fitted model is trusted over the measured band only, so margins are sought there.
-    m = margins_from_model(t.response, resp.f_min_hz, resp.f_max_hz,
-                           unstable_open_loop_poles=unstable)
+    # The band, integrators, right-half-plane poles and fine-sampling hints all come
+    # from the loop model's own poles and zeros (the margins module's rules).
+    m = margins_of_model(t)
     row.update(_margin_cells(m), margins_from="model")
     warnings.extend(m.warnings)
+    xo = m.crossover_hz
+    if xo is not None and math.isfinite(xo) and not resp.f_min_hz <= xo <= resp.f_max_hz:
+        warnings.append(f"crossover {xo:.4g} Hz lies outside the measured band "
+                        f"{resp.f_min_hz:.4g}..{resp.f_max_hz:.4g} Hz: the fit is extrapolated there")
 
 
 def run_task(path: str | os.PathLike, settings: TaskSettings) -> dict[str, Any]:
