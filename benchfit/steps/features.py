@@ -93,15 +93,17 @@ class Smoother:
         return signal.savgol_filter(y, self.width, self.order, mode="interp")
 
 
-def make_smoother(relative_noise: float, n: int, target: float = 2e-3) -> Smoother:
+def make_smoother(relative_noise: float, n: int, target: float = 2e-3,
+                  max_width: int | None = None) -> Smoother:
     """Smallest odd Savitzky-Golay window bringing ``relative_noise`` down to ``target``.
 
-    The window never exceeds 1 % of the record (so it cannot wash out the edge
-    it is meant to locate); cubic polynomials keep the bias on curved parts small.
+    The window never exceeds 1 % of the record nor ``max_width`` (half the edge
+    it is meant to locate: a wider window rings on a sharp edge and invents
+    overshoot); cubic polynomials keep the bias on curved parts small.
     """
     if not np.isfinite(relative_noise) or relative_noise <= target:
         return Smoother(1, 0, 1.0)
-    cap = max(1, n // 100)
+    cap = max(1, n // 100 if max_width is None else min(n // 100, max_width))
     want = int(math.ceil(2.25 * (relative_noise / target) ** 2))  # cubic SG: var gain ≈ 2.25/w
     w = min(want, cap)
     w = w if w % 2 else w - 1

@@ -21,6 +21,7 @@ the smoothed noise is 0.2 % of the step; the width used is reported.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -161,6 +162,25 @@ def _levels(y, i_step, guard):
     return float(np.median(head)), float("nan"), "", pre.size
 
 
+def _locate(t, y, ys, y0, y1, sig_d, smoother, step_time_s, k_tail, name, source):
+    """Step index, levels and noise: rough levels -> step instant -> flat-part levels, twice."""
+    guard = smoother.width // 2 + 1
+    noise = sig_d
+    noise_source = "sample-to-sample differences (no flat part before the step)"
+    pre_n = 0
+    i_s = int(np.searchsorted(t, step_time_s)) if step_time_s is not None else 0
+    for _ in range(2):
+        u = (ys - y0) / (y1 - y0)
+        if step_time_s is None:
+            i_s = _step_index(u, noise * smoother.gain / abs(y1 - y0))
+        y0, pre_sigma, src, pre_n = _levels(y, i_s, guard)
+        if src:
+            noise, noise_source = pre_sigma, src
+        y1 = float(np.median(y[-k_tail:]))
+        _check_step(y0, y1, noise if noise > 0 else sig_d, y, name, source)
+    return i_s, y0, y1, noise, noise_source, pre_n
+
+
 def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
                  band_v: float | None = None, step_time_s: float | None = None) -> StepMeasurement:
     """Measure a step response (reference step or any step-like transition).
@@ -195,38 +215,30 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
     y1 = float(np.median(y[-k_tail:]))
     _check_step(y0, y1, sig_d, y, name, source)
 
-    smoother = make_smoother(sig_d / abs(y1 - y0), n)
-    ys = smoother(y)
-    guard = smoother.width // 2 + 1
     given = step_time_s is not None
-    if given:
-        if not t[0] <= step_time_s < t[-1]:
-            raise InputError(f"step time {step_time_s:g} s lies outside the record "
-                             f"({t[0]:g}..{t[-1]:g} s)", source="--step-time")
-        i_s = int(np.searchsorted(t, step_time_s))
-    noise = sig_d
-    noise_source = "sample-to-sample differences (no flat part before the step)"
-    pre_n = 0
-    for _ in range(2):  # rough levels -> step instant -> levels from the flat parts -> again
+    if given and not t[0] <= step_time_s < t[-1]:
+        raise InputError(f"step time {step_time_s:g} s lies outside the record "
+                         f"({t[0]:g}..{t[-1]:g} s)", source="--step-time")
+    dt = float(np.median(np.diff(t)))
+    max_width = None
+    for _ in range(2):  # a second pass when the smoothing window is as wide as the edge itself
+        smoother = make_smoother(sig_d / abs(y1 - y0), n, max_width=max_width)
+        ys = smoother(y)
+        i_s, y0, y1, noise, noise_source, pre_n = _locate(t, y, ys, y0, y1, sig_d, smoother,
+                                                         step_time_s, k_tail, name, source)
         step = y1 - y0
         u = (ys - y0) / step
-        if not given:
-            i_s = _step_index(u, noise * smoother.gain / abs(step))
-        y0, pre_sigma, src, pre_n = _levels(y, i_s, guard)
-        if src:
-            noise, noise_source = pre_sigma, src
-        y1 = float(np.median(y[-k_tail:]))
-        _check_step(y0, y1, noise if noise > 0 else sig_d, y, name, source)
-    step = y1 - y0
-    u = (ys - y0) / step
+        t10 = first_crossing(t, u, 0.1, i_s)
+        t90 = first_crossing(t, u, 0.9, i_s)
+        edge = max(int((t90 - t10) / dt) // 2, 1) if np.isfinite(t90 - t10) else 1
+        if smoother.width <= edge:
+            break
+        max_width = edge
     t_s = float(step_time_s) if given else float(t[i_s])
     if pre_n < MIN_PRE_SAMPLES:
         warnings.append(f"only {pre_n} samples before the step: initial level from the first samples, "
                         "noise from sample-to-sample differences")
     rel_noise = noise * smoother.gain / abs(step)  # smoothed noise, fraction of the step
-
-    t10 = first_crossing(t, u, 0.1, i_s)
-    t90 = first_crossing(t, u, 0.9, i_s)
     i90 = int(np.searchsorted(t, t90)) if np.isfinite(t90) else n
     if not np.isfinite(t90) or i90 >= n - k_tail or (t[-1] - t_s) < 3.0 * (t90 - t_s):
         raise InputError(
@@ -240,7 +252,8 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
 
     post = u[i_s:]
     j_pk = int(np.argmax(post))
-    floor = 3.0 * rel_noise
+    # The largest of N noise samples is about σ·√(2 ln N): anything below that is noise.
+    floor = rel_noise * (1.0 + math.sqrt(2.0 * math.log(max(post.size, 2))))
     over = post[j_pk] - 1.0
     overshoot = 100.0 * over if over > floor else 0.0
     dip = -float(np.min(u[i_s:i90 + 1]))
@@ -254,7 +267,7 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
     t_set, settled = last_exit(t, u - 1.0, band_frac, i_s)
     if not settled:
         warnings.append(f"the output does not stay within ±{100 * band_frac:.3g} % before the record ends")
-    ring = ringing(t[i_s:], post - 1.0, max(4.0 * rel_noise, 1e-4))
+    ring = ringing(t[i_s:], post - 1.0, max(floor, 1e-4))
     zeta_dec = zeta_from_log_decrement(ring.log_decrement) if ring.log_decrement > 0 else float("nan")
 
     mask, levels = clipped_runs(y, ignore_levels=(y0, y1) if noise == 0 else ())
@@ -271,7 +284,7 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
         settling_time_s=float(t_set - t_s) if settled else float("nan"), band=float(band_frac),
         ringing_freq_hz=ring.freq_hz, log_decrement=ring.log_decrement, zeta_from_decrement=zeta_dec,
         lobes=len(ring.lobe_peaks), noise_v=float(noise), noise_source=noise_source,
-        pre_step_samples=int(pre_n), samples=int(n), sample_interval_s=float(np.median(np.diff(t))),
+        pre_step_samples=int(pre_n), samples=int(n), sample_interval_s=dt,
         smoothing_samples=smoother.width, clipped_samples=int(mask.sum()),
         clipped_levels_v=tuple(levels), channel=name, warnings=tuple(warnings),
         provenance=Provenance(step="measure_step", sources=(source,) if source else (),

@@ -1,0 +1,116 @@
+"""``benchfit step TRACE``: measure and fit a scope step (or load step), estimate the margin."""
+
+from __future__ import annotations
+
+import argparse
+
+from benchfit.cli.common import add_json_flag, emit, parse_si
+from benchfit.errors import InputError
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "step", help="measure and fit a step or load-step trace; phase margin from the ringing",
+        description="Measure a scope step (levels, overshoot, rise, settling, ringing), fit a step model "
+                    "with standard errors, estimate the phase margin from the damping, and compare with "
+                    "a loop prediction. With --load-step, measure deviation and recovery instead.")
+    p.add_argument("trace", help="scope export (CSV/TSV, any dialect) or canonical trace CSV")
+    p.add_argument("--channel", help="channel name or 0-based index (default: the first)")
+    p.add_argument("--model", default="second-order", metavar="MODEL",
+                   help="second-order (default), third-order, or loop:DESIGN.json (fit the loop's gain "
+                        "and dominant pole pair to the trace)")
+    p.add_argument("--band", default="2%", help="settling / recovery band: a percentage of the step "
+                                                "(2%%) or volts (5mV); default 2%%")
+    p.add_argument("--step-time", help="step instant in s when known (default: found from the trace)")
+    p.add_argument("--loop", metavar="JSON", help="design or loop-gain JSON to compare the step with "
+                                                  "(implied by --model loop:...)")
+    p.add_argument("--no-fit", action="store_true", help="measurements only")
+    g = p.add_argument_group("load step")
+    g.add_argument("--load-step", action="store_true", help="the trace is the output after a load step")
+    g.add_argument("--current-step", metavar="AMPS", help="load current step, e.g. 2 or 500m (A)")
+    g.add_argument("--zout", metavar="FILE", help="closed-loop output impedance to compare with: a sweep "
+                                                  "file or JSON (frequency response or model)")
+    p.add_argument("-o", "--output", metavar="JSON", help="write the full result (with curves) here")
+    add_json_flag(p)
+    p.set_defaults(func=run)
+
+
+def parse_band(text: str) -> tuple[float, float | None]:
+    """'2%' -> (0.02, None); '5mV' / '0.005' V -> (0.02, 0.005)."""
+    t = text.strip()
+    if t.endswith("%"):
+        try:
+            frac = float(t[:-1]) / 100.0
+        except ValueError:
+            raise InputError(f"{text!r}: expected a percentage like 2% or a voltage like 5mV",
+                             source="--band") from None
+        if not 0 < frac < 1:
+            raise InputError(f"{text!r}: expected a percentage between 0 and 100", source="--band")
+        return frac, None
+    volts = parse_si(t, "--band")
+    if volts <= 0:
+        raise InputError(f"{text!r}: expected a positive voltage", source="--band")
+    return 0.02, volts
+
+
+def _read_zout(path: str):
+    from benchfit.data import FrequencyResponse, read_sweep
+    from benchfit.fileio import read_json
+    from benchfit.fitting.model import PlantModel
+
+    if path.lower().endswith(".json"):
+        d = read_json(path)
+        try:
+            if "freq_hz" in d:
+                return FrequencyResponse.from_dict(d)
+            return PlantModel.from_dict(d)
+        except InputError as e:
+            raise InputError(e.message, source=path) from None
+    return read_sweep(path)
+
+
+def run(args: argparse.Namespace) -> int:
+    from benchfit.data import read_trace
+    from benchfit.steps.analyse import analyse_load_step, analyse_step
+    from benchfit.steps.compare import read_loop_gain
+
+    band, band_v = parse_band(args.band)
+    step_time = parse_si(args.step_time, "--step-time") if args.step_time else None
+    model = args.model
+    loop_path = args.loop
+    if model.startswith("loop:"):
+        loop_path = model[5:]
+        model = "loop"
+        if not loop_path:
+            raise InputError("expected loop:DESIGN.json", source="--model")
+    elif model not in ("second-order", "third-order"):
+        raise InputError(f"{model!r} unknown; expected second-order, third-order or loop:DESIGN.json",
+                         source="--model")
+    channel = args.channel
+    trace = read_trace(args.trace)
+    if args.load_step:
+        if args.model != "second-order" or loop_path:
+            raise InputError("--model and --loop apply to reference steps, not --load-step",
+                             source="--load-step")
+        current = parse_si(args.current_step, "--current-step") if args.current_step else None
+        zout = _read_zout(args.zout) if args.zout else None
+        result = analyse_load_step(trace, channel=channel, band=band, band_v=band_v, step_time_s=step_time,
+                                   current_step_a=current, zout=zout,
+                                   zout_label=f"output impedance {args.zout}" if args.zout else "")
+    else:
+        if args.current_step or args.zout:
+            raise InputError("--current-step and --zout need --load-step", source="--zout")
+        loop = predicted = None
+        label = "loop gain"
+        if loop_path:
+            loop, predicted, label = read_loop_gain(loop_path)
+            label = f"{label} from {loop_path}"
+        if args.no_fit and model != "second-order":
+            raise InputError("--no-fit cannot be combined with a --model", source="--no-fit")
+        result = analyse_step(trace, channel=channel, model=model, loop=loop, loop_label=label,
+                              predicted_margins=predicted, band=band, band_v=band_v,
+                              step_time_s=step_time, fit=not args.no_fit)
+    if args.output:
+        result.to_json(args.output)
+    emit(args, result.to_dict(include_curves=False), result.report())
+    return 0

@@ -1,0 +1,117 @@
+"""One call from a trace to a :class:`StepResult`: measure, fit, estimate, compare."""
+
+from __future__ import annotations
+
+import math
+
+from benchfit.data.response import FrequencyResponse
+from benchfit.data.trace import TimeTrace
+from benchfit.errors import InputError
+from benchfit.fitting.model import PlantModel
+from benchfit.provenance import Provenance
+from benchfit.steps.compare import compare_load_step_with_zout, compare_step_with_loop
+from benchfit.steps.features import trace_arrays
+from benchfit.steps.fit import MODELS, fit_step
+from benchfit.steps.loadstep import measure_load_step
+from benchfit.steps.measure import measure_step
+from benchfit.steps.pm import estimate_phase_margin
+from benchfit.steps.result import StepResult
+
+
+def analyse_step(data, *, channel: str | int | None = None, model: str = "second-order",
+                 loop: PlantModel | None = None, loop_label: str = "loop gain",
+                 predicted_margins: dict | None = None, band: float = 0.02, band_v: float | None = None,
+                 step_time_s: float | None = None, fit: bool = True) -> StepResult:
+    """Measure a reference-step trace, fit it, estimate the phase margin, compare with a loop.
+
+    Parameters
+    ----------
+    data
+        TimeTrace or ``(time_s, samples)``.
+    channel
+        Channel name or index.
+    model
+        ``"second-order"``, ``"third-order"`` or ``"loop"`` (needs ``loop``).  The
+        second-order fit is always made: ζ and the phase-margin estimate come from it.
+    loop
+        Loop gain T; when given, the closed-loop prediction is compared with the trace.
+    loop_label, predicted_margins
+        Where ``loop`` came from, and its predicted margins (dict), for the comparison.
+    band, band_v
+        Settling band: fraction of the step, or volts.
+    step_time_s
+        Known step instant (found from the trace otherwise).
+    fit
+        False for measurements only (no ζ, no phase-margin estimate).
+    """
+    if model not in MODELS:
+        raise InputError(f"model {model!r} unknown; expected one of {MODELS}", source="--model")
+    _, _, name, source = trace_arrays(data, channel)
+    m = measure_step(data, channel=channel, band=band, band_v=band_v, step_time_s=step_time_s)
+    warnings = _channel_note(data, channel) + list(m.warnings)
+    fits = []
+    pm = None
+    if fit:
+        so = fit_step(data, channel=channel, model="second-order", measurement=m)
+        fits.append(so)
+        if model != "second-order":
+            fits.append(fit_step(data, channel=channel, model=model, measurement=m, loop=loop))
+        for f in fits:
+            warnings += [f"{f.model} fit: {w}" for w in f.warnings]
+        pm = estimate_phase_margin(so.value("zeta"), so.stderr("zeta"), so.value("fn_hz"))
+    comparison = None
+    if loop is not None:
+        t0 = fits[0].value("t0_s") if fits else m.step_time_s
+        comparison = compare_step_with_loop(data, loop, t0, channel=channel, band=m.band,
+                                            predicted_margins=predicted_margins, pm_estimate=pm,
+                                            against=loop_label)
+        warnings += list(comparison.warnings)
+    return StepResult(mode="step", measurement=m, fits=tuple(fits), phase_margin=pm, comparison=comparison,
+                      warnings=tuple(warnings),
+                      provenance=Provenance(step="step", sources=(source,) if source else (),
+                                            settings={"channel": name, "model": model, "band": band,
+                                                      "band_v": band_v, "step_time_s": step_time_s,
+                                                      "loop": loop_label if loop is not None else None}))
+
+
+def analyse_load_step(data, *, channel: str | int | None = None, band: float = 0.02,
+                      band_v: float | None = None, step_time_s: float | None = None,
+                      current_step_a: float | None = None,
+                      zout: PlantModel | FrequencyResponse | None = None,
+                      zout_label: str = "closed-loop output impedance") -> StepResult:
+    """Measure a load-step trace; compare with the output-impedance prediction when given.
+
+    The ringing's log decrement gives a ζ and from it a phase-margin estimate
+    (the load-step ringing shows the same closed-loop poles as a reference step).
+    ``zout`` needs ``current_step_a``.
+    """
+    _, _, name, source = trace_arrays(data, channel)
+    m = measure_load_step(data, channel=channel, band=band, band_v=band_v, step_time_s=step_time_s,
+                          current_step_a=current_step_a)
+    warnings = _channel_note(data, channel) + list(m.warnings)
+    pm = None
+    if math.isfinite(m.zeta_from_decrement):
+        fn = m.ringing_freq_hz / math.sqrt(max(1.0 - m.zeta_from_decrement ** 2, 1e-12))
+        pm = estimate_phase_margin(m.zeta_from_decrement, float("nan"), fn)
+    comparison = None
+    if zout is not None:
+        if current_step_a is None:
+            raise InputError("comparing with an output impedance needs the load step size in A",
+                             source="--current-step")
+        comparison = compare_load_step_with_zout(data, zout, current_step_a, channel=channel, band=band,
+                                                 band_v=band_v, step_time_s=step_time_s, against=zout_label)
+        warnings += list(comparison.warnings)
+    return StepResult(mode="load_step", measurement=m, phase_margin=pm, comparison=comparison,
+                      warnings=tuple(warnings),
+                      provenance=Provenance(step="load_step", sources=(source,) if source else (),
+                                            settings={"channel": name, "band": band, "band_v": band_v,
+                                                      "step_time_s": step_time_s,
+                                                      "current_step_a": current_step_a,
+                                                      "zout": zout_label if zout is not None else None}))
+
+
+def _channel_note(data, channel) -> list[str]:
+    if isinstance(data, TimeTrace) and channel is None and len(data.names) > 1:
+        return [f"the trace has channels {data.names}; measured the first, {data.names[0]!r} "
+                "(choose another with --channel)"]
+    return []

@@ -1,0 +1,398 @@
+"""Least-squares fits of step models to a scope trace (lmfit), with standard errors.
+
+Three models:
+
+- ``"second-order"``: ζ, fn, initial level, step size and step instant t0;
+- ``"third-order"``: the same pair times a real pole at fp;
+- ``"loop"``: the closed loop T/(1+T) of a given loop gain T, with the loop's
+  gain factor and its dominant pole pair (fn, ζ of the lowest-frequency complex
+  pair, or of the two lowest real poles) free, so a scope step refines the
+  frequency-domain model.
+
+Starting values come from the model-free measurements (ζ from the overshoot or
+the log decrement, fn from the rise time, t0 from the 10 % and 90 % crossings);
+without overshoot a few ζ are tried.  Residuals are weighted by the noise of
+the flat part before the step; clipped samples are left out.  Standard errors
+are lmfit's (covariance scaled by the reduced χ²), multiplied by
+√((1+ρ)/(1−ρ)) when the residuals' lag-1 autocorrelation ρ is positive (the
+AR(1) variance-inflation factor, a common approximation for correlated noise
+such as a band-limited scope front end).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+from typing import Any
+
+import lmfit
+import numpy as np
+
+from benchfit.errors import FitError, InputError
+from benchfit.fileio import as_float
+from benchfit.fitting.model import PlantModel
+from benchfit.fitting.result import Parameter
+from benchfit.provenance import Provenance
+from benchfit.steps.features import clipped_runs, difference_sigma, trace_arrays
+from benchfit.steps.measure import StepMeasurement, measure_step
+from benchfit.steps.models import (
+    TWO_PI,
+    closed_loop_unit_step,
+    second_order_step,
+    third_order_step,
+    unit_second_order,
+    zeta_from_overshoot_pct,
+)
+
+MODELS = ("second-order", "third-order", "loop")
+_UNITS = {"zeta": "", "fn_hz": "Hz", "fp_hz": "Hz", "initial_v": "V", "step_v": "V", "t0_s": "s",
+          "loop_gain": "", "pair_fn_hz": "Hz", "pair_zeta": ""}
+
+
+@dataclass(frozen=True, eq=False)
+class StepFit:
+    """A step model fitted to a trace.
+
+    Parameters
+    ----------
+    model
+        One of :data:`MODELS`.
+    parameters
+        Fitted parameters with one-sigma standard errors (zeta, fn_hz, initial_v,
+        step_v, t0_s; plus fp_hz, or loop_gain / pair_fn_hz / pair_zeta).
+    stats
+        ``rms_v`` (residual rms), ``noise_v`` (noise of the flat part),
+        ``rms_over_noise``, ``reduced_chi2``, ``points``, ``excluded_points``
+        (clipped), ``evaluations``, ``converged``, ``residual_lag1`` and
+        ``stderr_inflation``.
+    time_s, fitted_v
+        The fitted curve on the trace's time axis.
+    loop_model
+        The refined loop gain T (``"loop"`` model only).
+    warnings
+        What to be careful about.
+    provenance
+        Source and settings.
+    """
+
+    model: str
+    parameters: tuple[Parameter, ...]
+    stats: dict[str, Any]
+    time_s: np.ndarray
+    fitted_v: np.ndarray
+    loop_model: PlantModel | None = None
+    warnings: tuple[str, ...] = ()
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="fit_step"))
+
+    def parameter(self, name: str) -> Parameter:
+        for p in self.parameters:
+            if p.name == name:
+                return p
+        raise KeyError(f"no parameter {name!r}; have {[p.name for p in self.parameters]}")
+
+    def value(self, name: str) -> float:
+        return self.parameter(name).value
+
+    def stderr(self, name: str) -> float:
+        return self.parameter(name).stderr
+
+    def to_dict(self, include_curve: bool = True) -> dict[str, Any]:
+        d = {
+            "kind": "step_fit",
+            "model": self.model,
+            "parameters": [p.to_dict() for p in self.parameters],
+            "stats": dict(self.stats),
+            "loop_model": self.loop_model.to_dict() if self.loop_model is not None else None,
+            "warnings": list(self.warnings),
+            "provenance": self.provenance.to_dict(),
+        }
+        if include_curve:
+            d["curve"] = {"time_s": self.time_s.tolist(), "fitted_v": self.fitted_v.tolist()}
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> StepFit:
+        try:
+            curve = d.get("curve") or {"time_s": [], "fitted_v": []}
+            return cls(
+                model=str(d["model"]),
+                parameters=tuple(Parameter.from_dict(p) for p in d["parameters"]),
+                stats=dict(d.get("stats", {})),
+                time_s=np.asarray([as_float(v) for v in curve["time_s"]], float),
+                fitted_v=np.asarray([as_float(v) for v in curve["fitted_v"]], float),
+                loop_model=PlantModel.from_dict(d["loop_model"]) if d.get("loop_model") else None,
+                warnings=tuple(d.get("warnings", ())),
+                provenance=Provenance.from_dict(d.get("provenance")),
+            )
+        except KeyError as e:
+            raise InputError(f"step fit has no {e.args[0]!r}") from None
+
+
+# ----- starting values -----------------------------------------------------------------
+@lru_cache(maxsize=256)
+def _unit_crossings(zeta: float) -> tuple[float, float]:
+    """10 % and 90 % crossing times of the second-order step with ωn = 1 rad/s."""
+    tau = np.linspace(0.0, 40.0 * max(zeta, 1.0) + 20.0, 40001)
+    u = unit_second_order(tau, zeta, 1.0)
+    return float(np.interp(0.1, np.maximum.accumulate(u), tau)), \
+        float(np.interp(0.9, np.maximum.accumulate(u), tau))
+
+
+def _second_order_start(m: StepMeasurement, zeta: float) -> dict[str, float]:
+    a10, a90 = _unit_crossings(round(zeta, 4))
+    wn = (a90 - a10) / m.rise_time_s
+    t0 = 0.5 * ((m.t10_s - a10 / wn) + (m.t90_s - a90 / wn))
+    return {"zeta": zeta, "fn_hz": wn / TWO_PI, "initial_v": m.initial_v, "step_v": m.step_v, "t0_s": t0}
+
+
+def _zeta_candidates(m: StepMeasurement) -> list[float]:
+    if m.overshoot_pct > 0.5:
+        return [zeta_from_overshoot_pct(min(m.overshoot_pct, 99.0))]
+    if np.isfinite(m.zeta_from_decrement):
+        return [float(m.zeta_from_decrement)]
+    return [0.7, 1.0, 1.5, 3.0]
+
+
+# ----- the fit itself ----------------------------------------------------------------
+def _params(start: dict[str, float], t: np.ndarray) -> lmfit.Parameters:
+    span = t[-1] - t[0]
+    p = lmfit.Parameters()
+    for name, v in start.items():
+        if name in ("zeta", "pair_zeta"):
+            p.add(name, value=v, min=1e-3, max=50.0)
+        elif name in ("fn_hz", "fp_hz", "pair_fn_hz"):
+            p.add(name, value=v, min=v / 100.0, max=v * 100.0)
+        elif name == "loop_gain":
+            p.add(name, value=v, min=1e-3, max=1e3)
+        elif name == "t0_s":
+            p.add(name, value=min(max(v, t[0] - span), t[-1]), min=t[0] - span, max=t[-1])
+        else:
+            p.add(name, value=v)
+    return p
+
+
+def _run(fn, start, t, y, keep, sigma):
+    params = _params(start, t)
+
+    def resid(p):
+        return (fn(t, p.valuesdict())[keep] - y[keep]) / sigma
+
+    mini = lmfit.Minimizer(resid, params, nan_policy="raise")
+    return mini.leastsq(xtol=1e-10, ftol=1e-10)
+
+
+def _cost(fn, start, t, y, keep):
+    return float(np.sum((fn(t, start)[keep] - y[keep]) ** 2))
+
+
+def _so(t, v):
+    return second_order_step(t, v["zeta"], v["fn_hz"], v["initial_v"], v["step_v"], v["t0_s"])
+
+
+def _to(t, v):
+    return third_order_step(t, v["zeta"], v["fn_hz"], v["fp_hz"], v["initial_v"], v["step_v"], v["t0_s"])
+
+
+def fit_step(data, *, model: str = "second-order", channel: str | int | None = None,
+             measurement: StepMeasurement | None = None, loop: PlantModel | None = None,
+             band: float = 0.02, step_time_s: float | None = None,
+             exclude_clipped: bool = True) -> StepFit:
+    """Fit a step model to a trace.
+
+    Parameters
+    ----------
+    data
+        A :class:`~benchfit.data.TimeTrace` or ``(time_s, samples)`` pair.
+    model
+        ``"second-order"``, ``"third-order"`` or ``"loop"`` (needs ``loop``).
+    channel
+        Channel name or 0-based index.
+    measurement
+        Model-free measurements of the same trace (computed when not given).
+    loop
+        Loop gain T as a :class:`PlantModel` for the ``"loop"`` model.
+    band, step_time_s
+        Passed to :func:`measure_step` when ``measurement`` is not given.
+    exclude_clipped
+        Leave samples in runs at the record's extremes (clipping) out of the fit.
+
+    Raises
+    ------
+    InputError
+        Unknown model, ``"loop"`` without a loop gain, bad trace.
+    FitError
+        The least-squares fit fails.
+    """
+    if model not in MODELS:
+        raise InputError(f"model {model!r} unknown; expected one of {MODELS} (loop:design.json on the CLI)",
+                         source="--model")
+    t, y, name, source = trace_arrays(data, channel)
+    m = measurement or measure_step(data, channel=channel, band=band, step_time_s=step_time_s)
+    keep = np.ones(y.size, bool)
+    warnings: list[str] = []
+    if exclude_clipped and m.clipped_samples:
+        mask, _ = clipped_runs(y, ignore_levels=(m.initial_v, m.final_v) if m.noise_v == 0 else ())
+        keep = ~mask
+        warnings.append(f"{int(mask.sum())} clipped samples left out of the fit")
+    sigma = m.noise_v if m.noise_v > 0 and np.isfinite(m.noise_v) else difference_sigma(y)
+    if not sigma > 0:
+        sigma = 1e-9 * max(abs(m.step_v), 1e-30)  # noise-free synthetic record
+    if keep.sum() < 10:
+        raise FitError(f"only {int(keep.sum())} usable samples; a step fit needs at least 10")
+
+    so = _best_second_order(t, y, keep, sigma, m)
+    if model == "second-order":
+        out, fn, extra = so, _so, {}
+    elif model == "third-order":
+        out, fn, extra = _third_order(t, y, keep, sigma, so), _to, {}
+    else:
+        if loop is None:
+            raise InputError("the loop model needs a loop gain (a design JSON with a loop model)",
+                             source="--model")
+        out, fn, extra = _loop_fit(t, y, keep, sigma, m, loop)
+    if not out.success and out.nfev == 0:
+        raise FitError(f"step fit did not run: {out.message}")
+    return _package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source)
+
+
+def _best_second_order(t, y, keep, sigma, m):
+    starts = [_second_order_start(m, z) for z in _zeta_candidates(m)]
+    if len(starts) > 1:  # no overshoot: try a few ζ and keep the best few starts
+        starts.sort(key=lambda s: _cost(_so, s, t, y, keep))
+        starts = starts[:2]
+    best = None
+    for s in starts:
+        r = _run(_so, s, t, y, keep, sigma)
+        if best is None or r.chisqr < best.chisqr:
+            best = r
+    return best
+
+
+def _third_order(t, y, keep, sigma, so):
+    base = so.params.valuesdict()
+    best = None
+    for ratio in (1.5, 4.0, 15.0):
+        s = dict(base)
+        s["fp_hz"] = ratio * base["fn_hz"]
+        r = _run(_to, s, t, y, keep, sigma)
+        if best is None or r.chisqr < best.chisqr:
+            best = r
+    return best
+
+
+# ----- loop mode -----------------------------------------------------------------------
+def dominant_pair(loop: PlantModel) -> tuple[int, int] | None:
+    """Indices of the loop gain's dominant pole pair, or None.
+
+    The lowest-frequency complex pair; without one, the two lowest-frequency
+    real poles.  Poles at the origin (integrators) are never part of it.
+    """
+    p = loop.poles
+    scale = max(float(np.max(np.abs(p))) if p.size else 1.0, 1.0)
+    nonzero = np.flatnonzero(np.abs(p) > 1e-12 * scale)
+    upper = [i for i in nonzero if p[i].imag > 0]
+    if upper:
+        i = min(upper, key=lambda j: abs(p[j]))
+        j = min((k for k in nonzero if k != i and abs(p[k] - np.conj(p[i])) <= 1e-9 * abs(p[i])),
+                key=lambda k: abs(p[k]), default=None)
+        return (i, j) if j is not None else None
+    real = sorted((i for i in nonzero if abs(p[i].imag) <= 1e-12 * abs(p[i])), key=lambda k: abs(p[k]))
+    return (real[0], real[1]) if len(real) >= 2 else None
+
+
+def loop_with(loop: PlantModel, gain: float, pair: tuple[int, int] | None,
+              pair_fn_hz: float | None = None, pair_zeta: float | None = None) -> PlantModel:
+    """``loop`` with its gain scaled and its dominant pair moved to (fn, ζ).
+
+    The pair is written as ωn²/(s² + 2ζωn s + ωn²), so moving it leaves the
+    low-frequency gain alone: ``loop_with(T, 1, pair, fn0, ζ0)`` is T itself.
+    """
+    poles = loop.poles
+    k = loop.k * gain
+    if pair is not None and pair_fn_hz is not None:
+        old = poles[list(pair)]
+        wn = TWO_PI * pair_fn_hz
+        root = np.sqrt(complex(pair_zeta * pair_zeta - 1.0))
+        new = np.array([-wn * (pair_zeta - root), -wn * (pair_zeta + root)])
+        k = k * wn * wn / float(np.real(np.prod(old)))
+        poles = np.concatenate([np.delete(poles, list(pair)), new])
+    return PlantModel(zeros=loop.zeros, poles=poles, k=k, delay_s=loop.delay_s,
+                      provenance=loop.provenance.derive("refine_loop_from_step"))
+
+
+def _pair_start(loop: PlantModel, pair) -> tuple[float, float]:
+    a, b = loop.poles[list(pair)]
+    wn = math.sqrt(abs(a * b))
+    return wn / TWO_PI, float(-(a + b).real / (2.0 * wn))
+
+
+def _loop_fit(t, y, keep, sigma, m, loop):
+    pair = dominant_pair(loop)
+    start: dict[str, float] = {"loop_gain": 1.0}
+    if pair is not None:
+        start["pair_fn_hz"], start["pair_zeta"] = _pair_start(loop, pair)
+
+    def fn(tt, v):
+        model = loop_with(loop, v["loop_gain"], pair, v.get("pair_fn_hz"), v.get("pair_zeta"))
+        try:
+            u, _ = closed_loop_unit_step(tt - v["t0_s"], model)
+        except InputError:  # unstable trial point: steer the optimiser away
+            return np.full(tt.shape, 1e6 * (abs(v["step_v"]) + 1.0))
+        return v["initial_v"] + v["step_v"] * u
+
+    # Align the model's own 10/90 % crossings with the measured ones for t0.
+    tau = np.linspace(0.0, 4.0 * (t[-1] - t[0]), 20001)
+    u0, _ = closed_loop_unit_step(tau, loop)
+    c10 = float(tau[np.argmax(u0 >= 0.1)])
+    c90 = float(tau[np.argmax(u0 >= 0.9)])
+    start.update(initial_v=m.initial_v, step_v=m.step_v,
+                 t0_s=0.5 * ((m.t10_s - c10) + (m.t90_s - c90)))
+    out = _run(fn, start, t, y, keep, sigma)
+    v = out.params.valuesdict()
+    refined = loop_with(loop, v["loop_gain"], pair, v.get("pair_fn_hz"), v.get("pair_zeta"))
+    notes = [] if pair is not None else ["the loop gain has no pole pair to refine; only its gain was fitted"]
+    return out, fn, {"loop_model": refined, "notes": notes}
+
+
+# ----- statistics and packaging ----------------------------------------------------------
+def _package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source) -> StepFit:
+    v = out.params.valuesdict()
+    curve = fn(t, v)
+    r = (y - curve)[keep]
+    rms = float(np.sqrt(np.mean(r * r)))
+    rho = float(np.corrcoef(r[:-1], r[1:])[0, 1]) if r.size > 3 and np.std(r) > 0 else 0.0
+    infl = math.sqrt((1.0 + rho) / (1.0 - rho)) if 0.0 < rho < 0.99 else (1.0 if rho <= 0 else 10.0)
+    warnings = list(warnings) + list(extra.get("notes", ()))
+    if not out.errorbars:
+        warnings.append("standard errors could not be estimated (singular fit); parameters may be "
+                        "poorly determined by this trace")
+    if rho > 0.3:
+        warnings.append(f"residuals are correlated (lag-1 {rho:.2f}): noise is band-limited or the model "
+                        f"misses something; standard errors widened by {infl:.2f}x")
+    if m.rise_time_s < 3.0 * m.sample_interval_s:
+        warnings.append(f"the step rises within {m.rise_time_s / m.sample_interval_s:.2g} samples: the "
+                        "record does not resolve its shape, so ζ and fn are not determined by it")
+    ratio = rms / m.noise_v if m.noise_v > 0 else float("nan")
+    if ratio > 1.5:
+        warnings.append(f"residual rms is {ratio:.2g}x the noise of the flat part: the {model} model does "
+                        "not describe the whole trace")
+    params = []
+    for p in out.params.values():
+        se = float(p.stderr) * infl if p.stderr is not None and np.isfinite(p.stderr) else float("nan")
+        params.append(Parameter(name=p.name, value=float(p.value), stderr=se, unit=_UNITS.get(p.name, "")))
+    if model == "loop" and "pair_zeta" in v and not 0 < v["pair_zeta"] < 50:
+        warnings.append("fitted pair ζ reached a bound")
+    stats = {
+        "rms_v": rms, "noise_v": float(m.noise_v), "rms_over_noise": ratio,
+        "reduced_chi2": float(out.redchi), "points": int(keep.sum()),
+        "excluded_points": int((~keep).sum()), "evaluations": int(out.nfev),
+        "converged": bool(out.success), "residual_lag1": rho, "stderr_inflation": infl,
+        "weight_sigma_v": float(sigma),
+    }
+    return StepFit(
+        model=model, parameters=tuple(params), stats=stats, time_s=t.copy(), fitted_v=curve,
+        loop_model=extra.get("loop_model"), warnings=tuple(warnings),
+        provenance=Provenance(step="fit_step", sources=(source,) if source else (),
+                              settings={"model": model, "channel": name}),
+    )
