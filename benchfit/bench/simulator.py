@@ -29,6 +29,7 @@ import numpy as np
 from benchfit.bench.blocks import build_block, encode_ascii
 from benchfit.bench.scpi import Message, header_matches, keyword_matches, parse_unit, split_units
 from benchfit.data.response import FrequencyResponse
+from benchfit.data.trace import TimeTrace
 
 # SCPI-1999 Vol. 2 §21.8 standard error numbers and texts (from memory).
 ERRORS = {
@@ -387,6 +388,8 @@ class SimulatedScope(ScpiDevice):
         Sample interval in s.
     pretrigger
         Fraction of the record before the trigger.
+    x_origin_s
+        Time of the first sample in s; overrides ``pretrigger`` when given.
     noise_v
         RMS noise in V added before quantisation.
     channels
@@ -396,7 +399,8 @@ class SimulatedScope(ScpiDevice):
     Y_REFERENCE = 128  # offset code, so the scaling path is exercised
 
     def __init__(self, waveform_fn: Callable[[np.ndarray], np.ndarray], *, record_points: int = 1000,
-                 x_increment_s: float = 1e-6, pretrigger: float = 0.1, noise_v: float = 0.0,
+                 x_increment_s: float = 1e-6, pretrigger: float = 0.1,
+                 x_origin_s: float | None = None, noise_v: float = 0.0,
                  seed: int = 0, channels: tuple[str, ...] = ("CH1",),
                  idn: str = "benchfit,simulated scope,SIM0002,0.1",
                  faults: Faults | None = None, clock: Callable[[], float] = time.monotonic) -> None:
@@ -404,6 +408,7 @@ class SimulatedScope(ScpiDevice):
         self.record_points = int(record_points)
         self.x_increment_s = float(x_increment_s)
         self.pretrigger = float(pretrigger)
+        self._x_origin_s = x_origin_s
         self.noise_v = float(noise_v)
         self.rng = np.random.default_rng(seed)
         self.channel_names = tuple(channels)
@@ -413,6 +418,8 @@ class SimulatedScope(ScpiDevice):
 
     @property
     def x_origin_s(self) -> float:
+        if self._x_origin_s is not None:
+            return float(self._x_origin_s)
         return -self.pretrigger * self.record_points * self.x_increment_s
 
     def _commands(self):
@@ -468,6 +475,16 @@ class SimulatedScope(ScpiDevice):
     def _data(self, m: Message) -> None:
         if self._channel_ok(m):
             self._reply(self._values(self.codes), at=self._done_at())
+
+
+def scope_for_trace(trace: TimeTrace, channel: str | int | None = None, **options) -> SimulatedScope:
+    """A simulated scope replaying one channel of a recorded trace on its own time axis."""
+    t = trace.time_s
+    v = trace.channel(channel)
+    options.setdefault("record_points", len(trace))
+    options.setdefault("x_increment_s", (t[-1] - t[0]) / (len(trace) - 1))
+    options.setdefault("x_origin_s", float(t[0]))
+    return SimulatedScope(lambda tt: np.interp(tt, t, v), **options)
 
 
 def interpolated_response(resp: FrequencyResponse) -> Callable[[np.ndarray], np.ndarray]:

@@ -1,0 +1,78 @@
+"""benchfit scope: read one scope channel over VISA and save it as a trace CSV."""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+
+from benchfit.cli.common import add_json_flag, emit
+from benchfit.errors import InputError
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "scope", help="capture a scope channel over VISA into a trace CSV",
+        description="Arm, trigger and read one channel with the commands of a scope profile, "
+                    "scale it (x increment/origin, y increment/origin/reference) and save a "
+                    "canonical trace CSV that 'benchfit step' reads. SCPI has no scope command "
+                    "tree, so copy the generic-scope profile and edit it for your scope.")
+    p.add_argument("resource", nargs="?", metavar="RESOURCE", help="VISA resource (not with --simulate)")
+    p.add_argument("--profile", metavar="NAME|FILE", help="scope profile (default generic-scope with --simulate)")
+    p.add_argument("--channel", default="CH1", help="channel name for the profile's {channel} (default CH1)")
+    p.add_argument("-o", "--output", required=True, metavar="TRACE.csv", help="trace CSV to write")
+    p.add_argument("--no-trigger", action="store_true",
+                   help="do not send the trigger command; wait for a real trigger")
+    p.add_argument("--backend", default="@py", help="pyvisa backend (default @py)")
+    sim = p.add_argument_group("simulation (no hardware)")
+    sim.add_argument("--simulate", metavar="TRACE_FILE", help="replay a recorded trace as a simulated scope")
+    sim.add_argument("--sim-channel", default=None, help="which channel of TRACE_FILE to replay")
+    sim.add_argument("--noise", type=float, default=0.0, help="rms noise in V added (default 0)")
+    sim.add_argument("--transport", choices=("auto", "sim", "tcp"), default="auto",
+                     help="sim: pyvisa-sim backend; tcp: pyvisa-py over a 127.0.0.1 socket")
+    add_json_flag(p)
+    p.set_defaults(func=run)
+
+
+def _read_trace(path: str):
+    try:
+        from benchfit.data import read_trace
+
+        return read_trace(path)
+    except ImportError:  # the general reader is optional; canonical files always read
+        from benchfit.data import read_canonical_trace
+
+        return read_canonical_trace(path)
+
+
+def run(args: argparse.Namespace) -> int:
+    from benchfit.bench.profile import find_profile
+    from benchfit.bench.scope import capture_trace
+    from benchfit.bench.session import open_session
+    from benchfit.bench.sim_transport import simulated_session
+    from benchfit.bench.simulator import scope_for_trace
+    from benchfit.cli.cmd_capture import transport_choice
+
+    if bool(args.simulate) == bool(args.resource):
+        raise InputError("give exactly one of RESOURCE or --simulate", source="RESOURCE")
+    if args.profile is None and not args.simulate:
+        raise InputError("required with a real instrument (see 'benchfit profiles')", source="--profile")
+    profile = find_profile(args.profile or "generic-scope", kind="scope")
+    with contextlib.ExitStack() as stack:
+        if args.simulate:
+            inst = scope_for_trace(_read_trace(args.simulate), args.sim_channel, noise_v=args.noise,
+                                   channels=(args.channel.upper(),))
+            session = stack.enter_context(simulated_session(inst, profile,
+                                                            transport=transport_choice(args.transport)))
+            resource = f"simulated:{args.simulate}"
+        else:
+            session = stack.enter_context(open_session(args.resource, profile, backend=args.backend))
+            resource = args.resource
+        trace = capture_trace(session, args.channel, out=args.output, resource=resource,
+                              trigger=not args.no_trigger)
+    sc = trace.meta["scaling"]
+    emit(args, {"kind": "scope_capture", "output": args.output, "samples": len(trace),
+                "channel": args.channel, "time_s": [float(trace.time_s[0]), float(trace.time_s[-1])],
+                "meta": trace.meta},
+         f"saved {len(trace)} samples of {args.channel} into {args.output} "
+         f"({trace.time_s[0]:.4g}..{trace.time_s[-1]:.4g} s, {sc['x_increment_s']:.3g} s/sample)")
+    return 0
