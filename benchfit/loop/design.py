@@ -44,8 +44,6 @@ from benchfit.loop.synthesis import Synthesis, Targets, synthesize
 from benchfit.loop.tolerance import Spread, monte_carlo
 from benchfit.provenance import Provenance
 
-#: Practical part ranges (common practice, no source): R in ohm, C in F.
-R_MIN, R_MAX, C_MIN = 100.0, 10e6, 10e-12
 #: Op-amp phase lost at the crossover that earns a warning, degrees.
 OPAMP_PHASE_WARN_DEG = 3.0
 #: Slack when judging a predicted margin against its target.
@@ -129,19 +127,6 @@ def snap_search(net: Network, corners: Sequence[LoopPlant], opamp: OpAmp | None,
     best = int(np.argmin(np.where(ok, np.nan_to_num(dist, nan=np.inf), np.inf)))
     return Network(net.kind, {n: float(combos[best, i]) for i, n in enumerate(names)}), \
         "neighbour search"
-
-
-def part_warnings(net: Network, label: str) -> list[str]:
-    """Parts outside the practical range (R 100 Ω..10 MΩ, C >= 10 pF; common practice)."""
-    out = []
-    for n, v in net.parts.items():
-        if n[0] == "R" and not (R_MIN <= v <= R_MAX):
-            out.append(f"{label} {n} = {v:.4g} ohm is outside the practical 100 ohm..10 Mohm range; "
-                       "change --r-in or the crossover")
-        elif n[0] == "C" and v < C_MIN:
-            out.append(f"{label} {n} = {v:.4g} F is below 10 pF (board and op-amp input "
-                       "capacitance will swamp it); lower --r-in")
-    return out
 
 
 def opamp_warnings(net: Network, opamp: OpAmp | None, fc_hz: float) -> list[str]:
@@ -446,7 +431,7 @@ def design(corners: LoopPlant | Sequence[LoopPlant], kind: str, targets: Targets
     snapped = predict(corners, snapped_net, opamp)
     names = [lp.name for lp in corners]
     warnings = list(syn.notes)
-    warnings += part_warnings(snapped_net, "snapped")
+    warnings += snapped_net.practical_warnings("snapped")
     warnings += opamp_warnings(syn.network, opamp, syn.crossover_hz)
     warnings += target_warnings(ideal, targets, names, "ideal")
     warnings += target_warnings(snapped, targets, names, "snapped")
@@ -486,7 +471,7 @@ def check_parts(corners: LoopPlant | Sequence[LoopPlant], network: Network, *,
     pred = predict(corners, network, opamp)
     names = [lp.name for lp in corners]
     m = pred.worst_margins()
-    warnings = part_warnings(network, "given")
+    warnings = network.practical_warnings("given")
     warnings += opamp_warnings(network, opamp, m.crossover_hz)
     warnings += target_warnings(pred, targets, names, "given")
     warnings += [f"{names[pred.worst]}: {w}" for w in m.warnings]

@@ -45,6 +45,9 @@ from benchfit.loop.opamp import OpAmp
 from benchfit.loop.rational import POLY, VALUES, Algebra, Frac, frac_to_zpk
 from benchfit.provenance import Provenance
 
+#: Practical part ranges (common practice, no source): R in ohm, C in F.
+R_MIN, R_MAX, C_MIN = 100.0, 10e6, 10e-12
+
 #: Part names of each network kind (R… in ohm, C… in F).
 PARTS: dict[str, tuple[str, ...]] = {
     "type1": ("R1", "C1"),
@@ -179,6 +182,19 @@ class Network:
         if fc is None:
             return 1.0
         return float(abs(self.response(np.array([fc]))[0]))
+
+    def practical_warnings(self, label: str = "") -> list[str]:
+        """Parts outside the practical range (R 100 Ω..10 MΩ, C >= 10 pF; common practice)."""
+        out = []
+        pre = f"{label} " if label else ""
+        for n, v in self.parts.items():
+            if n[0] == "R" and not (R_MIN <= v <= R_MAX):
+                out.append(f"{pre}{n} = {v:.4g} ohm is outside the practical 100 ohm..10 Mohm "
+                           "range; change --r-in or the crossover")
+            elif n[0] == "C" and v < C_MIN:
+                out.append(f"{pre}{n} = {v:.4g} F is below 10 pF (board and op-amp input "
+                           "capacitance will swamp it); lower --r-in or the crossover")
+        return out
 
     def to_dict(self) -> dict[str, Any]:
         return {"kind": self.kind, "parts": dict(self.parts)}

@@ -88,6 +88,10 @@ class Targets:
     gain_margin_db: float = 10.0
 
     def __post_init__(self) -> None:
+        for name in ("phase_margin_deg", "gain_margin_db"):
+            object.__setattr__(self, name, float(getattr(self, name)))
+        if self.crossover_hz is not None:
+            object.__setattr__(self, "crossover_hz", float(self.crossover_hz))
         if self.crossover_hz is not None and not (math.isfinite(self.crossover_hz)
                                                    and self.crossover_hz > 0):
             raise InputError(f"crossover {self.crossover_hz!r}; expected a frequency > 0 Hz or auto",
@@ -445,13 +449,21 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
             raise DesignError(f"nowhere in {lo:.4g}..{hi:.4g} Hz does a {kind} network meet the "
                               "plant with a 20 dB/decade rate of closure; try another network")
     best = (-np.inf, None)
+    impractical = None  # highest crossover meeting the targets only with impractical parts
     for fc in grid:
         res, pm, gm, _ = placer.at(float(fc))
         if res is not None:
-            return finish(res, [f"crossover chosen automatically: highest of {len(grid)} tried "
-                                f"in {grid[-1]:.4g}..{grid[0]:.4g} Hz meeting the targets"])
+            if not res.network.practical_warnings():
+                return finish(res, [f"crossover chosen automatically: highest of {len(grid)} "
+                                    f"tried in {grid[-1]:.4g}..{grid[0]:.4g} Hz meeting the "
+                                    "targets with parts in the practical range"])
+            impractical = impractical or res
         if pm > best[0]:
             best = (pm, fc)
+    if impractical is not None:
+        return finish(impractical, ["crossover chosen automatically: no crossover meets the "
+                                    "targets with parts in the practical range; the highest "
+                                    "meeting them is used"])
     raise DesignError(
         f"no crossover in {grid[-1]:.4g}..{grid[0]:.4g} Hz meets phase margin >= "
         f"{targets.phase_margin_deg:g}° and gain margin >= {targets.gain_margin_db:g} dB with a "

@@ -1,0 +1,183 @@
+"""Design: synthesis -> E-series parts -> re-verified loop -> spread, and its JSON.
+
+Independent checks: python-control's ``stability_margins`` (general-purpose
+reference library) on the loop built from the snapped parts; the product
+plant · sensing · compensator computed here by hand from the JSON; the
+practical part ranges are common practice, no source.
+"""
+
+import json
+
+import control
+import numpy as np
+import pytest
+
+from benchfit.data.response import FrequencyResponse
+from benchfit.fileio import decode_complex
+from benchfit.fitting.model import PlantModel
+from benchfit.loop.design import Design, check_parts, design, series_neighbours
+from benchfit.loop.loopgain import Loop, LoopPlant, plant_from_measured_loop
+from benchfit.loop.networks import Network
+from benchfit.loop.opamp import OpAmp
+from benchfit.loop.sensing import Sensing
+from benchfit.loop.synthesis import Targets, place, synthesize
+
+
+def buck(r_load=1.0, esr=0.02, L=10e-6, C=100e-6, vin=12.0):
+    """Our own scenario: voltage-mode buck control-to-output (duty -> Vout)."""
+    w0 = 1 / np.sqrt(L * C)
+    q = r_load * np.sqrt(C / L)
+    wz = 1 / (esr * C)
+    return PlantModel(zeros=np.array([-wz]), poles=np.roots([1, w0 / q, w0 ** 2]),
+                      k=vin * w0 ** 2 / wz)
+
+
+def ref_pm(t: PlantModel, fc_hz: float):
+    """python-control PM at the gain crossing nearest fc (s scaled by 2π·fc)."""
+    wc = 2 * np.pi * fc_hz
+    sys = control.zpk(t.zeros / wc, t.poles / wc, t.k * wc ** (len(t.zeros) - len(t.poles)))
+    gm, pm, sm, wpc, wgc, wms = control.stability_margins(sys, returnall=True)
+    i = int(np.argmin(np.abs(np.log(wgc))))
+    return pm[i], wgc[i] * fc_hz
+
+
+DIV = Sensing.divider(30e3, 10e3)
+
+
+@pytest.fixture(scope="module")
+def buck_design():
+    lp = LoopPlant(buck(), DIV, name="buck", band_hz=(10, 1e6))
+    return design(lp, "type3", Targets(20e3, 55, 10), series=("E96", "E12"), draws=500, seed=1)
+
+
+def test_ideal_and_snapped_loops_verified_independently(buck_design):
+    d = buck_design
+    mi = d.ideal.worst_margins()
+    assert mi.phase_margin_deg == pytest.approx(55, abs=0.1)
+    assert mi.crossover_hz == pytest.approx(20e3, rel=1e-3)
+    ms = d.snapped.worst_margins()
+    t_snapped = Loop(d.corners[0], d.snapped.network).model()
+    pm, fc = ref_pm(t_snapped, ms.crossover_hz)
+    assert ms.phase_margin_deg == pytest.approx(pm, abs=0.1)
+    assert ms.crossover_hz == pytest.approx(fc, rel=1e-3)
+    assert d.targets_met
+    assert ms.phase_margin_deg >= 55 - 0.1
+    for n, v in d.snapped.network.parts.items():  # really E-series values
+        lo, hi = series_neighbours(v, "E96" if n[0] == "R" else "E12")
+        assert lo == pytest.approx(v) and hi == pytest.approx(v)
+
+
+def test_user_multiplying_the_three_gets_the_return_ratio(buck_design):
+    d = json.loads(buck_design.to_json_text())
+    plant = PlantModel.from_dict(d["plant"])
+    comp = d["compensator"]["snapped"]
+    z, p = decode_complex(comp["zeros"]), decode_complex(comp["poles"])
+    f = np.logspace(2, 6, 50)
+    s = 2j * np.pi * f
+    c = comp["k"] * np.prod(s[:, None] - z[None, :], axis=1) / np.prod(s[:, None] - p[None, :], axis=1)
+    t = plant.response(f) * d["sensing"]["gain"] * c
+    loop = PlantModel.from_dict(d["loop_model"]["snapped"])
+    np.testing.assert_allclose(t, loop.response(f), rtol=1e-9)
+    # PM = 180° + ∠T at the crossover, with T the plain product
+    fc = d["predicted"]["snapped"]["crossover_hz"]
+    t_fc = plant.response(np.array([fc])) * d["sensing"]["gain"] * \
+        Network("type3", d["components"]["snapped"]).response(np.array([fc]))
+    assert abs(t_fc[0]) == pytest.approx(1.0, rel=1e-6)
+    assert 180 + np.degrees(np.angle(t_fc[0])) == pytest.approx(
+        d["predicted"]["snapped"]["phase_margin_deg"], abs=1e-3)
+
+
+def test_design_json_keys_and_round_trip(buck_design, tmp_path):
+    d = buck_design.to_dict()
+    for key in ("components", "compensator", "sensing", "plant", "loop_model", "predicted",
+                "spread", "targets", "warnings", "provenance"):
+        assert key in d
+    assert set(d["components"]) == {"ideal", "snapped"}
+    for key in ("phase_margin_deg", "crossover_hz", "gain_margin_db", "phase_crossover_hz",
+                "delay_margin_s", "modulus_margin", "crossings"):
+        assert key in d["predicted"]["snapped"]
+    assert {"p1", "p5", "p50", "p95", "p99"} <= set(d["spread"]["percentiles"]["pm_deg"])
+    path = tmp_path / "d.json"
+    buck_design.to_json(path)
+    again = Design.from_json(path)
+    assert again.to_json_text() == buck_design.to_json_text()
+
+
+def test_finite_opamp_lowers_phase_margin_and_design_warns():
+    lp = LoopPlant(buck(), DIV, band_hz=(10, 1e6))
+    net, *_ = place("type3", lp.response(np.array([20e3]))[0], 20e3, 55.0, 10e3)
+    ideal = Loop(lp, net, None).margins().phase_margin_deg
+    slow = Loop(lp, net, OpAmp(gbw_hz=1e6)).margins().phase_margin_deg
+    fast = Loop(lp, net, OpAmp(gbw_hz=1e9)).margins().phase_margin_deg
+    assert ideal == pytest.approx(55, abs=0.1)
+    assert slow < ideal - 5           # visibly lower
+    assert fast == pytest.approx(ideal, abs=0.5)
+    d = design(lp, "type3", Targets(20e3, 55, 10), opamp=OpAmp(gbw_hz=1e6), draws=0)
+    assert any("op-amp GBW" in w for w in d.warnings)
+    quick = design(lp, "type3", Targets(20e3, 55, 10), opamp=OpAmp(gbw_hz=1e9), draws=0)
+    assert not any("op-amp GBW" in w for w in quick.warnings)
+
+
+def test_robust_design_meets_targets_on_every_corner():
+    corners = [LoopPlant(buck(r_load=r, esr=e), DIV, name=f"R{r}_esr{e}", band_hz=(10, 1e6))
+               for r, e in ((0.5, 0.02), (1.0, 0.01), (10.0, 0.03))]
+    t = Targets(None, 50, 8)
+    d = design(corners, "type3", t, opamp=OpAmp(gbw_hz=20e6), series=("E96", "E24"), draws=0)
+    bad = ("target", "closed loop is unstable", "outside the practical", "below 10 pF")
+    assert not any(b in w for w in d.warnings for b in bad if "chosen automatically" not in w), \
+        d.warnings
+    pms = []
+    for lp, m in zip(d.corners, d.snapped.corners, strict=True):
+        assert m.closed_loop_stable
+        assert m.phase_margin_deg >= 50 - 0.1
+        assert m.gain_margin_db >= 8 - 0.1
+        pms.append(m.phase_margin_deg)
+    assert d.corner_names[d.snapped.worst] == d.corner_names[int(np.argmin(pms))]
+    assert d.to_dict()["worst_corner"]["snapped"] == d.corner_names[int(np.argmin(pms))]
+    # a lone-corner design at the same crossover fails some other corner: robustness mattered
+    lone = synthesize("type3", corners[2], Targets(d.synthesis.crossover_hz, 50, 8),
+                      opamp=OpAmp(gbw_hz=20e6))
+    worst = min(Loop(lp, lone.network, OpAmp(gbw_hz=20e6)).margins().phase_margin_deg
+                for lp in corners)
+    assert worst < 50
+
+
+def test_crossing_method_crosses_at_20db_per_decade():
+    lp = LoopPlant(buck(), DIV, band_hz=(10, 1e6))
+    d = design(lp, "type2", Targets(None, 45, 6), method="crossing", draws=0)
+    assert abs(d.synthesis.rate_of_closure_db - 20) <= 10
+    assert d.snapped.worst_margins().phase_margin_deg >= 45 - 0.1
+
+
+def test_part_range_warnings():
+    lp = LoopPlant(buck(), DIV, band_hz=(10, 1e6))
+    d = design(lp, "type3", Targets(20e3, 55, 10), r_in=2e6, draws=0)
+    assert any("below 10 pF" in w or "outside the practical" in w for w in d.warnings)
+    ok = design(lp, "type3", Targets(20e3, 55, 10), r_in=10e3, draws=0)
+    assert not any("10 pF" in w or "practical" in w for w in ok.warnings)
+
+
+def test_check_parts_reproduces_the_design_prediction(buck_design):
+    d = buck_design
+    c = check_parts(d.corners, d.snapped.network, targets=d.targets)
+    assert c.snapped.worst_margins().phase_margin_deg == pytest.approx(
+        d.snapped.worst_margins().phase_margin_deg, abs=1e-9)
+    assert c.method == "check"
+
+
+def test_redesign_from_measured_loop():
+    # a board measured with an old type2 fitted: T_meas = P·H·C_old (our own scenario)
+    plant = buck(r_load=2.0)
+    old = Network("type2", {"R1": 10e3, "R2": 20e3, "C1": 4.7e-9, "C2": 220e-12})
+    f = np.logspace(1, 6, 301)
+    t_meas = plant.response(f) * DIV.gain * old.response(f)
+    meas = FrequencyResponse(f, t_meas, quantity="loop")
+    rest = LoopPlant(plant_from_measured_loop(meas, old), name="board")
+    d = design(rest, "type3", Targets(15e3, 50, 8), draws=0)
+    new = d.snapped.network
+    direct = plant.response(f) * DIV.gain * new.response(f)
+    np.testing.assert_allclose(d.snapped.loops[0].response, direct, rtol=1e-9)
+    assert "loop_data" in d.to_dict()
+    # the data path agrees with the model path to interpolation accuracy
+    model_pm = Loop(LoopPlant(plant, DIV), new).margins().phase_margin_deg
+    assert d.snapped.worst_margins().phase_margin_deg == pytest.approx(model_pm, abs=0.5)
