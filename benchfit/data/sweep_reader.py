@@ -23,7 +23,7 @@ from benchfit.data.columns import Column, TracePair, classify_all, pair_traces
 from benchfit.data.dialect import Block, find_blocks, load_text, sniff
 from benchfit.data.response import QUANTITIES, FrequencyResponse
 from benchfit.data.touchstone import looks_like_touchstone, ports_from_name, read_touchstone
-from benchfit.data.units import freq_factor
+from benchfit.data.units import freq_factor, freq_unit_name
 from benchfit.errors import InputError
 from benchfit.provenance import Provenance
 
@@ -112,9 +112,9 @@ def _decide_mag(values: np.ndarray, col: Column, override: str, lines: np.ndarra
         i = int(np.flatnonzero(values < 0)[0])
         raise InputError(f"linear magnitude {values[i]:g} is negative; expected >= 0 (if the column "
                          "is in dB, use --mag-db)", source=source, line=int(lines[i]), column=col.name)
-    if form == "db" and np.all(values >= 0) and values.min() < 1e-2 and values.max() >= 1:
-        # A dB column that only holds values >= 0 falling to near zero is more likely a linear
-        # magnitude decaying over decades (common practice, no source).
+    if form == "db" and values.size >= 3 and np.all(values > 0) and values.max() > 100 * values.min():
+        # A dB column holding only positive values spread over decades is more likely a linear
+        # magnitude (common practice, no source); a warning only.
         warnings.append(f"magnitude column {col.name!r} is read as dB but looks linear (all values "
                         f"between {values.min():.3g} and {values.max():.3g}); use --mag-linear if so")
     return form
@@ -172,14 +172,20 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
                          "(--columns freq,mag,phase)", source=source)
     k, label, blk, pair = _select_trace(traces, trace, source, warnings)
     data, lines_no = blk.data, blk.line_no
-    f_unit = freq_unit or pair.freq.unit or "Hz"
-    f = data[:, pair.freq.index] * freq_factor(f_unit, exact_case=freq_unit is None)
+    f_unit = freq_unit_name(freq_unit or pair.freq.unit or "Hz", exact_case=freq_unit is None)
+    f = data[:, pair.freq.index] * freq_factor(f_unit)
     a, b = data[:, pair.first.index], data[:, pair.second.index]
     if pair.kind == "mag_phase":
         mag_form = _decide_mag(a, pair.first, mag, lines_no, source, warnings)
         ph_form = _decide_phase(b, pair.second, phase, warnings)
-        m = 10.0 ** (a / 20.0) if mag_form == "db" else a
-        h = m * np.exp(1j * (b if ph_form == "rad" else np.radians(b)))
+        with np.errstate(over="ignore", invalid="ignore"):
+            m = 10.0 ** (a / 20.0) if mag_form == "db" else a
+            h = m * np.exp(1j * (b if ph_form == "rad" else np.radians(b)))
+        if not np.all(np.isfinite(h)):
+            i = int(np.flatnonzero(~np.isfinite(h))[0])
+            raise InputError(f"magnitude {a[i]:g} dB overflows; expected a value below about 6000 dB "
+                             "(is the column linear?)", source=source, line=int(lines_no[i]),
+                             column=pair.first.name)
     else:
         mag_form = ph_form = None
         h = a + 1j * b

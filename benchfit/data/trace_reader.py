@@ -147,14 +147,17 @@ def _check_time(t: np.ndarray, line_no: np.ndarray, source: str, warnings: list[
     steps = np.diff(t)
     if np.all(steps > 0):
         return t
-    n = t.size
-    mean = (t[-1] - t[0]) / (n - 1)
-    uniform = t[0] + mean * np.arange(n)
-    if mean > 0 and np.all(steps >= 0) and np.max(np.abs(t - uniform)) <= 1.5 * mean:
-        # Repeated times: the export printed too few digits; the samples are evenly spaced.
-        warnings.append("time column repeats values (printed with too few digits); rebuilt an "
-                        "evenly spaced time axis from the first and last time")
-        return uniform
+    k = np.arange(t.size)
+    if np.all(steps >= 0) and t[-1] > t[0]:
+        # Repeated times: the export printed too few digits.  If the printed times sit within
+        # one print step of an evenly spaced line, the samples were evenly spaced.
+        slope, start = np.polyfit(k, t, 1)
+        uniform = start + slope * k
+        resolution = float(np.min(steps[steps > 0]))
+        if slope > 0 and np.max(np.abs(t - uniform)) <= resolution:
+            warnings.append("time column repeats values (printed with too few digits); rebuilt an "
+                            "evenly spaced time axis fitted to the printed times")
+            return uniform
     i = int(np.flatnonzero(steps <= 0)[0]) + 1
     raise InputError(f"time {t[i]:g} s does not increase from the row before ({t[i - 1]:g} s)",
                      source=source, line=int(line_no[i]))

@@ -53,6 +53,12 @@ def freq_factor(word: str, *, exact_case: bool = True) -> float:
                          source="--freq-unit") from None
 
 
+def freq_unit_name(word: str, *, exact_case: bool = True) -> str:
+    """The usual spelling of a frequency unit word ('khz' -> 'kHz', 'MHZ' -> 'MHz')."""
+    names = {1e-3: "mHz", 1.0: "Hz", 1e3: "kHz", 1e6: "MHz", 1e9: "GHz"}
+    return names[freq_factor(word, exact_case=exact_case)]
+
+
 def find_freq_unit(text: str) -> str | None:
     """The frequency unit written in ``text`` (a column name or unit cell), or None."""
     m = _FREQ_RE.search(text)
