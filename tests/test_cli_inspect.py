@@ -1,0 +1,108 @@
+"""inspect / convert / demo commands: output forms, exit codes, one-line errors."""
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from benchfit.cli import main
+from benchfit.data import read_canonical_sweep, read_canonical_trace, read_sweep
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_data"
+BUCK = SAMPLES / "buck_plant.csv"
+
+
+def test_inspect_text(capsys):
+    assert main(["inspect", str(BUCK)]) == 0
+    out = capsys.readouterr().out
+    assert "401 points" in out and "semicolon" in out and "Gain (dB) -> mag" in out
+
+
+def test_inspect_json_keys(capsys):
+    assert main(["inspect", str(BUCK), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    for key in ("points", "f_min_hz", "f_max_hz", "columns", "dialect", "warnings"):
+        assert key in d
+    assert d["points"] == 401 and d["f_min_hz"] == pytest.approx(10) and d["f_max_hz"] == pytest.approx(1e6)
+    assert d["dialect"]["decimal"] == "," and d["warnings"] == []
+
+
+def test_inspect_trace_file(capsys):
+    assert main(["inspect", str(SAMPLES / "step_trace.csv"), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["kind"] == "trace" and d["samples"] == 2000 and set(d["channels"]) == {"CH1", "CH2"}
+
+
+def test_inspect_override_flags(tmp_path, capsys):
+    p = tmp_path / "raw.txt"
+    p.write_text("1 2 0.5\n2 1 1.0\n3 0.5 1.5\n")
+    assert main(["inspect", str(p), "--columns", "freq,mag,phase", "--freq-unit", "kHz",
+                 "--mag-db", "--phase-deg", "--quantity", "loop", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["f_min_hz"] == 1000 and d["quantity"] == "loop"
+    assert d["dialect"]["mag_form"] == "db" and d["dialect"]["phase_form"] == "deg"
+
+
+def test_inspect_trace_choice_and_param(capsys):
+    assert main(["inspect", str(SAMPLES / "dialects" / "two_loads.csv"), "--trace", "light", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["dialect"]["trace_label"] == "light"
+    assert main(["inspect", str(SAMPLES / "opamp_buffer.s2p"), "--param", "S11", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["dialect"]["parameter"] == "S11"
+
+
+def test_convert_writes_canonical(tmp_path, capsys):
+    out = tmp_path / "sub" / "plant.csv"
+    assert main(["convert", str(BUCK), "-o", str(out), "--quantity", "plant"]) == 0
+    back = read_canonical_sweep(out)
+    ref = read_sweep(BUCK)
+    np.testing.assert_allclose(back.response, ref.response, rtol=1e-12)
+    assert back.quantity == "plant"
+    assert not list(out.parent.glob(".*.tmp"))  # atomic: no temp file left behind
+    trace_out = tmp_path / "step.csv"
+    assert main(["convert", str(SAMPLES / "step_trace.csv"), "-o", str(trace_out)]) == 0
+    assert read_canonical_trace(trace_out).names == ["CH1", "CH2"]
+
+
+def test_convert_bad_file_writes_nothing(tmp_path, capsys):
+    bad = tmp_path / "bad.csv"
+    bad.write_text("Frequency (Hz),Gain (dB),Phase (deg)\n10,1,0\n20,x,0\n")
+    out = tmp_path / "out.csv"
+    assert main(["convert", str(bad), "-o", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("benchfit: error: ") and "line 3" in err and err.count("\n") == 1
+    assert not out.exists()
+
+
+@pytest.mark.parametrize("args,needle", [
+    (["inspect", "no/such/file.csv"], "file not found"),
+    (["inspect", str(BUCK), "--freq-unit", "furlong"], "--freq-unit"),
+    (["inspect", str(BUCK), "--columns", "freq,colour"], "--columns"),
+    (["inspect", str(BUCK), "--mag-db", "--mag-linear"], "not allowed with"),
+    (["convert", str(BUCK)], "required"),
+])
+def test_errors_are_one_line_exit_2(args, needle):
+    r = subprocess.run([sys.executable, "-m", "benchfit", *args], capture_output=True, text=True)
+    assert r.returncode == 2
+    assert r.stderr.startswith("benchfit: error:") and needle in r.stderr
+    assert r.stderr.count("\n") == 1 and "Traceback" not in r.stderr
+
+
+def test_demo_reads_every_sample(capsys):
+    assert main(["demo", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["failed"] == 0 and d["read"] == len(d["files"]) >= 11
+    names = {f["file"] for f in d["files"]}
+    assert {"buck_plant.csv", "ldo_loop.csv", "opamp_buffer.s2p", "buck_zout.csv", "step_trace.csv",
+            "load_step_trace.csv"} <= names
+
+
+def test_demo_other_folder(tmp_path, capsys):
+    (tmp_path / "x.csv").write_text("freq_hz,re,im\n1,1,0\n2,1,0\n")
+    (tmp_path / "bad.csv").write_text("nothing here\n")
+    assert main(["demo", "--data", str(tmp_path)]) == 1
+    out = capsys.readouterr().out
+    assert "1 of 2 files read" in out
+    assert main(["demo", "--data", str(tmp_path / "none")]) == 2
