@@ -61,6 +61,8 @@ class Faults:
         the error queue (the command still runs).
     error_code
         The SCPI error number injected by ``error_on_header``.
+    error_on_occurrence
+        Inject only on this occurrence (1-based) of the header; None: every time.
     """
 
     timeout_on_query: int | None = None
@@ -69,6 +71,7 @@ class Faults:
     corrupt_block_on_query: int | None = None
     error_on_header: str | None = None
     error_code: int = -222
+    error_on_occurrence: int | None = None
 
 
 class ScpiDevice:
@@ -96,6 +99,7 @@ class ScpiDevice:
         self.replies: deque[tuple[float, bytes]] = deque()
         self.busy_until = 0.0
         self.queries = 0
+        self.fault_hits = 0
         self.dropped = False
         self.log: list[str] = []          # every unit received, for tests
         self.encoding = "ascii"
@@ -151,8 +155,11 @@ class ScpiDevice:
                 hold = f.late_reply_s
                 if hold is None:
                     hold = float("inf")
-        if self.faults.error_on_header and header_matches(msg.header, self.faults.error_on_header):
-            self.push_error(self.faults.error_code, "injected fault")
+        f = self.faults
+        if f.error_on_header and header_matches(msg.header, f.error_on_header):
+            self.fault_hits += 1
+            if f.error_on_occurrence in (None, self.fault_hits):
+                self.push_error(f.error_code, "injected fault")
         for pattern, is_query, handler in self._commands():
             if is_query == msg.query and header_matches(msg.header, pattern):
                 n_before = len(self.replies)
