@@ -23,6 +23,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from benchfit.batch.limits import Limits, judge
 from benchfit.batch.table import PARAM_PREFIX
 from benchfit.errors import BenchfitError, InputError
@@ -272,7 +274,10 @@ def run_task(path: str | os.PathLike, settings: TaskSettings) -> dict[str, Any]:
     row: dict[str, Any] = {"file": path, "unit": unit_id(path)}
     warnings: list[str] = []
     try:
-        _measure(path, settings, row, warnings)
+        # Floating-point overflow inside a poor fit is reported through the fit's own
+        # warnings and figures; numpy's messages would only scramble the progress line.
+        with np.errstate(all="ignore"):
+            _measure(path, settings, row, warnings)
         status, reasons = judge(row, settings.limits)
         row.update(status=status, reason="; ".join(reasons))
     except BenchfitError as e:
