@@ -100,3 +100,16 @@ def test_bad_tolerance_raises():
         monte_carlo(FLAT, integrator(), None, Targets(), r_tol=1.5, c_tol=0.1, draws=10)
     with pytest.raises(InputError, match="draws"):
         monte_carlo(FLAT, integrator(), None, Targets(), r_tol=0.1, c_tol=0.1, draws=0)
+
+
+def test_draw_arrays_agree_with_percentiles():
+    from benchfit.loop.tolerance import draw_margins
+
+    args = dict(r_tol=0.05, c_tol=0.1, draws=400, seed=11)
+    lp = LoopPlant(buck_plant(), band_hz=(10, 1e6))
+    net = synthesize("type3", lp, Targets(20e3, 50, 10)).network
+    d = draw_margins(lp, net, None, Targets(20e3, 50, 10), **args)
+    s = monte_carlo(lp, net, None, Targets(20e3, 50, 10), **args)
+    assert d["pm_deg"].shape == (400,)
+    assert np.median(d["pm_deg"]) == pytest.approx(s.percentiles["pm_deg"]["p50"], abs=0.2)
+    assert d["passed"].mean() == s.yield_fraction

@@ -127,6 +127,9 @@ class Network:
             return g
         a = opamp.gain(alg)
         b = alg.backend
+        if b is VALUES:  # sampled values: the formula as written
+            gv = g.value()
+            return Frac(gv / (1.0 + (1.0 + gv) / a.value()), None, b)
         # N/D = Zf/Zi, A = na/da  ->  C = N·na / (D·na + (D + N)·da): no common factors.
         num = b.mul(g.num, a.num)
         den = b.add(b.mul(g.den, a.num), b.mul(b.add(g.den, g.num), a.den))

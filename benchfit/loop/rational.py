@@ -49,15 +49,19 @@ class Frac:
 
     def __mul__(self, o: Frac) -> Frac:
         b = self.backend
+        if b is VALUES:
+            return Frac(self.value() * o.value(), None, b)
         return Frac(b.mul(self.num, o.num), b.mul(self.den, o.den), b)
 
     def __truediv__(self, o: Frac) -> Frac:
         b = self.backend
+        if b is VALUES:
+            return Frac(self.value() / o.value(), None, b)
         return Frac(b.mul(self.num, o.den), b.mul(self.den, o.num), b)
 
     def value(self) -> Any:
-        """The sampled value (VALUES backend only)."""
-        return self.num / self.den
+        """The sampled value (VALUES backend only; ``den`` None means 1)."""
+        return self.num if self.den is None else self.num / self.den
 
 
 class Algebra:
@@ -82,7 +86,7 @@ class Algebra:
     def const(self, value: Any) -> Frac:
         if self.backend is POLY:
             return Frac(np.array([float(value)]), np.array([1.0]), POLY)
-        return Frac(value, 1.0, VALUES)
+        return Frac(value, None, VALUES)  # values are kept collapsed: den None = 1
 
     def resistor(self, r: Any) -> Frac:
         """Impedance of a resistor r (ohm)."""
@@ -92,7 +96,10 @@ class Algebra:
         """Impedance 1/(sC) of a capacitor c (F)."""
         if self.backend is POLY:
             return Frac(np.array([1.0]), np.array([self.w0 * float(c), 0.0]), POLY)
-        return Frac(1.0, self.s * c, VALUES)
+        s = np.asarray(self.s)
+        if not np.any(s.real):  # on the jω axis: 1/(jωC) = −j/(ωC), a cheaper real division
+            return Frac(-1j / (s.imag * c), None, VALUES)
+        return Frac(1.0 / (s * c), None, VALUES)
 
     def pole(self, w: float) -> Frac:
         """1/(1 + s/w): a real pole at -w rad/s with unity DC gain (w = inf: 1)."""
@@ -100,16 +107,21 @@ class Algebra:
             return self.const(1.0)
         if self.backend is POLY:
             return Frac(np.array([1.0]), np.array([self.w0 / w, 1.0]), POLY)
-        return Frac(1.0, 1.0 + self.s / w, VALUES)
+        return Frac(1.0 / (1.0 + self.s / w), None, VALUES)
 
     def series(self, a: Frac, b: Frac) -> Frac:
         """a + b."""
         bk = self.backend
+        if bk is VALUES:
+            return Frac(a.value() + b.value(), None, bk)
         return Frac(bk.add(bk.mul(a.num, b.den), bk.mul(b.num, a.den)), bk.mul(a.den, b.den), bk)
 
     def parallel(self, a: Frac, b: Frac) -> Frac:
         """a·b/(a + b), written so no common factor appears."""
         bk = self.backend
+        if bk is VALUES:
+            av, bv = a.value(), b.value()
+            return Frac(av * bv / (av + bv), None, bk)
         return Frac(bk.mul(a.num, b.num), bk.add(bk.mul(a.num, b.den), bk.mul(b.num, a.den)), bk)
 
 

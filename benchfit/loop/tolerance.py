@@ -104,46 +104,27 @@ def _check_tol(v: float, what: str) -> float:
     return v
 
 
-def monte_carlo(corners: LoopPlant | Sequence[LoopPlant], network: Network,
-                opamp: OpAmp | None, targets: Targets, *, r_tol: float, c_tol: float,
-                draws: int = 10_000, seed: int | None = None,
-                plant_uncertainty: bool = True, freq_hz: np.ndarray | None = None) -> Spread:
-    """Spread of phase margin, gain margin and crossover over random parts (and plants).
+def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
+                 opamp: OpAmp | None, targets: Targets, *, r_tol: float, c_tol: float,
+                 draws: int = 10_000, seed: int | None = None, plant_uncertainty: bool = True,
+                 freq_hz: np.ndarray | None = None) -> dict[str, Any]:
+    """The margins of every draw (worst corner of each): the arrays behind :func:`monte_carlo`.
 
-    Parameters
-    ----------
-    corners
-        Plant(s) with sensing; a corner with ``draws`` set contributes its
-        fit uncertainty when ``plant_uncertainty`` is true.
-    network
-        Nominal part values.
-    opamp
-        Finite op-amp (its parameters are not varied), or None.
-    targets
-        Margin minimums for the yield.
-    r_tol, c_tol
-        Resistor and capacitor tolerance, fractions (0.01 = 1 %).
-    draws
-        Number of draws (>= 1).
-    seed
-        Seed for numpy's default generator; the same seed gives the same result.
-    plant_uncertainty
-        Draw plant responses from the fits' covariances where available.
-    freq_hz
-        Evaluation grid; by default three decades either side of the
-        network's corners (and to 10× the op-amp GBW), 40 points per decade,
-        or a measured plant's own frequencies.
+    Parameters are those of :func:`monte_carlo`.
 
     Returns
     -------
-    Spread
+    dict
+        ``pm_deg``, ``gm_db``, ``crossover_hz`` (shape (draws,); PM −inf where
+        the band never reaches the crossover), ``stable`` and ``passed``
+        (bool arrays), and ``plant_uncertainty`` (True when some plant was drawn).
     """
     from benchfit.loop.margins import margins_batch
 
     corners = [corners] if isinstance(corners, LoopPlant) else list(corners)
     r_tol = _check_tol(r_tol, "resistor")
     c_tol = _check_tol(c_tol, "capacitor")
-    if int(draws) != draws or draws < 1:
+    if isinstance(draws, bool) or int(draws) != draws or draws < 1:
         raise InputError(f"draws {draws!r}; expected a whole number >= 1", source="--draws")
     draws = int(draws)
     rng = np.random.default_rng(seed)
@@ -179,17 +160,60 @@ def monte_carlo(corners: LoopPlant | Sequence[LoopPlant], network: Network,
             pm_w[a:b] = np.minimum(pm_w[a:b], pm)
             gm_w[a:b] = np.minimum(gm_w[a:b], np.asarray(out["gm_db"], dtype=float))
             unstable[a:b] |= ~stable
+    passed = ~unstable & (pm_w >= targets.phase_margin_deg - 0.1) \
+        & (gm_w >= targets.gain_margin_db - 0.1)
+    return {"pm_deg": pm_w, "gm_db": gm_w, "crossover_hz": fc_w, "stable": ~unstable,
+            "passed": passed, "plant_uncertainty": used_plant, "r_tol": r_tol, "c_tol": c_tol,
+            "draws": draws}
 
-    ok = ~unstable & (pm_w >= targets.phase_margin_deg - 0.1) & (gm_w >= targets.gain_margin_db - 0.1)
+
+def monte_carlo(corners: LoopPlant | Sequence[LoopPlant], network: Network,
+                opamp: OpAmp | None, targets: Targets, *, r_tol: float, c_tol: float,
+                draws: int = 10_000, seed: int | None = None,
+                plant_uncertainty: bool = True, freq_hz: np.ndarray | None = None) -> Spread:
+    """Spread of phase margin, gain margin and crossover over random parts (and plants).
+
+    Parameters
+    ----------
+    corners
+        Plant(s) with sensing; a corner with ``draws`` set contributes its
+        fit uncertainty when ``plant_uncertainty`` is true.
+    network
+        Nominal part values.
+    opamp
+        Finite op-amp (its parameters are not varied), or None.
+    targets
+        Margin minimums for the yield.
+    r_tol, c_tol
+        Resistor and capacitor tolerance, fractions (0.01 = 1 %).
+    draws
+        Number of draws (>= 1).
+    seed
+        Seed for numpy's default generator; the same seed gives the same result.
+    plant_uncertainty
+        Draw plant responses from the fits' covariances where available.
+    freq_hz
+        Evaluation grid; by default three decades either side of the
+        network's corners (and to 10× the op-amp GBW), 40 points per decade,
+        or a measured plant's own frequencies.
+
+    Returns
+    -------
+    Spread
+    """
+    d = draw_margins(corners, network, opamp, targets, r_tol=r_tol, c_tol=c_tol, draws=draws,
+                     seed=seed, plant_uncertainty=plant_uncertainty, freq_hz=freq_hz)
     pcs: dict[str, dict[str, float]] = {}
-    for key, arr in (("pm_deg", pm_w), ("gm_db", gm_w), ("crossover_hz", fc_w)):
+    for key in ("pm_deg", "gm_db", "crossover_hz"):
+        arr = d[key]
         # inf GM (no phase crossing) stays inf in the upper percentiles, as it should
         vals = np.percentile(np.where(np.isnan(arr), -np.inf, arr), PERCENTILES,
                              method="inverted_cdf")
         pcs[key] = {f"p{p}": float(v) for p, v in zip(PERCENTILES, vals, strict=True)}
-    return Spread(draws=draws, seed=seed, r_tol=r_tol, c_tol=c_tol, plant_uncertainty=used_plant,
-                  percentiles=pcs, yield_fraction=float(ok.mean()),
-                  unstable_fraction=float(unstable.mean()))
+    return Spread(draws=d["draws"], seed=seed, r_tol=d["r_tol"], c_tol=d["c_tol"],
+                  plant_uncertainty=d["plant_uncertainty"], percentiles=pcs,
+                  yield_fraction=float(d["passed"].mean()),
+                  unstable_fraction=float(1.0 - d["stable"].mean()))
 
 
 def _grid(lp: LoopPlant, network: Network, opamp: OpAmp | None) -> np.ndarray:
