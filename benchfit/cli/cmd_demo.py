@@ -1,14 +1,23 @@
-"""``benchfit demo``: run benchfit on its sample data (first stage: read every sample file)."""
+"""``benchfit demo``: read every sample file, then take the sample scenario through the whole job.
+
+Stage 1 reads each file in the sample-data folder and says what the reader
+understood; stage 2 (:func:`benchfit.output.demo.run_demo`) fits the buck
+plant, designs a Type III network, spreads it over tolerances, predicts the
+step and output impedance, reads the present board's step, and writes the
+design, the fits, curves, a SPICE model and the HTML report into ``--out``.
+"""
 
 from __future__ import annotations
 
 import argparse
+import sys
 from pathlib import Path
 
 import benchfit
 from benchfit.cli.common import add_json_flag, emit
 from benchfit.data.summary import read_any, summary
 from benchfit.errors import InputError
+from benchfit.output.demo import DemoScenario, run_demo
 
 DATA_SUFFIXES = (".csv", ".tsv", ".txt", ".dat") + tuple(f".s{n}p" for n in range(1, 5))
 
@@ -42,10 +51,7 @@ def _row(rel: str, s: dict) -> str:
     return f"{rel:<42} {s['kind']:<6} {size}  {span:<24} {how}{warn}"
 
 
-def run(args: argparse.Namespace) -> int:
-    folder = Path(args.data) if args.data else default_data_dir()
-    if not folder.is_dir():
-        raise InputError(f"no sample-data folder at {folder}; give one with --data DIR", source="--data")
+def _read_all(folder: Path) -> tuple[list[str], list[dict], int]:
     files = sample_files(folder)
     if not files:
         raise InputError(f"no data files in {folder}", source="--data")
@@ -61,17 +67,49 @@ def run(args: argparse.Namespace) -> int:
             s = {"file": rel, "error": str(e)}
             rows.append(f"{rel:<42} error  {e}")
         results.append(s)
-    text = [f"Reading the sample data in {folder}", "", *rows, "",
-            f"{len(files) - failed} of {len(files)} files read."]
-    emit(args, {"data_dir": str(folder), "files": results, "read": len(files) - failed,
-                "failed": failed}, "\n".join(text))
-    return 1 if failed else 0
+    return rows, results, failed
+
+
+def run(args: argparse.Namespace) -> int:
+    folder = Path(args.data) if args.data else default_data_dir()
+    if not folder.is_dir():
+        raise InputError(f"no sample-data folder at {folder}; give one with --data DIR", source="--data")
+    rows, results, failed = _read_all(folder)
+    n = len(results)
+    data = {"data_dir": str(folder), "files": results, "read": n - failed, "failed": failed}
+    text = [f"Reading the sample data in {folder}", "", *rows, "", f"{n - failed} of {n} files read."]
+    if failed or args.read_only:
+        emit(args, data, "\n".join(text))
+        return 1 if failed else 0
+    quiet = args.json
+    if not quiet:
+        sys.stdout.write("\n".join(text) + "\n\nThe whole job on the buck scenario\n\n")
+        sys.stdout.flush()
+
+    def log(line: str) -> None:
+        if not quiet:
+            sys.stdout.write(line.rstrip("\n") + "\n")
+            sys.stdout.flush()
+
+    result = run_demo(folder, args.out, scenario=DemoScenario(), pdf=args.pdf, log=log)
+    data["job"] = result.to_dict()
+    report = Path(result.files["report"]).resolve()
+    emit(args, data, f"\nwrote {len(result.files)} files into {result.out_dir}/ in {result.seconds:.1f} s\n"
+                     f"open the report: {report}")
+    return 0
 
 
 def register(subparsers) -> None:
-    p = subparsers.add_parser("demo", help="run benchfit on its sample data",
-                              description="Read every sample file and summarise what benchfit "
-                                          "understood of each.")
+    p = subparsers.add_parser(
+        "demo", help="run the whole job on the sample data (no hardware, no network)",
+        description="Read every sample file, then fit the sample buck plant, design a Type III network "
+                    "for a 20 kHz crossover, snap the parts, spread them over tolerances, predict the "
+                    "step and output impedance, read the present board's step, and write the design "
+                    "and an HTML report into the output folder.")
     p.add_argument("--data", metavar="DIR", help="sample-data folder (default: sample_data/ of the repo)")
+    p.add_argument("--out", default="benchfit-out", metavar="DIR",
+                   help="output folder (default ./benchfit-out/)")
+    p.add_argument("--pdf", action="store_true", help="also write the report as PDF")
+    p.add_argument("--read-only", action="store_true", help="only read and list the sample files")
     add_json_flag(p)
     p.set_defaults(func=run)

@@ -92,8 +92,8 @@ def spread_histograms(pm_deg: Sequence[float], crossover_hz: Sequence[float],
 
 @styled
 def step_response(step: Curve | None = None, load_step: Curve | None = None, *,
-                  measured: Curve | None = None, step_spread: tuple[Curve, Curve] | None = None,
-                  title: str | None = None) -> Figure:
+                  measured: Curve | None = None, measured_load: Curve | None = None,
+                  step_spread: tuple[Curve, Curve] | None = None, title: str | None = None) -> Figure:
     """Predicted reference step and load step, with a measured trace overlaid.
 
     Parameters
@@ -103,9 +103,9 @@ def step_response(step: Curve | None = None, load_step: Curve | None = None, *,
         as in the curve, e.g. V or 1 for a normalised step).
     load_step
         Predicted output deviation for a load-current step (V).
-    measured
-        A measured trace already brought to the step's scale and time origin,
-        drawn over ``step``.
+    measured, measured_load
+        Measured traces already brought to the prediction's time origin and
+        level, drawn over ``step`` and ``load_step``.
     step_spread
         Lower and upper envelope of the step over tolerance draws (shaded).
 
@@ -126,13 +126,17 @@ def step_response(step: Curve | None = None, load_step: Curve | None = None, *,
             lo, hi = step_spread
             ax.fill_between(lo.x * factor, lo.y, hi.y, color=style.SPREAD, alpha=0.35, lw=0,
                             label="spread over tolerances")
-        if name == "step" and measured is not None:
-            ax.plot(measured.x * factor, measured.y, "-", color=style.MEASURED, lw=1.0, alpha=0.85,
-                    label=measured.name or "measured")
+        meas = measured if name == "step" else measured_load
+        lo = float(c.x[0])
+        if meas is not None:
+            keep = (meas.x >= -0.1 * t_max) & (meas.x <= t_max)
+            ax.plot(meas.x[keep] * factor, meas.y[keep], "-", color=style.MEASURED, lw=1.0, alpha=0.8,
+                    label=meas.name or "measured")
+            lo = -0.1 * t_max
         color = style.MODEL if name == "step" else style.SECOND
         ax.plot(c.x * factor, c.y, "-", color=color, lw=2.0, label=c.name or f"predicted {name}")
         ax.axhline(0.0, color="#777777", lw=0.8)
-        ax.set_xlim(min(0.0, float(c.x[0]) * factor), t_max * factor)
+        ax.set_xlim(min(0.0, lo) * factor, t_max * factor)
         ax.set_ylabel(f"{'Output' if name == 'step' else 'Output deviation'} ({_unit_text(c.unit)})")
         ax.set_xlabel(f"Time ({unit})")
         ax.legend(loc="best", fontsize=8.5)

@@ -1,0 +1,42 @@
+"""`benchfit predict`: one predicted curve of a design as CSV."""
+
+from __future__ import annotations
+
+import argparse
+
+from benchfit.cli.common import add_json_flag, emit, parse_si
+from benchfit.loop.design import Design
+from benchfit.output.curves import write_curve_csv
+from benchfit.output.predicted import CURVE_NAMES, WHICH, design_curve, read_model_or_sweep
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "predict", help="write a predicted curve of a design (loop, closed, step, zout, load step) as CSV",
+        description="Predict one curve of a design's loop with its snapped (or ideal) parts and write "
+                    "it as CSV: frequency curves as freq_hz,re,im,magnitude,mag_db,phase_deg; time "
+                    "curves as time_s,value.")
+    p.add_argument("design", metavar="DESIGN_JSON", help="design file written by 'benchfit design'")
+    p.add_argument("--curve", required=True, choices=CURVE_NAMES, help="which curve")
+    p.add_argument("-o", "--output", required=True, metavar="CSV", help="file to write")
+    p.add_argument("--parts", default="snapped", choices=WHICH, help="snapped (default) or ideal parts")
+    p.add_argument("--zout", metavar="FILE",
+                   help="open-loop output impedance: sweep, or model JSON (a model is needed for load_step)")
+    p.add_argument("--step", default="1", metavar="VOLTS", help="reference step at the reference input (1 V)")
+    p.add_argument("--load-step", default="1", metavar="AMPS", help="load-current step (1 A)")
+    add_json_flag(p)
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    design = Design.from_json(args.design)
+    z_open = read_model_or_sweep(args.zout) if args.zout else None
+    curve = design_curve(design, args.curve, which=args.parts, z_open=z_open,
+                         reference_step_v=parse_si(args.step, "--step"),
+                         load_step_a=parse_si(args.load_step, "--load-step"))
+    path = write_curve_csv(curve, args.output)
+    axis = "Hz" if curve.is_frequency else "s"
+    emit(args, {"output": str(path), "curve": args.curve, "name": curve.name, "points": int(curve.x.size),
+                "x_name": curve.x_name, "x_min": float(curve.x[0]), "x_max": float(curve.x[-1])},
+         f"wrote {path}: {curve.name}, {curve.x.size} points, {curve.x[0]:.4g}..{curve.x[-1]:.4g} {axis}")
+    return 0

@@ -1,0 +1,115 @@
+"""The pictures of a report, built from its inputs in reading order."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from matplotlib.figure import Figure
+
+from benchfit.data.response import FrequencyResponse
+from benchfit.output import plots
+from benchfit.output.report_inputs import ReportInputs
+from benchfit.output.spread_draws import SpreadDraws, spread_draws
+
+
+@dataclass(frozen=True, eq=False)
+class ReportFigure:
+    """One picture of the report: where it goes, its caption, and the figure."""
+
+    key: str
+    section: str
+    caption: str
+    figure: Figure
+
+
+def achieved_crossover_hz(inputs: ReportInputs) -> float:
+    """Crossover of the snapped design on the worst corner, Hz."""
+    return float(inputs.design.snapped.worst_margins().crossover_hz)
+
+
+def target_crossover_hz(inputs: ReportInputs) -> float | None:
+    d = inputs.design
+    if d.targets.crossover_hz:
+        return float(d.targets.crossover_hz)
+    return float(d.synthesis.crossover_hz) if d.synthesis is not None else None
+
+
+def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None,
+                   spread_n: int | None = 500) -> list[ReportFigure]:
+    """Every picture the inputs allow, in the order the report shows them.
+
+    Parameters
+    ----------
+    inputs
+        The report's inputs.
+    draws
+        Per-draw margins for the spread histograms (computed when None and
+        the design has a spread).
+    spread_n
+        Number of draws to repeat when computing them (500: enough for the
+        shape of a histogram; None for the design's own count up to 1000).
+    """
+    d = inputs.design
+    out: list[ReportFigure] = []
+    plant = d.corners[0].plant
+    if inputs.sweep is not None and (inputs.fit is not None or not isinstance(plant, FrequencyResponse)):
+        fit = inputs.fit if inputs.fit is not None else plant
+        out.append(ReportFigure(
+            "fit", "fit", "Measured plant (points) against the fitted model (line); the small panel is "
+            "the residual, measured/model, in dB and degrees. × marks fitted poles and ○ zeros at "
+            "|root|/2π; a red mark is a right-half-plane root.",
+            plots.bode_fit(inputs.sweep, fit)))
+    fc_t, fc_a = target_crossover_hz(inputs), achieved_crossover_hz(inputs)
+    band = (d.corners[0].band_hz if d.corners[0].band_hz else None)
+    out.append(ReportFigure(
+        "crossing", "design", "Plant gain |P·H| (plant times sensing) against 1/beta = 1/|C| of the "
+        "compensator: the loop crosses over where they meet. The rate of closure written at the "
+        "crossing is the difference of their slopes there.",
+        plots.crossing_view(d.corners[0].response, d.snapped.compensator, target_crossover_hz=fc_t,
+                            achieved_crossover_hz=fc_a if math.isfinite(fc_a) else None,
+                            band_hz=band, reference_compensator=d.ideal.compensator)))
+    w = d.snapped.worst
+    loop, margins = d.snapped.loops[min(w, len(d.snapped.loops) - 1)], d.snapped.worst_margins()
+    ref = d.ideal.loops[0] if d.ideal.network.parts != d.snapped.network.parts else None
+    corner = f" on the worst corner ({d.corners[w].name})" if len(d.corners) > 1 else ""
+    out.append(ReportFigure(
+        "loop", "margins", f"Loop gain T = plant · sensing · compensator with snapped parts{corner}. "
+        "The phase margin is read at the gain crossover (○), the gain margin at the phase "
+        "crossing (◇); dashed: ideal parts.",
+        plots.loop_gain(loop, margins, reference=ref)))
+    out.append(ReportFigure(
+        "nyquist", "margins", "Nyquist plot near −1. The dashed circle around −1 has the modulus "
+        "margin as radius: the smallest distance from the loop to −1.",
+        plots.nyquist(loop, margins)))
+    if d.spread is not None:
+        if draws is None:
+            fit_draws = inputs.fit.draw_responses if inputs.fit is not None else None
+            draws = spread_draws(d, spread_n, plant_draws=fit_draws)
+        if draws is not None:
+            out.append(ReportFigure(
+                "spread", "margins", f"Margins over {draws.pm_deg.size} Monte Carlo draws of the snapped "
+                f"parts (R ±{d.spread.r_tol * 100:g} %, C ±{d.spread.c_tol * 100:g} %"
+                + (", plant parameters from the fit's covariance" if d.spread.plant_uncertainty
+                   and inputs.fit is not None else "")
+                + "), worst corner of each draw. The yield is the share of draws meeting every target "
+                "with a stable loop; the table above quotes the design's own draws.",
+                plots.spread_histograms(draws.pm_deg, draws.crossover_hz, draws.gm_db,
+                                        pm_min_deg=d.targets.phase_margin_deg, crossover_target_hz=fc_t,
+                                        gm_min_db=d.targets.gain_margin_db,
+                                        yield_fraction=draws.yield_fraction)))
+    step, load = inputs.curve("step"), inputs.curve("load_step")
+    if step is not None or load is not None:
+        out.append(ReportFigure(
+            "step", "time", "Predicted response to a reference step and to a load step (snapped "
+            "parts, delay simulated exactly)"
+            + ("; black: the measured traces, aligned at their step instant and initial level"
+               if inputs.curve("step_measured") or inputs.curve("load_measured") else "") + ".",
+            plots.step_response(step, load, measured=inputs.curve("step_measured"),
+                                measured_load=inputs.curve("load_measured"))))
+    zo, zc = inputs.curve("zout_open"), inputs.curve("zout_closed")
+    if zo is not None and zc is not None:
+        out.append(ReportFigure(
+            "zout", "time", "Output impedance: open loop and closed loop, Zcl = Zol / (1 + T).",
+            plots.output_impedance(zo, zc)))
+    return out
