@@ -272,7 +272,7 @@ def _best_second_order(t, y, keep, sigma, m):
 def _third_order(t, y, keep, sigma, so):
     base = so.params.valuesdict()
     best = None
-    for ratio in (1.5, 4.0, 15.0):
+    for ratio in (2.0, 8.0):  # the real pole near the pair, or well above it
         s = dict(base)
         s["fp_hz"] = ratio * base["fn_hz"]
         r = _run(_to, s, t, y, keep, sigma)

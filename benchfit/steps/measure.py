@@ -246,6 +246,11 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
             f"(ends at {t[-1]:.6g} s); expected a settled flat part after the step, several rise "
             "times long (capture a longer record or move the trigger earlier)", source=source)
     tail = ys[-k_tail:]
+    if np.ptp(tail) > 0.1 * abs(step):  # still swinging: there is no final level to measure against
+        raise InputError(
+            f"channel {name!r}: the output still swings by {100 * np.ptp(tail) / abs(step):.3g} % of the "
+            f"step in the last 10 % of the record: the step at t = {t_s:.6g} s is too close to the end "
+            "of the record (capture a longer record or move the trigger earlier)", source=source)
     if np.ptp(tail) > max(2.0 * band * abs(step), 8.0 * rel_noise * abs(step)):
         warnings.append("the output still moves in the last 10 % of the record; the final level "
                         "(and everything relative to it) is uncertain")
