@@ -35,8 +35,7 @@ def target_crossover_hz(inputs: ReportInputs) -> float | None:
     return float(d.synthesis.crossover_hz) if d.synthesis is not None else None
 
 
-def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None,
-                   spread_n: int | None = 500) -> list[ReportFigure]:
+def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None) -> list[ReportFigure]:
     """Every picture the inputs allow, in the order the report shows them.
 
     Parameters
@@ -44,11 +43,8 @@ def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None,
     inputs
         The report's inputs.
     draws
-        Per-draw margins for the spread histograms (computed when None and
-        the design has a spread).
-    spread_n
-        Number of draws to repeat when computing them (500: enough for the
-        shape of a histogram; None for the design's own count up to 1000).
+        Per-draw margins for the spread histograms (drawn again with the
+        design's seed when None and the design has a spread).
     """
     d = inputs.design
     out: list[ReportFigure] = []
@@ -85,15 +81,17 @@ def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None,
     if d.spread is not None:
         if draws is None:
             fit_draws = inputs.fit.draw_responses if inputs.fit is not None else None
-            draws = spread_draws(d, spread_n, plant_draws=fit_draws)
+            draws = spread_draws(d, plant_draws=fit_draws)
         if draws is not None:
+            same = draws.plant_uncertainty == d.spread.plant_uncertainty and draws.seed is not None
             out.append(ReportFigure(
                 "spread", "margins", f"Margins over {draws.pm_deg.size} Monte Carlo draws of the snapped "
                 f"parts (R ±{d.spread.r_tol * 100:g} %, C ±{d.spread.c_tol * 100:g} %"
-                + (", plant parameters from the fit's covariance" if d.spread.plant_uncertainty
-                   and inputs.fit is not None else "")
+                + (", plant parameters from the fit's covariance" if draws.plant_uncertainty else "")
                 + "), worst corner of each draw. The yield is the share of draws meeting every target "
-                "with a stable loop; the table above quotes the design's own draws.",
+                "with a stable loop. " + ("These are the draws the table above was computed from."
+                                          if same else "Fresh draws: the table above quotes the "
+                                          "design's own (the plant fit was not given, or no seed)."),
                 plots.spread_histograms(draws.pm_deg, draws.crossover_hz, draws.gm_db,
                                         pm_min_deg=d.targets.phase_margin_deg, crossover_target_hz=fc_t,
                                         gm_min_db=d.targets.gain_margin_db,

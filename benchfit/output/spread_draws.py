@@ -2,21 +2,22 @@
 
 A design keeps only the percentiles and the yield of its Monte Carlo
 (:class:`benchfit.loop.tolerance.Spread`).  A histogram needs the draws
-themselves, so this module repeats the same Monte Carlo one draw at a time
-through :func:`benchfit.loop.tolerance.monte_carlo`: with one draw, each
-percentile is that draw's value and the yield is 1 or 0 (it met every target
-or not), so the histogram uses exactly the tolerance model and the pass rule
-of the design, on fresh random draws.
+themselves, so they are drawn again with
+:func:`benchfit.loop.tolerance.draw_margins`, the function behind the
+design's own Monte Carlo, with the design's seed, count and tolerances.
+With the plant's fit attached (its parameter covariance) the draws are the
+very ones the design's percentiles and yield were computed from.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 
 from benchfit.loop.design import Design
-from benchfit.loop.tolerance import monte_carlo
+from benchfit.loop.tolerance import draw_margins
 
 
 @dataclass(frozen=True, eq=False)
@@ -31,38 +32,37 @@ class SpreadDraws:
         True where the draw met every target with a stable loop.
     seed
         Seed of the draws.
+    plant_uncertainty
+        True when plant responses were drawn from a fit's covariance.
     """
 
     pm_deg: np.ndarray
     gm_db: np.ndarray
     crossover_hz: np.ndarray
     passed: np.ndarray
-    seed: int
+    seed: int | None
+    plant_uncertainty: bool
 
     @property
     def yield_fraction(self) -> float:
         return float(np.mean(self.passed)) if self.passed.size else float("nan")
 
-    def to_dict(self) -> dict:
+    def to_dict(self) -> dict[str, Any]:
         return {"kind": "spread_draws", "pm_deg": self.pm_deg.tolist(), "gm_db": self.gm_db.tolist(),
                 "crossover_hz": self.crossover_hz.tolist(), "passed": self.passed.tolist(),
-                "seed": self.seed}
+                "seed": self.seed, "plant_uncertainty": self.plant_uncertainty}
 
 
-def spread_draws(design: Design, n: int | None = None, seed: int = 0, plant_draws=None) -> SpreadDraws | None:
-    """Repeat the design's Monte Carlo draw by draw.
+def spread_draws(design: Design, plant_draws=None) -> SpreadDraws | None:
+    """Draw the design's Monte Carlo again, keeping every draw.
 
     Parameters
     ----------
     design
         A design with a spread (None is returned when it has none).
-    n
-        Number of draws (default: the design's own count, at most 1000).
-    seed
-        Seed of the sequence the per-draw seeds are spawned from.
     plant_draws
-        ``draw_responses`` of the plant's fit, to include plant uncertainty as
-        the design did (a design read from JSON no longer holds it).
+        ``draw_responses`` of the plant's fit, to include the plant uncertainty
+        as the design did (a design read back from JSON no longer holds it).
 
     Returns
     -------
@@ -71,17 +71,12 @@ def spread_draws(design: Design, n: int | None = None, seed: int = 0, plant_draw
     sp = design.spread
     if sp is None:
         return None
-    n = int(n if n is not None else min(sp.draws, 1000))
     corners = list(design.corners)
     if plant_draws is not None and sp.plant_uncertainty:
         corners[0] = replace(corners[0], draws=plant_draws)
-    seeds = np.random.SeedSequence(seed).generate_state(n)
-    pm, gm, fc, ok = (np.empty(n) for _ in range(4))
-    for i, s in enumerate(seeds):
-        one = monte_carlo(corners, design.snapped.network, design.opamp, design.targets,
-                          r_tol=sp.r_tol, c_tol=sp.c_tol, draws=1, seed=int(s),
-                          plant_uncertainty=sp.plant_uncertainty)
-        pc = one.percentiles
-        pm[i], gm[i], fc[i] = pc["pm_deg"]["p50"], pc["gm_db"]["p50"], pc["crossover_hz"]["p50"]
-        ok[i] = one.yield_fraction
-    return SpreadDraws(pm_deg=pm, gm_db=gm, crossover_hz=fc, passed=ok.astype(bool), seed=seed)
+    out = draw_margins(corners, design.snapped.network, design.opamp, design.targets, r_tol=sp.r_tol,
+                       c_tol=sp.c_tol, draws=sp.draws, seed=sp.seed, plant_uncertainty=sp.plant_uncertainty)
+    return SpreadDraws(pm_deg=np.asarray(out["pm_deg"], float), gm_db=np.asarray(out["gm_db"], float),
+                       crossover_hz=np.asarray(out["crossover_hz"], float),
+                       passed=np.asarray(out["passed"], bool), seed=sp.seed,
+                       plant_uncertainty=bool(out["plant_uncertainty"]))
