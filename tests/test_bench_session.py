@@ -94,3 +94,14 @@ def test_dropped_connection_is_a_clear_error(tmp_path, transport):
             s.query("FREQ:STAR?")
         # pyvisa-sim raises at once; pyvisa-py on a closed socket only times out
         assert "connection lost" in str(info.value) or "stopped answering" in str(info.value)
+
+
+def test_socket_resources_send_without_nagle_delay():
+    import socket
+
+    inst = SimulatedAnalyzer(lowpass)
+    with simulated_session(inst, profile(), transport="tcp") as s:
+        sock = s.resource.visalib.sessions[s.resource.session].interface
+        assert sock.getsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY) == 1
+        s.configure("FREQ:STAR 5")
+        assert inst.start_hz == 5.0

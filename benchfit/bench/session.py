@@ -255,4 +255,23 @@ def open_session(resource_name: str, profile: Profile, *, backend: str | None = 
                                timeout=profile.timeout_s * 1000.0)
     except (pyvisa.errors.VisaIOError, ValueError, OSError) as e:
         raise InstrumentError(f"cannot open: {e}", resource=resource_name) from None
+    if resource_name.upper().endswith("::SOCKET"):
+        _no_delay(res)
     return Session(res, profile, name=resource_name)
+
+
+def _no_delay(res: Any) -> None:
+    """Turn off Nagle's algorithm on a raw-socket resource.
+
+    A command followed at once by ``SYSTem:ERRor?`` is two small sends; with
+    Nagle's algorithm the second waits for the first one's (delayed) ACK, tens
+    of ms per command.  pyvisa-py 0.8 does not accept VI_ATTR_TCPIP_NODELAY on
+    SOCKET resources (its setter is not wired), so set the option on its socket.
+    """
+    import socket
+
+    try:
+        sock = res.visalib.sessions[res.session].interface
+        sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+    except (AttributeError, KeyError, OSError, TypeError):
+        pass  # another backend: leave its socket as it is

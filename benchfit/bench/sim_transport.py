@@ -181,6 +181,7 @@ class LoopbackServer:
                         if self.connections > self.max_connections or self.instrument.dropped:
                             conn.close()
                         else:
+                            conn.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
                             clients[conn] = bytearray()
                         continue
                     if s not in clients:
