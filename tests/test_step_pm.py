@@ -4,9 +4,9 @@ import control
 import numpy as np
 import pytest
 
+from benchfit.fitting.model import PlantModel
 from benchfit.steps.fit import fit_step
 from benchfit.steps.models import closed_loop_unit_step
-from benchfit.fitting.model import PlantModel
 from benchfit.steps.pm import (
     RULE_OF_THUMB_NOTE,
     PhaseMarginEstimate,

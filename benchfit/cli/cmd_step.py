@@ -28,8 +28,16 @@ def register(subparsers) -> None:
     g = p.add_argument_group("load step")
     g.add_argument("--load-step", action="store_true", help="the trace is the output after a load step")
     g.add_argument("--current-step", metavar="AMPS", help="load current step, e.g. 2 or 500m (A)")
+    g.add_argument("--current-channel", metavar="NAME",
+                   help="channel of the same trace holding the load current (its step gives the size)")
     g.add_argument("--zout", metavar="FILE", help="closed-loop output impedance to compare with: a sweep "
                                                   "file or JSON (frequency response or model)")
+    r = p.add_argument_group("reading the trace (detected; these override)")
+    r.add_argument("--columns", metavar="LIST", help="column names in order, e.g. time,CH1,CH2 "
+                                                     "(for a file with no header)")
+    r.add_argument("--time-unit", metavar="UNIT", help="time column unit: s, ms, us or ns")
+    r.add_argument("--sample-interval", metavar="DT", help="sample interval when the file has no time "
+                                                           "column (e.g. 1u, 2e-7)")
     p.add_argument("-o", "--output", metavar="JSON", help="write the full result (with curves) here")
     add_json_flag(p)
     p.set_defaults(func=run)
@@ -87,7 +95,10 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"{model!r} unknown; expected second-order, third-order or loop:DESIGN.json",
                          source="--model")
     channel = args.channel
-    trace = read_trace(args.trace)
+    overrides = {"columns": args.columns, "time_unit": args.time_unit,
+                 "sample_interval_s": parse_si(args.sample_interval, "--sample-interval")
+                 if args.sample_interval else None}
+    trace = read_trace(args.trace, **{k: v for k, v in overrides.items() if v is not None})
     if args.load_step:
         if args.model != "second-order" or loop_path:
             raise InputError("--model and --loop apply to reference steps, not --load-step",
@@ -95,11 +106,12 @@ def run(args: argparse.Namespace) -> int:
         current = parse_si(args.current_step, "--current-step") if args.current_step else None
         zout = _read_zout(args.zout) if args.zout else None
         result = analyse_load_step(trace, channel=channel, band=band, band_v=band_v, step_time_s=step_time,
-                                   current_step_a=current, zout=zout,
+                                   current_step_a=current, current_channel=args.current_channel, zout=zout,
                                    zout_label=f"output impedance {args.zout}" if args.zout else "")
     else:
-        if args.current_step or args.zout:
-            raise InputError("--current-step and --zout need --load-step", source="--zout")
+        if args.current_step or args.zout or args.current_channel:
+            raise InputError("--current-step, --current-channel and --zout need --load-step",
+                             source="--zout")
         loop = predicted = None
         label = "loop gain"
         if loop_path:

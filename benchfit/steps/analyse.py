@@ -76,15 +76,21 @@ def analyse_step(data, *, channel: str | int | None = None, model: str = "second
 
 def analyse_load_step(data, *, channel: str | int | None = None, band: float = 0.02,
                       band_v: float | None = None, step_time_s: float | None = None,
-                      current_step_a: float | None = None,
+                      current_step_a: float | None = None, current_channel: str | int | None = None,
                       zout: PlantModel | FrequencyResponse | None = None,
                       zout_label: str = "closed-loop output impedance") -> StepResult:
     """Measure a load-step trace; compare with the output-impedance prediction when given.
 
     The ringing's log decrement gives a ζ and from it a phase-margin estimate
     (the load-step ringing shows the same closed-loop poles as a reference step).
-    ``zout`` needs ``current_step_a``.
+    ``zout`` needs ``current_step_a``, or ``current_channel``: a channel of the
+    same trace holding the load current, whose step (measured like a reference
+    step) gives ΔI.
     """
+    if current_channel is not None:
+        if current_step_a is not None:
+            raise InputError("give the load step size or a current channel, not both", source="--current-step")
+        current_step_a = measure_step(data, channel=current_channel).step_v
     _, _, name, source = trace_arrays(data, channel)
     m = measure_load_step(data, channel=channel, band=band, band_v=band_v, step_time_s=step_time_s,
                           current_step_a=current_step_a)
@@ -107,6 +113,7 @@ def analyse_load_step(data, *, channel: str | int | None = None, band: float = 0
                                             settings={"channel": name, "band": band, "band_v": band_v,
                                                       "step_time_s": step_time_s,
                                                       "current_step_a": current_step_a,
+                                                      "current_channel": current_channel,
                                                       "zout": zout_label if zout is not None else None}))
 
 

@@ -46,6 +46,8 @@ from benchfit.steps.models import (
 )
 
 MODELS = ("second-order", "third-order", "loop")
+#: Most model evaluations one least-squares run may use.
+MAX_EVALUATIONS = 2000
 _UNITS = {"zeta": "", "fn_hz": "Hz", "fp_hz": "Hz", "initial_v": "V", "step_v": "V", "t0_s": "s",
           "loop_gain": "", "pair_fn_hz": "Hz", "pair_zeta": ""}
 
@@ -179,7 +181,8 @@ def _run(fn, start, t, y, keep, sigma):
         return (fn(t, p.valuesdict())[keep] - y[keep]) / sigma
 
     mini = lmfit.Minimizer(resid, params, nan_policy="raise")
-    return mini.leastsq(xtol=1e-10, ftol=1e-10)
+    # A model that cannot describe the trace wanders for thousands of evaluations; cap them.
+    return mini.leastsq(xtol=1e-10, ftol=1e-10, max_nfev=MAX_EVALUATIONS)
 
 
 def _cost(fn, start, t, y, keep):
@@ -241,11 +244,10 @@ def fit_step(data, *, model: str = "second-order", channel: str | int | None = N
     if keep.sum() < 10:
         raise FitError(f"only {int(keep.sum())} usable samples; a step fit needs at least 10")
 
-    so = _best_second_order(t, y, keep, sigma, m)
     if model == "second-order":
-        out, fn, extra = so, _so, {}
+        out, fn, extra = _best_second_order(t, y, keep, sigma, m), _so, {}
     elif model == "third-order":
-        out, fn, extra = _third_order(t, y, keep, sigma, so), _to, {}
+        out, fn, extra = _third_order(t, y, keep, sigma, _best_second_order(t, y, keep, sigma, m)), _to, {}
     else:
         if loop is None:
             raise InputError("the loop model needs a loop gain (a design JSON with a loop model)",
@@ -364,6 +366,9 @@ def _package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source
     rho = float(np.corrcoef(r[:-1], r[1:])[0, 1]) if r.size > 3 and np.std(r) > 0 else 0.0
     infl = math.sqrt((1.0 + rho) / (1.0 - rho)) if 0.0 < rho < 0.99 else (1.0 if rho <= 0 else 10.0)
     warnings = list(warnings) + list(extra.get("notes", ()))
+    if not out.success or out.nfev >= MAX_EVALUATIONS:
+        warnings.append(f"the fit stopped after {out.nfev} evaluations without converging; "
+                        "the model may not describe this trace")
     if not out.errorbars:
         warnings.append("standard errors could not be estimated (singular fit); parameters may be "
                         "poorly determined by this trace")

@@ -240,7 +240,7 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
                         "noise from sample-to-sample differences")
     rel_noise = noise * smoother.gain / abs(step)  # smoothed noise, fraction of the step
     i90 = int(np.searchsorted(t, t90)) if np.isfinite(t90) else n
-    if not np.isfinite(t90) or i90 >= n - k_tail or (t[-1] - t_s) < 3.0 * (t90 - t_s):
+    if not np.isfinite(t90) or i90 >= n - k_tail or (t[-1] - t_s) < 1.5 * (t90 - t_s):
         raise InputError(
             f"channel {name!r}: the step at t = {t_s:.6g} s is too close to the end of the record "
             f"(ends at {t[-1]:.6g} s); expected a settled flat part after the step, several rise "
