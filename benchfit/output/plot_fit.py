@@ -122,7 +122,8 @@ def bode_fit(resp: FrequencyResponse, fit: Any, *, title: str | None = None) -> 
     src = ", ".join(resp.provenance.sources) or "measured response"
     ax_m.set_title(title or f"Fit of {src}")
     stats = getattr(fit, "stats", None) or {}
-    parts = [f"order {model.order}, {len(model.zeros)} zeros"]
+    nz = len(model.zeros)
+    parts = [f"order {model.order}, {nz} zero{'' if nz == 1 else 's'}"]
     if model.delay_s:
         parts.append(f"delay {eng(model.delay_s, 's')}")
     if "rms_db" in stats and "rms_deg" in stats:

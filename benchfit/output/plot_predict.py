@@ -134,7 +134,10 @@ def step_response(step: Curve | None = None, load_step: Curve | None = None, *,
                     label=meas.name or "measured")
             lo = -0.1 * t_max
         color = style.MODEL if name == "step" else style.SECOND
-        ax.plot(c.x * factor, c.y, "-", color=color, lw=2.0, label=c.name or f"predicted {name}")
+        x, y = c.x, c.y
+        if lo < x[0] and x[0] >= 0:  # at rest before the step: draw the baseline (and any jump at 0)
+            x, y = np.concatenate([[lo, x[0]], x]), np.concatenate([[0.0, 0.0], y])
+        ax.plot(x * factor, y, "-", color=color, lw=2.0, label=c.name or f"predicted {name}")
         ax.axhline(0.0, color="#777777", lw=0.8)
         ax.set_xlim(min(0.0, lo) * factor, t_max * factor)
         ax.set_ylabel(f"{'Output' if name == 'step' else 'Output deviation'} ({_unit_text(c.unit)})")
@@ -151,7 +154,7 @@ def _unit_text(unit: str) -> str:
 
 @styled
 def output_impedance(open_loop: Curve, closed_loop: Curve, *, measured: Curve | None = None,
-                     title: str | None = None) -> Figure:
+                     open_is_measured: bool = False, title: str | None = None) -> Figure:
     """|Z| of the output, open loop and closed loop (Zcl = Zol / (1 + T)), against frequency.
 
     Parameters
@@ -160,6 +163,8 @@ def output_impedance(open_loop: Curve, closed_loop: Curve, *, measured: Curve | 
         Impedance curves (complex, ohm) against frequency (Hz).
     measured
         Optional measured open-loop impedance, drawn as points.
+    open_is_measured
+        ``open_loop`` is itself a measured sweep: draw it as points.
 
     Returns
     -------
@@ -172,8 +177,12 @@ def output_impedance(open_loop: Curve, closed_loop: Curve, *, measured: Curve | 
     log_axis(ax, "y")
     if measured is not None:
         ax.plot(measured.x, np.abs(measured.y), ".", color=style.MEASURED, ms=4, label=measured.name or "measured")
-    ax.plot(open_loop.x, np.abs(open_loop.y), "--", color=style.SECOND, lw=2.0,
-            label=open_loop.name or "open loop")
+    if open_is_measured:
+        ax.plot(open_loop.x, np.abs(open_loop.y), ".", color=style.MEASURED, ms=4,
+                label=f"{open_loop.name or 'open loop'}, measured")
+    else:
+        ax.plot(open_loop.x, np.abs(open_loop.y), "--", color=style.SECOND, lw=2.0,
+                label=open_loop.name or "open loop")
     ax.plot(closed_loop.x, np.abs(closed_loop.y), "-", color=style.MODEL, lw=2.0,
             label=closed_loop.name or "closed loop")
     zc = np.abs(closed_loop.y)

@@ -108,6 +108,8 @@ def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None) ->
     zo, zc = inputs.curve("zout_open"), inputs.curve("zout_closed")
     if zo is not None and zc is not None:
         out.append(ReportFigure(
-            "zout", "time", "Output impedance: open loop and closed loop, Zcl = Zol / (1 + T).",
-            plots.output_impedance(zo, zc)))
+            "zout", "time", "Output impedance: open loop"
+            + (" (measured sweep, points)" if inputs.zout is not None else "")
+            + " and predicted closed loop, Zcl = Zol / (1 + T).",
+            plots.output_impedance(zo, zc, open_is_measured=inputs.zout is not None)))
     return out

@@ -149,7 +149,10 @@ def styled(func: F) -> F:
 
 def new_figure(width_in: float = 8.0, height_in: float = 5.5) -> Figure:
     """A white figure with constrained layout, detached from pyplot."""
-    return Figure(figsize=(width_in, height_in), layout="constrained")
+    fig = Figure(figsize=(width_in, height_in), layout="constrained")
+    # room for a tick label centred on the last decade (e.g. "1M" at the right edge)
+    fig.get_layout_engine().set(w_pad=0.12, h_pad=0.06)
+    return fig
 
 
 def note(ax: Axes, text: str, *, loc: str = "upper right") -> None:
