@@ -132,7 +132,19 @@ class Session:
                 why = str(e)
             if attempt + 1 < tries:
                 self.resync(command)
-        raise InstrumentError(f"{why} (tried {tries} times)", resource=self.name, command=command)
+        raise InstrumentError(f"{why} (tried {tries} times){self._queued_errors(command)}",
+                              resource=self.name, command=command)
+
+    def _queued_errors(self, command: str) -> str:
+        """After a failed query, what the error queue says about it (often the real cause)."""
+        if command == self.profile.commands.get("error_query"):
+            return ""
+        try:
+            errs = self.drain_errors()
+        except InstrumentError:
+            return ""
+        listed = "; ".join(f"{c} {t}" for c, t in errs)
+        return f"; instrument reported: {listed}" if errs else ""
 
     def query(self, command: str) -> str:
         """Send a query and return its text answer; timeouts are retried after a resync."""
@@ -209,7 +221,14 @@ class Session:
     def wait_complete(self) -> None:
         """Block on the operation-complete query (``*OPC?`` answers 1 when done)."""
         cmd = self.profile.command("operation_complete")
-        ans = self.query(cmd).strip()
+        try:
+            ans = self.query(cmd).strip()
+        except InstrumentError as e:
+            if "connection lost" in str(e):
+                raise
+            raise InstrumentError(f"{e}; the operation did not complete in time: check the trigger, "
+                                  "or raise connection.timeout_s above the sweep or record time"
+                                  ) from None
         if ans.lstrip("+") not in ("1", "1.0"):
             raise MalformedReply(f"operation-complete answer {ans[:20]!r}, expected 1",
                                  resource=self.name, command=cmd)

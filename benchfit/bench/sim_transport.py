@@ -261,3 +261,29 @@ def simulated_session(instrument: ScpiDevice, profile: Profile, *, transport: st
                 session.close()
     else:
         raise InputError(f"{transport!r}: expected sim or tcp", source="--transport")
+
+
+def default_transport() -> str:
+    """``"sim"`` when pyvisa-sim is installed, else ``"tcp"`` (pyvisa-py over loopback)."""
+    try:
+        import pyvisa_sim  # noqa: F401
+    except ImportError:
+        return "tcp"
+    return "sim"
+
+
+@contextmanager
+def bench_session(profile: Profile, *, resource: str | None = None,
+                  instrument: ScpiDevice | None = None, transport: str = "auto",
+                  backend: str = "@py") -> Iterator[Session]:
+    """A session on a real ``resource`` or, when ``instrument`` is given, on the simulator.
+
+    ``transport`` (``auto``, ``sim``, ``tcp``) applies to the simulator only.
+    """
+    if instrument is not None:
+        chosen = default_transport() if transport == "auto" else transport
+        with simulated_session(instrument, profile, transport=chosen) as s:
+            yield s
+    else:
+        with open_session(str(resource), profile, backend=backend) as s:
+            yield s

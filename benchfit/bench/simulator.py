@@ -403,8 +403,6 @@ class SimulatedScope(ScpiDevice):
         Channel names the scope answers to ("CH1").
     """
 
-    Y_REFERENCE = 128  # offset code, so the scaling path is exercised
-
     def __init__(self, waveform_fn: Callable[[np.ndarray], np.ndarray], *, record_points: int = 1000,
                  x_increment_s: float = 1e-6, pretrigger: float = 0.1,
                  x_origin_s: float | None = None, noise_v: float = 0.0,
@@ -463,12 +461,14 @@ class SimulatedScope(ScpiDevice):
         v = np.asarray(self.waveform_fn(t), dtype=float)
         v = v + self.noise_v * self.rng.standard_normal(v.size)
         bits = {"int8": 8, "int32": 32}.get(self.encoding, 16)
+        # a non-zero reference code, so the scaling path is exercised; the signal uses
+        # about 90 % of the codes left on either side of it
+        self.yref = float(2 ** (bits - 1) // 8)
+        half = 2 ** (bits - 1) - 1 - self.yref
         lo, hi = float(v.min()), float(v.max())
-        span = (hi - lo) or 1.0
-        levels = 2 ** bits - 2 * abs(self.Y_REFERENCE) - 4
-        self.yinc = span * 1.1 / levels
+        self.yinc = ((hi - lo) or 1.0) * 1.1 / (2 * half)
         self.yorg = (lo + hi) / 2
-        self.codes = np.round((v - self.yorg) / self.yinc) + self.Y_REFERENCE
+        self.codes = np.round((v - self.yorg) / self.yinc) + self.yref
         self.armed = False
         self.busy_until = self.clock() + self.record_points * self.x_increment_s
 
@@ -476,7 +476,7 @@ class SimulatedScope(ScpiDevice):
         if not self._channel_ok(m):
             return
         value = {"xinc": self.x_increment_s, "xorg": self.x_origin_s, "yinc": self.yinc,
-                 "yorg": self.yorg, "yref": float(self.Y_REFERENCE)}[which]
+                 "yorg": self.yorg, "yref": self.yref}[which]
         self._reply(encode_ascii([value]))
 
     def _data(self, m: Message) -> None:

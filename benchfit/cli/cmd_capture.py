@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import contextlib
 import datetime as _dt
 import sys
 
@@ -74,16 +73,6 @@ def simulated_instrument(path: str, args: argparse.Namespace):
     return analyzer_for_sweep(resp, **opts), resp
 
 
-def transport_choice(choice: str) -> str:
-    if choice != "auto":
-        return choice
-    try:
-        import pyvisa_sim  # noqa: F401
-    except ImportError:
-        return "tcp"
-    return "sim"
-
-
 def _settings(args: argparse.Namespace, sweep):
     from benchfit.bench.capture import CaptureSettings
 
@@ -111,8 +100,7 @@ def run(args: argparse.Namespace) -> int:
     from benchfit.bench.capture import run_capture
     from benchfit.bench.profile import find_profile
     from benchfit.bench.progress import ProgressBar
-    from benchfit.bench.session import open_session
-    from benchfit.bench.sim_transport import simulated_session
+    from benchfit.bench.sim_transport import bench_session
 
     if args.simulate and args.resource:
         raise InputError("give either RESOURCE or --simulate, not both", source="RESOURCE")
@@ -129,14 +117,9 @@ def run(args: argparse.Namespace) -> int:
     settings.validate()
     out = args.output or f"capture-{_dt.datetime.now(_dt.UTC).strftime('%Y%m%d-%H%M%S')}.csv"
     bar = ProgressBar(settings.points) if not args.no_progress else None
-    with contextlib.ExitStack() as stack:
-        if inst is not None:
-            session = stack.enter_context(simulated_session(inst, profile,
-                                                            transport=transport_choice(args.transport)))
-            resource = f"simulated:{args.simulate}"
-        else:
-            session = stack.enter_context(open_session(args.resource, profile, backend=args.backend))
-            resource = args.resource
+    resource = f"simulated:{args.simulate}" if inst is not None else args.resource
+    with bench_session(profile, resource=args.resource, instrument=inst, transport=args.transport,
+                       backend=args.backend) as session:
         try:
             result = run_capture(session, settings, out, resume=args.resume, resource=resource,
                                  progress=bar)

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import contextlib
 
 from benchfit.cli.common import add_json_flag, emit
 from benchfit.errors import InputError
@@ -47,26 +46,21 @@ def _read_trace(path: str):
 def run(args: argparse.Namespace) -> int:
     from benchfit.bench.profile import find_profile
     from benchfit.bench.scope import capture_trace
-    from benchfit.bench.session import open_session
-    from benchfit.bench.sim_transport import simulated_session
+    from benchfit.bench.sim_transport import bench_session
     from benchfit.bench.simulator import scope_for_trace
-    from benchfit.cli.cmd_capture import transport_choice
 
     if bool(args.simulate) == bool(args.resource):
         raise InputError("give exactly one of RESOURCE or --simulate", source="RESOURCE")
     if args.profile is None and not args.simulate:
         raise InputError("required with a real instrument (see 'benchfit profiles')", source="--profile")
     profile = find_profile(args.profile or "generic-scope", kind="scope")
-    with contextlib.ExitStack() as stack:
-        if args.simulate:
-            inst = scope_for_trace(_read_trace(args.simulate), args.sim_channel, noise_v=args.noise,
-                                   channels=(args.channel.upper(),))
-            session = stack.enter_context(simulated_session(inst, profile,
-                                                            transport=transport_choice(args.transport)))
-            resource = f"simulated:{args.simulate}"
-        else:
-            session = stack.enter_context(open_session(args.resource, profile, backend=args.backend))
-            resource = args.resource
+    inst = None
+    if args.simulate:
+        inst = scope_for_trace(_read_trace(args.simulate), args.sim_channel, noise_v=args.noise,
+                               channels=(args.channel.upper(),))
+    resource = f"simulated:{args.simulate}" if inst is not None else args.resource
+    with bench_session(profile, resource=args.resource, instrument=inst, transport=args.transport,
+                       backend=args.backend) as session:
         trace = capture_trace(session, args.channel, out=args.output, resource=resource,
                               trigger=not args.no_trigger)
     sc = trace.meta["scaling"]
