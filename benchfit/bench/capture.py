@@ -371,10 +371,12 @@ class Capture:
             ses.configure(p.command("step_mode"))
 
     def _trigger_and_wait(self) -> None:
+        # The error queue is read only after *OPC? answers: an instrument that runs commands
+        # in sequence would hold a SYSTem:ERRor? sent mid-sweep until the sweep ends.
         cmd = self.profile.command("trigger")
         self.session.write(cmd)
-        self.session.check_errors(cmd)
         self.session.wait_complete()
+        self.session.check_errors(cmd)
 
     def _measure_sweep(self, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         p, ses = self.profile, self.session

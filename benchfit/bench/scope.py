@@ -75,12 +75,15 @@ def capture_trace(session: Session, channel: str = "CH1", *, out: str | os.PathL
         session.configure(p.command(f"byte_order_{p.byte_order}", channel=channel))
     if p.has("select"):
         session.configure(p.command("select", channel=channel))
-    session.configure(p.command("arm", channel=channel))
+    # Errors are read after *OPC? answers (see capture): a scope that runs commands in
+    # sequence would hold an error query sent while it waits for the trigger.
+    sent = [p.command("arm", channel=channel)]
     if trigger and p.has("trigger"):
-        cmd = p.command("trigger", channel=channel)
+        sent.append(p.command("trigger", channel=channel))
+    for cmd in sent:
         session.write(cmd)
-        session.check_errors(cmd)
     session.wait_complete()
+    session.check_errors("; ".join(sent))
     xinc = _number(session, "x_increment", channel)
     xorg = _number(session, "x_origin", channel)
     yinc = _number(session, "y_increment", channel)
