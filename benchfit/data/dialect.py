@@ -12,6 +12,7 @@ Every error names the file and the 1-based line where the problem is.
 
 from __future__ import annotations
 
+import io
 import os
 import re
 from collections import Counter
@@ -19,6 +20,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from benchfit.errors import InputError
 
@@ -106,6 +108,14 @@ class Dialect:
     def to_dict(self) -> dict[str, str]:
         return {"separator": self.separator_name, "decimal": self.decimal}
 
+    def first_cell_pattern(self) -> re.Pattern:
+        """A regex matching a line whose first cell is a number in this dialect (a data line)."""
+        dm = re.escape(self.decimal)
+        num = rf"[+-]?(?:\d+(?:{dm}\d*)?|{dm}\d+)(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity)"
+        end = r"\s" if self.separator == "whitespace" else rf"\s*{re.escape(self.separator)}"
+        return re.compile(rf"""^\s*(?:"(?:{num})"|'(?:{num})'|(?:{num}))(?:{end}|\s*$)""",
+                          re.IGNORECASE)
+
 
 def _parses(d: Dialect, cells: list[str]) -> bool:
     try:
@@ -124,11 +134,22 @@ def sniff(lines: list[str], source: str, *, min_columns: int = 2) -> Dialect:
     InputError
         When no line looks numeric, or no dialect gives at least ``min_columns``.
     """
-    cand = [ln for ln in (x.strip() for x in lines) if ln and not is_comment(ln) and _NUMERIC_START.match(ln)]
-    if not cand:
+    def numeric_lines(seq):
+        found = []
+        for k in seq:
+            ln = lines[k].strip()
+            if ln and not is_comment(ln) and _NUMERIC_START.match(ln):
+                found.append(k)
+                if len(found) == _SAMPLE:
+                    break
+        return found
+
+    head = numeric_lines(range(len(lines)))
+    if not head:
         raise InputError("no numeric rows; expected rows of numbers (after an optional header)",
                          source=source)
-    sample = cand if len(cand) <= 2 * _SAMPLE else cand[:_SAMPLE] + cand[-_SAMPLE:]
+    tail = numeric_lines(range(len(lines) - 1, head[-1], -1))
+    sample = [lines[k].strip() for k in head + tail[::-1]]
     best: tuple[tuple[int, int, int], Dialect] | None = None
     order = 0
     for sep in SEPARATORS:
@@ -232,6 +253,23 @@ def _numeric_cells(cells: list[str], d: Dialect) -> int:
     return n
 
 
+def _fast_rows(texts: list[str], d: Dialect, ncols: int) -> np.ndarray | None:
+    """Rows parsed by pandas' C parser; None when anything is off (the slow path then
+    finds and reports the first bad cell with its line)."""
+    if d.separator != "whitespace":
+        texts = [t.rstrip(d.separator) for t in texts]
+    try:
+        frame = pd.read_csv(io.StringIO("\n".join(texts)), sep=r"\s+" if d.separator == "whitespace"
+                            else d.separator, header=None, decimal=d.decimal, dtype=float,
+                            engine="c", skipinitialspace=True, skip_blank_lines=False)
+    except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
+        return None
+    data = frame.to_numpy(dtype=float)
+    if data.shape != (len(texts), ncols) or not np.all(np.isfinite(data)):
+        return None
+    return data
+
+
 def _parse_rows(rows: list[tuple[int, list[str]]], d: Dialect, ncols: int, source: str,
                 names: list[str] | None) -> np.ndarray:
     """Rows of cells -> float array; the first bad row raises with its line number."""
@@ -267,46 +305,77 @@ def _parse_rows(rows: list[tuple[int, list[str]]], d: Dialect, ncols: int, sourc
     return data
 
 
+_DATA_FIRST = frozenset("0123456789+-.,\"'nNiI")
+
+
+class _Retry(Exception):
+    """The quick line classification was wrong somewhere; classify every line exactly."""
+
+
+def _kinds(lines: list[str], d: Dialect, exact: bool) -> list[str]:
+    """'data' / 'text' / 'blank' / 'comment' for each line.
+
+    The quick pass looks at the first character only and checks the first and last
+    line of each run with the full first-cell pattern; a wrong guess inside a run
+    makes the fast parse fail, and the exact pass follows.
+    """
+    is_data = d.first_cell_pattern().match
+
+    def other(raw: str) -> str:
+        s = raw.strip()
+        return "blank" if not s else "comment" if is_comment(s) else "text"
+
+    if exact:
+        return ["data" if is_data(raw) else other(raw) for raw in lines]
+    kinds = []
+    for raw in lines:
+        s = raw.lstrip()
+        kinds.append("data" if s and s[0] in _DATA_FIRST else other(raw))
+    i, n = 0, len(lines)
+    while i < n:
+        if kinds[i] != "data":
+            i += 1
+            continue
+        a = i
+        while i < n and kinds[i] == "data":
+            i += 1
+        b = i - 1
+        while a <= b and not is_data(lines[a]):
+            kinds[a] = "text"
+            a += 1
+        while b >= a and not is_data(lines[b]):
+            kinds[b] = "text"
+            b -= 1
+    return kinds
+
+
 def find_blocks(lines: list[str], d: Dialect, source: str) -> list[Block]:
     """The numeric blocks of ``lines`` with their headers.
 
     A one-row block without a header is taken as metadata (e.g. ``401;points``)
     unless it is the only block.
     """
-    kinds: list[str] = []
-    cells_of: list[list[str] | None] = []
-    for raw in lines:
-        s = raw.strip()
-        if not s:
-            kinds.append("blank")
-            cells_of.append(None)
-        elif is_comment(s):
-            kinds.append("comment")
-            cells_of.append(None)
-        elif _NUMERIC_START.match(s):
-            cells = d.split(s)
-            try:
-                d.number(cells[0])
-                kinds.append("data")
-            except ValueError:
-                kinds.append("text")
-            cells_of.append(cells)
-        else:
-            kinds.append("text")
-            cells_of.append(None)
+    try:
+        return _blocks(lines, d, source, exact=False)
+    except (_Retry, InputError):
+        return _blocks(lines, d, source, exact=True)
 
-    raw_blocks: list[tuple[int, list[tuple[int, list[str]]]]] = []  # (first line index, rows)
+
+def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Block]:
+    kinds = _kinds(lines, d, exact)
+
+    raw_blocks: list[tuple[int, list[int]]] = []  # (first line index, indices of data lines)
     i, n = 0, len(lines)
     while i < n:
         if kinds[i] != "data":
             i += 1
             continue
-        start, rows = i, []
+        start, idx = i, []
         while i < n and kinds[i] in ("data", "blank", "comment"):
             if kinds[i] == "data":
-                rows.append((i + 1, cells_of[i]))
+                idx.append(i)
             i += 1
-        raw_blocks.append((start, rows))
+        raw_blocks.append((start, idx))
 
     if not raw_blocks:
         raise InputError("no numeric rows; expected rows of numbers (after an optional header)",
@@ -314,8 +383,9 @@ def find_blocks(lines: list[str], d: Dialect, source: str) -> list[Block]:
 
     blocks: list[Block] = []
     prev_end = 0
-    for start, rows in raw_blocks:
-        ncols = Counter(len(c) for _, c in rows).most_common(1)[0][0]
+    for start, idx in raw_blocks:
+        texts = [lines[k].strip() for k in idx]
+        ncols = Counter(len(d.split(t)) for t in texts[:50]).most_common(1)[0][0]
         above = [k for k in range(prev_end, start) if kinds[k] in ("text", "comment")]
         # A text row straight after a block with a number in it is a broken data row.
         if blocks and above and kinds[above[0]] == "text":
@@ -343,14 +413,20 @@ def find_blocks(lines: list[str], d: Dialect, source: str) -> list[Block]:
                 header_text = strip_comment_mark(lines[last].strip())
         notes = [strip_comment_mark(lines[k].strip()) for k in above if k not in consumed]
         notes = [x for x in notes if x]
-        if len(rows) == 1 and names is None and len(raw_blocks) > 1:
+        if len(idx) == 1 and names is None and len(raw_blocks) > 1:
             prev_end = start + 1
             continue  # a lone numeric line among text: metadata
-        data = _parse_rows(rows, d, ncols, source, names)
-        blocks.append(Block(data=data, line_no=np.array([r[0] for r in rows]), names=names,
+        data = _fast_rows(texts, d, ncols)
+        if data is None:
+            if not exact:
+                raise _Retry
+            rows = [(k + 1, d.split(t)) for k, t in zip(idx, texts)]
+            ncols = Counter(len(c) for _, c in rows).most_common(1)[0][0]
+            data = _parse_rows(rows, d, ncols, source, names)
+        blocks.append(Block(data=data, line_no=np.asarray(idx) + 1, names=names,
                             units=units, header_line=header_line, header_text=header_text,
                             notes=notes))
-        prev_end = rows[-1][0]
+        prev_end = idx[-1] + 1
     if not blocks:
         raise InputError("no block of two or more numeric rows", source=source)
     return blocks

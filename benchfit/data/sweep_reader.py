@@ -297,7 +297,7 @@ def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = Non
                                       phase=phase, param=param, quantity=quantity).items()
                 if v is not None and v != "auto"}
     text = load_text(path)
-    first = text.lstrip().split("\n", 1)[0].strip()
+    first = text[:4096].lstrip().split("\n", 1)[0].strip()
     if first == SWEEP_MAGIC:
         resp = read_canonical_sweep(path, text=text)
         meta = dict(resp.meta)

@@ -18,11 +18,13 @@ Format Specification", version 1.1):
 
 from __future__ import annotations
 
+import io
 import os
 import re
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
 from benchfit.errors import InputError
 
@@ -84,7 +86,7 @@ def looks_like_touchstone(path: str | os.PathLike, text: str) -> bool:
     """True for a '.sNp' name, or text whose first non-comment line is an option line."""
     if ports_from_name(path):
         return True
-    for line in text.splitlines():
+    for line in text[:65536].splitlines():
         s = line.split("!", 1)[0].strip()
         if s:
             return s.startswith("#") and _is_option_line(s)
@@ -139,6 +141,56 @@ def _param_index(param: str, ports: int, kind: str, source: str) -> tuple[int, i
     return i - 1, j - 1, f"{letter}{i}{j}"
 
 
+def _fast_table(lines: list[str], m: int) -> np.ndarray | None:
+    """One point per line, parsed by pandas' C parser; None when anything is off."""
+    try:
+        frame = pd.read_csv(io.StringIO("\n".join(lines)), sep=r"\s+", header=None, dtype=float,
+                            engine="c")
+    except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
+        return None
+    table = frame.to_numpy(dtype=float)
+    if table.shape != (len(lines), m) or not np.all(np.isfinite(table)):
+        return None
+    return table
+
+
+def _slow_table(lines: list[str], line_no: list[int], ports: int, m: int, source: str) -> np.ndarray:
+    """Token by token, with line numbers for errors; stops at two-port noise data."""
+    values: list[float] = []
+    counts: list[int] = []
+    where: list[int] = []
+    for s, k in zip(lines, line_no):
+        toks = s.split()
+        for t in toks:
+            try:
+                v = float(t)
+            except ValueError:
+                raise InputError(f"non-numeric value {t!r}; expected a number", source=source,
+                                 line=k) from None
+            if not np.isfinite(v):
+                raise InputError(f"value {t!r} is not finite", source=source, line=k)
+            values.append(v)
+            where.append(k)
+        counts.append(len(toks))
+    arr = np.asarray(values)
+    if ports > 2:
+        if arr.size % m:
+            raise InputError(f"{arr.size} values do not make whole points of {m} values each",
+                             source=source, line=where[-1])
+        return arr.reshape(-1, m)
+    rows, last_f, pos = [], -np.inf, 0
+    for k, count in zip(line_no, counts):
+        if ports == 2 and count == 5 and rows and arr[pos] <= last_f:
+            break  # noise parameters begin
+        if count != m:
+            raise InputError(f"{count} values, expected {m} (frequency + {m - 1} for a "
+                             f"{ports}-port)", source=source, line=k)
+        rows.append(arr[pos:pos + m])
+        last_f = arr[pos]
+        pos += count
+    return np.vstack(rows)
+
+
 def read_touchstone(text: str, source: str, *, param: str | None = None,
                     ports: int | None = None) -> TouchstoneData:
     """Parse Touchstone v1 ``text`` and return one parameter.
@@ -162,60 +214,36 @@ def read_touchstone(text: str, source: str, *, param: str | None = None,
         bad parameter name.
     """
     opts: dict | None = None
-    values: list[float] = []
-    where: list[int] = []
-    per_line: list[tuple[int, int]] = []  # (line, count) of each data line
+    data_lines: list[str] = []
+    data_no: list[int] = []
     for k, raw in enumerate(text.splitlines(), start=1):
-        s = raw.split("!", 1)[0].strip()
+        s = (raw.split("!", 1)[0] if "!" in raw else raw).strip()
         if not s:
             continue
-        if s.startswith("#"):
+        if s[0] == "#":
             if opts is None:
                 opts = _options(s, source, k)
             continue  # later option lines are ignored, as the standard says
-        if s.startswith("["):
+        if s[0] == "[":
             raise InputError(f"Touchstone 2 keyword {s.split()[0]!r}; only version 1 files are read",
                              source=source, line=k)
-        toks = s.split()
-        for t in toks:
-            try:
-                values.append(float(t))
-            except ValueError:
-                raise InputError(f"non-numeric value {t!r}; expected a number", source=source,
-                                 line=k) from None
-            where.append(k)
-        per_line.append((k, len(toks)))
+        data_lines.append(s)
+        data_no.append(k)
     if opts is None:
         opts = _options("#", source, 0)
         opts["line"] = None
-    if not values:
+    if not data_lines:
         raise InputError("no data lines; expected frequency and parameter values", source=source)
     if ports is None:
-        first = per_line[0][1]
+        first = len(data_lines[0].split())
         ports = {3: 1, 9: 2}.get(first)
         if ports is None:
             raise InputError(f"cannot tell the port count from {first} values on the first data line; "
-                             "name the file .s1p / .s2p / .sNp", source=source, line=per_line[0][0])
+                             "name the file .s1p / .s2p / .sNp", source=source, line=data_no[0])
     m = 1 + 2 * ports * ports
-    arr = np.asarray(values)
-    if ports <= 2:
-        rows, last_f = [], -np.inf
-        pos = 0
-        for line, count in per_line:
-            if ports == 2 and count == 5 and rows and arr[pos] <= last_f:
-                break  # noise parameters begin
-            if count != m:
-                raise InputError(f"{count} values, expected {m} (frequency + {m - 1} for a "
-                                 f"{ports}-port)", source=source, line=line)
-            rows.append(arr[pos:pos + m])
-            last_f = arr[pos]
-            pos += count
-        table = np.vstack(rows)
-    else:
-        if arr.size % m:
-            raise InputError(f"{arr.size} values do not make whole points of {m} values each",
-                             source=source, line=where[-1])
-        table = arr.reshape(-1, m)
+    table = _fast_table(data_lines, m) if ports <= 2 else None
+    if table is None:
+        table = _slow_table(data_lines, data_no, ports, m, source)
     freq = table[:, 0] * _FREQ[opts["freq_unit"].lower()]
     a, b = table[:, 1::2], table[:, 2::2]
     fmt = opts["format"]

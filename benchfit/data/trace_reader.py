@@ -200,7 +200,7 @@ def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
     if time_unit is not None:
         time_factor(time_unit)
     text = load_text(path)
-    first = text.lstrip().split("\n", 1)[0].strip()
+    first = text[:4096].lstrip().split("\n", 1)[0].strip()
     if first == TRACE_MAGIC:
         tr = read_canonical_trace(path, text=text)
         meta = {**tr.meta, "dialect": {"format": "benchfit canonical CSV"}}
