@@ -107,3 +107,56 @@ def test_socket_resources_send_without_nagle_delay():
         assert sock.getsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY) == 1
         s.configure("FREQ:STAR 5")
         assert inst.start_hz == 5.0
+
+
+def test_session_against_a_plain_pyvisa_sim_device(tmp_path):
+    # pyvisa-sim's own YAML device (exact-match dialogues and its own error queue), so the
+    # error-queue handling is checked against a backend benchfit did not write.
+    import pyvisa
+
+    from benchfit.bench.session import Session
+
+    yaml = tmp_path / "plain.yaml"
+    yaml.write_text(
+        'spec: "1.1"\n'
+        "devices:\n"
+        "  analyzer:\n"
+        "    eom:\n"
+        "      TCPIP INSTR:\n"
+        '        q: "\\n"\n'
+        '        r: "\\n"\n'
+        "    error:\n"
+        "      error_queue:\n"
+        '        - q: "SYST:ERR?"\n'
+        "          default: '0,\"No error\"'\n"
+        "          command_error: '-113,\"Undefined header\"'\n"
+        "    dialogues:\n"
+        '      - q: "*IDN?"\n'
+        '        r: "benchfit,plain device,1,1"\n'
+        "    properties:\n"
+        "      start:\n"
+        "        default: 10.0\n"
+        "        getter:\n"
+        '          q: "SENS:FREQ:STAR?"\n'
+        '          r: "{:.6f}"\n'
+        "        setter:\n"
+        '          q: "SENS:FREQ:STAR {:f}"\n'
+        "        specs:\n"
+        "          type: float\n"
+        "          min: 0.001\n"
+        "          max: 1e9\n"
+        "resources:\n"
+        "  TCPIP0::127.0.0.1::inst0::INSTR:\n"
+        "    device: analyzer\n")
+    rm = pyvisa.ResourceManager(f"{yaml}@sim")
+    res = rm.open_resource("TCPIP0::127.0.0.1::inst0::INSTR")
+    prof = profile(commands={**find_profile("generic-analyzer").commands, "error_query": "SYST:ERR?"})
+    with Session(res, prof, name="plain") as s:
+        assert s.identify() == "benchfit,plain device,1,1"
+        s.configure("SENS:FREQ:STAR 250")
+        assert float(s.query("SENS:FREQ:STAR?")) == 250.0
+        with pytest.raises(InstrumentError, match=r"plain after 'SENS:FREQ:STRT 5'.*-113 Undefined header"):
+            s.configure("SENS:FREQ:STRT 5")
+        with pytest.raises(InstrumentError, match=r"SENS:FREQ:STAR 1e12.*-113"):
+            s.configure("SENS:FREQ:STAR 1e12")      # pyvisa-sim rejects out-of-spec values the same way
+        assert float(s.query("SENS:FREQ:STAR?")) == 250.0
