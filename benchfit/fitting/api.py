@@ -12,12 +12,22 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+from scipy import stats
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import FitError, InputError
-from benchfit.fitting.delay import excess_phase_delay, search_delay
+from benchfit.fitting.delay import delay_stepper, excess_phase_delay
 from benchfit.fitting.model import PlantModel
-from benchfit.fitting.order import CHI_OK, Attempt, Context, attempt, choose_order, polish
+from benchfit.fitting.order import (
+    NEGLIGIBLE,
+    SCAN_ITER,
+    Attempt,
+    Context,
+    attempt,
+    better,
+    choose_order,
+    polish,
+)
 from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk, to_zpk
 from benchfit.fitting.refine import Refined, log_residual, refine
 from benchfit.fitting.result import FitResult, Parameter
@@ -69,25 +79,30 @@ def detect_integrators(f: np.ndarray, h: np.ndarray) -> int:
 
 
 def _clean_zpk(zeros, poles, k, f_min, f_max) -> tuple[np.ndarray, np.ndarray, float, list[str]]:
-    """Drop zeros far above the band and pole/zero pairs that cancel below it.
+    """Drop zeros and poles far above the band and pole/zero pairs that cancel below it.
 
     The gain k is adjusted so the response in the band is unchanged to first
-    order: a dropped zero z contributes (s − z) ≈ −z there.
+    order: a dropped zero z contributes (s − z) ≈ −z there (a pole likewise).
     """
     notes = []
     w_max = TWO_PI * f_max
-    far = np.abs(zeros) > ZERO_LIMIT * w_max
-    if np.any(far):
-        notes.append(f"dropped {int(far.sum())} zero(s) above {ZERO_LIMIT:g}× the top frequency "
-                     "(not identifiable in the band)")
-    k = float(np.real(k * np.prod(-zeros[far])))
-    zeros = zeros[~far]
-    # A pole and a zero closer than 1 % of their frequency, below the band, are a VF artefact.
+    for what, roots in (("zero", zeros), ("pole", poles)):
+        far = np.abs(roots) > ZERO_LIMIT * w_max
+        if np.any(far):
+            notes.append(f"dropped {int(far.sum())} {what}(s) above {ZERO_LIMIT:g}× the top "
+                         "frequency (not identifiable in the band)")
+            fac = np.prod(-roots[far])
+            k = float(np.real(k * fac if what == "zero" else k / fac))
+        if what == "zero":
+            zeros = zeros[~far]
+        else:
+            poles = poles[~far]
+    # A pole and a zero closer than 1 % of their frequency, outside the band, are a VF artefact.
     keep_p = np.ones(poles.shape[0], bool)
     keep_z = np.ones(zeros.shape[0], bool)
     w_min = TWO_PI * f_min
     for i, p in enumerate(poles):
-        if abs(p) >= w_min or not keep_p[i]:
+        if w_min <= abs(p) <= w_max:
             continue
         d = np.abs(zeros - p)
         d[~keep_z] = np.inf
@@ -96,9 +111,59 @@ def _clean_zpk(zeros, poles, k, f_min, f_max) -> tuple[np.ndarray, np.ndarray, f
             keep_p[i] = keep_z[j] = False
     removed = int((~keep_p).sum())
     if removed:
-        notes.append(f"removed {removed} pole/zero pair(s) cancelling below the band")
+        notes.append(f"removed {removed} pole/zero pair(s) cancelling outside the band")
     k = float(np.real(k * np.prod(-zeros[~keep_z]) / np.prod(-poles[~keep_p])))
     return zeros[keep_z], poles[keep_p], k, notes
+
+
+def _without(st: Structure, values: np.ndarray, drop: list[str]) -> tuple[Structure, np.ndarray]:
+    """Structure and values with the named zero groups (``zero3`` or ``zero_pair1``) removed."""
+    names = st.names
+    keep = [i for i, nm in enumerate(names) if nm.rsplit("_", 1)[0] not in drop
+            and not any(nm.startswith(d + "_") for d in drop)]
+    kept = tuple(names[i] for i in keep)
+    st2 = Structure.from_names(kept, st.integrators)
+    return st2, np.asarray(values)[keep]
+
+
+def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float) -> list[tuple[str, float]]:
+    """(group, |frequency|) of zeros above the band, e.g. ("zero2", 3e7), ("zero_pair1", 2e7)."""
+    out = []
+    for nm, v in zip(st.names, values):
+        if nm.startswith("zero_pair") and nm.endswith("_f0_hz") and abs(v) > f_max:
+            out.append((nm[: -len("_f0_hz")], abs(v)))
+        elif nm.startswith("zero") and not nm.startswith("zero_pair") and abs(v) > f_max:
+            out.append((nm[: -len("_hz")], abs(v)))
+    return out
+
+
+def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float) -> tuple[Structure, Refined, int]:
+    """Drop zeros above the band that the data do not need (likelihood-ratio test).
+
+    A group is dropped when the rise of chi-square, in units of the reduced
+    chi-square, stays under the 95 % point of chi2(number of parameters
+    dropped).  All of them are tried at once first, then one at a time
+    (highest frequency first).
+    """
+    dropped = 0
+    while True:
+        groups = _zero_groups_above(st, ref.values, f_max)
+        if not groups or not np.isfinite(ref.redchi) or ref.redchi <= 0:
+            return st, ref, dropped
+        groups.sort(key=lambda g: -g[1])
+        trials = [[g for g, _ in groups]]
+        if len(groups) > 1:
+            trials += [[g] for g, _ in groups]
+        for drop in trials:
+            st2, v2 = _without(st, ref.values, drop)
+            ref2 = refit(st2, v2)
+            dp = len(st.names) - len(st2.names)
+            if (ref2.chisqr - ref.chisqr) / ref.redchi <= stats.chi2.ppf(0.95, dp):
+                st, ref = st2, ref2
+                dropped += len(drop)
+                break
+        else:
+            return st, ref, dropped
 
 
 def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, bool]:
@@ -108,38 +173,60 @@ def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, boo
     return s > -0.5, s > 0.5
 
 
+#: Orders and delays are scanned on at most this many points (see Context.subsample).
+SCAN_POINTS = 400
+
+
+def _aic(a: Attempt, n_res: int) -> float:
+    """Akaike's information criterion of an attempt (Gaussian residuals, scale from chi)."""
+    n_par = 2 * a.order + 1 + int(a.tau_s > 0)
+    return float(n_res * np.log(max(a.chi, 1e-150) ** 2) + 2.0 * n_par)
+
+
 def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[Attempt, list[Attempt], float, bool]:
     """Vector fit at the given or chosen order, with the delay fixed, absent or searched.
 
-    With ``delay="auto"`` two hypotheses are scanned, no delay and a delay
-    started at the excess-phase estimate; the delay is kept only when it
-    lets fewer poles (or the same poles, clearly better) reach the floor.
+    With ``delay="auto"`` the order is first chosen without a delay; then,
+    from that order down, a delay is searched at each order (starting from
+    the excess-phase estimate) for as long as the fit stays as good.  The
+    delay is kept only when it lets fewer poles do (or the same poles,
+    clearly better).  Scans run on a thinned sweep; the chosen attempt is
+    polished on every point.
     """
     fixed_tau = float(delay) if not isinstance(delay, str) else 0.0
     tau0 = excess_phase_delay(f, h) if delay == "auto" else 0.0
     try_delay = delay == "auto" and tau0 * TWO_PI * f[-1] >= DELAY_MIN_PHASE
+    sub = ctx.subsample(SCAN_POINTS)
+    scan: list[Attempt] = []
     if order != "auto":
         n = int(order)
-        att = attempt(ctx, n, fixed_tau)
+        att = attempt(sub, n, fixed_tau, max_iter=SCAN_ITER)
         if try_delay:
-            att_d = search_delay(ctx, n, tau0, att.vf.poles)
+            att_d = delay_stepper(sub, tau0)(n)
             if att_d.chi < 0.8 * att.chi:
-                return att_d, [], att_d.tau_s, True
-        return att, [], fixed_tau, False
-    att, scan = choose_order(ctx, fixed_tau)
-    if not try_delay:
-        return att, scan, fixed_tau, False
-    att_d, scan_d = choose_order(ctx, tau0, n_max=att.order)
-    att_d = search_delay(ctx, att_d.order, tau0, att_d.vf.poles)
-    for lower in range(max(att_d.order - 2, 1), att_d.order):
-        a2 = attempt(ctx, lower, att_d.tau_s)
-        scan_d.append(a2)
-        if a2.chi <= max(CHI_OK, 1.05 * att_d.chi):
-            att_d = a2
-            break
-    if att_d.order < att.order or (att_d.order == att.order and att_d.chi < 0.8 * att.chi):
-        return att_d, scan_d, att_d.tau_s, True
-    return att, scan, 0.0, False
+                att = att_d
+    else:
+        att, scan = choose_order(sub, fixed_tau)
+        if try_delay:
+            # Descend from the no-delay order while a searched delay keeps the fit
+            # as good: a delay mistaken for poles shows up as poles it can replace.
+            step = delay_stepper(sub, tau0)
+            n_res = 2 * sub.s.shape[0]
+            tried = [att]
+            for n in range(att.order, 0, -1):
+                a = step(n)
+                scan.append(a)
+                tried.append(a)
+                if a.chi > NEGLIGIBLE and better(a, att, n_res):
+                    break
+            # A delay and a damped pair near the top of the band look alike; let the
+            # information criterion (residual against parameter count) decide.
+            win = min(tried, key=lambda x: _aic(x, n_res))
+            # ...and, as in the order scan, the fewest poles not significantly worse.
+            att = min((x for x in tried if (x.tau_s > 0) == (win.tau_s > 0)
+                       and not better(x, win, n_res)), key=lambda x: x.order)
+    fin = polish(ctx, att)
+    return fin, scan, fin.tau_s, fin.tau_s > 0 and delay == "auto"
 
 
 def fit(
@@ -223,7 +310,6 @@ def fit(
         if n_pts < need:
             raise FitError(f"order {order} needs at least {need} points in the band; it holds {n_pts}")
     att, scan, tau, fit_delay = _order_and_delay(ctx, f, h, order, delay)
-    att = polish(ctx, att)
     if not np.isfinite(att.chi):
         raise FitError("vector fitting failed: the model does not evaluate on the band "
                        "(check the data for gaps or exact zeros)")
@@ -243,8 +329,20 @@ def fit(
     if weighting == "absolute":
         sig_abs = resp.stddev if resp.stddev is not None else np.full(
             n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
-    ref = refine(st, v0, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
-                 weighting=weighting, sig_abs=sig_abs)
+    def refit(st_, v_, max_nfev=200):
+        return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
+                      weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev)
+
+    # A first, capped refinement: spurious zeros above the band make it slow,
+    # and they are pruned next.
+    ref = refit(st, v0, max_nfev=60)
+    n_drop = 0
+    if not any(k.startswith("zero") for k in list(fixed) + list(bounds or {})):
+        st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1])
+        if n_drop:
+            notes.append(f"dropped {n_drop} zero(s) above the band that the data do not need")
+    if not n_drop and not ref.success:
+        ref = refit(st, ref.values)
     if fit_delay and "delay_s" not in fixed:
         i = st.names.index("delay_s")
         tv, te = ref.values[i], ref.stderr[i]
@@ -252,13 +350,13 @@ def fit(
             # Not significant: drop the delay parameter and refine again without it.
             keep = [j for j in range(len(st.names)) if j != i]
             st = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs, m, False)
-            ref = refine(st, ref.values[keep], s, h, sigma.mag, sigma.phase, fix=fixed,
-                         bounds=bounds, weighting=weighting, sig_abs=sig_abs)
+            ref = refit(st, ref.values[keep])
             notes.append("delay estimate not significant; fitted without delay")
-    return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings)
+    return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
 
 
-def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed, settings) -> FitResult:
+def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed, settings,
+                  att_scale: float) -> FitResult:
     f, h = resp.freq_hz, resp.response
     s = 1j * TWO_PI * f
     zeros, poles, k, tau = to_zpk(st, ref.values)
@@ -292,8 +390,10 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
         if p.name.endswith("_hz") and (abs(p.value) < 0.9 * f[0] or abs(p.value) > 1.1 * f[-1]):
             warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "
                             f"{f[0]:.4g}..{f[-1]:.4g} Hz: poorly identified")
-    if att.vf.flipped:
-        warnings.append(f"{att.vf.flipped} right-half-plane pole(s) were mirrored into the left "
+    fl = np.abs(att.vf.flipped) * att_scale
+    n_fl = int(np.sum((fl <= ZERO_LIMIT * TWO_PI * f[-1]) & (fl >= TWO_PI * f[0] / ZERO_LIMIT)))
+    if n_fl:
+        warnings.append(f"{n_fl} right-half-plane pole(s) were mirrored into the left "
                         "half-plane; if the plant is really unstable, this model is wrong")
     if not model.is_stable:
         warnings.append("the refined model has right-half-plane poles")

@@ -196,11 +196,8 @@ def _groups(st: Structure, v: np.ndarray):
     return out
 
 
-def log_response(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray:
-    """Complex log of H at ``s`` (rad/s); ``values`` may be (P,) or (N, P) -> (N, len(s)).
-
-    The imaginary part is the continuous sum of factor phases (not wrapped).
-    """
+def response(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """H at ``s`` (rad/s); ``values`` may be (P,) or (N, P) -> (N, len(s)), complex."""
     v = np.asarray(values, dtype=float)
     s = np.asarray(s, dtype=complex)
     g = _groups(st, v)
@@ -209,24 +206,28 @@ def log_response(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray
 
     def real_terms(f):
         if f.shape[-1] == 0:
-            return 0.0
-        w = TWO_PI * f[..., None, :]
-        return np.log1p(sb / w).sum(axis=-1)
+            return 1.0
+        return np.prod(1.0 + sb / (TWO_PI * f[..., None, :]), axis=-1)
 
     def pair_terms(f, q):
         if f.shape[-1] == 0:
-            return 0.0
-        w = TWO_PI * f[..., None, :]
-        return np.log(1.0 + sb / (w * q[..., None, :]) + (sb / w) ** 2).sum(axis=-1)
+            return 1.0
+        x = sb / (TWO_PI * f[..., None, :])
+        return np.prod(1.0 + x / q[..., None, :] + x * x, axis=-1)
 
-    out = np.log(g["gain"].astype(complex))[..., None] + np.zeros(lead + s.shape, dtype=complex)
+    num = real_terms(g["zr"]) * pair_terms(g["zp_f"], g["zp_q"])
+    den = real_terms(g["pr"]) * pair_terms(g["pp_f"], g["pp_q"])
+    out = g["gain"][..., None] * (num / den) * np.ones(lead + s.shape)
     if st.integrators:
-        out = out - st.integrators * np.log(s)
-    out = out + real_terms(g["zr"]) + pair_terms(g["zp_f"], g["zp_q"])
-    out = out - real_terms(g["pr"]) - pair_terms(g["pp_f"], g["pp_q"])
+        out = out / s ** st.integrators
     if st.delay:
-        out = out - g["tau"][..., None] * s
+        out = out * np.exp(-g["tau"][..., None] * s)
     return out
+
+
+def log_response(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """Complex log of :func:`response` (phase wrapped to (−π, π])."""
+    return np.log(response(st, values, s))
 
 
 def log_jacobian(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray:

@@ -21,7 +21,7 @@ import lmfit
 import numpy as np
 
 from benchfit.errors import InputError
-from benchfit.fitting.parameters import Structure, log_jacobian, log_response
+from benchfit.fitting.parameters import Structure, log_jacobian, response
 
 
 @dataclass(frozen=True)
@@ -46,7 +46,7 @@ def wrap(x: np.ndarray) -> np.ndarray:
 
 def log_residual(st: Structure, values, s, log_h) -> np.ndarray:
     """ln(H_model/H_data) with the phase part wrapped; complex, one per point."""
-    d = log_response(st, values, s) - log_h
+    d = np.log(response(st, values, s)) - log_h
     return d.real + 1j * wrap(d.imag)
 
 
@@ -114,7 +114,7 @@ def refine(
     def residual(p):
         v = current(p)
         if absolute:
-            d = (np.exp(log_response(st, v, s)) - h) * w_a
+            d = (response(st, v, s) - h) * w_a
             return np.concatenate([d.real, d.imag])
         r = log_residual(st, v, s, log_h)
         return np.concatenate([r.real * w_m, r.imag * w_p])
@@ -123,7 +123,7 @@ def refine(
         v = current(p)
         j = log_jacobian(st, v, s)[:, var_idx]
         if absolute:
-            j = j * (np.exp(log_response(st, v, s)) * w_a)[:, None]
+            j = j * (response(st, v, s) * w_a)[:, None]
             return np.vstack([j.real, j.imag])
         return np.vstack([j.real * w_m[:, None], j.imag * w_p[:, None]])
 

@@ -11,7 +11,7 @@ import numpy as np
 from benchfit.errors import InputError
 from benchfit.fileio import as_float, read_json, write_json_atomic
 from benchfit.fitting.model import PlantModel
-from benchfit.fitting.parameters import Structure, log_response
+from benchfit.fitting.parameters import Structure, response
 from benchfit.provenance import Provenance
 
 #: Statistics keys every FitResult carries.
@@ -154,11 +154,14 @@ class FitResult:
             root = evecs * np.sqrt(np.clip(evals, 0.0, None))
             z = rng.standard_normal((int(n), len(idx)))
             draws[:, idx] += z @ root.T
-        return np.exp(log_response(st, draws, 2j * np.pi * f))
+        return response(st, draws, 2j * np.pi * f)
 
     # ----- report -------------------------------------------------------------------
-    def report(self) -> str:
-        """Compact text report: parameters ± σ, strong correlations, statistics."""
+    def report(self, warnings: bool = True) -> str:
+        """Compact text report: parameters ± σ, strong correlations, statistics.
+
+        ``warnings=False`` leaves the warnings out (the CLI prints them to stderr).
+        """
         st = self.stats
         src = ", ".join(self.provenance.sources) or "in-memory data"
         lines = [f"fit of {src}: order {st.get('order')}"
@@ -197,8 +200,8 @@ class FitResult:
         if self.order_scan:
             scan = ", ".join(f"{d['order']}:{d['rms_db']:.2g}dB" for d in self.order_scan)
             lines.append(f"  order scan (order:rms) {scan}")
-        for w in self.warnings:
-            lines.append(f"  warning: {w}")
+        if warnings:
+            lines += [f"  warning: {w}" for w in self.warnings]
         return "\n".join(lines)
 
     # ----- JSON ---------------------------------------------------------------------

@@ -54,8 +54,9 @@ class VFResult:
     converged
         True when the poles stopped moving before the iteration cap.
     flipped
-        Number of unstable poles mirrored into the left half-plane during the
-        last relocation (a hint the plant may really be unstable).
+        The poles (scaled, after mirroring) that came out unstable in the last
+        relocation and were mirrored into the left half-plane (a hint the
+        plant may really be unstable).
     """
 
     poles: np.ndarray
@@ -64,7 +65,7 @@ class VFResult:
     e: float
     iterations: int
     converged: bool
-    flipped: int
+    flipped: np.ndarray
 
     def at(self, s: np.ndarray) -> np.ndarray:
         """Evaluate at scaled complex frequency ``s``."""
@@ -133,7 +134,7 @@ def _colscale(a: np.ndarray) -> np.ndarray:
 
 
 def _relocate(s, h, w, poles, direct, proportional):
-    """One relaxed pole-relocation step; returns (new poles, flipped count)."""
+    """One relaxed pole-relocation step; returns (new poles, mirrored poles)."""
     phi, kind = _basis(s, poles)
     n_s, n = phi.shape
     n_num = n + int(direct) + int(proportional)
@@ -153,6 +154,8 @@ def _relocate(s, h, w, poles, direct, proportional):
     den = -wh[:, None] * phi
     a[:n_s, j: j + n], a[n_s:, j: j + n] = den.real, den.imag
     a[:n_s, -1], a[n_s:, -1] = -wh.real, -wh.imag
+    if not np.all(np.isfinite(a)):
+        raise linalg.LinAlgError("non-finite vector-fitting system")
     scale_cols = _colscale(a)
     a *= scale_cols
     # Relaxation row: Re sum_k sigma(s_k) = n_s, scaled like the data rows.
@@ -167,14 +170,14 @@ def _relocate(s, h, w, poles, direct, proportional):
     lhs = np.vstack([r[n_num: n_num + n + 1, n_num:], relax[None, :]])
     rhs = np.zeros(lhs.shape[0])
     rhs[-1] = n_s * scale
-    x = linalg.lstsq(lhs, rhs, check_finite=False)[0]
+    x = linalg.lstsq(lhs, rhs)[0]
     x = x * scale_cols[n_num:]
     c_sig, d_sig = x[:n], x[n]
     if abs(d_sig) < _RELAX_TOL or not np.isfinite(d_sig):
         # Degenerate relaxed solution (Gustavsen 2006, sec. III): fix d~ and re-solve.
         d_fix = _RELAX_TOL if not (d_sig < 0) else -_RELAX_TOL
         b2 = -a[:, -1] * (d_fix / scale_cols[-1])
-        y = linalg.lstsq(a[:, :-1], b2, check_finite=False)[0]
+        y = linalg.lstsq(a[:, :-1], b2)[0]
         c_sig = y[n_num:] * scale_cols[n_num:-1]
         d_sig = d_fix
     # Zeros of sigma: eig(A - b c~ / d~) in real state-space form.
@@ -192,8 +195,8 @@ def _relocate(s, h, w, poles, direct, proportional):
             am[i + 1, i], am[i + 1, i + 1] = -p.imag, p.real
             bm[i] = 2.0
             i += 2
-    new = linalg.eigvals(am - np.outer(bm, c_sig) / d_sig, check_finite=False)
-    flipped = int(np.sum(new.real > 0))
+    new = linalg.eigvals(am - np.outer(bm, c_sig) / d_sig)
+    flipped = -np.conj(new[new.real > 0])
     new = np.where(new.real > 0, -np.conj(new), new)
     # A pole exactly on the axis would make the basis singular on a measured point.
     tiny = 1e-12 * max(np.max(np.abs(new)), 1e-300)
@@ -218,7 +221,7 @@ def fit_residues(s, h, w, poles, direct=True, proportional=False):
     a = _realify(w[:, None] * m)
     b = np.concatenate([(w * h).real, (w * h).imag])
     sc = _colscale(a)
-    x = linalg.lstsq(a * sc, b, check_finite=False, lapack_driver="gelsy")[0] * sc
+    x = linalg.lstsq(a * sc, b, lapack_driver="gelsy")[0] * sc
     n = poles.shape[0]
     res = _coeffs_to_residues(x[:n], kind)
     d = float(x[n]) if direct else 0.0
@@ -306,10 +309,13 @@ def vector_fit(
             f"the band holds {s.shape[0]}"
         )
     converged = False
-    flipped = 0
+    flipped = np.zeros(0, dtype=complex)
     it = 0
     for it in range(1, max_iter + 1):
-        new, flipped = _relocate(s, h, w, poles, direct, proportional)
+        try:
+            new, flipped = _relocate(s, h, w, poles, direct, proportional)
+        except (linalg.LinAlgError, ValueError):
+            break  # keep the last good poles; reported as not converged
         change = _pole_change(poles, new)
         poles = new
         if change < tol:
@@ -359,7 +365,7 @@ def vf_to_zpk(vf: VFResult, scale: float) -> tuple[np.ndarray, np.ndarray, float
         big_a[n + 1, m] = -1.0
         big_a[m, n] = vf.e
     with np.errstate(all="ignore"):
-        lam = linalg.eigvals(big_a, big_e, check_finite=False)
+        lam = linalg.eigvals(big_a, big_e)
     ref = max(float(np.max(np.abs(p))) if n else 1.0, 1.0)
     zeros = lam[np.isfinite(lam) & (np.abs(lam) < 1e12 * ref)]
     zeros = _arrange_zeros(zeros)

@@ -11,9 +11,14 @@ match wins):
 * its ``weight`` column (σ ∝ 1/weight), scaled by the scatter,
 * otherwise the point-to-point scatter of the data itself.
 
-The scatter is the robust spread of second differences (for white noise,
-var(x[k−1] − 2x[k] + x[k+1]) = 6σ²), taken in a running window so a noise
-floor that rises where the response is small is followed.  All of it is
+A coherence or weight column is used only when it explains the scatter at
+least as well as the running scatter estimate does (likelihood of the third
+differences); otherwise the scatter wins and the source says so.
+
+The scatter is the robust spread of third differences (for white noise,
+var(x[k+2] − 3x[k+1] + 3x[k] − x[k−1]) = 20σ²; third differences cancel the
+curvature a sparse sweep shows), taken in a running window so a noise floor
+that rises where the response is small is followed.  All of it is
 relative: multiplying the data by a constant changes no weight.
 """
 
@@ -59,7 +64,7 @@ def _window(n: int) -> int:
 
 
 def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
-    """Running robust σ of a real sequence from its second differences.
+    """Running robust σ of a real sequence from its third differences.
 
     Parameters
     ----------
@@ -69,16 +74,16 @@ def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
         Optional known relative σ shape; the scatter then fixes only its scale.
     """
     n = x.shape[0]
-    if n < 3:
+    if n < 4:
         return np.full(n, SIGMA_MIN)
-    d2 = np.abs(x[:-2] - 2.0 * x[1:-1] + x[2:]) / np.sqrt(6.0)
+    d3 = np.abs(_diff3(x)) / np.sqrt(20.0)
     if rel is not None:
-        r = rel[1:-1]
-        scale = _MAD * np.median(d2 / r)
+        r = rel[1:-2]
+        scale = _MAD * np.median(d3 / r)
         return np.maximum(scale * rel, SIGMA_MIN)
-    d2 = np.concatenate([d2[:1], d2, d2[-1:]])
-    local = _MAD * ndimage.median_filter(d2, size=_window(n), mode="nearest")
-    glob = _MAD * np.median(d2)
+    d3 = np.concatenate([d3[:1], d3, d3[-2:]])
+    local = _MAD * ndimage.median_filter(d3, size=_window(n), mode="nearest")
+    glob = _MAD * np.median(d3)
     # A local estimate far below the global one is curvature luck, not a quieter meter.
     return np.maximum(np.maximum(local, 0.3 * glob), SIGMA_MIN)
 
@@ -106,21 +111,48 @@ def point_sigma(h: np.ndarray, stddev=None, coherence=None, weight=None) -> Poin
         sd = np.where(ok, sd, np.max(sd[ok]) * 1e3)
         rel = np.maximum(sd / (np.sqrt(2.0) * mag), SIGMA_MIN)
         return PointSigma(rel, rel.copy(), "stddev")
+    shape = None
     if coherence is not None:
         g = np.asarray(coherence, dtype=float)
         ok = np.isfinite(g) & (g > 0)
         if not np.any(ok):
             raise FitError("the coherence column holds no finite positive value")
         g = np.clip(np.where(ok, g, 1e-6), 1e-6, 1.0 - 1e-9)
-        shape = np.sqrt((1.0 - g) / g)
-        return PointSigma(scatter_sigma(lnm, shape), scatter_sigma(ph, shape), "coherence")
-    if weight is not None:
+        shape, source = np.sqrt((1.0 - g) / g), "coherence"
+    elif weight is not None:
         wt = np.asarray(weight, dtype=float)
         ok = np.isfinite(wt) & (wt > 0)
         if not np.any(ok):
             raise FitError("the weight column holds no finite positive value")
-        shape = 1.0 / np.where(ok, wt, np.min(wt[ok]) * 1e-3)
-        return PointSigma(scatter_sigma(lnm, shape), scatter_sigma(ph, shape), "weight")
+        shape, source = 1.0 / np.where(ok, wt, np.min(wt[ok]) * 1e-3), "weight"
+    plain = PointSigma(scatter_sigma(lnm), scatter_sigma(ph), "scatter")
+    if shape is not None:
+        given = PointSigma(scatter_sigma(lnm, shape), scatter_sigma(ph, shape), source)
+        # Use the column only when it explains the data's scatter at least as well
+        # (Gaussian likelihood of the third differences): a coherence column
+        # unrelated to the actual noise would otherwise mis-weight the fit.
+        if _loglik(lnm, given.mag) + _loglik(ph, given.phase) >= \
+                _loglik(lnm, plain.mag) + _loglik(ph, plain.phase):
+            return given
+        return PointSigma(plain.mag, plain.phase, f"scatter ({source} column did not match it)")
+    return plain
+
+
+def _diff3(x: np.ndarray) -> np.ndarray:
+    """Third differences x[k+2] − 3x[k+1] + 3x[k] − x[k−1] (blind to curvature)."""
+    return x[3:] - 3.0 * x[2:-1] + 3.0 * x[1:-2] - x[:-3]
+
+
+def _loglik(x: np.ndarray, sig: np.ndarray) -> float:
+    """Gaussian log-likelihood of the third differences of ``x`` given per-point σ."""
+    if x.shape[0] < 4:
+        return 0.0
+    d3 = _diff3(x)
+    var = sig[:-3] ** 2 + 9.0 * sig[1:-2] ** 2 + 9.0 * sig[2:-1] ** 2 + sig[3:] ** 2
+    z2 = np.minimum(d3 * d3 / var, 25.0)  # clip outliers (curvature, glitches)
+    return float(-0.5 * np.sum(np.log(var) + z2))
+
+
     return PointSigma(scatter_sigma(lnm), scatter_sigma(ph), "scatter")
 
 
