@@ -26,10 +26,10 @@ def _sweep_text(sep: str, decimal: str, form: str) -> str:
     else:
         head = sep.join(["Frequency (Hz)", "Re", "Im"])
         cols = (f, h.real, h.imag)
-    body = "\n".join(sep.join(f"{v:.6e}" for v in row) for row in zip(*cols))
+    body = "\n".join(sep.join(f"{v:.6e}" for v in row) for row in zip(*cols, strict=True))
     if decimal == ",":
         body = body.replace(".", ",")
-    return "Exported sweep\nPoints: %d\n\n" % N + head + "\n" + body + "\n"
+    return f"Exported sweep\nPoints: {N}\n\n" + head + "\n" + body + "\n"
 
 
 def _touchstone_text() -> str:
@@ -42,7 +42,7 @@ def _trace_text() -> str:
     t = -1e-4 + 1e-8 * np.arange(N)
     y = np.sin(2 * np.pi * 1e4 * t)
     return "Sample Interval,1e-08\nTime (us),CH1 (V),CH2 (V)\n" + "\n".join(
-        f"{ti * 1e6:.3f},{a:.5f},{-a:.5f}" for ti, a in zip(t, y)) + "\n"
+        f"{ti * 1e6:.3f},{a:.5f},{-a:.5f}" for ti, a in zip(t, y, strict=True)) + "\n"
 
 
 def _best(fn, repeat=5) -> float:

@@ -170,7 +170,7 @@ def gen_buck_plant(out: Path, scen: dict) -> None:
     lines = ["Sweep export", "Instrument;benchfit sample generator (simulated analyzer)",
              "Measurement;control-to-output, buck converter", "Points;401",
              "IF bandwidth;10 Hz", "", "Frequency (Hz);Gain (dB);Phase (°)"]
-    lines += [f"{dc(fi, '%.6g')};{dc(m, '%.3f')};{dc(a, '%.2f')}" for fi, m, a in zip(f, mag_db, ph)]
+    lines += [f"{dc(fi, '%.6g')};{dc(m, '%.3f')};{dc(a, '%.2f')}" for fi, m, a in zip(f, mag_db, ph, strict=True)]
     write(out / "buck_plant.csv", "\n".join(lines) + "\n", newline="\r\n")
     scen["buck_plant.csv"] = {
         "what": "control-to-output of a voltage-mode buck (duty -> Vout)", "quantity": "plant",
@@ -179,7 +179,7 @@ def gen_buck_plant(out: Path, scen: dict) -> None:
         "seed": 20240101}
 
     # variant: whitespace, commented header, kHz, radians, descending
-    rows = [f"{fi / 1e3:.6e}  {m:+.4f}  {np.radians(a):+.5f}" for fi, m, a in zip(f, mag_db, ph)][::-1]
+    rows = [f"{fi / 1e3:.6e}  {m:+.4f}  {np.radians(a):+.5f}" for fi, m, a in zip(f, mag_db, ph, strict=True)][::-1]
     text = ("# buck converter control-to-output (same data as ../buck_plant.csv)\n"
             "# swept from high to low frequency\n"
             "# freq[kHz]  gain[dB]  phase[rad]\n" + "\n".join(rows) + "\n")
@@ -194,7 +194,7 @@ def gen_buck_plant(out: Path, scen: dict) -> None:
     hn = 10 ** (mag_db / 20) * np.exp(1j * np.radians(ph))  # the noisy heavy-load data above
     lines = ["Frequency (Hz),Gain heavy (dB),Phase heavy (deg),Gain light (dB),Phase light (deg)"]
     lines += [f"{fi:.6g},{20 * np.log10(abs(a)):.3f},{np.degrees(np.angle(a)):.2f},"
-              f"{20 * np.log10(abs(b)):.3f},{np.degrees(np.angle(b)):.2f}" for fi, a, b in zip(f, hn, h10n)]
+              f"{20 * np.log10(abs(b)):.3f},{np.degrees(np.angle(b)):.2f}" for fi, a, b in zip(f, hn, h10n, strict=True)]
     write(out / "dialects" / "two_loads.csv", "\n".join(lines) + "\n")
     scen["dialects/two_loads.csv"] = {
         "what": "buck control-to-output at 1 ohm (heavy) and 10 ohm (light) load, side by side",
@@ -206,7 +206,7 @@ def gen_buck_plant(out: Path, scen: dict) -> None:
     text = ["Stacked export: one block per trace", ""]
     for title, hh in (("Trace: heavy load (1 ohm)", hn), ("Trace: light load (10 ohm)", h10n)):
         text += [title, "Freq/Hz\tRe\tIm"]
-        text += [f"{fi:.6g}\t{v.real:.6e}\t{v.imag:.6e}" for fi, v in zip(f, hh)]
+        text += [f"{fi:.6g}\t{v.real:.6e}\t{v.imag:.6e}" for fi, v in zip(f, hh, strict=True)]
         text += [""]
     write(out / "dialects" / "stacked_traces.tsv", "\n".join(text))
     scen["dialects/stacked_traces.tsv"] = dict(scen["dialects/two_loads.csv"])
@@ -220,7 +220,7 @@ def gen_buck_zout(out: Path, scen: dict) -> None:
     rng = np.random.default_rng(20240103)
     zn = z * (1 + 0.005 * (rng.normal(size=f.size) + 1j * rng.normal(size=f.size)) / np.sqrt(2))
     lines = ["Frequency [Hz],Z real [Ohm],Z imag [Ohm]"]
-    lines += [f"{fi:.6e},{v.real:.6e},{v.imag:.6e}" for fi, v in zip(f, zn)]
+    lines += [f"{fi:.6e},{v.real:.6e},{v.imag:.6e}" for fi, v in zip(f, zn, strict=True)]
     write(out / "buck_zout.csv", "\n".join(lines) + "\n")
     scen["buck_zout.csv"] = {
         "what": "open-loop output impedance of the buck: (rL + sL) || R || (ESR + 1/sC)",
@@ -228,7 +228,7 @@ def gen_buck_zout(out: Path, scen: dict) -> None:
         "freq_hz": [float(f[0]), float(f[-1]), int(f.size)], "truth": zpk_dict(num, den), "seed": 20240103}
 
     # variant: the same impedance as a Touchstone one-port of Z parameters, normalised to 50 ohm
-    rows = [f"{fi / 1e3:.6f} {v.real / 50.0:.9e} {v.imag / 50.0:.9e}" for fi, v in zip(f, zn)]
+    rows = [f"{fi / 1e3:.6f} {v.real / 50.0:.9e} {v.imag / 50.0:.9e}" for fi, v in zip(f, zn, strict=True)]
     text = ("! buck open-loop output impedance (same data as ../buck_zout.csv)\n"
             "! Z parameters, normalised to R as Touchstone version 1 requires\n"
             "# kHz Z RI R 50\n" + "\n".join(rows) + "\n")
@@ -248,7 +248,7 @@ def gen_ldo(out: Path, scen: dict) -> None:
     lines = ["# Loop gain, 3.3 V linear post-regulator, 22 uF ceramic output capacitor",
              "# injection across 10 ohm in the feedback path; T = -B/A",
              "Freq (kHz)\tMagnitude (V/V)\tPhase (deg)\tCoherence"]
-    lines += [f"{fi / 1e3:.5e}\t{m:.5e}\t{a:.2f}\t{c:.4f}" for fi, m, a, c in zip(f, mag, ph, coh)]
+    lines += [f"{fi / 1e3:.5e}\t{m:.5e}\t{a:.2f}\t{c:.4f}" for fi, m, a, c in zip(f, mag, ph, coh, strict=True)]
     write(out / "ldo_loop.csv", "\n".join(lines) + "\n")
     cl = t / (1 + t)
     i = int(np.argmin(np.abs(np.abs(t) - 1)))
@@ -262,7 +262,7 @@ def gen_ldo(out: Path, scen: dict) -> None:
 
     # variant: UTF-8 with BOM, CRLF, names row + unit row, dB/deg, comma separated
     lines = ["Frequency,Magnitude,Phase", "Hz,dB,deg"]
-    lines += [f"{fi:.6g},{20 * np.log10(m):.4f},{a:.2f}" for fi, m, a in zip(f, mag, ph)]
+    lines += [f"{fi:.6g},{20 * np.log10(m):.4f},{a:.2f}" for fi, m, a in zip(f, mag, ph, strict=True)]
     write(out / "dialects" / "ldo_loop_bom_units.csv", "\n".join(lines) + "\n", newline="\r\n", bom=True)
     scen["dialects/ldo_loop_bom_units.csv"] = dict(scen["ldo_loop.csv"])
 
@@ -321,7 +321,7 @@ def gen_step(out: Path, scen: dict) -> None:
     lines = ["Model,benchfit sample generator (simulated scope)", f"Record Length,{n}",
              "Sample Interval,1.0E-06", "Trigger Point,200", "Source,CH1 CH2", "Vertical Units,V",
              "Horizontal Units,us", "", "Time (us),CH1 (V),CH2 (V)"]
-    lines += [f"{ti * 1e6:.1f},{a:.5f},{b:.5f}" for ti, a, b in zip(t, ch1, ch2)]
+    lines += [f"{ti * 1e6:.1f},{a:.5f},{b:.5f}" for ti, a, b in zip(t, ch1, ch2, strict=True)]
     write(out / "step_trace.csv", "\n".join(lines) + "\n")
     scen["step_trace.csv"] = {
         "what": "reference step on the compensated buck: CH1 reference, CH2 output",
@@ -347,7 +347,7 @@ def gen_load_step(out: Path, scen: dict) -> None:
     v_n = v + rng.normal(0, 0.3e-3, n)
     lines = ["Scope export (benchfit sample generator)", "Sample interval;500 ns", "Start time;-100 us",
              f"Points;{n}", "", "Iout (A);Vout AC (mV)"]
-    lines += [f"{dc(a, '%.4f')};{dc(b * 1e3, '%.3f')}" for a, b in zip(i_n, v_n)]
+    lines += [f"{dc(a, '%.4f')};{dc(b * 1e3, '%.3f')}" for a, b in zip(i_n, v_n, strict=True)]
     write(out / "load_step_trace.csv", "\n".join(lines) + "\n")
     scen["load_step_trace.csv"] = {
         "what": "output deviation of the compensated buck for a 0.5 A -> 1.5 A load step",

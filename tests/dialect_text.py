@@ -60,7 +60,7 @@ def write_dialect(freq_hz, response, *, sep=",", decimal=".", header="paren", fr
     first, second = FORMS[form]
     scale = FREQ_SCALE[freq_unit]
     rows = []
-    for fi, hi in zip(f, h):
+    for fi, hi in zip(f, h, strict=True):
         if first == "re":
             a, b = _cell(hi.real, "%.6e", decimal), _cell(hi.imag, "%.6e", decimal)
         else:
@@ -73,7 +73,7 @@ def write_dialect(freq_hz, response, *, sep=",", decimal=".", header="paren", fr
         rows = rows[::-1]
     lines = []
     if metadata:
-        lines += ["Sweep export", "Instrument: simulated analyzer", "Points: %d" % len(rows), ""]
+        lines += ["Sweep export", "Instrument: simulated analyzer", f"Points: {len(rows)}", ""]
     if comments:
         lines += ["# written by the dialect test helper", "! a second kind of comment"]
     if header in _NAMES:

@@ -23,7 +23,7 @@ def _wave(n=50, dt=2e-6, t0=-20e-6):
 def test_time_column_units(tmp_path, unit, scale, style):
     t, a, b = _wave()
     head = style.format(u=unit)
-    rows = "\n".join(f"{ti * scale:.9g},{x:.6f},{y:.6f}" for ti, x, y in zip(t, a, b))
+    rows = "\n".join(f"{ti * scale:.9g},{x:.6f},{y:.6f}" for ti, x, y in zip(t, a, b, strict=True))
     tr = read_trace(_file(tmp_path, f"{head},CH1 (V),CH2 (V)\n{rows}\n"))
     np.testing.assert_allclose(tr.time_s, t, rtol=1e-9, atol=1e-15)
     assert tr.names == ["CH1", "CH2"]
@@ -32,7 +32,7 @@ def test_time_column_units(tmp_path, unit, scale, style):
 
 def test_sample_interval_line_decimal_comma_and_mv(tmp_path):
     t, a, b = _wave(n=40, dt=0.5e-6, t0=-5e-6)
-    rows = "\n".join(f"{x:.4f};{y * 1e3:.3f}".replace(".", ",") for x, y in zip(a, b))
+    rows = "\n".join(f"{x:.4f};{y * 1e3:.3f}".replace(".", ",") for x, y in zip(a, b, strict=True))
     text = f"Scope export\nSample interval;500 ns\nStart time;-5 us\n\nIout (A);Vout (mV)\n{rows}\n"
     tr = read_trace(_file(tmp_path, text))
     np.testing.assert_allclose(tr.time_s, t, rtol=1e-12, atol=1e-18)
@@ -56,7 +56,7 @@ def test_timing_metadata_forms(tmp_path, lines, dt, t0):
 
 def test_pick_channel_by_name_or_index(tmp_path):
     t, a, b = _wave()
-    rows = "\n".join(f"{ti:.9g}\t{x:.6f}\t{y:.6f}" for ti, x, y in zip(t, a, b))
+    rows = "\n".join(f"{ti:.9g}\t{x:.6f}\t{y:.6f}" for ti, x, y in zip(t, a, b, strict=True))
     p = _file(tmp_path, f"Time (s)\tCH1 (V)\tCH2 (V)\n{rows}\n", "s.tsv")
     for pick in ("CH2", "ch2", 1, "1"):
         tr = read_trace(p, channel=pick)

@@ -420,7 +420,7 @@ def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Bloc
         if data is None:
             if not exact:
                 raise _Retry
-            rows = [(k + 1, d.split(t)) for k, t in zip(idx, texts)]
+            rows = [(k + 1, d.split(t)) for k, t in zip(idx, texts, strict=True)]
             ncols = Counter(len(c) for _, c in rows).most_common(1)[0][0]
             data = _parse_rows(rows, d, ncols, source, names)
         blocks.append(Block(data=data, line_no=np.asarray(idx) + 1, names=names,

@@ -160,7 +160,7 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
             continue
         if spec is None:
             warnings.extend(pair_warn)
-        for k, p in enumerate(pairs):
+        for p in pairs:
             parts = [x for x in ((blk.title or "") if len(blocks) > 1 else "",
                                  p.label if len(pairs) > 1 else "") if x]
             label = " ".join(parts) or f"trace {len(traces) + 1}"

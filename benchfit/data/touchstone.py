@@ -159,7 +159,7 @@ def _slow_table(lines: list[str], line_no: list[int], ports: int, m: int, source
     values: list[float] = []
     counts: list[int] = []
     where: list[int] = []
-    for s, k in zip(lines, line_no):
+    for s, k in zip(lines, line_no, strict=True):
         toks = s.split()
         for t in toks:
             try:
@@ -179,7 +179,7 @@ def _slow_table(lines: list[str], line_no: list[int], ports: int, m: int, source
                              source=source, line=where[-1])
         return arr.reshape(-1, m)
     rows, last_f, pos = [], -np.inf, 0
-    for k, count in zip(line_no, counts):
+    for k, count in zip(line_no, counts, strict=True):
         if ports == 2 and count == 5 and rows and arr[pos] <= last_f:
             break  # noise parameters begin
         if count != m:
