@@ -246,3 +246,16 @@ def test_large_file_reads(tmp_path):
     r = read_sweep(_write(tmp_path, "big.csv", w.data))
     assert len(r) == 100_000
     np.testing.assert_allclose(r.response[[0, -1]], w.response[[0, -1]], rtol=1e-12)
+
+
+def test_utf16_and_more_name_forms(tmp_path):
+    text = "F\t|Z| (Ohm)\targ (deg)\r\n10\t2\t-90\r\n20\t1\t-90\r\n"
+    r = read_sweep(_write(tmp_path, "u16.txt", text.encode("utf-16")))
+    np.testing.assert_allclose(r.response, [-2j, -1j], atol=1e-12)
+    assert r.quantity == "impedance" and r.meta["dialect"]["mag_form"] == "linear"
+
+
+def test_fewer_column_words_than_columns(tmp_path):
+    text = "1;0;0;99\n2;-6;-90;99\n"
+    r = read_sweep(_write(tmp_path, "h.csv", text), columns="freq,db,deg")
+    np.testing.assert_allclose(r.mag_db, [0, -6], atol=1e-12)
