@@ -116,11 +116,11 @@ def test_cli_errors_are_one_line(plant_lot, tmp_path):
 
 def test_real_design_file_gives_the_designs_own_prediction_for_the_nominal_unit(tmp_path):
     # A design written by `benchfit design` (not hand-made data): batch reads its snapped
-    # compensator and divider, fits the same noiseless nominal sweep the design fitted,
-    # and so must land on the design's own predicted margins.
+    # compensator and divider, fits the same nominal sweep the design fitted (the fit is
+    # deterministic), and so must land on the design's own predicted margins.
     from benchfit.data import write_sweep_csv
 
-    write_sweep_csv(unit_sweep(9, 0, noise=0.0), tmp_path / "nominal.csv")
+    write_sweep_csv(unit_sweep(9, 0), tmp_path / "nominal.csv")
     res = subprocess.run([sys.executable, "-m", "benchfit", "design", str(tmp_path / "nominal.csv"),
                           "--network", "type3", "--crossover", "25k", "--divider", "27k:6k",
                           "--draws", "0", "-o", str(tmp_path / "d.json")],

@@ -132,3 +132,28 @@ def make_lot(folder: str | os.PathLike, n: int, *, seed: int = 1, quantity: str 
         out.append(write_sweep_csv(unit_sweep(seed, i, quantity=quantity, points=points),
                                    folder / f"unit_{i:05d}.csv"))
     return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    """``python -m benchfit.batch.synth_lot FOLDER N``: write a lot and its design.json."""
+    import argparse
+
+    from benchfit.fileio import write_json_atomic
+
+    ap = argparse.ArgumentParser(prog="python -m benchfit.batch.synth_lot",
+                                 description="Write a generated lot of converter sweeps and design.json.")
+    ap.add_argument("folder")
+    ap.add_argument("n", type=int)
+    ap.add_argument("--quantity", choices=("plant", "loop"), default="plant")
+    ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--points", type=int, default=401)
+    a = ap.parse_args(argv)
+    files = make_lot(Path(a.folder) / "sweeps", a.n, seed=a.seed, quantity=a.quantity, points=a.points)
+    write_json_atomic(Path(a.folder) / "design.json", lot_design())
+    print(f"wrote {len(files)} {a.quantity} sweeps to {Path(a.folder) / 'sweeps'} "
+          f"and {Path(a.folder) / 'design.json'}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
