@@ -11,7 +11,8 @@ from benchfit.batch.runner import find_sweeps, rows_path_for, run_lot
 from benchfit.batch.summary import plot_histograms, summarise
 from benchfit.batch.table import read_table
 from benchfit.batch.task import TaskSettings, read_design_loop
-from benchfit.cli.common import add_json_flag, emit, parse_band, parse_si, warn
+from benchfit.cli.cmd_fit import _delay, _order  # the same option forms as `benchfit fit`
+from benchfit.cli.common import add_json_flag, emit, parse_band, warn
 from benchfit.errors import InputError
 from benchfit.fileio import write_json_atomic
 
@@ -45,27 +46,6 @@ def register(subparsers) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress line")
     add_json_flag(p)
     p.set_defaults(func=run)
-
-
-def _order(text: str) -> str | int:
-    if text == "auto":
-        return text
-    try:
-        n = int(text)
-    except ValueError:
-        n = 0
-    if n < 1:
-        raise InputError(f"{text!r}; expected auto or a whole number of poles >= 1", source="--order")
-    return n
-
-
-def _delay(text: str) -> str | float:
-    if text in ("auto", "none"):
-        return text
-    v = parse_si(text, "--delay")
-    if v < 0:
-        raise InputError(f"{text!r}; expected auto, none or a delay >= 0 s", source="--delay")
-    return v
 
 
 def run(args: argparse.Namespace) -> int:
