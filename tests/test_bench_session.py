@@ -160,3 +160,17 @@ def test_session_against_a_plain_pyvisa_sim_device(tmp_path):
         with pytest.raises(InstrumentError, match=r"SENS:FREQ:STAR 1e12.*-113"):
             s.configure("SENS:FREQ:STAR 1e12")      # pyvisa-sim rejects out-of-spec values the same way
         assert float(s.query("SENS:FREQ:STAR?")) == 250.0
+
+
+def test_nothing_listening_is_a_clear_error():
+    import socket
+
+    from benchfit.bench.session import open_session
+
+    probe = socket.socket()
+    probe.bind(("127.0.0.1", 0))
+    port = probe.getsockname()[1]
+    probe.close()                      # nothing listens on this loopback port now
+    with pytest.raises(InstrumentError, match=f"TCPIP0::127.0.0.1::{port}::SOCKET.*(refused|cannot open)"):
+        with open_session(f"TCPIP0::127.0.0.1::{port}::SOCKET", profile()) as s:
+            s.identify()

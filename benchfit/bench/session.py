@@ -90,8 +90,8 @@ class Session:
                 self.timeouts += 1
                 raise _Timeout() from e
             if kind == "lost":
-                raise InstrumentError(f"connection lost ({type(e).__name__}: {e}); points saved so "
-                                      "far are kept", resource=self.name, command=command) from None
+                raise InstrumentError(f"connection lost or refused ({type(e).__name__}: {e})",
+                                      resource=self.name, command=command) from None
             raise
 
     def write(self, command: str) -> None:
