@@ -289,7 +289,10 @@ def _gain_crossing(c: _Curve, i: int) -> tuple[float, float]:
         t = g0 / (g0 - g1) if g0 != g1 else 0.0
         return 10 ** (x0 + t * (x1 - x0)), float(c.phase[i] + t * (c.phase[i + 1] - c.phase[i]))
     fn, Ti, pi = c.exact, c.T[i], c.phase[i]
-    x = optimize.brentq(lambda xx: float(_db(fn(np.array([10 ** xx]))[0])), x0, x1, xtol=1e-13)
+    try:
+        x = optimize.brentq(lambda xx: float(_db(fn(np.array([10 ** xx]))[0])), x0, x1, xtol=1e-13)
+    except ValueError:      # grid too coarse for the exact function (capped refinement)
+        return _gain_crossing(_Curve(c.f, c.T, c.phase, None), i)
     Tx = fn(np.array([10 ** x]))[0]
     return 10 ** x, float(pi + np.degrees(np.angle(Tx / Ti)))
 
@@ -307,7 +310,10 @@ def _phase_crossing(c: _Curve, i: int, target: float) -> tuple[float, float]:
     def h(xx):
         return p0 + np.degrees(np.angle(fn(np.array([10 ** xx]))[0] / Ti)) - target
 
-    x = optimize.brentq(h, x0, x1, xtol=1e-13)
+    try:
+        x = optimize.brentq(h, x0, x1, xtol=1e-13)
+    except ValueError:      # grid too coarse for the exact function (capped refinement)
+        return _phase_crossing(_Curve(c.f, c.T, c.phase, None), i, target)
     return 10 ** x, float(_db(fn(np.array([10 ** x]))[0]))
 
 
@@ -390,6 +396,12 @@ def _analyse(c: _Curve, *, unstable: int, integrators: int | None, data: bool,
         for p in peaks[:3]:
             warnings.append(f"sharp peak at {f[p + 1]:.4g} Hz is defined by one point; "
                             "its height and any crossing near it are uncertain")
+
+    if data and len(gain) > 6:
+        fs = [g["freq_hz"] for g in gain]
+        warnings.append(f"{len(gain)} gain crossings between {min(fs):.4g} and {max(fs):.4g} Hz: the "
+                        "magnitude hovers around 0 dB there and noise makes crossings; is this a "
+                        "loop-gain measurement (not a closed-loop or plant response)?")
 
     # --- main crossover
     main_i = _main_crossing(x, db, downs, ups, xc)
@@ -704,14 +716,28 @@ def model_band(model, *, margin_decades: float = 3.0) -> tuple[float, float]:
     hi = (sing.max() if sing.size else 1.0) * 10 ** margin_decades
     n_int = int(np.sum(model.poles == 0))
     for _ in range(30):
-        if abs(model.response(np.array([hi]))[0]) < 0.3:
+        g_hi = abs(model.response(np.array([hi]))[0])
+        g_prev = abs(model.response(np.array([hi / 10]))[0])
+        # stop when |T| is small, or flat (a biproper loop settles at |T(∞)|)
+        if g_hi < 0.3 or abs(g_hi / g_prev - 1) < 0.01:
             break
         hi *= 10
+    if model.delay_s > 0:
+        # above everything else a delay only spins the phase: keep ~30 turns of it
+        hi = min(hi, max(30.0 / model.delay_s, 10 * (sing.max() if sing.size else 0.0),
+                         _top_crossing_hz(model, lo, hi)))
     for _ in range(30):
         if n_int == 0 or abs(model.response(np.array([lo]))[0]) > 3.0:
             break
         lo /= 10
     return float(lo), float(hi)
+
+
+def _top_crossing_hz(model, lo: float, hi: float) -> float:
+    """Highest frequency (Hz) on a coarse grid where |T| >= 1 (0 if none): keep it in band."""
+    f = np.logspace(math.log10(lo), math.log10(hi), 2000)
+    above = np.flatnonzero(np.abs(model.response(f)) >= 1.0)
+    return float(f[min(above[-1] + 1, f.size - 1)]) * 2 if above.size else 0.0
 
 
 def margins_of_model(model, *, f_min_hz: float | None = None, f_max_hz: float | None = None,

@@ -1,0 +1,128 @@
+"""Reading a loop gain from a file, and its margins, whatever form it comes in.
+
+A loop gain can be
+
+* a sweep file (measured loop gain; any dialect :func:`benchfit.data.read_sweep` reads),
+* a JSON model (``"kind": "plant_model"``), a fit result (has ``"model"``) or a
+  frequency response (``"kind": "frequency_response"``),
+* a design (``"kind": "design"``): its snapped loop, ``loop_model.snapped``
+  (a model) or ``loop_data.snapped`` (a sweep).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from benchfit.data.response import FrequencyResponse
+from benchfit.errors import InputError
+from benchfit.fileio import read_json
+from benchfit.fitting.model import PlantModel
+from benchfit.loop.margins import Margins, margins_from_data, margins_of_model
+
+
+def _looks_like_json(path: Path) -> bool:
+    if path.suffix.lower() == ".json":
+        return True
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(64).lstrip(b"\xef\xbb\xbf \t\r\n")
+    except OSError:
+        return False
+    return head.startswith(b"{")
+
+
+def read_loop(path: str | os.PathLike, *, which: str = "snapped",
+              **read_options: Any) -> PlantModel | FrequencyResponse:
+    """The loop gain held in ``path`` (see the module notes for the forms accepted).
+
+    Parameters
+    ----------
+    path
+        Sweep file or JSON.
+    which
+        For a design: ``"snapped"`` (default) or ``"ideal"`` parts.
+    **read_options
+        Passed to :func:`benchfit.data.read_sweep` for sweep files.
+
+    Raises
+    ------
+    InputError
+        Missing file, unknown JSON kind, or a design without a loop.
+    """
+    p = Path(path)
+    if not p.exists():
+        raise InputError("file not found", source=str(path))
+    if not _looks_like_json(p):
+        from benchfit.data import read_sweep
+
+        return read_sweep(p, **read_options)
+    d = read_json(p)
+    kind = d.get("kind")
+    try:
+        if kind == "design":
+            if which not in ("snapped", "ideal"):
+                raise InputError(f"{which!r}: expected 'snapped' or 'ideal'")
+            if isinstance(d.get("loop_model"), dict) and which in d["loop_model"]:
+                return PlantModel.from_dict(d["loop_model"][which])
+            if isinstance(d.get("loop_data"), dict) and which in d["loop_data"]:
+                return FrequencyResponse.from_dict(d["loop_data"][which])
+            raise InputError("design has neither loop_model nor loop_data with "
+                             f"{which!r} parts")
+        if kind == "frequency_response" or ("freq_hz" in d and "response" in d):
+            return FrequencyResponse.from_dict(d)
+        if kind == "plant_model" or "poles" in d or isinstance(d.get("model"), dict):
+            return PlantModel.from_dict(d)
+    except InputError as e:
+        raise InputError(e.message, source=str(path)) from None
+    raise InputError(f"JSON of kind {kind!r} holds no loop gain; expected a model, a fit result, "
+                     "a frequency response or a design", source=str(path))
+
+
+def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
+                    unstable_open_loop_poles: int | None = None,
+                    band: tuple[float | None, float | None] | None = None,
+                    extra_delay_s: float = 0.0) -> Margins:
+    """Margins of a loop gain given as a model or a sweep.
+
+    Parameters
+    ----------
+    loop
+        The loop gain T.
+    unstable_open_loop_poles
+        P for the Nyquist count: counted from a model's poles when None,
+        0 for a sweep when None.
+    band
+        (f_min_hz, f_max_hz) to restrict to (either may be None).
+    extra_delay_s
+        A pure delay added to the loop, exactly (e.g. to see the margin
+        left after a sampling delay).
+    """
+    lo, hi = band if band is not None else (None, None)
+    d = float(extra_delay_s)
+    if not math.isfinite(d) or d < 0:
+        raise InputError(f"delay must be >= 0 s, found {extra_delay_s}", source="--delay")
+    if isinstance(loop, PlantModel):
+        if d:
+            loop = PlantModel(loop.zeros, loop.poles, loop.k, delay_s=loop.delay_s + d,
+                              provenance=loop.provenance.derive("add_delay", {"delay_s": d}))
+        return margins_of_model(loop, f_min_hz=lo, f_max_hz=hi,
+                                unstable_open_loop_poles=unstable_open_loop_poles)
+    if isinstance(loop, FrequencyResponse):
+        sweep = loop.band(lo, hi) if (lo is not None or hi is not None) else loop
+        T = sweep.response * np.exp(-2j * np.pi * sweep.freq_hz * d) if d else sweep.response
+        prov = sweep.provenance if not d else sweep.provenance.derive("add_delay", {"delay_s": d})
+        m = margins_from_data(sweep.freq_hz, T,
+                              unstable_open_loop_poles=unstable_open_loop_poles or 0,
+                              provenance=prov)
+        if sweep.quantity in ("plant", "closed", "impedance", "compensator"):
+            m = replace(m, warnings=(f"the sweep is marked as a {sweep.quantity} measurement, not a "
+                                     "loop gain; these margins treat it as T",) + m.warnings)
+        return m
+    raise InputError(f"a loop must be a model or a sweep, found {type(loop).__name__}")
+
