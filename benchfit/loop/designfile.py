@@ -5,6 +5,7 @@ needs; paths are relative to the file itself::
 
     [plant]
     files = ["buck_light_load.csv", "buck_full_load.json"]   # one or more corners
+    # "two_loads.csv@light": one trace of a file holding several
     order = "auto"            # fit options for sweeps (fitted on the fly)
     delay = "auto"            # "auto", "none" or seconds
     band_hz = [100, 500e3]
@@ -130,6 +131,8 @@ def load_plant(path: str | os.PathLike, sensing: Sensing | None = None,
                existing_opamp: OpAmp | None = None) -> LoopPlant:
     """A plant (with sensing) from a model JSON, a fit-result JSON or a sweep file.
 
+    ``FILE@TRACE`` (when no file of that whole name exists) reads one trace
+    (1-based number or part of its name) of a sweep file holding several.
     Sweeps are fitted on the fly with :func:`benchfit.fitting.fit`; a fit
     result keeps its band and parameter covariance (for the Monte Carlo).
     With ``existing``, the file is a loop gain measured with that network in
@@ -142,6 +145,11 @@ def load_plant(path: str | os.PathLike, sensing: Sensing | None = None,
 
     name = Path(path).name
     sensing = sensing or Sensing.plain()
+    trace = None
+    if not Path(path).exists() and "@" in str(path):
+        # FILE@TRACE picks one trace of a file holding several (e.g. two load corners)
+        path, trace = str(path).rsplit("@", 1)
+        trace = int(trace) if trace.isdigit() else trace
     if not Path(path).exists():
         raise InputError("file not found", source=str(path))
     obj: Any
@@ -161,7 +169,7 @@ def load_plant(path: str | os.PathLike, sensing: Sensing | None = None,
         except InputError as e:
             raise InputError(e.message, source=str(path)) from None
     else:
-        obj = read_sweep(path)
+        obj = read_sweep(path, trace=trace)
     if existing is not None:
         if isinstance(obj, FitResult):
             obj = obj.model
