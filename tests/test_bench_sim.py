@@ -8,8 +8,11 @@ reference for what the simulator sends.
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from benchfit.bench.blocks import parse_ascii, parse_block
+from benchfit.bench.scpi import header_matches, short_form
 from benchfit.bench.sim_transport import LoopbackServer, attach_to_pyvisa_sim, sim_resource_manager
 from benchfit.bench.simulator import ERROR_QUEUE_LENGTH, SimulatedAnalyzer
 from benchfit.errors import InputError
@@ -213,3 +216,17 @@ def test_loopback_server_stops_by_itself():
     srv._thread.join(timeout=5)
     assert not srv._thread.is_alive()
     srv.stop()
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.lists(st.from_regex(r"[A-Z]{3,4}[a-z]{0,6}", fullmatch=True), min_size=1, max_size=4),
+       st.randoms())
+def test_any_mix_of_long_and_short_forms_matches(nodes, rnd):
+    # SCPI-1999 Vol. 1 §6.2: each node may be sent long or short, in any case
+    pattern = ":".join(nodes)
+    sent = []
+    for node in nodes:
+        word = node if rnd.random() < 0.5 else short_form(node)
+        sent.append("".join(c.upper() if rnd.random() < 0.5 else c.lower() for c in word))
+    assert header_matches(":".join(sent), pattern)
+    assert not header_matches(":".join(sent) + ":EXTRa", pattern)

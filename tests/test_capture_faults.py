@@ -182,7 +182,7 @@ def _model_file(tmp_path):
 
 def _cli(model, out, *extra):
     return [sys.executable, "-m", "benchfit", "capture", "--simulate", str(model), "--start", "10",
-            "--stop", "1e5", "--points", "24", "--mode", "step", "--sim-point-time", "0.03",
+            "--stop", "1e5", "--points", "24", "--mode", "step", "--sim-point-time", "0.05",
             "--no-progress", "-o", str(out), *extra]
 
 
