@@ -27,9 +27,12 @@ import numpy as np
 
 from benchfit.batch.limits import Limits, judge
 from benchfit.batch.table import PARAM_PREFIX
+from benchfit.data import read_sweep
 from benchfit.errors import BenchfitError, InputError
 from benchfit.fileio import decode_complex, read_json, to_json_text
+from benchfit.fitting import fit
 from benchfit.fitting.model import PlantModel
+from benchfit.loop.margins import margins_from_data, margins_of_model
 from benchfit.provenance import Provenance
 
 #: Header metadata keys that name a unit (first found wins, case-insensitive).
@@ -162,12 +165,6 @@ def _one_line(text: str) -> str:
     return re.sub(r"\s+", " ", str(text)).strip()
 
 
-def _read(path: str):
-    from benchfit.data import read_sweep
-
-    return read_sweep(path)
-
-
 def _margin_cells(m) -> dict[str, Any]:
     def num(v):
         return None if v is None else float(v)
@@ -179,7 +176,7 @@ def _margin_cells(m) -> dict[str, Any]:
         "phase_crossover_hz": num(m.phase_crossover_hz),
         "delay_margin_s": num(m.delay_margin_s),
         "modulus_margin": num(m.modulus_margin),
-        "modulus_freq_hz": num(getattr(m, "modulus_freq_hz", None)),
+        "modulus_freq_hz": num(m.modulus_freq_hz),
         "gain_crossings": sum(1 for c in (m.crossings or ()) if c.get("kind") == "gain"),
         "closed_loop_stable": None if m.closed_loop_stable is None else bool(m.closed_loop_stable),
     }
@@ -210,17 +207,13 @@ def _fit_cells(fr, param_names: tuple[str, ...]) -> dict[str, Any]:
 
 
 def _fit(resp, s: TaskSettings, *, loop: bool = False):
-    from benchfit.fitting import fit
-
     # A loop gain usually holds the compensator's integrator: let the fit find it.
     extra = {"integrators": "auto"} if loop else {}
     return fit(resp, order=s.order, delay=s.delay, band=s.band, weighting=s.weighting, **extra)
 
 
 def _measure(path: str, s: TaskSettings, row: dict[str, Any], warnings: list[str]) -> None:
-    from benchfit.loop.margins import margins_from_data, margins_of_model
-
-    resp = _read(path)
+    resp = read_sweep(path)
     quantity = s.quantity or resp.quantity
     row.update(unit=unit_id(path, resp.meta), quantity=quantity, points=len(resp),
                f_min_hz=resp.f_min_hz, f_max_hz=resp.f_max_hz)
