@@ -30,6 +30,7 @@ from typing import Any
 
 import numpy as np
 
+from benchfit.bench.blocks import parse_ascii
 from benchfit.bench.profile import Profile
 from benchfit.bench.session import Session
 from benchfit.data.canonical import SWEEP_MAGIC, read_canonical_sweep
@@ -301,7 +302,7 @@ class Capture:
     def _resumed(self) -> dict[str, Any]:
         if not self.manifest_file.exists():
             raise InputError(f"no capture manifest {self.manifest_file.name} beside it; nothing to "
-                             "resume", source=str(self.out))
+                             "resume (remove the file to start again)", source=str(self.out))
         m = read_json(self.manifest_file)
         if m.get("kind") != "capture_manifest":
             raise InputError("not a capture manifest", source=str(self.manifest_file))
@@ -317,7 +318,10 @@ class Capture:
         if not self.out.exists():
             raise InputError("output file is missing; cannot resume", source=str(self.out))
         size = self.out.stat().st_size
-        want = int(m["bytes"])
+        want = m.get("bytes")
+        if not isinstance(want, int) or not isinstance(m.get("segments_done"), int):
+            raise InputError("manifest lacks its byte and segment counts; cannot resume safely",
+                             source=str(self.manifest_file))
         if size < want:
             raise InputError(f"file holds {size} bytes but the manifest recorded {want}; the file was "
                              "changed after capture, cannot resume safely", source=str(self.out))
@@ -400,7 +404,8 @@ class Capture:
         ses.configure(p.command("cw", freq_hz=f))
         self._trigger_and_wait()
         if p.has("cw_query"):
-            f = float(ses.query(p.command("cw_query")).strip())
+            cmd = p.command("cw_query")
+            f = float(parse_ascii(ses.query(cmd), what=cmd)[0])
         data_cmd = p.command("data_query")
         h = to_complex(ses.query_values(data_cmd), p.response_form, what=data_cmd)
         if h.size != 1:
