@@ -140,8 +140,9 @@ def opamp_warnings(net: Network, opamp: OpAmp | None, fc_hz: float) -> list[str]
     ddb = 20 * math.log10(abs(ideal / real))
     if dphi > OPAMP_PHASE_WARN_DEG or abs(ddb) > 1.0:
         return [f"op-amp GBW {opamp.gbw_hz:.4g} Hz is too close to the {fc_hz:.4g} Hz crossover: "
-                f"it costs {dphi:.1f}° of phase and {ddb:.1f} dB of gain there; choose a faster "
-                "op-amp or a lower crossover"]
+                f"it costs {dphi:.1f}° of phase and {ddb:.1f} dB of gain there (included in the "
+                "predictions, but the op-amp's own spread is not); choose a faster op-amp or a "
+                "lower crossover"]
     return []
 
 
@@ -342,7 +343,8 @@ class Design:
                  + (f", {len(self.corners)} plant corners" if len(self.corners) > 1 else "")]
         if self.synthesis is not None:
             s = self.synthesis
-            lines.append(f"placed for crossover {s.crossover_hz:.4g} Hz: plant phase "
+            auto = " (chosen automatically)" if self.targets.crossover_hz is None else ""
+            lines.append(f"placed for crossover {s.crossover_hz:.4g} Hz{auto}: plant phase "
                          f"{s.plant_phase_deg:.1f}°, boost {s.boost_deg:.1f}°, K {s.k:.3g}")
         given = self.method == "check"
         lines.append(f"{'part':6}{'given':>14}" if given else f"{'part':6}{'ideal':>14}{'snapped':>12}")
@@ -430,7 +432,8 @@ def design(corners: LoopPlant | Sequence[LoopPlant], kind: str, targets: Targets
     ideal = predict(corners, syn.network, opamp)
     snapped = predict(corners, snapped_net, opamp)
     names = [lp.name for lp in corners]
-    warnings = list(syn.notes)
+    # the automatic-crossover remark is information (kept in synthesis.notes), not a warning
+    warnings = [n for n in syn.notes if "meeting the targets with parts in the practical" not in n]
     warnings += snapped_net.practical_warnings("snapped")
     warnings += opamp_warnings(syn.network, opamp, syn.crossover_hz)
     warnings += target_warnings(ideal, targets, names, "ideal")
