@@ -12,7 +12,7 @@ The result carries ``meta["dialect"]`` (what was detected and used) and
 from __future__ import annotations
 
 import os
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -20,8 +20,9 @@ import numpy as np
 
 from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_sweep
 from benchfit.data.columns import Column, TracePair, classify_all, pair_traces
-from benchfit.data.dialect import Block, find_blocks, load_text, sniff
+from benchfit.data.dialect import load_text, sniff
 from benchfit.data.response import QUANTITIES, FrequencyResponse
+from benchfit.data.table import Block, find_blocks
 from benchfit.data.touchstone import looks_like_touchstone, ports_from_name, read_touchstone
 from benchfit.data.units import freq_factor, freq_unit_name
 from benchfit.errors import InputError
@@ -133,9 +134,21 @@ def _decide_phase(values: np.ndarray, col: Column, override: str, warnings: list
     return form
 
 
+@dataclass
+class _Table:
+    """What the table path found: one trace's values and how they were read."""
+
+    freq_hz: np.ndarray
+    response: np.ndarray
+    extras: dict[str, np.ndarray]  # coherence / stddev / weight columns
+    dialect: dict[str, Any]
+    columns: list[Column]
+    impedance: bool
+    notes: list[str]
+
+
 def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phase,
-                 warnings: list[str]) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray],
-                                               dict[str, Any], list[Column], bool, list[str]]:
+                 warnings: list[str]) -> _Table:
     lines = text.splitlines()
     d = sniff(lines, source)
     blocks = find_blocks(lines, d, source)
@@ -210,8 +223,8 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
         "trace_label": label,
         "traces": [t[0] for t in traces],
     }
-    impedance = any(c.impedance for c in (pair.first, pair.second))
-    return f, h, extras, dialect, pair.columns(), impedance, blk.notes
+    return _Table(freq_hz=f, response=h, extras=extras, dialect=dialect, columns=pair.columns(),
+                  impedance=any(c.impedance for c in (pair.first, pair.second)), notes=blk.notes)
 
 
 def _order(f: np.ndarray, h: np.ndarray, extras: dict[str, np.ndarray], warnings: list[str]
@@ -334,10 +347,11 @@ def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = Non
     else:
         if param is not None:
             warnings.append("param applies to Touchstone files only; ignored")
-        f, h, extras, dialect, used, impedance, notes = _table_sweep(
-            text, source, columns=columns, trace=trace, freq_unit=freq_unit, mag=mag, phase=phase,
-            warnings=warnings)
-        cols = [c.to_dict() for c in used]
+        tab = _table_sweep(text, source, columns=columns, trace=trace, freq_unit=freq_unit, mag=mag,
+                           phase=phase, warnings=warnings)
+        f, h, extras, dialect = tab.freq_hz, tab.response, tab.extras, tab.dialect
+        impedance, notes = tab.impedance, tab.notes
+        cols = [c.to_dict() for c in tab.columns]
     if f.size < 2:
         raise InputError(f"only {f.size} data point; a sweep needs at least 2", source=source)
     f, h, extras, order = _order(f, h, extras, warnings)

@@ -17,7 +17,8 @@ from typing import Any
 import numpy as np
 
 from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_trace
-from benchfit.data.dialect import Block, Dialect, find_blocks, load_text, sniff
+from benchfit.data.dialect import Dialect, load_text, sniff
+from benchfit.data.table import Block, find_blocks
 from benchfit.data.trace import TimeTrace
 from benchfit.data.units import (
     SIGNAL_UNITS,
