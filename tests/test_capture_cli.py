@@ -164,3 +164,13 @@ def test_instruments_none_found(tmp_path, capsys):
     backend = f"{_sim_yaml(tmp_path)}@sim"
     code, stdout, _ = run(["instruments", "--backend", backend, "--query", "USB?*::INSTR"], capsys)
     assert code == 0 and "no VISA resources found" in stdout
+
+
+def test_instruments_identify_reports_a_silent_resource(tmp_path, capsys):
+    path = _sim_yaml(tmp_path)
+    path.write_text(path.read_text().replace('"*IDN?"', '"*IDN-NOT?"'))   # device ignores *IDN?
+    code, stdout, _ = run(["instruments", "--backend", f"{path}@sim", "--identify", "--timeout", "0.2",
+                           "--json"], capsys)
+    assert code == 0
+    (entry,) = json.loads(stdout)["resources"]
+    assert "idn" not in entry and "no answer within 0.2 s" in entry["error"]
