@@ -181,3 +181,33 @@ def test_redesign_from_measured_loop():
     # the data path agrees with the model path to interpolation accuracy
     model_pm = Loop(LoopPlant(plant, DIV), new).margins().phase_margin_deg
     assert d.snapped.worst_margins().phase_margin_deg == pytest.approx(model_pm, abs=0.5)
+
+
+def test_unreachable_targets_are_reported_not_hidden():
+    lp = LoopPlant(buck(), DIV, band_hz=(10, 1e6))
+    # a 300 kHz op-amp cannot hold a 20 kHz type3 crossover: the design says so
+    d = design(lp, "type3", Targets(20e3, 55, 10), opamp=OpAmp(gbw_hz=300e3), draws=100, seed=1)
+    assert not d.targets_met
+    assert any("targets not met" in w for w in d.warnings)
+    assert any("below the" in w or "unstable" in w for w in d.warnings)
+    assert d.spread.yield_fraction < 0.5
+    # automatic crossover with an impossible target raises a one-line DesignError
+    from benchfit.errors import DesignError
+
+    with pytest.raises(DesignError, match="no crossover"):
+        design(lp, "type1", Targets(None, 95, 10), draws=0)  # an integrator gives at most 90°
+
+
+def test_automatic_crossover_on_measured_loop_data():
+    plant = buck(r_load=2.0)
+    old = Network("type2", {"R1": 10e3, "R2": 20e3, "C1": 4.7e-9, "C2": 220e-12})
+    f = np.logspace(1, 6, 301)
+    meas = FrequencyResponse(f, plant.response(f) * DIV.gain * old.response(f), quantity="loop")
+    rest = LoopPlant(plant_from_measured_loop(meas, old), name="board")
+    d = design(rest, "type3", Targets(None, 50, 8), draws=0)
+    assert d.targets_met
+    # the same parts on the model of the same board (python-control, reference library)
+    t = Loop(LoopPlant(plant, DIV), d.snapped.network).model()
+    pm, fc = ref_pm(t, d.snapped.worst_margins().crossover_hz)
+    assert pm == pytest.approx(d.snapped.worst_margins().phase_margin_deg, abs=0.5)
+    assert pm >= 50 - 0.5

@@ -150,3 +150,26 @@ def test_check_unknown_part_is_an_error(setup, capsys):
     capsys.readouterr()
     assert main(["check", "--design", str(out), "--parts", "R7=1k"]) == 2
     assert "R7" in capsys.readouterr().err
+
+
+def test_fit_result_json_keeps_band_and_uncertainty(tmp_path):
+    from benchfit.data.response import FrequencyResponse
+    from benchfit.fitting import fit
+    from benchfit.loop.designfile import load_plant
+
+    f = np.logspace(1, 6, 201)
+    rng = np.random.default_rng(3)
+    h = buck_model().response(f) * (1 + 0.003 * (rng.standard_normal(201) + 1j * rng.standard_normal(201)))
+    fr = fit(FrequencyResponse(f, h, quantity="plant"), delay="none")
+    fr.to_json(tmp_path / "fit.json")
+    lp = load_plant(tmp_path / "fit.json")
+    assert lp.band_hz == pytest.approx((10.0, 1e6))
+    assert lp.draws is not None
+    draws = lp.draws(np.array([1e3, 1e4]), 5, np.random.default_rng(0))
+    assert draws.shape == (5, 2)
+    # sweeps load through read_sweep + fit: same thing from a canonical CSV
+    from benchfit.data import write_sweep_csv
+
+    write_sweep_csv(FrequencyResponse(f, h, quantity="plant"), tmp_path / "sweep.csv")
+    lp2 = load_plant(tmp_path / "sweep.csv", fit_options={"delay": "none"})
+    np.testing.assert_allclose(lp2.response(np.array([2e3])), lp.response(np.array([2e3])), rtol=1e-3)
