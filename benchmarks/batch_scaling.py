@@ -48,8 +48,8 @@ def _peak_mib() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
 
 
-def _workers_mib() -> tuple[float, float]:
-    """(resident, peak) MiB of the largest process descending from this one (pool workers)."""
+def _descendants() -> list[int]:
+    """Processes descending from this one (pool workers and the fork server)."""
     parent = {}
     for d in os.listdir("/proc"):
         if d.isdigit():
@@ -58,15 +58,20 @@ def _workers_mib() -> tuple[float, float]:
                     parent[int(d)] = int(fh.read().rsplit(")", 1)[1].split()[1])
             except OSError:
                 continue
-    me, mine = os.getpid(), set()
+    me, mine = os.getpid(), []
     for pid in parent:
-        p, seen = pid, 0
-        while p in parent and p != me and seen < 64:
-            p, seen = parent[p], seen + 1
+        p, hops = pid, 0
+        while p in parent and p != me and hops < 64:
+            p, hops = parent[p], hops + 1
         if p == me and pid != me:
-            mine.add(pid)
+            mine.append(pid)
+    return mine
+
+
+def _workers_mib() -> tuple[float, float]:
+    """(resident, peak) MiB of the largest descendant process (a pool worker)."""
     best = (0.0, 0.0)
-    for pid in mine:
+    for pid in _descendants():
         try:
             with open(f"/proc/{pid}/status") as fh:
                 kv = dict(line.split(":", 1) for line in fh if ":" in line)
@@ -76,6 +81,20 @@ def _workers_mib() -> tuple[float, float]:
             continue
         best = max(best, (rss, hwm), key=lambda t: t[1])
     return best
+
+
+def _cpu_s() -> float:
+    """CPU seconds (user + system) of this process and its live descendants."""
+    total = time.process_time()
+    tick = os.sysconf("SC_CLK_TCK")
+    for pid in _descendants():
+        try:
+            with open(f"/proc/{pid}/stat") as fh:
+                fields = fh.read().rsplit(")", 1)[1].split()
+            total += (int(fields[11]) + int(fields[12])) / tick  # utime, stime
+        except (OSError, ValueError, IndexError):
+            continue
+    return total
 
 
 def main() -> None:
@@ -102,14 +121,16 @@ def main() -> None:
               f"generated in {gen_s:.1f} s; {os.cpu_count()} cores; BLAS threads "
               f"{os.environ['OPENBLAS_NUM_THREADS']}")
 
-        results, first_row, mem_rows = {}, {}, {}
+        results, first_row, mem_rows, cpu = {}, {}, {}, {}
         for w in counts:
-            seen, t_start = [0], time.perf_counter()
+            seen, t_start, cpu0 = [0], time.perf_counter(), time.process_time()
 
-            def probe(_row, w=w, seen=seen, t_start=t_start):
+            def probe(_row, w=w, seen=seen, t_start=t_start, cpu0=cpu0):
                 seen[0] += 1
                 if seen[0] == 1:
                     first_row[w] = time.perf_counter() - t_start
+                if seen[0] == len(files):  # workers are still alive: read their CPU time
+                    cpu[w] = _cpu_s() - cpu0
                 if seen[0] in checkpoints:
                     mem_rows.setdefault(w, []).append((seen[0], _rss_mib(), _peak_mib(), *_workers_mib()))
 
@@ -121,15 +142,18 @@ def main() -> None:
             steady = (info.seconds - first_row[w]) / max(1, info.ran - 1)
             print(f"workers {w} ({info.executor}): total {info.seconds:7.1f} s, "
                   f"{1e3 * info.seconds_per_sweep:7.1f} ms per sweep overall, "
-                  f"{1e3 * steady:7.1f} ms per sweep after the first row "
-                  f"(start-up {first_row[w]:.2f} s); status {dict(sorted(info.counts.items()))}")
+                  f"{1e3 * steady:7.1f} ms after the first row (start-up {first_row[w]:.2f} s), "
+                  f"CPU {1e3 * cpu[w] / info.ran:7.1f} ms per sweep; load average "
+                  f"{os.getloadavg()[0]:.1f}; status {dict(sorted(info.counts.items()))}")
 
         base = results[counts[0]]
         one = base.seconds * counts[0]  # serial-equivalent seconds
-        print("\nscaling (speed-up against the first run, efficiency = speed-up / workers):")
+        print("\nscaling (speed-up against the first run, efficiency = speed-up / workers;")
+        print(" CPU per sweep staying level means no parallel overhead, whatever else loads the cores):")
         for w, info in results.items():
             speed = one / info.seconds
-            print(f"  {w:3d} workers: speed-up {speed:5.2f}, efficiency {speed / w:5.2f}")
+            print(f"  {w:3d} workers: speed-up {speed:5.2f}, efficiency {speed / w:5.2f}, "
+                  f"CPU per sweep x{cpu[w] / cpu[counts[0]]:.2f} of the first run")
 
         print("\nmemory as the lot grows (MiB; workers: the largest worker process):")
         for w, samples in mem_rows.items():
