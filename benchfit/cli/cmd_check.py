@@ -18,7 +18,8 @@ def register(subparsers) -> None:
                     "some parts, and predict the loop margins on the given plant(s) (default: the "
                     "plants the design was made for).")
     p.add_argument("plants", nargs="*", metavar="PLANT",
-                   help="model JSON, fit-result JSON or sweep file (several = corners)")
+                   help="model JSON, fit-result JSON or sweep file (several = corners; FILE@TRACE picks "
+                        "one trace of a file holding several)")
     p.add_argument("--design", required=True, metavar="JSON", help="design file from benchfit design")
     p.add_argument("--parts", metavar="R1=10k,C1=4.7n,...", help="parts to change (SI prefixes)")
     p.add_argument("--draws", type=int, default=0, metavar="N", help="Monte Carlo draws (default 0)")

@@ -20,7 +20,8 @@ def register(subparsers) -> None:
                     "re-verify the loop with the real op-amp, and spread it over part tolerances. "
                     "Several PLANTs are corners (load, temperature): the targets must hold on all.")
     p.add_argument("plants", nargs="*", metavar="PLANT",
-                   help="model JSON, fit-result JSON or sweep file (several = corners)")
+                   help="model JSON, fit-result JSON or sweep file (several = corners; FILE@TRACE picks "
+                        "one trace of a file holding several)")
     p.add_argument("--file", metavar="TOML", help="design file (flags given here override it)")
     p.add_argument("--network", help="type1, type2, type3 or pi (default type2)")
     p.add_argument("--method", choices=METHODS, help="placement method (default k-factor)")

@@ -77,8 +77,8 @@ def series_neighbours(value: float, name: str) -> tuple[float, float]:
     dec = math.floor(math.log10(value))
     cands = np.concatenate([mant * 10.0 ** (dec - 1), mant * 10.0 ** dec, mant * 10.0 ** (dec + 1)])
     cands = eseries.snap(cands, name)  # rounds away binary noise, same values
-    lo = cands[cands <= value * (1 + 1e-9)].max()
-    hi = cands[cands >= value * (1 - 1e-9)].min()
+    lo = cands[cands <= value * (1 + 1e-12)].max()
+    hi = cands[cands >= value * (1 - 1e-12)].min()
     return float(lo), float(hi)
 
 
