@@ -115,3 +115,15 @@ def test_zout_and_load_step_against_python_control(files, capsys):
     assert main(["predict", str(files["nodelay"]), "--curve", "load_step", "-o",
                  str(files["dir"] / "x.csv")]) == 2
     assert "needs the open-loop output impedance" in capsys.readouterr().err
+
+
+def test_load_step_from_an_impedance_sweep_fits_it_first(files):
+    from benchfit.data import FrequencyResponse, write_sweep_csv
+
+    f = np.logspace(1, 6, 201)
+    sweep = files["dir"] / "zol.csv"
+    write_sweep_csv(FrequencyResponse(freq_hz=f, response=_zol().response(f), quantity="impedance"), sweep)
+    from_sweep = _predict(files, "nodelay", "load_step", "--zout", str(sweep))
+    from_model = _predict(files, "nodelay", "load_step", "--zout", str(files["zol"]))
+    # a noiseless sweep of the same impedance: the fitted model gives the same peak deviation
+    assert np.min(from_sweep.y) == pytest.approx(np.min(from_model.y), rel=0.01)

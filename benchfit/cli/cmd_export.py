@@ -16,7 +16,7 @@ def register(subparsers) -> None:
                     "lossless line, so any SPICE simulator can use the measured plant.")
     p.add_argument("model", metavar="MODEL_JSON", help="model, fit result or design JSON")
     p.add_argument("-o", "--output", required=True, metavar="CIR", help="netlist file to write")
-    p.add_argument("--name", default="plant", help="subcircuit name (default plant)")
+    p.add_argument("--name", help="subcircuit name (default: the --part name, e.g. plant)")
     p.add_argument("--part", default="plant", choices=DESIGN_PARTS,
                    help="for a design file: which model to export (default plant)")
     add_json_flag(p)
@@ -25,9 +25,10 @@ def register(subparsers) -> None:
 
 def run(args: argparse.Namespace) -> int:
     model = model_from_file(args.model, args.part)
-    path = write_spice(model, args.output, args.name)
-    emit(args, {"output": str(path), "name": args.name, "order": model.order,
+    name = args.name or args.part.replace("-", "_")
+    path = write_spice(model, args.output, name)
+    emit(args, {"output": str(path), "name": name, "order": model.order,
                 "zeros": len(model.zeros), "delay_s": model.delay_s},
-         f"wrote {path}: .SUBCKT {args.name} in out (order {model.order}, "
-         f"{len(model.zeros)} zeros, delay {model.delay_s:g} s)")
+         f"wrote {path}: .SUBCKT {name} in out ({model.order} poles, {len(model.zeros)} "
+         f"zero{'' if len(model.zeros) == 1 else 's'}, delay {model.delay_s:g} s)")
     return 0

@@ -21,7 +21,7 @@ def register(subparsers) -> None:
     p.add_argument("-o", "--output", required=True, metavar="CSV", help="file to write")
     p.add_argument("--parts", default="snapped", choices=WHICH, help="snapped (default) or ideal parts")
     p.add_argument("--zout", metavar="FILE",
-                   help="open-loop output impedance: sweep, or model JSON (a model is needed for load_step)")
+                   help="open-loop output impedance: sweep or model JSON (for load_step a sweep is fitted first)")
     p.add_argument("--step", default="1", metavar="VOLTS", help="reference step at the reference input (1 V)")
     p.add_argument("--load-step", default="1", metavar="AMPS", help="load-current step (1 A)")
     add_json_flag(p)

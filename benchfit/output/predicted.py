@@ -96,6 +96,11 @@ def design_curve(design: Design, name: str, *, which: str = "snapped",
     if name in ("zout", "load_step") and z_open is None:
         raise InputError(f"the {name} curve needs the open-loop output impedance (--zout FILE)", source="--curve")
     loop = design_loop(design, which)
+    if name == "load_step" and isinstance(z_open, FrequencyResponse):
+        # the load step is simulated in time: it needs a model of the impedance, so fit the sweep
+        from benchfit.fitting import fit
+
+        z_open = fit(z_open).model
     pred = design_prediction(design, which=which, reference_step_v=reference_step_v, z_open=z_open,
                              load_step_a=load_step_a if name == "load_step" else None)
     curves = prediction_curves(pred, which, loop)

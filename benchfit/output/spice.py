@@ -161,7 +161,7 @@ def spice_subcircuit(model: PlantModel, name: str = "plant", *, title: str | Non
     omega = _characteristic_omega(model)
     lines = [f"* {title or 'benchfit plant model'}",
              f"* H(s) = k * prod(s - z) / prod(s - p) * exp(-s*tau); order {model.order}, "
-             f"{len(model.zeros)} zeros, k = {_fmt(model.k)}, tau = {_fmt(model.delay_s)} s",
+             f"zeros {len(model.zeros)}, k = {_fmt(model.k)}, tau = {_fmt(model.delay_s)} s",
              "* Realised as a cascade of 1st/2nd-order state-variable sections:",
              "* each state is the voltage on a 1 F capacitor charged by G sources.",
              "* Ports: in (1e12 ohm to node 0), out (ideal source); both referred to node 0.",
