@@ -152,3 +152,25 @@ def test_resume_after_kill_has_no_duplicate_and_no_missing_rows(tmp_path):
     assert report["run"]["resumed"] == len(done_before)
     assert report["run"]["ran"] == 80 - len(done_before)
     assert report["summary"]["total"] == 80
+
+
+def _task_that_kills_its_worker(path, settings):
+    # Stands in for a crash in native code or an out-of-memory kill on one bad file.
+    if "killer" in os.path.basename(path):
+        os._exit(1)
+    return run_task(path, settings)
+
+
+def test_a_file_that_kills_its_worker_gets_an_error_row_and_the_rest_real_rows(lot, tmp_path):
+    from benchfit.batch.runner import _pool
+
+    files = [str(p) for p in sorted(lot.glob("unit_*.csv"))[:6]]
+    killer = tmp_path / "killer.csv"
+    killer.write_bytes((lot / "unit_00000.csv").read_bytes())
+    todo = files[:3] + [str(killer)] + files[3:]
+    rows = {r["file"]: r for r in _pool(todo, TaskSettings(limits=LIMITS), 2,
+                                         task=_task_that_kills_its_worker)}
+    assert sorted(rows) == sorted(todo)
+    assert rows[str(killer)]["status"] == "error"
+    assert "worker failed" in rows[str(killer)]["error"]
+    assert all(rows[f]["status"] == "pass" for f in files)

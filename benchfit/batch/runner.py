@@ -12,6 +12,7 @@ import glob
 import os
 import sys
 import time
+from collections import deque
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field
@@ -149,27 +150,63 @@ def _serial(files: Sequence[str], settings: TaskSettings) -> Iterator[dict[str, 
         yield run_task(p, settings)
 
 
-def _pool(files: Sequence[str], settings: TaskSettings, workers: int) -> Iterator[dict[str, Any]]:
+def _pool(files: Sequence[str], settings: TaskSettings, workers: int,
+          task: Callable[[str, TaskSettings], dict[str, Any]] = run_task) -> Iterator[dict[str, Any]]:
+    """Rows from a local process pool, at most ``4 * workers`` files in flight.
+
+    A worker that dies (killed, out of memory, a crash in native code) breaks the
+    whole pool and fails every file in flight.  Those files are then re-run one
+    at a time in a fresh pool, so the one that kills its worker is found and gets
+    an error row, and the innocent ones get their real rows.
+    """
     import multiprocessing as mp
+    from concurrent.futures.process import BrokenProcessPool
 
     # forkserver: children start from a clean process, safe even when the parent
     # runs threads (a Dask client, a notebook); spawn where it is not available.
     method = "forkserver" if "forkserver" in mp.get_all_start_methods() else "spawn"
-    window = 4 * workers
-    todo = iter(files)
-    with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context(method)) as ex:
-        running = {ex.submit(run_task, p, settings): p for p in islice(todo, window)}
-        while running:
-            finished, _ = wait(running, return_when=FIRST_COMPLETED)
-            for fut in finished:
-                path = running.pop(fut)
-                try:
-                    yield fut.result()
-                except Exception as e:  # noqa: BLE001
-                    yield _failed_row(path, e)
-                nxt = next(todo, None)
-                if nxt is not None:
-                    running[ex.submit(run_task, nxt, settings)] = nxt
+    queue = deque(files)
+    suspects: deque[str] = deque()  # in flight when a pool broke: re-run one at a time
+    while queue or suspects:
+        with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context(method)) as ex:
+            running: dict[Any, str] = {}
+            alone = _fill(ex, task, settings, running, queue, suspects, 4 * workers)
+            broken = False
+            while running:
+                finished, _ = wait(running, return_when=FIRST_COMPLETED)
+                for fut in finished:
+                    path = running.pop(fut)
+                    try:
+                        row = fut.result()
+                    except BrokenProcessPool as e:
+                        broken = True
+                        if path == alone:  # it broke the pool by itself: the culprit
+                            yield _failed_row(path, e)
+                        else:
+                            suspects.append(path)
+                        continue
+                    except Exception as e:  # noqa: BLE001
+                        row = _failed_row(path, e)
+                    yield row
+                if not broken:
+                    alone = _fill(ex, task, settings, running, queue, suspects, 4 * workers)
+
+
+def _fill(ex, task, settings, running: dict, queue: deque, suspects: deque, window: int) -> str | None:
+    """Submit work to the pool: one suspect by itself, else ordinary files up to ``window``.
+
+    Returns the suspect running alone (None when ordinary files run).
+    """
+    if suspects:
+        if running:
+            return None
+        path = suspects.popleft()
+        running[ex.submit(task, path, settings)] = path
+        return path
+    while queue and len(running) < window:
+        path = queue.popleft()
+        running[ex.submit(task, path, settings)] = path
+    return None
 
 
 def _dask_client(address: Any):
