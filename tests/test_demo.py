@@ -84,3 +84,14 @@ def test_demo_prints_report_path_and_summary(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "open the report: " + str((tmp_path / "o" / "report.html").resolve()) in out
     assert "phase margin" in out and "yield" in out and "fit of" in out
+
+
+def test_demo_result_json_round_trip(demo):
+    from benchfit.fileio import to_json_text
+    from benchfit.output.demo import DemoResult
+
+    job = demo["data"]["job"]
+    back = DemoResult.from_dict(json.loads(to_json_text(job)))
+    assert json.loads(to_json_text(back.to_dict())) == json.loads(to_json_text(job))
+    assert back.provenance.settings["crossover_hz"] == 20e3
+    assert any(s.endswith("buck_plant.csv") for s in back.provenance.sources)

@@ -205,3 +205,14 @@ def test_output_impedance_log_axes_and_peak():
     assert (ax.get_xscale(), ax.get_yscale()) == ("log", "log")
     assert (ax.get_xlabel(), ax.get_ylabel()) == ("Frequency (Hz)", "|Z| (Ω)")
     assert "peak" in ax.texts[0].get_text()
+
+
+def test_bode_fit_takes_a_fit_result_and_quotes_its_errors():
+    from benchfit.fitting import fit
+
+    resp = noisy(buck_plant(), np.logspace(1.5, 5.7, 150), rel=0.01)
+    fr = fit(resp)
+    fig = bode_fit(resp, fr)
+    note_text = " ".join(t.get_text() for t in fig.axes[1].texts)
+    assert f"rms error {fr.stats['rms_db']:.2g} dB" in note_text
+    assert "order 2" in note_text

@@ -235,3 +235,14 @@ def test_rendered_in_headless_chromium(report, tmp_path):
     # the blue rule under each section heading (#0072B2) is on the page: the style sheet applied
     blue = np.all(np.abs(px - np.array([0x00, 0x72, 0xB2])) < 12, axis=2)
     assert blue.sum() > 500
+
+
+def test_spread_draws_json_round_trip(job):
+    from benchfit.fileio import to_json_text
+    from benchfit.output.spread_draws import SpreadDraws
+
+    sd = spread_draws(job["design"], plant_draws=job["fit"].draw_responses)
+    back = SpreadDraws.from_dict(json.loads(to_json_text(sd.to_dict())))
+    np.testing.assert_array_equal(back.pm_deg, sd.pm_deg)
+    np.testing.assert_array_equal(back.passed, sd.passed)
+    assert back.provenance.step == "spread_draws" and back.seed == sd.seed

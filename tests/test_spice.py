@@ -267,3 +267,26 @@ def test_cli_export_spice(tmp_path, capsys):
     (tmp_path / "bad.json").write_text('{"kind": "design", "plant": {"freq_hz": [1, 2]}}')
     assert main(["export-spice", str(tmp_path / "bad.json"), "-o", str(out)]) == 2
     assert "measured data, not a model" in capsys.readouterr().err
+
+
+def test_design_compensator_export_matches_the_part_values(tmp_path):
+    # The exported compensator, solved as a circuit, must equal the network computed from its
+    # R and C values (benchfit.loop.networks), which its own tests check against nodal analysis.
+    from benchfit.cli import main
+    from benchfit.loop.design import design
+    from benchfit.loop.loopgain import LoopPlant
+    from benchfit.loop.opamp import OpAmp
+    from benchfit.loop.synthesis import Targets
+
+    w0, q = W * 5e3, 2.0
+    plant = PlantModel(zeros=[-W * 80e3], poles=np.roots([1, w0 / q, w0 ** 2]), k=12.0 * w0 ** 2 / (W * 80e3))
+    opamp = OpAmp(10e6)
+    d = design(LoopPlant(plant), "type3", Targets(crossover_hz=20e3, phase_margin_deg=50), opamp=opamp, draws=0)
+    d.to_json(tmp_path / "d.json")
+    out = tmp_path / "comp.cir"
+    assert main(["export-spice", str(tmp_path / "d.json"), "--part", "compensator", "-o", str(out)]) == 0
+    f = np.logspace(1, 6.5, 60)
+    h = mna_ac(out.read_text() + "V1 a 0 AC 1\nX1 a y compensator\n", f, "y")
+    ref = d.snapped.network.response(f, opamp)
+    assert np.max(np.abs(20 * np.log10(np.abs(h / ref)))) < 0.1
+    assert np.max(np.abs(np.degrees(np.angle(h / ref)))) < 1.0

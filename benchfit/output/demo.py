@@ -17,7 +17,7 @@ from __future__ import annotations
 import os
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -35,6 +35,7 @@ from benchfit.output.curves import write_curve_csv
 from benchfit.output.report import write_report
 from benchfit.output.spice import write_spice
 from benchfit.output.summary import design_summary, summary_lines
+from benchfit.provenance import Provenance
 
 
 @dataclass(frozen=True)
@@ -76,6 +77,10 @@ class DemoResult:
         Figures read from the measured step of the board as it is now.
     seconds
         Wall time of the run.
+    provenance
+        The scenario's files and settings.
+    design
+        The design object itself (not serialised: it is in ``files['design']``).
     """
 
     out_dir: Path
@@ -83,12 +88,21 @@ class DemoResult:
     summary: dict[str, Any]
     present_board: dict[str, float]
     seconds: float
-    design: Design = field(repr=False, default=None)  # type: ignore[assignment]
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="demo"))
+    design: Design | None = field(repr=False, default=None)
 
     def to_dict(self) -> dict[str, Any]:
         return {"kind": "demo", "out_dir": str(self.out_dir), "files": dict(self.files),
                 "summary": dict(self.summary), "present_board": dict(self.present_board),
-                "seconds": self.seconds}
+                "seconds": self.seconds, "provenance": self.provenance.to_dict()}
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> DemoResult:
+        if not isinstance(d, dict) or d.get("kind") != "demo":
+            raise InputError("expected a demo result (kind 'demo')")
+        return cls(out_dir=Path(d["out_dir"]), files=dict(d["files"]), summary=dict(d["summary"]),
+                   present_board=dict(d["present_board"]), seconds=float(d["seconds"]),
+                   provenance=Provenance.from_dict(d.get("provenance")))
 
 
 def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit-out", *,
@@ -175,5 +189,6 @@ def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit
     summary = design_summary(des)
     for line in summary_lines(summary):
         log(line)
+    prov = Provenance(step="demo", sources=tuple(rel.values()), settings=asdict(sc))
     return DemoResult(out_dir=out, files={k: str(v) for k, v in files.items()}, summary=summary,
-                      present_board=present, seconds=time.perf_counter() - t0, design=des)
+                      present_board=present, seconds=time.perf_counter() - t0, provenance=prov, design=des)

@@ -11,13 +11,16 @@ very ones the design's percentiles and yield were computed from.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 
+from benchfit.errors import InputError
+from benchfit.fileio import as_float
 from benchfit.loop.design import Design
 from benchfit.loop.tolerance import draw_margins
+from benchfit.provenance import Provenance
 
 
 @dataclass(frozen=True, eq=False)
@@ -34,6 +37,8 @@ class SpreadDraws:
         Seed of the draws.
     plant_uncertainty
         True when plant responses were drawn from a fit's covariance.
+    provenance
+        The design the draws repeat.
     """
 
     pm_deg: np.ndarray
@@ -42,6 +47,7 @@ class SpreadDraws:
     passed: np.ndarray
     seed: int | None
     plant_uncertainty: bool
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="spread_draws"))
 
     @property
     def yield_fraction(self) -> float:
@@ -50,7 +56,20 @@ class SpreadDraws:
     def to_dict(self) -> dict[str, Any]:
         return {"kind": "spread_draws", "pm_deg": self.pm_deg.tolist(), "gm_db": self.gm_db.tolist(),
                 "crossover_hz": self.crossover_hz.tolist(), "passed": self.passed.tolist(),
-                "seed": self.seed, "plant_uncertainty": self.plant_uncertainty}
+                "seed": self.seed, "plant_uncertainty": self.plant_uncertainty,
+                "provenance": self.provenance.to_dict()}
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> SpreadDraws:
+        try:
+            return cls(pm_deg=np.array([as_float(v) for v in d["pm_deg"]]),
+                       gm_db=np.array([as_float(v) for v in d["gm_db"]]),
+                       crossover_hz=np.array([as_float(v) for v in d["crossover_hz"]]),
+                       passed=np.array(d["passed"], dtype=bool), seed=d.get("seed"),
+                       plant_uncertainty=bool(d.get("plant_uncertainty", False)),
+                       provenance=Provenance.from_dict(d.get("provenance")))
+        except (KeyError, TypeError) as e:
+            raise InputError(f"spread draws incomplete ({e})") from None
 
 
 def spread_draws(design: Design, plant_draws=None) -> SpreadDraws | None:
@@ -79,4 +98,6 @@ def spread_draws(design: Design, plant_draws=None) -> SpreadDraws | None:
     return SpreadDraws(pm_deg=np.asarray(out["pm_deg"], float), gm_db=np.asarray(out["gm_db"], float),
                        crossover_hz=np.asarray(out["crossover_hz"], float),
                        passed=np.asarray(out["passed"], bool), seed=sp.seed,
-                       plant_uncertainty=bool(out["plant_uncertainty"]))
+                       plant_uncertainty=bool(out["plant_uncertainty"]),
+                       provenance=design.provenance.derive("spread_draws", {
+                           "draws": sp.draws, "seed": sp.seed, "r_tol": sp.r_tol, "c_tol": sp.c_tol}))
