@@ -246,3 +246,21 @@ def test_spread_draws_json_round_trip(job):
     np.testing.assert_array_equal(back.pm_deg, sd.pm_deg)
     np.testing.assert_array_equal(back.passed, sd.passed)
     assert back.provenance.step == "spread_draws" and back.seed == sd.seed
+
+
+def test_loop_picture_margins_match_the_corner_drawn():
+    # Two load corners; the light load (higher Q) is the worst. In memory the worst corner is drawn;
+    # read back from JSON only the nominal loop is kept, so the nominal corner (and its margins) is drawn.
+    def plant(q):
+        w0 = W * 5e3
+        return PlantModel(zeros=[-W * 80e3], poles=np.roots([1, w0 / q, w0 ** 2]), k=12.0 * w0 ** 2 / (W * 80e3))
+
+    corners = [LoopPlant(plant(2.0), name="heavy"), LoopPlant(plant(8.0), name="light")]
+    d = design(corners, "type3", Targets(crossover_hz=20e3, phase_margin_deg=45), draws=0)
+    assert d.snapped.worst == 1
+    for des, idx in ((d, 1), (Design.from_dict(json.loads(json.dumps(d.to_dict(), default=str))), 0)):
+        figs = {f.key: f for f in report_figures(ReportInputs(design=des))}
+        m = des.snapped.corners[idx]
+        text = " ".join(t.get_text() for ax in figs["loop"].figure.axes for t in ax.texts)
+        assert f"phase margin {m.phase_margin_deg:.1f}°" in text
+        assert des.corners[idx].name in figs["loop"].caption

@@ -65,10 +65,12 @@ def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None) ->
         plots.crossing_view(d.corners[0].response, d.snapped.compensator, target_crossover_hz=fc_t,
                             achieved_crossover_hz=fc_a if math.isfinite(fc_a) else None,
                             band_hz=band, reference_compensator=d.ideal.compensator)))
-    w = d.snapped.worst
-    loop, margins = d.snapped.loops[min(w, len(d.snapped.loops) - 1)], d.snapped.worst_margins()
-    ref = d.ideal.loops[0] if d.ideal.network.parts != d.snapped.network.parts else None
-    corner = f" on the worst corner ({d.corners[w].name})" if len(d.corners) > 1 else ""
+    # the worst corner's loop when it is at hand (a design read from JSON keeps only the nominal one)
+    w = d.snapped.worst if d.snapped.worst < len(d.snapped.loops) else 0
+    loop, margins = d.snapped.loops[w], d.snapped.corners[w]
+    ref = d.ideal.loops[w] if d.ideal.network.parts != d.snapped.network.parts and w < len(d.ideal.loops) else None
+    which = "worst" if w == d.snapped.worst else "nominal"
+    corner = f" on the {which} plant corner ({d.corners[w].name})" if len(d.corners) > 1 else ""
     out.append(ReportFigure(
         "loop", "margins", f"Loop gain T = plant · sensing · compensator with snapped parts{corner}. "
         "The phase margin is read at the gain crossover (○), the gain margin at the phase "
