@@ -30,7 +30,8 @@ def step(t):
 
 
 def profile(**changes):
-    return dataclasses.replace(find_profile("generic-scope"), timeout_s=0.3, retries=1, **changes)
+    return dataclasses.replace(find_profile("generic-scope"), timeout_s=0.3, complete_timeout_s=None,
+                               retries=1, **changes)
 
 
 @pytest.mark.parametrize("encoding,order", [("int8", "big"), ("int16", "big"), ("int16", "little"),

@@ -16,7 +16,8 @@ def lowpass(f):
 
 
 def profile(**changes):
-    base = dataclasses.replace(find_profile("generic-analyzer"), timeout_s=0.25, retries=2)
+    base = dataclasses.replace(find_profile("generic-analyzer"), timeout_s=0.25, retries=2,
+                               complete_timeout_s=None)
     return dataclasses.replace(base, **changes)
 
 
@@ -174,3 +175,20 @@ def test_nothing_listening_is_a_clear_error():
     with pytest.raises(InstrumentError, match=f"TCPIP0::127.0.0.1::{port}::SOCKET.*(refused|cannot open)"):
         with open_session(f"TCPIP0::127.0.0.1::{port}::SOCKET", profile()) as s:
             s.identify()
+
+
+def test_complete_timeout_covers_a_long_sweep(tmp_path):
+    # 50 points x 10 ms = 0.5 s of sweep: longer than the 0.25 s read timeout
+    inst = SimulatedAnalyzer(lowpass, time_per_point_s=0.01)
+    with simulated_session(inst, profile(retries=0), folder=tmp_path / "a") as s:
+        s.configure("SWE:POIN 50")
+        s.write("INIT")
+        with pytest.raises(InstrumentError, match=r"\*OPC\?.*0.25 s.*complete_timeout_s"):
+            s.wait_complete()
+    inst = SimulatedAnalyzer(lowpass, time_per_point_s=0.01)
+    with simulated_session(inst, profile(complete_timeout_s=3.0), folder=tmp_path / "b") as s:
+        s.configure("SWE:POIN 50")
+        s.write("INIT")
+        s.wait_complete()
+        assert s.resource.timeout == 250.0      # the read timeout is back
+        assert s.timeouts == 0

@@ -34,7 +34,7 @@ def plant(f):
 
 
 def profile(**changes):
-    base = dataclasses.replace(find_profile("generic-analyzer"), timeout_s=1.0)
+    base = dataclasses.replace(find_profile("generic-analyzer"), timeout_s=1.0, complete_timeout_s=None)
     return dataclasses.replace(base, **changes)
 
 

@@ -34,7 +34,8 @@ def plant(f):
 
 
 def profile(**changes):
-    base = dataclasses.replace(find_profile("generic-analyzer"), timeout_s=0.25, retries=2)
+    base = dataclasses.replace(find_profile("generic-analyzer"), timeout_s=0.25, retries=2,
+                               complete_timeout_s=None)
     return dataclasses.replace(base, **changes)
 
 

@@ -53,6 +53,7 @@ def test_round_trip_dict():
     (lambda r: r["connection"].__setitem__("timeout_s", "ten"), "connection.timeout_s"),
     (lambda r: r["connection"].__setitem__("timeout_s", -1.0), "connection.timeout_s"),
     (lambda r: r["connection"].__setitem__("retries", True), "connection.retries"),
+    (lambda r: r["connection"].__setitem__("complete_timeout_s", 0), "connection.complete_timeout_s"),
     (lambda r: r["commands"].__setitem__("start", "FREQ:STAR {stop_hz}"), "commands.start"),
     (lambda r: r["commands"].__setitem__("start", "FREQ:STAR {start_hz"), "commands.start"),
     (lambda r: r.__setitem__("kind", "meter"), "kind"),

@@ -35,7 +35,7 @@ SHIPPED_DIR = Path(__file__).with_name("profiles")
 
 _TOP = {"name", "kind", "description", "connection", "data", "commands"}
 _CONNECTION = {"write_termination": str, "read_termination": str, "timeout_s": float,
-               "retries": int, "reset_on_start": bool}
+               "complete_timeout_s": float, "retries": int, "reset_on_start": bool}
 _DATA = {"encoding": str, "byte_order": str, "response_form": str}
 
 _COMMON = {"identify": (), "clear_status": (), "reset": (), "error_query": (),
@@ -85,6 +85,9 @@ class Profile:
         Message terminators.
     timeout_s
         I/O timeout per read in s.
+    complete_timeout_s
+        Timeout of the operation-complete query (``*OPC?``), which waits for a
+        whole sweep or record; None uses ``timeout_s``.
     retries
         How often a timed-out or malformed query is retried after resynchronising.
     reset_on_start
@@ -105,6 +108,7 @@ class Profile:
     write_termination: str = "\n"
     read_termination: str = "\n"
     timeout_s: float = 10.0
+    complete_timeout_s: float | None = None
     retries: int = 2
     reset_on_start: bool = False
     encoding: str = "ascii"
@@ -145,6 +149,8 @@ class Profile:
                 "connection": {"write_termination": self.write_termination,
                                "read_termination": self.read_termination,
                                "timeout_s": self.timeout_s, "retries": self.retries,
+                               **({"complete_timeout_s": self.complete_timeout_s}
+                                  if self.complete_timeout_s is not None else {}),
                                "reset_on_start": self.reset_on_start},
                 "data": {"encoding": self.encoding, "byte_order": self.byte_order,
                          "response_form": self.response_form},
@@ -232,6 +238,10 @@ def parse_profile(raw: dict[str, Any], *, source: str = "profile") -> Profile:
     timeout = conn.get("timeout_s", 10.0)
     if not 0 < timeout <= 3600:
         raise InputError(f"connection.timeout_s = {timeout}: expected 0 < value <= 3600", source=source)
+    complete = conn.get("complete_timeout_s")
+    if complete is not None and not 0 < complete <= 86400:
+        raise InputError(f"connection.complete_timeout_s = {complete}: expected 0 < value <= 86400",
+                         source=source)
     retries = conn.get("retries", 2)
     if not 0 <= retries <= 20:
         raise InputError(f"connection.retries = {retries}: expected 0..20", source=source)
@@ -239,7 +249,7 @@ def parse_profile(raw: dict[str, Any], *, source: str = "profile") -> Profile:
                    description=str(raw.get("description", "")),
                    write_termination=conn.get("write_termination", "\n"),
                    read_termination=conn.get("read_termination", "\n"),
-                   timeout_s=timeout, retries=retries,
+                   timeout_s=timeout, complete_timeout_s=complete, retries=retries,
                    reset_on_start=conn.get("reset_on_start", False),
                    encoding=encoding, byte_order=byte_order, response_form=form, source=source)
 

@@ -126,7 +126,7 @@ class Session:
                 self.write(command)
                 return read()
             except _Timeout:
-                why = f"no answer within {self.profile.timeout_s:g} s"
+                why = f"no answer within {self._timeout_s():g} s"
             except MalformedReply as e:
                 self.malformed += 1
                 why = str(e)
@@ -145,6 +145,12 @@ class Session:
             return ""
         listed = "; ".join(f"{c} {t}" for c, t in errs)
         return f"; instrument reported: {listed}" if errs else ""
+
+    def _timeout_s(self) -> float:
+        try:
+            return float(self.resource.timeout) / 1000.0
+        except (AttributeError, TypeError, ValueError):
+            return self.profile.timeout_s
 
     def query(self, command: str) -> str:
         """Send a query and return its text answer; timeouts are retried after a resync."""
@@ -219,16 +225,23 @@ class Session:
         return self.idn
 
     def wait_complete(self) -> None:
-        """Block on the operation-complete query (``*OPC?`` answers 1 when done)."""
+        """Block on the operation-complete query (``*OPC?`` answers 1 when done).
+
+        Uses the profile's ``complete_timeout_s`` (a whole sweep or record) when set.
+        """
         cmd = self.profile.command("operation_complete")
+        if self.profile.complete_timeout_s is not None:
+            self.resource.timeout = self.profile.complete_timeout_s * 1000.0
         try:
             ans = self.query(cmd).strip()
         except InstrumentError as e:
             if "connection lost" in str(e):
                 raise
             raise InstrumentError(f"{e}; the operation did not complete in time: check the trigger, "
-                                  "or raise connection.timeout_s above the sweep or record time"
-                                  ) from None
+                                  "or set connection.complete_timeout_s above the sweep or record "
+                                  "time") from None
+        finally:
+            self.resource.timeout = self.profile.timeout_s * 1000.0
         if ans.lstrip("+") not in ("1", "1.0"):
             raise MalformedReply(f"operation-complete answer {ans[:20]!r}, expected 1",
                                  resource=self.name, command=cmd)
