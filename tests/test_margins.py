@@ -100,6 +100,23 @@ def test_several_gain_crossings_are_all_listed_and_one_is_main():
     assert m.closed_loop_stable
 
 
+def test_mid_band_dip_does_not_become_the_main_crossover():
+    # integrator crossing 10 kHz, notch at 1 kHz dipping to about -20 dB: the loop gain
+    # crosses 0 dB three times; the main crossover is the loop bandwidth (10 kHz, where an
+    # integrator ωc/s alone would cross), not the edge of the dip.
+    wz = 2 * np.pi * 1e3
+    zeros = [wz * (-0.01 + 1j * math.sqrt(1 - 1e-4)), wz * (-0.01 - 1j * math.sqrt(1 - 1e-4))]
+    model = PlantModel(zeros, [0.0, -wz, -wz], 2 * np.pi * 1e4)
+    m = margins_of_model(model)
+    assert len(gains(m)) == 3
+    assert m.crossover_hz == pytest.approx(1e4, rel=0.03)   # notch pair: |T(10k)| = 99/101
+    assert m.crossover_hz == max(c["freq_hz"] for c in gains(m))
+    # the same rule on data and in the batch
+    f = np.logspace(1, 6, 2001)
+    assert margins_from_data(f, model.response(f)).crossover_hz == pytest.approx(m.crossover_hz, rel=1e-4)
+    assert margins_batch(f, model.response(f))["crossover_hz"][0] == pytest.approx(m.crossover_hz, rel=1e-4)
+
+
 def test_conditionally_stable_loop_reports_gain_reduction():
     # python-control gives GM = 0.051 (-25.8 dB) for this loop; we report it as the gain
     # reduction margin and keep gain_margin_db for the (absent) upward margin.

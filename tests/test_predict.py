@@ -20,6 +20,7 @@ import control
 import numpy as np
 import pytest
 from scipy import signal
+from test_margins import tf_model
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError
@@ -34,13 +35,6 @@ from benchfit.loop.predict import (
     step_metrics,
 )
 from benchfit.loop.timeresponse import state_space
-
-
-def tf_model(num, den, delay_s=0.0):
-    num = np.trim_zeros(np.asarray(num, float), "f")
-    den = np.trim_zeros(np.asarray(den, float), "f")
-    return PlantModel(np.roots(num), np.roots(den), num[0] / den[0], delay_s=delay_s)
-
 
 RATIONAL = [
     ([5], [1, 3, 2, 0]),

@@ -7,12 +7,16 @@ Conventions
   ``PM = 180° + ∠T`` wrapped to (-180°, 180°]; gain margin at a phase crossing
   (∠T = -180° mod 360°) is ``GM = -20·log10|T|``.
 * **Every** crossing found in the band is reported in ``crossings``.  The
-  *main* crossover is the falling gain crossing that ends the longest stretch
-  (on a log-frequency axis) over which |T| > 1; ties go to the higher
-  frequency.  For an ordinary loop this is the loop bandwidth; a resonance that
-  pokes above 0 dB later does not move it (the resonance's own crossings are
-  still listed, and a warning names any crossing with a smaller phase margin).
-  ``phase_margin_deg`` is the phase margin *at the main crossover*.
+  *main* crossover is the highest-frequency falling gain crossing that ends a
+  *broad* stretch of |T| > 1: one that starts at the bottom of the band or
+  spans at least half a decade (our own threshold: a resonance that pokes
+  above 0 dB is narrower than that unless it rises tens of dB).  If no stretch
+  is broad, the longest one wins.  For an ordinary loop this is the loop
+  bandwidth; a resonance above it does not take its place (its crossings are
+  still listed, and a warning names any crossing closer to -1), and a dip
+  below 0 dB in mid-band (conditionally stable designs) does not pull the
+  crossover down to the dip.  ``phase_margin_deg`` is the phase margin *at the
+  main crossover*.
 * ``gain_margin_db`` is the smallest positive gain margin: how much the gain
   may rise before the loop goes unstable.  A phase crossing where |T| > 1
   gives a negative value, the gain *reduction* the loop tolerates
@@ -317,16 +321,30 @@ def _phase_crossing(c: _Curve, i: int, target: float) -> tuple[float, float]:
     return 10 ** x, float(_db(fn(np.array([10 ** x]))[0]))
 
 
-def _main_crossing(x: np.ndarray, db: np.ndarray, downs: list[int], ups: list[int],
+#: a stretch of |T| > 1 at least this wide (decades) counts as the loop's own, not a resonance
+BROAD_DECADES = 0.5
+
+
+def _main_score(length, from_bottom, column):
+    """Score of a falling crossing for the main-crossover choice (higher wins).
+
+    Broad stretches score above any narrow one, and among them the higher
+    frequency (column) wins; narrow ones score their length.
+    """
+    broad = from_bottom | (length >= BROAD_DECADES)
+    return np.where(broad, 1e6 + column, length)
+
+
+def _main_crossing(x: np.ndarray, downs: list[int], ups: list[int],
                    xc: dict[int, float]) -> int | None:
-    """Index (interval) of the main crossover: the longest stretch of |T|>1 ending there."""
-    best, best_len = None, -np.inf
+    """Index (interval) of the main crossover (see the module notes)."""
+    best, best_score = None, -np.inf
     for j in downs:
         starts = [xc[i] for i in ups if i < j]
-        start = starts[-1] if starts else x[0]
-        length = xc[j] - start
-        if length >= best_len:          # ties -> higher frequency
-            best, best_len = j, length
+        length = xc[j] - (starts[-1] if starts else x[0])
+        score = float(_main_score(np.array(length), np.array(not starts), np.array(j)))
+        if score >= best_score:          # ties -> higher frequency
+            best, best_score = j, score
     return best
 
 
@@ -404,7 +422,7 @@ def _analyse(c: _Curve, *, unstable: int, integrators: int | None, data: bool,
                         "loop-gain measurement (not a closed-loop or plant response)?")
 
     # --- main crossover
-    main_i = _main_crossing(x, db, downs, ups, xc)
+    main_i = _main_crossing(x, downs, ups, xc)
     for g in gain:
         g["main"] = g["_i"] == main_i
     if main_i is not None:
@@ -768,8 +786,7 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
     """Margins of many sampled loops at once (Monte Carlo draws), vectorised over rows.
 
     Uses the rules of :func:`margins_from_data` (linear interpolation in log f
-    on dB and on the phase, main crossover = falling crossing that ends the
-    longest stretch of |T| > 1, ties to the higher frequency), so a row gives
+    on dB and on the phase, the same main-crossover choice), so a row gives
     the same main-crossover numbers as ``margins_from_data`` on it.  Only the
     crossings are worked on point by point, so 10 000 rows of 400 points take
     a fraction of a second.
@@ -818,11 +835,11 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
     # the same row, or from the bottom of the band
     prev_same = np.concatenate([[False], r[1:] == r[:-1]])
     start = np.where(prev_same, np.concatenate([[x[0]], xc[:-1]]), x[0])
-    length = np.where(is_down, xc - start, -np.inf)
-    order = np.lexsort((c, length, r))                       # last per row = longest, then highest
+    score = np.where(is_down, _main_score(xc - start, ~prev_same, c), -np.inf)
+    order = np.lexsort((c, score, r))                        # last per row = best, then highest
     last = np.concatenate([r[order][1:] != r[order][:-1], [True]]) if r.size else np.zeros(0, bool)
     pick = order[last]
-    pick = pick[np.isfinite(length[pick])]
+    pick = pick[np.isfinite(score[pick])]
     pm_main = np.where(above[:, -1], np.nan, np.inf)
     fc = np.full(n, np.nan)
     pm_main[r[pick]] = pm[pick]
@@ -835,7 +852,10 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
     min_pm[r[sel]] = pm[sel]
 
     # --- phase crossings (sparse): ∠T passes ±180° between points c and c+1
-    pr, pc, pa, pstep, pt = _branch_crossings(T)
+    # Im T changes sign: candidates for ∠T and ∠(1+T) passing ±180° (Im(1+T) = Im T)
+    im = T.imag
+    cand = np.nonzero((im[:, :-1] > 0) != (im[:, 1:] > 0))
+    pr, pc, pa, pstep, pt = _branch_crossings(T, cand)
     gdb = _db(T[pr, pc]) + pt * (_db(T[pr, pc + 1]) - _db(T[pr, pc]))
     gm_all = -gdb
     pos = gm_all > 0
@@ -846,12 +866,11 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
     fgm[pr[hit]] = 10 ** (x[pc[hit]] + pt[hit] * dx[pc[hit]])
 
     # --- Nyquist: ∠(1+T) unwrapped change = principal change + 360° per branch-cut crossing
-    W = 1.0 + T
-    wr, _, wa, wstep, _ = _branch_crossings(W)
+    wr, _, wa, wstep, _ = _branch_crossings(T, cand, offset=1.0)
     jumps = np.zeros(n)
     np.add.at(jumps, wr, np.where(wstep > 0, 360.0, -360.0))
-    th0 = np.degrees(np.angle(W[:, 0]))
-    thinf = np.degrees(np.angle(W[:, -1])) + jumps
+    th0 = np.degrees(np.angle(1.0 + T[:, 0]))
+    thinf = np.degrees(np.angle(1.0 + T[:, -1])) + jumps
     nint = _slope_integrators(x, T)
     s0 = -nint * 90.0 + 180.0 * np.rint((th0 + nint * 90.0) / 180.0)
     sinf = 180.0 * np.rint(thinf / 180.0)
@@ -867,7 +886,7 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
     return {
         "pm_deg": pm_main, "crossover_hz": fc, "min_pm_deg": min_pm,
         "gm_db": gm, "phase_crossover_hz": fgm,
-        "modulus_margin": np.abs(W).min(axis=1), "delay_margin_s": dm, "stable": stable,
+        "modulus_margin": np.hypot(T.real + 1.0, T.imag).min(axis=1), "delay_margin_s": dm, "stable": stable,
     }
 
 
@@ -875,16 +894,16 @@ def _wrap_rad(a):
     return np.pi - np.mod(np.pi - a, 2 * np.pi)
 
 
-def _branch_crossings(T: np.ndarray):
-    """Intervals where ∠T (stepping by the wrapped difference) passes ±180°.
+def _branch_crossings(T: np.ndarray, cand: tuple[np.ndarray, np.ndarray], offset: float = 0.0):
+    """Intervals where ∠(T + offset) (stepping by the wrapped difference) passes ±180°.
 
+    ``cand`` are the (rows, columns) of the intervals where Im T changes sign.
     Returns rows, columns, start angle (rad), step (rad), and the fraction
     of the interval at which the crossing lies.
     """
-    im = T.imag
-    r, c = np.nonzero((im[:, :-1] > 0) != (im[:, 1:] > 0))
-    a = np.angle(T[r, c])
-    step = _wrap_rad(np.angle(T[r, c + 1]) - a)
+    r, c = cand
+    a = np.angle(T[r, c] + offset)
+    step = _wrap_rad(np.angle(T[r, c + 1] + offset) - a)
     end = a + step
     keep = (end > np.pi) | (end <= -np.pi)
     r, c, a, step = r[keep], c[keep], a[keep], step[keep]
