@@ -174,3 +174,24 @@ def test_a_file_that_kills_its_worker_gets_an_error_row_and_the_rest_real_rows(l
     assert rows[str(killer)]["status"] == "error"
     assert "worker failed" in rows[str(killer)]["error"]
     assert all(rows[f]["status"] == "pass" for f in files)
+
+
+def test_dask_missing_is_a_clear_input_error(lot, tmp_path, monkeypatch):
+    monkeypatch.setitem(sys.modules, "distributed", None)  # as if not installed
+    with pytest.raises(InputError, match=r"benchfit\[cluster\]") as ei:
+        run_lot(find_sweeps(lot)[:1], TaskSettings(), tmp_path / "r.csv", dask="tcp://127.0.0.1:8786",
+                progress=None)
+    assert ei.value.source == "--dask"
+
+
+def test_lot_run_json_round_trip(lot, tmp_path):
+    import json
+
+    from benchfit.batch.runner import LotRun
+    from benchfit.fileio import to_json_text
+
+    info = run_lot(find_sweeps(lot)[:3], TaskSettings(limits=LIMITS), tmp_path / "r.csv", workers=1,
+                   progress=None)
+    back = LotRun.from_dict(json.loads(to_json_text(info)))
+    assert back.to_dict() == info.to_dict()
+    assert info.provenance.settings["limits"]["min_phase_margin_deg"] == 45.0
