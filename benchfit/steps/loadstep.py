@@ -30,7 +30,6 @@ from scipy import special
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError
-from benchfit.fileio import as_float
 from benchfit.fitting.model import PlantModel
 from benchfit.provenance import Provenance
 from benchfit.steps.features import (
@@ -44,14 +43,10 @@ from benchfit.steps.features import (
 )
 from benchfit.steps.measure import MIN_PRE_SAMPLES, MIN_STEP_SIGMAS, TAIL_FRACTION
 from benchfit.steps.models import rational_unit_step, zeta_from_log_decrement
+from benchfit.steps.record import record_from_dict, record_to_dict
 
 #: Most times at which the Fourier integral is evaluated directly (others interpolated).
 _MAX_INTEGRAL_POINTS = 1500
-
-_FLOATS = ("initial_v", "final_v", "shift_v", "step_time_s", "deviation_v", "peak_time_s",
-           "recovery_time_s", "band_v", "ringing_freq_hz", "log_decrement", "zeta_from_decrement",
-           "noise_v", "sample_interval_s", "current_step_a", "peak_impedance_ohm")
-
 
 @dataclass(frozen=True)
 class LoadStepMeasurement:
@@ -106,26 +101,11 @@ class LoadStepMeasurement:
     provenance: Provenance = field(default_factory=lambda: Provenance(step="measure_load_step"))
 
     def to_dict(self) -> dict[str, Any]:
-        d: dict[str, Any] = {"kind": "load_step_measurement"}
-        d.update({k: getattr(self, k) for k in _FLOATS})
-        d.update(lobes=self.lobes, noise_source=self.noise_source, pre_step_samples=self.pre_step_samples,
-                 samples=self.samples, smoothing_samples=self.smoothing_samples,
-                 clipped_samples=self.clipped_samples, clipped_levels_v=list(self.clipped_levels_v),
-                 channel=self.channel, warnings=list(self.warnings), provenance=self.provenance.to_dict())
-        return d
+        return record_to_dict(self, "load_step_measurement")
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> LoadStepMeasurement:
-        try:
-            return cls(**{k: as_float(d[k]) for k in _FLOATS}, lobes=int(d["lobes"]),
-                       noise_source=str(d["noise_source"]), pre_step_samples=int(d["pre_step_samples"]),
-                       samples=int(d["samples"]), smoothing_samples=int(d["smoothing_samples"]),
-                       clipped_samples=int(d.get("clipped_samples", 0)),
-                       clipped_levels_v=tuple(float(v) for v in d.get("clipped_levels_v", ())),
-                       channel=str(d.get("channel", "")), warnings=tuple(d.get("warnings", ())),
-                       provenance=Provenance.from_dict(d.get("provenance")))
-        except KeyError as e:
-            raise InputError(f"load-step measurement has no {e.args[0]!r}") from None
+        return record_from_dict(cls, d, "load-step measurement")
 
 
 def measure_load_step(data, *, channel: str | int | None = None, band: float = 0.02,

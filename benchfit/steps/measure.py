@@ -28,7 +28,6 @@ from typing import Any
 import numpy as np
 
 from benchfit.errors import InputError
-from benchfit.fileio import as_float
 from benchfit.provenance import Provenance
 from benchfit.steps.features import (
     clipped_runs,
@@ -41,6 +40,7 @@ from benchfit.steps.features import (
     trace_arrays,
 )
 from benchfit.steps.models import zeta_from_log_decrement
+from benchfit.steps.record import record_from_dict, record_to_dict
 
 #: Fraction of the record whose median is the final level.
 TAIL_FRACTION = 0.10
@@ -48,13 +48,6 @@ TAIL_FRACTION = 0.10
 MIN_STEP_SIGMAS = 8.0
 #: Fewest samples before the step for the noise estimate to come from there.
 MIN_PRE_SAMPLES = 10
-
-_FLOAT_FIELDS = (
-    "initial_v", "final_v", "step_v", "step_time_s", "overshoot_pct", "undershoot_pct", "peak_v",
-    "peak_time_s", "rise_time_s", "t10_s", "t90_s", "settling_time_s", "band", "ringing_freq_hz",
-    "log_decrement", "zeta_from_decrement", "noise_v", "sample_interval_s",
-)
-
 
 @dataclass(frozen=True)
 class StepMeasurement:
@@ -128,28 +121,11 @@ class StepMeasurement:
     provenance: Provenance = field(default_factory=lambda: Provenance(step="measure_step"))
 
     def to_dict(self) -> dict[str, Any]:
-        d: dict[str, Any] = {"kind": "step_measurement"}
-        d.update({k: getattr(self, k) for k in _FLOAT_FIELDS})
-        d.update(lobes=self.lobes, noise_source=self.noise_source, pre_step_samples=self.pre_step_samples,
-                 samples=self.samples, smoothing_samples=self.smoothing_samples,
-                 clipped_samples=self.clipped_samples, clipped_levels_v=list(self.clipped_levels_v),
-                 channel=self.channel, warnings=list(self.warnings),
-                 provenance=self.provenance.to_dict())
-        return d
+        return record_to_dict(self, "step_measurement")
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> StepMeasurement:
-        try:
-            kw = {k: as_float(d[k]) for k in _FLOAT_FIELDS}
-            return cls(**kw, lobes=int(d["lobes"]), noise_source=str(d["noise_source"]),
-                       pre_step_samples=int(d["pre_step_samples"]), samples=int(d["samples"]),
-                       smoothing_samples=int(d["smoothing_samples"]),
-                       clipped_samples=int(d.get("clipped_samples", 0)),
-                       clipped_levels_v=tuple(float(v) for v in d.get("clipped_levels_v", ())),
-                       channel=str(d.get("channel", "")), warnings=tuple(d.get("warnings", ())),
-                       provenance=Provenance.from_dict(d.get("provenance")))
-        except KeyError as e:
-            raise InputError(f"step measurement has no {e.args[0]!r}") from None
+        return record_from_dict(cls, d, "step measurement")
 
 
 def _levels(y, i_step, guard):

@@ -21,8 +21,8 @@ from typing import Any
 
 import numpy as np
 
-from benchfit.fileio import as_float
 from benchfit.provenance import Provenance
+from benchfit.steps.record import record_from_dict, record_to_dict
 
 RULE_OF_THUMB_NOTE = "PM ≈ 100·ζ degrees: rule of thumb (common practice, no source)"
 
@@ -86,29 +86,11 @@ class PhaseMarginEstimate:
     provenance: Provenance = field(default_factory=lambda: Provenance(step="phase_margin_estimate"))
 
     def to_dict(self) -> dict[str, Any]:
-        return {
-            "kind": "phase_margin_estimate",
-            "zeta": self.zeta,
-            "zeta_stderr": self.zeta_stderr,
-            "phase_margin_deg": self.phase_margin_deg,
-            "phase_margin_stderr_deg": self.phase_margin_stderr_deg,
-            "rule_of_thumb_deg": self.rule_of_thumb_deg,
-            "crossover_hz": self.crossover_hz,
-            "notes": list(self.notes),
-            "provenance": self.provenance.to_dict(),
-        }
+        return record_to_dict(self, "phase_margin_estimate")
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> PhaseMarginEstimate:
-        return cls(
-            zeta=as_float(d["zeta"]), zeta_stderr=as_float(d.get("zeta_stderr")),
-            phase_margin_deg=as_float(d["phase_margin_deg"]),
-            phase_margin_stderr_deg=as_float(d.get("phase_margin_stderr_deg")),
-            rule_of_thumb_deg=as_float(d.get("rule_of_thumb_deg")),
-            crossover_hz=as_float(d.get("crossover_hz")),
-            notes=tuple(d.get("notes", ())),
-            provenance=Provenance.from_dict(d.get("provenance")),
-        )
+        return record_from_dict(cls, d, "phase-margin estimate")
 
 
 def estimate_phase_margin(zeta: float, zeta_stderr: float = float("nan"),
