@@ -8,6 +8,7 @@ from benchfit.data import FrequencyResponse
 from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
 from benchfit.steps.compare import compare_load_step_with_zout
+from benchfit.steps.fit import fit_load_step
 from benchfit.steps.loadstep import (
     LoadStepMeasurement,
     impedance_step,
@@ -15,6 +16,7 @@ from benchfit.steps.loadstep import (
     predict_load_step,
     step_from_frequency_response,
 )
+from benchfit.steps.models import resonant_load_step
 
 ZETA, FN, RP = 0.25, 8e3, 0.04
 WN = 2 * np.pi * FN
@@ -89,3 +91,24 @@ def test_load_step_bad_traces():
     late = 3.3 - _analytic_dip(t - 0.97e-3)
     with pytest.raises(InputError, match="too close to the end"):
         measure_load_step((t, late))
+
+
+@pytest.mark.parametrize("zeta", [0.15, 0.5, 1.3])
+def test_resonant_load_step_matches_scipy(zeta):
+    # Reference: scipy.signal.step of Zcl = (Rdc·ωn² + Rp·2ζωn·s)/(s² + 2ζωn s + ωn²), scaled by −ΔI.
+    rdc, rp, di = 0.005, 0.03, 2.0
+    t = np.linspace(0, 1e-3, 2001)
+    _, ref = signal.step(([rp * 2 * zeta * WN, rdc * WN**2], [1, 2 * zeta * WN, WN**2]), T=t)
+    ours = resonant_load_step(t, zeta, FN, 1.0, -di * rdc, -di * rp, 0.0)
+    np.testing.assert_allclose(ours, 1.0 - di * ref, atol=1e-12)
+
+
+def test_fit_load_step_recovers_impedance():
+    rng = np.random.default_rng(8)
+    t = np.linspace(-1e-4, 1.5e-3, 4000)
+    v = resonant_load_step(t, 0.3, FN, 5.0, -0.004, -0.03, 1.5e-6) + 3e-4 * rng.standard_normal(t.size)
+    f = fit_load_step((t, v))
+    for name, truth in (("zeta", 0.3), ("fn_hz", FN), ("droop_v", -0.004), ("resonant_v", -0.03),
+                        ("t0_s", 1.5e-6)):
+        assert abs(f.value(name) - truth) < 4 * f.stderr(name), name
+    assert f.stats["rms_over_noise"] == pytest.approx(1.0, abs=0.15)

@@ -68,6 +68,10 @@ def test_sample_load_step_trace_matches_its_scenario():
     assert s["deviation_v"] == pytest.approx(truth["peak_deviation_v"], rel=0.05)
     assert s["current_step_a"] == pytest.approx(truth["delta_i_a"], rel=0.02)
     assert s["mode"] == "load_step"
+    # the resonant Zcl fit finds the scenario's ζ, fn and Rp
+    assert abs(s["zeta"] - truth["zeta"]) < 4 * s["zeta_stderr"]
+    assert abs(s["natural_freq_hz"] - truth["fn_hz"]) < 4 * s["natural_freq_stderr_hz"]
+    assert s["zcl_resonant_ohm"] == pytest.approx(truth["rp_ohm"], rel=0.02)
     # Zcl of the scenario, as a model: the predicted dip matches the measured one.
     wn = 2 * np.pi * truth["fn_hz"]
     zcl = PlantModel(zeros=[0.0], poles=np.roots([1, 2 * truth["zeta"] * wn, wn * wn]),

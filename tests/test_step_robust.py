@@ -5,7 +5,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from benchfit.errors import FitError, InputError
-from benchfit.steps.fit import fit_step
+from benchfit.steps.fit import fit_load_step, fit_step
 from benchfit.steps.loadstep import measure_load_step
 from benchfit.steps.measure import measure_step
 from benchfit.steps.models import second_order_step
@@ -50,10 +50,11 @@ def test_measurements_never_crash(trace):
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(traces())
 def test_fits_never_crash(trace):
-    try:
-        f = fit_step(trace)
-    except (InputError, FitError) as e:
-        assert str(e)
-        return
-    assert np.all(np.isfinite(f.fitted_v))
-    assert f.parameter("zeta").value > 0
+    for fit in (fit_step, fit_load_step):
+        try:
+            f = fit(trace)
+        except (InputError, FitError) as e:
+            assert str(e)
+            continue
+        assert np.all(np.isfinite(f.fitted_v))
+        assert f.parameter("zeta").value > 0

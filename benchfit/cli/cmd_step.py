@@ -107,7 +107,8 @@ def run(args: argparse.Namespace) -> int:
         zout = _read_zout(args.zout) if args.zout else None
         result = analyse_load_step(trace, channel=channel, band=band, band_v=band_v, step_time_s=step_time,
                                    current_step_a=current, current_channel=args.current_channel, zout=zout,
-                                   zout_label=f"output impedance {args.zout}" if args.zout else "")
+                                   zout_label=f"output impedance {args.zout}" if args.zout else "",
+                                   fit=not args.no_fit)
     else:
         if args.current_step or args.zout or args.current_channel:
             raise InputError("--current-step, --current-channel and --zout need --load-step",

@@ -11,7 +11,7 @@ from benchfit.fitting.model import PlantModel
 from benchfit.provenance import Provenance
 from benchfit.steps.compare import compare_load_step_with_zout, compare_step_with_loop
 from benchfit.steps.features import trace_arrays
-from benchfit.steps.fit import MODELS, fit_step
+from benchfit.steps.fit import MODELS, fit_load_step, fit_step
 from benchfit.steps.loadstep import measure_load_step
 from benchfit.steps.measure import measure_step
 from benchfit.steps.pm import estimate_phase_margin
@@ -78,11 +78,12 @@ def analyse_load_step(data, *, channel: str | int | None = None, band: float = 0
                       band_v: float | None = None, step_time_s: float | None = None,
                       current_step_a: float | None = None, current_channel: str | int | None = None,
                       zout: PlantModel | FrequencyResponse | None = None,
-                      zout_label: str = "closed-loop output impedance") -> StepResult:
+                      zout_label: str = "closed-loop output impedance", fit: bool = True) -> StepResult:
     """Measure a load-step trace; compare with the output-impedance prediction when given.
 
-    The ringing's log decrement gives a ζ and from it a phase-margin estimate
-    (the load-step ringing shows the same closed-loop poles as a reference step).
+    The resonant output-impedance model is fitted (``fit``); its ζ, or without a
+    fit the ζ of the ringing's log decrement, gives a phase-margin estimate (the
+    load-step ringing shows the same closed-loop poles as a reference step).
     ``zout`` needs ``current_step_a``, or ``current_channel``: a channel of the
     same trace holding the load current, whose step (measured like a reference
     step) gives ΔI.
@@ -96,7 +97,13 @@ def analyse_load_step(data, *, channel: str | int | None = None, band: float = 0
                           current_step_a=current_step_a)
     warnings = _channel_note(data, channel) + list(m.warnings)
     pm = None
-    if math.isfinite(m.zeta_from_decrement):
+    fits = ()
+    if fit:
+        f = fit_load_step(data, channel=channel, measurement=m)
+        fits = (f,)
+        warnings += [f"{f.model} fit: {w}" for w in f.warnings]
+        pm = estimate_phase_margin(f.value("zeta"), f.stderr("zeta"), f.value("fn_hz"))
+    elif math.isfinite(m.zeta_from_decrement):
         fn = m.ringing_freq_hz / math.sqrt(max(1.0 - m.zeta_from_decrement ** 2, 1e-12))
         pm = estimate_phase_margin(m.zeta_from_decrement, float("nan"), fn)
     comparison = None
@@ -107,7 +114,7 @@ def analyse_load_step(data, *, channel: str | int | None = None, band: float = 0
         comparison = compare_load_step_with_zout(data, zout, current_step_a, channel=channel, band=band,
                                                  band_v=band_v, step_time_s=step_time_s, against=zout_label)
         warnings += list(comparison.warnings)
-    return StepResult(mode="load_step", measurement=m, phase_margin=pm, comparison=comparison,
+    return StepResult(mode="load_step", measurement=m, fits=fits, phase_margin=pm, comparison=comparison,
                       warnings=tuple(warnings),
                       provenance=Provenance(step="load_step", sources=(source,) if source else (),
                                             settings={"channel": name, "band": band, "band_v": band_v,

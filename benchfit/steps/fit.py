@@ -35,20 +35,26 @@ from benchfit.fitting.model import PlantModel
 from benchfit.fitting.result import Parameter
 from benchfit.provenance import Provenance
 from benchfit.steps.features import clipped_runs, difference_sigma, trace_arrays
+from benchfit.steps.loadstep import LoadStepMeasurement, measure_load_step
 from benchfit.steps.measure import StepMeasurement, measure_step
 from benchfit.steps.models import (
     TWO_PI,
     closed_loop_unit_step,
+    resonant_load_step,
     second_order_step,
     third_order_step,
     unit_second_order,
+    unit_second_order_slope,
     zeta_from_overshoot_pct,
 )
 
 MODELS = ("second-order", "third-order", "loop")
+#: Every model a StepFit can hold (the load-step model is fitted by fit_load_step).
+ALL_MODELS = (*MODELS, "load-step")
 #: Most model evaluations one least-squares run may use.
 MAX_EVALUATIONS = 2000
 _UNITS = {"zeta": "", "fn_hz": "Hz", "fp_hz": "Hz", "initial_v": "V", "step_v": "V", "t0_s": "s",
+          "droop_v": "V", "resonant_v": "V",
           "loop_gain": "", "pair_fn_hz": "Hz", "pair_zeta": ""}
 
 
@@ -59,7 +65,7 @@ class StepFit:
     Parameters
     ----------
     model
-        One of :data:`MODELS`.
+        One of :data:`ALL_MODELS`.
     parameters
         Fitted parameters with one-sigma standard errors (zeta, fn_hz, initial_v,
         step_v, t0_s; plus fp_hz, or loop_gain / pair_fn_hz / pair_zeta).
@@ -232,18 +238,7 @@ def fit_step(data, *, model: str = "second-order", channel: str | int | None = N
                          source="--model")
     t, y, name, source = trace_arrays(data, channel)
     m = measurement or measure_step(data, channel=channel, band=band, step_time_s=step_time_s)
-    keep = np.ones(y.size, bool)
-    warnings: list[str] = []
-    if exclude_clipped and m.clipped_samples:
-        mask, _ = clipped_runs(y, ignore_levels=(m.initial_v, m.final_v) if m.noise_v == 0 else ())
-        keep = ~mask
-        warnings.append(f"{int(mask.sum())} clipped samples left out of the fit")
-    sigma = m.noise_v if m.noise_v > 0 and np.isfinite(m.noise_v) else difference_sigma(y)
-    if not sigma > 0:
-        sigma = 1e-9 * max(abs(m.step_v), 1e-30)  # noise-free synthetic record
-    if keep.sum() < 10:
-        raise FitError(f"only {int(keep.sum())} usable samples; a step fit needs at least 10")
-
+    keep, sigma, warnings = _weights(y, m, abs(m.step_v), exclude_clipped)
     if model == "second-order":
         out, fn, extra = _best_second_order(t, y, keep, sigma, m), _so, {}
     elif model == "third-order":
@@ -256,6 +251,22 @@ def fit_step(data, *, model: str = "second-order", channel: str | int | None = N
     if not out.success and out.nfev == 0:
         raise FitError(f"step fit did not run: {out.message}")
     return _package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source)
+
+
+def _weights(y, m, scale: float, exclude_clipped: bool) -> tuple[np.ndarray, float, list[str]]:
+    """Samples to fit (clipped ones out), the noise σ that weights them, and notes."""
+    keep = np.ones(y.size, bool)
+    warnings: list[str] = []
+    if exclude_clipped and m.clipped_samples:
+        mask, _ = clipped_runs(y, ignore_levels=(m.initial_v, m.final_v) if m.noise_v == 0 else ())
+        keep = ~mask
+        warnings.append(f"{int(mask.sum())} clipped samples left out of the fit")
+    sigma = m.noise_v if m.noise_v > 0 and np.isfinite(m.noise_v) else difference_sigma(y)
+    if not sigma > 0:
+        sigma = 1e-9 * max(scale, 1e-30)  # noise-free synthetic record
+    if keep.sum() < 10:
+        raise FitError(f"only {int(keep.sum())} usable samples; a step fit needs at least 10")
+    return keep, sigma, warnings
 
 
 def _best_second_order(t, y, keep, sigma, m):
@@ -281,6 +292,56 @@ def _third_order(t, y, keep, sigma, so):
         if best is None or r.chisqr < best.chisqr:
             best = r
     return best
+
+
+# ----- load steps -----------------------------------------------------------------------
+def _ls(t, v):
+    return resonant_load_step(t, v["zeta"], v["fn_hz"], v["initial_v"], v["droop_v"], v["resonant_v"],
+                              v["t0_s"])
+
+
+def _load_step_start(m: LoadStepMeasurement, zeta: float) -> dict[str, float]:
+    root = math.sqrt(max(1.0 - zeta * zeta, 1e-6))
+    if np.isfinite(m.ringing_freq_hz) and zeta < 1:
+        wn = TWO_PI * m.ringing_freq_hz / root
+    else:  # the resonant term peaks at atan(√(1−ζ²)/ζ)/ωd after the step
+        wn = math.atan2(root, zeta) / (root * max(m.peak_time_s, m.sample_interval_s))
+    tau = np.linspace(0.0, 20.0 / (zeta * wn), 4001)
+    peak = float(np.max(2.0 * zeta * unit_second_order_slope(tau, zeta, wn)))
+    return {"zeta": zeta, "fn_hz": wn / TWO_PI, "initial_v": m.initial_v, "droop_v": m.shift_v,
+            "resonant_v": (m.deviation_v - 0.5 * m.shift_v) / peak, "t0_s": m.step_time_s}
+
+
+def fit_load_step(data, *, channel: str | int | None = None,
+                  measurement: LoadStepMeasurement | None = None, band: float = 0.02,
+                  band_v: float | None = None, step_time_s: float | None = None,
+                  exclude_clipped: bool = True) -> StepFit:
+    """Fit the resonant output-impedance model to a load-step trace.
+
+    The model is the response to a current step of
+    Zcl = (R_dc·ωn² + R_p·2ζωn·s)/(s² + 2ζωn s + ωn²) (see
+    :func:`~benchfit.steps.models.resonant_load_step`): parameters ζ, fn, the
+    initial level, ``droop_v`` (−ΔI·R_dc), ``resonant_v`` (−ΔI·R_p) and t0.
+
+    Raises
+    ------
+    InputError
+        Bad trace.
+    FitError
+        Too few usable samples.
+    """
+    t, y, name, source = trace_arrays(data, channel)
+    m = measurement or measure_load_step(data, channel=channel, band=band, band_v=band_v,
+                                         step_time_s=step_time_s)
+    keep, sigma, warnings = _weights(y, m, abs(m.deviation_v), exclude_clipped)
+    zetas = [float(m.zeta_from_decrement)] if np.isfinite(m.zeta_from_decrement) else [0.2, 0.45, 0.8]
+    starts = sorted((_load_step_start(m, z) for z in zetas), key=lambda s: _cost(_ls, s, t, y, keep))
+    best = None
+    for s in starts[:2]:
+        r = _run(_ls, s, t, y, keep, sigma)
+        if best is None or r.chisqr < best.chisqr:
+            best = r
+    return _package("load-step", best, _ls, t, y, keep, sigma, m, warnings, {}, name, source)
 
 
 # ----- loop mode -----------------------------------------------------------------------
@@ -375,7 +436,7 @@ def _package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source
     if rho > 0.3:
         warnings.append(f"residuals are correlated (lag-1 {rho:.2f}): noise is band-limited or the model "
                         f"misses something; standard errors widened by {infl:.2f}x")
-    if m.rise_time_s < 3.0 * m.sample_interval_s:
+    if getattr(m, "rise_time_s", np.inf) < 3.0 * m.sample_interval_s:
         warnings.append(f"the step rises within {m.rise_time_s / m.sample_interval_s:.2g} samples: the "
                         "record does not resolve its shape, so ζ and fn are not determined by it")
     ratio = rms / m.noise_v if m.noise_v > 0 else float("nan")

@@ -51,40 +51,69 @@ def zeta_from_log_decrement(delta: float) -> float:
 
 
 # ----- second order ------------------------------------------------------------------
-def unit_second_order(tau: np.ndarray, zeta: float, wn: float) -> np.ndarray:
-    """Unit step response of ωn²/(s² + 2ζωn s + ωn²) at times ``tau`` ≥ 0 (s).
+def _decaying_pair(t: np.ndarray, zeta: float, wn: float) -> tuple[np.ndarray, np.ndarray]:
+    """e^(−σt)·cosh(βt) and e^(−σt)·sinh(βt)/β for t ≥ 0, σ = ζωn, β² = ωn²(ζ² − 1).
 
-    ``wn`` in rad/s.  Negative ``tau`` gives 0.
+    cos/sin when under-damped, sums of decaying exponentials when over-damped (β < σ,
+    so nothing overflows at long times), and their series in β²t² near ζ = 1.
     """
-    tau = np.asarray(tau, dtype=float)
-    t = np.clip(tau, 0.0, None)
     sig = zeta * wn
     b2 = wn * wn * (zeta * zeta - 1.0)  # β², negative when under-damped
-    x = b2 * t * t
-    small = np.abs(x) < 1e-6
     if b2 < 0:
         wd = math.sqrt(-b2)
-        c = np.cos(wd * t)
-        s = np.sin(wd * t) / wd
         decay = np.exp(-sig * t)
-        u = 1.0 - decay * (c + sig * s)
+        ec, es = decay * np.cos(wd * t), decay * np.sin(wd * t) / wd
     elif b2 > 0:
-        # e^(−σt)·cosh(βt) and e^(−σt)·sinh(βt)/β as sums of decaying exponentials
-        # (β < σ), so nothing overflows at long times.
         beta = math.sqrt(b2)
         e1 = np.exp((beta - sig) * t)
         e2 = np.exp((-beta - sig) * t)
-        u = 1.0 - (0.5 * (e1 + e2) + sig * 0.5 * (e1 - e2) / beta)
+        ec, es = 0.5 * (e1 + e2), 0.5 * (e1 - e2) / beta
     else:
-        u = 1.0 - np.exp(-sig * t) * (1.0 + sig * t)
-    if np.any(small) and b2 != 0.0:
-        # Near ζ = 1 use the series of cosh and sinh/β in β²t² (no cancellation).
-        ts = t[small]
-        xs = x[small]
-        c = 1.0 + xs / 2.0 + xs * xs / 24.0
-        s = ts * (1.0 + xs / 6.0 + xs * xs / 120.0)
-        u[small] = 1.0 - np.exp(-sig * ts) * (c + sig * s)
-    return np.where(tau > 0, u, 0.0)
+        decay = np.exp(-sig * t)
+        ec, es = decay, decay * t
+    x = b2 * t * t
+    small = np.abs(x) < 1e-6
+    if b2 != 0.0 and np.any(small):  # no cancellation near ζ = 1
+        ts, xs = t[small], x[small]
+        decay = np.exp(-sig * ts)
+        ec[small] = decay * (1.0 + xs / 2.0 + xs * xs / 24.0)
+        es[small] = decay * ts * (1.0 + xs / 6.0 + xs * xs / 120.0)
+    return ec, es
+
+
+def unit_second_order(tau: np.ndarray, zeta: float, wn: float) -> np.ndarray:
+    """Unit step response of ωn²/(s² + 2ζωn s + ωn²) at times ``tau`` (s); 0 for τ ≤ 0.
+
+    ``wn`` in rad/s.
+    """
+    tau = np.asarray(tau, dtype=float)
+    ec, es = _decaying_pair(np.clip(tau, 0.0, None), zeta, wn)
+    return np.where(tau > 0, 1.0 - (ec + zeta * wn * es), 0.0)
+
+
+def unit_second_order_slope(tau: np.ndarray, zeta: float, wn: float) -> np.ndarray:
+    """Time derivative of :func:`unit_second_order` divided by ωn (dimensionless).
+
+    It is ωn·e^(−ζωn τ)·sinh(βτ)/β, the step response of ωn·s/(s² + 2ζωn s + ωn²).
+    """
+    tau = np.asarray(tau, dtype=float)
+    _, es = _decaying_pair(np.clip(tau, 0.0, None), zeta, wn)
+    return np.where(tau > 0, wn * es, 0.0)
+
+
+def resonant_load_step(t: np.ndarray, zeta: float, fn_hz: float, initial: float, droop: float,
+                       resonant: float, t0: float) -> np.ndarray:
+    """Output after a load step through Zcl = (R_dc·ωn² + R_p·2ζωn·s)/(s² + 2ζωn s + ωn²).
+
+    ``droop`` = −ΔI·R_dc and ``resonant`` = −ΔI·R_p in V: the output settles ``droop``
+    away from ``initial`` and rings with a first swing of about ``resonant``·(peak of
+    2ζ·slope).  This is the shape of a regulator's closed-loop output impedance around
+    its loop crossover (a damped resonance plus the DC droop).
+    """
+    tau = np.asarray(t, dtype=float) - t0
+    wn = TWO_PI * fn_hz
+    return initial + droop * unit_second_order(tau, zeta, wn) \
+        + resonant * 2.0 * zeta * unit_second_order_slope(tau, zeta, wn)
 
 
 def second_order_step(t: np.ndarray, zeta: float, fn_hz: float, initial: float, step: float,

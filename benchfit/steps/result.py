@@ -85,11 +85,18 @@ class StepResult:
                 fit_rms_over_noise=so.stats["rms_over_noise"] if so else _NAN,
             )
         else:
+            ls = self.fit("load-step")
+            di = m.current_step_a
             out.update(shift_v=m.shift_v, deviation_v=m.deviation_v, recovery_time_s=m.recovery_time_s,
-                       band_v=m.band_v, current_step_a=m.current_step_a,
-                       peak_impedance_ohm=m.peak_impedance_ohm,
-                       natural_freq_hz=_NAN if not math.isfinite(m.ringing_freq_hz) or not pm else
-                       m.ringing_freq_hz / math.sqrt(max(1.0 - pm.zeta ** 2, 1e-12)))
+                       band_v=m.band_v, current_step_a=di, peak_impedance_ohm=m.peak_impedance_ohm,
+                       natural_freq_hz=ls.value("fn_hz") if ls else
+                       _NAN if not math.isfinite(m.ringing_freq_hz) or not pm else
+                       m.ringing_freq_hz / math.sqrt(max(1.0 - pm.zeta ** 2, 1e-12)),
+                       natural_freq_stderr_hz=ls.stderr("fn_hz") if ls else _NAN,
+                       # Zcl = (R_dc·ωn² + R_p·2ζωn·s)/(s² + 2ζωn s + ωn²) of the load-step fit
+                       zcl_resonant_ohm=-ls.value("resonant_v") / di if ls and di else _NAN,
+                       zcl_dc_ohm=-ls.value("droop_v") / di if ls and di else _NAN,
+                       fit_rms_over_noise=ls.stats["rms_over_noise"] if ls else _NAN)
         return out
 
     # ----- JSON ----------------------------------------------------------------------
@@ -168,7 +175,7 @@ class StepResult:
                 lines.append(f"  {p.name:<24} {_pm(p.value, p.stderr, p.unit)}")
         if self.phase_margin:
             pm = self.phase_margin
-            basis = "fitted ζ" if self.fits else "ζ from the log decrement"
+            basis = "fitted ζ" if self.fits else "ζ of the log decrement"
             lines += ["", f"Phase margin estimated from the {basis}",
                       f"  {'exact second order':<24} {pm.phase_margin_deg:.3g} ± "
                       f"{pm.phase_margin_stderr_deg:.2g} deg (crossover {_si(pm.crossover_hz, 'Hz')})",
