@@ -259,3 +259,11 @@ def test_fewer_column_words_than_columns(tmp_path):
     text = "1;0;0;99\n2;-6;-90;99\n"
     r = read_sweep(_write(tmp_path, "h.csv", text), columns="freq,db,deg")
     np.testing.assert_allclose(r.mag_db, [0, -6], atol=1e-12)
+
+
+def test_iso_quantity_slash_unit_names(tmp_path):
+    text = "Frequency/kHz;Magnitude/dB;Phase/°\n1;-3;-45\n2;-7;-63,4\n"
+    r = read_sweep(_write(tmp_path, "iso.csv", text))
+    np.testing.assert_allclose(r.freq_hz, [1e3, 2e3])
+    np.testing.assert_allclose(r.mag_db, [-3, -7], atol=1e-12)
+    assert r.meta["dialect"]["columns"] == ["Frequency/kHz", "Magnitude/dB", "Phase/°"]

@@ -79,7 +79,7 @@ def tokens(name: str) -> list[str]:
             out.append(part.lower())
             continue
         part = re.sub(r"(?<=[a-z])(?=[A-Z])", " ", part)
-        out.extend(t.lower() for t in re.split(r"[^0-9A-Za-zµμ|/_°Ω.]+|[_.]", part) if t)
+        out.extend(t.lower() for t in re.split(r"[^0-9A-Za-zµμ°Ω]+", part) if t)
     if "|" in name:
         out.append("|")
     return out

@@ -219,6 +219,7 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
         "data_form": pair.kind,
         "mag_form": mag_form,
         "phase_form": ph_form,
+        "columns": [c.name for c in pair.columns()],
         "trace": k + 1,
         "trace_label": label,
         "traces": [t[0] for t in traces],
