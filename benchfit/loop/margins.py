@@ -46,7 +46,7 @@ where the sweep is too coarse to trust the numbers.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -55,15 +55,14 @@ from scipy import optimize
 
 from benchfit.errors import InputError
 from benchfit.fileio import as_float
+from benchfit.loop.crossings import main_score, nyquist_count, slope_integrators, to_db, wrap180
+from benchfit.loop.densegrid import MAX_POINTS, LoopFn, dense_grid, model_band
+from benchfit.loop.marginsbatch import margins_batch
 from benchfit.provenance import Provenance
 
-LoopFn = Callable[[np.ndarray], np.ndarray]
+__all__ = ["Margins", "margins_from_data", "margins_of_sweep", "margins_from_model",
+           "margins_of_model", "margins_batch", "model_band"]
 
-# grid refinement limits for models: phase/gain steps between neighbours
-_MAX_PHASE_STEP_DEG = 2.0
-_MAX_DB_STEP = 1.0
-_MAX_RETURN_STEP_DEG = 5.0      # step of ∠(1+T) (for the winding count)
-_MAX_POINTS = 200_000
 # data: a crossing whose neighbouring points differ more than this is "coarse"
 _COARSE_PHASE_DEG = 15.0
 _COARSE_DB = 6.0
@@ -230,46 +229,6 @@ class Margins:
         return "\n".join(lines)
 
 
-# ----------------------------------------------------------------------------- helpers
-def _wrap180(deg):
-    """Wrap degrees to (-180, 180]."""
-    return 180.0 - np.mod(180.0 - np.asarray(deg, dtype=float), 360.0)
-
-
-def _db(T):
-    with np.errstate(divide="ignore"):
-        return 20.0 * np.log10(np.abs(T))
-
-
-def _slope_integrators(x: np.ndarray, T: np.ndarray) -> np.ndarray:
-    """Estimate the number of integrators from the low-end magnitude slope (rows)."""
-    a = np.log10(np.abs(T[..., 1]) + 1e-300) - np.log10(np.abs(T[..., 0]) + 1e-300)
-    slope = a / (x[1] - x[0])
-    n = np.rint(-slope)
-    big = np.abs(T[..., 0]) > 1.0        # below 0 dB at the bottom: no integrator is acting
-    return np.where(big & (n > 0), n, 0).astype(int)
-
-
-def _nyquist(T: np.ndarray, integrators: np.ndarray, unstable: int | np.ndarray):
-    """Winding count of 1+T over a dense grid (rows), with the asymptotic ends.
-
-    Returns (N counter-clockwise encirclements, Z closed-loop RHP poles,
-    low-end deviation deg, high-end deviation deg).
-    """
-    W = 1.0 + T
-    th = np.degrees(np.unwrap(np.angle(W), axis=-1))
-    n = np.asarray(integrators)
-    th0, thinf = th[..., 0], th[..., -1]
-    # ω→0+: ∠(1+T) → ∠K0 - n·90°, i.e. on the lattice -n·90° + 180°·j
-    s0 = -n * 90.0 + 180.0 * np.rint((th0 + n * 90.0) / 180.0)
-    # ω→∞: 1+T → 1 + D (real), i.e. on the lattice 180°·j
-    sinf = 180.0 * np.rint(thinf / 180.0)
-    # full contour: 2·(positive-ω half) + small right-hand indentation around s=0 (-n·180°)
-    total = 2.0 * (sinf - s0) - 180.0 * n
-    N = np.rint(total / 360.0).astype(int)
-    Z = np.asarray(unstable) - N
-    return N, Z, np.abs(th0 - s0), np.abs(thinf - sinf)
-
 
 # ----------------------------------------------------------------------------- core
 @dataclass
@@ -288,13 +247,13 @@ def _unwrapped_phase(T: np.ndarray) -> np.ndarray:
 def _gain_crossing(c: _Curve, i: int) -> tuple[float, float]:
     """(freq_hz, phase_deg) of the |T|=1 crossing inside interval i."""
     x0, x1 = math.log10(c.f[i]), math.log10(c.f[i + 1])
-    g0, g1 = _db(c.T[i]), _db(c.T[i + 1])
+    g0, g1 = to_db(c.T[i]), to_db(c.T[i + 1])
     if c.exact is None or g0 == 0.0 or g1 == 0.0:
         t = g0 / (g0 - g1) if g0 != g1 else 0.0
         return 10 ** (x0 + t * (x1 - x0)), float(c.phase[i] + t * (c.phase[i + 1] - c.phase[i]))
     fn, Ti, pi = c.exact, c.T[i], c.phase[i]
     try:
-        x = optimize.brentq(lambda xx: float(_db(fn(np.array([10 ** xx]))[0])), x0, x1, xtol=1e-13)
+        x = optimize.brentq(lambda xx: float(to_db(fn(np.array([10 ** xx]))[0])), x0, x1, xtol=1e-13)
     except ValueError:      # grid too coarse for the exact function (capped refinement)
         return _gain_crossing(_Curve(c.f, c.T, c.phase, None), i)
     Tx = fn(np.array([10 ** x]))[0]
@@ -307,7 +266,7 @@ def _phase_crossing(c: _Curve, i: int, target: float) -> tuple[float, float]:
     p0, p1 = c.phase[i], c.phase[i + 1]
     if c.exact is None or p0 == target or p1 == target:
         t = (target - p0) / (p1 - p0) if p1 != p0 else 0.0
-        g0, g1 = _db(c.T[i]), _db(c.T[i + 1])
+        g0, g1 = to_db(c.T[i]), to_db(c.T[i + 1])
         return 10 ** (x0 + t * (x1 - x0)), float(g0 + t * (g1 - g0))
     fn, Ti = c.exact, c.T[i]
 
@@ -318,21 +277,8 @@ def _phase_crossing(c: _Curve, i: int, target: float) -> tuple[float, float]:
         x = optimize.brentq(h, x0, x1, xtol=1e-13)
     except ValueError:      # grid too coarse for the exact function (capped refinement)
         return _phase_crossing(_Curve(c.f, c.T, c.phase, None), i, target)
-    return 10 ** x, float(_db(fn(np.array([10 ** x]))[0]))
+    return 10 ** x, float(to_db(fn(np.array([10 ** x]))[0]))
 
-
-#: a stretch of |T| > 1 at least this wide (decades) counts as the loop's own, not a resonance
-BROAD_DECADES = 0.5
-
-
-def _main_score(length, from_bottom, column):
-    """Score of a falling crossing for the main-crossover choice (higher wins).
-
-    Broad stretches score above any narrow one, and among them the higher
-    frequency (column) wins; narrow ones score their length.
-    """
-    broad = from_bottom | (length >= BROAD_DECADES)
-    return np.where(broad, 1e6 + column, length)
 
 
 def _main_crossing(x: np.ndarray, downs: list[int], ups: list[int],
@@ -342,7 +288,7 @@ def _main_crossing(x: np.ndarray, downs: list[int], ups: list[int],
     for j in downs:
         starts = [xc[i] for i in ups if i < j]
         length = xc[j] - (starts[-1] if starts else x[0])
-        score = float(_main_score(np.array(length), np.array(not starts), np.array(j)))
+        score = float(main_score(np.array(length), np.array(not starts), np.array(j)))
         if score >= best_score:          # ties -> higher frequency
             best, best_score = j, score
     return best
@@ -352,7 +298,7 @@ def _analyse(c: _Curve, *, unstable: int, integrators: int | None, data: bool,
              extra_warnings: Sequence[str], provenance: Provenance) -> Margins:
     f, T, ph = c.f, c.T, c.phase
     x = np.log10(f)
-    db = _db(T)
+    db = to_db(T)
     warnings: list[str] = list(extra_warnings)
     if not np.all(np.isfinite(db)):
         raise InputError("the loop gain is zero or infinite at some frequency in the band")
@@ -367,7 +313,7 @@ def _analyse(c: _Curve, *, unstable: int, integrators: int | None, data: bool,
     downs, ups = [], []
     for i in idx:
         fc, phc = _gain_crossing(c, int(i))
-        pm = float(_wrap180(180.0 + phc))
+        pm = float(wrap180(180.0 + phc))
         direction = "down" if above[i] else "up"
         (downs if direction == "down" else ups).append(int(i))
         xc[int(i)] = math.log10(fc)
@@ -443,11 +389,11 @@ def _analyse(c: _Curve, *, unstable: int, integrators: int | None, data: bool,
                             f"{pm_main:.1f} deg")
 
     # --- closed-loop stability (Nyquist)
-    n_int = int(_slope_integrators(x, T[None, :])[0]) if integrators is None else int(integrators)
+    n_int = int(slope_integrators(x, T[None, :])[0]) if integrators is None else int(integrators)
     if n_int == 0 and db[0] < 0 and integrators is None and len(x) > 1 and db[1] < db[0] - 0.1 * (x[1] - x[0]) * 20:
         warnings.append(f"the loop gain is below 0 dB at the bottom of the band ({f[0]:.4g} Hz) "
                         "and rising towards lower frequencies: a crossing may lie below the band")
-    N, Z, dev0, devinf = _nyquist(T[None, :], np.array([n_int]), unstable)
+    N, Z, dev0, devinf = nyquist_count(T[None, :], np.array([n_int]), unstable)
     N, Z = int(N[0]), int(Z[0])
     stable = Z == 0
     if float(dev0[0]) > 60.0:
@@ -481,13 +427,13 @@ def _analyse(c: _Curve, *, unstable: int, integrators: int | None, data: bool,
         if (~pos).any():
             gm_down = float(np.max(gms[~pos]))
     # a real negative T at DC is a phase crossing at f = 0 (open-loop-unstable plants)
-    if n_int == 0 and float(dev0[0]) < 1.0 and abs(float(_wrap180(ph[0] + 180.0))) < 1.0:
+    if n_int == 0 and float(dev0[0]) < 1.0 and abs(float(wrap180(ph[0] + 180.0))) < 1.0:
         g0 = -float(db[0])
         if c.exact is not None:        # a model can be evaluated at DC itself
             with np.errstate(all="ignore"):
                 t0 = np.asarray(c.exact(np.array([0.0])), dtype=complex).reshape(-1)[0]
             if np.isfinite(t0) and t0 != 0:
-                g0 = -float(_db(t0))
+                g0 = -float(to_db(t0))
         phase_x.insert(0, {"kind": "phase", "freq_hz": 0.0, "value": g0, "direction": "dc"})
         if g0 > 0 and g0 < gm_up:
             gm_up, f_up = g0, 0.0
@@ -613,51 +559,6 @@ def _check_poles(p) -> None:
 
 
 # ----------------------------------------------------------------------------- models
-def _dense_grid(fn: LoopFn, f_min: float, f_max: float, points_per_decade: int,
-                hints: Sequence[float]) -> tuple[np.ndarray, np.ndarray, bool]:
-    """Evaluate ``fn`` on a log grid refined until neighbours differ by little."""
-    decades = math.log10(f_max / f_min)
-    x = np.linspace(math.log10(f_min), math.log10(f_max), max(int(decades * points_per_decade), 8) + 1)
-    h = np.log10([v for v in hints if f_min < v < f_max])
-    if h.size:   # around each hinted singularity: a fine local cluster
-        local = (h[:, None] + np.linspace(-0.02, 0.02, 41)[None, :]).ravel()
-        x = np.unique(np.concatenate([x, local[(local > x[0]) & (local < x[-1])]]))
-    T = _eval(fn, 10 ** x)
-    capped = False
-    for _ in range(40):
-        dphi = np.degrees(np.abs(np.angle(T[1:] / T[:-1])))
-        db = _db(T)
-        ddb = np.abs(np.diff(db))
-        dret = np.degrees(np.abs(np.angle((1 + T[1:]) / (1 + T[:-1]))))
-        live = np.maximum(db[:-1], db[1:]) > -60.0        # phase detail matters above -60 dB
-        near = np.minimum(np.abs(db[:-1]), np.abs(db[1:])) < 40.0
-        bad = ((dphi > _MAX_PHASE_STEP_DEG) & live) | ((ddb > _MAX_DB_STEP) & near) \
-            | (dret > _MAX_RETURN_STEP_DEG)
-        bad &= np.diff(x) > 1e-12
-        if not bad.any():
-            break
-        if x.size + int(bad.sum()) > _MAX_POINTS:
-            capped = True
-            break
-        xm = 0.5 * (x[:-1][bad] + x[1:][bad])
-        Tm = _eval(fn, 10 ** xm)
-        order = np.argsort(np.concatenate([x, xm]), kind="stable")
-        x = np.concatenate([x, xm])[order]
-        T = np.concatenate([T, Tm])[order]
-    return 10 ** x, T, capped
-
-
-def _eval(fn: LoopFn, f: np.ndarray) -> np.ndarray:
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        T = np.asarray(fn(f), dtype=complex).reshape(-1)
-    if T.shape != f.shape:
-        raise InputError(f"the loop function returned {T.size} values for {f.size} frequencies")
-    if not np.all(np.isfinite(T)) or np.any(T == 0):
-        bad = f[~np.isfinite(T) | (T == 0)][0]
-        raise InputError(f"the loop gain is zero or not finite at {bad:.4g} Hz (a pole or zero on "
-                         "the imaginary axis inside the band?)")
-    return T
-
 
 def margins_from_model(loop_fn: LoopFn, f_min_hz: float, f_max_hz: float, *,
                        unstable_open_loop_poles: int = 0, delay_s: float = 0.0,
@@ -709,10 +610,10 @@ def margins_from_model(loop_fn: LoopFn, f_min_hz: float, f_max_hz: float, *,
         T = np.asarray(loop_fn(freq), dtype=complex)
         return T * np.exp(-2j * np.pi * freq * tau) if tau else T
 
-    f, T, capped = _dense_grid(fn, f_min, f_max, points_per_decade, hint_freqs_hz)
+    f, T, capped = dense_grid(fn, f_min, f_max, points_per_decade, hint_freqs_hz)
     extra = []
     if capped:
-        extra.append(f"the loop could not be resolved with {_MAX_POINTS} points; narrow the band")
+        extra.append(f"the loop could not be resolved with {MAX_POINTS} points; narrow the band")
     prov = (provenance or Provenance(step="model")).derive(
         "margins", {"from": "model", "f_min_hz": f_min, "f_max_hz": f_max, "delay_s": tau,
                     "unstable_open_loop_poles": int(unstable_open_loop_poles), "points": int(f.size)})
@@ -720,42 +621,6 @@ def margins_from_model(loop_fn: LoopFn, f_min_hz: float, f_max_hz: float, *,
     return _analyse(curve, unstable=int(unstable_open_loop_poles), integrators=integrators,
                     data=False, extra_warnings=extra, provenance=prov)
 
-
-def model_band(model, *, margin_decades: float = 3.0) -> tuple[float, float]:
-    """A band (Hz) that holds every singularity of ``model`` and its crossover.
-
-    Starts ``margin_decades`` below the lowest non-zero pole/zero and above
-    the highest, then widens until |T| < 0.3 at the top (and, with
-    integrators, > 3 at the bottom).
-    """
-    sing = np.abs(np.concatenate([model.poles, model.zeros])) / (2 * np.pi)
-    sing = sing[sing > 0]
-    lo = (sing.min() if sing.size else 1.0) * 10 ** -margin_decades
-    hi = (sing.max() if sing.size else 1.0) * 10 ** margin_decades
-    n_int = int(np.sum(model.poles == 0))
-    for _ in range(30):
-        g_hi = abs(model.response(np.array([hi]))[0])
-        g_prev = abs(model.response(np.array([hi / 10]))[0])
-        # stop when |T| is small, or flat (a biproper loop settles at |T(∞)|)
-        if g_hi < 0.3 or abs(g_hi / g_prev - 1) < 0.01:
-            break
-        hi *= 10
-    if model.delay_s > 0:
-        # above everything else a delay only spins the phase: keep ~30 turns of it
-        hi = min(hi, max(30.0 / model.delay_s, 10 * (sing.max() if sing.size else 0.0),
-                         _top_crossing_hz(model, lo, hi)))
-    for _ in range(30):
-        if n_int == 0 or abs(model.response(np.array([lo]))[0]) > 3.0:
-            break
-        lo /= 10
-    return float(lo), float(hi)
-
-
-def _top_crossing_hz(model, lo: float, hi: float) -> float:
-    """Highest frequency (Hz) on a coarse grid where |T| >= 1 (0 if none): keep it in band."""
-    f = np.logspace(math.log10(lo), math.log10(hi), 2000)
-    above = np.flatnonzero(np.abs(model.response(f)) >= 1.0)
-    return float(f[min(above[-1] + 1, f.size - 1)]) * 2 if above.size else 0.0
 
 
 def margins_of_model(model, *, f_min_hz: float | None = None, f_max_hz: float | None = None,
@@ -780,132 +645,3 @@ def margins_of_model(model, *, f_min_hz: float | None = None, f_max_hz: float | 
                               delay_s=model.delay_s, integrators=n_int,
                               hint_freqs_hz=hints[hints > 0], provenance=model.provenance)
 
-
-# ----------------------------------------------------------------------------- batch
-def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str, np.ndarray]:
-    """Margins of many sampled loops at once (Monte Carlo draws), vectorised over rows.
-
-    Uses the rules of :func:`margins_from_data` (linear interpolation in log f
-    on dB and on the phase, the same main-crossover choice), so a row gives
-    the same main-crossover numbers as ``margins_from_data`` on it.  Only the
-    crossings are worked on point by point, so 10 000 rows of 400 points take
-    a fraction of a second.
-
-    Parameters
-    ----------
-    freq_hz
-        Frequencies (Hz), shape (m,), increasing.
-    T
-        Complex loop gains, shape (n, m) (or (m,) for one loop).
-    unstable_open_loop_poles
-        P for the Nyquist count (the same for every row).
-
-    Returns
-    -------
-    dict of ndarray, each of shape (n,)
-        ``pm_deg`` and ``crossover_hz`` at the main crossover (PM inf when
-        |T| < 1 throughout, nan when |T| > 1 at the top of the band);
-        ``min_pm_deg`` (the PM of smallest magnitude over all gain crossings, signed); ``gm_db``
-        (smallest positive gain margin, inf if none) and
-        ``phase_crossover_hz``; ``modulus_margin`` (min |1+T| on the grid);
-        ``delay_margin_s`` (0 when unstable); ``stable`` (Nyquist verdict,
-        integrators estimated from the low-end slope).
-    """
-    f = np.asarray(freq_hz, dtype=float).reshape(-1)
-    T = np.atleast_2d(np.asarray(T, dtype=complex))
-    if T.ndim != 2 or T.shape[1] != f.size or f.size < 3:
-        raise InputError(f"T has shape {T.shape} but there are {f.size} frequencies (need >= 3)")
-    n, m = T.shape
-    x = np.log10(f)
-    dx = np.diff(x)
-    mag = np.abs(T)
-    inf = np.full(n, np.inf)
-
-    # --- gain crossings (sparse): |T| passes 1 between points c and c+1
-    above = mag > 1.0
-    r, c = np.nonzero(above[:, :-1] != above[:, 1:])       # row-major: sorted by row, then column
-    d0, d1 = _db(T[r, c]), _db(T[r, c + 1])
-    t = d0 / (d0 - d1)
-    xc = x[c] + t * dx[c]
-    a0 = np.angle(T[r, c])
-    step = _wrap_rad(np.angle(T[r, c + 1]) - a0)
-    pm = _wrap180(180.0 + np.degrees(a0 + t * step))
-    is_down = above[r, c]
-    # stretch of |T|>1 that a falling crossing ends: from the previous (rising) crossing in
-    # the same row, or from the bottom of the band
-    prev_same = np.concatenate([[False], r[1:] == r[:-1]])
-    start = np.where(prev_same, np.concatenate([[x[0]], xc[:-1]]), x[0])
-    score = np.where(is_down, _main_score(xc - start, ~prev_same, c), -np.inf)
-    order = np.lexsort((c, score, r))                        # last per row = best, then highest
-    last = np.concatenate([r[order][1:] != r[order][:-1], [True]]) if r.size else np.zeros(0, bool)
-    pick = order[last]
-    pick = pick[np.isfinite(score[pick])]
-    pm_main = np.where(above[:, -1], np.nan, np.inf)
-    fc = np.full(n, np.nan)
-    pm_main[r[pick]] = pm[pick]
-    fc[r[pick]] = 10 ** xc[pick]
-    # crossing closest to -1: smallest |PM| per row, reported signed
-    min_abs = inf.copy()
-    np.minimum.at(min_abs, r, np.abs(pm))
-    min_pm = inf.copy()
-    sel = np.abs(pm) == min_abs[r]
-    min_pm[r[sel]] = pm[sel]
-
-    # --- phase crossings (sparse): ∠T passes ±180° between points c and c+1
-    # Im T changes sign: candidates for ∠T and ∠(1+T) passing ±180° (Im(1+T) = Im T)
-    im = T.imag
-    cand = np.nonzero((im[:, :-1] > 0) != (im[:, 1:] > 0))
-    pr, pc, pa, pstep, pt = _branch_crossings(T, cand)
-    gdb = _db(T[pr, pc]) + pt * (_db(T[pr, pc + 1]) - _db(T[pr, pc]))
-    gm_all = -gdb
-    pos = gm_all > 0
-    gm = inf.copy()
-    np.minimum.at(gm, pr[pos], gm_all[pos])
-    fgm = np.full(n, np.nan)
-    hit = pos & (gm_all == gm[pr])
-    fgm[pr[hit]] = 10 ** (x[pc[hit]] + pt[hit] * dx[pc[hit]])
-
-    # --- Nyquist: ∠(1+T) unwrapped change = principal change + 360° per branch-cut crossing
-    wr, _, wa, wstep, _ = _branch_crossings(T, cand, offset=1.0)
-    jumps = np.zeros(n)
-    np.add.at(jumps, wr, np.where(wstep > 0, 360.0, -360.0))
-    th0 = np.degrees(np.angle(1.0 + T[:, 0]))
-    thinf = np.degrees(np.angle(1.0 + T[:, -1])) + jumps
-    nint = _slope_integrators(x, T)
-    s0 = -nint * 90.0 + 180.0 * np.rint((th0 + nint * 90.0) / 180.0)
-    sinf = 180.0 * np.rint(thinf / 180.0)
-    N = np.rint((2.0 * (sinf - s0) - 180.0 * nint) / 360.0).astype(int)
-    stable = (int(unstable_open_loop_poles) - N) == 0
-
-    # --- delay margin over all gain crossings
-    pm_mod = np.mod(pm, 360.0)
-    pm_mod = np.where(pm_mod == 0, 360.0, pm_mod)
-    dm = inf.copy()
-    np.minimum.at(dm, r, np.radians(pm_mod) / (2 * np.pi * 10 ** xc))
-    dm = np.where(stable, dm, 0.0)
-    return {
-        "pm_deg": pm_main, "crossover_hz": fc, "min_pm_deg": min_pm,
-        "gm_db": gm, "phase_crossover_hz": fgm,
-        "modulus_margin": np.hypot(T.real + 1.0, T.imag).min(axis=1), "delay_margin_s": dm, "stable": stable,
-    }
-
-
-def _wrap_rad(a):
-    return np.pi - np.mod(np.pi - a, 2 * np.pi)
-
-
-def _branch_crossings(T: np.ndarray, cand: tuple[np.ndarray, np.ndarray], offset: float = 0.0):
-    """Intervals where ∠(T + offset) (stepping by the wrapped difference) passes ±180°.
-
-    ``cand`` are the (rows, columns) of the intervals where Im T changes sign.
-    Returns rows, columns, start angle (rad), step (rad), and the fraction
-    of the interval at which the crossing lies.
-    """
-    r, c = cand
-    a = np.angle(T[r, c] + offset)
-    step = _wrap_rad(np.angle(T[r, c + 1] + offset) - a)
-    end = a + step
-    keep = (end > np.pi) | (end <= -np.pi)
-    r, c, a, step = r[keep], c[keep], a[keep], step[keep]
-    target = np.where(step > 0, np.pi, -np.pi)
-    return r, c, a, step, (target - a) / step
