@@ -30,8 +30,8 @@ def dense_grid(fn: LoopFn, f_min: float, f_max: float, points_per_decade: int,
     decades = math.log10(f_max / f_min)
     x = np.linspace(math.log10(f_min), math.log10(f_max), max(int(decades * points_per_decade), 8) + 1)
     h = np.log10([v for v in hints if f_min < v < f_max])
-    if h.size:   # around each hinted singularity: a fine local cluster
-        local = (h[:, None] + np.linspace(-0.02, 0.02, 41)[None, :]).ravel()
+    if h.size:   # around each hinted singularity: a fine local cluster (not on it: it may be a pole)
+        local = (h[:, None] + np.linspace(-0.02, 0.02, 40)[None, :]).ravel()
         x = np.unique(np.concatenate([x, local[(local > x[0]) & (local < x[-1])]]))
     T = evaluate(fn, 10 ** x)
     capped = False
@@ -59,10 +59,15 @@ def dense_grid(fn: LoopFn, f_min: float, f_max: float, points_per_decade: int,
 
 
 def evaluate(fn: LoopFn, f: np.ndarray) -> np.ndarray:
+    """``fn(f)`` checked; a point that lands exactly on an undamped pole or zero is
+    taken 1e-9 (relative) above it instead."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         T = np.asarray(fn(f), dtype=complex).reshape(-1)
-    if T.shape != f.shape:
-        raise InputError(f"the loop function returned {T.size} values for {f.size} frequencies")
+        if T.shape != f.shape:
+            raise InputError(f"the loop function returned {T.size} values for {f.size} frequencies")
+        bad = ~np.isfinite(T) | (T == 0)
+        if bad.any():
+            T[bad] = np.asarray(fn(f[bad] * (1 + 1e-9)), dtype=complex).reshape(-1)
     if not np.all(np.isfinite(T)) or np.any(T == 0):
         bad = f[~np.isfinite(T) | (T == 0)][0]
         raise InputError(f"the loop gain is zero or not finite at {bad:.4g} Hz (a pole or zero on "

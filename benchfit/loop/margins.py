@@ -47,7 +47,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -253,7 +253,9 @@ def _gain_crossing(c: _Curve, i: int) -> tuple[float, float]:
         return 10 ** (x0 + t * (x1 - x0)), float(c.phase[i] + t * (c.phase[i + 1] - c.phase[i]))
     fn, Ti, pi = c.exact, c.T[i], c.phase[i]
     try:
-        x = optimize.brentq(lambda xx: float(to_db(fn(np.array([10 ** xx]))[0])), x0, x1, xtol=1e-13)
+        with np.errstate(all="ignore"):    # a probe may land on an undamped pole
+            x = optimize.brentq(lambda xx: float(to_db(fn(np.array([10 ** xx]))[0])), x0, x1,
+                                xtol=1e-13)
     except ValueError:      # grid too coarse for the exact function (capped refinement)
         return _gain_crossing(_Curve(c.f, c.T, c.phase, None), i)
     Tx = fn(np.array([10 ** x]))[0]
@@ -274,7 +276,8 @@ def _phase_crossing(c: _Curve, i: int, target: float) -> tuple[float, float]:
         return p0 + np.degrees(np.angle(fn(np.array([10 ** xx]))[0] / Ti)) - target
 
     try:
-        x = optimize.brentq(h, x0, x1, xtol=1e-13)
+        with np.errstate(all="ignore"):
+            x = optimize.brentq(h, x0, x1, xtol=1e-13)
     except ValueError:      # grid too coarse for the exact function (capped refinement)
         return _phase_crossing(_Curve(c.f, c.T, c.phase, None), i, target)
     return 10 ** x, float(to_db(fn(np.array([10 ** x]))[0]))
@@ -641,7 +644,15 @@ def margins_of_model(model, *, f_min_hz: float | None = None, f_max_hz: float | 
     hints = np.abs(np.concatenate([model.poles, model.zeros])) / (2 * np.pi)
     rational = type(model)(zeros=model.zeros, poles=model.poles, k=model.k, delay_s=0.0,
                            provenance=model.provenance)
-    return margins_from_model(rational.response, lo, hi, unstable_open_loop_poles=P,
-                              delay_s=model.delay_s, integrators=n_int,
-                              hint_freqs_hz=hints[hints > 0], provenance=model.provenance)
+    m = margins_from_model(rational.response, lo, hi, unstable_open_loop_poles=P,
+                           delay_s=model.delay_s, integrators=n_int,
+                           hint_freqs_hz=hints[hints > 0], provenance=model.provenance)
+    p = model.poles
+    on_axis = p[(p != 0) & (np.abs(p.real) <= 1e-12 * np.maximum(np.abs(p), 1.0)) & (p.imag > 0)]
+    if on_axis.size:
+        where = ", ".join(f"{v:.4g}" for v in np.abs(on_axis) / (2 * np.pi))
+        m = replace(m, warnings=m.warnings + (
+            f"the loop has undamped poles on the imaginary axis ({where} Hz): the encirclement "
+            "count does not go around them, so the stability verdict is not reliable",))
+    return m
 
