@@ -177,56 +177,60 @@ def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, boo
 SCAN_POINTS = 400
 
 
-def _aic(a: Attempt, n_res: int) -> float:
-    """Akaike's information criterion of an attempt (Gaussian residuals, scale from chi)."""
-    n_par = 2 * a.order + 1 + int(a.tau_s > 0)
-    return float(n_res * np.log(max(a.chi, 1e-150) ** 2) + 2.0 * n_par)
+def _bic(ref: Refined, n_res: int) -> float:
+    """Schwarz's Bayesian information criterion of a refined fit (Gaussian residuals,
+    scale estimated): N·ln(χ²/N) + p·ln N (G. Schwarz, Ann. Statist. 6(2), 1978)."""
+    return float(n_res * np.log(max(ref.chisqr, 1e-300) / n_res) + len(ref.varied) * np.log(n_res))
 
 
-def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[Attempt, list[Attempt], float, bool]:
-    """Vector fit at the given or chosen order, with the delay fixed, absent or searched.
+def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], list[Attempt]]:
+    """Vector fits to refine: the best without a delay, and with one when ``delay="auto"``.
 
     With ``delay="auto"`` the order is first chosen without a delay; then,
     from that order down, a delay is searched at each order (starting from
-    the excess-phase estimate) for as long as the fit stays as good.  The
-    delay is kept only when it lets fewer poles do (or the same poles,
-    clearly better).  Scans run on a thinned sweep; the chosen attempt is
-    polished on every point.
+    the excess-phase estimate) for as long as the fit stays as good, and the
+    fewest poles that still do are the delay candidate.  A delay and a
+    damped pair near the top of the band look alike to vector fitting, so the
+    two candidates are refined and compared afterwards.  Scans run on a
+    thinned sweep; candidates are polished on every point.
+
+    Returns
+    -------
+    candidates, scan
     """
     fixed_tau = float(delay) if not isinstance(delay, str) else 0.0
     tau0 = excess_phase_delay(f, h) if delay == "auto" else 0.0
     try_delay = delay == "auto" and tau0 * TWO_PI * f[-1] >= DELAY_MIN_PHASE
     sub = ctx.subsample(SCAN_POINTS)
+    n_res = 2 * sub.s.shape[0]
     scan: list[Attempt] = []
+    with_delay = None
     if order != "auto":
         n = int(order)
         att = attempt(sub, n, fixed_tau, max_iter=SCAN_ITER)
         if try_delay:
-            att_d = delay_stepper(sub, tau0)(n)
-            if att_d.chi < 0.8 * att.chi:
-                att = att_d
+            with_delay = delay_stepper(sub, tau0)(n)
     else:
         att, scan = choose_order(sub, fixed_tau)
         if try_delay:
             # Descend from the no-delay order while a searched delay keeps the fit
             # as good: a delay mistaken for poles shows up as poles it can replace.
             step = delay_stepper(sub, tau0)
-            n_res = 2 * sub.s.shape[0]
-            tried = [att]
+            tried = []
             for n in range(att.order, 0, -1):
                 a = step(n)
                 scan.append(a)
-                tried.append(a)
                 if a.chi > NEGLIGIBLE and better(a, att, n_res):
                     break
-            # A delay and a damped pair near the top of the band look alike; let the
-            # information criterion (residual against parameter count) decide.
-            win = min(tried, key=lambda x: _aic(x, n_res))
-            # ...and, as in the order scan, the fewest poles not significantly worse.
-            att = min((x for x in tried if (x.tau_s > 0) == (win.tau_s > 0)
-                       and not better(x, win, n_res)), key=lambda x: x.order)
-    fin = polish(ctx, att)
-    return fin, scan, fin.tau_s, fin.tau_s > 0 and delay == "auto"
+                tried.append(a)
+            if tried:
+                best = min(tried, key=lambda x: x.chi)
+                with_delay = min((x for x in tried if not better(x, best, n_res)),
+                                 key=lambda x: x.order)
+    out = [polish(ctx, att)]
+    if with_delay is not None and np.isfinite(with_delay.chi):
+        out.append(polish(ctx, with_delay))
+    return out, scan
 
 
 def fit(
@@ -303,41 +307,60 @@ def fit(
     ctx = Context(s=s_sc, scale=scale, h=h, sigma=sigma, w=w, integrators=m,
                   direct=direct, proportional=prop)
 
-    # ----- delay and order ------------------------------------------------------
-    notes: list[str] = []
+    # ----- delay and order, then physical parameters and refinement -------------
     if order != "auto":
         need = int(order) + 3
         if n_pts < need:
             raise FitError(f"order {order} needs at least {need} points in the band; it holds {n_pts}")
-    att, scan, tau, fit_delay = _order_and_delay(ctx, f, h, order, delay)
-    if not np.isfinite(att.chi):
-        raise FitError("vector fitting failed: the model does not evaluate on the band "
-                       "(check the data for gaps or exact zeros)")
-
-    # ----- physical parameters and refinement -------------------------------------
-    zeros, poles, k = vf_to_zpk(att.vf, scale)
-    zeros, poles, k, clean_notes = _clean_zpk(zeros, poles, k, f[0], f[-1])
-    notes += clean_notes
-    k_h = k * scale ** m  # the VF model was of H·(s/scale)^m
-    has_delay = fit_delay or (not isinstance(delay, str) and delay > 0)
-    st, v0 = from_zpk(zeros, poles, k_h, tau, integrators=m, delay=has_delay)
+    cands, scan = _order_and_delay(ctx, f, h, order, delay)
     fixed = dict(fix or {})
-    if has_delay and not fit_delay:
+    if not isinstance(delay, str) and delay > 0:
         fixed.setdefault("delay_s", float(delay))
     s = 1j * TWO_PI * f
     sig_abs = None
     if weighting == "absolute":
         sig_abs = resp.stddev if resp.stddev is not None else np.full(
             n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
+
     def refit(st_, v_, max_nfev=200):
         return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
                       weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev)
 
+    outcomes = []
+    for att in cands:
+        if not np.isfinite(att.chi):
+            continue
+        try:
+            outcomes.append((att, *_physical(att, ctx, f, delay, fixed, bounds, refit)))
+        except InputError:
+            raise
+        except (ValueError, np.linalg.LinAlgError):
+            continue
+    if not outcomes:
+        raise FitError("vector fitting failed: the model does not evaluate on the band "
+                       "(check the data for gaps or exact zeros)")
+    # Delay or no delay: the information criterion of the refined fits decides
+    # (BIC rather than AIC: a many-pole rational can mimic a delay, and BIC's
+    # stronger penalty keeps the simpler explanation unless the data insist).
+    att, st, ref, notes = min(outcomes, key=lambda o: _bic(o[2], 2 * n_pts))
+    return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
+
+
+def _physical(att: Attempt, ctx: Context, f, delay, fixed, bounds, refit
+              ) -> tuple[Structure, Refined, list[str]]:
+    """VF attempt -> physical parameters -> refined, pruned fit (and its notes)."""
+    m, scale = ctx.integrators, ctx.scale
+    fit_delay = delay == "auto" and att.tau_s > 0
+    zeros, poles, k = vf_to_zpk(att.vf, scale)
+    zeros, poles, k, notes = _clean_zpk(zeros, poles, k, f[0], f[-1])
+    k_h = k * scale ** m  # the VF model was of H·(s/scale)^m
+    has_delay = fit_delay or "delay_s" in fixed
+    st, v0 = from_zpk(zeros, poles, k_h, att.tau_s, integrators=m, delay=has_delay)
     # A first, capped refinement: spurious zeros above the band make it slow,
     # and they are pruned next.
     ref = refit(st, v0, max_nfev=60)
     n_drop = 0
-    if not any(k.startswith("zero") for k in list(fixed) + list(bounds or {})):
+    if not any(key.startswith("zero") for key in list(fixed) + list(bounds or {})):
         st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1])
         if n_drop:
             notes.append(f"dropped {n_drop} zero(s) above the band that the data do not need")
@@ -352,7 +375,7 @@ def fit(
             st = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs, m, False)
             ref = refit(st, ref.values[keep])
             notes.append("delay estimate not significant; fitted without delay")
-    return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
+    return st, ref, notes
 
 
 def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed, settings,

@@ -117,8 +117,9 @@ def attempt(ctx: Context, order: int, tau_s: float = 0.0, poles0=None, max_iter:
                    float(np.degrees(np.sqrt(np.mean(rp ** 2)))), chi)
 
 
-def add_pole(ctx: Context, a: Attempt) -> np.ndarray:
-    """Poles of ``a`` plus one real pole where its smoothed weighted residual peaks."""
+def add_pole(ctx: Context, a: Attempt, count: int = 1) -> np.ndarray:
+    """Poles of ``a`` plus a real pole (``count=1``) or a lightly damped pair (2)
+    where its smoothed weighted residual peaks."""
     g, _ = ctx.target(a.tau_s)
     with np.errstate(all="ignore"):
         r = np.log(a.vf.at(ctx.s) / g)
@@ -126,7 +127,8 @@ def add_pole(ctx: Context, a: Attempt) -> np.ndarray:
     e = ndimage.uniform_filter1d(np.nan_to_num(e, nan=0.0, posinf=0.0),
                                  max(5, e.shape[0] // 20))
     w = float(np.abs(ctx.s[int(np.argmax(e))]))
-    return np.concatenate([a.vf.poles, [complex(-w, 0.0)]])
+    new = [complex(-w, 0.0)] if count == 1 else [complex(-0.1 * w, w), complex(-0.1 * w, -w)]
+    return np.concatenate([a.vf.poles, new])
 
 
 def max_order(n_points: int, cap: int = 40) -> int:
@@ -162,14 +164,16 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
         prev: list[Attempt] = []
 
         def step(n: int) -> Attempt:
-            # Fresh log-spaced start, and the previous order's poles plus one
-            # where the residual is largest (VF from a fresh start can miss a
-            # weak feature near the band edge); keep the better.
+            # Fresh log-spaced start, and the poles of order n-1 plus a real pole
+            # and of order n-2 plus a pair where the residual is largest (VF
+            # from a fresh start can miss a weak feature near the band edge);
+            # keep the best.
             a = attempt(ctx, n, tau_s, max_iter=SCAN_ITER, tol=SCAN_TOL)
-            if prev and prev[-1].order == n - 1 and np.isfinite(prev[-1].chi):
-                b = attempt(ctx, n, tau_s, poles0=add_pole(ctx, prev[-1]),
-                            max_iter=SCAN_ITER, tol=SCAN_TOL)
-                a = b if b.chi < a.chi else a
+            for back in (1, 2):
+                if len(prev) >= back and prev[-back].order == n - back and np.isfinite(prev[-back].chi):
+                    b = attempt(ctx, n, tau_s, poles0=add_pole(ctx, prev[-back], back),
+                                max_iter=SCAN_ITER, tol=SCAN_TOL)
+                    a = b if b.chi < a.chi else a
             prev.append(a)
             return a
     scan: list[Attempt] = []

@@ -24,6 +24,10 @@ from benchfit.errors import InputError
 from benchfit.fitting.parameters import Structure, log_jacobian, response
 
 
+#: Residual given to a point where a trial model does not evaluate.
+_PENALTY = 1e6
+
+
 @dataclass(frozen=True)
 class Refined:
     """Outcome of :func:`refine`."""
@@ -113,19 +117,26 @@ def refine(
 
     def residual(p):
         v = current(p)
-        if absolute:
-            d = (response(st, v, s) - h) * w_a
-            return np.concatenate([d.real, d.imag])
-        r = log_residual(st, v, s, log_h)
-        return np.concatenate([r.real * w_m, r.imag * w_p])
+        with np.errstate(all="ignore"):
+            if absolute:
+                d = (response(st, v, s) - h) * w_a
+                out = np.concatenate([d.real, d.imag])
+            else:
+                r = log_residual(st, v, s, log_h)
+                out = np.concatenate([r.real * w_m, r.imag * w_p])
+        # A trial step onto a singular model (a frequency at 0...) must look bad, not NaN.
+        return np.where(np.isfinite(out), out, _PENALTY)
 
     def jacobian(p):
         v = current(p)
-        j = log_jacobian(st, v, s)[:, var_idx]
-        if absolute:
-            j = j * (response(st, v, s) * w_a)[:, None]
-            return np.vstack([j.real, j.imag])
-        return np.vstack([j.real * w_m[:, None], j.imag * w_p[:, None]])
+        with np.errstate(all="ignore"):
+            j = log_jacobian(st, v, s)[:, var_idx]
+            if absolute:
+                j = j * (response(st, v, s) * w_a)[:, None]
+                out = np.vstack([j.real, j.imag])
+            else:
+                out = np.vstack([j.real * w_m[:, None], j.imag * w_p[:, None]])
+        return np.where(np.isfinite(out), out, 0.0)
 
     if var_idx.size == 0:
         r = residual(params)
@@ -138,6 +149,15 @@ def refine(
         out = mini.leastsq(Dfun=lambda p: jacobian(p), col_deriv=0, max_nfev=max_nfev,
                            ftol=1e-12, xtol=1e-12)
     vals = current(out.params)
+    r0 = residual(params)
+    if not np.all(np.isfinite(residual(out.params))) or out.chisqr > float(r0 @ r0):
+        # The search wandered off (a badly under-modelled start): keep the start.
+        chi0 = float(r0 @ r0)
+        return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=tuple(out.var_names),
+                       covariance=np.full((len(out.var_names),) * 2, np.nan),
+                       evaluations=int(out.nfev), success=False, chisqr=chi0,
+                       redchi=chi0 / max(r0.size - len(out.var_names), 1),
+                       message="refinement made the fit worse; kept the vector-fitting values")
     stderr = np.full(len(names), np.nan)
     varied = tuple(out.var_names)
     if out.covar is not None:

@@ -1,0 +1,178 @@
+"""fit(): recovery of known models, noise, delay, integrators, scale invariance, bad input."""
+
+import numpy as np
+import pytest
+
+import benchfit
+from benchfit.data import FrequencyResponse
+from benchfit.errors import FitError, InputError
+from benchfit.fitting import fit
+from benchfit.fitting.synthetic import converter_plant, from_factors, sweep
+
+
+def _value(res, name):
+    return res.parameter(name).value
+
+
+def _rel_pole_error(got, want):
+    got, want = np.sort_complex(np.asarray(got)), np.sort_complex(np.asarray(want))
+    assert got.shape == want.shape, (got, want)
+    return float(np.max(np.abs(got - want) / np.abs(want)))
+
+
+@pytest.fixture(scope="module")
+def plant():
+    return converter_plant()
+
+
+def test_noiseless_auto_order_recovers_the_plant(plant):
+    # Known model (benchfit.fitting.synthetic): exact data must give the exact model.
+    res = fit(sweep(plant))
+    assert res.stats["order"] == 8
+    assert _rel_pole_error(res.model.poles, plant.poles) < 1e-6
+    assert _rel_pole_error(res.model.zeros, plant.zeros) < 1e-6
+    assert res.stats["rms_db"] < 1e-6 and res.stats["rms_deg"] < 1e-6
+    assert res.model.delay_s == 0.0
+    assert _value(res, "zero2_hz") == pytest.approx(-2e6, rel=1e-6)  # the RHP zero, signed
+    assert _value(res, "pair1_q") == pytest.approx(3.0, rel=1e-6)
+
+
+def test_noisy_fit_sits_at_the_noise_floor_and_sigmas_cover_the_truth(plant):
+    r = sweep(plant, noise_db=0.1, noise_deg=0.5, rng=np.random.default_rng(11))
+    res = fit(r)
+    assert res.stats["order"] == 8
+    assert res.stats["converged"]
+    # residual near the injected noise (0.1 dB, 0.5 deg) and near the estimated floor
+    assert 0.08 < res.stats["rms_db"] < 0.12
+    assert 0.4 < res.stats["rms_deg"] < 0.6
+    assert res.stats["residual_over_floor"] < 1.2
+    truth = {"gain": 10.0, "pole1_hz": 300e3, "pair1_f0_hz": 20e3, "pair1_q": 3.0,
+             "pair2_f0_hz": 1e6, "zero1_hz": 60e3, "zero2_hz": -2e6}
+    for name, want in truth.items():
+        p = res.parameter(name)
+        assert abs(p.value - want) < 4 * p.stderr, (name, p)
+        assert p.stderr < 0.05 * abs(want), (name, p)
+
+
+def test_delay_is_fitted_instead_of_extra_poles():
+    m = converter_plant(delay_s=150e-9)
+    res = fit(sweep(m, noise_db=0.05, noise_deg=0.25, rng=np.random.default_rng(3)))
+    assert res.stats["order"] == 8
+    d = res.parameter("delay_s")
+    assert d.value == pytest.approx(150e-9, abs=4 * d.stderr)
+    assert res.model.delay_s == pytest.approx(d.value)
+
+
+def test_no_delay_option_and_fixed_delay(plant):
+    r = sweep(plant)
+    res = fit(r, order=8, delay="none")
+    assert "delay_s" not in [p.name for p in res.parameters]
+    m = converter_plant(delay_s=100e-9)
+    res = fit(sweep(m), order=8, delay=100e-9)
+    d = res.parameter("delay_s")
+    assert d.fixed and d.value == 100e-9 and np.isnan(d.stderr)
+    assert _rel_pole_error(res.model.poles, m.poles) < 1e-6
+
+
+def test_integrator_in_a_loop_gain():
+    m = from_factors(2e4, poles_hz=(30e3,), zeros_hz=(2e3,), pairs=((300e3, 1.0),), integrators=1)
+    r = sweep(m, np.geomspace(10, 3e6, 500), noise_db=0.02, noise_deg=0.1,
+              rng=np.random.default_rng(5))
+    for integ in (1, "auto"):
+        res = fit(r, integrators=integ, delay="none")
+        assert res.integrators == 1
+        assert np.sum(res.model.poles == 0) == 1
+        p = res.parameter("gain")
+        assert p.value == pytest.approx(2e4, abs=4 * p.stderr)
+        assert res.parameter("gain").unit == "rad/s"
+        assert res.stats["residual_over_floor"] < 1.3
+
+
+def test_right_and_left_half_plane_zeros_and_complex_zero_pair():
+    m = from_factors(5.0, poles_hz=(1e3, 50e3), pairs=((10e3, 8.0),),
+                     zeros_hz=(-20e3,), zero_pairs=((4e3, 3.0),))
+    res = fit(sweep(m, np.geomspace(10, 1e6, 600)), delay="none")
+    assert _rel_pole_error(res.model.zeros, m.zeros) < 1e-6
+    assert _value(res, "zero1_hz") == pytest.approx(-20e3, rel=1e-6)
+    assert _value(res, "zero_pair1_q") == pytest.approx(3.0, rel=1e-6)
+
+
+def test_order_choice_does_not_depend_on_the_data_scale(plant):
+    # All tolerances are relative: dividing the data by 1000 must change nothing.
+    r = sweep(plant, noise_db=0.1, noise_deg=0.5, rng=np.random.default_rng(2))
+    a = fit(r)
+    b = fit(r.with_response(r.response / 1000.0))
+    assert a.stats["order"] == b.stats["order"]
+    assert _value(b, "gain") == pytest.approx(_value(a, "gain") / 1000.0, rel=1e-6)
+    assert _rel_pole_error(b.model.poles, a.model.poles) < 1e-6
+
+
+def test_fix_holds_a_parameter(plant):
+    r = sweep(plant, noise_db=0.1, noise_deg=0.5, rng=np.random.default_rng(4))
+    res = fit(r, order=8, delay="none", fix={"zero1_hz": 61e3})
+    p = res.parameter("zero1_hz")
+    assert p.fixed and p.value == 61e3 and np.isnan(p.stderr)
+    assert "zero1_hz" not in res.varied
+    with pytest.raises(InputError, match="no parameter 'zero9_hz'"):
+        fit(r, order=8, delay="none", fix={"zero9_hz": 1.0})
+
+
+def test_stddev_column_weights_and_reduced_chi2():
+    # Complex noise of known stddev: the reduced chi-square must come out near 1.
+    m = from_factors(3.0, poles_hz=(2e3,), pairs=((30e3, 2.0),), zeros_hz=(100e3,))
+    f = np.geomspace(100, 1e6, 500)
+    h = m.response(f)
+    rng = np.random.default_rng(9)
+    sd = 0.003 * np.abs(h) * (1 + f / 1e5)  # noise rising with frequency
+    noisy = h + sd / np.sqrt(2) * (rng.standard_normal(f.size) + 1j * rng.standard_normal(f.size))
+    res = fit(FrequencyResponse(freq_hz=f, response=noisy, stddev=sd), delay="none")
+    assert res.stats["noise_source"] == "stddev"
+    assert res.stats["order"] == 3
+    assert 0.8 < res.stats["reduced_chi2"] < 1.2
+
+
+def test_draw_responses_follow_the_covariance(plant):
+    r = sweep(plant, noise_db=0.1, noise_deg=0.5, rng=np.random.default_rng(6))
+    res = fit(r)
+    f = np.array([10.0, 1e3, 1e5])
+    draws = res.draw_responses(f, 4000, np.random.default_rng(0))
+    assert draws.shape == (4000, 3) and np.iscomplexobj(draws)
+    # At 10 Hz the response is the gain: the spread of |H| is the gain's σ.
+    g = res.parameter("gain")
+    assert np.std(np.abs(draws[:, 0])) == pytest.approx(g.stderr, rel=0.1)
+    assert np.mean(draws[:, 1]) == pytest.approx(res.response(f)[1], rel=1e-3)
+    again = res.draw_responses(f, 4000, np.random.default_rng(0))
+    assert np.array_equal(draws, again)
+
+
+def test_top_level_api_name():
+    assert benchfit.fit is not None
+    res = benchfit.fit(sweep(from_factors(1.0, poles_hz=(1e3,)), np.geomspace(10, 1e5, 100)))
+    assert res.stats["order"] == 1
+    assert _value(res, "pole1_hz") == pytest.approx(1e3, rel=1e-9)
+
+
+@pytest.mark.parametrize("bad", [
+    {"order": 0}, {"order": "many"}, {"delay": "soon"}, {"delay": -1e-9},
+    {"weighting": "loud"}, {"integrators": 7},
+])
+def test_bad_options(bad, plant):
+    with pytest.raises(InputError):
+        fit(sweep(plant, np.geomspace(10, 1e7, 50)), **bad)
+
+
+def test_bad_data():
+    f = np.geomspace(10, 1e4, 8)
+    r = sweep(from_factors(1.0, poles_hz=(100.0,), pairs=((1e3, 2.0),)), f)
+    with pytest.raises(FitError, match="needs at least"):
+        fit(r, order=8)
+    with pytest.raises(InputError, match="band"):
+        fit(r, band=(2e5, 3e5))
+    with pytest.raises(FitError, match="constant"):
+        fit(FrequencyResponse(freq_hz=f, response=np.full(8, 2.0 + 0j)))
+    with pytest.raises(FitError, match="weight"):
+        fit(FrequencyResponse(freq_hz=f, response=r.response, weight=np.full(8, np.nan)))
+    with pytest.raises(FitError, match="stddev"):
+        fit(FrequencyResponse(freq_hz=f, response=r.response, stddev=np.full(8, np.nan)))
+    with pytest.raises(InputError, match="FrequencyResponse"):
+        fit([1, 2, 3])
