@@ -352,3 +352,23 @@ def test_bad_inputs_raise_input_error():
         margins_from_model(lambda f: 1 / f, 10, 1)
     with pytest.raises(InputError):
         margins_from_data([1, 2, 3], [1, 2, 3], unstable_open_loop_poles=-1)
+
+
+def test_text_report_summarises_far_phase_crossings_of_a_delay():
+    # K e^(-sτ)/s: phase crossings at ωτ = π/2 + 2πk with |T| = K/ω, GM growing without
+    # end. Measured to 10 MHz, those above 60 dB go on one summary line of the text; the
+    # JSON lists them all.
+    K, tau = 2 * np.pi * 1e3, 1e-6
+    f = np.logspace(1, 7, 601)
+    m = margins_from_data(f, K * np.exp(-2j * np.pi * f * tau) / (2j * np.pi * f))
+    far = [c for c in phases(m) if c["value"] > 60]
+    assert len(far) >= 8
+    text = m.report()
+    assert f"and {len(far)} phase crossing(s)" in text
+    assert text.count("  phase ") == len(phases(m)) - len(far)
+    assert len(m.to_dict()["crossings"]) == len(m.crossings)
+    # from the model, crossings deeper than -60 dB are not resolved, so not listed
+    mm = margins_of_model(PlantModel([], [0.0], K, delay_s=tau), f_max_hz=1e10)
+    assert all(c["value"] < 61 for c in phases(mm))
+    # the first one: GM = 20log10(π/(2Kτ)) (see the delayed-integrator test above)
+    assert phases(mm)[0]["value"] == pytest.approx(20 * math.log10(math.pi / (2 * K * tau)), abs=1e-6)

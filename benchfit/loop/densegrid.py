@@ -17,6 +17,8 @@ from benchfit.loop.crossings import to_db
 LoopFn = Callable[[np.ndarray], np.ndarray]
 
 # refinement limits: phase/gain steps between neighbours
+#: below this loop gain (dB) the phase is not resolved (a delay would need endless points)
+LIVE_DB = -60.0
 # grid refinement limits for models: phase/gain steps between neighbours
 MAX_PHASE_STEP_DEG = 2.0
 MAX_DB_STEP = 1.0
@@ -40,7 +42,7 @@ def dense_grid(fn: LoopFn, f_min: float, f_max: float, points_per_decade: int,
         db = to_db(T)
         ddb = np.abs(np.diff(db))
         dret = np.degrees(np.abs(np.angle((1 + T[1:]) / (1 + T[:-1]))))
-        live = np.maximum(db[:-1], db[1:]) > -60.0        # phase detail matters above -60 dB
+        live = np.maximum(db[:-1], db[1:]) > LIVE_DB      # phase detail matters above -60 dB
         near = np.minimum(np.abs(db[:-1]), np.abs(db[1:])) < 40.0
         bad = ((dphi > MAX_PHASE_STEP_DEG) & live) | ((ddb > MAX_DB_STEP) & near) \
             | (dret > MAX_RETURN_STEP_DEG)

@@ -56,13 +56,15 @@ from scipy import optimize
 from benchfit.errors import InputError
 from benchfit.fileio import as_float
 from benchfit.loop.crossings import main_score, nyquist_count, slope_integrators, to_db, wrap180
-from benchfit.loop.densegrid import MAX_POINTS, LoopFn, dense_grid, model_band
+from benchfit.loop.densegrid import LIVE_DB, MAX_POINTS, LoopFn, dense_grid, model_band
 from benchfit.loop.marginsbatch import margins_batch
 from benchfit.provenance import Provenance
 
 __all__ = ["Margins", "margins_from_data", "margins_of_sweep", "margins_from_model",
            "margins_of_model", "margins_batch", "model_band"]
 
+# the text report lists phase crossings with a larger GM on one summary line
+_QUIET_GM_DB = 60.0
 # data: a crossing whose neighbouring points differ more than this is "coarse"
 _COARSE_PHASE_DEG = 15.0
 _COARSE_DB = 6.0
@@ -216,12 +218,19 @@ class Margins:
             f"(open-loop RHP poles {self.open_loop_unstable_poles}, encirclements of -1: {self.encirclements})",
             "crossings:",
         ]
+        quiet = []      # phase crossings far below 0 dB (a delay's spinning phase): summarised
         for c in self.crossings:
             tag = " (main)" if c.get("main") else ""
             if c["kind"] == "gain":
                 lines.append(f"  gain  {c['freq_hz']:12.5g} Hz  PM {c['value']:7.1f} deg{tag}")
+            elif c["value"] > _QUIET_GM_DB:
+                quiet.append(c)
             else:
                 lines.append(f"  phase {c['freq_hz']:12.5g} Hz  GM {c['value']:7.1f} dB")
+        if quiet:
+            lines.append(f"  ... and {len(quiet)} phase crossing(s) with GM above {_QUIET_GM_DB:g} dB "
+                         f"between {quiet[0]['freq_hz']:.4g} and {quiet[-1]['freq_hz']:.4g} Hz "
+                         "(all listed in --json)")
         if not self.crossings:
             lines.append("  none in the band")
         for w in self.warnings:
@@ -335,6 +344,8 @@ def _analyse(c: _Curve, *, unstable: int, integrators: int | None, data: bool,
     k = np.floor((ph + 180.0) / 360.0)
     phase_x: list[dict[str, Any]] = []
     for i in np.flatnonzero(k[:-1] != k[1:]):
+        if c.exact is not None and max(db[i], db[i + 1]) < LIVE_DB:
+            continue            # the dense grid does not resolve the phase down there
         lo_k, hi_k = sorted((k[i], k[i + 1]))
         targets = [-180.0 + 360.0 * m for m in np.arange(lo_k + 1, hi_k + 1)]
         if ph[i + 1] < ph[i]:
@@ -575,6 +586,8 @@ def margins_from_model(loop_fn: LoopFn, f_min_hz: float, f_max_hz: float, *,
     differ by at most 2° in phase (where |T| > -60 dB), 1 dB in gain (within
     ±40 dB of 0 dB) and 5° in ∠(1+T); every crossing is then polished with
     Brent's method on log f and the modulus margin with a bounded minimiser.
+    Phase crossings where |T| < -60 dB (gain margin above 60 dB, e.g. a
+    delay's phase spinning far above crossover) are not resolved and not listed.
 
     Parameters
     ----------
