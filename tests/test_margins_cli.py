@@ -97,3 +97,23 @@ def test_user_errors_are_one_line_and_exit_2(tmp_path, capsys, argv, needle):
     rc, out, err = run(capsys, *argv)
     assert rc == 2 and out == ""
     assert err.startswith("benchfit: error:") and needle in err and err.count("\n") == 1
+
+
+def test_design_with_measured_loop_and_band_and_quantity_warning(tmp_path, capsys):
+    # a design made on measured data carries loop_data; --band restricts the sweep
+    m = model()
+    f = np.logspace(-3, 2, 2501)
+    resp = FrequencyResponse(f, m.response(f), quantity="loop")
+    path = tmp_path / "design.json"
+    write_json_atomic(path, {"kind": "design", "loop_data": {"ideal": resp.to_dict(),
+                                                             "snapped": resp.to_dict()}})
+    rc, out, _ = run(capsys, "margins", str(path), "--json", "--band", "0.01:10")
+    d = json.loads(out)
+    assert rc == 0 and d["f_min_hz"] >= 0.01 and d["f_max_hz"] <= 10
+    _, pm, _, fgc = reference()     # python-control, as above
+    assert d["phase_margin_deg"] == pytest.approx(pm, abs=0.2)
+    # a sweep marked as a plant measurement gets a warning (it is treated as T anyway)
+    plant = tmp_path / "plant.csv"
+    write_sweep_csv(FrequencyResponse(f, m.response(f), quantity="plant"), plant)
+    rc, _, err = run(capsys, "margins", str(plant))
+    assert rc == 0 and "plant measurement" in err
