@@ -46,6 +46,7 @@ def test_sample_interval_line_decimal_comma_and_mv(tmp_path):
     (["Sample rate: 5 MSa/s", "X start = -1e-6"], 2e-7, -1e-6),
     (["dt = 0.2 us"], 2e-7, 0.0),
     (["Horizontal units: us", "Sample interval: 0.2"], 2e-7, 0.0),
+    (["Sample Interval,2.0E-07,s", "Start time,-0.4,us"], 2e-7, -4e-7),
 ])
 def test_timing_metadata_forms(tmp_path, lines, dt, t0):
     rows = "\n".join(f"{k * 0.01:.3f}" for k in range(30))

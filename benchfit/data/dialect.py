@@ -142,7 +142,9 @@ def sniff(lines: list[str], source: str, *, min_columns: int = 2) -> Dialect:
                          source=source)
     tail = numeric_lines(range(len(lines) - 1, head[-1], -1))
     sample = [lines[k].strip() for k in head + tail[::-1]]
-    best: tuple[tuple[int, int, int], Dialect] | None = None
+    above = next((lines[k].strip() for k in range(head[0] - 1, -1, -1) if lines[k].strip()), None)
+    header = strip_comment_mark(above) if above else None
+    best: tuple[tuple[int, ...], Dialect] | None = None
     order = 0
     for sep in SEPARATORS:
         for dec in (".", ","):
@@ -160,7 +162,11 @@ def sniff(lines: list[str], source: str, *, min_columns: int = 2) -> Dialect:
             ncols, hits = counts.most_common(1)[0]
             if ncols < min_columns:
                 continue
-            score = (hits, ncols, order)
+            # The names line above the numbers settles ties such as '1,5' (one column with a
+            # decimal comma, or two comma-separated columns).
+            names = len(d.split(header)) if header else 0
+            header_fits = names == ncols or (sep == "whitespace" and names > ncols)
+            score = (hits, header_fits, ncols, order)
             if best is None or score > best[0]:
                 best = (score, d)
     if best is None:

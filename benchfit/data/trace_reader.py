@@ -62,27 +62,28 @@ def is_time_name(name: str) -> bool:
 
 
 def _metadata(notes: list[str], d: Dialect) -> dict[str, tuple[str, str]]:
-    """Known timing keys found in the metadata lines -> (raw value, the line's text)."""
+    """Known timing keys found in the metadata lines -> (raw value, the line's text).
+
+    A line is 'key<sep>value' with the table's separator, ':', '=', ',', tab or ';', or
+    'key value'; the first split whose key is a known one counts.
+    """
+    known = {name: what for what, names in _KEYS.items() for name in names}
+    seps = ((d.separator,) if d.separator != "whitespace" else ()) + (":", "=", ";", "\t", ",")
     out: dict[str, tuple[str, str]] = {}
     for note in notes:
-        key = value = None
-        for sep in ((d.separator,) if d.separator != "whitespace" else ()) + (":", "=", ",", "\t", ";"):
-            if sep in note:
-                k, _, v = note.partition(sep)
-                key, value = k, v.strip().strip(d.separator if d.separator != "whitespace" else " ")
-                break
-        if key is None:
-            parts = note.rsplit(None, 1)
-            if len(parts) != 2:
+        splits = [note.partition(sep)[::2] for sep in seps if sep in note]
+        parts = note.rsplit(None, 1)
+        if len(parts) == 2:
+            splits.append((parts[0], parts[1]))
+        for key, value in splits:
+            what = known.get(re.sub(r"[^a-z0-9]", "", key.lower()))
+            if what is None:
                 continue
-            key, value = parts
-        norm = re.sub(r"[^a-z0-9]", "", key.lower())
-        value = value.strip()
-        if d.separator not in (",", "whitespace") and d.separator in value:
-            value = " ".join(x for x in value.split(d.separator) if x.strip())
-        for what, names in _KEYS.items():
-            if norm in names and what not in out:
-                out[what] = (value, note)
+            split_at = r"[;\t,]" if d.decimal == "." else r"[;\t]"
+            cells = [c.strip() for c in re.split(split_at, value) if c.strip()]
+            if what not in out and cells:
+                out[what] = (" ".join(cells), note)
+            break
     return out
 
 
