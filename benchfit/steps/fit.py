@@ -187,8 +187,11 @@ def _run(fn, start, t, y, keep, sigma):
         return (fn(t, p.valuesdict())[keep] - y[keep]) / sigma
 
     mini = lmfit.Minimizer(resid, params, nan_policy="raise")
-    # A model that cannot describe the trace wanders for thousands of evaluations; cap them.
-    return mini.leastsq(xtol=1e-10, ftol=1e-10, max_nfev=MAX_EVALUATIONS)
+    try:
+        # A model that cannot describe the trace wanders for thousands of evaluations; cap them.
+        return mini.leastsq(xtol=1e-10, ftol=1e-10, max_nfev=MAX_EVALUATIONS)
+    except ValueError as e:  # lmfit's report of a non-finite model value
+        raise FitError(f"the step fit failed: {e}") from None
 
 
 def _cost(fn, start, t, y, keep):
