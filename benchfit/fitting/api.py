@@ -16,17 +16,19 @@ from scipy import stats
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import FitError, InputError
-from benchfit.fitting.delay import delay_stepper, excess_phase_delay
+from benchfit.fitting.delay import delay_stepper, excess_phase_delay, refine_delay
 from benchfit.fitting.model import PlantModel
 from benchfit.fitting.order import (
+    CHI_OK,
     NEGLIGIBLE,
-    SCAN_ITER,
     Attempt,
     Context,
     attempt,
     better,
     choose_order,
+    max_order,
     polish,
+    settle,
 )
 from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk, to_zpk
 from benchfit.fitting.refine import Refined, log_residual, refine
@@ -186,13 +188,12 @@ def _bic(ref: Refined, n_res: int) -> float:
 def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], list[Attempt]]:
     """Vector fits to refine: the best without a delay, and with one when ``delay="auto"``.
 
-    With ``delay="auto"`` the order is first chosen without a delay; then,
-    from that order down, a delay is searched at each order (starting from
-    the excess-phase estimate) for as long as the fit stays as good, and the
-    fewest poles that still do are the delay candidate.  A delay and a
-    damped pair near the top of the band look alike to vector fitting, so the
-    two candidates are refined and compared afterwards.  Scans run on a
-    thinned sweep; candidates are polished on every point.
+    With ``delay="auto"`` the order is first chosen with a delay searched at
+    each order (starting from the excess-phase estimate), then without a delay
+    up to a few orders more.  A delay and a damped pair near the top of the
+    band look alike to vector fitting, so both candidates are refined and
+    compared afterwards (:func:`fit`).  Scans run on a thinned sweep; the
+    candidates' residues are re-solved on every point.
 
     Returns
     -------
@@ -207,29 +208,26 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
     with_delay = None
     if order != "auto":
         n = int(order)
-        att = attempt(sub, n, fixed_tau, max_iter=SCAN_ITER)
+        att = attempt(sub, n, fixed_tau)
+        if att.chi > CHI_OK:
+            # A fresh start may miss a weak feature; build up to n as the scan does.
+            scan = choose_order(sub, fixed_tau, n_min=1, n_max=n, scan_all=True)[1]
+            att = min([att, scan[-1]], key=lambda x: x.chi)
         if try_delay:
-            with_delay = delay_stepper(sub, tau0)(n)
+            with_delay = refine_delay(sub, delay_stepper(sub, tau0)(n))
+    elif try_delay:
+        # Both hypotheses, the delay one first: its order bounds the no-delay scan
+        # (a delay mistaken for poles needs more of them, never fewer).
+        with_delay, scan_d = choose_order(sub, step=delay_stepper(sub, tau0))
+        with_delay = refine_delay(sub, with_delay)
+        att, scan = choose_order(sub, fixed_tau, n_max=min(with_delay.order + 4,
+                                                           max_order(sub.s.shape[0])))
+        scan = scan + scan_d
     else:
         att, scan = choose_order(sub, fixed_tau)
-        if try_delay:
-            # Descend from the no-delay order while a searched delay keeps the fit
-            # as good: a delay mistaken for poles shows up as poles it can replace.
-            step = delay_stepper(sub, tau0)
-            tried = []
-            for n in range(att.order, 0, -1):
-                a = step(n)
-                scan.append(a)
-                if a.chi > NEGLIGIBLE and better(a, att, n_res):
-                    break
-                tried.append(a)
-            if tried:
-                best = min(tried, key=lambda x: x.chi)
-                with_delay = min((x for x in tried if not better(x, best, n_res)),
-                                 key=lambda x: x.order)
-    out = [polish(ctx, att)]
+    out = [polish(ctx, settle(sub, att))]
     if with_delay is not None and np.isfinite(with_delay.chi):
-        out.append(polish(ctx, with_delay))
+        out.append(polish(ctx, settle(sub, with_delay)))
     return out, scan
 
 

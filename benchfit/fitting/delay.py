@@ -51,12 +51,14 @@ def excess_phase_delay(freq_hz: np.ndarray, h: np.ndarray, top_fraction: float =
     return float(max(-coef[1], 0.0))
 
 
-def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None) -> Attempt:
+def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
+                 fine: bool = True) -> Attempt:
     """Delay in [lo, hi] minimising the VF residual at ``order``.
 
     A bounded scalar (Brent) search; each evaluation is a short warm-started
-    vector fit.  The resolution (1e-5 rad of phase at the top frequency) is
-    fine enough for noiseless data to reach its exact fit.
+    vector fit.  The fine resolution (1e-5 rad of phase at the top frequency)
+    lets noiseless data reach its exact fit; the coarse one (1e-2 rad, few
+    evaluations) is for scanning orders.
     """
     w_max = float(np.abs(ctx.s[-1])) * ctx.scale
     cache: list[Attempt] = []
@@ -69,8 +71,8 @@ def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None) ->
             start[0] = a.vf.poles
         return a.chi
 
-    optimize.minimize_scalar(cost, bounds=(lo, hi), method="bounded",
-                             options={"xatol": 1e-5 / w_max, "maxiter": 25})
+    opts = {"xatol": 1e-5 / w_max, "maxiter": 30} if fine else {"xatol": 1e-2 / w_max, "maxiter": 10}
+    optimize.minimize_scalar(cost, bounds=(lo, hi), method="bounded", options=opts)
     return min(cache, key=lambda a: a.chi)
 
 
@@ -88,10 +90,18 @@ def delay_stepper(ctx: Context, tau0: float) -> Callable[[int], Attempt]:
         a0 = attempt(ctx, n, centre[0], max_iter=SCAN_ITER, tol=SCAN_TOL)
         lo = 0.25 * min(tau0, centre[0])
         hi = 2.0 * max(tau0, centre[0]) + 2.0 / w_max
-        a = search_delay(ctx, n, lo, hi, a0.vf.poles)
+        a = search_delay(ctx, n, lo, hi, a0.vf.poles, fine=False)
         best = a if a.chi <= a0.chi else a0
         if best.chi <= 2.0 * CHI_OK:
             centre[0] = best.tau_s
         return best
 
     return step
+
+
+def refine_delay(ctx: Context, a: Attempt) -> Attempt:
+    """Fine delay search at ``a``'s order, within ±10 % (+2 % of a radian at f_max) of its delay."""
+    w_max = float(np.abs(ctx.s[-1])) * ctx.scale
+    span = 0.1 * a.tau_s + 2e-2 / w_max
+    b = search_delay(ctx, a.order, max(a.tau_s - span, 0.0), a.tau_s + span, a.vf.poles)
+    return b if b.chi <= a.chi else a

@@ -137,7 +137,8 @@ def max_order(n_points: int, cap: int = 40) -> int:
 
 
 def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Attempt] | None = None,
-                 n_max: int | None = None, n_min: int = 1) -> tuple[Attempt, list[Attempt]]:
+                 n_max: int | None = None, n_min: int = 1, scan_all: bool = False
+                 ) -> tuple[Attempt, list[Attempt]]:
     """Automatic order choice (see module docstring).
 
     Parameters
@@ -151,6 +152,9 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
         delay search uses it to re-estimate the delay at each order).
     n_max, n_min
         Orders scanned.
+    scan_all
+        Try every order up to ``n_max`` (no early stop); used to build a
+        good start for a fixed order.
 
     Returns
     -------
@@ -182,6 +186,8 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
     for n in range(n_min, n_max + 1):
         a = step(n)
         scan.append(a)
+        if scan_all:
+            continue
         if cand is None:
             if a.chi <= CHI_OK:
                 cand = a
@@ -192,7 +198,7 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
                 cand = a
             elif n - cand.order >= 2:
                 break
-    if cand is None:
+    if cand is None or scan_all:
         cand = min(scan, key=lambda x: x.chi)
     # Spare poles shave a little off a noise-limited residual: take the lowest
     # order the candidate is not significantly better than.
@@ -222,12 +228,23 @@ def better(a: Attempt, b: Attempt, n_res: int, level: float = 0.999) -> bool:
     return bool(drop > stats.chi2.ppf(level, dof))
 
 
-def polish(ctx: Context, a: Attempt, max_iter: int = 30) -> Attempt:
-    """Continue relocating the poles of ``a`` on ``ctx`` (all points) until they settle.
+def settle(ctx: Context, a: Attempt, max_iter: int = 40, tol: float = 1e-6) -> Attempt:
+    """Continue relocating the poles of ``a`` until they settle (or the cap); keep the better."""
+    if a.vf.converged and tol >= SCAN_TOL:
+        return a
+    b = attempt(ctx, a.order, a.tau_s, poles0=a.vf.poles, max_iter=max_iter, tol=tol)
+    if b.chi <= a.chi * (1.0 + 1e-3) or not np.isfinite(a.chi):
+        return replace(b, vf=replace(b.vf, iterations=b.vf.iterations + a.vf.iterations))
+    return a
 
-    When the relocation degrades the fit (it can wander on noisy data), the
-    starting poles are kept and only the residues are re-solved.
+
+def polish(ctx: Context, a: Attempt) -> Attempt:
+    """Carry the poles of ``a`` (found on a thinned sweep) to ``ctx`` (every point).
+
+    Only the residues are re-solved: the poles are a starting point, and the
+    lmfit refinement that follows is the estimator.  The iteration count and
+    convergence flag of ``a`` are kept.
     """
-    b = attempt(ctx, a.order, a.tau_s, poles0=a.vf.poles, max_iter=max_iter)
-    keep = attempt(ctx, a.order, a.tau_s, poles0=a.vf.poles, max_iter=0)
-    return b if b.chi <= 1.05 * keep.chi else keep
+    b = attempt(ctx, a.order, a.tau_s, poles0=a.vf.poles, max_iter=0)
+    vf = replace(b.vf, iterations=a.vf.iterations, converged=a.vf.converged, flipped=a.vf.flipped)
+    return replace(b, vf=vf)

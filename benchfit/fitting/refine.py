@@ -145,9 +145,13 @@ def refine(
                        covariance=np.zeros((0, 0)), evaluations=1, success=True,
                        chisqr=chi, redchi=chi / max(r.size, 1), message="all parameters fixed")
     mini = lmfit.Minimizer(lambda p: residual(p), params, nan_policy="raise")
+    # Trust-region reflective least squares (lmfit's "least_squares" method), with
+    # the analytic Jacobian and Jacobian-based scaling of the parameters (Hz and Q
+    # differ by six decades).  Not MINPACK's lmder: it crashed the process on
+    # some trial steps here.
     with np.errstate(all="ignore"):
-        out = mini.leastsq(Dfun=lambda p: jacobian(p), col_deriv=0, max_nfev=max_nfev,
-                           ftol=1e-12, xtol=1e-12)
+        out = mini.least_squares(jac=lambda p, *a, **k: jacobian(p), max_nfev=max_nfev,
+                                 x_scale="jac", ftol=1e-12, xtol=1e-12, gtol=1e-12)
     vals = current(out.params)
     r0 = residual(params)
     if not np.all(np.isfinite(residual(out.params))) or out.chisqr > float(r0 @ r0):
