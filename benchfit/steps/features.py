@@ -179,8 +179,8 @@ def last_exit(t: np.ndarray, dev: np.ndarray, limit: float, start: int = 0) -> t
 class Ringing:
     """Ringing about a level: crossing times, lobe peaks and what follows from them.
 
-    ``freq_hz`` needs two crossings, ``log_decrement`` (per full period) two lobes;
-    either is NaN otherwise.
+    ``freq_hz`` needs three crossings (a swing past the level and back),
+    ``log_decrement`` (per full period) two lobes; either is NaN otherwise.
     """
 
     crossings_s: tuple[float, ...]
@@ -226,8 +226,11 @@ def ringing(t: np.ndarray, dev: np.ndarray, hysteresis: float) -> Ringing:
         peaks.append(float(dev[j]))
         ptimes.append(float(t[j]))
     freq = float("nan")
-    if len(crossings) >= 2:
-        half = np.polyfit(np.arange(len(crossings)), crossings, 1)[0]
+    if len(crossings) >= 3:  # at least one swing past the level and back: ringing, not one overshoot
+        # The first crossing is the rise itself; a pure second-order response crosses at
+        # equal spacing from it on, higher orders do not, so leave it out when there are enough.
+        use = crossings[1:] if len(crossings) >= 4 else crossings
+        half = np.polyfit(np.arange(len(use)), use, 1)[0]
         freq = float(1.0 / (2.0 * half)) if half > 0 else float("nan")
     dec = float("nan")
     if len(peaks) >= 2:
