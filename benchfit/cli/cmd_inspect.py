@@ -67,8 +67,11 @@ def summary_text(s: dict[str, Any]) -> str:
     if s["kind"] == "sweep":
         out.append(f"sweep:     {s['points']} points, {_fmt_si(s['f_min_hz'], 'Hz')} .. "
                    f"{_fmt_si(s['f_max_hz'], 'Hz')}, quantity {s['quantity']}")
-        out.append(f"magnitude: {s['mag_db_range'][0]:.2f} .. {s['mag_db_range'][1]:.2f} dB; phase "
-                   f"{s['phase_deg_range'][0]:.1f} .. {s['phase_deg_range'][1]:.1f} deg (unwrapped)")
+        mag = (f"{s['magnitude_range'][0]:.4g} .. {s['magnitude_range'][1]:.4g} ohm"
+               if s["quantity"] == "impedance" else
+               f"{s['mag_db_range'][0]:.2f} .. {s['mag_db_range'][1]:.2f} dB")
+        out.append(f"magnitude: {mag}; phase {s['phase_deg_range'][0]:.1f} .. "
+                   f"{s['phase_deg_range'][1]:.1f} deg (unwrapped)")
         cols = ", ".join(f"{c['name']} -> {c['role']}" + (f" [{c['unit']}]" if c.get("unit") else "")
                          + (f" ({c['form']})" if c.get("form") not in (None, "auto") else "")
                          for c in s["columns"])

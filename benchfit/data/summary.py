@@ -80,6 +80,7 @@ def summary(obj: FrequencyResponse | TimeTrace) -> dict[str, Any]:
             "dialect": meta.get("dialect", {}),
             "warnings": list(meta.get("warnings", [])),
             "mag_db_range": _rng(obj.mag_db),
+            "magnitude_range": _rng(obj.magnitude),
             "phase_deg_range": _rng(obj.phase_deg),
             "has": {k: getattr(obj, k) is not None for k in ("stddev", "weight", "coherence")},
             "notes": list(meta.get("notes", [])),

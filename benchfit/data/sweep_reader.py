@@ -79,7 +79,7 @@ def _select_trace(traces: list[tuple[str, Block, TracePair]], trace: int | str |
     if trace is None:
         if len(traces) > 1:
             warnings.append(f"file holds {len(traces)} traces ({'; '.join(labels)}); read trace 1 "
-                            f"({labels[0]}); pick another with trace=N or a name")
+                            f"({labels[0]}); pick another by number or part of its name (trace=, --trace)")
         return (0, *traces[0])
     if isinstance(trace, int) or str(trace).strip().isdigit():
         k = int(trace)
