@@ -106,3 +106,11 @@ def test_demo_other_folder(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "1 of 2 files read" in out
     assert main(["demo", "--data", str(tmp_path / "none")]) == 2
+
+
+def test_headerless_table_stays_a_sweep_error(tmp_path, capsys):
+    # an evenly rising first column without names must not be taken for a scope trace
+    p = tmp_path / "raw.csv"
+    p.write_text("1,2,3\n2,3,4\n3,4,5\n")
+    assert main(["inspect", str(p)]) == 2
+    assert "no header line" in capsys.readouterr().err
