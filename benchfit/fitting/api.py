@@ -24,7 +24,6 @@ from benchfit.fitting.order import (
     Attempt,
     Context,
     attempt,
-    better,
     choose_order,
     max_order,
     polish,
@@ -131,7 +130,7 @@ def _without(st: Structure, values: np.ndarray, drop: list[str]) -> tuple[Struct
 def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float) -> list[tuple[str, float]]:
     """(group, |frequency|) of zeros above the band, e.g. ("zero2", 3e7), ("zero_pair1", 2e7)."""
     out = []
-    for nm, v in zip(st.names, values):
+    for nm, v in zip(st.names, values, strict=True):
         if nm.startswith("zero_pair") and nm.endswith("_f0_hz") and abs(v) > f_max:
             out.append((nm[: -len("_f0_hz")], abs(v)))
         elif nm.startswith("zero") and not nm.startswith("zero_pair") and abs(v) > f_max:
@@ -182,7 +181,9 @@ SCAN_POINTS = 400
 def _bic(ref: Refined, n_res: int) -> float:
     """Schwarz's Bayesian information criterion of a refined fit (Gaussian residuals,
     scale estimated): N·ln(χ²/N) + p·ln N (G. Schwarz, Ann. Statist. 6(2), 1978)."""
-    return float(n_res * np.log(max(ref.chisqr, 1e-300) / n_res) + len(ref.varied) * np.log(n_res))
+    # Fits far below the noise floor (noiseless data) are equally exact: compare their size only.
+    chisqr = max(ref.chisqr, n_res * NEGLIGIBLE ** 2)
+    return float(n_res * np.log(chisqr / n_res) + len(ref.varied) * np.log(n_res))
 
 
 def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], list[Attempt]]:
@@ -203,9 +204,9 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
     tau0 = excess_phase_delay(f, h) if delay == "auto" else 0.0
     try_delay = delay == "auto" and tau0 * TWO_PI * f[-1] >= DELAY_MIN_PHASE
     sub = ctx.subsample(SCAN_POINTS)
-    n_res = 2 * sub.s.shape[0]
     scan: list[Attempt] = []
     with_delay = None
+    extra: list[Attempt] = []
     if order != "auto":
         n = int(order)
         att = attempt(sub, n, fixed_tau)
@@ -219,6 +220,10 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
         # Both hypotheses, the delay one first: its order bounds the no-delay scan
         # (a delay mistaken for poles needs more of them, never fewer).
         with_delay, scan_d = choose_order(sub, step=delay_stepper(sub, tau0))
+        # The delay soaks up part of a damped pair near the band top, so the next
+        # order (with its own delay) is refined too; the criterion decides.
+        nxt = [a for a in scan_d if a.order == with_delay.order + 1 and np.isfinite(a.chi)]
+        extra = [refine_delay(sub, nxt[0])] if nxt else []
         with_delay = refine_delay(sub, with_delay)
         att, scan = choose_order(sub, fixed_tau, n_max=min(with_delay.order + 4,
                                                            max_order(sub.s.shape[0])))
@@ -226,8 +231,9 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
     else:
         att, scan = choose_order(sub, fixed_tau)
     out = [polish(ctx, settle(sub, att))]
-    if with_delay is not None and np.isfinite(with_delay.chi):
-        out.append(polish(ctx, settle(sub, with_delay)))
+    for a in ([with_delay] if with_delay is not None else []) + extra:
+        if np.isfinite(a.chi):
+            out.append(polish(ctx, settle(sub, a)))
     return out, scan
 
 

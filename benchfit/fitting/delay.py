@@ -52,13 +52,15 @@ def excess_phase_delay(freq_hz: np.ndarray, h: np.ndarray, top_fraction: float =
 
 
 def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
-                 fine: bool = True) -> Attempt:
+                 fine: bool = True, grid: int = 0) -> Attempt:
     """Delay in [lo, hi] minimising the VF residual at ``order``.
 
-    A bounded scalar (Brent) search; each evaluation is a short warm-started
-    vector fit.  The fine resolution (1e-5 rad of phase at the top frequency)
-    lets noiseless data reach its exact fit; the coarse one (1e-2 rad, few
-    evaluations) is for scanning orders.
+    Optionally a coarse grid of ``grid`` points first (the residual against
+    the delay can have several minima at a fixed order), then a bounded scalar
+    (Brent) search between the best grid point's neighbours.  Each evaluation
+    is a short warm-started vector fit.  The fine resolution (1e-5 rad of
+    phase at the top frequency) lets noiseless data reach its exact fit; the
+    coarse one (1e-2 rad, few evaluations) is for scanning orders.
     """
     w_max = float(np.abs(ctx.s[-1])) * ctx.scale
     cache: list[Attempt] = []
@@ -71,7 +73,13 @@ def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
             start[0] = a.vf.poles
         return a.chi
 
-    opts = {"xatol": 1e-5 / w_max, "maxiter": 30} if fine else {"xatol": 1e-2 / w_max, "maxiter": 10}
+    if grid >= 3:
+        taus = np.linspace(lo, hi, grid)
+        chis = [cost(x) for x in taus]
+        i = int(np.nanargmin(chis))
+        lo, hi = taus[max(i - 1, 0)], taus[min(i + 1, grid - 1)]
+        start[0] = cache[i].vf.poles if np.isfinite(cache[i].chi) else poles0
+    opts = {"xatol": 1e-5 / w_max, "maxiter": 30} if fine else {"xatol": 1e-2 / w_max, "maxiter": 8}
     optimize.minimize_scalar(cost, bounds=(lo, hi), method="bounded", options=opts)
     return min(cache, key=lambda a: a.chi)
 
@@ -90,9 +98,9 @@ def delay_stepper(ctx: Context, tau0: float) -> Callable[[int], Attempt]:
         a0 = attempt(ctx, n, centre[0], max_iter=SCAN_ITER, tol=SCAN_TOL)
         lo = 0.25 * min(tau0, centre[0])
         hi = 2.0 * max(tau0, centre[0]) + 2.0 / w_max
-        a = search_delay(ctx, n, lo, hi, a0.vf.poles, fine=False)
+        a = search_delay(ctx, n, lo, hi, a0.vf.poles, fine=False, grid=7)
         best = a if a.chi <= a0.chi else a0
-        if best.chi <= 2.0 * CHI_OK:
+        if best.chi <= 1.5 * CHI_OK:
             centre[0] = best.tau_s
         return best
 

@@ -23,7 +23,6 @@ import numpy as np
 from benchfit.errors import InputError
 from benchfit.fitting.parameters import Structure, log_jacobian, response
 
-
 #: Residual given to a point where a trial model does not evaluate.
 _PENALTY = 1e6
 
@@ -154,7 +153,7 @@ def refine(
                                  x_scale="jac", ftol=1e-12, xtol=1e-12, gtol=1e-12)
     vals = current(out.params)
     r0 = residual(params)
-    if not np.all(np.isfinite(residual(out.params))) or out.chisqr > float(r0 @ r0):
+    if not np.all(np.isfinite(residual(out.params))) or out.chisqr > 1.001 * float(r0 @ r0) + 1e-300:
         # The search wandered off (a badly under-modelled start): keep the start.
         chi0 = float(r0 @ r0)
         return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=tuple(out.var_names),

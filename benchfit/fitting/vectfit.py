@@ -311,7 +311,7 @@ def vector_fit(
     converged = False
     flipped = np.zeros(0, dtype=complex)
     it = 0
-    for it in range(1, max_iter + 1):
+    for it in range(1, max_iter + 1):  # noqa: B007 (it is reported after the loop)
         try:
             new, flipped = _relocate(s, h, w, poles, direct, proportional)
         except (linalg.LinAlgError, ValueError):

@@ -153,9 +153,6 @@ def _loglik(x: np.ndarray, sig: np.ndarray) -> float:
     return float(-0.5 * np.sum(np.log(var) + z2))
 
 
-    return PointSigma(scatter_sigma(lnm), scatter_sigma(ph), "scatter")
-
-
 def vf_weight(h: np.ndarray, sigma: PointSigma, weighting: str = "relative",
               stddev=None) -> np.ndarray:
     """Weight of each point's complex error in vector fitting.
