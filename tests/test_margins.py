@@ -372,3 +372,51 @@ def test_text_report_summarises_far_phase_crossings_of_a_delay():
     assert all(c["value"] < 61 for c in phases(mm))
     # the first one: GM = 20log10(π/(2Kτ)) (see the delayed-integrator test above)
     assert phases(mm)[0]["value"] == pytest.approx(20 * math.log10(math.pi / (2 * K * tau)), abs=1e-6)
+
+
+@pytest.mark.parametrize("seed", range(25))
+def test_delay_margin_is_the_stability_boundary_of_random_loops(seed):
+    # definition (e.g. Åström & Murray, Feedback Systems, sec. 10.3): the smallest added
+    # delay that makes a stable loop unstable. Checked with the exact-delay Nyquist count:
+    # stable just below it, unstable just above it.
+    rng = np.random.default_rng(500 + seed)
+    base = random_loop(rng)
+    # open-loop stable version (mirror RHP poles), unity gain at a random frequency
+    base = PlantModel(base.zeros, -np.abs(base.poles.real) + 1j * base.poles.imag, 1.0)
+    wc = 10 ** rng.uniform(-1, 2)
+    base = PlantModel(base.zeros, base.poles, 1.0 / abs(base.at_s(np.array([1j * wc]))[0]))
+    # lower the gain step by step until the closed loop is stable (numpy roots of den+num)
+    for scale in 10.0 ** -np.arange(0, 8, 0.25):
+        model = PlantModel(base.zeros, base.poles, base.k * scale)
+        b, a = model.to_tf()
+        roots = np.roots(np.polyadd(a, b))
+        if np.all(roots.real < -1e-3 * (np.max(np.abs(roots)) + 1)):
+            break
+    else:
+        pytest.skip("no stable gain found")
+    m = margins_of_model(model)
+    assert m.closed_loop_stable
+    if not math.isfinite(m.delay_margin_s):
+        pytest.skip("no gain crossing: any delay is tolerated")
+    for factor, stable in ((0.97, True), (1.03, False)):
+        d = PlantModel(model.zeros, model.poles, model.k, delay_s=factor * m.delay_margin_s)
+        assert margins_of_model(d).closed_loop_stable is stable
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_margins_are_invariant_to_frequency_scaling(seed):
+    # T(s) and T(s/a) have the same phase and gain margins, with every crossing
+    # frequency scaled by a (time scaling of a linear system, any control text).
+    rng = np.random.default_rng(900 + seed)
+    model = random_loop(rng)
+    a = 10 ** rng.uniform(-3, 4)
+    n_excess = len(model.poles) - len(model.zeros)
+    scaled = PlantModel(model.zeros * a, model.poles * a, model.k * a**n_excess)
+    m1, m2 = margins_of_model(model), margins_of_model(scaled)
+    g1, g2 = gains(m1), gains(m2)
+    assert len(g1) == len(g2)
+    for c1, c2 in zip(g1, g2, strict=True):
+        assert c2["freq_hz"] == pytest.approx(a * c1["freq_hz"], rel=1e-7)
+        assert c2["value"] == pytest.approx(c1["value"], abs=1e-6)
+    assert m2.closed_loop_stable == m1.closed_loop_stable
+    assert m2.modulus_margin == pytest.approx(m1.modulus_margin, rel=1e-6)
