@@ -197,6 +197,24 @@ def _num(sec: dict[str, Any], key: str, where: str, default: Any = None) -> Any:
     return float(v)
 
 
+def _inside(base: Path, name: str, src: str) -> str:
+    """A plant path from a design file, resolved against the file's folder.
+
+    A design file may come from someone else's disk, so it may only name files in
+    its own folder or below it: absolute paths and '..' that leave the folder
+    are refused (give such plants on the command line instead).
+    """
+    file_part = name.rsplit("@", 1)[0] if "@" in name else name  # FILE@TRACE
+    if Path(file_part).is_absolute() or Path(name).is_absolute():
+        raise InputError(f"plant.files: {name!r} is an absolute path; a design file may only name "
+                         "files in its own folder or below (give other plants on the command line)",
+                         source=src)
+    if not all((base / n).resolve().is_relative_to(base) for n in (name, file_part)):
+        raise InputError(f"plant.files: {name!r} points outside the design file's folder {base}; "
+                         "move the file there or give it on the command line", source=src)
+    return str(base / name)
+
+
 def read_design_file(path: str | os.PathLike) -> DesignSpec:
     """Parse a TOML design file into a :class:`DesignSpec` (paths made absolute)."""
     p = Path(path)
@@ -205,8 +223,12 @@ def read_design_file(path: str | os.PathLike) -> DesignSpec:
         data = tomllib.loads(p.read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise InputError("file not found", source=src) from None
+    except IsADirectoryError:
+        raise InputError("is a folder, expected a TOML design file", source=src) from None
     except UnicodeDecodeError:
         raise InputError("not UTF-8 text; expected a TOML design file", source=src) from None
+    except OSError as e:
+        raise InputError(f"cannot read: {e.strerror}", source=src) from None
     except tomllib.TOMLDecodeError as e:
         raise InputError(f"not valid TOML ({e})", source=src) from None
     for sec, body in data.items():
@@ -229,8 +251,7 @@ def read_design_file(path: str | os.PathLike) -> DesignSpec:
         files = [files]
     if not isinstance(files, list) or not all(isinstance(f, str) for f in files):
         raise InputError(f"plant.files = {files!r}; expected a list of file names", source=src)
-    changes["plant_files"] = tuple(str((base / f) if not Path(f).is_absolute() else Path(f))
-                                   for f in files)
+    changes["plant_files"] = tuple(_inside(base, f, src) for f in files)
     fit_opts: dict[str, Any] = {}
     if "order" in plant:
         o = plant["order"]
