@@ -238,3 +238,18 @@ def test_series_neighbours_match_the_eseries_package():
         assert hi == pytest.approx(ref.find_greater_than_or_equal(key, v), rel=1e-9)
 
     check()
+
+
+def test_inverting_plant_is_flagged():
+    # an inverting plant (negative DC gain) with the usual inverting error amplifier gives
+    # positive feedback; the design must say so, and a negative sensing gain fixes it
+    inv = PlantModel(zeros=buck().zeros, poles=buck().poles, k=-buck().k)
+    lp = LoopPlant(inv, DIV, name="inverted", band_hz=(10, 1e6))
+    d = design(lp, "type3", Targets(20e3, 55, 10), draws=0)
+    assert any("inverting" in w for w in d.warnings)
+    fixed = design(LoopPlant(inv, Sensing.plain(-0.25), band_hz=(10, 1e6)), "type3",
+                   Targets(20e3, 55, 10), draws=0)
+    assert not any("inverting" in w for w in fixed.warnings)
+    assert fixed.targets_met
+    ok = design(LoopPlant(buck(), DIV, band_hz=(10, 1e6)), "type3", Targets(20e3, 55, 10), draws=0)
+    assert not any("inverting" in w for w in ok.warnings)

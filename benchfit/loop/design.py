@@ -129,6 +129,30 @@ def snap_search(net: Network, corners: Sequence[LoopPlant], opamp: OpAmp | None,
         "neighbour search"
 
 
+def sign_warnings(corners: Sequence[LoopPlant]) -> list[str]:
+    """Warn when plant · sensing is inverting at low frequency.
+
+    The compensator folds the error amplifier's inversion into the loop sign;
+    an inverting plant (e.g. through an optocoupler) then makes the feedback
+    positive.  A low-frequency phase beyond ±90° (after removing integrators'
+    −90° each; beyond ±150° for measured data) is the sign of that.
+    """
+    out = []
+    for lp in corners:
+        f0 = lp.band_hz[0]
+        ph = math.degrees(np.angle(lp.response(np.array([f0]))[0]))
+        if not lp.is_data:
+            ph += 90.0 * int(np.sum(np.abs(lp.plant.poles) == 0))
+            ph -= 90.0 * int(np.sum(np.abs(lp.plant.zeros) == 0))
+        ph = 180.0 - ((180.0 - ph) % 360.0)
+        # data: integrators cannot be told apart, so only a clear inversion counts
+        if abs(ph) > (150.0 if lp.is_data else 90.0):
+            out.append(f"{lp.name}: plant · sensing is inverting at {f0:.4g} Hz (phase "
+                       f"{ph:.0f}°): with an inverting error amplifier the feedback is positive; "
+                       "use a negative sensing gain or a non-inverting error amplifier")
+    return out
+
+
 def opamp_warnings(net: Network, opamp: OpAmp | None, fc_hz: float) -> list[str]:
     """Warn when the op-amp costs visible phase or gain at the crossover."""
     if opamp is None or not np.isfinite(fc_hz):
@@ -434,6 +458,7 @@ def design(corners: LoopPlant | Sequence[LoopPlant], kind: str, targets: Targets
     names = [lp.name for lp in corners]
     # the automatic-crossover remark is information (kept in synthesis.notes), not a warning
     warnings = [n for n in syn.notes if "meeting the targets with parts in the practical" not in n]
+    warnings += sign_warnings(corners)
     warnings += snapped_net.practical_warnings("snapped")
     warnings += opamp_warnings(syn.network, opamp, syn.crossover_hz)
     warnings += target_warnings(ideal, targets, names, "ideal")
@@ -474,7 +499,7 @@ def check_parts(corners: LoopPlant | Sequence[LoopPlant], network: Network, *,
     pred = predict(corners, network, opamp)
     names = [lp.name for lp in corners]
     m = pred.worst_margins()
-    warnings = network.practical_warnings("given")
+    warnings = sign_warnings(corners) + network.practical_warnings("given")
     warnings += opamp_warnings(network, opamp, m.crossover_hz)
     warnings += target_warnings(pred, targets, names, "given")
     warnings += [f"{names[pred.worst]}: {w}" for w in m.warnings]
