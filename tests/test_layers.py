@@ -39,3 +39,16 @@ def test_no_upward_imports(path):
         if other in RANK:
             assert RANK[other] <= RANK[own] or other == own, f"{rel} (layer {own}) imports {mod}"
     # steps and loop are siblings: steps may use loop results only through plain data.
+
+
+def test_cli_start_is_light():
+    """One command imports only its own module: `benchfit --version` pulls in no numerics."""
+    import subprocess
+    import sys
+
+    code = ("import sys; from benchfit.cli import main\n"
+            "try:\n    main(['--version'])\nexcept SystemExit:\n    pass\n"
+            "heavy = [m for m in ('scipy', 'matplotlib', 'pandas', 'lmfit', 'pyvisa') if m in sys.modules]\n"
+            "print('heavy=' + ','.join(heavy))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip().splitlines()[-1] == "heavy=", out.stdout

@@ -25,21 +25,48 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"benchfit: error: {self.prog}: {message}\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _command_modules() -> list[str]:
+    pkg = importlib.import_module("benchfit.cli")
+    return sorted(m.name for m in pkgutil.iter_modules(pkg.__path__) if m.name.startswith("cmd_"))
+
+
+def build_parser(only: Sequence[str] | None = None) -> argparse.ArgumentParser:
+    """The argument parser; ``only`` limits it to some command modules (for a fast start)."""
     parser = _Parser(prog="benchfit", description="Fit bench frequency responses and design loop compensation.")
     parser.add_argument("--version", action="version", version=f"benchfit {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
-    pkg = importlib.import_module("benchfit.cli")
-    for info in sorted(pkgutil.iter_modules(pkg.__path__), key=lambda m: m.name):
-        if info.name.startswith("cmd_"):
-            mod = importlib.import_module(f"benchfit.cli.{info.name}")
-            mod.register(sub)
+    for name in (only if only is not None else _command_modules()):
+        mod = importlib.import_module(f"benchfit.cli.{name}")
+        mod.register(sub)
     return parser
+
+
+def _fast_parser(argv: Sequence[str]) -> argparse.ArgumentParser | None:
+    """A parser holding only the module of the command named in ``argv``, when it can be found.
+
+    Importing every command module pulls in scipy, matplotlib, pandas and lmfit;
+    a single command needs only its own, so start-up stays short.
+    """
+    if list(argv) == ["--version"]:
+        return build_parser(only=[])
+    words = [a for a in argv if not a.startswith("-")]
+    if not words or argv[0].startswith("-"):
+        return None
+    word = words[0]
+    modules = _command_modules()
+    for cand in (f"cmd_{word.replace('-', '_')}", f"cmd_{word.split('-')[0]}"):
+        if cand in modules:
+            parser = build_parser(only=[cand])
+            choices = parser._subparsers._group_actions[0].choices  # type: ignore[union-attr]
+            if word in choices:
+                return parser
+    return None
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``benchfit`` console command; returns the exit status."""
-    parser = build_parser()
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser = _fast_parser(argv) or build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()
