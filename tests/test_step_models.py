@@ -1,5 +1,7 @@
 """Step-response models against scipy.signal and python-control (reference libraries)."""
 
+import math
+
 import control
 import numpy as np
 import pytest
@@ -11,7 +13,6 @@ from benchfit.steps.models import (
     closed_loop_unit_step,
     closed_loop_zpk,
     overshoot_pct_from_zeta,
-    pade_coefficients,
     rational_unit_step,
     second_order_step,
     third_order_step,
@@ -66,13 +67,24 @@ def test_rational_rejects_improper():
         rational_unit_step(T, [-1.0, -2.0], [-3.0], 1.0)
 
 
-def test_pade_matches_python_control():
-    # Reference: control.pade (python-control), same (n, n) approximant.
-    for n in (1, 3, 6):
-        num, den = pade_coefficients(2e-6, n)
-        rnum, rden = control.pade(2e-6, n)
-        np.testing.assert_allclose(num / den[0], np.asarray(rnum) / rden[0], rtol=1e-9)
-        np.testing.assert_allclose(den / den[0], np.asarray(rden) / rden[0], rtol=1e-9)
+def test_delayed_loop_step_is_exact():
+    # Loop K·e^(−sτ)/s: the closed-loop step expands as the series
+    # y(t) = Σ_{n≥1} (−1)^(n+1) K^n (t − nτ)^n / n! · H(t − nτ)
+    # (inverse Laplace transform term by term of K e^(−sτ)/(s(s + K e^(−sτ))), a standard result).
+    # A Padé approximant would show ringing before t = τ and a wrong overshoot.
+    K, tau_d = 1.2e4, 60e-6
+    loop = PlantModel(zeros=[], poles=[0.0], k=K, delay_s=tau_d)
+    t = np.linspace(0.0, 8e-4, 801)
+    exact = np.zeros_like(t)
+    for n in range(1, 40):
+        s_ = np.clip(t - n * tau_d, 0.0, None)
+        exact += (-1) ** (n + 1) * (K * s_) ** n / math.factorial(n)
+    u, dc = closed_loop_unit_step(t, loop)
+    assert dc == pytest.approx(1.0)
+    assert np.all(u[t < tau_d] == 0.0)
+    assert np.max(np.abs(u - exact)) < 2e-3
+    with pytest.raises(InputError, match="no rational closed loop"):
+        closed_loop_zpk(loop)
 
 
 def test_closed_loop_matches_control_feedback():

@@ -23,6 +23,8 @@ from scipy import linalg
 
 from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
+from benchfit.loop.margins import margins_of_model
+from benchfit.loop.timeresponse import reference_step
 
 TWO_PI = 2.0 * math.pi
 
@@ -230,35 +232,16 @@ def third_order_step(t: np.ndarray, zeta: float, fn_hz: float, fp_hz: float, ini
 
 
 # ----- closed loop from a loop gain ---------------------------------------------------
-def pade_coefficients(delay_s: float, order: int) -> tuple[np.ndarray, np.ndarray]:
-    """(n, n) Padé approximant of exp(−s·τ) as numerator, denominator polynomials in s.
+def closed_loop_zpk(loop: PlantModel) -> tuple[np.ndarray, np.ndarray, float]:
+    """Zeros, poles and gain of T/(1+T) for a rational loop gain ``loop`` (PlantModel).
 
-    Coefficients c_k = (2n−k)!·n! / ((2n)!·k!·(n−k)!), numerator with (−1)^k
-    (the classical Padé table of the exponential), highest power first.
+    A loop with a delay has no rational closed loop; :func:`closed_loop_unit_step`
+    simulates that case exactly instead of approximating the delay.
     """
-    n = int(order)
-    ck = np.array([math.factorial(2 * n - k) * math.factorial(n)
-                   / (math.factorial(2 * n) * math.factorial(k) * math.factorial(n - k))
-                   * delay_s**k for k in range(n + 1)])
-    num = ck * (-1.0) ** np.arange(n + 1)
-    return num[::-1].copy(), ck[::-1].copy()
-
-
-def closed_loop_zpk(loop: PlantModel, *, pade_order: int | None = None
-                    ) -> tuple[np.ndarray, np.ndarray, float]:
-    """Zeros, poles and gain of T/(1+T) for a loop gain ``loop`` (PlantModel).
-
-    A delay in ``loop`` is replaced by a Padé approximant; by default its order
-    n is the smallest that keeps the delay's phase error small up to ten times
-    the largest pole or zero frequency (n ≥ τ·ω_max·10/4, between 2 and 10).
-    """
-    b, a = loop.to_tf()
     if loop.delay_s > 0:
-        scale = np.max(np.abs(np.concatenate([loop.poles, loop.zeros, [1.0]])))
-        n = pade_order or int(np.clip(math.ceil(loop.delay_s * scale * 10.0 / 4.0), 2, 10))
-        pn, pd = pade_coefficients(loop.delay_s, n)
-        b = np.polymul(b, pn)
-        a = np.polymul(a, pd)
+        raise InputError("a loop with a delay has no rational closed loop; "
+                         "use closed_loop_unit_step, which simulates the delay exactly")
+    b, a = loop.to_tf()
     den = np.polyadd(a, b)
     num = np.trim_zeros(b, "f")
     den = np.trim_zeros(den, "f")
@@ -276,6 +259,8 @@ def closed_loop_unit_step(tau: np.ndarray, loop: PlantModel) -> tuple[np.ndarray
     InputError
         When the closed loop is unstable (no final value to normalise by).
     """
+    if loop.delay_s > 0:
+        return _delayed_closed_loop_unit_step(np.asarray(tau, dtype=float), loop)
     z, p, k = closed_loop_zpk(loop)
     if np.any(p.real >= 0):
         raise InputError(f"closed loop T/(1+T) is unstable (pole at {p[np.argmax(p.real)]:.4g} rad/s); "
@@ -284,3 +269,22 @@ def closed_loop_unit_step(tau: np.ndarray, loop: PlantModel) -> tuple[np.ndarray
     if not np.isfinite(dc) or abs(dc) < 1e-12:
         raise InputError("closed loop T/(1+T) has zero DC gain; cannot normalise its step")
     return rational_unit_step(tau, z, p, k) / dc, dc
+
+
+def _delayed_closed_loop_unit_step(tau: np.ndarray, loop: PlantModel) -> tuple[np.ndarray, float]:
+    """Closed-loop step of a loop gain with a pure delay, the delay simulated exactly.
+
+    Uses the loop layer's time-domain simulation (a whole number of time steps
+    per delay, no Padé approximant), interpolated onto ``tau``.
+    """
+    if not margins_of_model(loop).closed_loop_stable:
+        raise InputError("closed loop T/(1+T) is unstable (Nyquist count of the loop gain); "
+                         "no step response to fit")
+    t_end = float(np.max(tau)) if tau.size else 0.0
+    if t_end <= 0:
+        return np.zeros_like(tau), 1.0
+    r = reference_step(loop, sensing_gain=1.0, step=1.0, t_end_s=t_end)
+    dc = float(r.final_value)
+    if not np.isfinite(dc) or abs(dc) < 1e-12:
+        raise InputError("closed loop T/(1+T) has zero DC gain; cannot normalise its step")
+    return np.interp(tau, r.time_s, r.value, left=0.0) / dc, dc
