@@ -82,7 +82,7 @@ def test_delayed_loop_step_is_exact():
     u, dc = closed_loop_unit_step(t, loop)
     assert dc == pytest.approx(1.0)
     assert np.all(u[t < tau_d] == 0.0)
-    assert np.max(np.abs(u - exact)) < 2e-3
+    assert np.max(np.abs(u - exact)) < 1e-5
     with pytest.raises(InputError, match="no rational closed loop"):
         closed_loop_zpk(loop)
 

@@ -143,7 +143,15 @@ def refine(
         return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=(),
                        covariance=np.zeros((0, 0)), evaluations=1, success=True,
                        chisqr=chi, redchi=chi / max(r.size, 1), message="all parameters fixed")
-    mini = lmfit.Minimizer(lambda p: residual(p), params, nan_policy="raise")
+    first: list[np.ndarray] = []
+
+    def recorded(p):
+        r = residual(p)
+        if not first:
+            first.append(r)  # the start's residual, to judge the outcome against
+        return r
+
+    mini = lmfit.Minimizer(recorded, params, nan_policy="raise")
     # Trust-region reflective least squares (lmfit's "least_squares" method), with
     # the analytic Jacobian and Jacobian-based scaling of the parameters (Hz and Q
     # differ by six decades).  Not MINPACK's lmder: it crashed the process on
@@ -152,8 +160,8 @@ def refine(
         out = mini.least_squares(jac=lambda p, *a, **k: jacobian(p), max_nfev=max_nfev,
                                  x_scale="jac", ftol=1e-12, xtol=1e-12, gtol=1e-12)
     vals = current(out.params)
-    r0 = residual(params)
-    if not np.all(np.isfinite(residual(out.params))) or out.chisqr > 1.001 * float(r0 @ r0) + 1e-300:
+    r0 = first[0] if first else residual(params)
+    if not np.all(np.isfinite(out.residual)) or out.chisqr > 1.001 * float(r0 @ r0) + 1e-300:
         # The search wandered off (a badly under-modelled start): keep the start.
         chi0 = float(r0 @ r0)
         return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=tuple(out.var_names),
