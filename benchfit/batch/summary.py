@@ -201,7 +201,7 @@ def histogram_figure(rows: Sequence[dict[str, Any]], *, limits: Limits | None = 
         logx = bool(name.endswith("_hz") and np.all(v > 0) and v.max() / v.min() > 10)
         edges = np.geomspace(v.min(), v.max(), bins + 1) if logx else bins
         ax.set_axisbelow(True)
-        ax.hist(v, bins=edges, color=MEASURED, alpha=0.75, edgecolor="white", linewidth=0.5)
+        ax.hist(v, bins=edges, color=MEASURED, alpha=0.75, histtype="stepfilled")
         if logx:
             log_axis(ax, "x")
         for x in _limit_values(name, limits):
