@@ -84,6 +84,11 @@ def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
     return min(cache, key=lambda a: a.chi)
 
 
+#: At this multiple of the floor an order is too low for the delay search to pay
+#: (common practice, no source: a wrong delay costs far less than a missing pole there).
+HOPELESS = 50.0
+
+
 def delay_stepper(ctx: Context, tau0: float) -> Callable[[int], Attempt]:
     """An ``order -> Attempt`` step that searches the delay at each order.
 
@@ -96,6 +101,8 @@ def delay_stepper(ctx: Context, tau0: float) -> Callable[[int], Attempt]:
 
     def step(n: int) -> Attempt:
         a0 = attempt(ctx, n, centre[0], max_iter=SCAN_ITER, tol=SCAN_TOL)
+        if a0.chi > HOPELESS * CHI_OK:
+            return a0  # far too few poles for any delay to matter; save the search
         lo = 0.25 * min(tau0, centre[0])
         hi = 2.0 * max(tau0, centre[0]) + 2.0 / w_max
         a = search_delay(ctx, n, lo, hi, a0.vf.poles, fine=False, grid=7)
