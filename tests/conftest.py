@@ -9,7 +9,7 @@ import os
 
 from hypothesis import HealthCheck, settings
 
-settings.register_profile("fuzz", max_examples=5000, deadline=None,
+settings.register_profile("fuzz", max_examples=10_000, deadline=None,
                           suppress_health_check=[HealthCheck.too_slow])
 settings.register_profile("dev", max_examples=20, deadline=None)
 if os.environ.get("HYPOTHESIS_PROFILE"):

@@ -14,6 +14,7 @@ from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
+from benchfit.data.limits import check_text_size
 from benchfit.errors import InputError
 
 SEPARATORS = ("\t", ";", ",", "whitespace")
@@ -32,6 +33,7 @@ def load_text(path: str | os.PathLike) -> str:
         When the file is missing, a folder, binary, or empty.
     """
     source = str(path)
+    check_text_size(path, source)
     try:
         raw = Path(path).read_bytes()
     except FileNotFoundError:
@@ -41,7 +43,11 @@ def load_text(path: str | os.PathLike) -> str:
     except OSError as e:
         raise InputError(f"cannot read: {e.strerror}", source=source) from None
     if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
-        text = raw.decode("utf-16")
+        try:
+            text = raw.decode("utf-16")
+        except UnicodeDecodeError as e:
+            raise InputError(f"starts with a UTF-16 byte-order mark but byte {e.start} is not "
+                             "UTF-16 (truncated or damaged file)", source=source) from None
     else:
         if b"\x00" in raw[:4096]:
             raise InputError("binary file (NUL bytes); expected a text export", source=source)
