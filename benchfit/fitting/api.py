@@ -157,7 +157,7 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float) -> tuple[Stru
             trials += [[g] for g, _ in groups]
         for drop in trials:
             st2, v2 = _without(st, ref.values, drop)
-            ref2 = refit(st2, v2)
+            ref2 = refit(st2, v2, max_nfev=40)
             dp = len(st.names) - len(st2.names)
             if (ref2.chisqr - ref.chisqr) / ref.redchi <= stats.chi2.ppf(0.95, dp):
                 st, ref = st2, ref2
@@ -362,14 +362,14 @@ def _physical(att: Attempt, ctx: Context, f, delay, fixed, bounds, refit
     st, v0 = from_zpk(zeros, poles, k_h, att.tau_s, integrators=m, delay=has_delay)
     # A first, capped refinement: spurious zeros above the band make it slow,
     # and they are pruned next.
-    ref = refit(st, v0, max_nfev=60)
+    ref = refit(st, v0, max_nfev=40)
     n_drop = 0
     if not any(key.startswith("zero") for key in list(fixed) + list(bounds or {})):
         st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1])
         if n_drop:
             notes.append(f"dropped {n_drop} zero(s) above the band that the data do not need")
-    if not n_drop and not ref.success:
-        ref = refit(st, ref.values)
+    if not ref.success or n_drop:
+        ref = refit(st, ref.values)  # the capped runs above may have stopped short
     if fit_delay and "delay_s" not in fixed:
         i = st.names.index("delay_s")
         tv, te = ref.values[i], ref.stderr[i]

@@ -158,7 +158,7 @@ def refine(
     # some trial steps here.
     with np.errstate(all="ignore"):
         out = mini.least_squares(jac=lambda p, *a, **k: jacobian(p), max_nfev=max_nfev,
-                                 x_scale="jac", ftol=1e-12, xtol=1e-12, gtol=1e-12)
+                                 x_scale="jac", ftol=1e-9, xtol=1e-9, gtol=1e-10)
     vals = current(out.params)
     r0 = first[0] if first else residual(params)
     if not np.all(np.isfinite(out.residual)) or out.chisqr > 1.001 * float(r0 @ r0) + 1e-300:
