@@ -138,6 +138,9 @@ def main() -> None:
             info = run_lot(files, settings, out, workers=w, progress=None, on_row=probe)
             rows = read_table(out)[1]
             assert len(rows) == len(files)
+            errors = sorted({r["error"] for r in rows if r["status"] == "error"})
+            for e in errors[:3]:
+                print(f"  error row ({w} workers): {e}")
             results[w] = info
             steady = (info.seconds - first_row[w]) / max(1, info.ran - 1)
             print(f"workers {w} ({info.executor}): total {info.seconds:7.1f} s, "
