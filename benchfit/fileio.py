@@ -11,7 +11,8 @@ import json
 import math
 import os
 import tempfile
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -154,6 +155,26 @@ def read_json(path: str | os.PathLike) -> dict[str, Any]:
     if not isinstance(obj, dict):
         raise InputError("expected a JSON object at the top level", source=str(path))
     return obj
+
+
+@contextmanager
+def malformed_as_input_error(source: str | os.PathLike, what: str = "file") -> Iterator[None]:
+    """Turn what a damaged JSON document makes ``from_dict`` raise into an InputError.
+
+    A key missing, a list where a number belongs, a string where a list belongs
+    all surface as KeyError / TypeError / ValueError / AttributeError / IndexError
+    deep inside ``from_dict``; for a file the user gave, that is their input's
+    fault, so it is reported as one :class:`InputError` naming the file.
+    """
+    try:
+        yield
+    except InputError as e:
+        if e.source is None:
+            raise InputError(e.message, source=str(source), line=e.line, column=e.column) from None
+        raise
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as e:
+        raise InputError(f"{what} is incomplete or malformed ({type(e).__name__}: {e}); "
+                         "expected a file written by benchfit", source=str(source)) from None
 
 
 def as_float(value: Any) -> float:

@@ -12,7 +12,13 @@ from typing import Any
 import numpy as np
 
 from benchfit.errors import InputError
-from benchfit.fileio import decode_complex, encode_complex, read_json, write_json_atomic
+from benchfit.fileio import (
+    decode_complex,
+    encode_complex,
+    malformed_as_input_error,
+    read_json,
+    write_json_atomic,
+)
 from benchfit.provenance import Provenance
 
 #: What a sweep can be a measurement of.
@@ -270,12 +276,8 @@ class FrequencyResponse:
 
     @classmethod
     def from_json(cls, path: str | os.PathLike) -> FrequencyResponse:
-        try:
+        with malformed_as_input_error(path, "frequency-response file"):
             return cls.from_dict(read_json(path))
-        except InputError as e:
-            if e.source is None:
-                raise InputError(e.message, source=str(path)) from None
-            raise
 
     def __repr__(self) -> str:
         src = ", ".join(self.provenance.sources) or "in memory"

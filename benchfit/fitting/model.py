@@ -16,7 +16,14 @@ import numpy as np
 from scipy import signal
 
 from benchfit.errors import InputError
-from benchfit.fileio import as_float, decode_complex, encode_complex, read_json, write_json_atomic
+from benchfit.fileio import (
+    as_float,
+    decode_complex,
+    encode_complex,
+    malformed_as_input_error,
+    read_json,
+    write_json_atomic,
+)
 from benchfit.provenance import Provenance
 
 
@@ -154,12 +161,8 @@ class PlantModel:
 
     @classmethod
     def from_json(cls, path: str | os.PathLike) -> PlantModel:
-        try:
+        with malformed_as_input_error(path, "model file"):
             return cls.from_dict(read_json(path))
-        except InputError as e:
-            if e.source is None:
-                raise InputError(e.message, source=str(path)) from None
-            raise
 
     def __repr__(self) -> str:
         return (f"PlantModel(order={self.order}, zeros={len(self.zeros)}, k={self.k:.6g}, "

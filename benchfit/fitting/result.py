@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from benchfit.errors import InputError
-from benchfit.fileio import as_float, read_json, write_json_atomic
+from benchfit.fileio import as_float, malformed_as_input_error, read_json, write_json_atomic
 from benchfit.fitting.model import PlantModel
 from benchfit.fitting.parameters import Structure, response
 from benchfit.provenance import Provenance
@@ -249,12 +249,8 @@ class FitResult:
 
     @classmethod
     def from_json(cls, path: str | os.PathLike) -> FitResult:
-        try:
+        with malformed_as_input_error(path, "fit-result file"):
             return cls.from_dict(read_json(path))
-        except InputError as e:
-            if e.source is None:
-                raise InputError(e.message, source=str(path)) from None
-            raise
 
     def __repr__(self) -> str:
         return (f"FitResult(order={self.stats.get('order')}, rms_db={self.stats.get('rms_db', 0):.3g}, "

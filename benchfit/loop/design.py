@@ -32,7 +32,7 @@ import numpy as np
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError
-from benchfit.fileio import read_json, to_json_text, write_json_atomic
+from benchfit.fileio import malformed_as_input_error, read_json, to_json_text, write_json_atomic
 from benchfit.fitting.model import PlantModel
 from benchfit.loop import eseries
 from benchfit.loop.loopgain import Loop, LoopPlant
@@ -354,12 +354,8 @@ class Design:
 
     @classmethod
     def from_json(cls, path: str | os.PathLike) -> Design:
-        try:
+        with malformed_as_input_error(path, "design file"):
             return cls.from_dict(read_json(path))
-        except InputError as e:
-            if e.source is None:
-                raise InputError(e.message, source=str(path)) from None
-            raise
 
     def report(self) -> str:
         """A plain-text summary: parts, margins (ideal and snapped), spread, warnings."""

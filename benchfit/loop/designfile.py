@@ -59,7 +59,7 @@ from typing import Any
 import numpy as np
 
 from benchfit.errors import InputError
-from benchfit.fileio import read_json
+from benchfit.fileio import malformed_as_input_error, read_json
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.design import Design, design
 from benchfit.loop.loopgain import LoopPlant, plant_from_measured_loop
@@ -156,7 +156,7 @@ def load_plant(path: str | os.PathLike, sensing: Sensing | None = None,
     if str(path).lower().endswith(".json"):
         d = read_json(path)
         kind = d.get("kind")
-        try:
+        with malformed_as_input_error(path, "JSON file"):
             if kind == "fit_result" or ("model" in d and "parameters" in d):
                 obj = FitResult.from_dict(d)
             elif kind == "frequency_response" or "freq_hz" in d:
@@ -166,8 +166,6 @@ def load_plant(path: str | os.PathLike, sensing: Sensing | None = None,
             else:
                 raise InputError(f"JSON of kind {kind!r} is not a plant; expected a model, a fit "
                                  "result or a frequency response")
-        except InputError as e:
-            raise InputError(e.message, source=str(path)) from None
     else:
         obj = read_sweep(path, trace=trace)
     if existing is not None:

@@ -21,7 +21,7 @@ import numpy as np
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError
-from benchfit.fileio import read_json
+from benchfit.fileio import malformed_as_input_error, read_json
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.margins import Margins, margins_from_data, margins_of_model
 
@@ -64,7 +64,7 @@ def read_loop(path: str | os.PathLike, *, which: str = "snapped",
         return read_sweep(p, **read_options)
     d = read_json(p)
     kind = d.get("kind")
-    try:
+    with malformed_as_input_error(path, "JSON file"):
         if kind == "design":
             if which not in ("snapped", "ideal"):
                 raise InputError(f"{which!r}: expected 'snapped' or 'ideal'")
@@ -78,8 +78,6 @@ def read_loop(path: str | os.PathLike, *, which: str = "snapped",
             return FrequencyResponse.from_dict(d)
         if kind == "plant_model" or "poles" in d or isinstance(d.get("model"), dict):
             return PlantModel.from_dict(d)
-    except InputError as e:
-        raise InputError(e.message, source=str(path)) from None
     raise InputError(f"JSON of kind {kind!r} holds no loop gain; expected a model, a fit result, "
                      "a frequency response or a design", source=str(path))
 
