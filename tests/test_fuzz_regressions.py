@@ -24,3 +24,59 @@ def test_regression(tmp_path, reader, name, data, fragment):
     with pytest.raises(InputError) as e:
         reader(p)
     assert p.name in str(e.value) and fragment in str(e.value)
+
+
+def test_trace_with_one_headerless_row(tmp_path):
+    # read_trace: one row of numbers and no header hit steps.max() on an empty array
+    # (ValueError from numpy; found by test_damaged_exports)
+    p = tmp_path / "one.csv"
+    p.write_bytes(b"1.0,2.0\n")
+    with pytest.raises(InputError, match="one.csv.*sample-interval"):
+        read_trace(p)
+
+
+def test_trace_with_one_sample_names_the_file(tmp_path):
+    # read_trace: TimeTrace's "at least 2 samples" error did not name the file
+    p = tmp_path / "short.csv"
+    p.write_bytes(b"Time (s),CH1 (V)\n0,1\n")
+    with pytest.raises(InputError, match="short.csv"):
+        read_trace(p)
+
+
+def test_block_header_with_a_non_ascii_digit():
+    # parse_block: '#\xb9' ('¹' passes str.isdigit) raised ValueError from int()
+    # (found by test_random_bytes_as_block)
+    from benchfit.bench.blocks import MalformedReply, parse_block
+
+    with pytest.raises(MalformedReply, match="digit 1-9"):
+        parse_block(b"#\xb9", "real32")
+
+
+def test_profile_with_a_huge_integer(tmp_path):
+    # load_profile_file: timeout_s = 10**400 raised OverflowError in float()
+    # (found by test_damaged_profiles)
+    from benchfit.bench.profile import SHIPPED_DIR, load_profile_file
+
+    text = (SHIPPED_DIR / "generic-analyzer.toml").read_text(encoding="utf-8")
+    p = tmp_path / "huge.toml"
+    p.write_text(text.replace("timeout_s = 10.0", "timeout_s = " + "9" * 400), encoding="utf-8")
+    with pytest.raises(InputError, match="huge.toml.*too large"):
+        load_profile_file(p)
+
+
+@pytest.mark.parametrize("body", [
+    '{"kind": "plant_model", "zeros": true, "poles": [], "k": 1}',
+    '{"kind": "plant_model", "zeros": [], "poles": [], "k": [1]}',
+    '{"kind": "fit_result", "model": {"zeros": [], "poles": [], "k": 1}, "parameters": [1]}',
+    '{"kind": "fit_result", "model": {"zeros": [], "poles": [], "k": 1}, "parameters": [], "stats": [1]}',
+])
+def test_damaged_model_json(tmp_path, body):
+    # PlantModel/FitResult.from_json raised TypeError/ValueError (found by test_damaged_structure)
+    from benchfit.fitting.model import PlantModel
+    from benchfit.fitting.result import FitResult
+
+    p = tmp_path / "m.json"
+    p.write_text(body, encoding="utf-8")
+    reader = FitResult.from_json if "fit_result" in body else PlantModel.from_json
+    with pytest.raises(InputError, match="m.json"):
+        reader(p)

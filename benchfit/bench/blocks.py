@@ -78,7 +78,7 @@ def block_header(prefix: bytes, *, what: str = "reply") -> tuple[int, int]:
         raise MalformedReply(
             f"{what}: indefinite-length block (#0) received; set the instrument to "
             "definite-length blocks")
-    if not d.isdigit():
+    if d not in "123456789":  # ASCII only: str.isdigit() also accepts '¹', '٣'...
         raise MalformedReply(f"{what}: block header '#{d}': expected a digit 1-9 after '#'")
     nd = int(d)
     digits = prefix[2:2 + nd]

@@ -174,6 +174,8 @@ def _check_table(table: Any, allowed: dict[str, type], where: str, source: str) 
             raise InputError(f"unknown key {where}.{key}; expected one of {sorted(allowed)}", source=source)
         want = allowed[key]
         if want is float and isinstance(value, int) and not isinstance(value, bool):
+            if abs(value) > 2**53:  # TOML integers are unbounded; float() would overflow
+                raise InputError(f"{where}.{key} = {value}: number too large", source=source)
             value = float(value)
         if not isinstance(value, want) or (want is int and isinstance(value, bool)):
             raise InputError(f"{where}.{key} = {value!r}: expected a {want.__name__}", source=source)

@@ -240,7 +240,7 @@ def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
     if not names:
         first_col = block.data[:, 0]
         steps = np.diff(first_col)
-        if ncols >= 2 and np.all(steps > 0) and steps.max() <= 1.5 * steps.min():
+        if ncols >= 2 and steps.size and np.all(steps > 0) and steps.max() <= 1.5 * steps.min():
             time_col = 0  # an evenly rising first column is the time
             warnings.append("no header: took column 1 as time"
                             + ("" if time_unit else " in seconds (give time_unit if not)"))
@@ -274,8 +274,11 @@ def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
         "warnings": warnings,
         "notes": block.notes[:40],
     }
-    tr = TimeTrace(time_s=t, channels=channels, meta=meta,
-                   provenance=Provenance(step="read_trace", sources=(source,), settings=settings))
+    try:
+        tr = TimeTrace(time_s=t, channels=channels, meta=meta,
+                       provenance=Provenance(step="read_trace", sources=(source,), settings=settings))
+    except InputError as e:  # e.g. a single sample: name the file
+        raise InputError(e.message, source=source) from None
     return _pick(tr, channel) if channel is not None else tr
 
 
