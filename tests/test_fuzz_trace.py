@@ -37,7 +37,7 @@ def exports(draw):
         return s.replace(".", ",") if dec == "," else s
 
     lines = []
-    names = [f"CH{i + 1}" + (f" (mV)" if sep != " " and i == 1 else "") for i in range(nch)]
+    names = [f"CH{i + 1}" + (" (mV)" if sep != " " and i == 1 else "") for i in range(nch)]
     if draw(st.booleans()):
         names = ["Time (s)" if sep != " " else "time_s", *names]
         rows = [[num((k - pre) * dt), *map(num, vals[k])] for k in range(n)]
