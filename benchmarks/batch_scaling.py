@@ -168,16 +168,18 @@ def main() -> None:
             growth = max(last[2] - first[2], last[4] - first[4])
             print(f"  {w} workers: peak growth from {first[0]} to {last[0]} sweeps {growth:+.1f} MiB")
 
-        # Planning: per-sweep cost of one worker, scaled by the efficiency measured at the
-        # largest worker count here (assumes the cluster's cores are like this machine's and
-        # that efficiency holds; Dask adds roughly a millisecond of scheduling per task,
-        # a figure from memory of its documentation, negligible against a fit).
-        per = one / len(files)
+        # Planning: the CPU cost of one sweep on a dedicated core (CPU time of the first run,
+        # which other load on this machine does not inflate as it does wall time), scaled by
+        # the CPU-time ratio of the largest worker count (the parallel overhead).  Assumes the
+        # cluster's cores are like this machine's; Dask adds roughly a millisecond of
+        # scheduling per task, a figure from memory of its documentation, negligible here.
+        per = cpu[counts[0]] / len(files)
         wmax = counts[-1]
-        eff = min(1.0, (one / results[wmax].seconds) / wmax) if wmax > 1 else 1.0
+        eff = min(1.0, cpu[counts[0]] / cpu[wmax]) if wmax > 1 else 1.0
         sizes = (1_000, 10_000, 100_000)
         cores = (1, 2, 8, 32, 128)
-        print(f"\nplanning estimate: {1e3 * per:.0f} ms per sweep per core, efficiency {eff:.2f}")
+        print(f"\nplanning estimate: {1e3 * per:.0f} ms CPU per sweep per dedicated core, "
+              f"parallel efficiency {eff:.2f} (CPU-time ratio at {wmax} workers)")
         print("  lot size " + "".join(f"{c:>10d} cores" for c in cores))
         for n in sizes:
             cells = []
