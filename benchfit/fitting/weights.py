@@ -74,7 +74,7 @@ def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
         Optional known relative σ shape; the scatter then fixes only its scale.
     """
     n = x.shape[0]
-    if n < 4:
+    if n < 5:  # fewer than two third differences: the padding below would come out short
         return np.full(n, SIGMA_MIN)
     d3 = np.abs(_diff3(x)) / np.sqrt(20.0)
     if rel is not None:
