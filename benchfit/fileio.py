@@ -31,8 +31,13 @@ def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     """
     path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
-    folder.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    if path.is_dir():
+        raise InputError("is a folder; expected the name of a file to write", source=str(path))
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    except OSError as e:  # read-only folder, a file where a folder should be...
+        raise InputError(f"cannot write here: {e.strerror}", source=str(path)) from None
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
