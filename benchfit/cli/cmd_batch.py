@@ -63,7 +63,9 @@ def run(args: argparse.Namespace) -> int:
         limits=read_limits(args.limits) if args.limits else Limits(),
         params=tuple(args.param))
     rows_csv = rows_path_for(out)
-    files = find_sweeps(args.lot, exclude=[out, rows_csv])
+    # the lot's own inputs and outputs may sit in its folder; they are not sweeps
+    own = [p for p in (out, rows_csv, args.design, args.summary) if p]
+    files = find_sweeps(args.lot, exclude=own)
     run_info = run_lot(files, settings, out, workers=args.workers, dask=args.dask,
                        resume=args.resume, progress=None if args.quiet else sys.stderr)
     _, rows = read_table(rows_csv)
