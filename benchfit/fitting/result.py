@@ -198,8 +198,9 @@ class FitResult:
             f" ({st.get('iterations')} VF iterations, {st.get('evaluations', 0)} refinement evaluations)",
         ]
         if self.order_scan:
-            scan = ", ".join(f"{d['order']}:{d['rms_db']:.2g}dB" for d in self.order_scan)
-            lines.append(f"  order scan (order:rms) {scan}")
+            scan = ", ".join(f"{d['order']}{'+τ' if d.get('delay_s') else ''}:{d['rms_db']:.2g}dB"
+                             for d in self.order_scan)
+            lines.append(f"  order scan (order[+τ: with delay]:rms) {scan}")
         if warnings:
             lines += [f"  warning: {w}" for w in self.warnings]
         return "\n".join(lines)
