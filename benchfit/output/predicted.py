@@ -138,4 +138,7 @@ def read_model_or_sweep(path: str) -> PlantModel | FrequencyResponse:
             return PlantModel.from_dict(d)
         except InputError as e:
             raise InputError(e.message, source=str(path)) from None
+        except (KeyError, TypeError, ValueError, AttributeError, IndexError) as e:
+            raise InputError(f"model file is incomplete or malformed ({type(e).__name__}: {e})",
+                             source=str(path)) from None
     return read_sweep(path)

@@ -261,28 +261,29 @@ def model_from_file(path: str | os.PathLike, part: str = "plant") -> PlantModel:
         When the file holds no such model (e.g. the plant of a design made
         from measured data, which has no model).
     """
-    from benchfit.fileio import read_json
+    from benchfit.fileio import malformed_as_input_error, read_json
 
     d = read_json(path)
-    if d.get("kind") != "design":
+    with malformed_as_input_error(path, "model or design file"):
+        if d.get("kind") != "design":
+            try:
+                return PlantModel.from_dict(d)
+            except InputError as e:
+                raise InputError(e.message, source=str(path)) from None
+        if part not in DESIGN_PARTS:
+            raise InputError(f"{part!r}; expected one of {', '.join(DESIGN_PARTS)}", source="--part")
+        which = "ideal" if part.endswith("-ideal") else "snapped"
+        base = part.removesuffix("-ideal")
+        if base == "plant":
+            obj = d.get("plant")
+        elif base == "compensator":
+            obj = (d.get("compensator") or {}).get(which)
+        else:
+            obj = (d.get("loop_model") or {}).get(which)
+        if not isinstance(obj, dict) or "poles" not in obj:
+            what = "measured data, not a model" if base in ("plant", "loop") else "missing"
+            raise InputError(f"the design's {part} is {what}; nothing to export", source=str(path))
         try:
-            return PlantModel.from_dict(d)
+            return PlantModel.from_dict(obj)
         except InputError as e:
-            raise InputError(e.message, source=str(path)) from None
-    if part not in DESIGN_PARTS:
-        raise InputError(f"{part!r}; expected one of {', '.join(DESIGN_PARTS)}", source="--part")
-    which = "ideal" if part.endswith("-ideal") else "snapped"
-    base = part.removesuffix("-ideal")
-    if base == "plant":
-        obj = d.get("plant")
-    elif base == "compensator":
-        obj = (d.get("compensator") or {}).get(which)
-    else:
-        obj = (d.get("loop_model") or {}).get(which)
-    if not isinstance(obj, dict) or "poles" not in obj:
-        what = "measured data, not a model" if base in ("plant", "loop") else "missing"
-        raise InputError(f"the design's {part} is {what}; nothing to export", source=str(path))
-    try:
-        return PlantModel.from_dict(obj)
-    except InputError as e:
-        raise InputError(f"{part}: {e.message}", source=str(path)) from None
+            raise InputError(f"{part}: {e.message}", source=str(path)) from None

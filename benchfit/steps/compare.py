@@ -96,6 +96,9 @@ def read_loop_gain(path) -> tuple[PlantModel, dict[str, Any] | None, str]:
         if e.source is None:
             raise InputError(e.message, source=str(path)) from None
         raise
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as e:
+        raise InputError(f"loop file is incomplete or malformed ({type(e).__name__}: {e})",
+                         source=str(path)) from None
 
 
 def _row(q, unit, measured, predicted):
