@@ -85,12 +85,16 @@ def decode_complex(pairs: Any, *, what: str = "value") -> np.ndarray:
     """List of ``[re, im]`` pairs (or plain reals) -> complex numpy array."""
     out = []
     for p in pairs or []:
-        if isinstance(p, (int, float)):
-            out.append(complex(p, 0.0))
-        elif isinstance(p, (list, tuple)) and len(p) == 2:
-            out.append(complex(float(p[0]), float(p[1])))
-        else:
-            raise InputError(f"{what}: expected [re, im] pairs, found {p!r}")
+        try:
+            if isinstance(p, (int, float)) and not isinstance(p, bool):
+                out.append(complex(p, 0.0))
+                continue
+            if isinstance(p, (list, tuple)) and len(p) == 2:
+                out.append(complex(float(p[0]), float(p[1])))
+                continue
+        except (TypeError, ValueError, OverflowError):
+            pass
+        raise InputError(f"{what}: expected [re, im] pairs of numbers, found {str(p)[:60]}")
     return np.asarray(out, dtype=complex)
 
 
@@ -177,7 +181,7 @@ def malformed_as_input_error(source: str | os.PathLike, what: str = "file") -> I
         if e.source is None:
             raise InputError(e.message, source=str(source), line=e.line, column=e.column) from None
         raise
-    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as e:
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError, OverflowError) as e:
         raise InputError(f"{what} is incomplete or malformed ({type(e).__name__}: {e}); "
                          "expected a file written by benchfit", source=str(source)) from None
 

@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from benchfit import __version__
+from benchfit.errors import InputError
 
 
 def _now() -> str:
@@ -57,14 +58,17 @@ class Provenance:
     def from_dict(cls, d: dict[str, Any] | None) -> Provenance:
         if not d:
             return cls(step="unknown")
-        return cls(
-            step=str(d.get("step", "unknown")),
-            sources=tuple(str(s) for s in d.get("sources", ())),
-            settings=dict(d.get("settings", {})),
-            parents=tuple(dict(p) for p in d.get("parents", ())),
-            version=str(d.get("version", "unknown")),
-            created=str(d.get("created", "")),
-        )
+        try:
+            return cls(
+                step=str(d.get("step", "unknown")),
+                sources=tuple(str(s) for s in d.get("sources", ())),
+                settings=dict(d.get("settings", {})),
+                parents=tuple(dict(p) for p in d.get("parents", ())),
+                version=str(d.get("version", "unknown")),
+                created=str(d.get("created", "")),
+            )
+        except (TypeError, ValueError, AttributeError) as e:  # a damaged file's provenance
+            raise InputError(f"provenance is malformed ({type(e).__name__}: {e})") from None
 
     def derive(self, step: str, settings: dict[str, Any] | None = None,
                sources: tuple[str, ...] | None = None) -> Provenance:

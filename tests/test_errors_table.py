@@ -56,7 +56,7 @@ def scratch(tmp_path_factory):
     noisy = m.response(f) * (1 + 0.01 * rng.standard_normal(f.size))
     # an analyzer export (not benchfit's own CSV): frequency, dB, degrees
     (d / "sweep.csv").write_text(HEAD + "".join(
-        f"{x:.6g},{20 * np.log10(abs(h)):.4f},{np.degrees(np.angle(h)):.3f}\n" for x, h in zip(f, noisy)))
+        f"{x:.6g},{20 * np.log10(abs(h)):.4f},{np.degrees(np.angle(h)):.3f}\n" for x, h in zip(f, noisy, strict=True)))
     (d / "folder").mkdir()
     (d / "lot").mkdir()
     write_sweep_csv(FrequencyResponse(freq_hz=f, response=noisy), d / "lot" / "unit1.csv")

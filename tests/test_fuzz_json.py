@@ -92,7 +92,7 @@ def damaged_doc(draw, doc):
             if draw(st.booleans()) and isinstance(parent, dict):
                 del parent[path[-1]]
             else:
-                parent[path[-1]] = draw(_WRONG)
+                parent[path[-1]] = json.loads(json.dumps(draw(_WRONG)))  # a fresh copy
         except (KeyError, IndexError, TypeError):
             continue  # an earlier change removed this path
     return doc

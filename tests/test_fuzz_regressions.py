@@ -80,3 +80,25 @@ def test_damaged_model_json(tmp_path, body):
     reader = FitResult.from_json if "fit_result" in body else PlantModel.from_json
     with pytest.raises(InputError, match="m.json"):
         reader(p)
+
+
+@pytest.mark.parametrize("line", ['# provenance: {"settings": [1]}', '# provenance: {"parents": 5}',
+                                  '# meta: [1, 2]'])
+def test_canonical_csv_with_a_damaged_header_line(tmp_path, line):
+    # read_sweep/read_trace of a canonical CSV: a provenance line holding valid JSON of the wrong
+    # shape raised ValueError from Provenance.from_dict (found by test_damaged_canonical_csv_fuzz)
+    p = tmp_path / "canon.csv"
+    p.write_text(f"# benchfit sweep v1\n{line}\nfreq_hz,re,im\n10,1,0\n20,1,0\n", encoding="utf-8")
+    with pytest.raises(InputError, match="canon.csv"):
+        read_sweep(p)
+
+
+def test_model_json_with_a_huge_integer(tmp_path):
+    # PlantModel.from_json: a 400-digit integer in 'zeros' raised OverflowError in float()
+    # (found by test_damaged_text_fuzz)
+    from benchfit.fitting.model import PlantModel
+
+    p = tmp_path / "m.json"
+    p.write_text('{"kind": "plant_model", "zeros": [[' + "9" * 400 + ', 0]], "poles": [], "k": 1}')
+    with pytest.raises(InputError, match="m.json.*zeros"):
+        PlantModel.from_json(p)

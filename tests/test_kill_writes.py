@@ -97,7 +97,7 @@ def inputs(tmp_path_factory):
     f = np.logspace(1, 6, 150)
     h = _plant().response(f)
     (d / "sweep.csv").write_text("Frequency (Hz),Gain (dB),Phase (deg)\n" + "".join(
-        f"{x:.9g},{20 * np.log10(abs(v)):.6f},{np.degrees(np.angle(v)):.5f}\n" for x, v in zip(f, h)))
+        f"{x:.9g},{20 * np.log10(abs(v)):.6f},{np.degrees(np.angle(v)):.5f}\n" for x, v in zip(f, h, strict=True)))
     (d / "lot").mkdir()
     (d / "lot" / "unit1.csv").write_bytes((d / "sweep.csv").read_bytes())
     _plant().to_json(d / "model.json")

@@ -79,6 +79,16 @@ def write_trace_csv(trace: TimeTrace, path: str | os.PathLike) -> Path:
     return write_text_atomic(path, trace_csv_text(trace))
 
 
+def _provenance(fields: dict, source: str) -> Provenance | None:
+    """The provenance header line, if any; a damaged one names the file."""
+    if not fields.get("provenance"):
+        return None
+    try:
+        return Provenance.from_dict(fields["provenance"])
+    except InputError as e:
+        raise InputError(e.message, source=source) from None
+
+
 def _header(lines: list[str], source: str) -> tuple[dict, int]:
     """Parse the '# key: value' lines; return (fields, index of the column-name line)."""
     fields: dict[str, object] = {}
@@ -91,6 +101,8 @@ def _header(lines: list[str], source: str) -> tuple[dict, int]:
                 fields[key] = json.loads(value)
             except json.JSONDecodeError:
                 raise InputError(f"'# {key}:' is not one JSON object", source=source, line=i + 1) from None
+            if not isinstance(fields[key], dict):
+                raise InputError(f"'# {key}:' is not one JSON object", source=source, line=i + 1)
         else:
             fields[key] = value
         i += 1
@@ -131,7 +143,7 @@ def read_canonical_sweep(path: str | os.PathLike, text: str | None = None) -> Fr
         raise InputError(f"columns {cols} ; expected freq_hz,re,im first", source=source, line=hline + 1)
     a = _rows(lines, hline + 1, len(cols), source)
     extra = {c: a[:, j] for j, c in enumerate(cols) if j >= 3}
-    prov = Provenance.from_dict(fields.get("provenance")) if fields.get("provenance") else None
+    prov = _provenance(fields, source)
     read_prov = Provenance(step="read_sweep", sources=(source,), settings={"dialect": "benchfit-canonical"},
                            parents=(prov.to_dict(),) if prov else ())
     try:
@@ -158,7 +170,7 @@ def read_canonical_trace(path: str | os.PathLike, text: str | None = None) -> Ti
     if cols[0] != "time_s" or len(cols) < 2:
         raise InputError(f"columns {cols}; expected time_s then channels", source=source, line=hline + 1)
     a = _rows(lines, hline + 1, len(cols), source)
-    prov = Provenance.from_dict(fields.get("provenance")) if fields.get("provenance") else None
+    prov = _provenance(fields, source)
     try:
         return TimeTrace(
             time_s=a[:, 0], channels={c: a[:, j + 1] for j, c in enumerate(cols[1:])},
