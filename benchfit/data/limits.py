@@ -1,7 +1,7 @@
 """Size limits of the text readers, checked before a file is loaded.
 
 The readers hold a file's text and one Python string per line while they
-work out its layout, so their memory grows with the file (about 350 bytes per
+work out its layout, so their memory grows with the file (about 400 bytes per
 line of a three-column sweep).  Above these limits a file is refused with a
 clear message instead of exhausting the machine; the check itself streams the
 file in 1 MiB pieces and holds nothing.  Both limits can be raised with the
