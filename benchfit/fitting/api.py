@@ -12,7 +12,6 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import FitError, InputError
@@ -138,14 +137,19 @@ def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float) -> list[
     return out
 
 
-def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float) -> tuple[Structure, Refined, int]:
-    """Drop zeros above the band that the data do not need (likelihood-ratio test).
+def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int
+                 ) -> tuple[Structure, Refined, int]:
+    """Drop zeros above the band that the data do not need.
 
     A group is dropped when the rise of chi-square, in units of the reduced
-    chi-square, stays under the 95 % point of chi2(number of parameters
-    dropped).  All of them are tried at once first, then one at a time
-    (highest frequency first).
+    chi-square, stays under Schwarz's penalty ln N per parameter dropped (the
+    same criterion that chooses delay or no delay, :func:`_bic`).  Above the
+    band a zero's phase, −ω/ω_z, is a delay's phase, so a plain 95 %
+    likelihood-ratio test (penalty 3.8 per parameter) let noise buy a spurious
+    zero that stole part of the delay and shrank its error bar.  All groups
+    are tried at once first, then one at a time (highest frequency first).
     """
+    penalty = float(np.log(n_res))
     dropped = 0
     while True:
         groups = _zero_groups_above(st, ref.values, f_max)
@@ -159,7 +163,7 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float) -> tuple[Stru
             st2, v2 = _without(st, ref.values, drop)
             ref2 = refit(st2, v2, max_nfev=40)
             dp = len(st.names) - len(st2.names)
-            if (ref2.chisqr - ref.chisqr) / ref.redchi <= stats.chi2.ppf(0.95, dp):
+            if (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
                 st, ref = st2, ref2
                 dropped += len(drop)
                 break
@@ -365,7 +369,7 @@ def _physical(att: Attempt, ctx: Context, f, delay, fixed, bounds, refit
     ref = refit(st, v0, max_nfev=40)
     n_drop = 0
     if not any(key.startswith("zero") for key in list(fixed) + list(bounds or {})):
-        st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1])
+        st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1], 2 * f.shape[0])
         if n_drop:
             notes.append(f"dropped {n_drop} zero(s) above the band that the data do not need")
     if not ref.success or n_drop:
