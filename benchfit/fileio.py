@@ -21,6 +21,12 @@ import numpy as np
 from benchfit.errors import InputError
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     """Write ``data`` to ``path`` atomically (temp file, fsync, rename).
 
