@@ -21,10 +21,14 @@ import numpy as np
 from benchfit.errors import InputError
 
 
-def _umask() -> int:
+def _read_umask() -> int:
     mask = os.umask(0)
     os.umask(mask)
     return mask
+
+
+# Read once at import: os.umask is process-wide, so changing it later could race with threads.
+_FILE_MODE = 0o666 & ~_read_umask()
 
 
 def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
@@ -45,6 +49,8 @@ def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     except OSError as e:  # read-only folder, a file where a folder should be...
         raise InputError(f"cannot write here: {e.strerror}", source=str(path)) from None
     try:
+        # mkstemp makes the file 0600; give it the mode an ordinary open() would.
+        os.fchmod(fd, _FILE_MODE)
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

@@ -62,9 +62,7 @@ def test_json_nonfinite_round_trip(tmp_path):
 
 def test_atomic_write_has_ordinary_file_mode(tmp_path):
     # A report or result table must be readable by colleagues like any file open() creates.
-    old = os.umask(0o022)
-    try:
-        write_json_atomic(tmp_path / "r.json", {"a": 1})
-    finally:
-        os.umask(old)
-    assert (tmp_path / "r.json").stat().st_mode & 0o777 == 0o644
+    mask = os.umask(0)
+    os.umask(mask)
+    write_json_atomic(tmp_path / "r.json", {"a": 1})
+    assert (tmp_path / "r.json").stat().st_mode & 0o777 == 0o666 & ~mask
