@@ -173,6 +173,8 @@ def read_json(path: str | os.PathLike) -> dict[str, Any]:
         obj = json.loads(text)
     except json.JSONDecodeError as e:
         raise InputError(f"not valid JSON ({e.msg})", source=str(path), line=e.lineno) from None
+    except (ValueError, RecursionError) as e:  # a number of over 4300 digits, nesting too deep
+        raise InputError(f"not valid JSON ({str(e)[:80]})", source=str(path)) from None
     if not isinstance(obj, dict):
         raise InputError("expected a JSON object at the top level", source=str(path))
     return obj

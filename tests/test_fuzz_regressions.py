@@ -102,3 +102,15 @@ def test_model_json_with_a_huge_integer(tmp_path):
     p.write_text('{"kind": "plant_model", "zeros": [[' + "9" * 400 + ', 0]], "poles": [], "k": 1}')
     with pytest.raises(InputError, match="m.json.*zeros"):
         PlantModel.from_json(p)
+
+
+@pytest.mark.parametrize("body", ["[" + "9" * 4301 + "]", "[" * 100_000 + "]" * 100_000])
+def test_json_that_python_refuses_to_parse(tmp_path, body):
+    # read_json: a 4301-digit integer raised ValueError (Python's int-string limit), not
+    # JSONDecodeError (found by test_damaged_text_fuzz); deep nesting raises RecursionError
+    from benchfit.fileio import read_json
+
+    p = tmp_path / "x.json"
+    p.write_text(body, encoding="utf-8")
+    with pytest.raises(InputError, match="x.json.*not valid JSON"):
+        read_json(p)
