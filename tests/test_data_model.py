@@ -4,8 +4,14 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from benchfit.data import FrequencyResponse, TimeTrace, read_canonical_sweep, read_canonical_trace
-from benchfit.data import write_sweep_csv, write_trace_csv
+from benchfit.data import (
+    FrequencyResponse,
+    TimeTrace,
+    read_canonical_sweep,
+    read_canonical_trace,
+    write_sweep_csv,
+    write_trace_csv,
+)
 from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
 
