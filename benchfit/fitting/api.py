@@ -171,6 +171,72 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int
             return st, ref, dropped
 
 
+#: A pole and a zero (or two pairs) closer than this fraction of their frequency nearly cancel.
+CANCEL = 0.01
+
+
+def _cancelling(st: Structure, values: np.ndarray) -> list[list[str]]:
+    """Pole/zero groups that nearly cancel, e.g. [["pair4", "zero_pair1"]], closest first.
+
+    Real poles are matched with real zeros of the same sign, pairs with zero pairs.
+    """
+    v = dict(zip(st.names, values, strict=True))
+    out = []
+    for p_kind, z_kind, key in (("pole", "zero", "_hz"), ("pair", "zero_pair", "_f0_hz")):
+        n_p = st.real_poles if p_kind == "pole" else st.pole_pairs
+        n_z = st.real_zeros if z_kind == "zero" else st.zero_pairs
+        for i in range(1, n_p + 1):
+            fp = v[f"{p_kind}{i}{key}"]
+            for j in range(1, n_z + 1):
+                fz = v[f"{z_kind}{j}{key}"]
+                d = abs(fp - fz) / abs(fp)
+                if d < CANCEL:
+                    out.append((d, [f"{p_kind}{i}", f"{z_kind}{j}"]))
+    return [g for _, g in sorted(out, key=lambda x: x[0])]
+
+
+def _narrower_than_spacing(st: Structure, values: np.ndarray, group: str,
+                           freq_hz: np.ndarray) -> bool:
+    """True if the pair ``group``'s bandwidth f0/|Q| is under the point spacing at f0.
+
+    Such a feature lives between two points (or on one): the sweep cannot
+    identify it, it can only fit that point's noise.
+    """
+    if not group.startswith(("pair", "zero_pair")):
+        return False
+    v = dict(zip(st.names, values, strict=True))
+    f0, q = abs(v[f"{group}_f0_hz"]), abs(v[f"{group}_q"])
+    spacing = float(np.interp(f0, freq_hz, np.gradient(freq_hz)))
+    return f0 / max(q, 1e-300) < spacing
+
+
+def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: np.ndarray
+                      ) -> tuple[Structure, Refined, int]:
+    """Drop pole/zero groups that nearly cancel when the data do not need them.
+
+    Inside the band such a pair (often with Q in the hundreds) fits a noise
+    spike, not the plant.  It is dropped outright when its bandwidth is under
+    the point spacing (:func:`_narrower_than_spacing`), otherwise by the rule
+    of :func:`_prune_zeros`: unless χ² rises by more than ln N per parameter
+    removed (Schwarz 1978).
+    """
+    penalty = float(np.log(n_res))
+    dropped = 0
+    while np.isfinite(ref.redchi) and ref.redchi > 0:
+        for drop in _cancelling(st, ref.values):
+            st2, v2 = _without(st, ref.values, drop)
+            ref2 = refit(st2, v2, max_nfev=40)
+            dp = len(st.names) - len(st2.names)
+            narrow = all(_narrower_than_spacing(st, ref.values, g, freq_hz) for g in drop)
+            if narrow or (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
+                st, ref = st2, ref2
+                dropped += 1
+                break
+        else:
+            break
+    return st, ref, dropped
+
+
 def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, bool]:
     """Direct/proportional terms from the magnitude slope at the top of the band."""
     n = f.shape[0]
@@ -372,6 +438,13 @@ def _physical(att: Attempt, ctx: Context, f, delay, fixed, bounds, refit
         st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1], 2 * f.shape[0])
         if n_drop:
             notes.append(f"dropped {n_drop} zero(s) above the band that the data do not need")
+    held = list(fixed) + list(bounds or {})
+    if not any(key.startswith(("pole", "pair", "zero")) for key in held):
+        st, ref, n_cancel = _prune_cancelling(st, ref, refit, 2 * f.shape[0], f)
+        if n_cancel:
+            notes.append(f"dropped {n_cancel} nearly cancelling pole/zero group(s) that the "
+                         "data do not need")
+            n_drop += n_cancel
     if not ref.success or n_drop:
         ref = refit(st, ref.values)  # the capped runs above may have stopped short
     if fit_delay and "delay_s" not in fixed:
