@@ -156,19 +156,31 @@ def write_json_atomic(path: str | os.PathLike, obj: Any) -> Path:
     return write_text_atomic(path, to_json_text(obj) + "\n")
 
 
-def read_json(path: str | os.PathLike) -> dict[str, Any]:
-    """Read a JSON object from ``path``; bad files raise :class:`InputError`."""
-    p = Path(path)
+def read_text(path: str | os.PathLike, *, expected: str = "a text file") -> str:
+    """Read a UTF-8 text file (BOM allowed); a missing, folder or non-text file is an InputError.
+
+    Parameters
+    ----------
+    path
+        The file.
+    expected
+        What the file should be, for the message (e.g. "a JSON file").
+    """
     try:
-        text = p.read_text(encoding="utf-8-sig")
+        return Path(path).read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise InputError("file not found", source=str(path)) from None
     except IsADirectoryError:
-        raise InputError("is a folder, expected a JSON file", source=str(path)) from None
+        raise InputError(f"is a folder, expected {expected}", source=str(path)) from None
     except UnicodeDecodeError:
-        raise InputError("not UTF-8 text; expected a JSON file", source=str(path)) from None
+        raise InputError(f"not UTF-8 text; expected {expected}", source=str(path)) from None
     except OSError as e:
         raise InputError(f"cannot read: {e.strerror}", source=str(path)) from None
+
+
+def read_json(path: str | os.PathLike) -> dict[str, Any]:
+    """Read a JSON object from ``path``; bad files raise :class:`InputError`."""
+    text = read_text(path, expected="a JSON file")
     try:
         obj = json.loads(text)
     except json.JSONDecodeError as e:

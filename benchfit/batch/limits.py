@@ -29,10 +29,10 @@ import os
 import re
 import tomllib
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any
 
 from benchfit.errors import InputError
+from benchfit.fileio import read_text
 from benchfit.provenance import Provenance
 
 #: margins-table key -> (row column, sense, plain name for the reason text)
@@ -234,13 +234,7 @@ def parse_limits(text: str, source: str = "<limits>") -> Limits:
 
 def read_limits(path: str | os.PathLike) -> Limits:
     """Read a limits TOML file; problems raise :class:`InputError` naming file, line and key."""
-    p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise InputError("file not found", source=str(path)) from None
-    except (OSError, UnicodeDecodeError) as e:
-        raise InputError(f"cannot read as UTF-8 text ({e})", source=str(path)) from None
+    text = read_text(path, expected="a limits TOML file")
     return parse_limits(text, source=str(path))
 
 

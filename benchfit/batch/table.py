@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from benchfit.errors import InputError
-from benchfit.fileio import write_bytes_atomic
+from benchfit.fileio import read_text, write_bytes_atomic
 
 #: Base columns and their types (str, int, float, bool), in file order.
 BASE_COLUMNS: tuple[tuple[str, type], ...] = (
@@ -156,13 +156,7 @@ def read_table(path: str | os.PathLike) -> tuple[list[str], list[dict[str, Any]]
         When the file is not a result table (first column not ``file``) or a
         line has the wrong number of cells.
     """
-    p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found", source=str(path)) from None
-    except (OSError, UnicodeDecodeError) as e:
-        raise InputError(f"cannot read ({e})", source=str(path)) from None
+    text = read_text(path, expected="a result table (CSV)")
     reader = csv.reader(io.StringIO(text))
     try:
         cols = next(reader)
