@@ -109,6 +109,6 @@ def test_the_table_covers_the_kinds_of_mistake():
     text = DOC.read_text(encoding="utf-8")
     for kind in ("wrong file name", "wrong units", "a word where a number belongs",
                  "too few points for the order", "never crosses 0 dB", "does not answer",
-                 "design file", "limits file", "profile"):
+                 "design file", "limits file", "profile", "crossover outside the plant's band"):
         assert kind in text, kind
     assert len(_rows()) >= 30

@@ -368,6 +368,40 @@ class _Placer:
                          rate_of_closure_db=roc, notes=tuple(notes))
 
 
+def common_band(corners: Sequence[LoopPlant]) -> tuple[float, float]:
+    """The band (Hz) every corner's plant is known on: highest low edge, lowest high edge."""
+    return max(lp.band_hz[0] for lp in corners), min(lp.band_hz[1] for lp in corners)
+
+
+def check_crossover_in_band(fc_hz: float, corners: Sequence[LoopPlant]) -> None:
+    """Refuse a requested crossover outside the band the plant(s) are known on.
+
+    Outside its fit band (or sweep span) a fitted model is an extrapolation and
+    a sweep has no data: a network placed there is placed on a guess, and the
+    loop it predicts can be anything (a crossover at 5 GHz on a 1 MHz fit
+    gave an unstable loop with sub-femtofarad parts).  The band is the same
+    one the automatic crossover searches.
+
+    Raises
+    ------
+    DesignError
+        Naming ``--crossover``, the value asked and the band allowed.
+    """
+    lo, hi = common_band(corners)
+    if lo * (1 - 1e-9) <= fc_hz <= hi * (1 + 1e-9):
+        return
+    which = "above" if fc_hz > hi else "below"
+    side, limit = (1, hi) if which == "above" else (0, lo)
+    edge = [lp.name for lp in corners if lp.band_hz[side] == limit]  # the corner(s) setting it
+    span = ("the band every plant is known on" if len(corners) > 1
+            else "the band the plant is known on")
+    raise DesignError(
+        f"--crossover {fc_hz:.4g} Hz is {which} {span}, {lo:.4g}..{hi:.4g} Hz (set by "
+        f"{', '.join(edge)}: fit band, sweep span, or two decades past a bare model's poles and "
+        "zeros); choose a crossover inside it, or measure and fit the plant over a band that "
+        "holds it")
+
+
 def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Targets, *,
                method: str = "k-factor", r_in: float = 10e3, opamp: OpAmp | None = None,
                candidates: int = 80) -> Synthesis:
@@ -400,7 +434,8 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
     ------
     DesignError
         When no crossover in the plants' common band meets the targets
-        (automatic), or the network cannot give the boost needed (given crossover).
+        (automatic), the given crossover lies outside that band, or the
+        network cannot give the boost needed (given crossover).
     """
     kind = check_kind(kind)
     if method not in METHODS:
@@ -423,6 +458,7 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
 
     if targets.crossover_hz is not None:
         fc = float(targets.crossover_hz)
+        check_crossover_in_band(fc, corners)
         res, pm, gm, fallback = placer.at(fc)
         if res is not None:
             return finish(res, [])
@@ -434,8 +470,7 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
         why = (f"worst phase margin {pm:.1f}°, worst gain margin {gm:.1f} dB" if np.isfinite(pm)
                else "the closed loop is unstable or crosses over elsewhere on some plant")
         return finish(fallback, [f"targets not met at {fc:.4g} Hz: {why}"])
-    lo = max(lp.band_hz[0] for lp in corners)
-    hi = min(lp.band_hz[1] for lp in corners)
+    lo, hi = common_band(corners)
     if opamp is not None:
         hi = min(hi, opamp.gbw_hz)
     if not hi > lo * 1.01:
