@@ -114,9 +114,9 @@ def _options(line: str, source: str, lineno: int) -> dict:
             except ValueError:
                 raise InputError(f"option line: reference resistance {toks[i + 1]!r} is not a number",
                                  source=source, line=lineno) from None
-            if not opts["r_ohm"] > 0:
-                raise InputError(f"option line: reference resistance {toks[i + 1]} must be > 0",
-                                 source=source, line=lineno)
+            if not (np.isfinite(opts["r_ohm"]) and opts["r_ohm"] > 0):
+                raise InputError(f"option line: reference resistance {toks[i + 1]} must be a "
+                                 "finite number > 0", source=source, line=lineno)
             i += 1
         else:
             raise InputError(
@@ -154,8 +154,12 @@ def _fast_table(lines: list[str], m: int) -> np.ndarray | None:
     return table
 
 
-def _slow_table(lines: list[str], line_no: list[int], ports: int, m: int, source: str) -> np.ndarray:
-    """Token by token, with line numbers for errors; stops at two-port noise data."""
+def _slow_table(lines: list[str], line_no: list[int], ports: int, m: int,
+                source: str) -> tuple[np.ndarray, list[int]]:
+    """Token by token, with line numbers for errors; stops at two-port noise data.
+
+    Returns the table and, for each row, the line its frequency is on.
+    """
     values: list[float] = []
     counts: list[int] = []
     where: list[int] = []
@@ -177,8 +181,8 @@ def _slow_table(lines: list[str], line_no: list[int], ports: int, m: int, source
         if arr.size % m:
             raise InputError(f"{arr.size} values do not make whole points of {m} values each",
                              source=source, line=where[-1])
-        return arr.reshape(-1, m)
-    rows, last_f, pos = [], -np.inf, 0
+        return arr.reshape(-1, m), where[::m]
+    rows, rows_at, last_f, pos = [], [], -np.inf, 0
     for k, count in zip(line_no, counts, strict=True):
         if ports == 2 and count == 5 and rows and arr[pos] <= last_f:
             break  # noise parameters begin
@@ -186,9 +190,10 @@ def _slow_table(lines: list[str], line_no: list[int], ports: int, m: int, source
             raise InputError(f"{count} values, expected {m} (frequency + {m - 1} for a "
                              f"{ports}-port)", source=source, line=k)
         rows.append(arr[pos:pos + m])
+        rows_at.append(k)
         last_f = arr[pos]
         pos += count
-    return np.vstack(rows)
+    return np.vstack(rows), rows_at
 
 
 def read_touchstone(text: str, source: str, *, param: str | None = None,
@@ -242,25 +247,61 @@ def read_touchstone(text: str, source: str, *, param: str | None = None,
                              "name the file .s1p / .s2p / .sNp", source=source, line=data_no[0])
     m = 1 + 2 * ports * ports
     table = _fast_table(data_lines, m) if ports <= 2 else None
+    row_line = data_no
     if table is None:
-        table = _slow_table(data_lines, data_no, ports, m, source)
-    freq = table[:, 0] * _FREQ[opts["freq_unit"].lower()]
-    a, b = table[:, 1::2], table[:, 2::2]
-    fmt = opts["format"]
-    if fmt == "RI":
-        vals = a + 1j * b
-    elif fmt == "MA":
-        vals = a * np.exp(1j * np.radians(b))
-    else:
-        vals = 10.0 ** (a / 20.0) * np.exp(1j * np.radians(b))
+        table, row_line = _slow_table(data_lines, data_no, ports, m, source)
     kind = opts["parameter"]
     if param is None:
         param = f"{kind}21" if ports == 2 else f"{kind}11"
     i, j, name = _param_index(param, ports, kind, source)
     col = (j * 2 + i) if ports == 2 else (i * ports + j)
-    v = vals[:, col]
-    if kind == "Z":
-        v = v * opts["r_ohm"]
-    elif kind == "Y":
-        v = v / opts["r_ohm"]
+    freq, v = _convert(table[:, 0], table[:, 1 + 2 * col], table[:, 2 + 2 * col], opts, name,
+                       source, row_line)
     return TouchstoneData(freq_hz=freq, values=v, ports=ports, options=opts, param=name)
+
+
+def _convert(f: np.ndarray, a: np.ndarray, b: np.ndarray, opts: dict, name: str, source: str,
+             row_line: list[int]) -> tuple[np.ndarray, np.ndarray]:
+    """Frequencies in Hz and complex values of one parameter, de-normalised.
+
+    Every number in the file is finite, but scaling can still overflow (1e300
+    GHz, 7000 dB, a Z value times a huge R, a Y value over a tiny R).  numpy
+    would say so with a RuntimeWarning on the terminal and go on with inf;
+    here the first such row is an InputError naming its line instead.
+    """
+    unit = opts["freq_unit"]
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
+        freq = f * _FREQ[unit.lower()]
+        bad = np.flatnonzero(~np.isfinite(freq))
+        if bad.size:
+            k = int(bad[0])
+            raise InputError(f"frequency {f[k]:g} {unit} is too large to represent in Hz; "
+                             "check the unit on the option line", source=source, line=row_line[k])
+        rot = np.exp(1j * np.radians(b))
+        fmt = opts["format"]
+        if fmt == "RI":
+            v = a + 1j * b
+        elif fmt == "MA":
+            v = a * rot
+        else:
+            mag = 10.0 ** (a / 20.0)
+            bad = np.flatnonzero(~np.isfinite(mag))
+            if bad.size:
+                k = int(bad[0])
+                raise InputError(f"{name} magnitude {a[k]:g} dB overflows; expected a value "
+                                 "below about 6000 dB", source=source, line=row_line[k])
+            v = mag * rot
+        r = opts["r_ohm"]
+        if opts["parameter"] == "Z":
+            v, how = v * r, f"times R = {r:g} ohm"
+        elif opts["parameter"] == "Y":
+            v, how = v / r, f"divided by R = {r:g} ohm"
+        else:
+            how = ""
+        bad = np.flatnonzero(~np.isfinite(v))
+        if bad.size:
+            k = int(bad[0])
+            raise InputError(f"{name} value at {freq[k]:g} Hz {how + ' ' if how else ''}overflows "
+                             "(too large to represent); check the option line's R and the data",
+                             source=source, line=row_line[k])
+    return freq, v
