@@ -26,6 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from benchfit.data.units import freq_to_hz
 from benchfit.errors import InputError
 
 _EXT = re.compile(r"\.s(\d+)p$", re.IGNORECASE)
@@ -269,14 +270,8 @@ def _convert(f: np.ndarray, a: np.ndarray, b: np.ndarray, opts: dict, name: str,
     would say so with a RuntimeWarning on the terminal and go on with inf;
     here the first such row is an InputError naming its line instead.
     """
-    unit = opts["freq_unit"]
+    freq = freq_to_hz(f, opts["freq_unit"], source=source, lines=row_line)
     with np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
-        freq = f * _FREQ[unit.lower()]
-        bad = np.flatnonzero(~np.isfinite(freq))
-        if bad.size:
-            k = int(bad[0])
-            raise InputError(f"frequency {f[k]:g} {unit} is too large to represent in Hz; "
-                             "check the unit on the option line", source=source, line=row_line[k])
         rot = np.exp(1j * np.radians(b))
         fmt = opts["format"]
         if fmt == "RI":

@@ -8,6 +8,9 @@ Instruments write units in column names (``Frequency (kHz)``, ``t/ms``,
 from __future__ import annotations
 
 import re
+from collections.abc import Sequence
+
+import numpy as np
 
 from benchfit.errors import InputError
 
@@ -51,6 +54,38 @@ def freq_factor(word: str, *, exact_case: bool = True) -> float:
     except KeyError:
         raise InputError(f"{word!r} is not a frequency unit; expected Hz, kHz, MHz or GHz",
                          source="--freq-unit") from None
+
+
+def freq_to_hz(values: np.ndarray, unit: str, *, source: str, lines: Sequence[int],
+               column: str | int | None = None) -> np.ndarray:
+    """Frequencies written in ``unit`` converted to Hz, refusing any that overflow.
+
+    ``1e300 GHz`` is a finite number in the file but not in Hz; numpy would print
+    a RuntimeWarning and carry on with inf.  Here the first such value is an
+    InputError naming the file, its line and column.
+
+    Parameters
+    ----------
+    values
+        Frequencies as written, in ``unit``.
+    unit
+        A frequency unit word ('GHz'; 'mHz' is millihertz).
+    source
+        File name, for the message.
+    lines
+        1-based line number of each value.
+    column
+        Column name or index, when there is one.
+    """
+    v = np.asarray(values, dtype=float)
+    with np.errstate(over="ignore", invalid="ignore"):
+        hz = v * freq_factor(unit)
+    bad = np.flatnonzero(~np.isfinite(hz))
+    if bad.size:
+        k = int(bad[0])
+        raise InputError(f"frequency {v[k]:g} {unit} is too large to represent in Hz; check the "
+                         "frequency unit", source=source, line=int(lines[k]), column=column)
+    return hz
 
 
 def freq_unit_name(word: str, *, exact_case: bool = True) -> str:
