@@ -82,7 +82,9 @@ def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
         scale = _MAD * np.median(d3 / r)
         return np.maximum(scale * rel, SIGMA_MIN)
     d3 = np.concatenate([d3[:1], d3, d3[-2:]])
-    local = _MAD * ndimage.median_filter(d3, size=_window(n), mode="nearest")
+    # "mirror", not "nearest": padding by repeating the end value would make half
+    # of an end window one sample, so the ends' σ was one third difference's luck.
+    local = _MAD * ndimage.median_filter(d3, size=_window(n), mode="mirror")
     glob = _MAD * np.median(d3)
     # A local estimate far below the global one is curvature luck, not a quieter meter.
     return np.maximum(np.maximum(local, 0.3 * glob), SIGMA_MIN)
