@@ -15,7 +15,12 @@ import numpy as np
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import FitError, InputError
-from benchfit.fitting.delay import delay_stepper, excess_phase_delay, refine_delay
+from benchfit.fitting.delay import (
+    choose_delay_order,
+    delay_stepper,
+    excess_phase_delay,
+    refine_delay,
+)
 from benchfit.fitting.model import PlantModel
 from benchfit.fitting.order import (
     CHI_OK,
@@ -28,14 +33,17 @@ from benchfit.fitting.order import (
     polish,
     settle,
 )
-from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk, to_zpk
+from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk, response, to_zpk
 from benchfit.fitting.refine import Refined, log_residual, refine
 from benchfit.fitting.result import FitResult, Parameter
 from benchfit.fitting.vectfit import vf_to_zpk
-from benchfit.fitting.weights import point_sigma, scatter_sigma, vf_weight
+from benchfit.fitting.weights import PointSigma, point_sigma, scatter_sigma, vf_weight
 
 #: Zeros beyond this multiple of the top frequency are dropped (not identifiable in band).
 ZERO_LIMIT = 3.0
+#: With a fitted delay, right-half-plane zeros above this fraction of the top frequency
+#: are tested for dropping like zeros above the band (see _zero_groups_above).
+RHP_NEAR_TOP = 1.0 / 3.0
 #: A delay whose phase at f_max is below this (rad) is not worth a parameter.
 DELAY_MIN_PHASE = 0.05
 #: Residual above this multiple of the noise floor gets a warning (common practice, no source).
@@ -126,18 +134,53 @@ def _without(st: Structure, values: np.ndarray, drop: list[str]) -> tuple[Struct
     return st2, np.asarray(values)[keep]
 
 
-def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float) -> list[tuple[str, float]]:
-    """(group, |frequency|) of zeros above the band, e.g. ("zero2", 3e7), ("zero_pair1", 2e7)."""
+def _dropped_phase_as_delay(st: Structure, values: np.ndarray, drop: list[str],
+                            w: np.ndarray) -> float:
+    """The delay (s) whose phase −ωτ best matches, over ``w`` (rad/s), the phase of
+    the zero groups ``drop``.
+
+    Above the band a zero's phase is nearly linear in ω, a delay's phase; so
+    when the pruning drops such zeros from a model with a delay, the delay
+    takes over their phase and the refinement starts next to its optimum
+    rather than a wrapped phase away from it.
+    """
+    v = dict(zip(st.names, values, strict=True))
+    phase = np.zeros_like(w)
+    for g in drop:
+        if g.startswith("zero_pair"):
+            w0, q = TWO_PI * v[f"{g}_f0_hz"], v[f"{g}_q"]
+            phase += np.unwrap(np.arctan2(w / (w0 * q), 1.0 - (w / w0) ** 2))
+        else:
+            phase += np.arctan(w / (TWO_PI * v[f"{g}_hz"]))
+    return float(-np.dot(w, phase) / np.dot(w, w))
+
+
+def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float,
+                       rhp_from: float | None = None) -> list[tuple[str, float]]:
+    """(group, |frequency|) of zeros above the band, e.g. ("zero2", 3e7), ("zero_pair1", 2e7).
+
+    With ``rhp_from`` (Hz), right-half-plane zeros above that frequency are
+    listed too: with a delay in the model they are the delay's look-alikes
+    (phase lag growing with frequency) and must earn their place the same way.
+    """
+    v = dict(zip(st.names, values, strict=True))
     out = []
-    for nm, v in zip(st.names, values, strict=True):
-        if nm.startswith("zero_pair") and nm.endswith("_f0_hz") and abs(v) > f_max:
-            out.append((nm[: -len("_f0_hz")], abs(v)))
-        elif nm.startswith("zero") and not nm.startswith("zero_pair") and abs(v) > f_max:
-            out.append((nm[: -len("_hz")], abs(v)))
+    for nm, x in v.items():
+        if nm.startswith("zero_pair") and nm.endswith("_f0_hz"):
+            g = nm[: -len("_f0_hz")]
+            rhp = v[f"{g}_q"] < 0
+        elif nm.startswith("zero") and not nm.startswith("zero_pair"):
+            g = nm[: -len("_hz")]
+            rhp = x < 0
+        else:
+            continue
+        if abs(x) > f_max or (rhp_from is not None and rhp and abs(x) > rhp_from):
+            out.append((g, abs(x)))
     return out
 
 
-def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int
+def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
+                 w: np.ndarray | None = None, delay_free: bool = False
                  ) -> tuple[Structure, Refined, int]:
     """Drop zeros above the band that the data do not need.
 
@@ -148,11 +191,14 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int
     likelihood-ratio test (penalty 3.8 per parameter) let noise buy a spurious
     zero that stole part of the delay and shrank its error bar.  All groups
     are tried at once first, then one at a time (highest frequency first).
+    With ``delay_free`` (a fitted delay) the delay takes over the dropped
+    zeros' phase over ``w`` (rad/s), see :func:`_dropped_phase_as_delay`.
     """
     penalty = float(np.log(n_res))
     dropped = 0
     while True:
-        groups = _zero_groups_above(st, ref.values, f_max)
+        groups = _zero_groups_above(st, ref.values, f_max, rhp_from=(
+            RHP_NEAR_TOP * f_max if delay_free and st.delay else None))
         if not groups or not np.isfinite(ref.redchi) or ref.redchi <= 0:
             return st, ref, dropped
         groups.sort(key=lambda g: -g[1])
@@ -161,6 +207,9 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int
             trials += [[g] for g, _ in groups]
         for drop in trials:
             st2, v2 = _without(st, ref.values, drop)
+            if delay_free and st2.delay and w is not None:
+                v2 = v2.copy()
+                v2[-1] += _dropped_phase_as_delay(st, ref.values, drop, w)
             ref2 = refit(st2, v2, max_nfev=40)
             dp = len(st.names) - len(st2.names)
             if (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
@@ -210,15 +259,36 @@ def _narrower_than_spacing(st: Structure, values: np.ndarray, group: str,
     return f0 / max(q, 1e-300) < spacing
 
 
-def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: np.ndarray
-                      ) -> tuple[Structure, Refined, int]:
+def _below_noise(st: Structure, values: np.ndarray, groups: list[str], freq_hz: np.ndarray,
+                 sigma: PointSigma) -> bool:
+    """True if the groups together change the response by less than one σ at every point.
+
+    Such a near-cancelling doublet is invisible point by point; whatever χ² it
+    buys comes from lining up with a run of noise, and a loop design cannot
+    see it either.
+    """
+    names = ("gain",) + tuple(nm for nm in st.names if nm.rsplit("_", 1)[0] in groups
+                              or any(nm.startswith(g + "_") for g in groups))
+    v = dict(zip(st.names, values, strict=True), gain=1.0)
+    st2 = Structure.from_names(names, 0)
+    with np.errstate(all="ignore"):
+        d = np.log(response(st2, np.array([v[nm] for nm in names]), 1j * TWO_PI * freq_hz))
+    e = np.hypot(d.real / sigma.mag, d.imag / sigma.phase)
+    return bool(np.all(np.isfinite(e)) and np.max(e) < 1.0)
+
+
+def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: np.ndarray,
+                      sigma: PointSigma) -> tuple[Structure, Refined, int]:
     """Drop pole/zero groups that nearly cancel when the data do not need them.
 
     Inside the band such a pair (often with Q in the hundreds) fits a noise
     spike, not the plant.  It is dropped outright when its bandwidth is under
-    the point spacing (:func:`_narrower_than_spacing`), otherwise by the rule
-    of :func:`_prune_zeros`: unless χ² rises by more than ln N per parameter
-    removed (Schwarz 1978).
+    the point spacing (:func:`_narrower_than_spacing`) or its effect is under
+    the noise at every point (:func:`_below_noise`: its frequency is free, so
+    it can go looking for the luckiest run of noise, which a per-parameter
+    penalty does not price), otherwise by the rule of :func:`_prune_zeros`:
+    unless χ² rises by more than ln N per parameter removed (Schwarz 1978).
+    ``freq_hz`` and ``sigma`` are those of the full sweep.
     """
     penalty = float(np.log(n_res))
     dropped = 0
@@ -228,7 +298,8 @@ def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: n
             ref2 = refit(st2, v2, max_nfev=40)
             dp = len(st.names) - len(st2.names)
             narrow = all(_narrower_than_spacing(st, ref.values, g, freq_hz) for g in drop)
-            if narrow or (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
+            faint = _below_noise(st, ref.values, drop, freq_hz, sigma)
+            if narrow or faint or (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
                 st, ref = st2, ref2
                 dropped += 1
                 break
@@ -289,12 +360,8 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
     elif try_delay:
         # Both hypotheses, the delay one first: its order bounds the no-delay scan
         # (a delay mistaken for poles needs more of them, never fewer).
-        with_delay, scan_d = choose_order(sub, step=delay_stepper(sub, tau0))
-        # The delay soaks up part of a damped pair near the band top, so the next
-        # order (with its own delay) is refined too; the criterion decides.
-        nxt = [a for a in scan_d if a.order == with_delay.order + 1 and np.isfinite(a.chi)]
-        extra = [refine_delay(sub, nxt[0])] if nxt else []
-        with_delay = refine_delay(sub, with_delay)
+        with_delay, nxt, scan_d = choose_delay_order(sub, tau0)
+        extra = [nxt] if nxt is not None and np.isfinite(nxt.chi) else []
         att, scan = choose_order(sub, fixed_tau, n_max=min(with_delay.order + 4,
                                                            max_order(sub.s.shape[0])))
         scan = scan + scan_d
@@ -395,17 +462,25 @@ def fit(
     if weighting == "absolute":
         sig_abs = resp.stddev if resp.stddev is not None else np.full(
             n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
+    # Hypotheses are refined, pruned and compared on the thinned copy the scans
+    # used (each decision is a chi-square difference against ln N, valid at any
+    # N); only the winner is refined on every point, from there.
+    idx = ctx.subsample_index(SCAN_POINTS)
+    sig_abs_sub = None if sig_abs is None else sig_abs[idx]
+
+    def refit_sub(st_, v_, max_nfev=200):
+        return refine(st_, v_, s[idx], h[idx], sigma.mag[idx], sigma.phase[idx], fix=fixed,
+                      bounds=bounds, weighting=weighting, sig_abs=sig_abs_sub, max_nfev=max_nfev)
 
     def refit(st_, v_, max_nfev=200):
         return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
                       weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev)
 
+    n_sub = 2 * idx.shape[0]
     outcomes = []
-    for att in cands:
-        if not np.isfinite(att.chi):
-            continue
+    for att in _screen(cands, n_sub):
         try:
-            outcomes.append((att, *_physical(att, ctx, f, delay, fixed, bounds, refit)))
+            outcomes.append((att, *_physical(att, ctx, f, idx, delay, fixed, bounds, refit_sub)))
         except InputError:
             raise
         except (ValueError, np.linalg.LinAlgError):
@@ -416,13 +491,74 @@ def fit(
     # Delay or no delay: the information criterion of the refined fits decides
     # (BIC rather than AIC: a many-pole rational can mimic a delay, and BIC's
     # stronger penalty keeps the simpler explanation unless the data insist).
-    att, st, ref, notes = min(outcomes, key=lambda o: _bic(o[2], 2 * n_pts))
+    att, st, ref, notes = min(outcomes, key=lambda o: _bic(o[2], n_sub))
+    st, ref, notes = _final(st, ref, notes, refit, fixed, bounds, f, sigma)
     return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
 
 
-def _physical(att: Attempt, ctx: Context, f, delay, fixed, bounds, refit
+#: A candidate whose vector-fitting BIC is worse than the best one's by more than this
+#: fraction of the number of residuals is not worth refining (VF's fixed point is within
+#: a few percent of the least-squares optimum in χ²: common practice, no source).
+SCREEN = 0.25
+
+
+def _screen(cands: list[Attempt], n_res: int) -> list[Attempt]:
+    """Candidates worth refining: finite, and not hopeless against the best by BIC."""
+    ok = [a for a in cands if np.isfinite(a.chi)]
+    if len(ok) <= 1:
+        return ok
+
+    def bic(a: Attempt) -> float:
+        p = 2 * a.order + (1 if a.tau_s > 0 else 0) + 1
+        return n_res * np.log(max(a.chi, NEGLIGIBLE) ** 2) + p * np.log(n_res)
+
+    best = min(bic(a) for a in ok)
+    return [a for a in ok if bic(a) - best <= SCREEN * n_res]
+
+
+def _may_prune_cancelling(fixed, bounds) -> bool:
+    """Cancelling groups are pruned unless the user holds or bounds a pole or zero."""
+    held = list(fixed) + list(bounds or {})
+    return not any(key.startswith(("pole", "pair", "zero")) for key in held)
+
+
+def _cancel_note(n: int) -> str:
+    return f"dropped {n} nearly cancelling pole/zero group(s) that the data do not need"
+
+
+def _final(st: Structure, ref: Refined, notes: list[str], refit, fixed, bounds, f, sigma
+           ) -> tuple[Structure, Refined, list[str]]:
+    """Refine the chosen structure on every point; drop a delay that is not significant.
+
+    On every point a pair the thinned copy could not see (a spike between its
+    points) may appear and cancel with a zero pair: the cancelling check runs
+    again here.
+    """
+    ref = refit(st, ref.values)
+    if _may_prune_cancelling(fixed, bounds):
+        st, ref, n_cancel = _prune_cancelling(st, ref, refit, 2 * f.shape[0], f, sigma)
+        if n_cancel:
+            notes = [*notes, _cancel_note(n_cancel)]
+            ref = refit(st, ref.values)
+    if st.delay and "delay_s" not in fixed:
+        i = st.names.index("delay_s")
+        tv, te = ref.values[i], ref.stderr[i]
+        if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
+            # Not significant: drop the delay parameter and refine again without it.
+            keep = [j for j in range(len(st.names)) if j != i]
+            st = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
+                           st.integrators, False)
+            ref = refit(st, ref.values[keep])
+            notes = [*notes, "delay estimate not significant; fitted without delay"]
+    return st, ref, notes
+
+
+def _physical(att: Attempt, ctx: Context, f, idx, delay, fixed, bounds, refit
               ) -> tuple[Structure, Refined, list[str]]:
-    """VF attempt -> physical parameters -> refined, pruned fit (and its notes)."""
+    """VF attempt -> physical parameters -> refined, pruned fit (and its notes).
+
+    ``refit`` refines on the points ``idx`` of the sweep ``f``.
+    """
     m, scale = ctx.integrators, ctx.scale
     fit_delay = delay == "auto" and att.tau_s > 0
     zeros, poles, k = vf_to_zpk(att.vf, scale)
@@ -433,29 +569,22 @@ def _physical(att: Attempt, ctx: Context, f, delay, fixed, bounds, refit
     # A first, capped refinement: spurious zeros above the band make it slow,
     # and they are pruned next.
     ref = refit(st, v0, max_nfev=40)
+    n_res = 2 * idx.shape[0]
     n_drop = 0
     if not any(key.startswith("zero") for key in list(fixed) + list(bounds or {})):
-        st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1], 2 * f.shape[0])
+        st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1], n_res, TWO_PI * f[idx],
+                                       delay_free="delay_s" not in fixed)
         if n_drop:
-            notes.append(f"dropped {n_drop} zero(s) above the band that the data do not need")
-    held = list(fixed) + list(bounds or {})
-    if not any(key.startswith(("pole", "pair", "zero")) for key in held):
-        st, ref, n_cancel = _prune_cancelling(st, ref, refit, 2 * f.shape[0], f)
+            where = "above or, with a delay, near the top of" if st.delay else "above"
+            notes.append(f"dropped {n_drop} zero(s) {where} the band that the data do not need")
+    if _may_prune_cancelling(fixed, bounds):
+        # The point spacing that matters is the full sweep's, not the thinned copy's.
+        st, ref, n_cancel = _prune_cancelling(st, ref, refit, n_res, f, ctx.sigma)
         if n_cancel:
-            notes.append(f"dropped {n_cancel} nearly cancelling pole/zero group(s) that the "
-                         "data do not need")
+            notes.append(_cancel_note(n_cancel))
             n_drop += n_cancel
     if not ref.success or n_drop:
         ref = refit(st, ref.values)  # the capped runs above may have stopped short
-    if fit_delay and "delay_s" not in fixed:
-        i = st.names.index("delay_s")
-        tv, te = ref.values[i], ref.stderr[i]
-        if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
-            # Not significant: drop the delay parameter and refine again without it.
-            keep = [j for j in range(len(st.names)) if j != i]
-            st = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs, m, False)
-            ref = refit(st, ref.values[keep])
-            notes.append("delay estimate not significant; fitted without delay")
     return st, ref, notes
 
 
@@ -483,8 +612,11 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
         d = np.sqrt(np.diag(cov))
         corr = cov / np.outer(d, d) if cov.size else cov
     warnings = list(notes)
-    converged = bool(att.vf.converged and ref.success)
-    if not att.vf.converged:
+    # The refinement is the estimator; vector fitting only starts it.  A VF run
+    # stopped by its iteration cap is reported (stats["vf_converged"]), and is a
+    # warning only when the refinement did not converge from its poles either.
+    converged = bool(ref.success)
+    if not att.vf.converged and not ref.success:
         warnings.append(f"vector fitting did not converge in {att.vf.iterations} iterations")
     if not ref.success:
         warnings.append(f"refinement did not converge: {ref.message}")
@@ -517,6 +649,7 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
         "iterations": int(att.vf.iterations),
         "evaluations": int(ref.evaluations),
         "converged": converged,
+        "vf_converged": bool(att.vf.converged),
         "noise_floor_db": sigma.floor_db,
         "noise_floor_deg": sigma.floor_deg,
         "noise_source": sigma.source,

@@ -17,7 +17,16 @@ from collections.abc import Callable
 import numpy as np
 from scipy import optimize
 
-from benchfit.fitting.order import CHI_OK, SCAN_ITER, SCAN_TOL, Attempt, Context, attempt
+from benchfit.fitting.order import (
+    CHI_OK,
+    SCAN_ITER,
+    SCAN_TOL,
+    Attempt,
+    Context,
+    attempt,
+    better,
+    choose_order,
+)
 
 
 def excess_phase_delay(freq_hz: np.ndarray, h: np.ndarray, top_fraction: float = 0.3) -> float:
@@ -120,3 +129,48 @@ def refine_delay(ctx: Context, a: Attempt) -> Attempt:
     span = 0.1 * a.tau_s + 2e-2 / w_max
     b = search_delay(ctx, a.order, max(a.tau_s - span, 0.0), a.tau_s + span, a.vf.poles)
     return b if b.chi <= a.chi else a
+
+
+def _interval(ctx: Context, tau0: float) -> tuple[float, float]:
+    """Delay search interval [τ0/4, 2τ0 + 2/ω_max] (the excess-phase estimate is rough
+    near resonances; 2/ω_max lets a small estimate grow)."""
+    w_max = float(np.abs(ctx.s[-1])) * ctx.scale
+    return 0.25 * tau0, 2.0 * tau0 + 2.0 / w_max
+
+
+def choose_delay_order(ctx: Context, tau0: float, n_max: int | None = None
+                       ) -> tuple[Attempt, Attempt | None, list[Attempt]]:
+    """Order and delay together, cheaply.
+
+    The order is first scanned with the delay held at the excess-phase
+    estimate ``tau0`` (:func:`choose_order`).  A wrong delay only ever costs
+    extra poles, so the delay is then searched at the order found and at
+    successively lower orders, stepping down while the lower order (with its
+    own delay) is not significantly worse (:func:`better`).  The next order up
+    is returned too: a delay can soak up part of a damped pair near the top
+    of the band, and only the refinement can tell the two apart.
+
+    Returns
+    -------
+    best, next_up, scan
+        The chosen attempt, the one an order higher (or None) and the scan.
+    """
+    first, scan = choose_order(ctx, tau0, n_max=n_max)
+    by_order = {a.order: a for a in scan}
+    lo, hi = _interval(ctx, tau0)
+    n_res = 2 * ctx.s.shape[0]
+
+    def searched(n: int, start: Attempt | None) -> Attempt:
+        poles0 = start.vf.poles if start is not None and np.isfinite(start.chi) else None
+        a = search_delay(ctx, n, lo, hi, poles0, fine=False, grid=7)
+        return a if start is None or a.chi <= start.chi else start
+
+    cur = searched(first.order, first)
+    while cur.order > 1 and cur.chi <= 1.5 * CHI_OK:
+        low = searched(cur.order - 1, by_order.get(cur.order - 1))
+        if not np.isfinite(low.chi) or better(low, cur, n_res):
+            break
+        cur = low
+    up = by_order.get(cur.order + 1)
+    nxt = searched(cur.order + 1, up) if up is not None else None
+    return cur, nxt, scan

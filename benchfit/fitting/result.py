@@ -195,7 +195,9 @@ class FitResult:
             f"{st.get('noise_floor_deg', float('nan')):.3g} deg,"
             f"  reduced chi2 {st.get('reduced_chi2', float('nan')):.3g},"
             f"  {'converged' if st.get('converged') else 'NOT converged'}"
-            f" ({st.get('iterations')} VF iterations, {st.get('evaluations', 0)} refinement evaluations)",
+            f" ({st.get('iterations')} VF iterations"
+            f"{'' if st.get('vf_converged', True) else ', VF stopped at its cap'},"
+            f" {st.get('evaluations', 0)} refinement evaluations)",
         ]
         if self.order_scan:
             scan = ", ".join(f"{d['order']}{'+τ' if d.get('delay_s') else ''}:{d['rms_db']:.2g}dB"
