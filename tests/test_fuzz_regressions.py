@@ -114,3 +114,29 @@ def test_json_that_python_refuses_to_parse(tmp_path, body):
     p.write_text(body, encoding="utf-8")
     with pytest.raises(InputError, match="x.json.*not valid JSON"):
         read_json(p)
+
+
+def test_sweep_cell_with_a_stray_quote_reads_like_the_dialect_says(tmp_path):
+    # read_sweep: a last cell '0.00"' (a stray quote) failed numpy's float conversion but
+    # passed the dialect's per-cell rule, so the slow path found no bad cell and re-raised
+    # ValueError (found by test_damaged_tables_fuzz).  The dialect's rule strips quotes.
+    p = tmp_path / "quote.txt"
+    p.write_bytes(b"Frequency (Hz) Gain (dB) Phase (deg)\n1.0 0.0000 0.000\n2.0 0.0000 0.000\n"
+                  b"5.0 0.0000 0.00\"\n")
+    r = read_sweep(p)
+    assert r.freq_hz.tolist() == [1.0, 2.0, 5.0]
+    assert abs(r.response[-1] - 1.0) < 1e-12
+
+
+def test_trace_row_with_a_stray_quote_after_the_exponent(tmp_path):
+    # read_trace: a row "8.265196e-0'" after a block of numbers failed the data-line pattern
+    # but every cell passed the lenient per-cell rule, so picking the bad cell raised
+    # StopIteration (found by test_damaged_exports_fuzz).
+    p = tmp_path / "scope.csv"
+    body = "\n".join(["Sample interval,1.000000e-09", "Trigger point,0", "CH1",
+                      "2.514604e-01", "-2.642097e-01", "1.280845e+00", "8.265196e-0'",
+                      "-4.650062e+00"]) + "\n"
+    p.write_text(body)
+    with pytest.raises(InputError) as e:
+        read_trace(p)
+    assert "scope.csv" in str(e.value) and "8.265196e-0'" in str(e.value)

@@ -129,16 +129,19 @@ def _parse_rows(rows: list[tuple[int, list[str]]], d: Dialect, ncols: int, sourc
             cells_all = [c.replace(",", ".") for c in cells_all]
         flat = np.array(cells_all, dtype=float)
     except ValueError:
-        for ln, cells in rows:  # slow path: find the cell
+        # Slow path, cell by cell with the dialect's own rule (which also takes quoted
+        # numbers): either every cell parses or the first bad one is reported.
+        values = []
+        for ln, cells in rows:
             for j, c in enumerate(cells):
                 try:
-                    d.number(c)
+                    values.append(d.number(c))
                 except ValueError:
                     col = names[j] if names and j < len(names) else j + 1
                     raise InputError(f"non-numeric cell {c!r}; expected a number"
                                      + (" with a decimal comma" if d.decimal == "," else ""),
                                      source=source, line=ln, column=col) from None
-        raise  # pragma: no cover - the slow path always finds it
+        flat = np.array(values, dtype=float)
     data = flat.reshape(len(rows), ncols)
     bad = ~np.isfinite(data)
     if bad.any():
@@ -236,7 +239,9 @@ def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Bloc
             first = above[0]
             cells = d.split(lines[first].strip())
             if len(cells) == blocks[-1].data.shape[1] and _numeric_cells(cells, d) > 0:
-                bad = next(c for c in cells if _numeric_cells([c], d) == 0)
+                # The first cell failed the data-line pattern even when the lenient
+                # per-cell rule takes it (a stray quote after the exponent, say).
+                bad = next((c for c in cells if _numeric_cells([c], d) == 0), cells[0])
                 raise InputError(f"non-numeric cell {bad!r}; expected a number", source=source,
                                  line=first + 1)
         names = units = None
