@@ -316,7 +316,7 @@ def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, boo
 
 
 #: Orders and delays are scanned on at most this many points (see Context.subsample).
-SCAN_POINTS = 400
+SCAN_POINTS = 250
 
 
 def _bic(ref: Refined, n_res: int) -> float:
@@ -362,8 +362,16 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
         # (a delay mistaken for poles needs more of them, never fewer).
         with_delay, nxt, scan_d = choose_delay_order(sub, tau0)
         extra = [nxt] if nxt is not None and np.isfinite(nxt.chi) else []
-        att, scan = choose_order(sub, fixed_tau, n_max=min(with_delay.order + 4,
-                                                           max_order(sub.s.shape[0])))
+        # Below the delay order less two, the no-delay residual is far above the
+        # floor (the delay scan's is already), so the no-delay scan starts there,
+        # warm-started from the delay scan's poles; from the bottom only when its
+        # first order already reaches the floor.
+        top = min(with_delay.order + 4, max_order(sub.s.shape[0]))
+        n0 = max(1, with_delay.order - 2)
+        prior = [a for a in scan_d if n0 - 2 <= a.order < n0 and np.isfinite(a.chi)]
+        att, scan = choose_order(sub, fixed_tau, n_min=n0, n_max=top, prior=prior)
+        if n0 > 1 and att.order == n0:
+            att, scan = choose_order(sub, fixed_tau, n_max=top)
         scan = scan + scan_d
     else:
         att, scan = choose_order(sub, fixed_tau)

@@ -60,6 +60,11 @@ def excess_phase_delay(freq_hz: np.ndarray, h: np.ndarray, top_fraction: float =
     return float(max(-coef[1], 0.0))
 
 
+#: Pole relocations per delay tried in a coarse search: each trial starts from the
+#: previous one's poles, so a few steps follow the optimum (common practice, no source).
+COARSE_ITER = 3
+
+
 def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
                  fine: bool = True, grid: int = 0) -> Attempt:
     """Delay in [lo, hi] minimising the VF residual at ``order``.
@@ -74,9 +79,10 @@ def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
     w_max = float(np.abs(ctx.s[-1])) * ctx.scale
     cache: list[Attempt] = []
     start = [poles0]
+    iters = SCAN_ITER if fine else COARSE_ITER
 
     def cost(tau: float) -> float:
-        a = attempt(ctx, order, float(tau), poles0=start[0], max_iter=SCAN_ITER, tol=SCAN_TOL)
+        a = attempt(ctx, order, float(tau), poles0=start[0], max_iter=iters, tol=SCAN_TOL)
         cache.append(a)
         if np.isfinite(a.chi):
             start[0] = a.vf.poles
@@ -160,17 +166,17 @@ def choose_delay_order(ctx: Context, tau0: float, n_max: int | None = None
     lo, hi = _interval(ctx, tau0)
     n_res = 2 * ctx.s.shape[0]
 
-    def searched(n: int, start: Attempt | None) -> Attempt:
+    def searched(n: int, start: Attempt | None, grid: int = 7) -> Attempt:
         poles0 = start.vf.poles if start is not None and np.isfinite(start.chi) else None
-        a = search_delay(ctx, n, lo, hi, poles0, fine=False, grid=7)
+        a = search_delay(ctx, n, lo, hi, poles0, fine=False, grid=grid)
         return a if start is None or a.chi <= start.chi else start
 
     cur = searched(first.order, first)
     while cur.order > 1 and cur.chi <= 1.5 * CHI_OK:
-        low = searched(cur.order - 1, by_order.get(cur.order - 1))
+        low = searched(cur.order - 1, by_order.get(cur.order - 1), grid=5)
         if not np.isfinite(low.chi) or better(low, cur, n_res):
             break
         cur = low
     up = by_order.get(cur.order + 1)
-    nxt = searched(cur.order + 1, up) if up is not None else None
+    nxt = searched(cur.order + 1, up, grid=5) if up is not None else None
     return cur, nxt, scan

@@ -145,8 +145,8 @@ def max_order(n_points: int, cap: int = 40) -> int:
 
 
 def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Attempt] | None = None,
-                 n_max: int | None = None, n_min: int = 1, scan_all: bool = False
-                 ) -> tuple[Attempt, list[Attempt]]:
+                 n_max: int | None = None, n_min: int = 1, scan_all: bool = False,
+                 prior: list[Attempt] | None = None) -> tuple[Attempt, list[Attempt]]:
     """Automatic order choice (see module docstring).
 
     Parameters
@@ -163,6 +163,9 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
     scan_all
         Try every order up to ``n_max`` (no early stop); used to build a
         good start for a fixed order.
+    prior
+        Attempts at orders below ``n_min`` (from another scan, any delay)
+        whose poles seed the first orders' warm starts.
 
     Returns
     -------
@@ -173,7 +176,7 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
     if n_max < n_min:
         raise FitError(f"{ctx.s.shape[0]} points are too few to fit even order {n_min}")
     if step is None:
-        prev: list[Attempt] = []
+        prev: list[Attempt] = sorted(prior or [], key=lambda x: x.order)
 
         def step(n: int) -> Attempt:
             # Fresh log-spaced start, and the poles of order n-1 plus a real pole
