@@ -97,21 +97,18 @@ def _basis(s: np.ndarray, poles: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
     ``kind`` is 0 for a real pole, 1 for the first and 2 for the second
     column of a complex pair (1/(s-a)+1/(s-a*) and j/(s-a)-j/(s-a*)).
+    Poles are in :func:`_arrange` order (each pair's upper member first).
     """
     n = poles.shape[0]
     inv = 1.0 / (s[:, None] - poles[None, :])
-    phi = np.empty_like(inv)
     kind = np.zeros(n, dtype=int)
-    i = 0
-    while i < n:
-        if poles[i].imag == 0.0:
-            phi[:, i] = inv[:, i]
-            i += 1
-        else:
-            phi[:, i] = inv[:, i] + inv[:, i + 1]
-            phi[:, i + 1] = 1j * inv[:, i] - 1j * inv[:, i + 1]
-            kind[i], kind[i + 1] = 1, 2
-            i += 2
+    first = np.flatnonzero(poles.imag > 0.0)
+    first = first[first + 1 < n]
+    kind[first], kind[first + 1] = 1, 2
+    phi = inv.copy()
+    a, b = inv[:, first], inv[:, first + 1]
+    phi[:, first] = a + b
+    phi[:, first + 1] = 1j * (a - b)
     return phi, kind
 
 
@@ -170,14 +167,14 @@ def _relocate(s, h, w, poles, direct, proportional):
     lhs = np.vstack([r[n_num: n_num + n + 1, n_num:], relax[None, :]])
     rhs = np.zeros(lhs.shape[0])
     rhs[-1] = n_s * scale
-    x = linalg.lstsq(lhs, rhs)[0]
+    x = linalg.lstsq(lhs, rhs, check_finite=False)[0]
     x = x * scale_cols[n_num:]
     c_sig, d_sig = x[:n], x[n]
     if abs(d_sig) < _RELAX_TOL or not np.isfinite(d_sig):
         # Degenerate relaxed solution (Gustavsen 2006, sec. III): fix d~ and re-solve.
         d_fix = _RELAX_TOL if not (d_sig < 0) else -_RELAX_TOL
         b2 = -a[:, -1] * (d_fix / scale_cols[-1])
-        y = linalg.lstsq(a[:, :-1], b2)[0]
+        y = linalg.lstsq(a[:, :-1], b2, check_finite=False)[0]
         c_sig = y[n_num:] * scale_cols[n_num:-1]
         d_sig = d_fix
     # Zeros of sigma: eig(A - b c~ / d~) in real state-space form.
@@ -195,7 +192,7 @@ def _relocate(s, h, w, poles, direct, proportional):
             am[i + 1, i], am[i + 1, i + 1] = -p.imag, p.real
             bm[i] = 2.0
             i += 2
-    new = linalg.eigvals(am - np.outer(bm, c_sig) / d_sig)
+    new = linalg.eigvals(am - np.outer(bm, c_sig) / d_sig, check_finite=False)
     flipped = -np.conj(new[new.real > 0])
     new = np.where(new.real > 0, -np.conj(new), new)
     # A pole exactly on the axis would make the basis singular on a measured point.
