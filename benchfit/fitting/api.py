@@ -315,6 +315,9 @@ def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, boo
     return s > -0.5, s > 0.5
 
 
+#: When the no-delay scan's first order already reaches the floor, it restarts this
+#: many orders lower.
+DROP_STEP = 3
 #: Orders and delays are scanned on at most this many points (see Context.subsample).
 SCAN_POINTS = 250
 
@@ -367,11 +370,13 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
         # warm-started from the delay scan's poles; from the bottom only when its
         # first order already reaches the floor.
         top = min(with_delay.order + 4, max_order(sub.s.shape[0]))
-        n0 = max(1, with_delay.order - 2)
-        prior = [a for a in scan_d if n0 - 2 <= a.order < n0 and np.isfinite(a.chi)]
-        att, scan = choose_order(sub, fixed_tau, n_min=n0, n_max=top, prior=prior)
-        if n0 > 1 and att.order == n0:
-            att, scan = choose_order(sub, fixed_tau, n_max=top)
+        n0 = with_delay.order - 2 + DROP_STEP
+        while True:
+            n0 = max(1, n0 - DROP_STEP)
+            prior = [a for a in scan_d if n0 - 2 <= a.order < n0 and np.isfinite(a.chi)]
+            att, scan = choose_order(sub, fixed_tau, n_min=n0, n_max=top, prior=prior)
+            if n0 == 1 or att.order > n0:
+                break
         scan = scan + scan_d
     else:
         att, scan = choose_order(sub, fixed_tau)

@@ -19,13 +19,16 @@ from scipy import optimize
 
 from benchfit.fitting.order import (
     CHI_OK,
+    NEGLIGIBLE,
     SCAN_ITER,
     SCAN_TOL,
     Attempt,
     Context,
+    add_pole,
     attempt,
     better,
     choose_order,
+    max_order,
 )
 
 
@@ -138,10 +141,11 @@ def refine_delay(ctx: Context, a: Attempt) -> Attempt:
 
 
 def _interval(ctx: Context, tau0: float) -> tuple[float, float]:
-    """Delay search interval [τ0/4, 2τ0 + 2/ω_max] (the excess-phase estimate is rough
-    near resonances; 2/ω_max lets a small estimate grow)."""
+    """Delay search interval [0, 2τ0 + 2/ω_max] (the excess-phase estimate is rough
+    near resonances, and a right-half-plane zero makes one where there is no delay;
+    2/ω_max lets a small estimate grow)."""
     w_max = float(np.abs(ctx.s[-1])) * ctx.scale
-    return 0.25 * tau0, 2.0 * tau0 + 2.0 / w_max
+    return 0.0, 2.0 * tau0 + 2.0 / w_max
 
 
 def choose_delay_order(ctx: Context, tau0: float, n_max: int | None = None
@@ -161,7 +165,7 @@ def choose_delay_order(ctx: Context, tau0: float, n_max: int | None = None
     best, next_up, scan
         The chosen attempt, the one an order higher (or None) and the scan.
     """
-    first, scan = choose_order(ctx, tau0, n_max=n_max)
+    first, scan = choose_order(ctx, tau0, n_max=n_max, first_at_floor=True)
     by_order = {a.order: a for a in scan}
     lo, hi = _interval(ctx, tau0)
     n_res = 2 * ctx.s.shape[0]
@@ -174,9 +178,13 @@ def choose_delay_order(ctx: Context, tau0: float, n_max: int | None = None
     cur = searched(first.order, first)
     while cur.order > 1 and cur.chi <= 1.5 * CHI_OK:
         low = searched(cur.order - 1, by_order.get(cur.order - 1), grid=5)
-        if not np.isfinite(low.chi) or better(low, cur, n_res):
+        exact = low.chi <= NEGLIGIBLE  # noiseless data: any exact fit will do, take the smaller
+        if not np.isfinite(low.chi) or (not exact and better(low, cur, n_res)):
             break
         cur = low
     up = by_order.get(cur.order + 1)
+    if up is None and cur.order + 1 <= max_order(ctx.s.shape[0]):
+        up = attempt(ctx, cur.order + 1, cur.tau_s, poles0=add_pole(ctx, cur, 1),
+                     max_iter=SCAN_ITER, tol=SCAN_TOL)
     nxt = searched(cur.order + 1, up, grid=5) if up is not None else None
     return cur, nxt, scan

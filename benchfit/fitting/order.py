@@ -146,7 +146,8 @@ def max_order(n_points: int, cap: int = 40) -> int:
 
 def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Attempt] | None = None,
                  n_max: int | None = None, n_min: int = 1, scan_all: bool = False,
-                 prior: list[Attempt] | None = None) -> tuple[Attempt, list[Attempt]]:
+                 prior: list[Attempt] | None = None, first_at_floor: bool = False
+                 ) -> tuple[Attempt, list[Attempt]]:
     """Automatic order choice (see module docstring).
 
     Parameters
@@ -166,6 +167,9 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
     prior
         Attempts at orders below ``n_min`` (from another scan, any delay)
         whose poles seed the first orders' warm starts.
+    first_at_floor
+        Stop at the first order that reaches the floor (the caller looks at
+        the orders around it itself).
 
     Returns
     -------
@@ -206,6 +210,8 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
         if cand is None:
             if a.chi <= CHI_OK:
                 cand = a
+                if first_at_floor:
+                    break
             elif len(scan) >= 4 and min(x.chi for x in scan[-3:]) > (1.0 - PLATEAU) * scan[-4].chi:
                 break  # three orders in a row without a real gain: a plateau above the floor
         else:
