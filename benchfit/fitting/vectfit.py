@@ -167,14 +167,14 @@ def _relocate(s, h, w, poles, direct, proportional):
     lhs = np.vstack([r[n_num: n_num + n + 1, n_num:], relax[None, :]])
     rhs = np.zeros(lhs.shape[0])
     rhs[-1] = n_s * scale
-    x = linalg.lstsq(lhs, rhs, check_finite=False)[0]
+    x = np.linalg.lstsq(lhs, rhs, rcond=None)[0]
     x = x * scale_cols[n_num:]
     c_sig, d_sig = x[:n], x[n]
     if abs(d_sig) < _RELAX_TOL or not np.isfinite(d_sig):
         # Degenerate relaxed solution (Gustavsen 2006, sec. III): fix d~ and re-solve.
         d_fix = _RELAX_TOL if not (d_sig < 0) else -_RELAX_TOL
         b2 = -a[:, -1] * (d_fix / scale_cols[-1])
-        y = linalg.lstsq(a[:, :-1], b2, check_finite=False)[0]
+        y = np.linalg.lstsq(a[:, :-1], b2, rcond=None)[0]
         c_sig = y[n_num:] * scale_cols[n_num:-1]
         d_sig = d_fix
     # Zeros of sigma: eig(A - b c~ / d~) in real state-space form.
@@ -192,7 +192,7 @@ def _relocate(s, h, w, poles, direct, proportional):
             am[i + 1, i], am[i + 1, i + 1] = -p.imag, p.real
             bm[i] = 2.0
             i += 2
-    new = linalg.eigvals(am - np.outer(bm, c_sig) / d_sig, check_finite=False)
+    new = np.linalg.eigvals(am - np.outer(bm, c_sig) / d_sig)
     flipped = -np.conj(new[new.real > 0])
     new = np.where(new.real > 0, -np.conj(new), new)
     # A pole exactly on the axis would make the basis singular on a measured point.
@@ -218,7 +218,7 @@ def fit_residues(s, h, w, poles, direct=True, proportional=False):
     a = _realify(w[:, None] * m)
     b = np.concatenate([(w * h).real, (w * h).imag])
     sc = _colscale(a)
-    x = linalg.lstsq(a * sc, b, lapack_driver="gelsy")[0] * sc
+    x = np.linalg.lstsq(a * sc, b, rcond=None)[0] * sc
     n = poles.shape[0]
     res = _coeffs_to_residues(x[:n], kind)
     d = float(x[n]) if direct else 0.0
@@ -246,19 +246,19 @@ def initial_poles(n: int, w_min: float, w_max: float, *, damping: float = 0.01) 
 
 
 def _pole_change(old: np.ndarray, new: np.ndarray) -> float:
-    if old.shape != new.shape:
+    """Largest move of a real or imaginary part, relative to the pole's magnitude.
+
+    Both sets are in :func:`_arrange` order; a different count of real poles
+    is an infinite change.
+    """
+    if old.shape != new.shape or np.count_nonzero(old.imag == 0.0) != np.count_nonzero(
+            new.imag == 0.0):
         return np.inf
-    ro, co = _split(old)
-    rn, cn = _split(new)
-    if ro.shape != rn.shape:
-        return np.inf
-    a = np.concatenate([np.sort(ro.real), co[np.argsort(np.abs(co))].real,
-                        co[np.argsort(np.abs(co))].imag])
-    b = np.concatenate([np.sort(rn.real), cn[np.argsort(np.abs(cn))].real,
-                        cn[np.argsort(np.abs(cn))].imag])
-    mag = np.concatenate([np.abs(np.sort(ro.real)), np.abs(co[np.argsort(np.abs(co))]),
-                          np.abs(co[np.argsort(np.abs(co))])])
-    return float(np.max(np.abs(a - b) / np.maximum(mag, 1e-300))) if a.size else 0.0
+    if not old.size:
+        return 0.0
+    d = new - old
+    return float(np.max(np.maximum(np.abs(d.real), np.abs(d.imag))
+                        / np.maximum(np.abs(old), 1e-300)))
 
 
 def vector_fit(
