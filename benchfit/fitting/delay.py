@@ -97,7 +97,7 @@ def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
         i = int(np.nanargmin(chis))
         lo, hi = taus[max(i - 1, 0)], taus[min(i + 1, grid - 1)]
         start[0] = cache[i].vf.poles if np.isfinite(cache[i].chi) else poles0
-    opts = {"xatol": 1e-5 / w_max, "maxiter": 30} if fine else {"xatol": 1e-2 / w_max, "maxiter": 8}
+    opts = {"xatol": 1e-5 / w_max, "maxiter": 30} if fine else {"xatol": 1e-2 / w_max, "maxiter": 5}
     optimize.minimize_scalar(cost, bounds=(lo, hi), method="bounded", options=opts)
     return min(cache, key=lambda a: a.chi)
 
