@@ -33,9 +33,6 @@ def test_overflow_names_file_line_and_column():
     assert "frequency 1e+300 GHz is too large to represent in Hz" in str(e.value)
 
 
-@pytest.mark.xfail(strict=True, reason="benchfit/data/sweep_reader.py multiplies by the unit "
-                   "factor itself (line ~189); calling units.freq_to_hz there fixes it (not this "
-                   "task's file)")
 def test_csv_sweep_with_an_overflowing_frequency(tmp_path):
     p = tmp_path / "huge.csv"
     p.write_text("Frequency (GHz),Gain (dB),Phase (deg)\n1,0,0\n1e300,0,0\n2e300,0,0\n")

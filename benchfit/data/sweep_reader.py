@@ -24,7 +24,7 @@ from benchfit.data.dialect import load_text, sniff
 from benchfit.data.response import QUANTITIES, FrequencyResponse
 from benchfit.data.table import Block, find_blocks
 from benchfit.data.touchstone import looks_like_touchstone, ports_from_name, read_touchstone
-from benchfit.data.units import freq_factor, freq_unit_name
+from benchfit.data.units import freq_factor, freq_to_hz, freq_unit_name
 from benchfit.errors import InputError
 from benchfit.provenance import Provenance
 
@@ -186,7 +186,8 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
     k, label, blk, pair = _select_trace(traces, trace, source, warnings)
     data, lines_no = blk.data, blk.line_no
     f_unit = freq_unit_name(freq_unit or pair.freq.unit or "Hz", exact_case=freq_unit is None)
-    f = data[:, pair.freq.index] * freq_factor(f_unit)
+    f = freq_to_hz(data[:, pair.freq.index], f_unit, source=source, lines=lines_no,
+                   column=pair.freq.name)
     a, b = data[:, pair.first.index], data[:, pair.second.index]
     if pair.kind == "mag_phase":
         mag_form = _decide_mag(a, pair.first, mag, lines_no, source, warnings)
