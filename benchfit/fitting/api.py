@@ -489,9 +489,13 @@ def fit(
         return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
                       weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev)
 
+    worth = _screen(cands, 2 * idx.shape[0])
+    if len(worth) == 1:
+        # Nothing to compare: refine and prune on every point straight away.
+        idx, refit_sub = np.arange(n_pts), refit
     n_sub = 2 * idx.shape[0]
     outcomes = []
-    for att in _screen(cands, n_sub):
+    for att in worth:
         try:
             outcomes.append((att, *_physical(att, ctx, f, idx, delay, fixed, bounds, refit_sub)))
         except InputError:
@@ -505,7 +509,8 @@ def fit(
     # (BIC rather than AIC: a many-pole rational can mimic a delay, and BIC's
     # stronger penalty keeps the simpler explanation unless the data insist).
     att, st, ref, notes = min(outcomes, key=lambda o: _bic(o[2], n_sub))
-    st, ref, notes = _final(st, ref, notes, refit, fixed, bounds, f, sigma)
+    st, ref, notes = _final(st, ref, notes, refit, fixed, bounds, f, sigma,
+                            on_every_point=idx.shape[0] == n_pts)
     return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
 
 
@@ -539,15 +544,16 @@ def _cancel_note(n: int) -> str:
     return f"dropped {n} nearly cancelling pole/zero group(s) that the data do not need"
 
 
-def _final(st: Structure, ref: Refined, notes: list[str], refit, fixed, bounds, f, sigma
-           ) -> tuple[Structure, Refined, list[str]]:
+def _final(st: Structure, ref: Refined, notes: list[str], refit, fixed, bounds, f, sigma,
+           on_every_point: bool = False) -> tuple[Structure, Refined, list[str]]:
     """Refine the chosen structure on every point; drop a delay that is not significant.
 
     On every point a pair the thinned copy could not see (a spike between its
     points) may appear and cancel with a zero pair: the cancelling check runs
-    again here.
+    again here.  ``on_every_point``: ``ref`` was refined on every point already.
     """
-    ref = refit(st, ref.values)
+    if not on_every_point:
+        ref = refit(st, ref.values)
     if _may_prune_cancelling(fixed, bounds):
         st, ref, n_cancel = _prune_cancelling(st, ref, refit, 2 * f.shape[0], f, sigma)
         if n_cancel:
