@@ -136,7 +136,10 @@ def parse_block(data: bytes, encoding: str, byte_order: str = "big", *,
         raise MalformedReply(f"{what}: block of {n} bytes is not a whole number of "
                               f"{dt.itemsize}-byte {encoding} values")
     values = np.frombuffer(bytes(payload), dtype=dt)
-    out = values.astype(np.float64 if dt.kind == "f" else np.int64)
+    # A signalling NaN in the payload sets the FPU's invalid flag on the cast; the
+    # value stays NaN either way, so no warning for the user to puzzle over.
+    with np.errstate(invalid="ignore"):
+        out = values.astype(np.float64 if dt.kind == "f" else np.int64)
     return out
 
 

@@ -146,6 +146,12 @@ def read_canonical_sweep(path: str | os.PathLike, text: str | None = None) -> Fr
     prov = _provenance(fields, source)
     read_prov = Provenance(step="read_sweep", sources=(source,), settings={"dialect": "benchfit-canonical"},
                            parents=(prov.to_dict(),) if prov else ())
+    bad = ~np.isfinite(a[:, :3])
+    if bad.any():
+        i, j = np.argwhere(bad)[0]
+        data_lines = [k + 1 for k in range(hline + 1, len(lines)) if lines[k].strip()]
+        raise InputError(f"{cols[j]} value {a[i, j]:g} is not finite; expected a finite number",
+                         source=source, line=data_lines[int(i)], column=cols[j])
     try:
         return FrequencyResponse(
             freq_hz=a[:, 0], response=a[:, 1] + 1j * a[:, 2],

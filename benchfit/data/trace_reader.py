@@ -142,7 +142,12 @@ def _time_axis(block: Block, time_col: int | None, names: list[str], units: list
         except ValueError:
             pass
     info.update(time_source="sample interval", sample_interval_from=how, t0_s=t0)
-    return t0 + dt * np.arange(n), info
+    with np.errstate(over="ignore", invalid="ignore"):
+        t = t0 + dt * np.arange(n)
+    if not np.all(np.isfinite(t)):
+        raise InputError(f"sample interval {dt:g} s and start {t0:g} s give times beyond the "
+                         "largest number; expected a sample interval in seconds", source=source)
+    return t, info
 
 
 def _check_time(t: np.ndarray, line_no: np.ndarray, source: str, warnings: list[str]) -> np.ndarray:
