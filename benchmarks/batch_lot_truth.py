@@ -111,11 +111,11 @@ def main() -> None:
     print(f"units fitted with another shape than order {TRUE_ORDER} + {TRUE_DELAY_S:g} s delay: "
           f"{len(odd)}")
     for i, r in odd:
-        params = {k: round(v[0], 4) for k, v in json.loads(r["parameters"]).items()}
+        params = ", ".join(f"{k} {v[0]:.4g}" for k, v in json.loads(r["parameters"]).items())
         k = idx.index(i)
         print(f"  unit {i} (seed {args.seed}): order {r['fit_order']}, delay {r['fit_delay_s']:g} s, "
               f"rms {r['fit_rms_db']:.4f} dB, PM {got[k, 0]:.2f} (true {truth[k, 0]:.2f}), "
-              f"status {r['status']}; {params}")
+              f"status {r['status']}; {params}; warnings: {r['warnings']}")
     errs = Counter(r["error"] for r in rows if r["status"] == "error")
     for e, n in errs.most_common(5):
         print(f"  error x{n}: {e}")
