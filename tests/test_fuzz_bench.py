@@ -28,6 +28,10 @@ from benchfit.bench.blocks import (
 from benchfit.bench.profile import SHIPPED_DIR, Profile, load_profile_file
 from benchfit.errors import InstrumentError
 
+# A reader must answer damaged input with a result or an InputError, never with numpy
+# RuntimeWarnings printed on the user's terminal.
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 NORMAL = settings(max_examples=200, deadline=None,
                   suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 FUZZ = settings(deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture,

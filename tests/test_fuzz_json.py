@@ -25,6 +25,10 @@ from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.sensing import Sensing
 from benchfit.loop.synthesis import Targets
 
+# A reader must answer damaged input with a result or an InputError, never with numpy
+# RuntimeWarnings printed on the user's terminal.
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 NORMAL = settings(max_examples=120, deadline=None,
                   suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 FUZZ = settings(deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture,

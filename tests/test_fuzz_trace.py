@@ -14,6 +14,10 @@ from hypothesis import strategies as st
 
 from benchfit.data import TimeTrace, read_trace, write_trace_csv
 
+# A reader must answer damaged input with a result or an InputError, never with numpy
+# RuntimeWarnings printed on the user's terminal.
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 NORMAL = settings(max_examples=150, deadline=None,
                   suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 FUZZ = settings(deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture,

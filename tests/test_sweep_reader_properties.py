@@ -15,6 +15,10 @@ from hypothesis import strategies as st
 from benchfit.data import read_sweep
 from benchfit.errors import InputError
 
+# A reader must answer damaged input with a result or an InputError, never with numpy
+# RuntimeWarnings printed on the user's terminal.
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 SEPS = [",", ";", "\t", " ", "  "]
 
 

@@ -8,6 +8,10 @@ from hypothesis import strategies as st
 from benchfit.data import read_trace
 from benchfit.errors import InputError
 
+# A reader must answer damaged input with a result or an InputError, never with numpy
+# RuntimeWarnings printed on the user's terminal.
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 TIME_UNITS = {"s": 1.0, "ms": 1e3, "us": 1e6, "ns": 1e9}
 SIG_UNITS = {"V": 1.0, "mV": 1e3}
 
