@@ -142,15 +142,7 @@ def test_trace_row_with_a_stray_quote_after_the_exponent(tmp_path):
     assert "scope.csv" in str(e.value) and "8.265196e-0'" in str(e.value)
 
 
-def _no_runtime_warnings():
-    import warnings
-
-    ctx = warnings.catch_warnings()
-    ctx.__enter__()
-    warnings.simplefilter("error", RuntimeWarning)
-    return ctx
-
-
+@pytest.mark.filterwarnings("error::RuntimeWarning")
 def test_canonical_sweep_with_an_infinite_value_names_the_cell(tmp_path):
     # read_sweep (canonical CSV): an 'inf' in the im column printed numpy's "invalid value
     # encountered in multiply" before the FrequencyResponse check refused it (warnings seen
@@ -168,29 +160,23 @@ def test_canonical_sweep_with_an_infinite_value_names_the_cell(tmp_path):
     last[2] = "inf"
     lines[-1] = ",".join(last)
     p.write_text("\n".join(lines) + "\n")
-    ctx = _no_runtime_warnings()
-    try:
-        with pytest.raises(InputError) as e:
-            read_sweep(p)
-    finally:
-        ctx.__exit__(None, None, None)
+    with pytest.raises(InputError) as e:
+        read_sweep(p)
     assert e.value.line == len(lines) and e.value.column == "im"
 
 
+@pytest.mark.filterwarnings("error::RuntimeWarning")
 def test_trace_with_a_sample_interval_that_overflows_the_time_axis(tmp_path):
     # read_trace: "Sample interval,1e308" with a few samples made t0 + dt·k overflow
     # (numpy RuntimeWarning, found by test_damaged_exports_fuzz); now an InputError.
     p = tmp_path / "scope.csv"
     p.write_text("Sample interval,1e308\nTrigger point,0\nCH1\n1.0\n2.0\n3.0\n")
-    ctx = _no_runtime_warnings()
-    try:
-        with pytest.raises(InputError) as e:
-            read_trace(p)
-    finally:
-        ctx.__exit__(None, None, None)
+    with pytest.raises(InputError) as e:
+        read_trace(p)
     assert "scope.csv" in str(e.value) and "sample interval" in str(e.value)
 
 
+@pytest.mark.filterwarnings("error::RuntimeWarning")
 def test_block_with_a_signalling_nan_reads_without_a_warning():
     # bench.blocks.parse_block: a float32 signalling NaN raised numpy's "invalid value
     # encountered in cast" (found by test_damaged_blocks_fuzz).  IEEE 754 keeps it a NaN.
@@ -200,9 +186,5 @@ def test_block_with_a_signalling_nan_reads_without_a_warning():
 
     data = build_block(np.array([1.0, 2.0], dtype=np.float32), "real32")
     data = data[:-4] + b"\x7f\x80\x00\x01"  # big-endian float32 signalling NaN
-    ctx = _no_runtime_warnings()
-    try:
-        out = parse_block(data, "real32")
-    finally:
-        ctx.__exit__(None, None, None)
+    out = parse_block(data, "real32")
     assert out[0] == 1.0 and np.isnan(out[1])
