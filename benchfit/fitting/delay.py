@@ -19,11 +19,13 @@ from scipy import optimize
 
 from benchfit.fitting.order import (
     CHI_OK,
+    NEAR,
     NEGLIGIBLE,
     SCAN_ITER,
     SCAN_TOL,
     Attempt,
     Context,
+    OrderStepper,
     add_pole,
     attempt,
     better,
@@ -107,26 +109,46 @@ def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
 HOPELESS = 50.0
 
 
-def delay_stepper(ctx: Context, tau0: float) -> Callable[[int], Attempt]:
-    """An ``order -> Attempt`` step that searches the delay at each order.
+def coarse_search(ctx: Context, order: int, lo: float, hi: float, poles0, grid: int
+                  ) -> Attempt:
+    """A coarse delay search, polished when it lands just above the floor.
 
-    The search interval spans [τ/4, 2τ + 2/ω_max] around both the
-    excess-phase estimate ``tau0`` and the last delay that fitted well (the
-    excess-phase estimate is rough near resonances).
+    With little phase noise the residual's valley in the delay is narrower
+    than the coarse resolution (1e-2 rad at f_max): a delay that is right to
+    a few nanoseconds can leave the residual at 1.2× the floor and cost the
+    order a pole.  So a result between the floor and :data:`NEAR` times it
+    gets the fine search before the order is judged.
+    """
+    a = search_delay(ctx, order, lo, hi, poles0, fine=False, grid=grid)
+    if CHI_OK < a.chi <= NEAR * CHI_OK:
+        a = refine_delay(ctx, a)
+    return a
+
+
+def delay_stepper(ctx: Context, tau0: float) -> Callable[[int], Attempt]:
+    """An ``order -> Attempt`` step that searches the delay at each order near the floor.
+
+    Each order is first fitted like :func:`choose_order` does, with the delay
+    held at the best estimate so far (``tau0``, the excess-phase estimate, at
+    the start).  Unless the residual is still far above the floor
+    (:data:`HOPELESS`), the delay is then searched over [0, 2τ + 2/ω_max]
+    around both ``tau0`` and that estimate (the excess-phase estimate is rough
+    near resonances, and a right-half-plane zero makes one where there is no
+    delay), and the estimate moves to a delay that reaches the floor.
     """
     w_max = float(np.abs(ctx.s[-1])) * ctx.scale
-    centre = [tau0]
+    base = OrderStepper(ctx, tau0)
 
     def step(n: int) -> Attempt:
-        a0 = attempt(ctx, n, centre[0], max_iter=SCAN_ITER, tol=SCAN_TOL)
+        a0 = base(n)
         if a0.chi > HOPELESS * CHI_OK:
             return a0  # far too few poles for any delay to matter; save the search
-        lo = 0.25 * min(tau0, centre[0])
-        hi = 2.0 * max(tau0, centre[0]) + 2.0 / w_max
-        a = search_delay(ctx, n, lo, hi, a0.vf.poles, fine=False, grid=7)
+        hi = 2.0 * max(tau0, base.tau_s) + 2.0 / w_max
+        a = coarse_search(ctx, n, 0.0, hi, a0.vf.poles, grid=7)
         best = a if a.chi <= a0.chi else a0
+        base.prev[-1] = best  # the next orders start from the searched poles
         if best.chi <= 1.5 * CHI_OK:
-            centre[0] = best.tau_s
+            base.tau_s = best.tau_s
         return best
 
     return step
@@ -140,42 +162,37 @@ def refine_delay(ctx: Context, a: Attempt) -> Attempt:
     return b if b.chi <= a.chi else a
 
 
-def _interval(ctx: Context, tau0: float) -> tuple[float, float]:
-    """Delay search interval [0, 2τ0 + 2/ω_max] (the excess-phase estimate is rough
-    near resonances, and a right-half-plane zero makes one where there is no delay;
-    2/ω_max lets a small estimate grow)."""
-    w_max = float(np.abs(ctx.s[-1])) * ctx.scale
-    return 0.0, 2.0 * tau0 + 2.0 / w_max
-
-
 def choose_delay_order(ctx: Context, tau0: float, n_max: int | None = None
                        ) -> tuple[Attempt, Attempt | None, list[Attempt]]:
-    """Order and delay together, cheaply.
+    """Order and delay together.
 
-    The order is first scanned with the delay held at the excess-phase
-    estimate ``tau0`` (:func:`choose_order`).  A wrong delay only ever costs
-    extra poles, so the delay is then searched at the order found and at
-    successively lower orders, stepping down while the lower order (with its
-    own delay) is not significantly worse (:func:`better`).  The next order up
-    is returned too: a delay can soak up part of a damped pair near the top
-    of the band, and only the refinement can tell the two apart.
+    Orders are scanned with the delay searched at each order near the floor
+    (:func:`delay_stepper`) up to the first order that reaches the floor.
+    The order then steps down while one order less, with its own delay, is
+    not significantly worse (:func:`better`): a delay found late may make a
+    lower order enough.  The next order up is returned too: a delay can soak
+    up part of a damped pair near the top of the band, and only the
+    refinement can tell the two apart.
 
     Returns
     -------
     best, next_up, scan
         The chosen attempt, the one an order higher (or None) and the scan.
     """
-    first, scan = choose_order(ctx, tau0, n_max=n_max, first_at_floor=True)
+    first, scan = choose_order(ctx, step=delay_stepper(ctx, tau0), n_max=n_max,
+                               first_at_floor=True)
     by_order = {a.order: a for a in scan}
-    lo, hi = _interval(ctx, tau0)
+    w_max = float(np.abs(ctx.s[-1])) * ctx.scale
+    lo, hi = 0.0, 2.0 * max(tau0, first.tau_s) + 2.0 / w_max
     n_res = 2 * ctx.s.shape[0]
 
     def searched(n: int, start: Attempt | None, grid: int = 7) -> Attempt:
         poles0 = start.vf.poles if start is not None and np.isfinite(start.chi) else None
-        a = search_delay(ctx, n, lo, hi, poles0, fine=False, grid=grid)
+        a = coarse_search(ctx, n, lo, hi, poles0, grid=grid)
         return a if start is None or a.chi <= start.chi else start
 
-    cur = searched(first.order, first)
+    # The stepper searched the delay at every order not hopelessly far from the floor.
+    cur = first if first.chi <= HOPELESS * CHI_OK else searched(first.order, first)
     while cur.order > 1 and cur.chi <= 1.5 * CHI_OK:
         low = searched(cur.order - 1, by_order.get(cur.order - 1), grid=5)
         exact = low.chi <= NEGLIGIBLE  # noiseless data: any exact fit will do, take the smaller

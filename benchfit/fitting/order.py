@@ -144,6 +144,43 @@ def max_order(n_points: int, cap: int = 40) -> int:
     return int(max(0, min(cap, (n_points - 3) // 2)))
 
 
+class OrderStepper:
+    """The ``order -> Attempt`` step of :func:`choose_order` at a held delay.
+
+    For each order: a fresh log-spaced start, and the poles of order n-1
+    plus a real pole and of order n-2 plus a pair where the residual is
+    largest (VF from a fresh start can miss a weak feature near the band
+    edge); the best is kept, and near the floor iterated until it settles.
+
+    Attributes
+    ----------
+    tau_s
+        The delay held (a caller may move it between orders).
+    prev
+        The attempts so far, whose poles seed the warm starts; a caller may
+        replace the last one with a better attempt of the same order.
+    """
+
+    def __init__(self, ctx: Context, tau_s: float = 0.0, prior: list[Attempt] | None = None):
+        self.ctx, self.tau_s = ctx, tau_s
+        self.prev: list[Attempt] = sorted(prior or [], key=lambda x: x.order)
+
+    def __call__(self, n: int) -> Attempt:
+        ctx, tau_s, prev = self.ctx, self.tau_s, self.prev
+        a = attempt(ctx, n, tau_s, max_iter=SCAN_ITER, tol=SCAN_TOL)
+        for back in (1, 2):
+            if len(prev) >= back and prev[-back].order == n - back and np.isfinite(prev[-back].chi):
+                b = attempt(ctx, n, tau_s, poles0=add_pole(ctx, prev[-back], back),
+                            max_iter=SCAN_ITER, tol=SCAN_TOL)
+                a = b if b.chi < a.chi else a
+        if not a.vf.converged and a.chi <= NEAR * CHI_OK:
+            # Near the floor the order decision hangs on a few percent of
+            # residual: let the poles settle before judging.
+            a = settle(ctx, a, max_iter=3 * SCAN_ITER, tol=SCAN_TOL)
+        prev.append(a)
+        return a
+
+
 def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Attempt] | None = None,
                  n_max: int | None = None, n_min: int = 1, scan_all: bool = False,
                  prior: list[Attempt] | None = None, first_at_floor: bool = False
@@ -180,25 +217,7 @@ def choose_order(ctx: Context, tau_s: float = 0.0, *, step: Callable[[int], Atte
     if n_max < n_min:
         raise FitError(f"{ctx.s.shape[0]} points are too few to fit even order {n_min}")
     if step is None:
-        prev: list[Attempt] = sorted(prior or [], key=lambda x: x.order)
-
-        def step(n: int) -> Attempt:
-            # Fresh log-spaced start, and the poles of order n-1 plus a real pole
-            # and of order n-2 plus a pair where the residual is largest (VF
-            # from a fresh start can miss a weak feature near the band edge);
-            # keep the best.
-            a = attempt(ctx, n, tau_s, max_iter=SCAN_ITER, tol=SCAN_TOL)
-            for back in (1, 2):
-                if len(prev) >= back and prev[-back].order == n - back and np.isfinite(prev[-back].chi):
-                    b = attempt(ctx, n, tau_s, poles0=add_pole(ctx, prev[-back], back),
-                                max_iter=SCAN_ITER, tol=SCAN_TOL)
-                    a = b if b.chi < a.chi else a
-            if not a.vf.converged and a.chi <= NEAR * CHI_OK:
-                # Near the floor the order decision hangs on a few percent of
-                # residual: let the poles settle before judging.
-                a = settle(ctx, a, max_iter=3 * SCAN_ITER, tol=SCAN_TOL)
-            prev.append(a)
-            return a
+        step = OrderStepper(ctx, tau_s, prior)
     scan: list[Attempt] = []
     cand: Attempt | None = None
     n_res = 2 * ctx.s.shape[0]
