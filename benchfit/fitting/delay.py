@@ -70,21 +70,27 @@ def excess_phase_delay(freq_hz: np.ndarray, h: np.ndarray, top_fraction: float =
 COARSE_ITER = 3
 
 
+#: Delay resolution (rad of phase at f_max), Brent steps and relocations per trial, by level.
+#: "fine" lets noiseless data reach its exact fit; "polish" is finer than the phase noise of
+#: a good bench sweep (a few mrad); "coarse" is for scanning orders.
+LEVELS = {"fine": (1e-5, 30, SCAN_ITER), "polish": (1e-3, 12, COARSE_ITER + 1),
+          "coarse": (1e-2, 5, COARSE_ITER)}
+
+
 def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
-                 fine: bool = True, grid: int = 0) -> Attempt:
+                 level: str = "fine", grid: int = 0) -> Attempt:
     """Delay in [lo, hi] minimising the VF residual at ``order``.
 
     Optionally a coarse grid of ``grid`` points first (the residual against
     the delay can have several minima at a fixed order), then a bounded scalar
     (Brent) search between the best grid point's neighbours.  Each evaluation
-    is a short warm-started vector fit.  The fine resolution (1e-5 rad of
-    phase at the top frequency) lets noiseless data reach its exact fit; the
-    coarse one (1e-2 rad, few evaluations) is for scanning orders.
+    is a short warm-started vector fit; ``level`` sets the resolution
+    (:data:`LEVELS`).
     """
     w_max = float(np.abs(ctx.s[-1])) * ctx.scale
     cache: list[Attempt] = []
     start = [poles0]
-    iters = SCAN_ITER if fine else COARSE_ITER
+    xatol, maxiter, iters = LEVELS[level]
 
     def cost(tau: float) -> float:
         a = attempt(ctx, order, float(tau), poles0=start[0], max_iter=iters, tol=SCAN_TOL)
@@ -99,8 +105,8 @@ def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
         i = int(np.nanargmin(chis))
         lo, hi = taus[max(i - 1, 0)], taus[min(i + 1, grid - 1)]
         start[0] = cache[i].vf.poles if np.isfinite(cache[i].chi) else poles0
-    opts = {"xatol": 1e-5 / w_max, "maxiter": 30} if fine else {"xatol": 1e-2 / w_max, "maxiter": 5}
-    optimize.minimize_scalar(cost, bounds=(lo, hi), method="bounded", options=opts)
+    optimize.minimize_scalar(cost, bounds=(lo, hi), method="bounded",
+                             options={"xatol": xatol / w_max, "maxiter": maxiter})
     return min(cache, key=lambda a: a.chi)
 
 
@@ -119,9 +125,9 @@ def coarse_search(ctx: Context, order: int, lo: float, hi: float, poles0, grid: 
     order a pole.  So a result between the floor and :data:`NEAR` times it
     gets the fine search before the order is judged.
     """
-    a = search_delay(ctx, order, lo, hi, poles0, fine=False, grid=grid)
+    a = search_delay(ctx, order, lo, hi, poles0, level="coarse", grid=grid)
     if CHI_OK < a.chi <= NEAR * CHI_OK:
-        a = refine_delay(ctx, a)
+        a = refine_delay(ctx, a, level="polish")
     return a
 
 
@@ -154,11 +160,12 @@ def delay_stepper(ctx: Context, tau0: float) -> Callable[[int], Attempt]:
     return step
 
 
-def refine_delay(ctx: Context, a: Attempt) -> Attempt:
-    """Fine delay search at ``a``'s order, within ±10 % (+2 % of a radian at f_max) of its delay."""
+def refine_delay(ctx: Context, a: Attempt, level: str = "fine") -> Attempt:
+    """Delay search at ``a``'s order, within ±10 % (+2 % of a radian at f_max) of its delay."""
     w_max = float(np.abs(ctx.s[-1])) * ctx.scale
     span = 0.1 * a.tau_s + 2e-2 / w_max
-    b = search_delay(ctx, a.order, max(a.tau_s - span, 0.0), a.tau_s + span, a.vf.poles)
+    b = search_delay(ctx, a.order, max(a.tau_s - span, 0.0), a.tau_s + span, a.vf.poles,
+                     level=level)
     return b if b.chi <= a.chi else a
 
 
@@ -194,7 +201,9 @@ def choose_delay_order(ctx: Context, tau0: float, n_max: int | None = None
     # The stepper searched the delay at every order not hopelessly far from the floor.
     cur = first if first.chi <= HOPELESS * CHI_OK else searched(first.order, first)
     while cur.order > 1 and cur.chi <= 1.5 * CHI_OK:
-        low = searched(cur.order - 1, by_order.get(cur.order - 1), grid=5)
+        low = by_order.get(cur.order - 1)
+        if low is None or low.chi > HOPELESS * CHI_OK:  # not searched by the stepper
+            low = searched(cur.order - 1, low, grid=5)
         exact = low.chi <= NEGLIGIBLE  # noiseless data: any exact fit will do, take the smaller
         if not np.isfinite(low.chi) or (not exact and better(low, cur, n_res)):
             break
