@@ -371,8 +371,8 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
         extra = [nxt] if nxt is not None and np.isfinite(nxt.chi) else []
         # Below the delay order less two, the no-delay residual is far above the
         # floor (the delay scan's is already), so the no-delay scan starts there,
-        # warm-started from the delay scan's poles; from the bottom only when its
-        # first order already reaches the floor.
+        # warm-started from the delay scan's poles; it restarts DROP_STEP orders
+        # lower whenever its first order already reaches the floor.
         top = min(with_delay.order + 4, max_order(sub.s.shape[0]))
         n0 = with_delay.order - 2 + DROP_STEP
         while True:
