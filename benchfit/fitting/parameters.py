@@ -225,11 +225,6 @@ def response(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray:
     return out
 
 
-def log_response(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray:
-    """Complex log of :func:`response` (phase wrapped to (−π, π])."""
-    return np.log(response(st, values, s))
-
-
 def log_jacobian(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray:
     """d log H / d parameter, shape (len(s), P), complex (analytic)."""
     v = np.asarray(values, dtype=float)
