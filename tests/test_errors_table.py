@@ -15,9 +15,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from scenario_plants import buck_plant
 
 from benchfit.data import FrequencyResponse, TimeTrace, write_sweep_csv, write_trace_csv
-from benchfit.fitting.model import PlantModel
 from benchfit.loop.design import design
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.sensing import Sensing
@@ -40,18 +40,12 @@ def _rows():
     return rows
 
 
-def _plant() -> PlantModel:
-    # our own scenario: voltage-mode buck control-to-output, 5 kHz LC, ESR zero at 80 kHz
-    w0, q, wz = 2 * np.pi * 5e3, 2.0, 2 * np.pi * 80e3
-    return PlantModel(zeros=np.array([-wz]), poles=np.roots([1, w0 / q, w0 ** 2]), k=12 * w0 ** 2 / wz)
-
-
 @pytest.fixture(scope="module")
 def scratch(tmp_path_factory):
     """The example files the commands in docs/errors.md name."""
     d = tmp_path_factory.mktemp("errors_table")
     f = np.logspace(1, 6, 200)
-    m = _plant()
+    m = buck_plant()
     rng = np.random.default_rng(3)
     noisy = m.response(f) * (1 + 0.01 * rng.standard_normal(f.size))
     # an analyzer export (not benchfit's own CSV): frequency, dB, degrees

@@ -13,6 +13,7 @@ import pytest
 from fuzz_mutate import expect_own_error, mutation
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from scenario_plants import buck_plant
 
 from benchfit.data import FrequencyResponse
 from benchfit.fileio import to_json_text
@@ -35,16 +36,10 @@ FUZZ = settings(deadline=None, suppress_health_check=[HealthCheck.function_scope
                                                       HealthCheck.too_slow, HealthCheck.data_too_large])
 
 
-def _plant() -> PlantModel:
-    # our own scenario: an LC output filter with ESR zero (buck control-to-output)
-    w0, q, wz = 2 * np.pi * 5e3, 2.0, 2 * np.pi * 80e3
-    return PlantModel(zeros=np.array([-wz]), poles=np.roots([1, w0 / q, w0 ** 2]), k=12 * w0 ** 2 / wz)
-
-
 @pytest.fixture(scope="module")
 def valid_docs():
     """One valid JSON document of each kind benchfit writes (built once)."""
-    m = _plant()
+    m = buck_plant()
     f = np.logspace(1, 6, 120)
     resp = FrequencyResponse(freq_hz=f, response=m.response(f), quantity="plant")
     fr = fit(resp, order=2, delay="none")
@@ -116,7 +111,7 @@ def test_valid_documents_round_trip(valid_docs, tmp_path):
         assert json.loads(to_json_text(obj.to_dict())) == valid_docs[kind]
     f = np.logspace(1, 6, 120)
     np.testing.assert_allclose(PlantModel.from_json(tmp_path / "model.json").response(f),
-                               _plant().response(f), rtol=1e-12)
+                               buck_plant().response(f), rtol=1e-12)
 
 
 @NORMAL

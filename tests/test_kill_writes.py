@@ -18,9 +18,9 @@ import sys
 
 import numpy as np
 import pytest
+from scenario_plants import buck_plant
 
 from benchfit.data import read_sweep
-from benchfit.fitting.model import PlantModel
 from benchfit.loop.design import design
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.sensing import Sensing
@@ -85,23 +85,17 @@ sys.exit(main(argv))
 OLD = b"old contents that must survive\n"
 
 
-def _plant() -> PlantModel:
-    # our own scenario: voltage-mode buck control-to-output, 5 kHz LC, ESR zero at 80 kHz
-    w0, q, wz = 2 * np.pi * 5e3, 2.0, 2 * np.pi * 80e3
-    return PlantModel(zeros=np.array([-wz]), poles=np.roots([1, w0 / q, w0 ** 2]), k=12 * w0 ** 2 / wz)
-
-
 @pytest.fixture(scope="module")
 def inputs(tmp_path_factory):
     d = tmp_path_factory.mktemp("kill_inputs")
     f = np.logspace(1, 6, 150)
-    h = _plant().response(f)
+    h = buck_plant().response(f)
     (d / "sweep.csv").write_text("Frequency (Hz),Gain (dB),Phase (deg)\n" + "".join(
         f"{x:.9g},{20 * np.log10(abs(v)):.6f},{np.degrees(np.angle(v)):.5f}\n" for x, v in zip(f, h, strict=True)))
     (d / "lot").mkdir()
     (d / "lot" / "unit1.csv").write_bytes((d / "sweep.csv").read_bytes())
-    _plant().to_json(d / "model.json")
-    design(LoopPlant(_plant(), Sensing.divider(30e3, 10e3), name="buck", band_hz=(10, 1e6)), "type3",
+    buck_plant().to_json(d / "model.json")
+    design(LoopPlant(buck_plant(), Sensing.divider(30e3, 10e3), name="buck", band_hz=(10, 1e6)), "type3",
            Targets(20e3, 55, 10), draws=0).to_json(d / "design.json")
     return d
 
