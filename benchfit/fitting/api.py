@@ -124,11 +124,15 @@ def _clean_zpk(zeros, poles, k, f_min, f_max) -> tuple[np.ndarray, np.ndarray, f
     return zeros[keep_z], poles[keep_p], k, notes
 
 
+def _in_groups(name: str, groups: list[str]) -> bool:
+    """True if parameter ``name`` belongs to one of ``groups`` (``zero3``, ``pair2``...)."""
+    return name.rsplit("_", 1)[0] in groups or any(name.startswith(g + "_") for g in groups)
+
+
 def _without(st: Structure, values: np.ndarray, drop: list[str]) -> tuple[Structure, np.ndarray]:
     """Structure and values with the named zero groups (``zero3`` or ``zero_pair1``) removed."""
     names = st.names
-    keep = [i for i, nm in enumerate(names) if nm.rsplit("_", 1)[0] not in drop
-            and not any(nm.startswith(d + "_") for d in drop)]
+    keep = [i for i, nm in enumerate(names) if not _in_groups(nm, drop)]
     kept = tuple(names[i] for i in keep)
     st2 = Structure.from_names(kept, st.integrators)
     return st2, np.asarray(values)[keep]
@@ -267,8 +271,7 @@ def _below_noise(st: Structure, values: np.ndarray, groups: list[str], freq_hz: 
     buys comes from lining up with a run of noise, and a loop design cannot
     see it either.
     """
-    names = ("gain",) + tuple(nm for nm in st.names if nm.rsplit("_", 1)[0] in groups
-                              or any(nm.startswith(g + "_") for g in groups))
+    names = ("gain",) + tuple(nm for nm in st.names if _in_groups(nm, groups))
     v = dict(zip(st.names, values, strict=True), gain=1.0)
     st2 = Structure.from_names(names, 0)
     with np.errstate(all="ignore"):
