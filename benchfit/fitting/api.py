@@ -501,14 +501,23 @@ def fit(
         # Nothing to compare: refine and prune on every point straight away.
         idx, refit_sub = np.arange(n_pts), refit
     n_sub = 2 * idx.shape[0]
-    outcomes = []
+    starts = []
     for att in worth:
         try:
-            outcomes.append((att, *_physical(att, ctx, f, idx, delay, fixed, bounds, refit_sub)))
+            starts.append((att, *_start(att, ctx, f, delay, fixed, refit_sub)))
         except InputError:
             raise
         except (ValueError, np.linalg.LinAlgError):
             continue
+    # The most promising start is pruned first; a later one whose best possible
+    # outcome is out of reach of the best so far is not worth its pruning.
+    starts.sort(key=lambda o: _bic(o[2], n_sub))
+    outcomes = []
+    for att, st0, ref0, notes0 in starts:
+        if outcomes and _bic_floor(st0, ref0, f[-1], n_sub) > min(
+                _bic(o[2], n_sub) for o in outcomes) + CLOSE_CALL:
+            continue
+        outcomes.append((att, *_pruned(st0, ref0, notes0, ctx, f, idx, fixed, bounds, refit_sub)))
     if not outcomes:
         raise FitError("vector fitting failed: the model does not evaluate on the band "
                        "(check the data for gaps or exact zeros)")
@@ -587,11 +596,11 @@ def _final(st: Structure, ref: Refined, notes: list[str], refit, fixed, bounds, 
     return st, ref, notes
 
 
-def _physical(att: Attempt, ctx: Context, f, idx, delay, fixed, bounds, refit
-              ) -> tuple[Structure, Refined, list[str]]:
-    """VF attempt -> physical parameters -> refined, pruned fit (and its notes).
+def _start(att: Attempt, ctx: Context, f, delay, fixed, refit
+            ) -> tuple[Structure, Refined, list[str]]:
+    """VF attempt -> physical parameters -> a first, capped refinement (and notes).
 
-    ``refit`` refines on the points ``idx`` of the sweep ``f``.
+    ``refit`` refines on the points the scans used.
     """
     m, scale = ctx.integrators, ctx.scale
     fit_delay = delay == "auto" and att.tau_s > 0
@@ -600,9 +609,36 @@ def _physical(att: Attempt, ctx: Context, f, idx, delay, fixed, bounds, refit
     k_h = k * scale ** m  # the VF model was of H·(s/scale)^m
     has_delay = fit_delay or "delay_s" in fixed
     st, v0 = from_zpk(zeros, poles, k_h, att.tau_s, integrators=m, delay=has_delay)
-    # A first, capped refinement: spurious zeros above the band make it slow,
-    # and they are pruned next.
-    ref = refit(st, v0, max_nfev=40)
+    # Capped: spurious zeros above the band make it slow, and they are pruned next.
+    return st, refit(st, v0, max_nfev=40), notes
+
+
+def _bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int) -> float:
+    """The lowest BIC pruning could bring a start ``ref`` to, or −inf when unknown.
+
+    Pruning removes parameters (at most every zero group above the band or
+    near its top and every cancelling group) and never lowers χ² below the
+    optimum of the larger model it is nested in.  So when the first
+    refinement converged, its χ² with the fewest parameters pruning could
+    leave is a floor; a capped refinement may still go down and gives none.
+    """
+    if not ref.success or not np.isfinite(ref.chisqr):
+        return -np.inf
+    groups = [g for g, _ in _zero_groups_above(
+        st, ref.values, f_max, rhp_from=RHP_NEAR_TOP * f_max if st.delay else None)]
+    groups += [g for pair in _cancelling(st, ref.values) for g in pair]
+    p_min = sum(1 for nm in ref.varied if not _in_groups(nm, groups))
+    chisqr = max(ref.chisqr, n_res * NEGLIGIBLE ** 2)
+    return float(n_res * np.log(chisqr / n_res) + p_min * np.log(n_res))
+
+
+def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx, fixed, bounds,
+            refit) -> tuple[Structure, Refined, list[str]]:
+    """A started hypothesis (:func:`_start`) with the groups the data do not need pruned.
+
+    ``refit`` refines on the points ``idx`` of the sweep ``f``.
+    """
+    notes = list(notes)
     n_res = 2 * idx.shape[0]
     n_drop = 0
     if not any(key.startswith("zero") for key in list(fixed) + list(bounds or {})):
