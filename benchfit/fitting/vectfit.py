@@ -30,7 +30,9 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg
+from scipy.linalg.lapack import dgeev as _dgeev
 from scipy.linalg.lapack import dgeqrf as _dgeqrf
+from scipy.linalg.lapack import dtrtrs as _dtrtrs
 
 from benchfit.errors import FitError
 
@@ -136,16 +138,27 @@ def _colscale(a: np.ndarray) -> np.ndarray:
 
 
 def _r_factor(a: np.ndarray) -> np.ndarray:
-    """Upper-triangular R of a = QR (square, ``a.shape[1]`` rows), Q never formed.
+    """R of a = QR in the upper triangle of the returned square block, Q never formed.
 
     LAPACK's dgeqrf directly: numpy's ``qr(mode="r")`` costs twice as much on
-    the small systems vector fitting solves hundreds of times per fit.
+    the small systems vector fitting solves hundreds of times per fit.  Below
+    the diagonal are LAPACK's reflectors: read the block only through
+    :func:`_solve_upper` or its diagonal.
     """
     qr, _, _, info = _dgeqrf(a)
     if info != 0:
         raise linalg.LinAlgError(f"QR factorisation failed (info {info})")
     m = a.shape[1]
-    return np.triu(qr[:m, :m])
+    return qr[:m, :m]
+
+
+def _solve_upper(r: np.ndarray, b: np.ndarray) -> np.ndarray | None:
+    """x with triu(r)·x = b, or None when triu(r) is numerically singular."""
+    d = np.abs(np.diag(r))
+    if not d.size or not d.min() > 1e-13 * d.max():
+        return None
+    x, info = _dtrtrs(r, b)
+    return x if info == 0 else None
 
 
 def _state_matrix(poles: np.ndarray, kind: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -170,49 +183,54 @@ def _relocate(s, h, w, poles, direct, proportional):
     n_s, n = phi.shape
     n_num = n + int(direct) + int(proportional)
     ncol = n_num + n + 1
-    # Real system [num | den], complex rows stacked as (real; imag), built in
-    # place, column-major for LAPACK.
-    a = np.empty((2 * n_s, ncol), order="F")
+    # Real system [num | den | rhs]: the complex rows stacked as (real; imag)
+    # with a zero right-hand side, then the relaxation row, built in place,
+    # column-major for LAPACK.
+    m = 2 * n_s
+    a = np.zeros((m + 1, ncol + 1), order="F")
     wphi = w[:, None] * phi
-    a[:n_s, :n], a[n_s:, :n] = wphi.real, wphi.imag
+    a[:n_s, :n], a[n_s:m, :n] = wphi.real, wphi.imag
     j = n
     if direct:
-        a[:n_s, j], a[n_s:, j] = w, 0.0
+        a[:n_s, j] = w
         j += 1
     if proportional:
-        a[:n_s, j], a[n_s:, j] = (w * s).real, (w * s).imag
+        a[:n_s, j], a[n_s:m, j] = (w * s).real, (w * s).imag
         j += 1
     wh = w * h
     den = -wh[:, None] * phi
-    a[:n_s, j: j + n], a[n_s:, j: j + n] = den.real, den.imag
-    a[:n_s, -1], a[n_s:, -1] = -wh.real, -wh.imag
-    scale_cols = _colscale(a)
-    a *= scale_cols
+    a[:n_s, j: j + n], a[n_s:m, j: j + n] = den.real, den.imag
+    a[:n_s, ncol - 1], a[n_s:m, ncol - 1] = -wh.real, -wh.imag
+    scale_cols = _colscale(a[:m, :ncol])
+    a[:m, :ncol] *= scale_cols
     # Relaxation row: Re sum_k sigma(s_k) = n_s, scaled like the data rows.
     scale = np.linalg.norm(wh) / n_s
-    relax = np.empty(n + 1)
-    relax[:n] = phi.real.sum(axis=0)
-    relax[n] = n_s
-    relax *= scale * scale_cols[n_num:]
-    # Fast VF: QR of [num | den]; only the R22 block (sigma unknowns) matters
-    # because the right-hand side of these rows is zero.
+    a[m, n_num: n_num + n] = phi.real.sum(axis=0)
+    a[m, ncol - 1] = n_s
+    a[m, n_num:ncol] *= scale * scale_cols[n_num:]
+    a[m, ncol] = n_s * scale
+    # Fast VF: one QR of the whole system; the sigma unknowns come from the
+    # R22 block and its slice of the transformed right-hand side alone, since
+    # the numerator unknowns are free.
     r = _r_factor(a)
-    lhs = np.vstack([r[n_num: n_num + n + 1, n_num:], relax[None, :]])
-    rhs = np.zeros(lhs.shape[0])
-    rhs[-1] = n_s * scale
-    x = np.linalg.lstsq(lhs, rhs, rcond=None)[0]
+    x = _solve_upper(r[n_num:ncol, n_num:ncol], r[n_num:ncol, ncol])
+    if x is None:
+        x = np.linalg.lstsq(np.triu(r[n_num:ncol, n_num:ncol]), r[n_num:ncol, ncol], rcond=None)[0]
     x = x * scale_cols[n_num:]
     c_sig, d_sig = x[:n], x[n]
     if abs(d_sig) < _RELAX_TOL or not np.isfinite(d_sig):
         # Degenerate relaxed solution (Gustavsen 2006, sec. III): fix d~ and re-solve.
         d_fix = _RELAX_TOL if not (d_sig < 0) else -_RELAX_TOL
-        b2 = -a[:, -1] * (d_fix / scale_cols[-1])
-        y = np.linalg.lstsq(a[:, :-1], b2, rcond=None)[0]
+        b2 = -a[:m, ncol - 1] * (d_fix / scale_cols[-1])
+        y = np.linalg.lstsq(a[:m, : ncol - 1], b2, rcond=None)[0]
         c_sig = y[n_num:] * scale_cols[n_num:-1]
         d_sig = d_fix
     # Zeros of sigma: eig(A - b c~ / d~) in real state-space form.
     am, bm = _state_matrix(poles, kind)
-    new = np.linalg.eigvals(am - np.outer(bm, c_sig) / d_sig)
+    wr, wi, _, _, info = _dgeev(am - np.outer(bm, c_sig) / d_sig, compute_vl=0, compute_vr=0)
+    if info != 0:
+        raise linalg.LinAlgError(f"eigenvalues did not converge (info {info})")
+    new = wr + 1j * wi
     flipped = -np.conj(new[new.real > 0])
     new = np.where(new.real > 0, -np.conj(new), new)
     # A pole exactly on the axis would make the basis singular on a measured point.
@@ -249,11 +267,11 @@ def fit_residues(s, h, w, poles, direct=True, proportional=False):
     sc = _colscale(a[:, :m])
     a[:, :m] *= sc
     r = _r_factor(a)
-    diag = np.abs(np.diag(r)[:m])
-    if m and diag.min() > 1e-10 * diag.max():
-        x = linalg.solve_triangular(r[:m, :m], r[:m, m], check_finite=False) * sc
-    else:
-        x = np.linalg.lstsq(a[:, :m], a[:, m], rcond=None)[0] * sc
+    d = np.abs(np.diag(r)[:m])
+    x = _solve_upper(r[:m, :m], r[:m, m]) if m and d.min() > 1e-10 * d.max() else None
+    if x is None:
+        x = np.linalg.lstsq(a[:, :m], a[:, m], rcond=None)[0]
+    x = x * sc
     res = _coeffs_to_residues(x[:n], kind)
     d = float(x[n]) if direct else 0.0
     e = float(x[n + int(direct)]) if proportional else 0.0
