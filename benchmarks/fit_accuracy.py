@@ -49,6 +49,7 @@ def run(seeds: int, delay_s: float) -> None:
     truth = converter_plant(delay_s=delay_s)
     truth_params = dict(TRUTH, **({"delay_s": delay_s} if delay_s else {}))
     errs, ratios, times, cpu, right_order, converged = [], [], [], [], 0, 0
+    shape_bad = []
     inside = {k: 0 for k in truth_params}
     counted = {k: 0 for k in truth_params}
     for seed in range(seeds):
@@ -60,6 +61,9 @@ def run(seeds: int, delay_s: float) -> None:
         converged += bool(res.stats["converged"])
         ok = res.stats["order"] == 8 and (res.model.delay_s > 0) == (delay_s > 0)
         right_order += ok
+        if not ok:
+            shape_bad.append(f"{1000 + seed} (order {res.stats['order']}, delay "
+                             f"{res.model.delay_s * 1e9:.3g} ns)")
         ratios.append(res.stats["residual_over_floor"])
         errs.append(_pole_freq_error(res.model.poles, truth.poles))
         if ok:
@@ -90,6 +94,8 @@ def run(seeds: int, delay_s: float) -> None:
     bad = [f"{1000 + i}" for i, e in enumerate(errs) if not np.isfinite(e) or e > 0.015]
     if bad:
         print(f"   seeds with a wrong order or a pole error above 1.5 %: {', '.join(bad)}")
+    if shape_bad:
+        print(f"   seeds fitted with another shape: {', '.join(shape_bad)}")
 
 
 def main() -> None:

@@ -183,8 +183,31 @@ def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float,
     return out
 
 
+def _with_delay(st: Structure, values: np.ndarray, tau: float) -> tuple[Structure, np.ndarray]:
+    """Structure and values with a delay parameter (``tau`` seconds) appended."""
+    st2 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
+                    st.integrators, True)
+    return st2, np.append(values, tau)
+
+
+def _delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray
+                 ) -> tuple[list[str], float] | None:
+    """Zero groups a delay could stand in for in a model without one, and that delay.
+
+    The groups are the zeros above the band and the right-half-plane zeros
+    near its top (:func:`_zero_groups_above`); the delay is the one whose
+    phase matches theirs (:func:`_dropped_phase_as_delay`).  None when there
+    are none or their phase is not a lag worth a delay parameter.
+    """
+    groups = [g for g, _ in _zero_groups_above(st, values, f_max, rhp_from=RHP_NEAR_TOP * f_max)]
+    if not groups:
+        return None
+    tau = _dropped_phase_as_delay(st, values, groups, w)
+    return (groups, tau) if tau * float(w[-1]) >= DELAY_MIN_PHASE else None
+
+
 def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
-                 w: np.ndarray | None = None, delay_free: bool = False
+                 w: np.ndarray | None = None, delay_free: bool = False, add_delay: bool = False
                  ) -> tuple[Structure, Refined, int]:
     """Drop zeros above the band that the data do not need.
 
@@ -197,21 +220,36 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
     are tried at once first, then one at a time (highest frequency first).
     With ``delay_free`` (a fitted delay) the delay takes over the dropped
     zeros' phase over ``w`` (rad/s), see :func:`_dropped_phase_as_delay`.
+    With ``add_delay`` a model without a delay is offered one in place of
+    its lagging zeros near and above the top of the band when dropping all
+    zeros above the band fails (:func:`_delay_trial`): a short delay, a
+    radian or two at the top of the band, is otherwise fitted as a cluster
+    of such zeros (one parameter fewer per zero dropped, one more for the
+    delay).
     """
     penalty = float(np.log(n_res))
     dropped = 0
     while True:
         groups = _zero_groups_above(st, ref.values, f_max, rhp_from=(
             RHP_NEAR_TOP * f_max if delay_free and st.delay else None))
-        if not groups or not np.isfinite(ref.redchi) or ref.redchi <= 0:
+        if not np.isfinite(ref.redchi) or ref.redchi <= 0:
             return st, ref, dropped
         groups.sort(key=lambda g: -g[1])
-        trials = [[g for g, _ in groups]]
+        trials: list[tuple[list[str], float | None]] = []
+        if groups:
+            trials.append(([g for g, _ in groups], None))
+        # The swap comes after plain dropping: a delay only when the zeros are needed.
+        swap = _delay_trial(st, ref.values, f_max, w) if (
+            add_delay and not st.delay and w is not None) else None
+        if swap is not None:
+            trials.append(swap)
         if len(groups) > 1:
-            trials += [[g] for g, _ in groups]
-        for drop in trials:
+            trials += [([g], None) for g, _ in groups]
+        for drop, tau in trials:
             st2, v2 = _without(st, ref.values, drop)
-            if delay_free and st2.delay and w is not None:
+            if tau is not None:
+                st2, v2 = _with_delay(st2, v2, tau)
+            elif delay_free and st2.delay and w is not None:
                 v2 = v2.copy()
                 v2[-1] += _dropped_phase_as_delay(st, ref.values, drop, w)
             ref2 = refit(st2, v2, max_nfev=40)
@@ -512,12 +550,14 @@ def fit(
     # The most promising start is pruned first; a later one whose best possible
     # outcome is out of reach of the best so far is not worth its pruning.
     starts.sort(key=lambda o: _bic(o[2], n_sub))
+    may_add = delay == "auto" and "delay_s" not in fixed
     outcomes = []
     for att, st0, ref0, notes0 in starts:
-        if outcomes and _bic_floor(st0, ref0, f[-1], n_sub) > min(
+        if outcomes and _bic_floor(st0, ref0, f[-1], n_sub, may_add) > min(
                 _bic(o[2], n_sub) for o in outcomes) + CLOSE_CALL:
             continue
-        outcomes.append((att, *_pruned(st0, ref0, notes0, ctx, f, idx, fixed, bounds, refit_sub)))
+        outcomes.append((att, *_pruned(st0, ref0, notes0, ctx, f, idx, fixed, bounds, refit_sub,
+                                       add_delay=may_add)))
     if not outcomes:
         raise FitError("vector fitting failed: the model does not evaluate on the band "
                        "(check the data for gaps or exact zeros)")
@@ -613,7 +653,8 @@ def _start(att: Attempt, ctx: Context, f, delay, fixed, refit
     return st, refit(st, v0, max_nfev=40), notes
 
 
-def _bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int) -> float:
+def _bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int,
+               add_delay: bool = False) -> float:
     """The lowest BIC pruning could bring a start ``ref`` to, or −inf when unknown.
 
     Pruning removes parameters (at most every zero group above the band or
@@ -621,29 +662,37 @@ def _bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int) -> float:
     optimum of the larger model it is nested in.  So when the first
     refinement converged, its χ² with the fewest parameters pruning could
     leave is a floor; a capped refinement may still go down and gives none.
+    ``add_delay``: pruning may swap lagging zeros for a delay (:func:`_prune_zeros`).
     """
     if not ref.success or not np.isfinite(ref.chisqr):
         return -np.inf
-    groups = [g for g, _ in _zero_groups_above(
-        st, ref.values, f_max, rhp_from=RHP_NEAR_TOP * f_max if st.delay else None)]
-    groups += [g for pair in _cancelling(st, ref.values) for g in pair]
-    p_min = sum(1 for nm in ref.varied if not _in_groups(nm, groups))
+    cancel = [g for pair in _cancelling(st, ref.values) for g in pair]
+    near = RHP_NEAR_TOP * f_max
+    p_min = min(
+        sum(1 for nm in ref.varied if not _in_groups(nm, cancel + [g for g, _ in _zero_groups_above(
+            st, ref.values, f_max, rhp_from=near if st.delay or swap else None)])) + int(swap)
+        for swap in ((False, True) if add_delay and not st.delay else (False,)))
     chisqr = max(ref.chisqr, n_res * NEGLIGIBLE ** 2)
     return float(n_res * np.log(chisqr / n_res) + p_min * np.log(n_res))
 
 
 def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx, fixed, bounds,
-            refit) -> tuple[Structure, Refined, list[str]]:
+            refit, add_delay: bool = False) -> tuple[Structure, Refined, list[str]]:
     """A started hypothesis (:func:`_start`) with the groups the data do not need pruned.
 
-    ``refit`` refines on the points ``idx`` of the sweep ``f``.
+    ``refit`` refines on the points ``idx`` of the sweep ``f``; ``add_delay``:
+    lagging zeros near and above the top of the band may become a delay.
     """
     notes = list(notes)
     n_res = 2 * idx.shape[0]
     n_drop = 0
     if not any(key.startswith("zero") for key in list(fixed) + list(bounds or {})):
+        had_delay = st.delay
         st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1], n_res, TWO_PI * f[idx],
-                                       delay_free="delay_s" not in fixed)
+                                       delay_free="delay_s" not in fixed, add_delay=add_delay)
+        if st.delay and not had_delay:
+            notes.append("a delay fits the phase lag that zeros near and above the top of the "
+                         "band had taken")
         if n_drop:
             where = "above or, with a delay, near the top of" if st.delay else "above"
             notes.append(f"dropped {n_drop} zero(s) {where} the band that the data do not need")
