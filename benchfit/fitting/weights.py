@@ -15,16 +15,21 @@ A coherence or weight column is used only when it explains the scatter at
 least as well as the running scatter estimate does (likelihood of the third
 differences); otherwise the scatter wins and the source says so.
 
-The scatter is the robust spread of third differences (for white noise,
+The scatter is the spread of third differences (for white noise,
 var(x[k+2] − 3x[k+1] + 3x[k] − x[k−1]) = 20σ²; third differences cancel the
 curvature a sparse sweep shows), taken in a running window so a noise floor
-that rises where the response is small is followed.  All of it is
-relative: multiplying the data by a constant changes no weight.
+that rises where the response is small is followed: a running median first
+(robust to glitches and curvature), then the running mean square of the
+third differences clipped at three times that median (for Gaussian noise
+the mean square has about 2.7 times the efficiency of the median absolute
+deviation, so the window's σ wanders far less).  All of it is relative:
+multiplying the data by a constant changes no weight.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from math import erf, erfc
 
 import numpy as np
 from scipy import ndimage
@@ -58,9 +63,24 @@ class PointSigma:
 
 
 def _window(n: int) -> int:
-    w = max(21, n // 10)
+    """Running-window length: a sixth of the sweep (at least 21 points), odd.
+
+    A sixth rather than a tenth: on a 401-point sweep of white noise the
+    estimate's spread along the sweep (sd of ln σ) fell from 0.23 to 0.12 and
+    its lowest value from 0.57 to 0.73 of the truth (median over seeds,
+    measured here), while a floor rising tenfold over the band is still
+    followed to about 10 %.
+    """
+    w = max(21, n // 6)
     w = min(w, n)
     return w if w % 2 else max(w - 1, 1)
+
+
+#: Third differences beyond this many running-median σ are clipped in the mean square.
+CLIP = 3.0
+#: E[min(z², CLIP²)] for a standard normal z: the clipped mean square's bias, divided out.
+_CLIP_MEAN = float((erf(CLIP / np.sqrt(2.0)) - 2.0 * CLIP * np.exp(-0.5 * CLIP * CLIP)
+                    / np.sqrt(2.0 * np.pi)) + CLIP * CLIP * erfc(CLIP / np.sqrt(2.0)))
 
 
 def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
@@ -82,12 +102,24 @@ def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
         scale = _MAD * np.median(d3 / r)
         return np.maximum(scale * rel, SIGMA_MIN)
     d3 = np.concatenate([d3[:1], d3, d3[-2:]])
+    win = _window(n)
     # "mirror", not "nearest": padding by repeating the end value would make half
     # of an end window one sample, so the ends' σ was one third difference's luck.
-    local = _MAD * ndimage.median_filter(d3, size=_window(n), mode="mirror")
     glob = _MAD * np.median(d3)
     # A local estimate far below the global one is curvature luck, not a quieter meter.
-    return np.maximum(np.maximum(local, 0.3 * glob), SIGMA_MIN)
+    med = np.maximum(_MAD * ndimage.median_filter(d3, size=win, mode="mirror"), 0.3 * glob)
+    clipped = np.minimum(d3, CLIP * med) ** 2
+    local = np.maximum(np.sqrt(ndimage.uniform_filter1d(clipped, size=win, mode="mirror")
+                               / _CLIP_MEAN), 0.3 * glob)
+    flat = np.full(n, np.sqrt(np.mean(np.minimum(d3, CLIP * glob) ** 2) / _CLIP_MEAN))
+    # One σ for the whole sweep unless the running one explains the third
+    # differences better by more than Schwarz's penalty for its freedom (about
+    # one value per window): with a flat floor the running estimate's wander
+    # only mis-weights points.
+    k = max(n / win - 1.0, 1.0)
+    if _loglik(x, local) - _loglik(x, flat) <= 0.5 * k * np.log(n):
+        local = flat
+    return np.maximum(local, SIGMA_MIN)
 
 
 def point_sigma(h: np.ndarray, stddev=None, coherence=None, weight=None) -> PointSigma:
