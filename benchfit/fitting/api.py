@@ -44,6 +44,9 @@ ZERO_LIMIT = 3.0
 #: With a fitted delay, right-half-plane zeros above this fraction of the top frequency
 #: are tested for dropping like zeros above the band (see _zero_groups_above).
 RHP_NEAR_TOP = 1.0 / 3.0
+#: Evaluations a pruning trial gets: a group the data do not need leaves the rest
+#: next to its optimum (5..10 evaluations); one they need stays far above the bar.
+TRIAL_NFEV = 20
 #: A delay whose phase at f_max is below this (rad) is not worth a parameter.
 DELAY_MIN_PHASE = 0.05
 #: Residual above this multiple of the noise floor gets a warning (common practice, no source).
@@ -183,6 +186,16 @@ def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float,
     return out
 
 
+def _trial(refit, st: Structure, values: np.ndarray, ref: Refined, bar: float) -> Refined:
+    """A pruning trial's refinement: :data:`TRIAL_NFEV` evaluations, as many again when
+    it stopped at the cap within twice the ``bar`` (χ² rise in units of the reduced
+    χ² of ``ref``) of passing."""
+    ref2 = refit(st, values, max_nfev=TRIAL_NFEV)
+    if not ref2.success and (ref2.chisqr - ref.chisqr) / ref.redchi <= 2.0 * bar:
+        ref2 = refit(st, ref2.values, max_nfev=TRIAL_NFEV)
+    return ref2
+
+
 def _with_delay(st: Structure, values: np.ndarray, tau: float) -> tuple[Structure, np.ndarray]:
     """Structure and values with a delay parameter (``tau`` seconds) appended."""
     st2 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
@@ -252,8 +265,8 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
             elif delay_free and st2.delay and w is not None:
                 v2 = v2.copy()
                 v2[-1] += _dropped_phase_as_delay(st, ref.values, drop, w)
-            ref2 = refit(st2, v2, max_nfev=40)
             dp = len(st.names) - len(st2.names)
+            ref2 = _trial(refit, st2, v2, ref, penalty * dp)
             if (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
                 st, ref = st2, ref2
                 dropped += len(drop)
@@ -336,8 +349,8 @@ def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: n
     while np.isfinite(ref.redchi) and ref.redchi > 0:
         for drop in _cancelling(st, ref.values):
             st2, v2 = _without(st, ref.values, drop)
-            ref2 = refit(st2, v2, max_nfev=40)
             dp = len(st.names) - len(st2.names)
+            ref2 = _trial(refit, st2, v2, ref, penalty * dp)
             narrow = all(_narrower_than_spacing(st, ref.values, g, freq_hz) for g in drop)
             faint = _below_noise(st, ref.values, drop, freq_hz, sigma)
             if narrow or faint or (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
@@ -360,6 +373,9 @@ def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, boo
 #: on every point (a difference above 10 is "very strong" evidence: R. E. Kass and
 #: A. E. Raftery, "Bayes factors", J. Amer. Statist. Assoc. 90(430), 1995).
 CLOSE_CALL = 10.0
+#: Evaluations a pruned hypothesis gets before it is judged against the others (one
+#: still within reach of the best is then refined to convergence).
+PRUNED_NFEV = 60
 #: When the no-delay scan's first order already reaches the floor, it restarts this
 #: many orders lower.
 DROP_STEP = 3
@@ -558,6 +574,12 @@ def fit(
             continue
         outcomes.append((att, *_pruned(st0, ref0, notes0, ctx, f, idx, fixed, bounds, refit_sub,
                                        add_delay=may_add)))
+    # A hypothesis whose refinement stopped at its cap is refined to the end when
+    # it is still in the running; one far behind is left where it stopped.
+    for i, (att, st_, ref_, nt) in enumerate(outcomes):
+        if not ref_.success and _bic(ref_, n_sub) - min(
+                _bic(o[2], n_sub) for o in outcomes) < 2 * CLOSE_CALL:
+            outcomes[i] = (att, st_, refit_sub(st_, ref_.values), nt)
     if not outcomes:
         raise FitError("vector fitting failed: the model does not evaluate on the band "
                        "(check the data for gaps or exact zeros)")
@@ -703,7 +725,9 @@ def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx,
             notes.append(_cancel_note(n_cancel))
             n_drop += n_cancel
     if not ref.success or n_drop:
-        ref = refit(st, ref.values)  # the capped runs above may have stopped short
+        # The capped runs above may have stopped short.  Capped again: only a
+        # hypothesis still in the running is refined to the end (see fit()).
+        ref = refit(st, ref.values, max_nfev=PRUNED_NFEV)
     return st, ref, notes
 
 
