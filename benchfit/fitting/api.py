@@ -542,9 +542,17 @@ def fit(
     idx = ctx.subsample_index(SCAN_POINTS)
     sig_abs_sub = None if sig_abs is None else sig_abs[idx]
 
+    # Trial refinements that only compare χ² between candidates run without
+    # lmfit's per-call overhead (same algorithm, refine(quick=True)); the
+    # refinement the result reports goes through lmfit (_final).
     def refit_sub(st_, v_, max_nfev=200):
         return refine(st_, v_, s[idx], h[idx], sigma.mag[idx], sigma.phase[idx], fix=fixed,
-                      bounds=bounds, weighting=weighting, sig_abs=sig_abs_sub, max_nfev=max_nfev)
+                      bounds=bounds, weighting=weighting, sig_abs=sig_abs_sub, max_nfev=max_nfev,
+                      quick=True)
+
+    def refit_quick(st_, v_, max_nfev=200):
+        return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
+                      weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev, quick=True)
 
     def refit(st_, v_, max_nfev=200):
         return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
@@ -553,7 +561,7 @@ def fit(
     worth = _screen(cands, 2 * idx.shape[0])
     if len(worth) == 1:
         # Nothing to compare: refine and prune on every point straight away.
-        idx, refit_sub = np.arange(n_pts), refit
+        idx, refit_sub = np.arange(n_pts), refit_quick
     n_sub = 2 * idx.shape[0]
     starts = []
     for att in worth:
@@ -592,11 +600,11 @@ def fit(
     close = [o for o in outcomes if _bic(o[2], n_sub) - best_bic < CLOSE_CALL]
     if len(close) > 1 and not on_all:
         # A close call on the thinned copy is decided on every point.
-        close = [(a, st_, refit(st_, ref_.values), nt) for a, st_, ref_, nt in close]
+        close = [(a, st_, refit_quick(st_, ref_.values), nt) for a, st_, ref_, nt in close]
         close.sort(key=lambda o: _bic(o[2], 2 * n_pts))
-        outcomes, on_all = close, True
+        outcomes = close
     att, st, ref, notes = outcomes[0]
-    st, ref, notes = _final(st, ref, notes, refit, fixed, bounds, f, sigma, on_every_point=on_all)
+    st, ref, notes = _final(st, ref, notes, refit, refit_quick, fixed, bounds, f, sigma)
     return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
 
 
@@ -630,18 +638,21 @@ def _cancel_note(n: int) -> str:
     return f"dropped {n} nearly cancelling pole/zero group(s) that the data do not need"
 
 
-def _final(st: Structure, ref: Refined, notes: list[str], refit, fixed, bounds, f, sigma,
-           on_every_point: bool = False) -> tuple[Structure, Refined, list[str]]:
-    """Refine the chosen structure on every point; drop a delay that is not significant.
+def _final(st: Structure, ref: Refined, notes: list[str], refit, trial, fixed, bounds, f, sigma
+           ) -> tuple[Structure, Refined, list[str]]:
+    """Refine the chosen structure on every point with lmfit; drop a delay that is not
+    significant.
 
     On every point a pair the thinned copy could not see (a spike between its
     points) may appear and cancel with a zero pair: the cancelling check runs
-    again here.  ``on_every_point``: ``ref`` was refined on every point already.
+    again here, its trials refined by ``trial`` (:func:`refine` with ``quick``).
+    ``ref`` may come from the thinned copy or from every point: the lmfit
+    refinement starts from its values either way (from an optimum on every
+    point it takes a few evaluations).
     """
-    if not on_every_point:
-        ref = refit(st, ref.values)
+    ref = refit(st, ref.values)
     if _may_prune_cancelling(fixed, bounds):
-        st, ref, n_cancel = _prune_cancelling(st, ref, refit, 2 * f.shape[0], f, sigma)
+        st, ref, n_cancel = _prune_cancelling(st, ref, trial, 2 * f.shape[0], f, sigma)
         if n_cancel:
             notes = [*notes, _cancel_note(n_cancel)]
             ref = refit(st, ref.values)
