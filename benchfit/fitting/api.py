@@ -559,9 +559,11 @@ def fit(
                       weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev)
 
     worth = _screen(cands, 2 * idx.shape[0])
-    if len(worth) == 1:
-        # Nothing to compare: refine and prune on every point straight away.
-        idx, refit_sub = np.arange(n_pts), refit_quick
+    trial_sub = refit_sub
+    single = len(worth) == 1
+    if single:
+        # Nothing to compare: refine (lmfit) and prune on every point straight away.
+        idx, refit_sub, trial_sub = np.arange(n_pts), refit, refit_quick
     n_sub = 2 * idx.shape[0]
     starts = []
     for att in worth:
@@ -581,7 +583,7 @@ def fit(
                 _bic(o[2], n_sub) for o in outcomes) + CLOSE_CALL:
             continue
         outcomes.append((att, *_pruned(st0, ref0, notes0, ctx, f, idx, fixed, bounds, refit_sub,
-                                       add_delay=may_add)))
+                                       add_delay=may_add, trial=trial_sub)))
     # A hypothesis whose refinement stopped at its cap is refined to the end when
     # it is still in the running; one far behind is left where it stopped.
     for i, (att, st_, ref_, nt) in enumerate(outcomes):
@@ -604,7 +606,8 @@ def fit(
         close.sort(key=lambda o: _bic(o[2], 2 * n_pts))
         outcomes = close
     att, st, ref, notes = outcomes[0]
-    st, ref, notes = _final(st, ref, notes, refit, refit_quick, fixed, bounds, f, sigma)
+    st, ref, notes = _final(st, ref, notes, refit, refit_quick, fixed, bounds, f, sigma,
+                            refined=single)
     return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
 
 
@@ -638,8 +641,8 @@ def _cancel_note(n: int) -> str:
     return f"dropped {n} nearly cancelling pole/zero group(s) that the data do not need"
 
 
-def _final(st: Structure, ref: Refined, notes: list[str], refit, trial, fixed, bounds, f, sigma
-           ) -> tuple[Structure, Refined, list[str]]:
+def _final(st: Structure, ref: Refined, notes: list[str], refit, trial, fixed, bounds, f, sigma,
+           refined: bool = False) -> tuple[Structure, Refined, list[str]]:
     """Refine the chosen structure on every point with lmfit; drop a delay that is not
     significant.
 
@@ -648,9 +651,11 @@ def _final(st: Structure, ref: Refined, notes: list[str], refit, trial, fixed, b
     again here, its trials refined by ``trial`` (:func:`refine` with ``quick``).
     ``ref`` may come from the thinned copy or from every point: the lmfit
     refinement starts from its values either way (from an optimum on every
-    point it takes a few evaluations).
+    point it takes a few evaluations).  ``refined``: ``ref`` is lmfit's on every
+    point already.
     """
-    ref = refit(st, ref.values)
+    if not refined:
+        ref = refit(st, ref.values)
     if _may_prune_cancelling(fixed, bounds):
         st, ref, n_cancel = _prune_cancelling(st, ref, trial, 2 * f.shape[0], f, sigma)
         if n_cancel:
@@ -710,10 +715,11 @@ def _bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int,
 
 
 def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx, fixed, bounds,
-            refit, add_delay: bool = False) -> tuple[Structure, Refined, list[str]]:
+            refit, add_delay: bool = False, trial=None) -> tuple[Structure, Refined, list[str]]:
     """A started hypothesis (:func:`_start`) with the groups the data do not need pruned.
 
-    ``refit`` refines on the points ``idx`` of the sweep ``f``; ``add_delay``:
+    ``refit`` refines on the points ``idx`` of the sweep ``f`` (``trial``, the
+    pruning trials, when given); ``add_delay``:
     lagging zeros near and above the top of the band may become a delay.
     """
     notes = list(notes)
@@ -721,7 +727,7 @@ def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx,
     n_drop = 0
     if not any(key.startswith("zero") for key in list(fixed) + list(bounds or {})):
         had_delay = st.delay
-        st, ref, n_drop = _prune_zeros(st, ref, refit, f[-1], n_res, TWO_PI * f[idx],
+        st, ref, n_drop = _prune_zeros(st, ref, trial or refit, f[-1], n_res, TWO_PI * f[idx],
                                        delay_free="delay_s" not in fixed, add_delay=add_delay)
         if st.delay and not had_delay:
             notes.append("a delay fits the phase lag that zeros near and above the top of the "
@@ -731,7 +737,7 @@ def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx,
             notes.append(f"dropped {n_drop} zero(s) {where} the band that the data do not need")
     if _may_prune_cancelling(fixed, bounds):
         # The point spacing that matters is the full sweep's, not the thinned copy's.
-        st, ref, n_cancel = _prune_cancelling(st, ref, refit, n_res, f, ctx.sigma)
+        st, ref, n_cancel = _prune_cancelling(st, ref, trial or refit, n_res, f, ctx.sigma)
         if n_cancel:
             notes.append(_cancel_note(n_cancel))
             n_drop += n_cancel
