@@ -136,3 +136,16 @@ def test_cli_text_report_and_warnings_on_stderr(tmp_path):
     assert r.returncode == 0
     assert "pole1_hz" in r.stdout
     assert "benchfit: warning: residual is" in r.stderr
+
+
+def test_routine_simplifications_are_notes_not_warnings(result, tmp_path):
+    # Vector fitting of a 3-pole, 1-zero plant returns spare zeros far above the band; dropping
+    # them is routine (a note in the report and the JSON), not something to act on.  A warning
+    # stays for what needs the user (see test_cli_text_report_and_warnings_on_stderr).
+    assert result.warnings == ()
+    assert any("above 3× the top frequency" in n for n in result.notes), result.notes
+    assert "  note: " in result.report()
+    p = tmp_path / "fit.json"
+    result.to_json(p)
+    assert FitResult.from_json(p).notes == result.notes
+    assert json.loads(p.read_text())["notes"] == list(result.notes)

@@ -771,7 +771,7 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
     with np.errstate(all="ignore"):
         d = np.sqrt(np.diag(cov))
         corr = cov / np.outer(d, d) if cov.size else cov
-    warnings = list(notes)
+    warnings: list[str] = []
     # The refinement is the estimator; vector fitting only starts it.  A VF run
     # stopped by its iteration cap is reported (stats["vf_converged"]), and is a
     # warning only when the refinement did not converge from its poles either.
@@ -817,7 +817,7 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
         "delay_s": float(max(tau, 0.0)),
     }
     return FitResult(
-        model=model, parameters=params, stats=stats, warnings=tuple(warnings),
+        model=model, parameters=params, stats=stats, warnings=tuple(warnings), notes=tuple(notes),
         order_scan=tuple(a.summary() for a in scan), varied=ref.varied,
         covariance=cov, correlation=corr, integrators=st.integrators,
         provenance=resp.provenance.derive("fit", settings),

@@ -75,7 +75,11 @@ class FitResult:
     stats
         Fit statistics: see :data:`STAT_KEYS` (plus a few extra keys).
     warnings
-        Things the user should know (not converged, pole outside band...).
+        Things the user should act on or check (not converged, pole outside
+        the band, residual far above the noise floor...).
+    notes
+        What the fit simplified on the way, for the record (zeros above the
+        band dropped, cancelling pairs removed, zeros replaced by a delay...).
     order_scan
         One dict per order tried by the automatic order choice
         (order, rms_db, rms_deg, chi: rms normalised residual).
@@ -94,6 +98,7 @@ class FitResult:
     parameters: tuple[Parameter, ...]
     stats: dict[str, Any]
     warnings: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
     order_scan: tuple[dict[str, Any], ...] = ()
     varied: tuple[str, ...] = ()
     covariance: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
@@ -203,6 +208,7 @@ class FitResult:
             scan = ", ".join(f"{d['order']}{'+τ' if d.get('delay_s') else ''}:{d['rms_db']:.2g}dB"
                              for d in self.order_scan)
             lines.append(f"  order scan (order[+τ: with delay]:rms) {scan}")
+        lines += [f"  note: {n}" for n in self.notes]
         if warnings:
             lines += [f"  warning: {w}" for w in self.warnings]
         return "\n".join(lines)
@@ -217,6 +223,7 @@ class FitResult:
             "fit": {k: self.stats.get(k) for k in fit_keys},
             "stats": dict(self.stats),
             "warnings": list(self.warnings),
+            "notes": list(self.notes),
             "order_scan": [dict(d) for d in self.order_scan],
             "varied": list(self.varied),
             "covariance": np.asarray(self.covariance).tolist(),
@@ -238,6 +245,7 @@ class FitResult:
             parameters=tuple(Parameter.from_dict(p) for p in d["parameters"]),
             stats=stats,
             warnings=tuple(str(w) for w in d.get("warnings", ())),
+            notes=tuple(str(n) for n in d.get("notes", ())),
             order_scan=tuple(dict(x) for x in d.get("order_scan", ())),
             varied=varied,
             covariance=_matrix(d.get("covariance"), n),
