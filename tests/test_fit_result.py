@@ -109,7 +109,24 @@ def test_cli_options_fix_band_order(tmp_path, capsys):
     assert d["stats"]["f_min_hz"] >= 200 and d["stats"]["f_max_hz"] <= 500e3
 
 
+def test_cli_bound_holds_a_parameter_inside_its_limits(tmp_path, capsys):
+    # The zero sits at 90 kHz; limited to 50..80 kHz it must end on the 80 kHz edge, and the
+    # open range keeps the pair's Q at or under 10.
+    m = from_factors(4.0, poles_hz=(2e3,), pairs=((30e3, 2.5),), zeros_hz=(90e3,))
+    src = _write(tmp_path, m, noise_db=0.05, noise_deg=0.3, rng=np.random.default_rng(3))
+    assert main(["fit", str(src), "--order", "3", "--delay", "none", "--bound", "zero1_hz=50k:80k",
+                 "--bound", "pair1_q=:10", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    value = {p["name"]: p["value"] for p in d["parameters"]}
+    assert 50e3 <= value["zero1_hz"] <= 80e3 and value["zero1_hz"] == pytest.approx(80e3, rel=1e-3)
+    assert 0 < value["pair1_q"] <= 10
+    assert d["provenance"]["settings"]["bounds"]["zero1_hz"] == [50e3, 80e3]
+
+
 @pytest.mark.parametrize("args, message", [
+    (["--bound", "zero1_hz=5k"], "--bound"),
+    (["--bound", "zero1_hz=20k:5k"], "low limit must be below"),
+    (["--bound", "nope_hz=1:2"], "--bound: no parameter"),
     (["--order", "x"], "--order"),
     (["--delay", "later"], "--delay"),
     (["--fix", "zero1_hz"], "--fix"),

@@ -40,6 +40,23 @@ def _fix(items: list[str] | None) -> dict[str, float]:
     return out
 
 
+def _bounds(items: list[str] | None) -> dict[str, tuple[float, float]]:
+    """``NAME=LO:HI`` items (either side may be empty: no limit) -> {name: (lo, hi)}."""
+    out: dict[str, tuple[float, float]] = {}
+    for item in items or []:
+        name, sep, rng = item.partition("=")
+        lo_t, colon, hi_t = rng.partition(":")
+        if not sep or not name.strip() or not colon or not (lo_t.strip() or hi_t.strip()):
+            raise InputError(f"{item!r}: expected name=low:high, e.g. zero1_hz=5k:20k (either "
+                             "side may be left empty)", source="--bound")
+        lo = parse_si(lo_t, "--bound") if lo_t.strip() else -float("inf")
+        hi = parse_si(hi_t, "--bound") if hi_t.strip() else float("inf")
+        if not lo < hi:
+            raise InputError(f"{item!r}: the low limit must be below the high one", source="--bound")
+        out[name.strip()] = (lo, hi)
+    return out
+
+
 def _integrators(text: str) -> int | str:
     if text == "auto":
         return "auto"
@@ -65,6 +82,9 @@ def register(subparsers) -> None:
     p.add_argument("--band", metavar="FMIN:FMAX", help="fit only this band, in Hz (e.g. 100:2M)")
     p.add_argument("--fix", metavar="NAME=VALUE", action="append",
                    help="hold a parameter at a value, e.g. zero1_hz=12k (repeatable)")
+    p.add_argument("--bound", metavar="NAME=LO:HI", action="append",
+                   help="keep a parameter within limits, e.g. zero1_hz=5k:20k or pair1_q=:10 "
+                        "(repeatable)")
     p.add_argument("--weighting", choices=("relative", "absolute"), default="relative",
                    help="relative: errors in dB and degrees (default); absolute: complex error")
     p.add_argument("--integrators", default="0",
@@ -83,7 +103,8 @@ def run(args: argparse.Namespace) -> int:
     resp = read_sweep(args.sweep, **reader_options(args))
     result = fit(resp, order=_order(args.order), delay=_delay(args.delay),
                  band=None if band == (None, None) else band, fix=_fix(args.fix),
-                 weighting=args.weighting, integrators=_integrators(args.integrators))
+                 weighting=args.weighting, integrators=_integrators(args.integrators),
+                 bounds=_bounds(args.bound))
     for w in result.warnings:
         warn(w)
     if args.output:

@@ -100,7 +100,7 @@ def refine(
     for key in list(fix) + list(bounds):
         if key not in names:
             raise InputError(f"no parameter {key!r} in this model; it has {', '.join(names)}",
-                             source="--fix")
+                             source="--fix" if key in fix else "--bound")
     params = lmfit.Parameters()
     v0 = np.array(values0, dtype=float)
     for i, name in enumerate(names):
