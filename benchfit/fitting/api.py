@@ -144,41 +144,54 @@ def _without(st: Structure, values: np.ndarray, drop: list[str]) -> tuple[Struct
 def _dropped_phase_as_delay(st: Structure, values: np.ndarray, drop: list[str],
                             w: np.ndarray) -> float:
     """The delay (s) whose phase −ωτ best matches, over ``w`` (rad/s), the phase of
-    the zero groups ``drop``.
+    the pole and zero groups ``drop``.
 
-    Above the band a zero's phase is nearly linear in ω, a delay's phase; so
-    when the pruning drops such zeros from a model with a delay, the delay
-    takes over their phase and the refinement starts next to its optimum
-    rather than a wrapped phase away from it.
+    Above the band a zero's or a pole's phase is nearly linear in ω, a delay's
+    phase; so when the pruning drops such groups from a model with a delay,
+    the delay takes over their phase and the refinement starts next to its
+    optimum rather than a wrapped phase away from it.
     """
     v = dict(zip(st.names, values, strict=True))
     phase = np.zeros_like(w)
     for g in drop:
-        if g.startswith("zero_pair"):
+        sign = -1.0 if g.startswith(("pole", "pair")) else 1.0
+        if g.startswith(("zero_pair", "pair")):
             w0, q = TWO_PI * v[f"{g}_f0_hz"], v[f"{g}_q"]
-            phase += np.unwrap(np.arctan2(w / (w0 * q), 1.0 - (w / w0) ** 2))
+            phase += sign * np.unwrap(np.arctan2(w / (w0 * q), 1.0 - (w / w0) ** 2))
         else:
-            phase += np.arctan(w / (TWO_PI * v[f"{g}_hz"]))
+            phase += sign * np.arctan(w / (TWO_PI * v[f"{g}_hz"]))
     return float(-np.dot(w, phase) / np.dot(w, w))
 
 
 def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float,
-                       rhp_from: float | None = None) -> list[tuple[str, float]]:
-    """(group, |frequency|) of zeros above the band, e.g. ("zero2", 3e7), ("zero_pair1", 2e7).
+                       rhp_from: float | None = None, poles: bool = True, zeros: bool = True
+                       ) -> list[tuple[str, float]]:
+    """(group, |frequency|) of zeros and poles above the band, e.g. ("zero2", 3e7),
+    ("zero_pair1", 2e7), ("pole3", 5e7).
 
     With ``rhp_from`` (Hz), right-half-plane zeros above that frequency are
     listed too: with a delay in the model they are the delay's look-alikes
     (phase lag growing with frequency) and must earn their place the same way.
+    A pole above the band is one as well (its lag, −ω/ω_p, is a delay's):
+    the refinement can push a spare in-band pole there instead of the delay.
+    ``poles=False`` (``zeros=False``) leaves the poles (zeros) out: the user
+    holds or bounds one, and its name must not shift.
     """
     v = dict(zip(st.names, values, strict=True))
     out = []
     for nm, x in v.items():
+        if nm.startswith("zero") and not zeros:
+            continue
         if nm.startswith("zero_pair") and nm.endswith("_f0_hz"):
             g = nm[: -len("_f0_hz")]
             rhp = v[f"{g}_q"] < 0
         elif nm.startswith("zero") and not nm.startswith("zero_pair"):
             g = nm[: -len("_hz")]
             rhp = x < 0
+        elif poles and nm.startswith("pair") and nm.endswith("_f0_hz"):
+            g, rhp = nm[: -len("_f0_hz")], False
+        elif poles and nm.startswith("pole"):
+            g, rhp = nm[: -len("_hz")], False
         else:
             continue
         if abs(x) > f_max or (rhp_from is not None and rhp and abs(x) > rhp_from):
@@ -203,8 +216,8 @@ def _with_delay(st: Structure, values: np.ndarray, tau: float) -> tuple[Structur
     return st2, np.append(values, tau)
 
 
-def _delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray
-                 ) -> tuple[list[str], float] | None:
+def _delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray,
+                 **kinds: bool) -> tuple[list[str], float] | None:
     """Zero groups a delay could stand in for in a model without one, and that delay.
 
     The groups are the zeros above the band and the right-half-plane zeros
@@ -212,7 +225,8 @@ def _delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray
     phase matches theirs (:func:`_dropped_phase_as_delay`).  None when there
     are none or their phase is not a lag worth a delay parameter.
     """
-    groups = [g for g, _ in _zero_groups_above(st, values, f_max, rhp_from=RHP_NEAR_TOP * f_max)]
+    groups = [g for g, _ in _zero_groups_above(st, values, f_max, rhp_from=RHP_NEAR_TOP * f_max,
+                                               **kinds)]
     if not groups:
         return None
     tau = _dropped_phase_as_delay(st, values, groups, w)
@@ -220,9 +234,9 @@ def _delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray
 
 
 def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
-                 w: np.ndarray | None = None, delay_free: bool = False, add_delay: bool = False
-                 ) -> tuple[Structure, Refined, int]:
-    """Drop zeros above the band that the data do not need.
+                 w: np.ndarray | None = None, delay_free: bool = False, add_delay: bool = False,
+                 **kinds: bool) -> tuple[Structure, Refined, int]:
+    """Drop zeros (and poles) above the band that the data do not need.
 
     A group is dropped when the rise of chi-square, in units of the reduced
     chi-square, stays under Schwarz's penalty ln N per parameter dropped (the
@@ -238,13 +252,14 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
     zeros above the band fails (:func:`_delay_trial`): a short delay, a
     radian or two at the top of the band, is otherwise fitted as a cluster
     of such zeros (one parameter fewer per zero dropped, one more for the
-    delay).
+    delay).  Poles above the band are tried like zeros (``kinds``: ``poles`` and
+    ``zeros`` flags of :func:`_zero_groups_above`).
     """
     penalty = float(np.log(n_res))
     dropped = 0
     while True:
         groups = _zero_groups_above(st, ref.values, f_max, rhp_from=(
-            RHP_NEAR_TOP * f_max if delay_free and st.delay else None))
+            RHP_NEAR_TOP * f_max if delay_free and st.delay else None), **kinds)
         if not np.isfinite(ref.redchi) or ref.redchi <= 0:
             return st, ref, dropped
         groups.sort(key=lambda g: -g[1])
@@ -252,7 +267,7 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
         if groups:
             trials.append(([g for g, _ in groups], None))
         # The swap comes after plain dropping: a delay only when the zeros are needed.
-        swap = _delay_trial(st, ref.values, f_max, w) if (
+        swap = _delay_trial(st, ref.values, f_max, w, **kinds) if (
             add_delay and not st.delay and w is not None) else None
         if swap is not None:
             trials.append(swap)
@@ -665,12 +680,17 @@ def _final(st: Structure, ref: Refined, notes: list[str], refit, trial, fixed, b
         i = st.names.index("delay_s")
         tv, te = ref.values[i], ref.stderr[i]
         if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
-            # Not significant: drop the delay parameter and refine again without it.
+            # Under 2σ: refine without the delay, and keep that unless χ² rises by more
+            # than Schwarz's ln N (the rule of every other choice here): a parameter
+            # strongly correlated with the delay can blow up its σ while the data
+            # still need it.
             keep = [j for j in range(len(st.names)) if j != i]
-            st = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
-                           st.integrators, False)
-            ref = refit(st, ref.values[keep])
-            notes = [*notes, "delay estimate not significant; fitted without delay"]
+            st2 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
+                            st.integrators, False)
+            ref2 = refit(st2, ref.values[keep])
+            if tv <= 0 or (ref2.chisqr - ref.chisqr) / ref.redchi <= np.log(2 * f.shape[0]):
+                st, ref = st2, ref2
+                notes = [*notes, "delay estimate not significant; fitted without delay"]
     return st, ref, notes
 
 
@@ -725,16 +745,20 @@ def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx,
     notes = list(notes)
     n_res = 2 * idx.shape[0]
     n_drop = 0
-    if not any(key.startswith("zero") for key in list(fixed) + list(bounds or {})):
+    held = list(fixed) + list(bounds or {})
+    kinds = {"zeros": not any(key.startswith("zero") for key in held),
+             "poles": not any(key.startswith(("pole", "pair")) for key in held)}
+    if any(kinds.values()):
         had_delay = st.delay
         st, ref, n_drop = _prune_zeros(st, ref, trial or refit, f[-1], n_res, TWO_PI * f[idx],
-                                       delay_free="delay_s" not in fixed, add_delay=add_delay)
+                                       delay_free="delay_s" not in fixed, add_delay=add_delay,
+                                       **kinds)
         if st.delay and not had_delay:
             notes.append("a delay fits the phase lag that zeros near and above the top of the "
                          "band had taken")
         if n_drop:
             where = "above or, with a delay, near the top of" if st.delay else "above"
-            notes.append(f"dropped {n_drop} zero(s) {where} the band that the data do not need")
+            notes.append(f"dropped {n_drop} pole or zero group(s) {where} the band that the data do not need")
     if _may_prune_cancelling(fixed, bounds):
         # The point spacing that matters is the full sweep's, not the thinned copy's.
         st, ref, n_cancel = _prune_cancelling(st, ref, trial or refit, n_res, f, ctx.sigma)
