@@ -377,6 +377,46 @@ def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: n
     return st, ref, dropped
 
 
+def _unidentified(st: Structure, ref: Refined) -> list[str]:
+    """Pole and zero groups with a parameter whose σ exceeds its value, vaguest first."""
+    out = []
+    for i, nm in enumerate(st.names):
+        if not nm.startswith(("pole", "pair", "zero")):
+            continue
+        rel = abs(ref.stderr[i] / ref.values[i]) if ref.values[i] else np.inf
+        if np.isfinite(rel) and rel > 1.0:
+            out.append((rel, nm[: -len("_f0_hz")] if nm.endswith("_f0_hz") else nm.rsplit("_", 1)[0]))
+    seen: dict[str, float] = {}
+    for rel, g in out:
+        seen[g] = max(rel, seen.get(g, 0.0))
+    return sorted(seen, key=lambda g: -seen[g])
+
+
+def _prune_unidentified(st: Structure, ref: Refined, refit, n_res: int
+                        ) -> tuple[Structure, Refined, int]:
+    """Drop pole or zero groups the data cannot locate (σ above the value), one at a
+    time, by the ln N rule of :func:`_prune_zeros`.
+
+    A spare pole the refinement parks somewhere the data say nothing about (a
+    second real pole beside an overdamped pair, a pair far past the band)
+    shows as an error bar larger than the value itself.
+    """
+    penalty = float(np.log(n_res))
+    dropped = 0
+    while np.isfinite(ref.redchi) and ref.redchi > 0:
+        for g in _unidentified(st, ref):
+            st2, v2 = _without(st, ref.values, [g])
+            dp = len(st.names) - len(st2.names)
+            ref2 = _trial(refit, st2, v2, ref, penalty * dp)
+            if (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
+                st, ref = st2, ref2
+                dropped += 1
+                break
+        else:
+            break
+    return st, ref, dropped
+
+
 def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, bool]:
     """Direct/proportional terms from the magnitude slope at the top of the band."""
     n = f.shape[0]
@@ -716,7 +756,8 @@ def _bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int,
     """The lowest BIC pruning could bring a start ``ref`` to, or −inf when unknown.
 
     Pruning removes parameters (at most every zero group above the band or
-    near its top and every cancelling group) and never lowers χ² below the
+    near its top, every cancelling group and every group the data cannot
+    locate) and never lowers χ² below the
     optimum of the larger model it is nested in.  So when the first
     refinement converged, its χ² with the fewest parameters pruning could
     leave is a floor; a capped refinement may still go down and gives none.
@@ -724,7 +765,7 @@ def _bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int,
     """
     if not ref.success or not np.isfinite(ref.chisqr):
         return -np.inf
-    cancel = [g for pair in _cancelling(st, ref.values) for g in pair]
+    cancel = [g for pair in _cancelling(st, ref.values) for g in pair] + _unidentified(st, ref)
     near = RHP_NEAR_TOP * f_max
     p_min = min(
         sum(1 for nm in ref.varied if not _in_groups(nm, cancel + [g for g, _ in _zero_groups_above(
@@ -765,6 +806,12 @@ def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx,
         if n_cancel:
             notes.append(_cancel_note(n_cancel))
             n_drop += n_cancel
+    if not any(key.startswith(("pole", "pair", "zero")) for key in held):
+        st, ref, n_vague = _prune_unidentified(st, ref, trial or refit, n_res)
+        if n_vague:
+            notes.append(f"dropped {n_vague} pole or zero group(s) whose frequency the data "
+                         "could not pin (σ above the value) and do not need")
+            n_drop += n_vague
     if not ref.success or n_drop:
         # The capped runs above may have stopped short.  Capped again: only a
         # hypothesis still in the running is refined to the end (see fit()).
