@@ -467,13 +467,16 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
     scan: list[Attempt] = []
     with_delay = None
     extra: list[Attempt] = []
+    settled = False
     if order != "auto":
         n = int(order)
         att = attempt(sub, n, fixed_tau)
+        settled = att.vf.converged  # to 1e-8, tighter than settle() asks
         if att.chi > CHI_OK:
             # A fresh start may miss a weak feature; build up to n as the scan does.
             scan = choose_order(sub, fixed_tau, n_min=1, n_max=n, scan_all=True)[1]
             att = min([att, scan[-1]], key=lambda x: x.chi)
+            settled = settled and att is not scan[-1]
         if try_delay:
             with_delay = refine_delay(sub, delay_stepper(sub, tau0)(n))
     elif try_delay:
@@ -496,7 +499,7 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
         scan = scan + scan_d
     else:
         att, scan = choose_order(sub, fixed_tau)
-    out = [polish(ctx, settle(sub, att))]
+    out = [polish(ctx, att if settled else settle(sub, att))]
     for a in ([with_delay] if with_delay is not None else []) + extra:
         if np.isfinite(a.chi):
             out.append(polish(ctx, settle(sub, a)))
