@@ -499,10 +499,12 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
         scan = scan + scan_d
     else:
         att, scan = choose_order(sub, fixed_tau)
-    out = [polish(ctx, att if settled else settle(sub, att))]
+    # The scans' poles (settled to 1e-4 near the floor) only start the refinement,
+    # which is the estimator: they are carried to every point as they are.
+    out = [polish(ctx, att)]
     for a in ([with_delay] if with_delay is not None else []) + extra:
         if np.isfinite(a.chi):
-            out.append(polish(ctx, settle(sub, a)))
+            out.append(polish(ctx, a))
     return out, scan
 
 
