@@ -31,7 +31,6 @@ from benchfit.fitting.order import (
     choose_order,
     max_order,
     polish,
-    settle,
 )
 from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk, response, to_zpk
 from benchfit.fitting.refine import Refined, log_residual, refine
@@ -359,16 +358,31 @@ def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: n
     unless χ² rises by more than ln N per parameter removed (Schwarz 1978).
     ``freq_hz`` and ``sigma`` are those of the full sweep.
     """
+    def waive(st_: Structure, ref_: Refined, drop: list[str]) -> bool:
+        return (all(_narrower_than_spacing(st_, ref_.values, g, freq_hz) for g in drop)
+                or _below_noise(st_, ref_.values, drop, freq_hz, sigma))
+
+    return _drop_unneeded(st, ref, refit, n_res, lambda st_, ref_: _cancelling(st_, ref_.values),
+                          waive)
+
+
+def _drop_unneeded(st: Structure, ref: Refined, refit, n_res: int, candidates, waive=None
+                   ) -> tuple[Structure, Refined, int]:
+    """Greedy pruning: drop the first of ``candidates(st, ref)`` (lists of groups) the data
+    do not need, by the ln N rule of :func:`_prune_zeros` (or outright when
+    ``waive(st, ref, groups)``), and look again until none goes.
+
+    Returns the structure, its refinement and the number of drops.
+    """
     penalty = float(np.log(n_res))
     dropped = 0
     while np.isfinite(ref.redchi) and ref.redchi > 0:
-        for drop in _cancelling(st, ref.values):
+        for drop in candidates(st, ref):
             st2, v2 = _without(st, ref.values, drop)
             dp = len(st.names) - len(st2.names)
             ref2 = _trial(refit, st2, v2, ref, penalty * dp)
-            narrow = all(_narrower_than_spacing(st, ref.values, g, freq_hz) for g in drop)
-            faint = _below_noise(st, ref.values, drop, freq_hz, sigma)
-            if narrow or faint or (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
+            if (waive is not None and waive(st, ref, drop)) or \
+                    (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
                 st, ref = st2, ref2
                 dropped += 1
                 break
@@ -401,20 +415,8 @@ def _prune_unidentified(st: Structure, ref: Refined, refit, n_res: int
     second real pole beside an overdamped pair, a pair far past the band)
     shows as an error bar larger than the value itself.
     """
-    penalty = float(np.log(n_res))
-    dropped = 0
-    while np.isfinite(ref.redchi) and ref.redchi > 0:
-        for g in _unidentified(st, ref):
-            st2, v2 = _without(st, ref.values, [g])
-            dp = len(st.names) - len(st2.names)
-            ref2 = _trial(refit, st2, v2, ref, penalty * dp)
-            if (ref2.chisqr - ref.chisqr) / ref.redchi <= penalty * dp:
-                st, ref = st2, ref2
-                dropped += 1
-                break
-        else:
-            break
-    return st, ref, dropped
+    return _drop_unneeded(st, ref, refit, n_res,
+                          lambda st_, ref_: [[g] for g in _unidentified(st_, ref_)])
 
 
 def _hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, bool]:
@@ -467,16 +469,13 @@ def _order_and_delay(ctx: Context, f, h, order, delay) -> tuple[list[Attempt], l
     scan: list[Attempt] = []
     with_delay = None
     extra: list[Attempt] = []
-    settled = False
     if order != "auto":
         n = int(order)
         att = attempt(sub, n, fixed_tau)
-        settled = att.vf.converged  # to 1e-8, tighter than settle() asks
         if att.chi > CHI_OK:
             # A fresh start may miss a weak feature; build up to n as the scan does.
             scan = choose_order(sub, fixed_tau, n_min=1, n_max=n, scan_all=True)[1]
             att = min([att, scan[-1]], key=lambda x: x.chi)
-            settled = settled and att is not scan[-1]
         if try_delay:
             with_delay = refine_delay(sub, delay_stepper(sub, tau0)(n))
     elif try_delay:
