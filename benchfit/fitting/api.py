@@ -41,7 +41,7 @@ from benchfit.fitting.weights import PointSigma, point_sigma, scatter_sigma, vf_
 #: Zeros beyond this multiple of the top frequency are dropped (not identifiable in band).
 ZERO_LIMIT = 3.0
 #: With a fitted delay, right-half-plane zeros above this fraction of the top frequency
-#: are tested for dropping like zeros above the band (see _zero_groups_above).
+#: are tested for dropping like zeros above the band (see _groups_above).
 RHP_NEAR_TOP = 1.0 / 3.0
 #: Evaluations a pruning trial gets: a group the data do not need leaves the rest
 #: next to its optimum (5..10 evaluations); one they need stays far above the bar.
@@ -162,7 +162,7 @@ def _dropped_phase_as_delay(st: Structure, values: np.ndarray, drop: list[str],
     return float(-np.dot(w, phase) / np.dot(w, w))
 
 
-def _zero_groups_above(st: Structure, values: np.ndarray, f_max: float,
+def _groups_above(st: Structure, values: np.ndarray, f_max: float,
                        rhp_from: float | None = None, poles: bool = True, zeros: bool = True
                        ) -> list[tuple[str, float]]:
     """(group, |frequency|) of zeros and poles above the band, e.g. ("zero2", 3e7),
@@ -217,14 +217,14 @@ def _with_delay(st: Structure, values: np.ndarray, tau: float) -> tuple[Structur
 
 def _delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray,
                  **kinds: bool) -> tuple[list[str], float] | None:
-    """Zero groups a delay could stand in for in a model without one, and that delay.
+    """Groups a delay could stand in for in a model without one, and that delay.
 
-    The groups are the zeros above the band and the right-half-plane zeros
-    near its top (:func:`_zero_groups_above`); the delay is the one whose
+    The groups are the poles and zeros above the band and the right-half-plane
+    zeros near its top (:func:`_groups_above`); the delay is the one whose
     phase matches theirs (:func:`_dropped_phase_as_delay`).  None when there
     are none or their phase is not a lag worth a delay parameter.
     """
-    groups = [g for g, _ in _zero_groups_above(st, values, f_max, rhp_from=RHP_NEAR_TOP * f_max,
+    groups = [g for g, _ in _groups_above(st, values, f_max, rhp_from=RHP_NEAR_TOP * f_max,
                                                **kinds)]
     if not groups:
         return None
@@ -232,7 +232,7 @@ def _delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray,
     return (groups, tau) if tau * float(w[-1]) >= DELAY_MIN_PHASE else None
 
 
-def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
+def _prune_above(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
                  w: np.ndarray | None = None, delay_free: bool = False, add_delay: bool = False,
                  **kinds: bool) -> tuple[Structure, Refined, int]:
     """Drop zeros (and poles) above the band that the data do not need.
@@ -252,12 +252,12 @@ def _prune_zeros(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
     radian or two at the top of the band, is otherwise fitted as a cluster
     of such zeros (one parameter fewer per zero dropped, one more for the
     delay).  Poles above the band are tried like zeros (``kinds``: ``poles`` and
-    ``zeros`` flags of :func:`_zero_groups_above`).
+    ``zeros`` flags of :func:`_groups_above`).
     """
     penalty = float(np.log(n_res))
     dropped = 0
     while True:
-        groups = _zero_groups_above(st, ref.values, f_max, rhp_from=(
+        groups = _groups_above(st, ref.values, f_max, rhp_from=(
             RHP_NEAR_TOP * f_max if delay_free and st.delay else None), **kinds)
         if not np.isfinite(ref.redchi) or ref.redchi <= 0:
             return st, ref, dropped
@@ -354,7 +354,7 @@ def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: n
     the point spacing (:func:`_narrower_than_spacing`) or its effect is under
     the noise at every point (:func:`_below_noise`: its frequency is free, so
     it can go looking for the luckiest run of noise, which a per-parameter
-    penalty does not price), otherwise by the rule of :func:`_prune_zeros`:
+    penalty does not price), otherwise by the rule of :func:`_prune_above`:
     unless χ² rises by more than ln N per parameter removed (Schwarz 1978).
     ``freq_hz`` and ``sigma`` are those of the full sweep.
     """
@@ -369,7 +369,7 @@ def _prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: n
 def _drop_unneeded(st: Structure, ref: Refined, refit, n_res: int, candidates, waive=None
                    ) -> tuple[Structure, Refined, int]:
     """Greedy pruning: drop the first of ``candidates(st, ref)`` (lists of groups) the data
-    do not need, by the ln N rule of :func:`_prune_zeros` (or outright when
+    do not need, by the ln N rule of :func:`_prune_above` (or outright when
     ``waive(st, ref, groups)``), and look again until none goes.
 
     Returns the structure, its refinement and the number of drops.
@@ -409,7 +409,7 @@ def _unidentified(st: Structure, ref: Refined) -> list[str]:
 def _prune_unidentified(st: Structure, ref: Refined, refit, n_res: int
                         ) -> tuple[Structure, Refined, int]:
     """Drop pole or zero groups the data cannot locate (σ above the value), one at a
-    time, by the ln N rule of :func:`_prune_zeros`.
+    time, by the ln N rule of :func:`_prune_above`.
 
     A spare pole the refinement parks somewhere the data say nothing about (a
     second real pole beside an overdamped pair, a pair far past the band)
@@ -765,14 +765,14 @@ def _bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int,
     optimum of the larger model it is nested in.  So when the first
     refinement converged, its χ² with the fewest parameters pruning could
     leave is a floor; a capped refinement may still go down and gives none.
-    ``add_delay``: pruning may swap lagging zeros for a delay (:func:`_prune_zeros`).
+    ``add_delay``: pruning may swap lagging zeros for a delay (:func:`_prune_above`).
     """
     if not ref.success or not np.isfinite(ref.chisqr):
         return -np.inf
     cancel = [g for pair in _cancelling(st, ref.values) for g in pair] + _unidentified(st, ref)
     near = RHP_NEAR_TOP * f_max
     p_min = min(
-        sum(1 for nm in ref.varied if not _in_groups(nm, cancel + [g for g, _ in _zero_groups_above(
+        sum(1 for nm in ref.varied if not _in_groups(nm, cancel + [g for g, _ in _groups_above(
             st, ref.values, f_max, rhp_from=near if st.delay or swap else None)])) + int(swap)
         for swap in ((False, True) if add_delay and not st.delay else (False,)))
     chisqr = max(ref.chisqr, n_res * NEGLIGIBLE ** 2)
@@ -795,12 +795,12 @@ def _pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx,
              "poles": not any(key.startswith(("pole", "pair")) for key in held)}
     if any(kinds.values()):
         had_delay = st.delay
-        st, ref, n_drop = _prune_zeros(st, ref, trial or refit, f[-1], n_res, TWO_PI * f[idx],
+        st, ref, n_drop = _prune_above(st, ref, trial or refit, f[-1], n_res, TWO_PI * f[idx],
                                        delay_free="delay_s" not in fixed, add_delay=add_delay,
                                        **kinds)
         if st.delay and not had_delay:
-            notes.append("a delay fits the phase lag that zeros near and above the top of the "
-                         "band had taken")
+            notes.append("a delay fits the phase lag that poles or zeros near and above the "
+                         "top of the band had taken")
         if n_drop:
             where = "above or, with a delay, near the top of" if st.delay else "above"
             notes.append(f"dropped {n_drop} pole or zero group(s) {where} the band that the data do not need")
