@@ -65,11 +65,11 @@ class PointSigma:
 def _window(n: int) -> int:
     """Running-window length: a sixth of the sweep (at least 21 points), odd.
 
-    A sixth rather than a tenth: on a 401-point sweep of white noise the
-    estimate's spread along the sweep (sd of ln σ) fell from 0.23 to 0.12 and
-    its lowest value from 0.57 to 0.73 of the truth (median over seeds,
-    measured here), while a floor rising tenfold over the band is still
-    followed to about 10 %.
+    A sixth rather than a tenth, with the clipped mean square: for a floor
+    rising fourfold over 401 points the running estimate stays within
+    0.77..1.23 of the truth (5th..95th percentile), against 0.65..1.46 for the
+    running median over a tenth, and still follows the rise to about 10 %
+    (``benchmarks/noise_sigma.py``; the older figures at commit 75ff9dc).
     """
     w = max(21, n // 6)
     w = min(w, n)
