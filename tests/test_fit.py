@@ -199,6 +199,18 @@ def test_no_delay_option_and_fixed_delay(plant):
     assert _rel_pole_error(res.model.poles, m.poles) < 1e-6
 
 
+def test_bounding_the_delay_keeps_the_hypotheses_that_have_one():
+    # Hypotheses without a delay have no delay_s to bound: they are set aside, not an error
+    # (this raised "no parameter 'delay_s'" while a no-delay hypothesis was being tried).
+    m = converter_plant(delay_s=150e-9)
+    r = sweep(m, noise_db=0.1, noise_deg=0.5, rng=np.random.default_rng(3))
+    res = fit(r, bounds={"delay_s": (100e-9, 140e-9)})
+    d = res.parameter("delay_s")
+    assert 100e-9 <= d.value <= 140e-9 and d.value == pytest.approx(140e-9, rel=1e-3)
+    with pytest.raises(InputError, match="no parameter 'zero9_hz'"):
+        fit(r, bounds={"zero9_hz": (1.0, 2.0)})
+
+
 def test_integrator_in_a_loop_gain():
     m = from_factors(2e4, poles_hz=(30e3,), zeros_hz=(2e3,), pairs=((300e3, 1.0),), integrators=1)
     r = sweep(m, np.geomspace(10, 3e6, 500), noise_db=0.02, noise_deg=0.1,

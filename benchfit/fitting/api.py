@@ -625,13 +625,18 @@ def fit(
         idx, refit_sub, trial_sub = np.arange(n_pts), refit, refit_quick
     n_sub = 2 * idx.shape[0]
     starts = []
+    missing: InputError | None = None
     for att in worth:
         try:
             starts.append((att, *_start(att, ctx, f, delay, fixed, refit_sub)))
-        except InputError:
-            raise
+        except InputError as e:
+            # This hypothesis has no parameter the user holds or bounds: it is not
+            # one the user asked about.  Only when none has it is that an error.
+            missing = missing or e
         except (ValueError, np.linalg.LinAlgError):
             continue
+    if not starts and missing is not None:
+        raise missing
     # The most promising start is pruned first; a later one whose best possible
     # outcome is out of reach of the best so far is not worth its pruning.
     starts.sort(key=lambda o: _bic(o[2], n_sub))
