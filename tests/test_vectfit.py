@@ -127,3 +127,21 @@ def test_too_few_points_for_the_order():
     s, _ = _scaled(f)
     with pytest.raises(FitError, match="needs at least"):
         vector_fit(s, np.ones(6, complex) / (1 + s), np.ones(6), initial_poles(8, 0.1, 10))
+
+
+def test_real_starting_poles_when_asked():
+    # A ladder of four real poles (an RC-like impedance), evaluated by scipy.signal.freqs_zpk
+    # (general-purpose reference): VF started from four real poles spread over the band
+    # returns them to 1e-6 (exact data and order give an exact fixed point, Gustavsen &
+    # Semlyen 1999).
+    p_hz = np.array([30.0, 800.0, 2e4, 6e5])
+    f = np.geomspace(10, 1e6, 801)
+    _, h = signal.freqs_zpk([-2 * np.pi * 5e3], -2 * np.pi * p_hz, 1e9, 2 * np.pi * f)
+    s, scale = _scaled(f)
+    p0 = initial_poles(4, abs(s[0]), abs(s[-1]), n_real=4)
+    assert np.all(p0.imag == 0) and p0.shape == (4,)
+    vf = vector_fit(s, h, 1 / np.abs(h), p0, direct=False)
+    assert vf.converged
+    assert _rel_pole_error(vf.poles * scale, -2 * np.pi * p_hz) < 1e-6
+    with pytest.raises(ValueError, match="n_real"):
+        initial_poles(4, 0.1, 10, n_real=3)

@@ -278,23 +278,30 @@ def fit_residues(s, h, w, poles, direct=True, proportional=False):
     return res, d, e
 
 
-def initial_poles(n: int, w_min: float, w_max: float, *, damping: float = 0.01) -> np.ndarray:
+def initial_poles(n: int, w_min: float, w_max: float, *, damping: float = 0.01,
+                  n_real: int | None = None) -> np.ndarray:
     """``n`` starting poles spread log-uniformly over [w_min, w_max] (scaled units).
 
     Lightly damped complex pairs (Gustavsen & Semlyen 1999, sec. 4: imaginary
-    part 100× the real part), plus one real pole when ``n`` is odd.
+    part 100× the real part), plus one real pole when ``n`` is odd.  With
+    ``n_real`` that many of the ``n`` are real poles instead, spread
+    log-uniformly too (same parity as ``n``; for responses of mostly real
+    poles, such as RC networks or impedances).
     """
     if n <= 0:
         return np.zeros(0, dtype=complex)
-    n_pairs = n // 2
-    out = []
-    if n % 2:
-        out.append(-np.sqrt(w_min * w_max) + 0j)
+    n_real = n % 2 if n_real is None else int(n_real)
+    if not 0 <= n_real <= n or (n - n_real) % 2:
+        raise ValueError(f"n_real={n_real}: expected 0..{n} with n - n_real even")
+    n_pairs = (n - n_real) // 2
+    mid = np.sqrt(w_min * w_max)
+    out = list(-(np.geomspace(w_min, w_max, n_real) if n_real > 1 else np.full(n_real, mid))
+               + 0j)
     if n_pairs:
-        beta = np.geomspace(w_min, w_max, n_pairs) if n_pairs > 1 else np.array([np.sqrt(w_min * w_max)])
+        beta = np.geomspace(w_min, w_max, n_pairs) if n_pairs > 1 else np.array([mid])
         for b in beta:
             out += [complex(-damping * b, b), complex(-damping * b, -b)]
-    return _arrange(np.asarray(out))
+    return _arrange(np.asarray(out, dtype=complex))
 
 
 def _pole_change(old: np.ndarray, new: np.ndarray) -> float:
