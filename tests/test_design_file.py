@@ -82,6 +82,8 @@ def test_file_parsed_and_paths_relative_to_it(setup, monkeypatch, tmp_path_facto
     ("[colours]\nx = 1\n", "colours"),
     ("[targets]\ncrossover_hz = 'fast'\n", "targets.crossover_hz"),
     ("[spread]\ndraws = -3\n", "spread.draws"),
+    ("[spread]\nmin_yield_percent = 100\n", "spread.min_yield_percent"),
+    ("[spread]\nmin_yield = 95\n", "spread.min_yield"),
     ("[sensing]\ndivider = [1e3]\n", "sensing.divider"),
     ("[network]\ntype = 'type7'\n", "network.type"),
     ("[plant\n", "not valid TOML"),
@@ -133,6 +135,8 @@ def test_cli_flags_only(setup, capsys):
     (["--tolerance", "a:b"], "--tolerance"),
     (["--series", "E7:E12"], "E7"),
     (["--crossover", "fast"], "--crossover"),
+    (["--min-yield", "150"], "--min-yield"),
+    (["--min-yield", "many"], "--min-yield"),
 ])
 def test_cli_user_errors_are_one_line_exit_2(setup, capsys, argv, needle):
     folder, _ = setup
@@ -173,3 +177,18 @@ def test_fit_result_json_keeps_band_and_uncertainty(tmp_path):
     write_sweep_csv(FrequencyResponse(f, h, quantity="plant"), tmp_path / "sweep.csv")
     lp2 = load_plant(tmp_path / "sweep.csv", fit_options={"delay": "none"})
     np.testing.assert_allclose(lp2.response(np.array([2e3])), lp.response(np.array([2e3])), rtol=1e-3)
+
+
+def test_min_yield_from_the_file_and_the_command_line(setup, capsys):
+    folder, toml = setup
+    spec = read_design_file(toml)
+    p = folder / "y.toml"
+    p.write_text("[plant]\nfiles = ['plants/buck.json']\n"
+                 "[spread]\ndraws = 300\nseed = 2\nmin_yield_percent = 99\n")
+    assert read_design_file(p).min_yield == pytest.approx(0.99)
+    assert spec.min_yield is None
+    assert main(["design", "--file", str(toml), "--min-yield", "99", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["spread"]["yield"] >= 0.99
+    assert d["provenance"]["settings"]["min_yield"] == pytest.approx(0.99)
+    assert d["targets"]["phase_margin_deg"] == spec.targets.phase_margin_deg

@@ -38,6 +38,9 @@ def register(subparsers) -> None:
                    "(default: the series' tolerance)")
     p.add_argument("--draws", type=int, metavar="N", help="Monte Carlo draws (default 2000, 0 = none)")
     p.add_argument("--seed", type=int, help="random seed for the Monte Carlo")
+    p.add_argument("--min-yield", metavar="PCT",
+                   help="design for more margin until this percentage of the Monte Carlo draws "
+                        "meets the targets (e.g. 95; default: design at the targets)")
     p.add_argument("-o", "--output", metavar="JSON", help="write the design here")
     add_json_flag(p)
     p.set_defaults(func=run)
@@ -109,6 +112,8 @@ def spec_from_args(args: argparse.Namespace) -> DesignSpec:
         ch["draws"] = args.draws
     if args.seed is not None:
         ch["seed"] = args.seed
+    if args.min_yield is not None:
+        ch["min_yield"] = parse_si(args.min_yield, "--min-yield") / 100.0
     return spec.with_changes(**ch)
 
 

@@ -37,6 +37,7 @@ needs; paths are relative to the file itself::
     [spread]
     draws = 2000
     seed = 1
+    min_yield_percent = 95    # design for more margin until this share of draws meets the targets
 
     [existing]                # redesign: the plant files are loop gains measured
     type = "type2"            # with this network fitted
@@ -76,7 +77,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "network": ("type", "method", "r_in_ohm"),
     "targets": ("crossover_hz", "phase_margin_deg", "gain_margin_db"),
     "parts": ("resistor_series", "capacitor_series", "resistor_tolerance", "capacitor_tolerance"),
-    "spread": ("draws", "seed"),
+    "spread": ("draws", "seed", "min_yield_percent"),
     "existing": ("type", "parts"),
 }
 
@@ -100,6 +101,7 @@ class DesignSpec:
     tolerances: tuple[float | None, float | None] = (None, None)
     draws: int = 2000
     seed: int | None = None
+    min_yield: float | None = None
     existing: Network | None = None
     source: str | None = None
 
@@ -118,7 +120,7 @@ class DesignSpec:
         """Run the design this spec describes."""
         return design(self.corners(), self.kind, self.targets, method=self.method, r_in=self.r_in,
                       opamp=self.opamp, series=self.series, tolerances=self.tolerances,
-                      draws=self.draws, seed=self.seed,
+                      draws=self.draws, seed=self.seed, min_yield=self.min_yield,
                       sources=tuple(self.plant_files) + ((self.source,) if self.source else ()))
 
 
@@ -323,6 +325,12 @@ def read_design_file(path: str | os.PathLike) -> DesignSpec:
             if isinstance(v, bool) or not isinstance(v, int) or v < 0:
                 raise InputError(f"spread.{key} = {v!r}; expected a whole number >= 0", source=src)
             changes[key] = v
+    if "min_yield_percent" in sp:
+        v = _num(sp, "min_yield_percent", src)
+        if not 0.0 < v < 100.0:
+            raise InputError(f"spread.min_yield_percent = {v:g}; expected a percentage between "
+                             "0 and 100", source=src)
+        changes["min_yield"] = v / 100.0
 
     ex = data.get("existing", {})
     if ex:

@@ -58,6 +58,7 @@ class DemoScenario:
     r_in_ohm: float = 10e3
     series: tuple[str, str] = ("E96", "E24")
     draws: int = 2000
+    min_yield: float = 0.95             # design with headroom for the part tolerances
     seed: int = 2024
 
 
@@ -146,7 +147,8 @@ def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit
     targets = Targets(crossover_hz=sc.crossover_hz, phase_margin_deg=sc.phase_margin_deg,
                       gain_margin_db=sc.gain_margin_db)
     des = design(lp, sc.network, targets, r_in=sc.r_in_ohm, opamp=OpAmp(sc.opamp_gbw_hz), series=sc.series,
-                 draws=sc.draws, seed=sc.seed, sources=(rel[sc.plant_file],))
+                 draws=sc.draws, seed=sc.seed, sources=(rel[sc.plant_file],),
+                 min_yield=sc.min_yield)
     log(des.report() + "\n")
 
     zout = read_sweep(rel[sc.zout_file])
