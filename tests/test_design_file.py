@@ -137,6 +137,7 @@ def test_cli_flags_only(setup, capsys):
     (["--crossover", "fast"], "--crossover"),
     (["--min-yield", "150"], "--min-yield"),
     (["--min-yield", "many"], "--min-yield"),
+    (["--min-yield", "95"], "needs Monte Carlo draws"),
 ])
 def test_cli_user_errors_are_one_line_exit_2(setup, capsys, argv, needle):
     folder, _ = setup

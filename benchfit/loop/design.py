@@ -460,6 +460,9 @@ def design(corners: LoopPlant | Sequence[LoopPlant], kind: str, targets: Targets
     if min_yield is not None and not (0.0 < min_yield < 1.0):
         raise InputError(f"minimum yield {min_yield!r}; expected a fraction between 0 and 1 "
                          "(a percentage below 100)", source="--min-yield")
+    if min_yield is not None and not draws:
+        raise InputError("a minimum yield needs Monte Carlo draws; expected --draws above 0",
+                         source="--min-yield")
     kind = check_kind(kind)
     r_series, c_series = (eseries._key(series[0]), eseries._key(series[1]))
     r_tol, c_tol = _series_tolerance(tolerances, r_series, c_series)
