@@ -266,6 +266,12 @@ def test_stddev_column_weights_and_reduced_chi2():
     assert res.stats["noise_source"] == "stddev"
     assert res.stats["order"] == 3
     assert 0.8 < res.stats["reduced_chi2"] < 1.2
+    # Absolute weighting reads the same column the same way (σ/√2 per real and imaginary
+    # part): its reduced chi-square was 0.5 when the column was taken per part.
+    res_abs = fit(FrequencyResponse(freq_hz=f, response=noisy, stddev=sd), delay="none",
+                  weighting="absolute")
+    assert res_abs.stats["order"] == 3
+    assert 0.8 < res_abs.stats["reduced_chi2"] < 1.2
 
 
 def test_draw_responses_follow_the_covariance(plant):

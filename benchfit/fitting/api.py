@@ -593,7 +593,9 @@ def fit(
     s = 1j * TWO_PI * f
     sig_abs = None
     if weighting == "absolute":
-        sig_abs = resp.stddev if resp.stddev is not None else np.full(
+        # The stddev column is the σ of the complex response: a circular error puts
+        # σ/√2 into each of the real and imaginary parts the residual is made of.
+        sig_abs = resp.stddev / np.sqrt(2.0) if resp.stddev is not None else np.full(
             n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
     # Hypotheses are refined, pruned and compared on the thinned copy the scans
     # used (each decision is a chi-square difference against ln N, valid at any
