@@ -319,3 +319,19 @@ def test_bad_data():
         fit(FrequencyResponse(freq_hz=f, response=r.response, stddev=np.full(8, np.nan)))
     with pytest.raises(InputError, match="FrequencyResponse"):
         fit([1, 2, 3])
+
+
+@pytest.mark.parametrize("n", [201, 1601, 100_001])
+def test_first_delay_estimate_does_not_depend_on_the_point_density(n):
+    # The excess-phase slope (phase minus Bode's (π/2)·d ln|H|/d ln ω) smooths the noisy
+    # derivative over n/50 points; padding its ends by repeating the last value made the top
+    # of a dense sweep one derivative's noise, and 100 001 points gave 0 s instead of ~177 ns
+    # (then no delay was even tried).  The noiseless estimate on the same grid is the reference.
+    from benchfit.fitting.delay import excess_phase_delay
+
+    m = converter_plant(delay_s=150e-9)
+    f = np.geomspace(10, 1e7, n)
+    clean = sweep(m, f)
+    noisy = sweep(m, f, noise_db=0.1, noise_deg=0.5, rng=np.random.default_rng(1))
+    want = excess_phase_delay(clean.freq_hz, clean.response)
+    assert excess_phase_delay(noisy.freq_hz, noisy.response) == pytest.approx(want, rel=0.03)

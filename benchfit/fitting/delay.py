@@ -53,7 +53,7 @@ def excess_phase_delay(freq_hz: np.ndarray, h: np.ndarray, top_fraction: float =
     # Smooth the slope a little: noise in ln|H| is amplified by the derivative.
     k = max(1, f.shape[0] // 50)
     if k > 1:
-        slope = np.convolve(np.pad(slope, k, mode="edge"), np.ones(2 * k + 1) / (2 * k + 1),
+        slope = np.convolve(np.pad(slope, k, mode="reflect"), np.ones(2 * k + 1) / (2 * k + 1),
                             mode="same")[k:-k]
     excess = ph - 0.5 * np.pi * slope
     cut = lnw[-1] - top_fraction * (lnw[-1] - lnw[0])
