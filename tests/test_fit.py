@@ -335,3 +335,23 @@ def test_first_delay_estimate_does_not_depend_on_the_point_density(n):
     noisy = sweep(m, f, noise_db=0.1, noise_deg=0.5, rng=np.random.default_rng(1))
     want = excess_phase_delay(clean.freq_hz, clean.response)
     assert excess_phase_delay(noisy.freq_hz, noisy.response) == pytest.approx(want, rel=0.03)
+
+
+def test_an_unstable_plant_keeps_its_right_half_plane_pole():
+    # A plant with a real pole in the right half-plane at 1 kHz (a loop measured around an
+    # unstable open loop), data from scipy.signal.freqs_zpk (general-purpose reference).
+    # Vector fitting's mirroring left the fit 90x above the noise floor; seeing mirrored poles
+    # and such a residual, the fit is redone without mirroring and the pole stays at +1 kHz.
+    from scipy import signal
+
+    f = np.geomspace(10, 1e6, 601)
+    w1, w2, wz = 2 * np.pi * 1e3, 2 * np.pi * 5e4, 2 * np.pi * 2e4
+    _, h = signal.freqs_zpk([-wz], [w1, -w2], 2.0 * w1 * w2 / wz * -1.0, 2 * np.pi * f)
+    rng = np.random.default_rng(4)
+    h = h * 10 ** (rng.normal(0, 0.05, f.size) / 20) * np.exp(1j * np.radians(rng.normal(0, 0.3, f.size)))
+    res = fit(FrequencyResponse(freq_hz=f, response=h), delay="none")
+    assert res.stats["order"] == 2 and res.stats["residual_over_floor"] < 1.2
+    p = res.parameter("pole1_hz")
+    assert p.value < 0 and abs(p.value + 1e3) <= 3 * p.stderr, p  # negative: right half-plane
+    assert not res.model.is_stable
+    assert any("right-half-plane" in w for w in res.warnings)

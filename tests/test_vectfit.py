@@ -145,3 +145,19 @@ def test_real_starting_poles_when_asked():
     assert _rel_pole_error(vf.poles * scale, -2 * np.pi * p_hz) < 1e-6
     with pytest.raises(ValueError, match="n_real"):
         initial_poles(4, 0.1, 10, n_real=3)
+
+
+def test_without_mirroring_an_unstable_pole_is_recovered_exactly():
+    # Noiseless data with a right-half-plane pole, from scipy.signal.freqs_zpk (reference):
+    # the published relocation mirrors it (stability enforcement, Gustavsen & Semlyen 1999)
+    # and cannot fit; with mirror=False the exact pole set is a fixed point.
+    f = np.geomspace(10, 1e6, 401)
+    want = np.array([2 * np.pi * 1e3, -2 * np.pi * 5e4, -2 * np.pi * 2e5])
+    _, h = signal.freqs_zpk([-2 * np.pi * 2e4], want, 1e9, 2 * np.pi * f)
+    s, scale = _scaled(f)
+    p0 = initial_poles(3, abs(s[0]), abs(s[-1]))
+    mirrored = vector_fit(s, h, 1 / np.abs(h), p0, direct=False)
+    kept = vector_fit(s, h, 1 / np.abs(h), p0, direct=False, mirror=False)
+    assert np.all(mirrored.poles.real < 0)
+    assert _rel_pole_error(kept.poles * scale, want) < 1e-6
+    assert kept.flipped.size == 0

@@ -9,6 +9,7 @@ cancelling artefacts removed → lmfit refinement with uncertainties
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -581,100 +582,113 @@ def fit(
     ctx = Context(s=s_sc, scale=scale, h=h, sigma=sigma, w=w, integrators=m,
                   direct=direct, proportional=prop)
 
-    # ----- delay and order, then physical parameters and refinement -------------
     if order != "auto":
         need = int(order) + 3
         if n_pts < need:
             raise FitError(f"order {order} needs at least {need} points in the band; it holds {n_pts}")
-    cands, scan = _order_and_delay(ctx, f, h, order, delay)
-    fixed = dict(fix or {})
-    if not isinstance(delay, str) and delay > 0:
-        fixed.setdefault("delay_s", float(delay))
-    s = 1j * TWO_PI * f
-    sig_abs = None
-    if weighting == "absolute":
-        # The stddev column is the σ of the complex response: a circular error puts
-        # σ/√2 into each of the real and imaginary parts the residual is made of.
-        sig_abs = resp.stddev / np.sqrt(2.0) if resp.stddev is not None else np.full(
-            n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
-    # Hypotheses are refined, pruned and compared on the thinned copy the scans
-    # used (each decision is a chi-square difference against ln N, valid at any
-    # N); only the winner is refined on every point, from there.
-    idx = ctx.subsample_index(SCAN_POINTS)
-    sig_abs_sub = None if sig_abs is None else sig_abs[idx]
 
-    # Trial refinements that only compare χ² between candidates run without
-    # lmfit's per-call overhead (same algorithm, refine(quick=True)); the
-    # refinement the result reports goes through lmfit (_final).
-    def refit_sub(st_, v_, max_nfev=200):
-        return refine(st_, v_, s[idx], h[idx], sigma.mag[idx], sigma.phase[idx], fix=fixed,
-                      bounds=bounds, weighting=weighting, sig_abs=sig_abs_sub, max_nfev=max_nfev,
-                      quick=True)
+    def run(ctx: Context) -> FitResult:
+        # ----- delay and order, then physical parameters and refinement -------------
+        cands, scan = _order_and_delay(ctx, f, h, order, delay)
+        fixed = dict(fix or {})
+        if not isinstance(delay, str) and delay > 0:
+            fixed.setdefault("delay_s", float(delay))
+        s = 1j * TWO_PI * f
+        sig_abs = None
+        if weighting == "absolute":
+            # The stddev column is the σ of the complex response: a circular error puts
+            # σ/√2 into each of the real and imaginary parts the residual is made of.
+            sig_abs = resp.stddev / np.sqrt(2.0) if resp.stddev is not None else np.full(
+                n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
+        # Hypotheses are refined, pruned and compared on the thinned copy the scans
+        # used (each decision is a chi-square difference against ln N, valid at any
+        # N); only the winner is refined on every point, from there.
+        idx = ctx.subsample_index(SCAN_POINTS)
+        sig_abs_sub = None if sig_abs is None else sig_abs[idx]
 
-    def refit_quick(st_, v_, max_nfev=200):
-        return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
-                      weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev, quick=True)
+        # Trial refinements that only compare χ² between candidates run without
+        # lmfit's per-call overhead (same algorithm, refine(quick=True)); the
+        # refinement the result reports goes through lmfit (_final).
+        def refit_sub(st_, v_, max_nfev=200):
+            return refine(st_, v_, s[idx], h[idx], sigma.mag[idx], sigma.phase[idx], fix=fixed,
+                          bounds=bounds, weighting=weighting, sig_abs=sig_abs_sub, max_nfev=max_nfev,
+                          quick=True)
 
-    def refit(st_, v_, max_nfev=200):
-        return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
-                      weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev)
+        def refit_quick(st_, v_, max_nfev=200):
+            return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
+                          weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev, quick=True)
 
-    worth = _screen(cands, 2 * idx.shape[0])
-    trial_sub = refit_sub
-    single = len(worth) == 1
-    if single:
-        # Nothing to compare: refine (lmfit) and prune on every point straight away.
-        idx, refit_sub, trial_sub = np.arange(n_pts), refit, refit_quick
-    n_sub = 2 * idx.shape[0]
-    starts = []
-    missing: InputError | None = None
-    for att in worth:
-        try:
-            starts.append((att, *_start(att, ctx, f, delay, fixed, refit_sub)))
-        except InputError as e:
-            # This hypothesis has no parameter the user holds or bounds: it is not
-            # one the user asked about.  Only when none has it is that an error.
-            missing = missing or e
-        except (ValueError, np.linalg.LinAlgError):
-            continue
-    if not starts and missing is not None:
-        raise missing
-    # The most promising start is pruned first; a later one whose best possible
-    # outcome is out of reach of the best so far is not worth its pruning.
-    starts.sort(key=lambda o: _bic(o[2], n_sub))
-    may_add = delay == "auto" and "delay_s" not in fixed
-    outcomes = []
-    for att, st0, ref0, notes0 in starts:
-        if outcomes and _bic_floor(st0, ref0, f[-1], n_sub, may_add) > min(
-                _bic(o[2], n_sub) for o in outcomes) + CLOSE_CALL:
-            continue
-        outcomes.append((att, *_pruned(st0, ref0, notes0, ctx, f, idx, fixed, bounds, refit_sub,
-                                       add_delay=may_add, trial=trial_sub)))
-    # A hypothesis whose refinement stopped at its cap is refined to the end when
-    # it is still in the running; one far behind is left where it stopped.
-    for i, (att, st_, ref_, nt) in enumerate(outcomes):
-        if not ref_.success and _bic(ref_, n_sub) - min(
-                _bic(o[2], n_sub) for o in outcomes) < 2 * CLOSE_CALL:
-            outcomes[i] = (att, st_, refit_sub(st_, ref_.values), nt)
-    if not outcomes:
-        raise FitError("vector fitting failed: the model does not evaluate on the band "
-                       "(check the data for gaps or exact zeros)")
-    # Delay or no delay: the information criterion of the refined fits decides
-    # (BIC rather than AIC: a many-pole rational can mimic a delay, and BIC's
-    # stronger penalty keeps the simpler explanation unless the data insist).
-    on_all = idx.shape[0] == n_pts
-    outcomes.sort(key=lambda o: _bic(o[2], n_sub))
-    best_bic = _bic(outcomes[0][2], n_sub)
-    close = [o for o in outcomes if _bic(o[2], n_sub) - best_bic < CLOSE_CALL]
-    if len(close) > 1 and not on_all:
-        # A close call on the thinned copy is decided on every point.
-        close = [(a, st_, refit_quick(st_, ref_.values), nt) for a, st_, ref_, nt in close]
-        close.sort(key=lambda o: _bic(o[2], 2 * n_pts))
-        outcomes = close
-    att, st, ref, notes = outcomes[0]
-    st, ref, notes = _final(st, ref, notes, refit, refit_quick, fixed, bounds, f, sigma,
-                            refined=single)
-    return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
+        def refit(st_, v_, max_nfev=200):
+            return refine(st_, v_, s, h, sigma.mag, sigma.phase, fix=fixed, bounds=bounds,
+                          weighting=weighting, sig_abs=sig_abs, max_nfev=max_nfev)
+
+        worth = _screen(cands, 2 * idx.shape[0])
+        trial_sub = refit_sub
+        single = len(worth) == 1
+        if single:
+            # Nothing to compare: refine (lmfit) and prune on every point straight away.
+            idx, refit_sub, trial_sub = np.arange(n_pts), refit, refit_quick
+        n_sub = 2 * idx.shape[0]
+        starts = []
+        missing: InputError | None = None
+        for att in worth:
+            try:
+                starts.append((att, *_start(att, ctx, f, delay, fixed, refit_sub)))
+            except InputError as e:
+                # This hypothesis has no parameter the user holds or bounds: it is not
+                # one the user asked about.  Only when none has it is that an error.
+                missing = missing or e
+            except (ValueError, np.linalg.LinAlgError):
+                continue
+        if not starts and missing is not None:
+            raise missing
+        # The most promising start is pruned first; a later one whose best possible
+        # outcome is out of reach of the best so far is not worth its pruning.
+        starts.sort(key=lambda o: _bic(o[2], n_sub))
+        may_add = delay == "auto" and "delay_s" not in fixed
+        outcomes = []
+        for att, st0, ref0, notes0 in starts:
+            if outcomes and _bic_floor(st0, ref0, f[-1], n_sub, may_add) > min(
+                    _bic(o[2], n_sub) for o in outcomes) + CLOSE_CALL:
+                continue
+            outcomes.append((att, *_pruned(st0, ref0, notes0, ctx, f, idx, fixed, bounds, refit_sub,
+                                           add_delay=may_add, trial=trial_sub)))
+        # A hypothesis whose refinement stopped at its cap is refined to the end when
+        # it is still in the running; one far behind is left where it stopped.
+        for i, (att, st_, ref_, nt) in enumerate(outcomes):
+            if not ref_.success and _bic(ref_, n_sub) - min(
+                    _bic(o[2], n_sub) for o in outcomes) < 2 * CLOSE_CALL:
+                outcomes[i] = (att, st_, refit_sub(st_, ref_.values), nt)
+        if not outcomes:
+            raise FitError("vector fitting failed: the model does not evaluate on the band "
+                           "(check the data for gaps or exact zeros)")
+        # Delay or no delay: the information criterion of the refined fits decides
+        # (BIC rather than AIC: a many-pole rational can mimic a delay, and BIC's
+        # stronger penalty keeps the simpler explanation unless the data insist).
+        on_all = idx.shape[0] == n_pts
+        outcomes.sort(key=lambda o: _bic(o[2], n_sub))
+        best_bic = _bic(outcomes[0][2], n_sub)
+        close = [o for o in outcomes if _bic(o[2], n_sub) - best_bic < CLOSE_CALL]
+        if len(close) > 1 and not on_all:
+            # A close call on the thinned copy is decided on every point.
+            close = [(a, st_, refit_quick(st_, ref_.values), nt) for a, st_, ref_, nt in close]
+            close.sort(key=lambda o: _bic(o[2], 2 * n_pts))
+            outcomes = close
+        att, st, ref, notes = outcomes[0]
+        st, ref, notes = _final(st, ref, notes, refit, refit_quick, fixed, bounds, f, sigma,
+                                refined=single)
+        return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
+
+    result = run(ctx)
+    if result.stats["mirrored_poles"] and result.stats["residual_over_floor"] > FAR_ABOVE_FLOOR:
+        # Mirrored right-half-plane poles and a residual far above the floor: the plant
+        # may really be unstable.  Fit again keeping such poles where the data put them;
+        # the better fit by far wins (a stable plant is never second-guessed).
+        alt = run(replace(ctx, mirror=False))
+        if alt.stats["residual_over_floor"] < 0.5 * result.stats["residual_over_floor"]:
+            result = replace(alt, notes=(*alt.notes, "fitted again without mirroring right-half-"
+                                         "plane poles: the plant appears to be unstable"))
+    return result
 
 
 #: A candidate whose vector-fitting BIC is worse than the best one's by more than this
@@ -896,6 +910,7 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
         "noise_floor_deg": sigma.floor_deg,
         "noise_source": sigma.source,
         "residual_over_floor": chi,
+        "mirrored_poles": n_fl,
         "delay_s": float(max(tau, 0.0)),
     }
     return FitResult(

@@ -45,6 +45,7 @@ class Context:
     integrators: int
     direct: bool
     proportional: bool
+    mirror: bool = True    # mirror right-half-plane poles (False: the plant may be unstable)
 
     def subsample(self, max_points: int) -> Context:
         """Every k-th point (ends kept) so at most about ``max_points`` remain.
@@ -113,7 +114,7 @@ def attempt(ctx: Context, order: int, tau_s: float = 0.0, poles0=None, max_iter:
     p0 = initial_poles(order, lo, hi) if poles0 is None else poles0
     try:
         vf = vector_fit(ctx.s, g, w, p0, direct=ctx.direct, proportional=ctx.proportional,
-                        max_iter=max_iter, tol=tol)
+                        max_iter=max_iter, tol=tol, mirror=ctx.mirror)
     except (ValueError, linalg.LinAlgError):
         p0 = np.asarray(p0, dtype=complex)
         vf = VFResult(poles=p0, residues=np.zeros_like(p0), d=0.0, e=0.0, iterations=0,

@@ -177,8 +177,12 @@ def _state_matrix(poles: np.ndarray, kind: np.ndarray) -> tuple[np.ndarray, np.n
     return am, bm
 
 
-def _relocate(s, h, w, poles, direct, proportional):
-    """One relaxed pole-relocation step; returns (new poles, mirrored poles)."""
+def _relocate(s, h, w, poles, direct, proportional, mirror=True):
+    """One relaxed pole-relocation step; returns (new poles, mirrored poles).
+
+    ``mirror=False`` keeps right-half-plane poles where they are (a plant that
+    really is unstable); nothing is then reported as mirrored.
+    """
     phi, kind = _basis(s, poles)
     n_s, n = phi.shape
     n_num = n + int(direct) + int(proportional)
@@ -231,8 +235,11 @@ def _relocate(s, h, w, poles, direct, proportional):
     if info != 0:
         raise linalg.LinAlgError(f"eigenvalues did not converge (info {info})")
     new = wr + 1j * wi
-    flipped = -np.conj(new[new.real > 0])
-    new = np.where(new.real > 0, -np.conj(new), new)
+    if mirror:
+        flipped = -np.conj(new[new.real > 0])
+        new = np.where(new.real > 0, -np.conj(new), new)
+    else:
+        flipped = np.zeros(0, dtype=complex)
     # A pole exactly on the axis would make the basis singular on a measured point.
     tiny = 1e-12 * max(np.max(np.abs(new)), 1e-300)
     new = np.where(np.abs(new.real) < tiny, new - tiny, new)
@@ -330,6 +337,7 @@ def vector_fit(
     proportional: bool = False,
     max_iter: int = 30,
     tol: float = 1e-9,
+    mirror: bool = True,
 ) -> VFResult:
     """Fit ``h`` at scaled frequencies ``s`` with poles started at ``poles``.
 
@@ -349,6 +357,10 @@ def vector_fit(
         Iteration cap for pole relocation.
     tol
         Convergence: largest relative pole move below ``tol``.
+    mirror
+        Mirror right-half-plane poles into the left half-plane at each
+        relocation (the published method's stability enforcement); False for
+        a plant that is really unstable.
 
     Returns
     -------
@@ -369,7 +381,7 @@ def vector_fit(
     it = 0
     for it in range(1, max_iter + 1):  # noqa: B007 (it is reported after the loop)
         try:
-            new, flipped = _relocate(s, h, w, poles, direct, proportional)
+            new, flipped = _relocate(s, h, w, poles, direct, proportional, mirror)
         except (linalg.LinAlgError, ValueError):
             break  # keep the last good poles; reported as not converged
         change = _pole_change(poles, new)
