@@ -51,6 +51,9 @@ TRIAL_NFEV = 20
 DELAY_MIN_PHASE = 0.05
 #: Residual above this multiple of the noise floor gets a warning (common practice, no source).
 FAR_ABOVE_FLOOR = 2.0
+#: A fit with mirrored poles whose residual stays above this multiple of the floor is
+#: tried again without mirroring (the plant may be unstable; common practice, no source).
+UNSTABLE_RETRY = 1.3
 _DB = 20.0 / np.log(10.0)
 
 
@@ -680,12 +683,15 @@ def fit(
         return _build_result(resp, st, ref, att, scan, sigma, notes, fixed, settings, scale)
 
     result = run(ctx)
-    if result.stats["mirrored_poles"] and result.stats["residual_over_floor"] > FAR_ABOVE_FLOOR:
-        # Mirrored right-half-plane poles and a residual far above the floor: the plant
-        # may really be unstable.  Fit again keeping such poles where the data put them;
-        # the better fit by far wins (a stable plant is never second-guessed).
+    chi = result.stats["residual_over_floor"]
+    if result.stats["mirrored_poles"] and chi > UNSTABLE_RETRY:
+        # Mirrored right-half-plane poles and a residual clearly above the floor: the
+        # plant may really be unstable.  Fit again keeping such poles where the data put
+        # them; that fit wins when it reaches the floor or halves the residual (a stable
+        # plant fitted at the floor is never second-guessed).
         alt = run(replace(ctx, mirror=False))
-        if alt.stats["residual_over_floor"] < 0.5 * result.stats["residual_over_floor"]:
+        alt_chi = alt.stats["residual_over_floor"]
+        if alt_chi <= CHI_OK or alt_chi < 0.5 * chi:
             result = replace(alt, notes=(*alt.notes, "fitted again without mirroring right-half-"
                                          "plane poles: the plant appears to be unstable"))
     return result
