@@ -355,3 +355,29 @@ def test_an_unstable_plant_keeps_its_right_half_plane_pole():
     assert p.value < 0 and abs(p.value + 1e3) <= 3 * p.stderr, p  # negative: right half-plane
     assert not res.model.is_stable
     assert any("right-half-plane" in w for w in res.warnings)
+
+
+@pytest.mark.parametrize("seed", [1, 2])
+def test_an_unstable_plant_is_not_dressed_as_a_sign_flip_below_the_band(seed):
+    # A right-half-plane pole at 556 Hz inside a 144 Hz..5 MHz sweep (data from
+    # scipy.signal.freqs_zpk, general-purpose reference).  With mirroring, the fit reached the
+    # floor with a contrived structure: a second right-half-plane pole near 0.01 Hz and a zero
+    # pair below the band (a sign flip), order 4 for 3, and an open-loop pole a Nyquist count
+    # would wrongly include.  The unmirrored fit has two parameters fewer at the same residual
+    # and wins by BIC (G. Schwarz, Ann. Statist. 6(2), 1978).
+    from scipy import signal
+
+    f = np.geomspace(143.55, 5.0429e6, 1601)
+    w1, wz, w0, q = 2 * np.pi * 555.7, 2 * np.pi * 2708.5, 2 * np.pi * 44016.9, 4.978
+    poles = np.concatenate([[w1], np.roots([1, w0 / q, w0 ** 2])])
+    # DC gain +81: k·(−z)/Π(−p) = 81
+    k = 81.0 * np.prod(-poles).real / wz
+    _, h = signal.freqs_zpk([-wz], poles, k, 2 * np.pi * f)
+    rng = np.random.default_rng(seed)
+    h = h * 10 ** (rng.normal(0, 0.05, f.size) / 20) * np.exp(1j * np.radians(rng.normal(0, 0.3, f.size)))
+    res = fit(FrequencyResponse(freq_hz=f, response=h))
+    assert res.stats["order"] == 3
+    assert [p.name for p in res.parameters if p.name.endswith("_hz")] == \
+        ["pole1_hz", "pair1_f0_hz", "zero1_hz"]
+    p = res.parameter("pole1_hz")
+    assert abs(p.value + 555.7) <= 3 * p.stderr, p
