@@ -96,6 +96,17 @@ def _arrange(poles: np.ndarray) -> np.ndarray:
     return out
 
 
+def _kinds(poles: np.ndarray) -> np.ndarray:
+    """0 for a real pole, 1 and 2 for the upper and lower member of a pair
+    (poles in :func:`_arrange` order)."""
+    n = poles.shape[0]
+    kind = np.zeros(n, dtype=int)
+    first = np.flatnonzero(poles.imag > 0.0)
+    first = first[first + 1 < n]
+    kind[first], kind[first + 1] = 1, 2
+    return kind
+
+
 def _basis(s: np.ndarray, poles: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Real-coefficient partial-fraction basis Φ (n_s × N complex) and a kind vector.
 
@@ -103,12 +114,9 @@ def _basis(s: np.ndarray, poles: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     column of a complex pair (1/(s-a)+1/(s-a*) and j/(s-a)-j/(s-a*)).
     Poles are in :func:`_arrange` order (each pair's upper member first).
     """
-    n = poles.shape[0]
     inv = 1.0 / (s[:, None] - poles[None, :])
-    kind = np.zeros(n, dtype=int)
-    first = np.flatnonzero(poles.imag > 0.0)
-    first = first[first + 1 < n]
-    kind[first], kind[first + 1] = 1, 2
+    kind = _kinds(poles)
+    first = np.flatnonzero(kind == 1)
     phi = inv.copy()
     a, b = inv[:, first], inv[:, first + 1]
     phi[:, first] = a + b
@@ -403,21 +411,12 @@ def vf_to_zpk(vf: VFResult, scale: float) -> tuple[np.ndarray, np.ndarray, float
     """
     p = vf.poles
     n = p.shape[0]
-    # Real state-space form of the pole/residue model.
-    a = np.zeros((n, n))
-    b = np.zeros(n)
-    c = np.zeros(n)
-    i = 0
-    while i < n:
-        if p[i].imag == 0.0:
-            a[i, i], b[i], c[i] = p[i].real, 1.0, vf.residues[i].real
-            i += 1
-        else:
-            a[i, i], a[i, i + 1] = p[i].real, p[i].imag
-            a[i + 1, i], a[i + 1, i + 1] = -p[i].imag, p[i].real
-            b[i] = 2.0
-            c[i], c[i + 1] = vf.residues[i].real, vf.residues[i].imag
-            i += 2
+    # Real state-space form of the pole/residue model (the relocation's A and b).
+    kind = _kinds(p)
+    a, b = _state_matrix(p, kind)
+    c = vf.residues.real.copy()
+    pair = np.flatnonzero(kind == 1)
+    c[pair + 1] = vf.residues[pair].imag
     m = n + (2 if vf.e else 0)
     big_a = np.zeros((m + 1, m + 1))
     big_e = np.zeros((m + 1, m + 1))
