@@ -112,8 +112,9 @@ def search_delay(ctx: Context, order: int, lo: float, hi: float, poles0=None,
 
 #: At this multiple of the floor an order is too low for the delay search to pay
 #: (common practice, no source: a wrong delay costs far less than a missing pole there).
-#: 10 rather than 50 left every order, delay and pole of the benchmark seeds and of
-#: delays from 30 ns to 1 µs unchanged and saved a fifth of the relocations (measured here).
+#: 10 rather than 50 left every order, delay and pole of benchmarks/fit_accuracy.py's
+#: seeds unchanged (and, in a scratch check, of delays from 30 ns to 1 µs) and saved a
+#: fifth of the relocations.
 HOPELESS = 10.0
 
 

@@ -21,9 +21,13 @@ curvature a sparse sweep shows), taken in a running window so a noise floor
 that rises where the response is small is followed: a running median first
 (robust to glitches and curvature), then the running mean square of the
 third differences clipped at three times that median (for Gaussian noise
-the mean square has about 2.7 times the efficiency of the median absolute
-deviation, so the window's σ wanders far less).  All of it is relative:
-multiplying the data by a constant changes no weight.
+the median absolute deviation has an asymptotic efficiency of about 37 %
+against the mean square, e.g. P. J. Huber and E. M. Ronchetti, *Robust
+Statistics*, 2nd ed., 2009 — value from memory; so the window's σ wanders
+far less).  One σ for the whole sweep replaces the running one unless the
+running one explains the third differences better by more than Schwarz's
+penalty for its freedom.  All of it is relative: multiplying the data by a
+constant changes no weight.
 """
 
 from __future__ import annotations
@@ -78,13 +82,14 @@ def _window(n: int) -> int:
 
 #: Third differences beyond this many running-median σ are clipped in the mean square.
 CLIP = 3.0
-#: E[min(z², CLIP²)] for a standard normal z: the clipped mean square's bias, divided out.
+#: E[min(z², CLIP²)] for a standard normal z (second moment of the normal truncated at
+#: ±CLIP, plus CLIP² times the tail probability): the clipped mean square's bias.
 _CLIP_MEAN = float((erf(CLIP / np.sqrt(2.0)) - 2.0 * CLIP * np.exp(-0.5 * CLIP * CLIP)
                     / np.sqrt(2.0 * np.pi)) + CLIP * CLIP * erfc(CLIP / np.sqrt(2.0)))
 
 
 def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
-    """Running robust σ of a real sequence from its third differences.
+    """σ of a real sequence from its third differences: one value, or a running one.
 
     Parameters
     ----------

@@ -499,8 +499,9 @@ def design(corners: LoopPlant | Sequence[LoopPlant], kind: str, targets: Targets
     if spread is not None:
         if min_yield is not None and spread.yield_fraction < min_yield:
             warnings.append(f"the {min_yield * 100:g} % yield asked for was not reached: "
-                            f"{spread.yield_fraction * 100:.1f} % with the most margin this "
-                            "plant and network allow")
+                            f"{spread.yield_fraction * 100:.1f} % when designed for PM "
+                            f"{used.phase_margin_deg:.1f}°, GM {used.gain_margin_db:.1f} dB "
+                            "(more margin could not be synthesised, or the rounds ran out)")
         elif spread.yield_fraction < YIELD_WARN:
             warnings.append(f"only {spread.yield_fraction * 100:.1f} % of {spread.draws} Monte Carlo "
                             "draws meet the targets with part tolerances "
