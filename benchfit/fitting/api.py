@@ -693,8 +693,8 @@ def fit(
     result = run(ctx)
     if result.stats["mirrored_poles"]:
         # Vector fitting had to mirror right-half-plane poles: the plant may really be
-        # unstable (a stable plant's fit rarely ends with mirrored poles: none of the 80
-        # benchmark fits did).  Fit again keeping such poles where the data put them;
+        # unstable (a stable plant's fit rarely ends with mirrored poles: none of the 120
+        # fits of benchmarks/fit_accuracy.py does, it prints the count).  Fit again keeping such poles where the data put them;
         # that fit wins when the mirrored one stays clearly above the floor and it
         # reaches the floor or halves the residual, or when its BIC is lower by more
         # than CLOSE_CALL (the mirrored fit can reach the floor with a contrived
