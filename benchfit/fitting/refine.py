@@ -177,12 +177,7 @@ def refine(
     r0 = first[0] if first else residual(params)
     if not np.all(np.isfinite(out.residual)) or out.chisqr > 1.001 * float(r0 @ r0) + 1e-300:
         # The search wandered off (a badly under-modelled start): keep the start.
-        chi0 = float(r0 @ r0)
-        return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=tuple(out.var_names),
-                       covariance=np.full((len(out.var_names),) * 2, np.nan),
-                       evaluations=int(out.nfev), success=False, chisqr=chi0,
-                       redchi=chi0 / max(r0.size - len(out.var_names), 1),
-                       message="refinement made the fit worse; kept the vector-fitting values")
+        return _kept_start(names, v0, tuple(out.var_names), r0, int(out.nfev))
     stderr = np.full(len(names), np.nan)
     varied = tuple(out.var_names)
     if out.covar is not None:
@@ -217,10 +212,7 @@ def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
     dof = max(r0.size - var_idx.size, 1)
     chi = float(out.fun @ out.fun)
     if not np.all(np.isfinite(out.fun)) or chi > 1.001 * chi0 + 1e-300:
-        return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=varied,
-                       covariance=np.full((var_idx.size,) * 2, np.nan), evaluations=int(out.nfev),
-                       success=False, chisqr=chi0, redchi=chi0 / dof,
-                       message="refinement made the fit worse; kept the vector-fitting values")
+        return _kept_start(names, v0, varied, r0, int(out.nfev))
     v = v0.copy()
     v[var_idx] = out.x
     redchi = chi / dof
@@ -233,3 +225,14 @@ def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
     return Refined(values=v, stderr=stderr, varied=varied, covariance=cov,
                    evaluations=int(out.nfev), success=bool(out.status > 0), chisqr=chi,
                    redchi=redchi, message=str(out.message))
+
+
+def _kept_start(names, v0: np.ndarray, varied: tuple[str, ...], r0: np.ndarray,
+                nfev: int) -> Refined:
+    """The outcome when the search wandered off (a badly under-modelled start): the
+    start's values and χ², no uncertainties, not converged."""
+    chi0 = float(r0 @ r0)
+    return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=varied,
+                   covariance=np.full((len(varied),) * 2, np.nan), evaluations=nfev,
+                   success=False, chisqr=chi0, redchi=chi0 / max(r0.size - len(varied), 1),
+                   message="refinement made the fit worse; kept the vector-fitting values")
