@@ -34,8 +34,9 @@ from benchfit.fitting.order import (
     polish,
 )
 from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk, response, to_zpk
-from benchfit.fitting.refine import Refined, log_residual, refine
+from benchfit.fitting.refine import Refined, log_residual, refine, renumbered
 from benchfit.fitting.result import FitResult, Parameter
+from benchfit.fitting.uncertainty import correlation
 from benchfit.fitting.vectfit import vf_to_zpk
 from benchfit.fitting.weights import PointSigma, point_sigma, scatter_sigma, vf_weight
 
@@ -396,13 +397,18 @@ def _drop_unneeded(st: Structure, ref: Refined, refit, n_res: int, candidates, w
 
 
 def _unidentified(st: Structure, ref: Refined) -> list[str]:
-    """Pole and zero groups with a parameter whose σ exceeds its value, vaguest first."""
+    """Pole and zero groups with a parameter whose σ exceeds its value or that the data
+    cannot determine at all (:attr:`Refined.undetermined`), vaguest first."""
     out = []
     for i, nm in enumerate(st.names):
         if not nm.startswith(("pole", "pair", "zero")):
             continue
         rel = abs(ref.stderr[i] / ref.values[i]) if ref.values[i] else np.inf
-        if np.isfinite(rel) and rel > 1.0:
+        if nm in ref.undetermined:
+            rel = np.inf  # the data cannot determine it at all: vaguer than any σ
+        elif not np.isfinite(rel):
+            continue
+        if rel > 1.0:
             out.append((rel, nm[: -len("_f0_hz")] if nm.endswith("_f0_hz") else nm.rsplit("_", 1)[0]))
     seen: dict[str, float] = {}
     for rel, g in out:
@@ -865,6 +871,13 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
                   att_scale: float) -> FitResult:
     f, h = resp.freq_hz, resp.response
     s = 1j * TWO_PI * f
+    # Each group numbered from the lowest frequency up, as the names promise.
+    ref, moved = renumbered(st, ref)
+    held = sorted(k for k in moved if k in fixed or k in (settings.get("bounds") or {}))
+    if held:
+        notes = [*notes, "numbered from the lowest frequency up: " + ", ".join(
+            f"{k} is now {moved[k]}" for k in held)]
+    fixed = {moved.get(k, k): v for k, v in fixed.items()}
     zeros, poles, k, tau = to_zpk(st, ref.values)
     model = PlantModel(zeros=zeros, poles=poles, k=k, delay_s=max(tau, 0.0),
                        provenance=resp.provenance.derive("fit", settings))
@@ -881,9 +894,7 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
                   fixed=nm in fixed)
         for i, nm in enumerate(st.names))
     cov = np.asarray(ref.covariance, dtype=float)
-    with np.errstate(all="ignore"):
-        d = np.sqrt(np.diag(cov))
-        corr = cov / np.outer(d, d) if cov.size else cov
+    corr = correlation(cov)
     warnings: list[str] = []
     # The refinement is the estimator; vector fitting only starts it.  A VF run
     # stopped by its iteration cap is reported (stats["vf_converged"]), and is a
@@ -893,8 +904,8 @@ def _build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixe
         warnings.append(f"vector fitting did not converge in {att.vf.iterations} iterations")
     if not ref.success:
         warnings.append(f"refinement did not converge: {ref.message}")
-    if np.any(~np.isfinite(ref.stderr[[i for i, nm in enumerate(st.names) if nm not in fixed]])):
-        warnings.append("some uncertainties could not be estimated (parameters not identifiable)")
+    if ref.uncertainty_note:
+        warnings.append(ref.uncertainty_note)
     for p in params:
         if p.name.endswith("_hz") and (abs(p.value) < 0.9 * f[0] or abs(p.value) > 1.1 * f[-1]):
             warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "
