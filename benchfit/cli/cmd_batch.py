@@ -6,15 +6,9 @@ import argparse
 import sys
 from pathlib import Path
 
-from benchfit.batch.limits import Limits, read_limits
-from benchfit.batch.runner import find_sweeps, rows_path_for, run_lot
-from benchfit.batch.summary import plot_histograms, summarise
-from benchfit.batch.table import read_table
-from benchfit.batch.task import TaskSettings, read_design_loop
 from benchfit.cli.cmd_fit import _delay, _order  # the same option forms as `benchfit fit`
 from benchfit.cli.common import add_json_flag, emit, parse_band, warn
 from benchfit.errors import InputError
-from benchfit.fileio import write_json_atomic
 
 
 def register(subparsers) -> None:
@@ -49,6 +43,13 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.batch.limits import Limits, read_limits
+    from benchfit.batch.runner import find_sweeps, rows_path_for, run_lot
+    from benchfit.batch.summary import plot_histograms, summarise
+    from benchfit.batch.table import read_table
+    from benchfit.batch.task import TaskSettings, read_design_loop
+    from benchfit.fileio import write_json_atomic
+
     if args.workers is not None and args.workers < 1:
         raise InputError(f"{args.workers}; expected 1 or more", source="--workers")
     out = Path(args.output)
