@@ -11,8 +11,9 @@ import numpy as np
 from benchfit.fitting.model import PlantModel
 from benchfit.fitting.order import Attempt
 from benchfit.fitting.parameters import TWO_PI, to_zpk
-from benchfit.fitting.refine import Refined, log_residual
+from benchfit.fitting.refine import Refined, log_residual, renumbered
 from benchfit.fitting.result import FitResult, Parameter
+from benchfit.fitting.uncertainty import correlation
 
 #: Mirrored poles within this factor of the band's edges are reported.
 MIRROR_NEAR = 3.0
@@ -26,6 +27,13 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
                   att_scale: float) -> FitResult:
     f, h = resp.freq_hz, resp.response
     s = 1j * TWO_PI * f
+    # Each group numbered from the lowest frequency up, as the names promise.
+    ref, moved = renumbered(st, ref)
+    held = sorted(k for k in moved if k in fixed or k in (settings.get("bounds") or {}))
+    if held:
+        notes = [*notes, "numbered from the lowest frequency up: " + ", ".join(
+            f"{k} is now {moved[k]}" for k in held)]
+    fixed = {moved.get(k, k): v for k, v in fixed.items()}
     zeros, poles, k, tau = to_zpk(st, ref.values)
     model = PlantModel(zeros=zeros, poles=poles, k=k, delay_s=max(tau, 0.0),
                        provenance=resp.provenance.derive("fit", settings))
@@ -42,9 +50,7 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
                   fixed=nm in fixed)
         for i, nm in enumerate(st.names))
     cov = np.asarray(ref.covariance, dtype=float)
-    with np.errstate(all="ignore"):
-        d = np.sqrt(np.diag(cov))
-        corr = cov / np.outer(d, d) if cov.size else cov
+    corr = correlation(cov)
     warnings: list[str] = []
     # The refinement is the estimator; vector fitting only starts it.  A VF run
     # stopped by its iteration cap is reported (stats["vf_converged"]), and is a
@@ -54,8 +60,8 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
         warnings.append(f"vector fitting did not converge in {att.vf.iterations} iterations")
     if not ref.success:
         warnings.append(f"refinement did not converge: {ref.message}")
-    if np.any(~np.isfinite(ref.stderr[[i for i, nm in enumerate(st.names) if nm not in fixed]])):
-        warnings.append("some uncertainties could not be estimated (parameters not identifiable)")
+    if ref.uncertainty_note:
+        warnings.append(ref.uncertainty_note)
     for p in params:
         if p.name.endswith("_hz") and (abs(p.value) < 0.9 * f[0] or abs(p.value) > 1.1 * f[-1]):
             warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "

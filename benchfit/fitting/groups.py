@@ -158,13 +158,18 @@ def below_noise(st: Structure, values: np.ndarray, groups: list[str], freq_hz: n
 
 
 def unidentified(st: Structure, ref: Refined) -> list[str]:
-    """Pole and zero groups with a parameter whose σ exceeds its value, vaguest first."""
+    """Pole and zero groups with a parameter whose σ exceeds its value or that the data
+    cannot determine at all (:attr:`Refined.undetermined`), vaguest first."""
     out = []
     for i, nm in enumerate(st.names):
         if not nm.startswith(("pole", "pair", "zero")):
             continue
         rel = abs(ref.stderr[i] / ref.values[i]) if ref.values[i] else np.inf
-        if np.isfinite(rel) and rel > 1.0:
+        if nm in ref.undetermined:
+            rel = np.inf  # the data cannot determine it at all: vaguer than any σ
+        elif not np.isfinite(rel):
+            continue
+        if rel > 1.0:
             out.append((rel, nm[: -len("_f0_hz")] if nm.endswith("_f0_hz") else nm.rsplit("_", 1)[0]))
     seen: dict[str, float] = {}
     for rel, g in out:
