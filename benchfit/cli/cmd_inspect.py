@@ -10,7 +10,6 @@ import argparse
 from typing import Any
 
 from benchfit.cli.common import add_json_flag, emit, parse_si
-from benchfit.data.summary import read_any, summary
 
 
 def add_reader_flags(p: argparse.ArgumentParser) -> None:
@@ -96,6 +95,8 @@ def summary_text(s: dict[str, Any]) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.data.summary import read_any, summary
+
     obj = read_any(args.file, **reader_options(args))
     s = summary(obj)
     emit(args, s, summary_text(s))
