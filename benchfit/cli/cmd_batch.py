@@ -6,15 +6,9 @@ import argparse
 import sys
 from pathlib import Path
 
-from benchfit.batch.limits import Limits, read_limits
-from benchfit.batch.runner import find_sweeps, rows_path_for, run_lot
-from benchfit.batch.summary import plot_histograms, summarise
-from benchfit.batch.table import read_table
-from benchfit.batch.task import TaskSettings, read_design_loop
 from benchfit.cli.cmd_fit import _delay, _order  # the same option forms as `benchfit fit`
 from benchfit.cli.common import add_json_flag, emit, parse_band, warn
 from benchfit.errors import InputError
-from benchfit.fileio import write_json_atomic
 
 
 def register(subparsers) -> None:
@@ -49,6 +43,13 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.batch.limits import Limits, read_limits
+    from benchfit.batch.runner import find_lot, rows_path_for, run_lot
+    from benchfit.batch.summary import plot_histograms, summarise
+    from benchfit.batch.table import read_table
+    from benchfit.batch.task import TaskSettings, read_design_loop
+    from benchfit.fileio import write_json_atomic
+
     if args.workers is not None and args.workers < 1:
         raise InputError(f"{args.workers}; expected 1 or more", source="--workers")
     out = Path(args.output)
@@ -64,8 +65,11 @@ def run(args: argparse.Namespace) -> int:
         params=tuple(args.param))
     rows_csv = rows_path_for(out)
     # the lot's own inputs and outputs may sit in its folder; they are not sweeps
-    own = [p for p in (out, rows_csv, args.design, args.summary) if p]
-    files = find_sweeps(args.lot, exclude=own)
+    own = [p for p in (out, rows_csv, args.design, args.summary, args.histograms, args.limits) if p]
+    lot = find_lot(args.lot, exclude=own)
+    files = lot.files
+    if lot.skipped:
+        warn(lot.skipped_line())
     run_info = run_lot(files, settings, out, workers=args.workers, dask=args.dask,
                        resume=args.resume, progress=None if args.quiet else sys.stderr)
     _, rows = read_table(rows_csv)

@@ -7,8 +7,6 @@ import argparse
 from benchfit.cli.cmd_design import parse_tolerance
 from benchfit.cli.common import add_json_flag, emit, parse_si, warn
 from benchfit.errors import InputError
-from benchfit.loop.design import Design, check_parts, with_parts
-from benchfit.loop.designfile import load_plant
 
 
 def register(subparsers) -> None:
@@ -42,6 +40,9 @@ def parse_parts(text: str | None) -> dict[str, float]:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.loop.design import Design, check_parts, with_parts
+    from benchfit.loop.designfile import load_plant
+
     d = Design.from_json(args.design)
     net = with_parts(d.snapped.network, parse_parts(args.parts))
     if args.plants:

@@ -6,11 +6,12 @@ import argparse
 
 from benchfit.cli.cmd_inspect import add_reader_flags, reader_options
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.data import FrequencyResponse, write_sweep_csv, write_trace_csv
-from benchfit.data.summary import read_any, summary
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.data import FrequencyResponse, write_sweep_csv, write_trace_csv
+    from benchfit.data.summary import read_any, summary
+
     obj = read_any(args.file, **reader_options(args))
     if isinstance(obj, FrequencyResponse):
         path = write_sweep_csv(obj, args.output)

@@ -15,9 +15,7 @@ from pathlib import Path
 
 import benchfit
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.data.summary import read_any, summary
 from benchfit.errors import InputError
-from benchfit.output.demo import DemoScenario, run_demo
 
 DATA_SUFFIXES = (".csv", ".tsv", ".txt", ".dat") + tuple(f".s{n}p" for n in range(1, 5))
 
@@ -52,6 +50,8 @@ def _row(rel: str, s: dict) -> str:
 
 
 def _read_all(folder: Path) -> tuple[list[str], list[dict], int]:
+    from benchfit.data.summary import read_any, summary
+
     files = sample_files(folder)
     if not files:
         raise InputError(f"no data files in {folder}", source="--data")
@@ -71,6 +71,8 @@ def _read_all(folder: Path) -> tuple[list[str], list[dict], int]:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.output.demo import DemoScenario, run_demo
+
     folder = Path(args.data) if args.data else default_data_dir()
     if not folder.is_dir():
         raise InputError(f"no sample-data folder at {folder}; give one with --data DIR", source="--data")

@@ -3,13 +3,14 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from benchfit.cli.common import add_json_flag, emit, parse_si, warn
 from benchfit.errors import InputError
-from benchfit.loop.designfile import DesignSpec, merge_plant_files, read_design_file
-from benchfit.loop.opamp import OpAmp
-from benchfit.loop.sensing import Sensing
-from benchfit.loop.synthesis import METHODS, Targets
+from benchfit.loop.choices import METHODS
+
+if TYPE_CHECKING:
+    from benchfit.loop.designfile import DesignSpec
 
 
 def register(subparsers) -> None:
@@ -64,6 +65,11 @@ def parse_tolerance(text: str) -> tuple[float, float]:
 
 def spec_from_args(args: argparse.Namespace) -> DesignSpec:
     """The design file (if any) with the command-line flags laid over it."""
+    from benchfit.loop.designfile import DesignSpec, merge_plant_files, read_design_file
+    from benchfit.loop.opamp import OpAmp
+    from benchfit.loop.sensing import Sensing
+    from benchfit.loop.synthesis import Targets
+
     spec = read_design_file(args.file) if args.file else DesignSpec()
     spec = merge_plant_files(spec, args.plants)
     if not spec.plant_files:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.output.spice import DESIGN_PARTS, model_from_file, write_spice
+from benchfit.output.choices import DESIGN_PARTS
 
 
 def register(subparsers) -> None:
@@ -24,6 +24,8 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.output.spice import model_from_file, write_spice
+
     model = model_from_file(args.model, args.part)
     name = args.name or args.part.replace("-", "_")
     path = write_spice(model, args.output, name)

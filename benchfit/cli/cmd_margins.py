@@ -7,7 +7,6 @@ import argparse
 from benchfit.cli.cmd_inspect import add_reader_flags, reader_options
 from benchfit.cli.common import add_json_flag, emit, parse_band, parse_si, warn
 from benchfit.errors import InputError
-from benchfit.loop.loopfile import margins_of_loop, read_loop
 
 
 def register(subparsers) -> None:
@@ -29,6 +28,8 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.loop.loopfile import margins_of_loop, read_loop
+
     opts = {k: v for k, v in reader_options(args).items()
             if k not in ("channel", "time_unit", "sample_interval_s")}
     loop = read_loop(args.loop, which="ideal" if args.ideal else "snapped", **opts)

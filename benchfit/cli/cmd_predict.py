@@ -5,9 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit, parse_si
-from benchfit.loop.design import Design
-from benchfit.output.curves import write_curve_csv
-from benchfit.output.predicted import CURVE_NAMES, WHICH, design_curve, read_model_or_sweep
+from benchfit.output.choices import CURVE_NAMES, WHICH
 
 
 def register(subparsers) -> None:
@@ -29,6 +27,10 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.loop.design import Design
+    from benchfit.output.curves import write_curve_csv
+    from benchfit.output.predicted import design_curve, read_model_or_sweep
+
     design = Design.from_json(args.design)
     z_open = read_model_or_sweep(args.zout) if args.zout else None
     curve = design_curve(design, args.curve, which=args.parts, z_open=z_open,

@@ -6,12 +6,6 @@ import argparse
 from pathlib import Path
 
 from benchfit.cli.common import add_json_flag, emit, parse_si
-from benchfit.data import read_sweep, read_trace
-from benchfit.fitting.result import FitResult
-from benchfit.loop.design import Design
-from benchfit.output.assemble import assemble
-from benchfit.output.predicted import read_model_or_sweep
-from benchfit.output.report import default_report_path, write_report
 
 
 def register(subparsers) -> None:
@@ -37,6 +31,13 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.data import read_sweep, read_trace
+    from benchfit.fitting.result import FitResult
+    from benchfit.loop.design import Design
+    from benchfit.output.assemble import assemble
+    from benchfit.output.predicted import read_model_or_sweep
+    from benchfit.output.report import default_report_path, write_report
+
     design = Design.from_json(args.design)
     fit = FitResult.from_json(args.fit) if args.fit else None
     sweep = read_sweep(args.sweep) if args.sweep else None

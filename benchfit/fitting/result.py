@@ -124,6 +124,12 @@ class FitResult:
                 return p
         raise KeyError(f"no parameter {name!r}; have {', '.join(p.name for p in self.parameters)}")
 
+    @property
+    def undetermined(self) -> tuple[str, ...]:
+        """Varied parameters the data cannot determine (their σ is NaN, JSON null)."""
+        return tuple(p.name for p in self.parameters
+                     if not p.fixed and p.name in self.varied and not np.isfinite(p.stderr))
+
     def response(self, freq_hz: np.ndarray) -> np.ndarray:
         """Model response at ``freq_hz`` (Hz)."""
         return self.model.response(freq_hz)
@@ -154,12 +160,16 @@ class FitResult:
         names = [p.name for p in self.parameters]
         idx = [names.index(v) for v in self.varied]
         cov = np.asarray(self.covariance, dtype=float)
-        if idx and np.all(np.isfinite(cov)):
+        # Parameters the data do not determine (NaN rows) stay at their values; the
+        # others' covariance is the one with those held (see fitting.uncertainty).
+        known = [k for k in range(len(idx)) if np.isfinite(cov[k, k])] if idx else []
+        if known:
+            sub = cov[np.ix_(known, known)]
             # eigh-based square root tolerates a (numerically) singular covariance.
-            evals, evecs = np.linalg.eigh(0.5 * (cov + cov.T))
+            evals, evecs = np.linalg.eigh(0.5 * (sub + sub.T))
             root = evecs * np.sqrt(np.clip(evals, 0.0, None))
-            z = rng.standard_normal((int(n), len(idx)))
-            draws[:, idx] += z @ root.T
+            z = rng.standard_normal((int(n), len(known)))
+            draws[:, [idx[k] for k in known]] += z @ root.T
         return response(st, draws, 2j * np.pi * f)
 
     # ----- report -------------------------------------------------------------------
@@ -176,7 +186,7 @@ class FitResult:
                  + f", {st.get('points')} points, {numfmt.eng(st.get('f_min_hz', 0), 'Hz')} to "
                  f"{numfmt.eng(st.get('f_max_hz', 0), 'Hz')}",
                  "",
-                 f"  {'parameter':<32} {'value':>12} {'± 1σ':>11} {'relative':>9}  key (--fix, JSON)"]
+                 f"  {'parameter':<32} {'value':>12} {'± 1σ':>14} {'relative':>9}  key (--fix, JSON)"]
         for p in self.parameters:
             unit = p.unit or ""
             if p.fixed:
@@ -184,10 +194,12 @@ class FitResult:
             elif np.isfinite(p.stderr):
                 err = numfmt.quantity(p.stderr, unit, 2)
                 rel = f"{numfmt.sig(abs(p.stderr / p.value) * 100, 2)} %" if p.value else ""
+            elif p.name in self.varied:
+                err, rel = "not determined", ""
             else:
                 err, rel = "not estimated", ""
             lines.append(f"  {parameter_label(p.name):<32} {numfmt.quantity(p.value, unit, numfmt.FIT_DIGITS):>12} "
-                         f"{err:>11} {rel:>9}  {p.name}")
+                         f"{err:>14} {rel:>9}  {p.name}")
         strong = []
         c = np.asarray(self.correlation)
         for i in range(len(self.varied)):
@@ -230,6 +242,7 @@ class FitResult:
             "notes": list(self.notes),
             "order_scan": [dict(d) for d in self.order_scan],
             "varied": list(self.varied),
+            "undetermined": list(self.undetermined),
             "covariance": np.asarray(self.covariance).tolist(),
             "correlation": np.asarray(self.correlation).tolist(),
             "integrators": self.integrators,
