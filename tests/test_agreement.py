@@ -149,3 +149,24 @@ def test_labels_are_readable_in_human_views_and_stable_in_json(views):
     assert "pair1_f0_hz" not in visible and "pole pair 1, natural frequency" in visible
     assert "1/|compensator|" in views["figs"]["crossing"] and "1/|C|" not in views["figs"]["crossing"]
     assert views["design_json"]["network"] == "type3"
+
+
+def test_check_command_draws_the_designs_tolerances_and_says_so(views, tmp_path):
+    design_path = tmp_path / "design.json"
+    design_path.write_text(json.dumps(views["design_json"]), encoding="utf-8")
+    code, text = _run(["check", "--design", str(design_path), "--draws", "400"])
+    assert code == 0
+    code, js = _run(["check", "--design", str(design_path), "--draws", "400", "--json"])
+    assert code == 0
+    data = json.loads(js)
+    sp = views["design"].spread
+    used = data["check_tolerances"]
+    assert (used["r_tol"], used["c_tol"], used["seed"]) == (sp.r_tol, sp.c_tol, sp.seed)
+    assert "the design's own Monte Carlo" in used["source"]
+    assert f"tolerances R ±{sig(sp.r_tol * 100)} %, C ±{sig(sp.c_tol * 100)} %" in text
+    # one number in both views, and the same verdict as the design's own spread (issue: 94 % vs 100 %)
+    assert f"yield {pct(data['spread']['yield'])}" in text
+    assert data["spread"]["yield"] == pytest.approx(sp.yield_fraction, abs=0.02)
+    # the margins of the given parts are the design's snapped ones
+    m = views["design"].snapped.worst_margins()
+    assert f"PM {deg(m.phase_margin_deg)} at {eng(m.crossover_hz, 'Hz')}" in text.replace("  ", " ")

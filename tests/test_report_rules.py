@@ -96,3 +96,38 @@ def test_readable_names():
     assert parameter_label("pair1_f0_hz") == "pole pair 1, natural frequency"
     assert parameter_label("zero_pair2_q") == "zero pair 2, Q"
     assert parameter_label("pole3_hz") == "real pole 3" and parameter_label("delay_s") == "delay"
+
+
+def test_check_tolerances_order_of_evidence():
+    from dataclasses import replace
+
+    from benchfit.loop.checkdefaults import FALLBACK_TOLERANCES, check_tolerances
+    from benchfit.loop.designresult import Design
+
+    d = Design.from_dict(_small_design().to_dict())      # as read from a design file
+    assert check_tolerances(d, (0.02, 0.2)).source == "given with --tolerance"
+    own = check_tolerances(d)
+    assert (own.r_tol, own.c_tol, own.seed) == (d.spread.r_tol, d.spread.c_tol, d.spread.seed)
+    bare = replace(d, spread=None)
+    # no Monte Carlo: the series' own tolerances (IEC 60063: E24 parts are the ±5 % series, E96 ±1 %)
+    by_series = check_tolerances(replace(bare, provenance=replace(bare.provenance, settings={})))
+    assert (by_series.r_tol, by_series.c_tol) == (0.01, 0.05) and "series" in by_series.source
+    nothing = replace(bare, series={"resistor": "given", "capacitor": "given"},
+                      provenance=replace(bare.provenance, settings={}))
+    assert (check_tolerances(nothing).r_tol, check_tolerances(nothing).c_tol) == FALLBACK_TOLERANCES
+    assert "records no tolerances" in check_tolerances(nothing).source
+
+
+def _small_design():
+    from benchfit.fitting.model import PlantModel
+    from benchfit.loop.design import design
+    from benchfit.loop.loopgain import LoopPlant
+    from benchfit.loop.sensing import Sensing
+    from benchfit.loop.synthesis import Targets
+
+    wn = 2 * np.pi * 5e3
+    plant = PlantModel(zeros=np.array([]), poles=np.array([-0.2 * wn + 1j * wn, -0.2 * wn - 1j * wn]),
+                       k=12 * wn ** 2)
+    lp = LoopPlant(plant, Sensing.divider(10e3, 3.24e3), band_hz=(10.0, 1e6))
+    return design(lp, "type3", Targets(crossover_hz=20e3, phase_margin_deg=55, gain_margin_db=10),
+                  series=("E96", "E24"), draws=200, seed=7)

@@ -21,8 +21,10 @@ def register(subparsers) -> None:
     p.add_argument("--design", required=True, metavar="JSON", help="design file from benchfit design")
     p.add_argument("--parts", metavar="R1=10k,C1=4.7n,...", help="parts to change (SI prefixes)")
     p.add_argument("--draws", type=int, default=0, metavar="N", help="Monte Carlo draws (default 0)")
-    p.add_argument("--tolerance", metavar="R%:C%", help="part tolerances in percent (default 1:10)")
-    p.add_argument("--seed", type=int, help="random seed for the Monte Carlo")
+    p.add_argument("--tolerance", metavar="R%:C%",
+                   help="part tolerances in percent (default: the design's own, from its Monte Carlo or "
+                        "its part series; the output says which)")
+    p.add_argument("--seed", type=int, help="random seed for the Monte Carlo (default: the design's)")
     add_json_flag(p)
     p.set_defaults(func=run)
 
@@ -40,6 +42,7 @@ def parse_parts(text: str | None) -> dict[str, float]:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.loop.checkdefaults import check_tolerances
     from benchfit.loop.design import Design, check_parts, with_parts
     from benchfit.loop.designfile import load_plant
 
@@ -51,12 +54,19 @@ def run(args: argparse.Namespace) -> int:
         corners = list(d.corners)
     if args.draws < 0:
         raise InputError(f"{args.draws}: expected a number of draws >= 0", source="--draws")
-    tol = parse_tolerance(args.tolerance) if args.tolerance else (0.01, 0.10)
-    result = check_parts(corners, net, opamp=d.opamp, targets=d.targets, tolerances=tol,
-                         draws=args.draws, seed=args.seed,
+    tol = check_tolerances(d, parse_tolerance(args.tolerance) if args.tolerance else None, args.seed)
+    result = check_parts(corners, net, opamp=d.opamp, targets=d.targets, tolerances=(tol.r_tol, tol.c_tol),
+                         draws=args.draws, seed=tol.seed,
                          sources=tuple(args.plants) + (args.design,))
     if not args.json:
         for w in result.warnings:
             warn(w)
-    emit(args, result.to_dict(), result.report().split("\nwarning: ")[0])
+    text = result.report().split("\nwarning: ")[0]
+    if args.draws:
+        varied = d.spread is not None and d.spread.plant_uncertainty and not any(
+            getattr(lp, "draws", None) is not None for lp in corners)
+        text += f"\ndrew the parts with {tol.text()}" + (
+            "; the plant is not varied (the design file keeps no fit covariance; the design's own "
+            "spread varied it too)" if varied else "")
+    emit(args, {**result.to_dict(), "check_tolerances": tol.to_dict()}, text)
     return 0

@@ -18,8 +18,8 @@ from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.design import Design
 from benchfit.loop.predict import Prediction, predict
-from benchfit.output.choices import CURVE_NAMES, WHICH
 from benchfit.numfmt import eng
+from benchfit.output.choices import CURVE_NAMES, WHICH
 from benchfit.output.curves import Curve
 from benchfit.provenance import Provenance
 
