@@ -89,6 +89,10 @@ def register(subparsers) -> None:
                    help="relative: errors in dB and degrees (default); absolute: complex error")
     p.add_argument("--integrators", default="0",
                    help="poles at the origin (a measured loop gain): 0..3 or auto (default 0)")
+    p.add_argument("--stable", action=argparse.BooleanOptionalAction, default=None,
+                   help="hold every pole in the left half-plane (default: only for passive data, "
+                        "an impedance or a Touchstone S-parameter never above 1); --no-stable "
+                        "lets the data put poles anywhere")
     p.add_argument("-o", "--output", metavar="MODEL.json", help="write the fit result as JSON")
     add_reader_flags(p)
     add_json_flag(p)
@@ -104,7 +108,7 @@ def run(args: argparse.Namespace) -> int:
     result = fit(resp, order=_order(args.order), delay=_delay(args.delay),
                  band=None if band == (None, None) else band, fix=_fix(args.fix),
                  weighting=args.weighting, integrators=_integrators(args.integrators),
-                 bounds=_bounds(args.bound))
+                 bounds=_bounds(args.bound), stable=args.stable)
     for w in result.warnings:
         warn(w)
     if args.output:
