@@ -11,13 +11,15 @@ import numpy as np
 from benchfit.fitting.model import PlantModel
 from benchfit.fitting.order import Attempt
 from benchfit.fitting.parameters import TWO_PI, to_zpk
-from benchfit.fitting.refine import Refined, log_residual
+from benchfit.fitting.refine import Refined, log_residual, renumbered
 from benchfit.fitting.result import FitResult, Parameter
+from benchfit.fitting.uncertainty import correlation
 
 #: Mirrored poles within this factor of the band's edges are reported.
 MIRROR_NEAR = 3.0
-#: Residual above this multiple of the noise floor gets a warning (common practice, no source).
-FAR_ABOVE_FLOOR = 2.0
+#: A reduced χ² above this, at the measured noise, is always a warning: the model
+#: misses part of the response (common practice, no source).
+RESIDUAL_WARN = 1.5
 _DB = 20.0 / np.log(10.0)
 
 
@@ -25,6 +27,13 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
                   att_scale: float) -> FitResult:
     f, h = resp.freq_hz, resp.response
     s = 1j * TWO_PI * f
+    # Each group numbered from the lowest frequency up, as the names promise.
+    ref, moved = renumbered(st, ref)
+    held = sorted(k for k in moved if k in fixed or k in (settings.get("bounds") or {}))
+    if held:
+        notes = [*notes, "numbered from the lowest frequency up: " + ", ".join(
+            f"{k} is now {moved[k]}" for k in held)]
+    fixed = {moved.get(k, k): v for k, v in fixed.items()}
     zeros, poles, k, tau = to_zpk(st, ref.values)
     model = PlantModel(zeros=zeros, poles=poles, k=k, delay_s=max(tau, 0.0),
                        provenance=resp.provenance.derive("fit", settings))
@@ -41,9 +50,7 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
                   fixed=nm in fixed)
         for i, nm in enumerate(st.names))
     cov = np.asarray(ref.covariance, dtype=float)
-    with np.errstate(all="ignore"):
-        d = np.sqrt(np.diag(cov))
-        corr = cov / np.outer(d, d) if cov.size else cov
+    corr = correlation(cov)
     warnings: list[str] = []
     # The refinement is the estimator; vector fitting only starts it.  A VF run
     # stopped by its iteration cap is reported (stats["vf_converged"]), and is a
@@ -53,8 +60,8 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
         warnings.append(f"vector fitting did not converge in {att.vf.iterations} iterations")
     if not ref.success:
         warnings.append(f"refinement did not converge: {ref.message}")
-    if np.any(~np.isfinite(ref.stderr[[i for i, nm in enumerate(st.names) if nm not in fixed]])):
-        warnings.append("some uncertainties could not be estimated (parameters not identifiable)")
+    if ref.uncertainty_note:
+        warnings.append(ref.uncertainty_note)
     for p in params:
         if p.name.endswith("_hz") and (abs(p.value) < 0.9 * f[0] or abs(p.value) > 1.1 * f[-1]):
             warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "
@@ -66,9 +73,7 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
                         "half-plane; if the plant is really unstable, this model is wrong")
     if not model.is_stable:
         warnings.append("the refined model has right-half-plane poles")
-    if chi > FAR_ABOVE_FLOOR:
-        warnings.append(f"residual is {chi:.1f}× the noise floor: the model misses part of the "
-                        "response (try a higher --order or a narrower --band)")
+    warnings += residual_warnings(ref, chi)
     stats = {
         "rms_db": float(np.sqrt(np.mean(r_db ** 2))),
         "rms_deg": float(np.sqrt(np.mean(r_deg ** 2))),
@@ -96,3 +101,19 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
         covariance=cov, correlation=corr, integrators=st.integrators,
         provenance=resp.provenance.derive("fit", settings),
     )
+
+
+def residual_warnings(ref: Refined, chi: float) -> list[str]:
+    """The warning for a residual above the noise (reduced χ² > :data:`RESIDUAL_WARN`).
+
+    The standard errors come from the Jacobian scaled by the reduced χ²
+    (:mod:`benchfit.fitting.refine`), so σ grows by √χ² where the model does
+    not reach the floor; the warning says so, since such σ measure the misfit
+    as much as the noise.
+    """
+    if not (np.isfinite(ref.redchi) and ref.redchi > RESIDUAL_WARN):
+        return []
+    return [f"residual above the noise: reduced chi-square {ref.redchi:.3g} at the measured noise "
+            f"({chi:.2f}× the noise floor); the model misses part of the response (try a higher "
+            f"--order, --delay auto or a narrower --band); standard errors are scaled by "
+            f"√χ² = {np.sqrt(ref.redchi):.3g}"]
