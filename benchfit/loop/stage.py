@@ -32,7 +32,7 @@ import numpy as np
 from benchfit.errors import DesignError, InputError
 from benchfit.fileio import malformed_as_input_error, read_json, to_json_text, write_json_atomic
 from benchfit.loop import eseries
-from benchfit.loop.design import Prediction, predict
+from benchfit.loop.prediction import Prediction, predict
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.margins import Margins
 from benchfit.loop.stage_load import StageLoad
@@ -82,6 +82,12 @@ def crossing(lp: LoopPlant, net: StageNetwork, fc_hz: float) -> dict[str, float 
     return {"freq_hz": float(fc_hz), "aol_db": float(20 * np.log10(abs(aol[1]))),
             "aol_slope_db_per_decade": float(sa), "inv_beta_slope_db_per_decade": float(sb),
             "rate_of_closure_db_per_decade": roc, "reading": closure_reading(roc)}
+
+
+def worst_pm(m: Margins) -> float:
+    """The smallest phase margin over every gain crossing (the main one's when it is alone)."""
+    v = m.min_phase_margin_deg
+    return float(min(m.phase_margin_deg, v)) if math.isfinite(v) else float(m.phase_margin_deg)
 
 
 def closure_reading(roc: float) -> str:
@@ -195,7 +201,7 @@ class StageDesign:
     @property
     def targets_met(self) -> bool:
         m = self.snapped.corners[0]
-        return bool(m.closed_loop_stable and self.targets.met(m.phase_margin_deg, m.gain_margin_db)
+        return bool(m.closed_loop_stable and self.targets.met(worst_pm(m), m.gain_margin_db)
                     and abs(self.closed_loop_gain["snapped"] / self.gain - 1) <= GAIN_TOL)
 
     def to_dict(self) -> dict[str, Any]:
@@ -286,7 +292,10 @@ class StageDesign:
         for label, p in (("ideal", self.ideal), ("snapped", self.snapped)):
             m = p.corners[0]
             lines.append(f"{label:8} PM {m.phase_margin_deg:6.1f}° at {m.crossover_hz:.4g} Hz, "
-                         f"GM {m.gain_margin_db:.1f} dB" + ("" if m.closed_loop_stable else "  UNSTABLE"))
+                         f"GM {m.gain_margin_db:.1f} dB" + ("" if m.closed_loop_stable else "  UNSTABLE")
+                         + (f"; another gain crossing at {m.min_phase_margin_hz:.4g} Hz has PM "
+                            f"{m.min_phase_margin_deg:.1f}°" if worst_pm(m) < m.phase_margin_deg - 0.05
+                            else ""))
         c = self.crossing
         lines.append(f"1/β meets Aol at {c['freq_hz']:.4g} Hz ({c['aol_db']:.1f} dB): Aol "
                      f"{c['aol_slope_db_per_decade']:.0f}, 1/β {c['inv_beta_slope_db_per_decade']:.0f} "
@@ -352,8 +361,8 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
     if abs(cg["snapped"] / want - 1) > GAIN_TOL:
         warnings.append(f"snapped DC closed-loop gain {cg['snapped']:.5g} is more than 1 % from the "
                         f"{want:g} asked; use a finer resistor series (--series E96:E12)")
-    if not (m.closed_loop_stable and targets.met(m.phase_margin_deg, m.gain_margin_db)):
-        warnings.append(f"snapped parts: PM {m.phase_margin_deg:.1f}°, GM {m.gain_margin_db:.1f} dB "
+    if not (m.closed_loop_stable and targets.met(worst_pm(m), m.gain_margin_db)):
+        warnings.append(f"snapped parts: PM {worst_pm(m):.1f}°, GM {m.gain_margin_db:.1f} dB "
                         f"miss the targets ({targets.phase_margin_deg:g}°, {targets.gain_margin_db:g} dB)")
     rt = eseries.tolerance(r_series) if tolerances[0] is None else float(tolerances[0])
     ct = eseries.tolerance(c_series) if tolerances[1] is None else float(tolerances[1])
