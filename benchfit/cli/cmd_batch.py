@@ -45,7 +45,7 @@ def register(subparsers) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from benchfit.batch.limits import Limits, read_limits
-    from benchfit.batch.runner import find_sweeps, rows_path_for, run_lot
+    from benchfit.batch.runner import find_lot, rows_path_for, run_lot
     from benchfit.batch.summary import plot_histograms, summarise
     from benchfit.batch.table import read_table
     from benchfit.batch.task import TaskSettings, read_design_loop
@@ -63,8 +63,11 @@ def run(args: argparse.Namespace) -> int:
         params=tuple(args.param))
     rows_csv = rows_path_for(out)
     # the lot's own inputs and outputs may sit in its folder; they are not sweeps
-    own = [p for p in (out, rows_csv, args.design, args.summary) if p]
-    files = find_sweeps(args.lot, exclude=own)
+    own = [p for p in (out, rows_csv, args.design, args.summary, args.histograms, args.limits) if p]
+    lot = find_lot(args.lot, exclude=own)
+    files = lot.files
+    if lot.skipped:
+        warn(lot.skipped_line())
     run_info = run_lot(files, settings, out, workers=args.workers, dask=args.dask,
                        resume=args.resume, progress=None if args.quiet else sys.stderr)
     _, rows = read_table(rows_csv)

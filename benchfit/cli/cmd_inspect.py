@@ -33,6 +33,9 @@ def add_reader_flags(p: argparse.ArgumentParser) -> None:
     g.add_argument("--param", type=text, metavar="NAME", help="Touchstone parameter, e.g. S21 (default) or S11")
     g.add_argument("--quantity", type=text, metavar="WHAT",
                    help="what was measured: plant, loop, closed, impedance, compensator")
+    g.add_argument("--skip-bad-rows", action="store_true", default=None,
+                   help="leave out rows that cannot be read (text among the numbers, #N/A, NaN, "
+                        "9.91E37) instead of refusing the file; they are listed as skipped")
     t = p.add_argument_group("scope traces")
     t.add_argument("--channel", type=text, metavar="NAME|INDEX", help="keep one channel of a scope trace")
     t.add_argument("--time-unit", type=text, metavar="UNIT", help="time column unit: s, ms, us or ns")
@@ -47,6 +50,7 @@ def reader_options(args: argparse.Namespace) -> dict[str, Any]:
         "mag": args.mag, "phase": args.phase, "param": args.param, "quantity": args.quantity,
         "channel": args.channel, "time_unit": args.time_unit,
         "sample_interval_s": getattr(args, "sample_interval", None),
+        "skip_bad_rows": getattr(args, "skip_bad_rows", None),
     }
     return {k: v for k, v in opts.items() if v is not None}
 

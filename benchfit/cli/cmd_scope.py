@@ -13,7 +13,8 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "scope", help="capture a scope channel over VISA into a trace CSV",
         description="Arm, trigger and read one channel with the commands of a scope profile, "
-                    "scale it (x increment/origin, y increment/origin/reference) and save a "
+                    "scale it (time = first sample time + index x sample interval; volts = "
+                    "code x volts per code + volts at code zero, or volts as sent) and save a "
                     "canonical trace CSV that 'benchfit step' reads. SCPI has no scope command "
                     "tree, so copy the generic-scope profile and edit it for your scope.")
     p.add_argument("resource", nargs="?", type=text, metavar="RESOURCE", help="VISA resource (not with --simulate)")
@@ -69,5 +70,5 @@ def run(args: argparse.Namespace) -> int:
                 "channel": args.channel, "time_s": [float(trace.time_s[0]), float(trace.time_s[-1])],
                 "meta": trace.meta},
          f"saved {len(trace)} samples of {args.channel} into {args.output} "
-         f"({trace.time_s[0]:.4g}..{trace.time_s[-1]:.4g} s, {sc['x_increment_s']:.3g} s/sample)")
+         f"({trace.time_s[0]:.4g}..{trace.time_s[-1]:.4g} s, {sc['sample_interval_s']:.3g} s per sample)")
     return 0

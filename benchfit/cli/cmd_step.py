@@ -50,6 +50,9 @@ def register(subparsers) -> None:
     r.add_argument("--time-unit", type=text, metavar="UNIT", help="time column unit: s, ms, us or ns")
     r.add_argument("--sample-interval", type=value(TIME, POSITIVE), metavar="DT", help="sample interval when the file has no time "
                                                            "column (e.g. 1u, 2e-7)")
+    r.add_argument("--skip-bad-rows", action="store_true", default=None,
+                   help="leave out rows that cannot be read instead of refusing the file; they are "
+                        "listed as skipped")
     p.add_argument("-o", "--output", type=text, metavar="JSON", help="write the full result (with curves) here")
     add_json_flag(p)
     p.set_defaults(func=run)
@@ -98,7 +101,7 @@ def run(args: argparse.Namespace) -> int:
                          source="--model")
     channel = args.channel
     overrides = {"columns": args.columns, "time_unit": args.time_unit,
-                 "sample_interval_s": args.sample_interval}
+                 "sample_interval_s": args.sample_interval, "skip_bad_rows": args.skip_bad_rows}
     trace = read_trace(args.trace, **{k: v for k, v in overrides.items() if v is not None})
     if args.load_step:
         if args.model != "second-order" or loop_path:
