@@ -114,7 +114,6 @@ def _fit_with(pb: Problem, ctx: Context) -> FitResult:
     """Stages 2 to 5 with the vector-fitting context ``ctx`` (mirroring or not)."""
     cands, scan = candidates(ctx, pb.f, pb.order, pb.delay)
     hyp, refined = race(pb, cands)
-    st, ref, notes = final(hyp.st, hyp.ref, hyp.notes, pb.refiner(), pb.refiner(quick=True),
-                           pb.fixed, pb.bounds, pb.f, pb.sigma, refined=refined)
+    st, ref, notes = final(pb, hyp.st, hyp.ref, hyp.notes, refined=refined)
     return build_result(pb.resp, st, ref, hyp.att, scan, pb.sigma, notes, pb.fixed, pb.settings,
                         ctx.scale)

@@ -17,8 +17,9 @@ from benchfit.fitting.uncertainty import correlation
 
 #: Mirrored poles within this factor of the band's edges are reported.
 MIRROR_NEAR = 3.0
-#: Residual above this multiple of the noise floor gets a warning (common practice, no source).
-FAR_ABOVE_FLOOR = 2.0
+#: A reduced χ² above this, at the measured noise, is always a warning: the model
+#: misses part of the response (common practice, no source).
+RESIDUAL_WARN = 1.5
 _DB = 20.0 / np.log(10.0)
 
 
@@ -72,9 +73,7 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
                         "half-plane; if the plant is really unstable, this model is wrong")
     if not model.is_stable:
         warnings.append("the refined model has right-half-plane poles")
-    if chi > FAR_ABOVE_FLOOR:
-        warnings.append(f"residual is {chi:.1f}× the noise floor: the model misses part of the "
-                        "response (try a higher --order or a narrower --band)")
+    warnings += residual_warnings(ref, chi)
     stats = {
         "rms_db": float(np.sqrt(np.mean(r_db ** 2))),
         "rms_deg": float(np.sqrt(np.mean(r_deg ** 2))),
@@ -102,3 +101,19 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
         covariance=cov, correlation=corr, integrators=st.integrators,
         provenance=resp.provenance.derive("fit", settings),
     )
+
+
+def residual_warnings(ref: Refined, chi: float) -> list[str]:
+    """The warning for a residual above the noise (reduced χ² > :data:`RESIDUAL_WARN`).
+
+    The standard errors come from the Jacobian scaled by the reduced χ²
+    (:mod:`benchfit.fitting.refine`), so σ grows by √χ² where the model does
+    not reach the floor; the warning says so, since such σ measure the misfit
+    as much as the noise.
+    """
+    if not (np.isfinite(ref.redchi) and ref.redchi > RESIDUAL_WARN):
+        return []
+    return [f"residual above the noise: reduced chi-square {ref.redchi:.3g} at the measured noise "
+            f"({chi:.2f}× the noise floor); the model misses part of the response (try a higher "
+            f"--order, --delay auto or a narrower --band); standard errors are scaled by "
+            f"√χ² = {np.sqrt(ref.redchi):.3g}"]

@@ -10,8 +10,11 @@ is decided in :mod:`benchfit.fitting.selection`.
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 
+from benchfit.errors import InputError
 from benchfit.fitting.parameters import TWO_PI, Structure, response
 from benchfit.fitting.refine import Refined
 from benchfit.fitting.weights import PointSigma
@@ -172,3 +175,122 @@ def unidentified(st: Structure, ref: Refined) -> list[str]:
     for rel, g in out:
         seen[g] = max(rel, seen.get(g, 0.0))
     return sorted(seen, key=lambda g: -seen[g])
+
+
+_GROUP_NAME = re.compile(r"^(pole|pair|zero_pair|zero)(\d+)_(hz|f0_hz|q)$")
+_KIND_KEY = {"pole": "hz", "zero": "hz", "pair": ("f0_hz", "q"), "zero_pair": ("f0_hz", "q")}
+
+
+def _needed(names: dict[str, str]) -> dict[str, int]:
+    """Groups of each kind the parameter names (name -> option) ask for, e.g. pole3_hz -> 3.
+
+    Raises InputError naming the option for a name no model of this form has.
+    """
+    need = {"pole": 0, "pair": 0, "zero": 0, "zero_pair": 0}
+    for name, option in names.items():
+        if name in ("gain", "delay_s"):
+            continue
+        m = _GROUP_NAME.match(name)
+        key = None if m is None else _KIND_KEY[m.group(1)]
+        if m is None or int(m.group(2)) < 1 or not (
+                m.group(3) == key or (isinstance(key, tuple) and m.group(3) in key)):
+            raise InputError(f"no parameter {name!r}: expected gain, pole<i>_hz, "
+                             "pair<i>_f0_hz, pair<i>_q, zero<i>_hz, zero_pair<i>_f0_hz, "
+                             "zero_pair<i>_q or delay_s (i from 1, lowest frequency first)",
+                             source=option)
+        need[m.group(1)] = max(need[m.group(1)], int(m.group(2)))
+    return need
+
+
+def _split_pairs(real: list[float], pairs: list[tuple[float, float]], need_real: int,
+                 need_pairs: int) -> tuple[list[float], list[tuple[float, float]]] | None:
+    """Real roots and pairs rearranged (same count of roots) so there are at least
+    ``need_real`` real ones and ``need_pairs`` pairs, or None when impossible.
+
+    A pair becomes two real roots at its f0 (critically damped, Q = 0.5: the
+    nearest real pair to any pair); two real roots of one sign, neighbours in
+    frequency, become the pair with the same roots (f0 = √(f1·f2),
+    Q = f0/(f1 + f2) ≤ 0.5).  The refinement moves them from there.
+    """
+    real, pairs = sorted(real, key=abs), sorted(pairs)
+    if need_real + 2 * need_pairs > len(real) + 2 * len(pairs):
+        return None
+    while len(real) < need_real:
+        f0, _ = min(pairs, key=lambda p: abs(p[1]))  # the most damped pair
+        pairs.remove((f0, _))
+        real = sorted([*real, f0, f0], key=abs)
+    while len(pairs) < need_pairs:
+        cands = [(abs(np.log(abs(real[i + 1] / real[i]))), i) for i in range(len(real) - 1)
+                 if real[i] * real[i + 1] > 0]
+        if not cands:
+            return None
+        _, i = min(cands)
+        f1, f2 = real[i], real[i + 1]
+        f0 = float(np.sqrt(f1 * f2))
+        pairs = sorted([*pairs, (f0, float(np.sign(f1) * f0 / abs(f1 + f2)))])
+        real = real[:i] + real[i + 2:]
+    return real, pairs
+
+
+def conform(st: Structure, values: np.ndarray, fixed: dict[str, float],
+            bounds: dict[str, tuple[float, float]], order_given: bool = False
+            ) -> tuple[Structure, np.ndarray]:
+    """The structure rearranged so every parameter the user fixes or bounds exists.
+
+    ``--fix pole2_hz=350k`` on a model whose two poles came out of vector
+    fitting as a complex pair splits the pair into two real poles; ``pair1_q``
+    on two real poles merges them into a pair (:func:`_split_pairs`); a
+    ``zero<i>`` the model lacks is added at the value asked (the zeros' count
+    is not the order); a bounded ``delay_s`` adds the delay.  The number of
+    poles never changes.
+
+    Raises
+    ------
+    InputError
+        Naming the option (``--fix``/``--bound``) when a name is not a parameter
+        name, or when the model's poles cannot hold the groups asked for.
+    """
+    names = {**{k: "--bound" for k in bounds}, **{k: "--fix" for k in fixed}}
+    need = _needed(names)
+    v = dict(zip(st.names, values, strict=True))
+    rp = [v[f"pole{i}_hz"] for i in range(1, st.real_poles + 1)]
+    pp = [(v[f"pair{i}_f0_hz"], v[f"pair{i}_q"]) for i in range(1, st.pole_pairs + 1)]
+    rz = [v[f"zero{i}_hz"] for i in range(1, st.real_zeros + 1)]
+    zp = [(v[f"zero_pair{i}_f0_hz"], v[f"zero_pair{i}_q"]) for i in range(1, st.zero_pairs + 1)]
+    if need["pole"] <= len(rp) and need["pair"] <= len(pp) and need["zero"] <= len(rz) \
+            and need["zero_pair"] <= len(zp) and ("delay_s" not in names or st.delay):
+        return st, values
+    poles = _split_pairs(rp, pp, need["pole"], need["pair"])
+    if poles is None:
+        asked = [n for n in names if n.startswith(("pole", "pair"))]
+        how = "the order given" if order_given else "the order the data chose"
+        raise InputError(f"no parameter {asked[-1]!r}: the model has {len(rp) + 2 * len(pp)} pole(s) "
+                         f"({how}); {need['pole']} real pole(s) and {need['pair']} pair(s) need "
+                         f"{need['pole'] + 2 * need['pair']} (raise --order)",
+                         source=names[asked[-1]])
+    rp, pp = poles
+    n_zeros = need["zero"] + 2 * need["zero_pair"]
+    if n_zeros > max(st.order, st.n_zeros):
+        asked = [n for n in names if n.startswith("zero")]
+        raise InputError(f"no parameter {asked[-1]!r}: a model of {st.order} pole(s) and "
+                         f"{st.n_zeros} zero(s) gets no more zeros than poles; {n_zeros} asked", source=names[asked[-1]])
+    while len(rz) + 2 * len(zp) < n_zeros:
+        # A zero the model lacks: start it where the user puts it.
+        key = f"zero{len(rz) + 1}_hz"
+        lo, hi = bounds.get(key, (-np.inf, np.inf))
+        start = fixed.get(key, np.clip(np.sqrt(abs(lo * hi)) if np.isfinite(lo * hi) else
+                                       (lo if np.isfinite(lo) else hi), lo, hi))
+        rz.append(float(start) if np.isfinite(start) and start else 1e30)
+    zeros = _split_pairs(rz, zp, need["zero"], need["zero_pair"])
+    if zeros is None:
+        asked = [n for n in names if n.startswith("zero")]
+        raise InputError(f"no parameter {asked[-1]!r}: cannot arrange the model's zeros to "
+                         "hold it", source=names[asked[-1]])
+    rz, zp = zeros
+    delay = st.delay or "delay_s" in names
+    tau = v.get("delay_s", 0.0)
+    if "delay_s" in bounds and not st.delay:
+        tau = float(np.clip(tau, *bounds["delay_s"]))
+    st2 = Structure(len(rp), len(pp), len(rz), len(zp), st.integrators, delay)
+    vals = [v["gain"], *rp, *[x for p in pp for x in p], *rz, *[x for p in zp for x in p]]
+    return st2, np.asarray(vals + ([tau] if delay else []), dtype=float)

@@ -22,6 +22,7 @@ from benchfit.fitting.delay import (
     refine_delay,
 )
 from benchfit.fitting.order import CHI_OK, Attempt, Context, attempt, choose_order, max_order, polish
+from benchfit.fitting.groups import conform
 from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk
 from benchfit.fitting.problem import SCAN_POINTS, Problem
 from benchfit.fitting.pruning import pruned
@@ -29,8 +30,6 @@ from benchfit.fitting.refine import Refined
 from benchfit.fitting.selection import CLOSE_CALL, bic, bic_floor, screen
 from benchfit.fitting.vectfit import vf_to_zpk
 
-#: Zeros beyond this multiple of the top frequency are dropped (not identifiable in band).
-ZERO_LIMIT = 3.0
 #: When the no-delay scan's first order already reaches the floor, it restarts this
 #: many orders lower.
 DROP_STEP = 3
@@ -44,44 +43,6 @@ class Hypothesis(NamedTuple):
     ref: Refined
     notes: list[str]
 
-
-
-def clean_zpk(zeros, poles, k, f_min, f_max) -> tuple[np.ndarray, np.ndarray, float, list[str]]:
-    """Drop zeros and poles far above the band and pole/zero pairs that cancel below it.
-
-    The gain k is adjusted so the response in the band is unchanged to first
-    order: a dropped zero z contributes (s − z) ≈ −z there (a pole likewise).
-    """
-    notes = []
-    w_max = TWO_PI * f_max
-    for what, roots in (("zero", zeros), ("pole", poles)):
-        far = np.abs(roots) > ZERO_LIMIT * w_max
-        if np.any(far):
-            notes.append(f"dropped {int(far.sum())} {what}(s) above {ZERO_LIMIT:g}× the top "
-                         "frequency (not identifiable in the band)")
-            fac = np.prod(-roots[far])
-            k = float(np.real(k * fac if what == "zero" else k / fac))
-        if what == "zero":
-            zeros = zeros[~far]
-        else:
-            poles = poles[~far]
-    # A pole and a zero closer than 1 % of their frequency, outside the band, are a VF artefact.
-    keep_p = np.ones(poles.shape[0], bool)
-    keep_z = np.ones(zeros.shape[0], bool)
-    w_min = TWO_PI * f_min
-    for i, p in enumerate(poles):
-        if w_min <= abs(p) <= w_max:
-            continue
-        d = np.abs(zeros - p)
-        d[~keep_z] = np.inf
-        j = int(np.argmin(d)) if d.size else -1
-        if j >= 0 and d[j] < 0.01 * abs(p):
-            keep_p[i] = keep_z[j] = False
-    removed = int((~keep_p).sum())
-    if removed:
-        notes.append(f"removed {removed} pole/zero pair(s) cancelling outside the band")
-    k = float(np.real(k * np.prod(-zeros[~keep_z]) / np.prod(-poles[~keep_p])))
-    return zeros[keep_z], poles[keep_p], k, notes
 
 
 def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt], list[Attempt]]:
@@ -144,20 +105,25 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
     return out, scan
 
 
-def start(att: Attempt, ctx: Context, f, delay, fixed, refit) -> Hypothesis:
+def start(pb: Problem, att: Attempt, refit) -> Hypothesis:
     """VF attempt -> physical parameters -> a first, capped refinement (and notes).
 
-    ``refit`` refines on the points the scans used.
+    Every pole and zero vector fitting found is kept, also far above the band:
+    whether the data need it is the pruning's question (:func:`pruned`), never
+    decided here.  The structure is conformed to the parameters the user fixes
+    or bounds (:func:`benchfit.fitting.groups.conform`).  ``refit`` refines on
+    the points the scans used.
     """
+    ctx = pb.ctx
     m, scale = ctx.integrators, ctx.scale
-    fit_delay = delay == "auto" and att.tau_s > 0
+    fit_delay = pb.delay == "auto" and att.tau_s > 0
     zeros, poles, k = vf_to_zpk(att.vf, scale)
-    zeros, poles, k, notes = clean_zpk(zeros, poles, k, f[0], f[-1])
     k_h = k * scale ** m  # the VF model was of H·(s/scale)^m
-    has_delay = fit_delay or "delay_s" in fixed
+    has_delay = fit_delay or "delay_s" in pb.fixed
     st, v0 = from_zpk(zeros, poles, k_h, att.tau_s, integrators=m, delay=has_delay)
+    st, v0 = conform(st, v0, pb.fixed, pb.bounds, order_given=pb.order != "auto")
     # Capped: spurious zeros above the band make it slow, and they are pruned next.
-    return Hypothesis(att, st, refit(st, v0, max_nfev=40), notes)
+    return Hypothesis(att, st, refit(st, v0, max_nfev=40), [])
 
 
 def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
@@ -182,7 +148,7 @@ def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
     missing: InputError | None = None
     for att in worth:
         try:
-            starts.append(start(att, pb.ctx, f, pb.delay, pb.fixed, refit_sub))
+            starts.append(start(pb, att, refit_sub))
         except InputError as e:
             # This hypothesis has no parameter the user holds or bounds: it is not
             # one the user asked about.  Only when none has it is that an error.
@@ -199,9 +165,8 @@ def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
         if outcomes and bic_floor(hyp.st, hyp.ref, f[-1], n_sub, pb.may_add_delay) > min(
                 bic(o.ref, n_sub) for o in outcomes) + CLOSE_CALL:
             continue
-        outcomes.append(Hypothesis(hyp.att, *pruned(
-            hyp.st, hyp.ref, hyp.notes, pb.ctx, f, idx, pb.fixed, pb.bounds, refit_sub,
-            add_delay=pb.may_add_delay, trial=trial_sub)))
+        outcomes.append(Hypothesis(hyp.att, *pruned(pb, hyp.st, hyp.ref, hyp.notes, idx,
+                                                    refit_sub, trial=trial_sub)))
     # A hypothesis whose refinement stopped at its cap is refined to the end when
     # it is still in the running; one far behind is left where it stopped.
     for i, o in enumerate(outcomes):

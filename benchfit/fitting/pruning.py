@@ -22,10 +22,10 @@ from benchfit.fitting.groups import (
     with_delay,
     without,
 )
-from benchfit.fitting.order import Context
 from benchfit.fitting.parameters import TWO_PI, Structure
+from benchfit.fitting.problem import Problem
 from benchfit.fitting.refine import Refined
-from benchfit.fitting.selection import drop_allowed
+from benchfit.fitting.selection import drop_allowed, prunable
 from benchfit.fitting.weights import PointSigma
 
 #: Evaluations a pruning trial gets: a group the data do not need leaves the rest
@@ -135,7 +135,8 @@ def drop_unneeded(st: Structure, ref: Refined, refit, n_res: int, candidates, wa
             st2, v2 = without(st, ref.values, drop)
             dp = len(st.names) - len(st2.names)
             ref2 = trial(refit, st2, v2, ref, penalty * dp)
-            if (waive is not None and waive(st, ref, drop)) or drop_allowed(ref, ref2, dp, n_res):
+            waived = waive is not None and waive(st, ref, drop)
+            if drop_allowed(ref, ref2, dp, n_res, waived=waived):
                 st, ref = st2, ref2
                 dropped += 1
                 break
@@ -165,8 +166,8 @@ def prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: np
                           waive)
 
 
-def prune_unidentified(st: Structure, ref: Refined, refit, n_res: int
-                        ) -> tuple[Structure, Refined, int]:
+def prune_unidentified(st: Structure, ref: Refined, refit, n_res: int, poles: bool = True,
+                       zeros: bool = True) -> tuple[Structure, Refined, int]:
     """Drop pole or zero groups the data cannot locate (σ above the value), one at a
     time, by the ln N rule of :func:`prune_above`.
 
@@ -174,97 +175,120 @@ def prune_unidentified(st: Structure, ref: Refined, refit, n_res: int
     second real pole beside an overdamped pair, a pair far past the band)
     shows as an error bar larger than the value itself.
     """
+    def kind_ok(g: str) -> bool:
+        return zeros if g.startswith("zero") else poles
+
     return drop_unneeded(st, ref, refit, n_res,
-                          lambda st_, ref_: [[g] for g in unidentified(st_, ref_)])
-
-
-def may_prune_cancelling(fixed, bounds) -> bool:
-    """Cancelling groups are pruned unless the user holds or bounds a pole or zero."""
-    held = list(fixed) + list(bounds or {})
-    return not any(key.startswith(("pole", "pair", "zero")) for key in held)
+                         lambda st_, ref_: [[g] for g in unidentified(st_, ref_) if kind_ok(g)])
 
 
 def _cancel_note(n: int) -> str:
     return f"dropped {n} nearly cancelling pole/zero group(s) that the data do not need"
 
 
-def pruned(st: Structure, ref: Refined, notes: list[str], ctx: Context, f, idx, fixed, bounds,
-            refit, add_delay: bool = False, trial=None) -> tuple[Structure, Refined, list[str]]:
-    """A started hypothesis (:func:`start`) with the groups the data do not need pruned.
+def pruned(pb: Problem, hyp_st: Structure, ref: Refined, notes: list[str], idx: np.ndarray,
+           refit, trial=None) -> tuple[Structure, Refined, list[str]]:
+    """A started hypothesis (:func:`~benchfit.fitting.hypotheses.start`) with the groups
+    the data do not need pruned.
 
-    ``refit`` refines on the points ``idx`` of the sweep ``f`` (``trial``, the
-    pruning trials, when given); ``add_delay``:
-    lagging zeros near and above the top of the band may become a delay.
+    Only groups of the kinds :func:`~benchfit.fitting.selection.prunable` allows
+    are tried (never a pole when the user gave the order, never a kind the user
+    holds or bounds).  ``refit`` refines on the points ``idx`` (``trial``, the
+    pruning trials, when given).
     """
+    st = hyp_st
+    f = pb.f
+    trial = trial or refit
     notes = list(notes)
     n_res = 2 * idx.shape[0]
     n_drop = 0
-    held = list(fixed) + list(bounds or {})
-    kinds = {"zeros": not any(key.startswith("zero") for key in held),
-             "poles": not any(key.startswith(("pole", "pair")) for key in held)}
-    if any(kinds.values()):
+    may = prunable(pb)
+    kinds = {"poles": may["poles"], "zeros": may["zeros"]}
+    if kinds["poles"] or kinds["zeros"]:
         had_delay = st.delay
-        st, ref, n_drop = prune_above(st, ref, trial or refit, f[-1], n_res, TWO_PI * f[idx],
-                                       delay_free="delay_s" not in fixed, add_delay=add_delay,
-                                       **kinds)
+        st, ref, n_drop = prune_above(st, ref, trial, f[-1], n_res, TWO_PI * f[idx],
+                                      delay_free="delay_s" not in pb.fixed,
+                                      add_delay=pb.may_add_delay, **kinds)
         if st.delay and not had_delay:
             notes.append("a delay fits the phase lag that poles or zeros near and above the "
                          "top of the band had taken")
         if n_drop:
             where = "above or, with a delay, near the top of" if st.delay else "above"
-            notes.append(f"dropped {n_drop} pole or zero group(s) {where} the band that the data do not need")
-    if may_prune_cancelling(fixed, bounds):
+            notes.append(f"dropped {n_drop} pole or zero group(s) {where} the band that the data "
+                         "do not need")
+    if may["cancelling"]:
         # The point spacing that matters is the full sweep's, not the thinned copy's.
-        st, ref, n_cancel = prune_cancelling(st, ref, trial or refit, n_res, f, ctx.sigma)
+        st, ref, n_cancel = prune_cancelling(st, ref, trial, n_res, f, pb.sigma)
         if n_cancel:
             notes.append(_cancel_note(n_cancel))
             n_drop += n_cancel
-    if not any(key.startswith(("pole", "pair", "zero")) for key in held):
-        st, ref, n_vague = prune_unidentified(st, ref, trial or refit, n_res)
+    if kinds["poles"] or kinds["zeros"]:
+        st, ref, n_vague = prune_unidentified(st, ref, trial, n_res, **kinds)
         if n_vague:
             notes.append(f"dropped {n_vague} pole or zero group(s) whose frequency the data "
                          "could not pin (σ above the value) and do not need")
             n_drop += n_vague
     if not ref.success or n_drop:
         # The capped runs above may have stopped short.  Capped again: only a
-        # hypothesis still in the running is refined to the end (see fit()).
+        # hypothesis still in the running is refined to the end (see race()).
         ref = refit(st, ref.values, max_nfev=PRUNED_NFEV)
     return st, ref, notes
 
 
-def final(st: Structure, ref: Refined, notes: list[str], refit, trial, fixed, bounds, f, sigma,
-           refined: bool = False) -> tuple[Structure, Refined, list[str]]:
+def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: bool = False
+          ) -> tuple[Structure, Refined, list[str]]:
     """Refine the chosen structure on every point with lmfit; drop a delay that is not
     significant.
 
     On every point a pair the thinned copy could not see (a spike between its
     points) may appear and cancel with a zero pair: the cancelling check runs
-    again here, its trials refined by ``trial`` (:func:`refine` with ``quick``).
+    again here, its trials refined quickly (:func:`refine` with ``quick``).
     ``ref`` may come from the thinned copy or from every point: the lmfit
     refinement starts from its values either way (from an optimum on every
     point it takes a few evaluations).  ``refined``: ``ref`` is lmfit's on every
-    point already.
+    point already.  With ``--order N`` a note says when the data would accept
+    fewer poles (:func:`fewer_poles_note`).
     """
+    refit, quick = pb.refiner(), pb.refiner(quick=True)
+    f = pb.f
+    n_res = 2 * f.shape[0]
     if not refined:
         ref = refit(st, ref.values)
-    if may_prune_cancelling(fixed, bounds):
-        st, ref, n_cancel = prune_cancelling(st, ref, trial, 2 * f.shape[0], f, sigma)
+    if prunable(pb)["cancelling"]:
+        st, ref, n_cancel = prune_cancelling(st, ref, quick, n_res, f, pb.sigma)
         if n_cancel:
             notes = [*notes, _cancel_note(n_cancel)]
             ref = refit(st, ref.values)
-    if st.delay and "delay_s" not in fixed:
+    if st.delay and "delay_s" not in pb.fixed:
         i = st.names.index("delay_s")
         tv, te = ref.values[i], ref.stderr[i]
         if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
-            # Under 2σ: refine without the delay, and keep that unless χ² rises by more
-            # than Schwarz's ln N (the rule of every other choice here): a parameter
-            # strongly correlated with the delay can blow up its σ while the data
-            # still need it.
+            # Under 2σ: refine without the delay, and keep that only when the drop test
+            # passes: a parameter strongly correlated with the delay can blow up its σ
+            # while the data still need it.
             keep = [j for j in range(len(st.names)) if j != i]
             st2 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
                             st.integrators, False)
             ref2 = refit(st2, ref.values[keep])
-            if tv <= 0 or drop_allowed(ref, ref2, 1, 2 * f.shape[0]):
+            if tv <= 0 or drop_allowed(ref, ref2, 1, n_res):
                 st, ref = st2, ref2
                 notes = [*notes, "delay estimate not significant; fitted without delay"]
+    if pb.order != "auto":
+        note = fewer_poles_note(pb, st, ref, quick, n_res)
+        if note:
+            notes = [*notes, note]
     return st, ref, notes
+
+
+def fewer_poles_note(pb: Problem, st: Structure, ref: Refined, quick, n_res: int) -> str | None:
+    """With ``--order N``: a note when the pole groups above the band could go by the
+    drop test (the model is kept with N poles, as asked)."""
+    kinds = {"poles": not pb.held("pole", "pair"), "zeros": not pb.held("zero")}
+    if not kinds["poles"]:
+        return None
+    st2, _, _ = prune_above(st, ref, quick, pb.f[-1], n_res, **kinds)
+    fewer = st.order - st2.order
+    if fewer <= 0:
+        return None
+    return (f"the data would accept {fewer} pole(s) fewer (order {st.order - st.integrators - fewer}"
+            f" by the drop test); kept at --order {pb.order} as asked")

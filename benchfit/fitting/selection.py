@@ -19,8 +19,9 @@ from __future__ import annotations
 import numpy as np
 
 from benchfit.fitting.groups import RHP_NEAR_TOP, cancelling, groups_above, in_groups, unidentified
-from benchfit.fitting.order import CHI_OK, NEGLIGIBLE, Attempt
+from benchfit.fitting.order import CHI_OK, NEGLIGIBLE, PLATEAU, Attempt
 from benchfit.fitting.parameters import Structure
+from benchfit.fitting.problem import Problem
 from benchfit.fitting.refine import Refined
 from benchfit.fitting.result import FitResult
 
@@ -88,18 +89,65 @@ def bic_floor(st: Structure, ref: Refined, f_max: float, n_res: int,
     return float(n_res * np.log(chisqr / n_res) + p_min * np.log(n_res))
 
 
-def drop_allowed(kept: Refined, dropped: Refined, n_params: int, n_res: int) -> bool:
-    """True when the data allow the smaller model ``dropped`` (``n_params`` fewer) in
-    place of ``kept``.
+#: A smaller model may not raise the reduced χ² by more than this fraction over the
+#: larger one's (or over the floor, CHI_OK², when the larger one is below it): the
+#: same fraction below which vector fitting's own residual gains are not evidence
+#: (order.PLATEAU).
+REDCHI_RISE = PLATEAU
+
+
+def redchi_allows(kept: Refined, dropped: Refined) -> bool:
+    """True when the smaller model's reduced χ² stays where the larger one's is.
+
+    Evidence weighed: the reduced χ² (residual over the measured noise,
+    squared) of ``dropped`` against ``max(kept's, CHI_OK²)`` raised by
+    :data:`REDCHI_RISE`.  A drop may never take a fit at the floor above it,
+    nor a fit above the floor further up, whatever the information criterion
+    (or a waiver such as "below the noise at every point") says.
+    """
+    if not (np.isfinite(dropped.redchi) and np.isfinite(kept.redchi)):
+        return False
+    return bool(dropped.redchi <= max(kept.redchi, CHI_OK ** 2) * (1.0 + REDCHI_RISE))
+
+
+def ic_allows(kept: Refined, dropped: Refined, n_params: int, n_res: int) -> bool:
+    """True when the information criterion prefers (or ties) the smaller model.
 
     Evidence weighed: the rise of χ², in units of the kept model's reduced χ²
     (its noise scale), against Schwarz's penalty ln N per parameter removed
-    (G. Schwarz, Ann. Statist. 6(2), 1978): the smaller model is allowed
-    when its BIC is not higher.
+    (G. Schwarz, Ann. Statist. 6(2), 1978): the smaller model's BIC is not
+    higher.  Above the band a zero's phase, −ω/ω_z, is a delay's phase, so a
+    plain 95 % likelihood-ratio test (3.8 per parameter) let noise buy a
+    spurious zero that stole part of the delay and shrank its error bar.
     """
     if not (np.isfinite(kept.redchi) and kept.redchi > 0 and np.isfinite(dropped.chisqr)):
         return False
     return bool((dropped.chisqr - kept.chisqr) / kept.redchi <= np.log(n_res) * n_params)
+
+
+def drop_allowed(kept: Refined, dropped: Refined, n_params: int, n_res: int,
+                 waived: bool = False) -> bool:
+    """True when the data allow the smaller model ``dropped`` (``n_params`` fewer) in
+    place of ``kept``: both :func:`ic_allows` and :func:`redchi_allows`.
+
+    ``waived``: the caller has shown the dropped groups cannot be identified
+    (narrower than the point spacing, below the noise at every point), so the
+    information criterion is not asked; the reduced χ² still is.
+    """
+    return (waived or ic_allows(kept, dropped, n_params, n_res)) and redchi_allows(kept, dropped)
+
+
+def prunable(pb: Problem) -> dict[str, bool]:
+    """Which kinds of group pruning may try to remove, as flags ``poles``, ``zeros``
+    and ``cancelling`` (a pole group with a zero group).
+
+    What the user asked is honoured: with ``--order N`` no pole goes (the model
+    keeps N poles); a kind the user fixes or bounds a parameter of is left
+    alone (its names must not shift).
+    """
+    poles = pb.order == "auto" and not pb.held("pole", "pair")
+    zeros = not pb.held("zero")
+    return {"poles": poles, "zeros": zeros, "cancelling": poles and zeros}
 
 
 #: A fit with mirrored poles whose residual stays above this multiple of the floor loses
