@@ -35,29 +35,6 @@ SKRF_DATA = Path(skrf.__file__).parent / "data"
 FACTOR = 2.0
 CHI2_OK = 2.0
 
-#: Files and parameters where the automatic fit drops poles the data need (model
-#: choice: poles above the band pruned, issue 14 item 1; not this module's subject).
-AUTO_MODEL_CHOICE = {
-    "ind.s2p:S21": "automatic fit keeps 1 pole; pole above the band dropped (model choice)",
-    "ntwk1.s2p:S21": "automatic fit keeps 1 pole after dropping poles above the band (model choice)",
-}
-#: Fixed-order fits that do not return the order asked for (issue 14 item 2, model choice).
-FIXED_MODEL_CHOICE = {
-    "ring slot.s2p:S21": "--order 8 returns 6 poles (model choice drops a pair)",
-    "ntwk1.s2p:S21": "--order 8 returns 3 poles (model choice drops poles)",
-    "ntwk1.s2p:S11": "--order 8 returns 3 poles (model choice drops poles)",
-    "ro,1.s1p:S11": "--order 8 returns 6 poles (model choice drops a pair)",
-    "ro,2.s1p:S11": "--order 8 returns 6 poles (model choice drops a pair)",
-    "ring slot.s2p:S11": "--order 8 returns 4 poles (model choice drops poles)",
-    "ind.s2p:S11": "--order 4 returns 1 pole (model choice drops poles)",
-    "ind.s2p:S21": "--order 4 returns 2 poles (model choice drops poles)",
-    "open.s2p:S11": "--order 4 returns no pole (model choice drops poles)",
-    "open.s2p:S21": "--order 4 returns 2 poles (model choice drops poles)",
-    "short.s2p:S11": "--order 4 returns 2 poles (model choice drops poles)",
-    "short.s2p:S21": "--order 4 returns 2 poles (model choice drops poles)",
-}
-
-
 def _files():
     out = []
     for path in sorted(SKRF_DATA.glob("*.s[12]p")):
@@ -115,23 +92,18 @@ def _check(res, resp):
         f"residual/floor {c_bf:.3g} vs {c_ref:.3g}; reduced chi2 {chi2:.3g}")
 
 
-def _params(table):
-    return [pytest.param(label, r, marks=pytest.mark.xfail(reason=table[label], strict=True))
-            if label in table else pytest.param(label, r, id=label) for label, r in FILES]
-
-
 def test_the_shipped_files_are_there():
     labels = [label for label, _ in FILES]
     assert {"line.s2p:S21", "ring slot.s2p:S11", "ro,3.s1p:S11", "ntwk1.s2p:S21"} <= set(labels)
 
 
-@pytest.mark.parametrize(("label", "resp"), _params(AUTO_MODEL_CHOICE))
+@pytest.mark.parametrize(("label", "resp"), FILES, ids=[label for label, _ in FILES])
 def test_automatic_fit_is_as_good_as_scikit_rf_at_its_order(label, resp):
     # Reference: scikit-rf VectorFitting at the order benchfit chose (see module docstring).
     _check(fit(resp), resp)
 
 
-@pytest.mark.parametrize(("label", "resp"), _params(FIXED_MODEL_CHOICE))
+@pytest.mark.parametrize(("label", "resp"), FILES, ids=[label for label, _ in FILES])
 def test_fixed_order_fit_is_as_good_as_scikit_rf(label, resp):
     # Reference: scikit-rf VectorFitting at the same order.  Order 8, or what the
     # file's points allow (ten-point files: 4).
