@@ -259,7 +259,7 @@ def conform(st: Structure, values: np.ndarray, fixed: dict[str, float],
     zp = [(v[f"zero_pair{i}_f0_hz"], v[f"zero_pair{i}_q"]) for i in range(1, st.zero_pairs + 1)]
     if need["pole"] <= len(rp) and need["pair"] <= len(pp) and need["zero"] <= len(rz) \
             and need["zero_pair"] <= len(zp) and ("delay_s" not in names or st.delay):
-        return st, values
+        return _held_in_place(st, values, fixed)
     poles = _split_pairs(rp, pp, need["pole"], need["pair"])
     if poles is None:
         asked = [n for n in names if n.startswith(("pole", "pair"))]
@@ -293,4 +293,34 @@ def conform(st: Structure, values: np.ndarray, fixed: dict[str, float],
         tau = float(np.clip(tau, *bounds["delay_s"]))
     st2 = Structure(len(rp), len(pp), len(rz), len(zp), st.integrators, delay)
     vals = [v["gain"], *rp, *[x for p in pp for x in p], *rz, *[x for p in zp for x in p]]
-    return st2, np.asarray(vals + ([tau] if delay else []), dtype=float)
+    return _held_in_place(st2, np.asarray(vals + ([tau] if delay else []), dtype=float), fixed)
+
+
+def _held_in_place(st: Structure, values: np.ndarray, fixed: dict[str, float]
+                   ) -> tuple[Structure, np.ndarray]:
+    """Values with the group nearest (in log frequency) to each fixed frequency moved to
+    the fixed name's place.
+
+    Holding ``pole1_hz`` at 350 kHz when vector fitting put the poles at 1 kHz
+    and 350 kHz must hold the 350 kHz pole, not drag the 1 kHz one up and
+    send the other looking for it (it wandered off to −9e11 Hz).
+    """
+    v = np.array(values, dtype=float)
+    names = st.names
+    for name, target in fixed.items():
+        m = _GROUP_NAME.match(name)
+        if m is None or m.group(3) == "q" or name not in names or not target:
+            continue
+        kind, key = m.group(1), m.group(3)
+        same = [i for i, nm in enumerate(names)
+                if (mm := _GROUP_NAME.match(nm)) and mm.group(1) == kind and mm.group(3) == key
+                and nm not in fixed]
+        if not same:
+            continue
+        here = names.index(name)
+        best = min(same + [here], key=lambda i: abs(np.log(abs(v[i] / target))) if v[i] else np.inf)
+        if best != here:
+            width = 2 if key == "f0_hz" else 1  # a pair moves with its Q
+            a, b = v[here:here + width].copy(), v[best:best + width].copy()
+            v[here:here + width], v[best:best + width] = b, a
+    return st, v
