@@ -24,7 +24,6 @@ from benchfit.output.curves import Curve
 from benchfit.provenance import Provenance
 
 
-
 def design_loop(design: Design, which: str = "snapped") -> PlantModel | FrequencyResponse:
     """Loop gain T of the nominal plant with the ideal or snapped parts."""
     if which not in WHICH:
