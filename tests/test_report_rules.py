@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from matplotlib.figure import Figure
@@ -131,3 +133,25 @@ def _small_design():
     lp = LoopPlant(plant, Sensing.divider(10e3, 3.24e3), band_hz=(10.0, 1e6))
     return design(lp, "type3", Targets(crossover_hz=20e3, phase_margin_deg=55, gain_margin_db=10),
                   series=("E96", "E24"), draws=200, seed=7)
+
+
+# ----- what is not defined, said in words ------------------------------------------------------
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_data"
+
+
+def test_margins_text_says_why_the_gain_margin_is_not_defined(capsys):
+    from benchfit.cli import main
+
+    assert main(["margins", str(SAMPLES / "ldo_loop.csv")]) == 0
+    out = capsys.readouterr().out
+    assert "gain margin     not defined in the measured band: no phase crossing (∠T = −180°) below 2 MHz" in out
+    assert "n/a" not in out and "none at" not in out
+
+
+def test_step_text_says_why_the_log_decrement_is_not_defined():
+    from benchfit.steps.result import _ringing_text
+
+    freq, dec = _ringing_text(float("nan"), float("nan"), 1)
+    assert dec == "not defined: only 1 ringing lobe above the noise; it needs two"
+    assert "nan" not in freq + dec
+    assert _ringing_text(8e3, 0.9, 4) == ("8 kHz", "0.9 (from 4 lobes)")
