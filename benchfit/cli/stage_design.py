@@ -24,7 +24,7 @@ def add_stage_args(p: argparse.ArgumentParser) -> None:
     g.add_argument("--stage", choices=("noninverting", "inverting"),
                    help="design an op-amp stage's feedback network instead of a converter's "
                         "compensator")
-    g.add_argument("--closed-loop-gain", type=value(NUMBER), metavar="G",
+    g.add_argument("--closed-loop-gain", type=value(NUMBER, Range(nonzero=True)), metavar="G",
                    help="DC closed-loop gain (non-inverting >= 1; inverting: -G or G), checked "
                         "after snapping to 1 %%")
     g.add_argument("--output-resistance", type=value(RESISTANCE, Range(ge=0)), metavar="OHM",
