@@ -71,8 +71,6 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
     if n_fl:
         warnings.append(f"{n_fl} right-half-plane pole(s) were mirrored into the left "
                         "half-plane; if the plant is really unstable, this model is wrong")
-    if not model.is_stable:
-        warnings.append("the refined model has right-half-plane poles")
     warnings += residual_warnings(ref, chi)
     stats = {
         "rms_db": float(np.sqrt(np.mean(r_db ** 2))),
