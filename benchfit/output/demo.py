@@ -36,6 +36,7 @@ from benchfit.loop.synthesis import Targets
 from benchfit.numfmt import deg, eng, sig
 from benchfit.output.assemble import assemble
 from benchfit.output.curves import write_curve_csv
+from benchfit.output.predicted import in_band
 from benchfit.output.report import write_report
 from benchfit.output.spice import write_spice
 from benchfit.output.summary import design_summary, summary_lines
@@ -193,7 +194,7 @@ def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit
     for key in ("loop", "closed", "step", "zout_closed", "load_step"):
         c = inputs.curve(key)
         if c is not None:
-            files[f"curve_{key}"] = write_curve_csv(c, out / f"curve_{key}.csv")
+            files[f"curve_{key}"] = write_curve_csv(in_band(c, lp.band_hz), out / f"curve_{key}.csv")
     rep = write_report(inputs, files["report"], pdf_path=out / "report.pdf" if pdf else None)
     if rep["pdf"]:
         files["pdf"] = Path(rep["pdf"])
