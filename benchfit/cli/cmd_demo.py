@@ -15,6 +15,7 @@ from pathlib import Path
 
 import benchfit
 from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import text
 from benchfit.errors import InputError
 
 DATA_SUFFIXES = (".csv", ".tsv", ".txt", ".dat") + tuple(f".s{n}p" for n in range(1, 5))
@@ -108,8 +109,8 @@ def register(subparsers) -> None:
                     "for a 20 kHz crossover, snap the parts, spread them over tolerances, predict the "
                     "step and output impedance, read the present board's step, and write the design "
                     "and an HTML report into the output folder.")
-    p.add_argument("--data", metavar="DIR", help="sample-data folder (default: sample_data/ of the repo)")
-    p.add_argument("--out", default="benchfit-out", metavar="DIR",
+    p.add_argument("--data", type=text, metavar="DIR", help="sample-data folder (default: sample_data/ of the repo)")
+    p.add_argument("--out", type=text, default="benchfit-out", metavar="DIR",
                    help="output folder (default ./benchfit-out/)")
     p.add_argument("--pdf", action="store_true", help="also write the report as PDF")
     p.add_argument("--read-only", action="store_true", help="only read and list the sample files")

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import argparse
 
-from benchfit.cli.common import add_json_flag, emit, parse_si
+from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import CURRENT, NONZERO, VOLTAGE, text, value
 from benchfit.output.choices import CURVE_NAMES, WHICH
 
 
@@ -16,12 +17,12 @@ def register(subparsers) -> None:
                     "curves as time_s,value.")
     p.add_argument("design", metavar="DESIGN_JSON", help="design file written by 'benchfit design'")
     p.add_argument("--curve", required=True, choices=CURVE_NAMES, help="which curve")
-    p.add_argument("-o", "--output", required=True, metavar="CSV", help="file to write")
+    p.add_argument("-o", "--output", required=True, type=text, metavar="CSV", help="file to write")
     p.add_argument("--parts", default="snapped", choices=WHICH, help="snapped (default) or ideal parts")
-    p.add_argument("--zout", metavar="FILE",
+    p.add_argument("--zout", type=text, metavar="FILE",
                    help="open-loop output impedance: sweep or model JSON (for load_step a sweep is fitted first)")
-    p.add_argument("--step", default="1", metavar="VOLTS", help="reference step at the reference input (1 V)")
-    p.add_argument("--load-step", default="1", metavar="AMPS", help="load-current step (1 A)")
+    p.add_argument("--step", type=value(VOLTAGE, NONZERO), default="1", metavar="VOLTS", help="reference step at the reference input (1 V)")
+    p.add_argument("--load-step", type=value(CURRENT, NONZERO), default="1", metavar="AMPS", help="load-current step (1 A)")
     add_json_flag(p)
     p.set_defaults(func=run)
 
@@ -34,8 +35,7 @@ def run(args: argparse.Namespace) -> int:
     design = Design.from_json(args.design)
     z_open = read_model_or_sweep(args.zout) if args.zout else None
     curve = design_curve(design, args.curve, which=args.parts, z_open=z_open,
-                         reference_step_v=parse_si(args.step, "--step"),
-                         load_step_a=parse_si(args.load_step, "--load-step"))
+                         reference_step_v=args.step, load_step_a=args.load_step)
     path = write_curve_csv(curve, args.output)
     axis = "Hz" if curve.is_frequency else "s"
     emit(args, {"output": str(path), "curve": args.curve, "name": curve.name, "points": int(curve.x.size),

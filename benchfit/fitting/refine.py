@@ -116,7 +116,7 @@ def refine(
             raise InputError(f"no parameter {key!r} in this model; it has {', '.join(names)}",
                              source="--fix" if key in fix else "--bound")
     params = lmfit.Parameters()
-    v0 = np.array(values0, dtype=float)
+    v0 = start_beside_fixed(st, np.array(values0, dtype=float), fix)
     for i, name in enumerate(names):
         if name in fix:
             v0[i] = float(fix[name])
@@ -251,6 +251,37 @@ def _kept_start(names, v0: np.ndarray, varied: tuple[str, ...], r0: np.ndarray,
                    success=False, chisqr=chi0, redchi=chi0 / max(r0.size - len(varied), 1),
                    message="refinement made the fit worse; kept the vector-fitting values",
                    uncertainty_reason="no uncertainties: the refinement did not reach an optimum")
+
+
+def start_beside_fixed(st: Structure, values: np.ndarray, fix: dict[str, float]) -> np.ndarray:
+    """Start values with, for each fixed pole or zero frequency, the group of its kind
+    whose start lies nearest to the fixed value moved into the fixed slot.
+
+    The user names a group by its number (``pole1_hz``), which the start's
+    numbering need not match: holding ``pole1_hz`` at 350 kHz when the start's
+    pole1 is at 1 kHz and its pole2 at 350 kHz would throw the 1 kHz pole away
+    and leave the refinement to drag pole2 down three decades (it went to the
+    right half-plane instead).  Swapping the two starts keeps both; the result
+    is numbered by frequency afterwards (:func:`renumbered`).
+    """
+    v = values.copy()
+    names = st.names
+    for key, target in fix.items():
+        if key not in names or not key.endswith("_hz") or key.startswith("delay"):
+            continue
+        kind, width = (("zero_pair", 2) if key.startswith("zero_pair") else
+                       ("pair", 2) if key.startswith("pair") else
+                       ("zero", 1) if key.startswith("zero") else ("pole", 1))
+        suffix = "_f0_hz" if width == 2 else "_hz"
+        slots = [names.index(nm) for nm in names if nm.startswith(kind) and nm.endswith(suffix)
+                 and nm[len(kind)].isdigit() and nm not in fix]
+        i = names.index(key)
+        if not slots or not np.isfinite(target) or target == 0:
+            continue
+        j = min(slots + [i], key=lambda k: abs(np.log(abs(v[k] / target))) if v[k] else np.inf)
+        if j != i:
+            v[i: i + width], v[j: j + width] = v[j: j + width].copy(), v[i: i + width].copy()
+    return v
 
 
 def renumbered(st: Structure, ref: Refined) -> tuple[Refined, dict[str, str]]:
