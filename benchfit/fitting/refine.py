@@ -24,6 +24,7 @@ from scipy import optimize
 
 from benchfit.errors import InputError
 from benchfit.fitting.factors import log_jacobian_at, log_response
+from benchfit.fitting.lsq import trust_region
 from benchfit.fitting.parameters import Structure, log_jacobian, renumbering, response
 from benchfit.fitting.uncertainty import covariance
 
@@ -227,11 +228,14 @@ def _with_covariance(names, values: np.ndarray, var_idx, jac: np.ndarray, nfev: 
 
 def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
            bounds: dict[str, tuple[float, float]], max_nfev: int) -> Refined:
-    """:func:`refine` through ``scipy.optimize.least_squares`` directly (``quick=True``).
+    """:func:`refine` without lmfit (``quick=True``).
 
-    The options are lmfit's least_squares call's above (TRF, analytic Jacobian,
-    Jacobian scaling, same tolerances); the covariance is lmfit's estimate,
-    (JᵀJ)⁻¹ scaled by the reduced χ².
+    The trust-region method of the lmfit call above (TRF, analytic Jacobian,
+    Jacobian scaling, same tolerances): without bounds through
+    :func:`benchfit.fitting.lsq.trust_region` (the same algorithm on the normal
+    matrix instead of an SVD per iteration), with bounds through
+    ``scipy.optimize.least_squares``.  The covariance is
+    :func:`benchfit.fitting.uncertainty.covariance`'s.
     """
     lo = np.array([bounds.get(names[i], (-np.inf, np.inf))[0] for i in var_idx], dtype=float)
     hi = np.array([bounds.get(names[i], (-np.inf, np.inf))[1] for i in var_idx], dtype=float)
@@ -239,9 +243,13 @@ def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
     r0 = residual(x0)
     chi0 = float(r0 @ r0)
     with np.errstate(all="ignore"):
-        out = optimize.least_squares(residual, x0, jac=jacobian, bounds=(lo, hi), method="trf",
-                                     x_scale="jac", ftol=1e-9, xtol=1e-9, gtol=1e-10,
-                                     max_nfev=max_nfev)
+        if np.all(np.isinf(lo)) and np.all(np.isinf(hi)):
+            out = trust_region(residual, jacobian, x0, f0=r0, max_nfev=max_nfev,
+                               ftol=1e-9, xtol=1e-9, gtol=1e-10)
+        else:
+            out = optimize.least_squares(residual, x0, jac=jacobian, bounds=(lo, hi),
+                                         method="trf", x_scale="jac", ftol=1e-9, xtol=1e-9,
+                                         gtol=1e-10, max_nfev=max_nfev)
     varied = tuple(names[i] for i in var_idx)
     dof = max(r0.size - var_idx.size, 1)
     chi = float(out.fun @ out.fun)
