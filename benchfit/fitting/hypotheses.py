@@ -15,7 +15,6 @@ import numpy as np
 
 from benchfit.errors import FitError, InputError
 from benchfit.fitting.delay import (
-    DELAY_MIN_PHASE,
     choose_delay_order,
     delay_stepper,
     excess_phase_delay,
@@ -23,11 +22,11 @@ from benchfit.fitting.delay import (
 )
 from benchfit.fitting.order import CHI_OK, Attempt, Context, attempt, choose_order, max_order, polish
 from benchfit.fitting.groups import conform
-from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk
+from benchfit.fitting.parameters import Structure, from_zpk
 from benchfit.fitting.problem import SCAN_POINTS, Problem
 from benchfit.fitting.pruning import pruned
 from benchfit.fitting.refine import Refined
-from benchfit.fitting.selection import CLOSE_CALL, bic, bic_floor, screen
+from benchfit.fitting.selection import CLOSE_CALL, bic, bic_floor, delay_worth_testing, screen
 from benchfit.fitting.vectfit import vf_to_zpk
 
 #: When the no-delay scan's first order already reaches the floor, it restarts this
@@ -48,9 +47,12 @@ class Hypothesis(NamedTuple):
 def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt], list[Attempt]]:
     """Vector fits to refine: the best without a delay, and with one when ``delay="auto"``.
 
-    With ``delay="auto"`` the order is first chosen with a delay searched at
-    each order (starting from the excess-phase estimate), then without a delay
-    up to a few orders more.  A delay and a damped pair near the top of the
+    With ``delay="auto"`` and a delay worth testing
+    (:func:`benchfit.fitting.selection.delay_worth_testing`: excess phase), the
+    order is first chosen with a delay searched at each order (starting from
+    the excess-phase estimate), then without a delay up to a few orders more;
+    without excess phase, the no-delay scan runs first and the delay scan
+    follows when its residual stays above the noise.  A delay and a damped pair near the top of the
     band look alike to vector fitting, so both candidates are refined and
     compared afterwards (:func:`race`).  Scans run on a thinned sweep; the
     candidates' residues are re-solved on every point.
@@ -62,7 +64,7 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
     h = ctx.h
     fixed_tau = float(delay) if not isinstance(delay, str) else 0.0
     tau0 = excess_phase_delay(f, h) if delay == "auto" else 0.0
-    try_delay = delay == "auto" and tau0 * TWO_PI * f[-1] >= DELAY_MIN_PHASE
+    try_delay = delay == "auto" and delay_worth_testing(tau0, f[-1])
     sub = ctx.subsample(SCAN_POINTS)
     scan: list[Attempt] = []
     with_delay = None
@@ -74,7 +76,7 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
             # A fresh start may miss a weak feature; build up to n as the scan does.
             scan = choose_order(sub, fixed_tau, n_min=1, n_max=n, scan_all=True)[1]
             att = min([att, scan[-1]], key=lambda x: x.chi)
-        if try_delay:
+        if delay == "auto" and (try_delay or delay_worth_testing(tau0, f[-1], att.chi)):
             with_delay = refine_delay(sub, delay_stepper(sub, tau0)(n))
     elif try_delay:
         # Both hypotheses, the delay one first: its order bounds the no-delay scan
@@ -96,6 +98,12 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
         scan = scan + scan_d
     else:
         att, scan = choose_order(sub, fixed_tau)
+        if delay == "auto" and delay_worth_testing(tau0, f[-1], att.chi):
+            # No excess phase to speak of, but the residual stays above the noise:
+            # a delay the phase estimate missed is a hypothesis too.
+            with_delay, nxt, scan_d = choose_delay_order(sub, tau0)
+            extra = [nxt] if nxt is not None and np.isfinite(nxt.chi) else []
+            scan = scan + scan_d
     # The scans' poles (settled to 1e-4 near the floor) only start the refinement,
     # which is the estimator: they are carried to every point as they are.
     out = [polish(ctx, att)]

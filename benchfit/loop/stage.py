@@ -48,6 +48,8 @@ from benchfit.provenance import Provenance
 PAIRS = 8
 #: Ratio error (log) a gain pair may have and still be tried (half the 1 % allowed).
 PAIR_TOL = 0.005
+#: Snapped sets whose exact margins are checked before the best on the grid is kept.
+EXACT_CHECKS = 4
 #: Series neighbours tried on each side of a part's value when snapping.
 NEIGHBOURS = 2
 #: The resistor each network is trimmed with when snapping (its series values within
@@ -163,8 +165,19 @@ def snap_stage(syn: StageSynthesis, lp: LoopPlant, targets: Targets, gain: float
     pm, gm, st = (np.concatenate([g[i] for g in got]) for i in range(3))
     r = vals["Rf"][:, 0] / vals["Rg"][:, 0] if "Rg" in vals else np.zeros(len(rows))
     ideal = 1.0 + r if net.stage == "noninverting" else r
-    best = pick_snapped(pm, gm, st, ideal / abs(gain) - 1.0, targets)
-    return net.with_parts(rows[best])
+    err = ideal / abs(gain) - 1.0
+    # the sweep judged margins on the grid; the exact margins of the few best sets decide
+    first = None
+    for _ in range(EXACT_CHECKS):
+        best = pick_snapped(pm, gm, st, err, targets)
+        cand = net.with_parts(rows[best])
+        first = first or cand
+        m = predict([lp], cand, None).corners[0]
+        if m.closed_loop_stable and targets.met(worst_pm(m), m.gain_margin_db):
+            return cand
+        st = st.copy()
+        st[best] = False  # set aside; the next best is checked
+    return first
 
 
 def dc_gain(lp: LoopPlant, net: StageNetwork) -> float:
@@ -357,7 +370,7 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
     want = g_abs if stage == "noninverting" else -g_abs
     cg = {"ideal": dc_gain(lp, syn.network), "snapped": dc_gain(lp, snapped_net)}
     m = snapped.corners[0]
-    warnings = [w for w in m.warnings]
+    warnings = [w for w in m.warnings] + snapped_net.practical_warnings("snapped")
     if abs(cg["snapped"] / want - 1) > GAIN_TOL:
         warnings.append(f"snapped DC closed-loop gain {cg['snapped']:.5g} is more than 1 % from the "
                         f"{want:g} asked; use a finer resistor series (--series E96:E12)")

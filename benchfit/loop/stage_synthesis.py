@@ -351,7 +351,8 @@ def choose_network(lp: LoopPlant, targets: Targets, *, gain: float, stage: str =
     -> no network; (2) each network of :data:`AUTO_ORDER` that can be placed
     (isolation and snubber only when Ro and CL are known, the snubber only
     when the ESR zero lies above the plain crossover) and lands on the
-    phase-margin target; among those, the highest crossover (the fastest
+    phase-margin target with parts in a practical range
+    (:meth:`~benchfit.loop.stage_networks.StageNetwork.practical_warnings`); among those, the highest crossover (the fastest
     closed loop and load-step recovery) wins, ties to the earlier in the
     order; (3) if none lands on target, the highest-crossover one that meets it.
 
@@ -386,6 +387,11 @@ def choose_network(lp: LoopPlant, targets: Targets, *, gain: float, stage: str =
                                  r_level=r_level, lag_at=lag_at)
         except DesignError as e:
             reasons.append(f"{kind}: {e}")
+            continue
+        bad = s.network.practical_warnings()
+        if bad:
+            reasons.append(f"{kind}: PM {s.pm_deg:.1f}° at {s.crossover_hz:.4g} Hz but not "
+                           f"practical ({bad[0]})")
             continue
         good.append(s)
         reasons.append(f"{kind}: PM {s.pm_deg:.1f}° at {s.crossover_hz:.4g} Hz"
