@@ -26,6 +26,7 @@ from benchfit.data.timing import (
     duplicate_rows,
     printed_step,
     rounding_explains_repeats,
+    straight_line,
     time_axis_findings,
 )
 from benchfit.data.trace import TimeTrace
@@ -207,7 +208,7 @@ def _check_time(t: np.ndarray, line_no: np.ndarray, resolution: float, source: s
     if np.all(steps >= 0) and t[-1] > t[0] and rounding_explains_repeats(t, resolution):
         # Repeated times: the export printed too few digits for the sample interval.
         k = np.arange(t.size)
-        slope, start = np.polyfit(k, t, 1)
+        slope, start = straight_line(t)
         warnings.append("time column repeats values (printed with too few digits); rebuilt an "
                         "evenly spaced time axis fitted to the printed times")
         return start + slope * k
