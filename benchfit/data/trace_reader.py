@@ -21,7 +21,7 @@ from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_tra
 from benchfit.data.dialect import Dialect, load_text, sniff
 from benchfit.data.quote import cut, quote
 from benchfit.data.rows import BadRow, apply_row_rule, bad_row, skipped_warning
-from benchfit.data.table import Block, find_blocks
+from benchfit.data.table import Block, find_blocks, footer_warning
 from benchfit.data.timing import (
     duplicate_rows,
     printed_step,
@@ -315,6 +315,8 @@ def _read_trace(path, channel, *, columns, time_unit, sample_interval_s, skip_ba
         names = ["time" if i == time_col else f"ch{i + 1 - (time_col is not None)}"
                  for i in range(ncols)]
     block, skipped = _row_rule(block, time_col, lines, skip_bad_rows, source, warnings)
+    if block.footer:
+        warnings.append(footer_warning(block))
     meta_keys = _metadata(block.notes, d)
     time_cells = []
     if time_col is not None:  # the time column as written, for its print step (a sample)
