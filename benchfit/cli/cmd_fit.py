@@ -15,6 +15,7 @@ from benchfit.cli.values import (
     Unit,
     band,
     count,
+    output,
     parse_range,
     parse_value,
     quote,
@@ -92,7 +93,7 @@ def register(subparsers) -> None:
                    help="relative: errors in dB and degrees (default); absolute: complex error")
     p.add_argument("--integrators", type=INTEGRATORS, default="0",
                    help="poles at the origin (a measured loop gain): 0..3 or auto (default 0)")
-    p.add_argument("-o", "--output", type=text, metavar="MODEL.json", help="write the fit result as JSON")
+    p.add_argument("-o", "--output", type=output, metavar="MODEL.json", help="write the fit result as JSON")
     add_reader_flags(p)
     add_json_flag(p)
     p.set_defaults(func=run)
