@@ -103,8 +103,7 @@ def test_fixed_parameter_keeps_its_flag_when_renumbered():
     _, h = signal.freqs_zpk([], p, np.prod(np.abs(p)), 2 * np.pi * f)  # reference: scipy
     res = fit(FrequencyResponse(freq_hz=f, response=h), order=2, delay="none",
               fix={"pole1_hz": 350e3})
-    if res.stats["order"] != 2:
-        pytest.xfail("--order 2 returned another order: model choice (issue 14 item 2)")
+    assert res.stats["order"] == 2
     p1, p2 = res.parameter("pole1_hz"), res.parameter("pole2_hz")
     assert p2.fixed and p2.value == 350e3 and not p1.fixed
     assert p1.value == pytest.approx(1e3, rel=1e-6)

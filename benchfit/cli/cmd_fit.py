@@ -93,6 +93,10 @@ def register(subparsers) -> None:
                    help="relative: errors in dB and degrees (default); absolute: complex error")
     p.add_argument("--integrators", type=INTEGRATORS, default="0",
                    help="poles at the origin (a measured loop gain): 0..3 or auto (default 0)")
+    p.add_argument("--stable", action=argparse.BooleanOptionalAction, default=None,
+                   help="hold every pole in the left half-plane (default: only for passive data, "
+                        "an impedance or a Touchstone S-parameter never above 1); --no-stable "
+                        "lets the data put poles anywhere")
     p.add_argument("-o", "--output", type=output, metavar="MODEL.json", help="write the fit result as JSON")
     add_reader_flags(p)
     add_json_flag(p)
@@ -106,7 +110,8 @@ def run(args: argparse.Namespace) -> int:
     fix, bounds = _fix(args.fix), _bounds(args.bound)
     resp = read_sweep(args.sweep, **reader_options(args))
     result = fit(resp, order=args.order, delay=args.delay, band=args.band, fix=fix,
-                 weighting=args.weighting, integrators=args.integrators, bounds=bounds)
+                 weighting=args.weighting, integrators=args.integrators, bounds=bounds,
+                 stable=args.stable)
     for w in result.warnings:
         warn(w)
     if args.output:

@@ -12,8 +12,11 @@ The stages, in the order docs/fitting.md describes them:
 4. :func:`benchfit.fitting.pruning.final` — the winner refined with lmfit on
    every point (refine.py);
 5. :func:`benchfit.fitting.assemble.build_result` — statistics and warnings;
-6. when vector fitting had to mirror poles, the same again without mirroring,
-   and :func:`benchfit.fitting.selection.unstable_wins` decides.
+6. stability: with ``stable`` (the default for passive data) every pole is held
+   in the left half-plane; otherwise, when vector fitting had to mirror poles,
+   the same again without mirroring (:func:`benchfit.fitting.selection.unstable_wins`
+   decides), and an unstable result is weighed against the best stable fit
+   (:func:`benchfit.fitting.selection.unstable_demanded`).
 """
 
 from __future__ import annotations
@@ -30,7 +33,7 @@ from benchfit.fitting.order import Context
 from benchfit.fitting.problem import Problem, prepare
 from benchfit.fitting.pruning import final
 from benchfit.fitting.result import FitResult
-from benchfit.fitting.selection import unstable_wins
+from benchfit.fitting.selection import unstable_demanded, unstable_wins
 
 
 def _check_options(order, delay, weighting, integrators) -> None:
@@ -59,6 +62,7 @@ def fit(
     weighting: str = "relative",
     integrators: int | str = 0,
     bounds: dict[str, tuple[float, float]] | None = None,
+    stable: bool | None = None,
 ) -> FitResult:
     """Fit a pole/zero model (with optional delay) to a measured response.
 
@@ -83,6 +87,12 @@ def fit(
         Poles fixed at the origin (a measured loop gain), or ``"auto"``.
     bounds
         (lower, upper) limits per parameter name.
+    stable
+        True: every pole in the left half-plane; False: poles where the data
+        put them; None (default): True for passive data (an impedance, a
+        Touchstone S-parameter never above 1), else False.  A right-half-plane
+        pole in a result is always a warning saying whether the data demand
+        it (:func:`benchfit.fitting.selection.unstable_demanded`).
 
     Returns
     -------
@@ -98,8 +108,11 @@ def fit(
     if not isinstance(resp, FrequencyResponse):
         raise InputError(f"expected a FrequencyResponse, got {type(resp).__name__}")
     _check_options(order, delay, weighting, integrators)
-    pb = prepare(resp, order, delay, band, fix, weighting, integrators, bounds)
+    pb = prepare(resp, order, delay, band, fix, weighting, integrators, bounds, stable)
     result = _fit_with(pb, pb.ctx)
+    if pb.stable:
+        return replace(result, notes=(*result.notes, "poles held in the left half-plane (" + (
+            "--stable)" if stable else "passive data; --no-stable lets them go anywhere)")))
     if result.stats["mirrored_poles"]:
         # Vector fitting had to mirror right-half-plane poles: the plant may really be
         # unstable.  Fit again keeping such poles where the data put them.
@@ -107,7 +120,32 @@ def fit(
         if unstable_wins(result, alt):
             result = replace(alt, notes=(*alt.notes, "fitted again without mirroring right-half-"
                                          "plane poles: the plant appears to be unstable"))
+    if not result.model.is_stable:
+        result = _stability_verdict(pb, result)
     return result
+
+
+def _stability_verdict(pb: Problem, unstable: FitResult) -> FitResult:
+    """An unstable result against the best stable fit of the same data.
+
+    The stable fit replaces it when the data do not prefer the unstable one
+    by the information criterion; otherwise the unstable result stays with a
+    warning that says whether the data demand its right-half-plane poles
+    (:func:`benchfit.fitting.selection.unstable_demanded`).
+    """
+    n_rhp = int(np.sum(unstable.model.poles.real > 0))
+    stable = _fit_with(replace(pb, stable=True), replace(pb.ctx, mirror=True))
+    demanded, margin = unstable_demanded(unstable, stable)
+    if margin <= 0:
+        return replace(stable, notes=(*stable.notes, f"a stable model fits as well (BIC "
+                                      f"{-margin:.1f} lower) as one with {n_rhp} right-half-plane "
+                                      "pole(s); the stable one is kept"))
+    verdict = (f"the data demand them: the best stable fit's BIC is {margin:.0f} higher "
+               f"(residual {stable.stats['residual_over_floor']:.2f}× the noise floor)" if demanded
+               else f"the data do not clearly demand them: the best stable fit's BIC is only "
+               f"{margin:.1f} higher; --stable holds the poles in the left half-plane")
+    return replace(unstable, warnings=(*unstable.warnings, f"the model has {n_rhp} right-half-"
+                                       f"plane pole(s) (unstable); {verdict}"))
 
 
 def _fit_with(pb: Problem, ctx: Context) -> FitResult:

@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from benchfit.data.response import FrequencyResponse
-from benchfit.errors import FitError
+from benchfit.errors import FitError, InputError
 from benchfit.fitting.order import Context
 from benchfit.fitting.parameters import TWO_PI, Structure
 from benchfit.fitting.refine import Refined, refine
@@ -70,6 +70,7 @@ class Problem:
     settings: dict[str, Any]
     sig_abs: np.ndarray | None = None
     idx: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=int))
+    stable: bool = False
 
     @property
     def f(self) -> np.ndarray:
@@ -92,6 +93,28 @@ class Problem:
         """True when the user fixes or bounds a parameter whose name starts with a prefix."""
         return any(key.startswith(prefixes) for key in (*self.fixed, *self.bounds))
 
+    def bounds_for(self, st: Structure) -> dict[str, tuple[float, float]]:
+        """The user's bounds, and with :attr:`stable` every pole frequency and pair Q
+        held at or above zero (left half-plane) for the parameters of ``st``."""
+        if not self.stable:
+            return self.bounds
+        out = dict(self.bounds)
+        for nm in st.names:
+            if nm.startswith("pole") or (nm.startswith("pair") and nm.endswith(("_hz", "_q"))):
+                lo, hi = out.get(nm, (-np.inf, np.inf))
+                out[nm] = (max(lo, 0.0), hi)
+        return out
+
+    def evaluate(self, st: Structure, values: np.ndarray, idx: np.ndarray | None = None
+                 ) -> Refined:
+        """χ² of ``values`` as they are (nothing refined) on the points ``idx``."""
+        fix = dict(zip(st.names, np.asarray(values, dtype=float), strict=True))
+        sel = slice(None) if idx is None else idx
+        s = 1j * TWO_PI * self.f[sel]
+        return refine(st, values, s, self.h[sel], self.sigma.mag[sel], self.sigma.phase[sel],
+                      fix=fix, weighting=self.weighting,
+                      sig_abs=None if self.sig_abs is None else self.sig_abs[sel])
+
     def refiner(self, idx: np.ndarray | None = None, quick: bool = False) -> Refiner:
         """``(structure, values, max_nfev=200) -> Refined`` on the points ``idx`` (all when
         None).  ``quick``: scipy's least squares directly, for trial refinements that
@@ -104,15 +127,34 @@ class Problem:
 
         def run(st: Structure, values: np.ndarray, max_nfev: int = 200) -> Refined:
             return refine(st, values, s[sel], h[sel], sig.mag[sel], sig.phase[sel],
-                          fix=self.fixed, bounds=self.bounds, weighting=self.weighting,
+                          fix=self.fixed, bounds=self.bounds_for(st), weighting=self.weighting,
                           sig_abs=sig_abs, max_nfev=max_nfev, quick=quick)
 
         return run
 
 
+def passive(resp: FrequencyResponse) -> bool:
+    """True when the data are of a passive device, whose model must be stable.
+
+    Evidence weighed: the quantity (an impedance is passive, common practice),
+    or a Touchstone scattering parameter whose magnitude never exceeds 1 (a
+    passive network does not amplify; a |S| > 1 anywhere may be an amplifier).
+    """
+    if resp.quantity == "impedance":
+        return True
+    dialect = (resp.meta or {}).get("dialect") or {}
+    param = str(dialect.get("parameter", ""))
+    return bool(str(dialect.get("format", "")).startswith("touchstone") and param.startswith("S")
+                and np.max(np.abs(resp.response)) <= 1.0)
+
+
 def prepare(resp: FrequencyResponse, order: int | str, delay: float | str, band, fix,
-            weighting: str, integrators: int | str, bounds) -> Problem:
+            weighting: str, integrators: int | str, bounds, stable: bool | None = None
+            ) -> Problem:
     """Check the band's data and build the :class:`Problem` (σ, VF context, options).
+
+    ``stable``: force left-half-plane poles; None (default) forces them for
+    :func:`passive` data only.
 
     Raises
     ------
@@ -123,7 +165,8 @@ def prepare(resp: FrequencyResponse, order: int | str, delay: float | str, band,
     settings: dict[str, Any] = {"order": order, "delay": delay, "band": list(band) if band else None,
                                 "fix": dict(fix or {}), "weighting": weighting,
                                 "integrators": integrators,
-                                "bounds": {k: list(v) for k, v in (bounds or {}).items()}}
+                                "bounds": {k: list(v) for k, v in (bounds or {}).items()},
+                                "stable": stable}
     if band is not None:
         resp = resp.band(*band)
     f, h = resp.freq_hz, resp.response
@@ -156,6 +199,23 @@ def prepare(resp: FrequencyResponse, order: int | str, delay: float | str, band,
         # σ/√2 into each of the real and imaginary parts the residual is made of.
         sig_abs = resp.stddev / np.sqrt(2.0) if resp.stddev is not None else np.full(
             n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
+    force = passive(resp) if stable is None else bool(stable)
+    if force:
+        _check_stable_options(fixed, dict(bounds or {}))
     return Problem(resp=resp, sigma=sigma, ctx=ctx, order=order, delay=delay, fixed=fixed,
                    bounds=dict(bounds or {}), weighting=weighting, settings=settings,
-                   sig_abs=sig_abs, idx=ctx.subsample_index(SCAN_POINTS))
+                   sig_abs=sig_abs, idx=ctx.subsample_index(SCAN_POINTS), stable=force)
+
+
+def _check_stable_options(fixed: dict[str, float], bounds: dict[str, tuple[float, float]]) -> None:
+    """A right-half-plane pole the user fixes or bounds cannot be honoured with a stable model."""
+    for name, value in fixed.items():
+        if name.startswith(("pole", "pair")) and not name.endswith("f0_hz") and value < 0:
+            raise InputError(f"{name}={value:g} is a right-half-plane pole, but the model is held "
+                             "stable (--stable, the default for passive data; --no-stable "
+                             "allows it)", source="--fix")
+    for name, (_, hi) in bounds.items():
+        if name.startswith(("pole", "pair")) and not name.endswith("f0_hz") and hi < 0:
+            raise InputError(f"{name} bounded below zero is a right-half-plane pole, but the "
+                             "model is held stable (--stable, the default for passive data; "
+                             "--no-stable allows it)", source="--bound")

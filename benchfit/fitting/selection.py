@@ -20,7 +20,8 @@ import numpy as np
 
 from benchfit.fitting.groups import RHP_NEAR_TOP, cancelling, groups_above, in_groups, unidentified
 from benchfit.fitting.order import CHI_OK, NEGLIGIBLE, PLATEAU, Attempt
-from benchfit.fitting.parameters import Structure
+from benchfit.fitting.delay import DELAY_MIN_PHASE
+from benchfit.fitting.parameters import TWO_PI, Structure
 from benchfit.fitting.problem import Problem
 from benchfit.fitting.refine import Refined
 from benchfit.fitting.result import FitResult
@@ -170,3 +171,35 @@ def unstable_wins(mirrored: FitResult, unmirrored: FitResult) -> bool:
     chi, alt_chi = mirrored.stats["residual_over_floor"], unmirrored.stats["residual_over_floor"]
     return bool((chi > UNSTABLE_RETRY and (alt_chi <= CHI_OK or alt_chi < 0.5 * chi))
                 or result_bic(unmirrored) < result_bic(mirrored) - CLOSE_CALL)
+
+
+def delay_worth_testing(tau0_s: float, f_max_hz: float, chi_without: float | None = None
+                        ) -> bool:
+    """True when a delay is a hypothesis to fit beside the no-delay one.
+
+    Evidence weighed: the excess-phase estimate ``tau0_s``
+    (:func:`benchfit.fitting.delay.excess_phase_delay`) when its phase at the
+    top of the band reaches :data:`~benchfit.fitting.delay.DELAY_MIN_PHASE`;
+    or, given ``chi_without`` (the no-delay scan's normalised residual), a
+    residual that stays above the noise floor
+    (:data:`~benchfit.fitting.order.CHI_OK`): the phase estimate is rough
+    near resonances, and a missed delay leaves structure in the residual.
+    Which hypothesis wins is then the information criterion's call
+    (:func:`benchfit.fitting.hypotheses.choose`).
+    """
+    if tau0_s * TWO_PI * f_max_hz >= DELAY_MIN_PHASE:
+        return True
+    return chi_without is not None and bool(np.isfinite(chi_without) and chi_without > CHI_OK)
+
+
+def unstable_demanded(unstable: FitResult, stable: FitResult) -> tuple[bool, float]:
+    """Whether the data demand the right-half-plane poles of ``unstable``, and by how much.
+
+    Evidence weighed: the BIC of both fits on every point
+    (:func:`result_bic`).  Returns ``(demanded, margin)`` with ``margin`` the
+    stable fit's BIC minus the unstable one's; demanded when the margin
+    exceeds :data:`CLOSE_CALL` ("very strong" evidence, Kass & Raftery 1995).
+    A margin at or below zero means the stable fit is as good or better.
+    """
+    margin = result_bic(stable) - result_bic(unstable)
+    return bool(margin > CLOSE_CALL), float(margin)
