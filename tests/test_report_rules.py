@@ -196,3 +196,18 @@ def test_predicted_frequency_curves_cover_the_measured_band(tmp_path, capsys):
     c = read_curve_csv(tmp_path / "c.csv")
     assert c.x[0] >= 10.0 and c.x[-1] <= 1e6 and c.x.size > 100
     assert "(the plant's measured band)" in out and "e+" not in out
+
+
+def test_simulated_scope_keeps_the_replayed_channels_name(tmp_path, capsys):
+    """`scope --simulate FILE --sim-channel CH2` stores CH2 (it stored CH1), and says what it replayed."""
+    from benchfit.cli import main
+    from benchfit.cli.cmd_scope import replay_channel_name
+    from benchfit.data import read_trace
+
+    assert replay_channel_name("ch2") == "CH2" and replay_channel_name("Vout AC") == "CH1"
+    assert replay_channel_name(None) == "CH1"
+    out = tmp_path / "t.csv"
+    assert main(["scope", "--simulate", str(SAMPLES / "step_trace.csv"), "--sim-channel", "CH2",
+                 "-o", str(out)]) == 0
+    assert read_trace(out).names == ["CH2"]
+    assert "replaying CH2 of" in capsys.readouterr().out
