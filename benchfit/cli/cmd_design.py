@@ -18,6 +18,7 @@ from benchfit.cli.values import (
     Range,
     argtype,
     count,
+    output,
     pair,
     parse_range,
     quote,
@@ -63,7 +64,7 @@ def register(subparsers) -> None:
     p.add_argument("--min-yield", type=value(PERCENT, Range(gt=0, le=100)), metavar="PCT",
                    help="design for more margin until this percentage of the Monte Carlo draws "
                         "meets the targets (e.g. 95; default: design at the targets)")
-    p.add_argument("-o", "--output", type=text, metavar="JSON", help="write the design here")
+    p.add_argument("-o", "--output", type=output, metavar="JSON", help="write the design here")
     add_stage_args(p)
     add_json_flag(p)
     p.set_defaults(func=run)
