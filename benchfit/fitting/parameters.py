@@ -32,6 +32,27 @@ TWO_PI = 2.0 * np.pi
 _REAL_TOL = 1e-9
 
 
+_LABEL_FORMS = (("zero_pair", "_f0_hz", "zero pair {i}, natural frequency"), ("zero_pair", "_q", "zero pair {i}, Q"),
+                ("pair", "_f0_hz", "pole pair {i}, natural frequency"), ("pair", "_q", "pole pair {i}, Q"),
+                ("pole", "_hz", "real pole {i}"), ("zero", "_hz", "real zero {i}"))
+
+
+def parameter_label(name: str) -> str:
+    """What a person reads for a parameter name: 'pair1_f0_hz' -> 'pole pair 1, natural frequency'.
+
+    The stable names (above) stay in JSON and ``--fix``; every human view uses these.
+    """
+    if name == "gain":
+        return "gain"
+    if name == "delay_s":
+        return "delay"
+    for head, tail, form in _LABEL_FORMS:
+        mid = name[len(head):-len(tail)] if name.startswith(head) and name.endswith(tail) else ""
+        if mid.isdigit():
+            return form.format(i=int(mid))
+    return name
+
+
 @dataclass(frozen=True)
 class Structure:
     """How many factors of each kind a model has (fixes the parameter layout)."""
@@ -261,3 +282,24 @@ def log_jacobian(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray
     if st.delay:
         jac[:, i] = -s
     return jac
+
+
+def renumbering(st: Structure, values: np.ndarray) -> np.ndarray:
+    """Index permutation that numbers each group from the lowest frequency up.
+
+    ``values[perm]`` are the same model's values with real poles, pole pairs,
+    real zeros and zero pairs each in order of |frequency| (stable for ties),
+    the order :func:`from_zpk` gives and the parameter names promise; the
+    refinement moves values and can leave ``pole1_hz`` above ``pole2_hz``.
+    """
+    v = np.asarray(values, dtype=float)
+    perm = np.arange(v.shape[0])
+    i = 1
+    for n, width in ((st.real_poles, 1), (st.pole_pairs, 2), (st.real_zeros, 1),
+                     (st.zero_pairs, 2)):
+        starts = i + width * np.arange(n)
+        order = starts[np.argsort(np.abs(v[starts]), kind="stable")]
+        for k in range(width):
+            perm[starts + k] = order + k
+        i += width * n
+    return perm

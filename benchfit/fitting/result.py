@@ -8,10 +8,11 @@ from typing import Any
 
 import numpy as np
 
+from benchfit import numfmt
 from benchfit.errors import InputError
 from benchfit.fileio import as_float, malformed_as_input_error, read_json, write_json_atomic
 from benchfit.fitting.model import PlantModel
-from benchfit.fitting.parameters import Structure, response
+from benchfit.fitting.parameters import Structure, parameter_label, response
 from benchfit.provenance import Provenance
 
 #: Statistics keys every FitResult carries.
@@ -123,6 +124,12 @@ class FitResult:
                 return p
         raise KeyError(f"no parameter {name!r}; have {', '.join(p.name for p in self.parameters)}")
 
+    @property
+    def undetermined(self) -> tuple[str, ...]:
+        """Varied parameters the data cannot determine (their σ is NaN, JSON null)."""
+        return tuple(p.name for p in self.parameters
+                     if not p.fixed and p.name in self.varied and not np.isfinite(p.stderr))
+
     def response(self, freq_hz: np.ndarray) -> np.ndarray:
         """Model response at ``freq_hz`` (Hz)."""
         return self.model.response(freq_hz)
@@ -153,12 +160,16 @@ class FitResult:
         names = [p.name for p in self.parameters]
         idx = [names.index(v) for v in self.varied]
         cov = np.asarray(self.covariance, dtype=float)
-        if idx and np.all(np.isfinite(cov)):
+        # Parameters the data do not determine (NaN rows) stay at their values; the
+        # others' covariance is the one with those held (see fitting.uncertainty).
+        known = [k for k in range(len(idx)) if np.isfinite(cov[k, k])] if idx else []
+        if known:
+            sub = cov[np.ix_(known, known)]
             # eigh-based square root tolerates a (numerically) singular covariance.
-            evals, evecs = np.linalg.eigh(0.5 * (cov + cov.T))
+            evals, evecs = np.linalg.eigh(0.5 * (sub + sub.T))
             root = evecs * np.sqrt(np.clip(evals, 0.0, None))
-            z = rng.standard_normal((int(n), len(idx)))
-            draws[:, idx] += z @ root.T
+            z = rng.standard_normal((int(n), len(known)))
+            draws[:, [idx[k] for k in known]] += z @ root.T
         return response(st, draws, 2j * np.pi * f)
 
     # ----- report -------------------------------------------------------------------
@@ -172,18 +183,23 @@ class FitResult:
         lines = [f"fit of {src}: order {st.get('order')}"
                  + (f" (+{self.integrators} integrator{'s' * (self.integrators > 1)})"
                     if self.integrators else "")
-                 + f", {st.get('points')} points, {st.get('f_min_hz', 0):.4g}..{st.get('f_max_hz', 0):.4g} Hz",
+                 + f", {st.get('points')} points, {numfmt.eng(st.get('f_min_hz', 0), 'Hz')} to "
+                 f"{numfmt.eng(st.get('f_max_hz', 0), 'Hz')}",
                  "",
-                 f"  {'parameter':<18} {'value':>13} {'± 1σ':>11} {'rel':>8}  unit"]
+                 f"  {'parameter':<32} {'value':>12} {'± 1σ':>14} {'relative':>9}  key (--fix, JSON)"]
         for p in self.parameters:
+            unit = p.unit or ""
             if p.fixed:
                 err, rel = "fixed", ""
             elif np.isfinite(p.stderr):
-                err = f"{p.stderr:.3g}"
-                rel = f"{abs(p.stderr / p.value) * 100:.2g}%" if p.value else ""
+                err = numfmt.quantity(p.stderr, unit, 2)
+                rel = f"{numfmt.sig(abs(p.stderr / p.value) * 100, 2)} %" if p.value else ""
+            elif p.name in self.varied:
+                err, rel = "not determined", ""
             else:
-                err, rel = "n/a", ""
-            lines.append(f"  {p.name:<18} {p.value:>13.6g} {err:>11} {rel:>8}  {p.unit}")
+                err, rel = "not estimated", ""
+            lines.append(f"  {parameter_label(p.name):<32} {numfmt.quantity(p.value, unit, numfmt.FIT_DIGITS):>12} "
+                         f"{err:>14} {rel:>9}  {p.name}")
         strong = []
         c = np.asarray(self.correlation)
         for i in range(len(self.varied)):
@@ -226,6 +242,7 @@ class FitResult:
             "notes": list(self.notes),
             "order_scan": [dict(d) for d in self.order_scan],
             "varied": list(self.varied),
+            "undetermined": list(self.undetermined),
             "covariance": np.asarray(self.covariance).tolist(),
             "correlation": np.asarray(self.correlation).tolist(),
             "integrators": self.integrators,
