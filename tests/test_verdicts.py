@@ -247,3 +247,25 @@ def test_shipped_sample_plant_zero_tolerance_is_the_nominal():
     assert s.yield_fraction == (1.0 if d.targets_met else 0.0)
     assert s.percentiles["pm_deg"]["p50"] == pytest.approx(nominal.phase_margin_deg, abs=1e-9)
     assert s.percentiles["gm_db"]["p50"] == pytest.approx(nominal.gain_margin_db, abs=1e-9)
+
+
+def test_margins_command_reports_the_verdict_and_takes_a_stated_count(tmp_path, capsys):
+    import json
+
+    from benchfit.cli import main
+    from benchfit.data import FrequencyResponse, write_sweep_csv
+
+    model = double_integrator_loop()
+    f = np.logspace(1, 5, 801)
+    path = tmp_path / "loop.csv"
+    write_sweep_csv(FrequencyResponse(f, noisy(model.response(f), 0.1, 0.5, 3), quantity="loop"),
+                    path)
+    assert main(["margins", str(path), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["verdict"] == "stable" and d["integrators"] == 2
+    assert "low-frequency asymptote" in d["integrators_evidence"]
+    # a wrong count stated by the user is used, and the low end says it does not fit
+    assert main(["margins", str(path), "--json", "--integrators", "1"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["integrators"] == 1 and d["integrators_evidence"] == "1 integrator(s), given"
+    assert any("asymptote" in w for w in d["warnings"])
