@@ -87,6 +87,9 @@ class Asymptote:
                f"{self.phase_deg:.0f} deg, fitted over {where}")
         if self.decided:
             return f"{self.n} integrator(s) from the low-frequency asymptote ({how})"
+        if len(self.plausible) == 1:
+            return (f"{self.n} integrator(s), the only count the low end allows, though it has "
+                    f"not reached a clean asymptote ({how})")
         return (f"the low end of the sweep does not decide the integrator count: "
                 f"{' or '.join(str(k) for k in self.plausible)} fit ({how})")
 

@@ -180,6 +180,10 @@ class Margins:
             f"at {num(self.modulus_freq_hz, '.4g', 'Hz')}",
             f"closed loop     {self._verdict_word()} "
             f"(open-loop RHP poles {self.open_loop_unstable_poles}, encirclements of -1: {self.encirclements})",
+        ]
+        if self.integrators_evidence:
+            lines.append(f"integrators     {self.integrators_evidence}")
+        lines += [
             "crossings:",
         ]
         quiet = []      # phase crossings far below 0 dB (a delay's spinning phase): summarised
