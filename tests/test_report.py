@@ -24,12 +24,12 @@ from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.sensing import Sensing
 from benchfit.loop.synthesis import Targets
+from benchfit.numfmt import db, deg, eng
 from benchfit.output.assemble import assemble
 from benchfit.output.report import render_html, render_pdf, write_report
 from benchfit.output.report_figures import report_figures
 from benchfit.output.report_inputs import ReportInputs
 from benchfit.output.spread_draws import spread_draws
-from benchfit.numfmt import db, deg, eng
 
 W = 2 * np.pi
 EVIL = "<script>alert(1)</script>.csv"

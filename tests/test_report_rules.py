@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from matplotlib.figure import Figure
@@ -131,3 +133,52 @@ def _small_design():
     lp = LoopPlant(plant, Sensing.divider(10e3, 3.24e3), band_hz=(10.0, 1e6))
     return design(lp, "type3", Targets(crossover_hz=20e3, phase_margin_deg=55, gain_margin_db=10),
                   series=("E96", "E24"), draws=200, seed=7)
+
+
+# ----- what is not defined, said in words ------------------------------------------------------
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_data"
+
+
+def test_margins_text_says_why_the_gain_margin_is_not_defined(capsys):
+    from benchfit.cli import main
+
+    assert main(["margins", str(SAMPLES / "ldo_loop.csv")]) == 0
+    out = capsys.readouterr().out
+    assert "gain margin     not defined in the measured band: no phase crossing (∠T = −180°) below 2 MHz" in out
+    assert "n/a" not in out and "none at" not in out
+
+
+def test_step_text_says_why_the_log_decrement_is_not_defined():
+    from benchfit.steps.result import _ringing_text
+
+    freq, dec = _ringing_text(float("nan"), float("nan"), 1)
+    assert dec == "not defined: only 1 ringing lobe above the noise; it needs two"
+    assert "nan" not in freq + dec
+    assert _ringing_text(8e3, 0.9, 4) == ("8 kHz", "0.9 (from 4 lobes)")
+
+
+# ----- the safety caution and the K-factor reference ---------------------------------------------
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.mark.parametrize("command", ["capture", "scope"])
+def test_help_of_live_measurements_carries_the_caution(command, capsys):
+    from benchfit.cli import main
+    from benchfit.safety import CAUTION
+
+    assert main([command, "--help"]) == 0
+    out = " ".join(capsys.readouterr().out.split())
+    assert CAUTION in out and "README.md (Safety)" in out and "docs/capture.md" in out
+
+
+def test_docs_carry_the_caution_and_the_full_reference():
+    from benchfit.output.report import SAFETY_NOTE
+    from benchfit.safety import CAUTION
+
+    assert SAFETY_NOTE == CAUTION
+    steps = (ROOT / "docs" / "steps.md").read_text(encoding="utf-8")
+    assert "**Safety.**" in steps and "capture.md" in steps and "README" in steps
+    design_doc = " ".join((ROOT / "docs" / "design.md").read_text(encoding="utf-8").split())
+    # the reference as tests/test_synthesis.py gives it
+    assert ('H. Dean Venable, "The K factor: a new mathematical tool for stability analysis and '
+            'synthesis", Proceedings of Powercon 10, 1983') in design_doc

@@ -92,3 +92,57 @@ def run_stage(args: argparse.Namespace) -> int:
         text += f"\nwrote {args.output}"
     emit(args, d.to_dict(), text)
     return 0
+
+
+def is_stage_design(path: str) -> bool:
+    """True when ``path`` is a JSON file of kind 'stage_design' (report and predict hand over)."""
+    import json
+
+    try:
+        with open(path, encoding="utf-8") as fh:
+            head = fh.read(200_000)
+        return json.loads(head).get("kind") == "stage_design"
+    except (OSError, ValueError, AttributeError):
+        return False  # the command's own reader reports what is wrong with the file
+
+
+def run_stage_report(args: argparse.Namespace) -> int:
+    """`benchfit report` of a stage design: one HTML page (no PDF)."""
+    from pathlib import Path
+
+    from benchfit.data import read_sweep, read_trace
+    from benchfit.loop.stage import StageDesign
+    from benchfit.output.stage_report import write_stage_report
+
+    if args.pdf or args.fit or args.zout:
+        raise InputError("a stage report takes --trace, --load-trace, --sweep (measured closed "
+                         "loop), --load-step and --title", source="--pdf" if args.pdf else
+                         ("--fit" if args.fit else "--zout"))
+    d = StageDesign.from_json(args.design)
+    out = Path(args.output) if args.output else Path(args.design).with_name("report.html")
+    res = write_stage_report(d, out, title=args.title,
+                             step_trace=read_trace(args.trace) if args.trace else None,
+                             step_channel=args.channel,
+                             load_trace=read_trace(args.load_trace) if args.load_trace else None,
+                             load_channel=args.load_channel,
+                             measured_closed=read_sweep(args.sweep) if args.sweep else None,
+                             load_step_a=args.load_step or 0.01)
+    emit(args, res, f"wrote {res['html']}")
+    return 0
+
+
+def run_stage_predict(args: argparse.Namespace) -> int:
+    """`benchfit predict` of a stage design: one curve as CSV."""
+    from benchfit.loop.stage import StageDesign
+    from benchfit.output.curves import write_curve_csv
+    from benchfit.output.plot_stage import stage_curve
+
+    if args.zout:
+        raise InputError("a stage design knows its output impedance from the load it was "
+                         "designed with", source="--zout")
+    d = StageDesign.from_json(args.design)
+    curve = stage_curve(d, args.curve, which=args.parts, step_v=args.step, load_step_a=args.load_step)
+    path = write_curve_csv(curve, args.output)
+    emit(args, {"output": str(path), "curve": args.curve, "name": curve.name,
+                "points": int(curve.x.size)}, f"wrote {path}: {curve.name}, {curve.x.size} points")
+    return 0

@@ -110,16 +110,16 @@ def _decide_mag(values: np.ndarray, col: Column, override: str, lines: np.ndarra
             form = "db"
         else:
             form = "linear"
-            warnings.append(f"magnitude column {col.name!r} states no unit and has no negative "
+            warnings.append(f"magnitude column {quote(col.name)} states no unit and has no negative "
                             "value, so it was read as linear; use mag='db' (--mag-db) if it is dB")
     if form == "linear" and np.any(values < 0):
         i = int(np.flatnonzero(values < 0)[0])
         raise InputError(f"linear magnitude {values[i]:g} is negative; expected >= 0 (if the column "
-                         "is in dB, use --mag-db)", source=source, line=int(lines[i]), column=col.name)
+                         "is in dB, use --mag-db)", source=source, line=int(lines[i]), column=cut(col.name, 40))
     if form == "db" and values.size >= 3 and np.all(values > 0) and values.max() > 100 * values.min():
         # A dB column holding only positive values spread over decades is more likely a linear
         # magnitude (common practice, no source); a warning only.
-        warnings.append(f"magnitude column {col.name!r} is read as dB but looks linear (all values "
+        warnings.append(f"magnitude column {quote(col.name)} is read as dB but looks linear (all values "
                         f"between {values.min():.3g} and {values.max():.3g}); use --mag-linear if so")
     return form
 
@@ -142,7 +142,7 @@ def _decide_phase(values: np.ndarray, col: Column, override: str, warnings: list
         peak = float(np.max(np.abs(values)))
         if 0.2 < peak <= np.pi * 1.001:
             form = "rad"
-            warnings.append(f"phase column {col.name!r} states no unit and stays within ±π; read as "
+            warnings.append(f"phase column {quote(col.name)} states no unit and stays within ±π; read as "
                             "radians (use --phase-deg if it is degrees)")
         else:
             form = "deg"

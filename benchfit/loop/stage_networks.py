@@ -275,7 +275,8 @@ class StageNetwork:
             raise InputError("the compensator's polynomial form is model(); sample it with VALUES")
         h = self.loop_factor(alg, values)
         d = self.aol_divider(alg)
-        return Frac(h.value() / d.value(), None, VALUES)
+        # a resistive network does not depend on s: broadcast it over the frequencies
+        return Frac(h.value() / d.value() * np.ones_like(np.asarray(alg.s)), None, VALUES)
 
     def response(self, freq_hz: np.ndarray, opamp: Any = None,
                  values: dict[str, Any] | None = None) -> np.ndarray:

@@ -52,8 +52,8 @@ from typing import Any
 import numpy as np
 
 from benchfit.errors import DesignError, InputError
-from benchfit.loop.closure import rate_of_closure_db
 from benchfit.loop.choices import METHODS
+from benchfit.loop.closure import rate_of_closure_db
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import Network, check_kind
 from benchfit.loop.opamp import OpAmp

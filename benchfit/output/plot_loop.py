@@ -16,12 +16,12 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Circle
 
 from benchfit.data.response import FrequencyResponse
-from benchfit.loop.margins import Margins
-from benchfit.output import style
-from benchfit.output.plot_common import FREQ_LABEL, phase_ticks, sampled
 from benchfit.loop.closure import rate_of_closure_db
+from benchfit.loop.margins import Margins
 from benchfit.numfmt import db, db_per_decade, deg, eng, sig
+from benchfit.output import style
 from benchfit.output.placement import free_annotation, free_note
+from benchfit.output.plot_common import FREQ_LABEL, phase_ticks, sampled
 from benchfit.output.style import log_axis, new_figure, styled
 
 _LABEL_BOX = {"boxstyle": "round,pad=0.25", "fc": "white", "ec": "none", "alpha": 0.85}

@@ -8,11 +8,11 @@ from collections.abc import Sequence
 import numpy as np
 from matplotlib.figure import Figure
 
+from benchfit.numfmt import db, deg, eng, pct
 from benchfit.output import style
 from benchfit.output.curves import Curve
-from benchfit.output.plot_common import FREQ_LABEL, time_scale
-from benchfit.numfmt import db, deg, eng, pct
 from benchfit.output.placement import free_annotation, free_note
+from benchfit.output.plot_common import FREQ_LABEL, time_scale
 from benchfit.output.style import ENG_FORMATTER, log_axis, new_figure, styled
 
 _NOTE_BOX = {"boxstyle": "round,pad=0.35", "facecolor": "white", "edgecolor": "#999999", "alpha": 0.95}

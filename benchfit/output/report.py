@@ -23,19 +23,17 @@ from matplotlib.figure import Figure
 
 from benchfit import __version__
 from benchfit.fileio import to_json_text, write_bytes_atomic, write_text_atomic
-from benchfit.output.report_figures import ReportFigure, report_figures
-from benchfit.output.report_inputs import ReportInputs
 from benchfit.fitting.parameters import parameter_label
 from benchfit.loop.networks import network_label
 from benchfit.numfmt import FIT_DIGITS, db, deg, eng, pct, quantity, sig, unit_symbol
+from benchfit.output.report_figures import ReportFigure, report_figures
+from benchfit.output.report_inputs import ReportInputs
 from benchfit.output.style import new_figure, plot_style
 from benchfit.output.summary import design_summary, rate_of_closure_text, summary_lines
+from benchfit.safety import CAUTION
 
 #: The short caution every report ends with (the full text: README.md "Safety", docs/capture.md).
-SAFETY_NOTE = ("Safety: loop and step measurements on live, possibly mains-powered converters put the "
-               "instruments and you at the circuit's potential; use isolated injection and rated probes, "
-               "and keep the injected level small. See README.md (Safety) and docs/capture.md "
-               "(Safety first).")
+SAFETY_NOTE = CAUTION
 
 _CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",sans-serif;color:#1a1a1a;
