@@ -219,3 +219,23 @@ def test_passive_data_are_impedances_and_scattering_never_above_one():
     assert passive(s)
     amp = FrequencyResponse(freq_hz=f, response=5.0 / (1 + 1j * f / 1e8), meta=meta)
     assert not passive(amp)
+
+
+def test_drop_far_tests_groups_beyond_3x_on_the_data():
+    # Data: 1/((1+s/ω1k)(1+s/ω350k)) over 10 Hz..100 kHz, 0.01 dB / 0.05 deg noise.
+    from benchfit.fitting.hypotheses import drop_far
+
+    m = from_factors(1.0, poles_hz=(1e3, 350e3))
+    r = sweep(m, np.geomspace(10, 1e5, 201), noise_db=0.01, noise_deg=0.05,
+              rng=np.random.default_rng(7))
+    pb = prepare(r, "auto", "none", None, None, "relative", 0, None)
+    st = Structure(real_poles=2, real_zeros=1)
+    v = np.array([1.0, 1e3, 350e3, 1e12])             # a zero at 1e7 x f_max: nothing in band
+    st2, v2, notes = drop_far(pb, st, v, None)
+    assert st2.names == ("gain", "pole1_hz", "pole2_hz") and notes
+    st3, _, notes3 = drop_far(pb, st2, v2, None)      # the 350 kHz pole costs 3.8 deg: kept
+    assert st3 == st2 and not notes3
+    pb2 = prepare(r, 2, "none", None, None, "relative", 0, None)
+    assert drop_far(pb2, st, v, None)[0] == st2       # zeros may go with --order N
+    assert drop_far(pb2, Structure(real_poles=3), np.array([1.0, 1e3, 350e3, 1e12]),
+                    None)[0].real_poles == 3          # poles may not

@@ -18,6 +18,7 @@ from benchfit.cli.values import (
     Range,
     argtype,
     count,
+    output,
     pair,
     parse_range,
     quote,
@@ -67,7 +68,7 @@ def register(subparsers) -> None:
                    help="crossings that must meet the targets (targets met, snapping, yield): "
                         "all (default: every gain crossing the phase margin, every phase "
                         "crossing the gain margin), main, or a band FMIN:FMAX")
-    p.add_argument("-o", "--output", type=text, metavar="JSON", help="write the design here")
+    p.add_argument("-o", "--output", type=output, metavar="JSON", help="write the design here")
     add_stage_args(p)
     add_json_flag(p)
     p.set_defaults(func=run)
