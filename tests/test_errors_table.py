@@ -52,6 +52,8 @@ def scratch(tmp_path_factory):
     (d / "sweep.csv").write_text(HEAD + "".join(
         f"{x:.6g},{20 * np.log10(abs(h)):.4f},{np.degrees(np.angle(h)):.3f}\n" for x, h in zip(f, noisy, strict=True)))
     (d / "folder").mkdir()
+    if hasattr(os, "mkfifo"):
+        os.mkfifo(d / "pipe")   # a special file where an output belongs
     (d / "lot").mkdir()
     write_sweep_csv(FrequencyResponse(freq_hz=f, response=noisy), d / "lot" / "unit1.csv")
     (d / "empty.csv").write_bytes(b"")

@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.cli.values import CURRENT, NONZERO, text, value
+from benchfit.cli.values import CURRENT, NONZERO, output, text, value
 
 
 def register(subparsers) -> None:
@@ -16,7 +16,7 @@ def register(subparsers) -> None:
                     "the part list (ideal and snapped), predicted margins with their spread, the "
                     "pictures and the warnings. It needs no network access to view.")
     p.add_argument("design", metavar="DESIGN_JSON", help="design file written by 'benchfit design'")
-    p.add_argument("-o", "--output", type=text, metavar="HTML", help="report file (default: report.html beside the design)")
+    p.add_argument("-o", "--output", type=output, metavar="HTML", help="report file (default: report.html beside the design)")
     p.add_argument("--pdf", action="store_true", help="also write the same report as PDF (same name, .pdf)")
     p.add_argument("--fit", type=text, metavar="FIT_JSON", help="the plant's fit result (parameter table, fit picture)")
     p.add_argument("--sweep", type=text, metavar="SWEEP", help="the measured plant sweep (measured-vs-model picture)")

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.cli.values import NON_NEGATIVE, VOLTAGE, text, value
+from benchfit.cli.values import NON_NEGATIVE, VOLTAGE, output, text, value
 from benchfit.errors import InputError
 from benchfit.safety import CAUTION
 
@@ -22,7 +22,7 @@ def register(subparsers) -> None:
     p.add_argument("resource", nargs="?", type=text, metavar="RESOURCE", help="VISA resource (not with --simulate)")
     p.add_argument("--profile", type=text, metavar="NAME|FILE", help="scope profile (default generic-scope with --simulate)")
     p.add_argument("--channel", type=text, default="CH1", help="channel name for the profile's {channel} (default CH1)")
-    p.add_argument("-o", "--output", required=True, type=text, metavar="TRACE.csv", help="trace CSV to write")
+    p.add_argument("-o", "--output", required=True, type=output, metavar="TRACE.csv", help="trace CSV to write")
     p.add_argument("--no-trigger", action="store_true",
                    help="do not send the trigger command; wait for a real trigger")
     p.add_argument("--backend", type=text, default="@py", help="pyvisa backend (default @py)")
