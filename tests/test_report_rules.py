@@ -182,3 +182,17 @@ def test_docs_carry_the_caution_and_the_full_reference():
     # the reference as tests/test_synthesis.py gives it
     assert ('H. Dean Venable, "The K factor: a new mathematical tool for stability analysis and '
             'synthesis", Proceedings of Powercon 10, 1983') in design_doc
+
+
+def test_predicted_frequency_curves_cover_the_measured_band(tmp_path, capsys):
+    """`predict --curve loop` writes the plant's band and says so (was 5.6e-05 Hz to 2e+08 Hz)."""
+    from benchfit.cli import main
+    from benchfit.output.curves import read_curve_csv
+
+    d = _small_design()
+    d.to_json(tmp_path / "design.json")
+    assert main(["predict", str(tmp_path / "design.json"), "--curve", "loop", "-o", str(tmp_path / "c.csv")]) == 0
+    out = capsys.readouterr().out
+    c = read_curve_csv(tmp_path / "c.csv")
+    assert c.x[0] >= 10.0 and c.x[-1] <= 1e6 and c.x.size > 100
+    assert "(the plant's measured band)" in out and "e+" not in out

@@ -21,6 +21,9 @@ def register(subparsers) -> None:
                    help="open-loop right-half-plane poles (default: counted from a model, 0 for a sweep)")
     p.add_argument("--band", type=band, metavar="FMIN:FMAX", help="restrict to this band in Hz (k/M allowed)")
     p.add_argument("--delay", type=value(TIME, NON_NEGATIVE), default=0.0, metavar="S", help="add a pure delay to the loop, e.g. 2u")
+    p.add_argument("--integrators", type=count(0), metavar="N",
+                   help="open-loop poles at s = 0 of a sweep (default: from the fit of its "
+                        "low-frequency asymptote; a model counts its own)")
     p.add_argument("--ideal", action="store_true", help="for a design: use the ideal parts, not snapped")
     add_reader_flags(p)
     add_json_flag(p)
@@ -34,7 +37,7 @@ def run(args: argparse.Namespace) -> int:
             if k not in ("channel", "time_unit", "sample_interval_s")}
     loop = read_loop(args.loop, which="ideal" if args.ideal else "snapped", **opts)
     m = margins_of_loop(loop, unstable_open_loop_poles=args.unstable_poles, band=args.band,
-                        extra_delay_s=args.delay)
+                        extra_delay_s=args.delay, integrators=args.integrators)
     data = m.to_dict()
     data["source"] = str(args.loop)
     if not args.json:

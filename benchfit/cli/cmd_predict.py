@@ -6,6 +6,7 @@ import argparse
 
 from benchfit.cli.common import add_json_flag, emit
 from benchfit.cli.values import CURRENT, NONZERO, VOLTAGE, output, text, value
+from benchfit.numfmt import eng
 from benchfit.output.choices import CURVE_NAMES, WHICH
 
 
@@ -44,5 +45,8 @@ def run(args: argparse.Namespace) -> int:
     axis = "Hz" if curve.is_frequency else "s"
     emit(args, {"output": str(path), "curve": args.curve, "name": curve.name, "points": int(curve.x.size),
                 "x_name": curve.x_name, "x_min": float(curve.x[0]), "x_max": float(curve.x[-1])},
-         f"wrote {path}: {curve.name}, {curve.x.size} points, {curve.x[0]:.4g}..{curve.x[-1]:.4g} {axis}")
+         f"wrote {path}: {curve.name}, {curve.x.size} points, {eng(float(curve.x[0]), axis)} to "
+         f"{eng(float(curve.x[-1]), axis)}"
+         + (" (the plant's measured band)" if curve.is_frequency and "band_hz" in curve.provenance.settings
+            else ""))
     return 0

@@ -19,12 +19,11 @@ from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.marginsresult import Margins
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
+from benchfit.loop.passrules import shortfalls, worst_of
 from benchfit.loop.synthesis import Targets
 
 #: Op-amp phase lost at the crossover that earns a warning, degrees.
 OPAMP_PHASE_WARN_DEG = 3.0
-#: Slack when judging a predicted margin against its target.
-MARGIN_SLACK = 0.1
 
 
 def sign_warnings(corners: Sequence[LoopPlant]) -> list[str]:
@@ -95,18 +94,40 @@ def predict(corners: Sequence[LoopPlant], net: Network, opamp: OpAmp | None) -> 
                       loops=tuple(lo.data() if lo.plant.is_data else lo.model() for lo in loops))
 
 
+def shown(value: float, target: float) -> str:
+    """``value`` with enough decimals that a shortfall shows (44.995 below 45 is not "45.0")."""
+    for digits in range(1, 7):
+        if round(value, digits) < target:
+            return f"{value:.{digits}f}"
+    return f"{target:g} - {target - value:.1e}"
+
+
 def target_warnings(pred: Prediction, targets: Targets, names: Sequence[str],
-                    label: str) -> list[str]:
+                    label: str, crossings: str | tuple[float, float] = "all") -> list[str]:
+    """One warning per corner and kind whose margins miss a target (no slack).
+
+    The rule is :func:`benchfit.loop.passrules.shortfalls` (every counted
+    crossing, stable closed loop), the one the Monte Carlo yield uses; each
+    message quotes the crossing furthest below its target, as listed in
+    the corner's margins.
+    """
     out = []
     for m, name in zip(pred.corners, names, strict=True):
         where = f"{label} parts on {name}" if len(names) > 1 else f"{label} parts"
-        if not m.closed_loop_stable:
-            out.append(f"{where}: the closed loop is unstable")
+        short = shortfalls(m, targets, crossings)
+        if short and short[0]["kind"] == "stability":
+            out.append(f"{where}: the closed loop is {short[0]['verdict']}")
             continue
-        if not (m.phase_margin_deg >= targets.phase_margin_deg - MARGIN_SLACK):
-            out.append(f"{where}: phase margin {m.phase_margin_deg:.1f}° is below the "
+        g = worst_of(short, "gain")
+        if g is not None:
+            at = "" if g["freq_hz"] == m.crossover_hz else f" at the {g['freq_hz']:.4g} Hz crossing"
+            out.append(f"{where}: phase margin {shown(g['value'], g['target'])}°{at} is below the "
                        f"{targets.phase_margin_deg:g}° target")
-        if m.gain_margin_db < targets.gain_margin_db - MARGIN_SLACK:
-            out.append(f"{where}: gain margin {m.gain_margin_db:.1f} dB is below the "
+        p = worst_of(short, "phase")
+        if p is not None:
+            v = p["value"]
+            at = "" if p["freq_hz"] == m.phase_crossover_hz else f" at {p['freq_hz']:.4g} Hz"
+            what = "gain margin" if v >= 0 else "gain reduction margin"
+            out.append(f"{where}: {what} {shown(abs(v), p['target'])} dB{at} is below the "
                        f"{targets.gain_margin_db:g} dB target")
     return out
