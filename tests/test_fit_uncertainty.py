@@ -221,3 +221,16 @@ def test_json_writes_null_for_a_sigma_not_determined(tmp_path, results):
     back = type(res).from_json(out)
     assert back.undetermined == res.undetermined
     assert "not determined" in res.report()
+
+
+def test_bounded_parameter_takes_the_start_inside_its_bounds():
+    # As above with a bound instead of a fixed value: the 1 kHz pole must survive.
+    # Reference response: scipy.signal.freqs_zpk.
+    f = np.geomspace(10, 1e5, 201)
+    p = [-2 * np.pi * 1e3, -2 * np.pi * 350e3]
+    _, h = signal.freqs_zpk([], p, np.prod(np.abs(p)), 2 * np.pi * f)
+    res = fit(FrequencyResponse(freq_hz=f, response=h), order=2, delay="none",
+              bounds={"pole1_hz": (300e3, 400e3)})
+    assert res.parameter("pole1_hz").value == pytest.approx(1e3, rel=1e-6)
+    assert res.parameter("pole2_hz").value == pytest.approx(350e3, rel=1e-6)
+    assert res.model.is_stable

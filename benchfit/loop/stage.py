@@ -142,6 +142,21 @@ def snap_stage(syn: StageSynthesis, lp: LoopPlant, targets: Targets, gain: float
     return first
 
 
+def band_gain_error(lp: LoopPlant, net: StageNetwork, want: float,
+                    band_hz: float) -> tuple[float, float]:
+    """Largest | |G|/|want| − 1 | (magnitude) from the bottom of the band to ``band_hz``,
+    and where it is."""
+    f0 = stage_grid(lp)[0]
+    if not (band_hz > f0):
+        raise InputError(f"gain band {band_hz:g} Hz; expected a frequency above the plant's "
+                         f"lowest, {f0:.4g} Hz", source="--gain-band")
+    f = np.logspace(np.log10(f0), np.log10(band_hz), 200)
+    g = closed_loop_values(net, lp.response(f), f)["gain"]
+    err = np.abs(np.abs(g) / abs(want) - 1.0)
+    k = int(np.nanargmax(err))
+    return float(err[k]), float(f[k])
+
+
 def dc_gain(lp: LoopPlant, net: StageNetwork) -> float:
     """Closed-loop gain at the bottom of the band with the finite Aol (signed)."""
     f = np.array([stage_grid(lp)[0]])
@@ -264,6 +279,9 @@ class StageDesign:
                      f"({(cg['snapped'] / self.gain - 1) * 100:+.2f} % of the asked {self.gain:g})"
                      + (f"; {cg['tolerance_low']:.4g}..{cg['tolerance_high']:.4g} over the resistor "
                         "tolerance" if "tolerance_low" in cg else ""))
+        if "band_hz" in cg:
+            lines.append(f"closed-loop gain within {cg['band_error'] * 100:.2f} % of the asked one "
+                         f"up to {cg['band_hz']:.4g} Hz")
         for label, p in (("ideal", self.ideal), ("snapped", self.snapped)):
             m = p.corners[0]
             lines.append(f"{label:8} PM {m.phase_margin_deg:6.1f}° at {m.crossover_hz:.4g} Hz, "
@@ -298,7 +316,7 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
                  series: tuple[str, str] = ("E24", "E12"),
                  tolerances: tuple[float | None, float | None] = (None, None),
                  draws: int = 2000, seed: int | None = None,
-                 sources: Sequence[str] = ()) -> StageDesign:
+                 sources: Sequence[str] = (), gain_band_hz: float | None = None) -> StageDesign:
     """Synthesise, snap, re-verify and spread an op-amp stage's feedback network.
 
     Parameters
@@ -315,6 +333,10 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
         Stage kind, output load (Ro, CL, ESR), Rg, the lag's place.
     series, tolerances, draws, seed, sources
         As for :func:`benchfit.loop.design.design`.
+    gain_band_hz
+        When given, the snapped closed-loop gain must also stay within 1 % of
+        the asked one from the bottom of the band up to this frequency
+        (checked with the finite Aol; a warning otherwise).
     """
     load = load or StageLoad()
     r_series, c_series = eseries._key(series[0]), eseries._key(series[1])
@@ -333,6 +355,13 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
     cg = {"ideal": dc_gain(lp, syn.network), "snapped": dc_gain(lp, snapped_net)}
     m = snapped.corners[0]
     warnings = [w for w in m.warnings] + snapped_net.practical_warnings("snapped")
+    if gain_band_hz is not None:
+        err, f_at = band_gain_error(lp, snapped_net, want, gain_band_hz)
+        cg["band_hz"], cg["band_error"] = float(gain_band_hz), err
+        if err > GAIN_TOL:
+            warnings.append(f"the closed-loop gain's magnitude is {err * 100:.2f} % off the asked {want:g} at "
+                            f"{f_at:.4g} Hz, inside the {gain_band_hz:.4g} Hz band asked "
+                            "(--gain-band); the loop gain there is too low")
     if abs(cg["snapped"] / want - 1) > GAIN_TOL:
         warnings.append(f"snapped DC closed-loop gain {cg['snapped']:.5g} is more than 1 % from the "
                         f"{want:g} asked; use a finer resistor series (--series E96:E12)")
