@@ -230,3 +230,21 @@ def test_batch_histograms_are_labelled_with_units():
         assert ax.xaxis.get_offset_text().get_text() == ""      # no '+2e4' offset on the ticks
     ticks = [t.get_text() for t in shown[1].get_xticklabels() if t.get_text()]
     assert any(t.endswith("k") for t in ticks)                   # 19.5k, 20k: prefixes
+
+
+def test_report_command_matches_the_load_step_to_the_current_channel(tmp_path):
+    """`report --load-current-channel Iout`: the caption says the measured current step is the size."""
+    from benchfit.cli import main
+    from benchfit.data import read_sweep
+    from benchfit.fitting import fit
+
+    d = _small_design()
+    d.to_json(tmp_path / "design.json")
+    fit(read_sweep(SAMPLES / "buck_zout.csv")).to_json(tmp_path / "zout.json")
+    html_path = tmp_path / "r.html"
+    assert main(["report", str(tmp_path / "design.json"), "-o", str(html_path), "--zout", str(tmp_path / "zout.json"),
+                 "--load-trace", str(SAMPLES / "load_step_trace.csv"), "--load-channel", "Vout AC",
+                 "--load-current-channel", "Iout"]) == 0
+    page = html_path.read_text(encoding="utf-8")
+    assert "load step: 500 mA, the current step measured on Iout of load_step_trace.csv" in page
+    assert "measured load step" in page
