@@ -269,3 +269,19 @@ def test_margins_command_reports_the_verdict_and_takes_a_stated_count(tmp_path, 
     d = json.loads(capsys.readouterr().out)
     assert d["integrators"] == 1 and d["integrators_evidence"] == "1 integrator(s), given"
     assert any("asymptote" in w for w in d["warnings"])
+
+
+def test_inverting_measured_plant_with_an_integrator_is_flagged_from_the_asymptote():
+    # an integrating plant measured through an inverting path: phase +90 deg at the bottom,
+    # which a 150 deg rule on the raw phase cannot tell from a plain integrator (common
+    # practice, no source: the loop sign is the asymptote's phase with integrators removed)
+    from benchfit.data import FrequencyResponse
+    from benchfit.loop.prediction import sign_warnings
+
+    f = np.logspace(1, 5, 400)
+    s = 2j * np.pi * f
+    h = 2 * np.pi * 1e3 / s / (1 + s / (2 * np.pi * 50e3))
+    ok = LoopPlant(FrequencyResponse(f, noisy(h, 0.05, 0.3, 1), quantity="plant"))
+    bad = LoopPlant(FrequencyResponse(f, noisy(-h, 0.05, 0.3, 1), quantity="plant"))
+    assert sign_warnings([ok]) == []
+    assert len(sign_warnings([bad])) == 1 and "inverting" in sign_warnings([bad])[0]
