@@ -26,7 +26,8 @@ from hypothesis import strategies as st
 from benchfit.data import read_sweep, read_trace
 from benchfit.errors import InputError
 
-pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+pytestmark = [pytest.mark.filterwarnings("error::RuntimeWarning"),
+              pytest.mark.filterwarnings("error::UserWarning")]
 
 NORMAL = settings(max_examples=40, deadline=None,
                   suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])

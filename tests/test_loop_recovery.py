@@ -116,6 +116,17 @@ def test_output_impedance_ratio_gives_the_loop_gain():
     assert margins_of_loop(t).phase_margin_deg == pytest.approx(pm, abs=0.5)
 
 
+def test_amplification_warning_names_the_noisy_stretch():
+    from benchfit.loop.loop_recovery import amplification_warning
+
+    a, beta = opamp_into_cap(), 0.4
+    t = loop_from_closed_loop(fr(control.feedback(a, beta)), beta)   # |T| up to 4e4
+    assert "mostly noise" in amplification_warning(t, "ratio")
+    small = FrequencyResponse(F, np.full(F.size, 5.0 + 0j), quantity="loop")
+    assert amplification_warning(small, "ratio") is None
+    assert amplification_warning(t, "injection") is None
+
+
 def test_different_grids_and_mistakes():
     a, beta = opamp_into_cap(), 0.4
     g = fr(control.feedback(a, beta))

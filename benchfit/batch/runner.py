@@ -31,7 +31,7 @@ from benchfit.batch.table import (
 )
 from benchfit.batch.task import TaskSettings, run_task, unit_id
 from benchfit.errors import InputError
-from benchfit.fileio import append_lines_durable
+from benchfit.fileio import append_lines_durable, write_text_atomic
 from benchfit.provenance import Provenance
 
 
@@ -251,10 +251,7 @@ def _prepare(rows_csv: Path, cols: list[str], resume: bool) -> set[str]:
                              "lot's (other limits or --param?); use the same settings or a new -o",
                              source=str(rows_csv))
         return {_norm(r["file"]) for r in rows}
-    rows_csv.parent.mkdir(parents=True, exist_ok=True)
-    with open(rows_csv, "w", encoding="utf-8"):  # empty file, then the header durably
-        pass
-    append_lines_durable(rows_csv, [header_line(cols)])
+    write_text_atomic(rows_csv, header_line(cols))  # then rows are appended durably
     return set()
 
 

@@ -8,7 +8,7 @@ from pathlib import Path
 
 from benchfit.cli.cmd_fit import DELAY, ORDER  # the same option forms as `benchfit fit`
 from benchfit.cli.common import add_json_flag, emit, warn
-from benchfit.cli.values import band, count, text
+from benchfit.cli.values import band, count, output, text
 from benchfit.errors import InputError
 
 
@@ -25,12 +25,12 @@ def register(subparsers) -> None:
     p.add_argument("--workers", type=count(1), metavar="N",
                    help="local worker processes (default: number of cores; 1 = no pool)")
     p.add_argument("--dask", type=text, metavar="ADDRESS", help="run on a Dask cluster, e.g. tcp://host:8786")
-    p.add_argument("-o", "--output", type=text, default="results.csv", metavar="RESULTS",
+    p.add_argument("-o", "--output", type=output, default="results.csv", metavar="RESULTS",
                    help="result table, .csv or .parquet (default results.csv)")
     p.add_argument("--resume", action="store_true",
                    help="continue an interrupted lot: skip files already in the output")
-    p.add_argument("--summary", type=text, metavar="SUMMARY_JSON", help="write the lot summary as JSON")
-    p.add_argument("--histograms", type=text, metavar="PNG", help="write histograms of each figure")
+    p.add_argument("--summary", type=output, metavar="SUMMARY_JSON", help="write the lot summary as JSON")
+    p.add_argument("--histograms", type=output, metavar="PNG", help="write histograms of each figure")
     p.add_argument("--param", type=text, action="append", default=[], metavar="NAME",
                    help="also report this fitted parameter in its own column (repeatable)")
     p.add_argument("--quantity", choices=("plant", "loop"),

@@ -25,7 +25,7 @@ from benchfit.data.quote import cut, quote, quote_list
 from benchfit.data.repeats import order_and_average
 from benchfit.data.response import QUANTITIES, FrequencyResponse
 from benchfit.data.rows import BadRow, apply_row_rule, bad_row, skipped_warning
-from benchfit.data.table import Block, find_blocks
+from benchfit.data.table import Block, find_blocks, footer_warning
 from benchfit.data.touchstone import looks_like_touchstone, ports_from_name, read_touchstone
 from benchfit.data.units import freq_factor, freq_unit_name
 from benchfit.errors import InputError
@@ -210,6 +210,8 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
         warnings.append(f"the {blk.rows_in_block} rows at lines {lo}-{hi} were not read (no names "
                         "line of their own: a table of another kind?)")
     k, label, blk, pair = _select_trace(traces, trace, source, warnings)
+    if blk.footer:
+        warnings.append(footer_warning(blk))
     check_units(pair, freq_unit, phase, source, blk.header_line)
     data, lines_no = blk.data, blk.line_no
     f_unit = freq_unit_name(freq_unit or pair.freq.unit or "Hz", exact_case=freq_unit is None)

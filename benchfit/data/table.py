@@ -53,6 +53,8 @@ class Block:
         Rows of the block that could not be read, in line order (see :mod:`benchfit.data.rows`).
     footer
         Text lines after the last row that are not rows (an 'end of data' line).
+    footer_line
+        1-based line of the first of them.
     grouped
         True when numbers with thousands separators ('1,000.50') were read.
     """
@@ -66,6 +68,7 @@ class Block:
     notes: list[str] = field(default_factory=list)
     bad_rows: list[BadRow] = field(default_factory=list)
     footer: list[str] = field(default_factory=list)
+    footer_line: int | None = None
     grouped: bool = False
 
     @property
@@ -143,7 +146,12 @@ def _row_problem(cells: list[str], d: Dialect, ncols: int,
                  names: list[str] | None) -> tuple[list[float] | None, str | None, str | int | None]:
     """(values, None, None) for a good row, else (None, why, column)."""
     if len(cells) != ncols:
-        return None, f"{len(cells)} cells, expected {ncols} like the other rows", None
+        grouped = d.separator == "," and any(
+            re.fullmatch(r"[+-]?\d{1,3}", a) and re.fullmatch(r"\d{3}(?:\.\d*)?", b)
+            for a, b in zip(cells, cells[1:], strict=False))
+        return None, (f"{len(cells)} cells, expected {ncols} like the other rows"
+                      + (" (a thousands separator in a comma-separated file? quote such numbers"
+                         " or export them without one)" if grouped and len(cells) > ncols else "")), None
     values = []
     for j, c in enumerate(cells):
         try:
@@ -396,10 +404,10 @@ def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Bloc
         prev_end = idx[-1] + 1
     if cur is None:
         raise InputError("no block of two or more numeric rows", source=source)
-    trailing = [k for k in range(prev_end, n) if kinds[k] in ("text", "comment")]
+    trailing = [k for k in range(prev_end, n) if kinds[k] == "text"]
     footer = []
-    for k in trailing:
-        if kinds[k] == "text" and _row_like(lines[k], d, cur.ncols):
+    for k in trailing:  # broken rows right after the last row; from the first other text on, a footer
+        if not footer and _row_like(lines[k], d, cur.ncols):
             cur.bad_lines.append(k)
         else:
             footer.append(k)
@@ -437,4 +445,12 @@ def _finish(cur: _Pending, lines: list[str], d: Dialect, exact: bool, kinds: lis
                  header_line=head.header_line, header_text=head.header_text,
                  notes=[x for x in notes if x], bad_rows=bad,
                  footer=[x for x in (strip_comment_mark(lines[k].strip()) for k in footer) if x],
-                 grouped=grouped)
+                 footer_line=footer[0] + 1 if footer else None, grouped=grouped)
+
+
+def footer_warning(block: Block) -> str:
+    """The warning that says text after the last row was not read (it is in the notes)."""
+    n = len(block.footer)
+    return (f"{n} line{'s' if n != 1 else ''} of text after the last row (from line "
+            f"{block.footer_line}: {quote(block.footer[0], 40)}) {'were' if n != 1 else 'was'} not "
+            "read as data; they are in the notes")

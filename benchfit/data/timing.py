@@ -49,6 +49,16 @@ def duplicate_rows(data: np.ndarray) -> np.ndarray:
     return np.flatnonzero(same) + 1
 
 
+def straight_line(t: np.ndarray) -> tuple[float, float]:
+    """(step, start) of the least-squares line through ``t`` against the sample index
+    (closed form: no rank warning on a degenerate axis)."""
+    k = np.arange(t.size, dtype=float)
+    km = k.mean()
+    var = float(np.sum((k - km) ** 2))
+    slope = float(np.sum((k - km) * (t - t.mean())) / var) if var > 0 else 0.0
+    return slope, float(t.mean() - slope * km)
+
+
 def rounding_explains_repeats(t: np.ndarray, resolution: float) -> bool:
     """True when repeated time stamps come from printing too few digits.
 
@@ -58,7 +68,7 @@ def rounding_explains_repeats(t: np.ndarray, resolution: float) -> bool:
     still repeat (a record with every time written twice) are not explained.
     """
     k = np.arange(t.size)
-    slope, start = np.polyfit(k, t, 1)
+    slope, start = straight_line(t)
     step = float(np.min(np.diff(t)[np.diff(t) > 0])) if np.any(np.diff(t) > 0) else 0.0
     res = max(resolution, step)
     uniform = start + slope * k

@@ -123,3 +123,28 @@ def loop_from_output_impedance(z_open: FrequencyResponse, z_closed: FrequencyRes
     """T = Z_ol/Z_cl − 1 from the open- and closed-loop output impedance."""
     base, zc = _on_grid(z_open, z_closed, "closed-loop impedance")
     return _result(base, base.response - zc, zc, "output impedance", {})
+
+
+#: Error amplification above which :func:`amplification_warning` speaks up.
+AMPLIFICATION_WARN = 100.0
+
+
+def amplification_warning(t: FrequencyResponse, method: str) -> str | None:
+    """A warning when the recovery multiplies the measurement's relative error by a lot.
+
+    From the closed loop, T = x/(1 − x) with x = T/(1 + T): a relative error ε in G
+    becomes about |1 + T|·ε in T; from the impedances, T + 1 = Zol/Zcl: about
+    |(1 + T)/T|·ε·|1 + T| ≈ |1 + T|·ε too.  Where |T| is large the recovered T is
+    mostly amplified noise (the crossover region, where |T| ≈ 1, is not).  The
+    evidence weighed: the largest |1 + T| of the sweep against 100.
+    """
+    if method == "injection":
+        return None
+    amp = float(np.max(np.abs(1.0 + t.response)))
+    if amp <= AMPLIFICATION_WARN:
+        return None
+    f = float(t.freq_hz[int(np.argmax(np.abs(1.0 + t.response)))])
+    return (f"the recovered T reaches |1 + T| = {amp:.3g} (at {f:.4g} Hz): a relative error of the "
+            f"measurement is multiplied by about that much there, so T far above 0 dB is mostly "
+            "noise; the margins near the crossover are unaffected, a stability verdict counted "
+            "over the noisy stretch is not")

@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy.linalg import expm
+from scipy.linalg import expm, matrix_balance
 
 from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
@@ -119,7 +119,11 @@ class _Lti:
         m = np.zeros((n + 1, n + 1))
         m[:n, :n] = self.a * h
         m[:n, n:] = self.b * h
-        e = expm(m)  # [[Φ, Γ], [0, 1]]: x(k+1) = Φ x(k) + Γ u for a constant input
+        # a high-gain op-amp model gives entries spanning tens of decades: balance first
+        # (expm(M) = T·expm(T⁻¹MT)·T⁻¹, T diagonal), or Φ's rounding makes a stable loop blow up
+        bal, tr = matrix_balance(m, permute=False)
+        d = np.diag(tr)
+        e = (expm(bal) * d[None, :] ** -1) * d[:, None]  # [[Φ, Γ], [0, 1]]: x(k+1) = Φ x(k) + Γ u
         phi, gam = e[:n, :n], e[:n, n:] * size
         x = np.zeros((n, 1))
         for i in range(t.size):
