@@ -230,6 +230,40 @@ def test_zero_tolerance_reproduces_nominal_margins_exactly_on_every_scenario():
             assert s.yield_fraction == (1.0 if d.targets_met else 0.0), (kind, t)
 
 
+def test_zero_tolerance_on_load_corners_and_a_fitted_plant_is_the_worst_nominal():
+    # three load corners of our buck (tests/test_design.py's scenario) and a plant fitted to a
+    # noisy sweep of it (its covariance not drawn): the worst corner's nominal margins
+    from scenario_plants import buck_plant
+
+    from benchfit.data import FrequencyResponse
+    from benchfit.fitting import fit
+    from benchfit.fitting.model import PlantModel
+
+    def buck(r_load):
+        w0, c = 1 / math.sqrt(10e-6 * 100e-6), 100e-6
+        q, wz = r_load * math.sqrt(c / 10e-6), 1 / (0.02 * c)
+        return PlantModel(zeros=np.array([-wz]), poles=np.roots([1, w0 / q, w0 ** 2]),
+                          k=12.0 * w0 ** 2 / wz)
+
+    corners = [LoopPlant(buck(r), name=f"R{r}", band_hz=(10, 1e6)) for r in (0.5, 1.0, 10.0)]
+    f = np.logspace(1, 6, 401)
+    fitted = fit(FrequencyResponse(f, noisy(buck_plant().response(f), 0.05, 0.3, 2),
+                                   quantity="plant"))
+    cases = [(corners, Targets(15e3, 45, 6)),
+             ([LoopPlant(fitted.model, band_hz=(10, 1e6), draws=fitted.draw_responses)],
+              Targets(15e3, 45, 6))]
+    for cs, t in cases:
+        d = design(cs, "type3", t, draws=0)
+        s = monte_carlo(cs, d.snapped.network, None, t, r_tol=0.0, c_tol=0.0, draws=5, seed=1,
+                        plant_uncertainty=False)
+        noms = [Loop(lp, d.snapped.network).margins() for lp in cs]
+        assert s.percentiles["pm_deg"]["p50"] == pytest.approx(
+            min(m.phase_margin_deg for m in noms), abs=1e-9)
+        assert s.percentiles["gm_db"]["p50"] == pytest.approx(
+            min(m.gain_margin_db for m in noms), abs=1e-9)
+        assert s.yield_fraction == (1.0 if d.targets_met else 0.0)
+
+
 def test_shipped_sample_plant_zero_tolerance_is_the_nominal():
     # the shipped measured buck sweep (sample_data/buck_plant.csv): its own frequencies
     from pathlib import Path
