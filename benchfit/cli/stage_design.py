@@ -67,7 +67,7 @@ def run_stage(args: argparse.Namespace) -> int:
     if args.closed_loop_gain is None:
         raise InputError("a stage needs --closed-loop-gain (its DC gain is set by the same "
                          "network)", source="--closed-loop-gain")
-    for name in ("opamp_gbw", "divider", "sensing_gain", "crossover", "method", "min_yield"):
+    for name in ("opamp_gbw", "divider", "sensing_gain", "crossover", "method"):
         if getattr(args, name, None) is not None:
             raise InputError("does not apply to a stage: the op-amp is the plant and the "
                              "crossover follows from the network", source="--" + name.replace("_", "-"))
@@ -85,7 +85,8 @@ def run_stage(args: argparse.Namespace) -> int:
                      series=parse_pair(args.series, "--series") if args.series else ("E24", "E12"),
                      tolerances=args.tolerance or (None, None),
                      draws=2000 if args.draws is None else args.draws, seed=args.seed,
-                     sources=tuple(args.plants), gain_band_hz=args.gain_band)
+                     sources=tuple(args.plants), gain_band_hz=args.gain_band,
+                     min_yield=None if args.min_yield is None else args.min_yield / 100.0)
     if args.output:
         d.to_json(args.output)
     if not args.json:
