@@ -230,6 +230,40 @@ def test_zero_tolerance_reproduces_nominal_margins_exactly_on_every_scenario():
             assert s.yield_fraction == (1.0 if d.targets_met else 0.0), (kind, t)
 
 
+def test_zero_tolerance_on_load_corners_and_a_fitted_plant_is_the_worst_nominal():
+    # three load corners of our buck (tests/test_design.py's scenario) and a plant fitted to a
+    # noisy sweep of it (its covariance not drawn): the worst corner's nominal margins
+    from scenario_plants import buck_plant
+
+    from benchfit.data import FrequencyResponse
+    from benchfit.fitting import fit
+    from benchfit.fitting.model import PlantModel
+
+    def buck(r_load):
+        w0, c = 1 / math.sqrt(10e-6 * 100e-6), 100e-6
+        q, wz = r_load * math.sqrt(c / 10e-6), 1 / (0.02 * c)
+        return PlantModel(zeros=np.array([-wz]), poles=np.roots([1, w0 / q, w0 ** 2]),
+                          k=12.0 * w0 ** 2 / wz)
+
+    corners = [LoopPlant(buck(r), name=f"R{r}", band_hz=(10, 1e6)) for r in (0.5, 1.0, 10.0)]
+    f = np.logspace(1, 6, 401)
+    fitted = fit(FrequencyResponse(f, noisy(buck_plant().response(f), 0.05, 0.3, 2),
+                                   quantity="plant"))
+    cases = [(corners, Targets(15e3, 45, 6)),
+             ([LoopPlant(fitted.model, band_hz=(10, 1e6), draws=fitted.draw_responses)],
+              Targets(15e3, 45, 6))]
+    for cs, t in cases:
+        d = design(cs, "type3", t, draws=0)
+        s = monte_carlo(cs, d.snapped.network, None, t, r_tol=0.0, c_tol=0.0, draws=5, seed=1,
+                        plant_uncertainty=False)
+        noms = [Loop(lp, d.snapped.network).margins() for lp in cs]
+        assert s.percentiles["pm_deg"]["p50"] == pytest.approx(
+            min(m.phase_margin_deg for m in noms), abs=1e-9)
+        assert s.percentiles["gm_db"]["p50"] == pytest.approx(
+            min(m.gain_margin_db for m in noms), abs=1e-9)
+        assert s.yield_fraction == (1.0 if d.targets_met else 0.0)
+
+
 def test_shipped_sample_plant_zero_tolerance_is_the_nominal():
     # the shipped measured buck sweep (sample_data/buck_plant.csv): its own frequencies
     from pathlib import Path
@@ -269,3 +303,19 @@ def test_margins_command_reports_the_verdict_and_takes_a_stated_count(tmp_path, 
     d = json.loads(capsys.readouterr().out)
     assert d["integrators"] == 1 and d["integrators_evidence"] == "1 integrator(s), given"
     assert any("asymptote" in w for w in d["warnings"])
+
+
+def test_inverting_measured_plant_with_an_integrator_is_flagged_from_the_asymptote():
+    # an integrating plant measured through an inverting path: phase +90 deg at the bottom,
+    # which a 150 deg rule on the raw phase cannot tell from a plain integrator (common
+    # practice, no source: the loop sign is the asymptote's phase with integrators removed)
+    from benchfit.data import FrequencyResponse
+    from benchfit.loop.prediction import sign_warnings
+
+    f = np.logspace(1, 5, 400)
+    s = 2j * np.pi * f
+    h = 2 * np.pi * 1e3 / s / (1 + s / (2 * np.pi * 50e3))
+    ok = LoopPlant(FrequencyResponse(f, noisy(h, 0.05, 0.3, 1), quantity="plant"))
+    bad = LoopPlant(FrequencyResponse(f, noisy(-h, 0.05, 0.3, 1), quantity="plant"))
+    assert sign_warnings([ok]) == []
+    assert len(sign_warnings([bad])) == 1 and "inverting" in sign_warnings([bad])[0]

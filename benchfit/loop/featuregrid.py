@@ -9,9 +9,11 @@ holds
 * a log grid (:data:`POINTS_PER_DECADE`) over the band that holds the
   network's corners, the plant's poles and zeros and the nominal crossings,
   three decades beyond them (to the op-amp's GBW × 10);
-* around every pole and zero of the plant and of the network a cluster
-  :data:`CLUSTER_POINTS` wide, spanning ±3 half-power bandwidths of a
-  resonance (±(3/Q)/ln 10 decades, at least ±0.01 decade);
+* around every lightly damped pole or zero pair of the plant and of the
+  network (Q above :data:`CLUSTER_MIN_Q`) a cluster of :data:`CLUSTER_POINTS`
+  spanning ±3 half-power bandwidths of the resonance (±(3/Q)/ln 10 decades,
+  at least ±0.01 decade); well-damped corners change slowly enough for the
+  log grid;
 * every crossing of the nominal loop (gain and phase, as the dense nominal
   analysis finds them), exactly, with a cluster of :data:`CLUSTER_POINTS`
   over ±:data:`CROSSING_SPAN_DECADES` around it,
@@ -32,20 +34,23 @@ from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
 
-POINTS_PER_DECADE = 60
+POINTS_PER_DECADE = 50
 CLUSTER_POINTS = 41
+CLUSTER_MIN_Q = 1.0
 CROSSING_SPAN_DECADES = 0.05
 _MIN_HALF_WIDTH_DECADES = 0.01
 
 
 def _singularity_clusters(roots: np.ndarray) -> list[np.ndarray]:
-    """log10 f clusters around each non-zero root (rad/s), as wide as its resonance."""
+    """log10 f clusters around each lightly damped root (rad/s), as wide as its resonance."""
     out = []
     for r in np.asarray(roots, dtype=complex):
         w = abs(r)
         if w == 0 or not math.isfinite(w):
             continue
         zeta = abs(r.real) / w                     # 1/(2Q) for a complex pair, 1 for a real root
+        if zeta >= 1.0 / (2.0 * CLUSTER_MIN_Q):
+            continue
         half = max(3.0 * 2.0 * zeta / math.log(10.0), _MIN_HALF_WIDTH_DECADES)
         half = min(half, 0.5)
         out.append(math.log10(w / (2 * math.pi)) + np.linspace(-half, half, CLUSTER_POINTS))

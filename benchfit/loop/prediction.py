@@ -31,19 +31,32 @@ def sign_warnings(corners: Sequence[LoopPlant]) -> list[str]:
 
     The compensator folds the error amplifier's inversion into the loop sign;
     an inverting plant (e.g. through an optocoupler) then makes the feedback
-    positive.  A low-frequency phase beyond ±90° (after removing integrators'
-    −90° each; beyond ±150° for measured data) is the sign of that.
+    positive.  A low-frequency phase beyond ±90° after removing integrators'
+    −90° each is the sign of that.  A model counts its poles at s = 0; a
+    measured plant's count comes from the fit of its low-frequency asymptote
+    (:func:`benchfit.loop.asymptote.fit_asymptote`, the estimate the margins
+    use), whose asymptotic phase is then compared; when that fit does not
+    decide the count, only a phase beyond ±150° at the bottom of the band counts.
     """
+    from benchfit.loop.asymptote import fit_asymptote
+
     out = []
     for lp in corners:
         f0 = lp.band_hz[0]
         ph = math.degrees(np.angle(lp.response(np.array([f0]))[0]))
+        limit = 90.0
         if not lp.is_data:
             ph += 90.0 * int(np.sum(np.abs(lp.plant.poles) == 0))
             ph -= 90.0 * int(np.sum(np.abs(lp.plant.zeros) == 0))
+        else:
+            f = np.asarray(lp.plant.freq_hz, dtype=float)
+            asym = fit_asymptote(f, lp.response(f))[0]
+            if asym.decided:
+                ph = asym.phase_deg + 90.0 * asym.n
+            else:
+                limit = 150.0     # integrators not told apart: only a clear inversion counts
         ph = 180.0 - ((180.0 - ph) % 360.0)
-        # data: integrators cannot be told apart, so only a clear inversion counts
-        if abs(ph) > (150.0 if lp.is_data else 90.0):
+        if abs(ph) > limit:
             out.append(f"{lp.name}: plant · sensing is inverting at {f0:.4g} Hz (phase "
                        f"{ph:.0f}°): with an inverting error amplifier the feedback is positive; "
                        "use a negative sensing gain or a non-inverting error amplifier")
