@@ -37,7 +37,10 @@ from benchfit.planner import placement as pl
 from benchfit.planner.noise import (
     NoiseMap,
     TimeModel,
+    BURIED_RELATIVE_SIGMA,
     choose_point_settings,
+    component_sigma,
+    noise_dominated,
     point_sigma,
     required_point_sigma,
 )
@@ -51,7 +54,7 @@ from benchfit.planner.record import (
     sweep_rows,
     write_sweep,
 )
-from benchfit.planner.uncertainty import MarginSpread, margin_spread
+from benchfit.planner.uncertainty import MarginSpread, covariance_usable, margin_spread
 from benchfit.provenance import Provenance
 
 #: A fit whose reduced χ² exceeds this does not describe the data within the noise,
@@ -237,6 +240,48 @@ class AdaptiveResult:
                 + (f"\nlinearity: {self.linearity['message']}" if self.linearity else ""))
 
 
+#: A real pole this far below the bottom of the band acts there as an integrator.
+SLOW_POLE_FACTOR = 10.0
+
+
+def slow_pole_as_integrator(fit, f_min_hz: float) -> bool:
+    """True when the fit holds a real pole far below the band, to be refitted as an integrator.
+
+    Evidence weighed: the fit's real pole frequencies against the band.  Below
+    its pole frequency a real pole is flat, above it falls as 1/f; a pole
+    below ``f_min_hz / SLOW_POLE_FACTOR`` therefore looks like an integrator
+    (1/f, −90°) over the whole band to within a few degrees, and its frequency
+    and the gain cannot be told apart (their covariance is singular).  A loop
+    gain with an integrator measured in noise often ends so; fitting the
+    integrator as such removes the unidentifiable pair.
+    """
+    for p in fit.parameters:
+        if p.name.startswith("pole") and p.name.endswith("_hz") and 0 < p.value < f_min_hz / SLOW_POLE_FACTOR:
+            return True
+    return False
+
+
+#: The planner's fit starts this many decades below the lowest deciding frequency.
+FIT_DECADES_BELOW = 1.5
+
+
+def fit_band_start(decisive_hz, start_hz: float) -> float:
+    """Where the planner's fit begins: :data:`FIT_DECADES_BELOW` below the lowest
+    frequency that decides a margin, and not below the capture's start.
+
+    Evidence weighed: the deciding frequencies of the last fit.  Far below the
+    crossover a loop gain is large, so an injected measurement is noisy there
+    (the injection is suppressed by the loop), and poles the data barely see
+    make the covariance degenerate without moving a margin; the fit that
+    decides the margins needs only the stretch around them.  The file keeps
+    every point.
+    """
+    f = [d for d in decisive_hz if math.isfinite(d) and d > 0]
+    if not f:
+        return float(start_hz)
+    return max(float(start_hz), min(f) * 10 ** -FIT_DECADES_BELOW)
+
+
 def fit_adequate(fit, normalised_residual: np.ndarray) -> bool:
     """True when the fit describes the data within the noise, so its covariance can be trusted.
 
@@ -251,15 +296,30 @@ def fit_adequate(fit, normalised_residual: np.ndarray) -> bool:
     return bool(chi <= REDCHI_OK and not np.any(np.asarray(normalised_residual) > pl.RESIDUAL_SIGMAS))
 
 
-def stop_reason(pm_sigma_deg: float, gm_sigma_db: float, adequate: bool, settings: AdaptiveSettings,
-                points: int, elapsed_s: float) -> str | None:
+def gm_known(gm_db: float, gm_sigma_db: float, settings: AdaptiveSettings) -> bool:
+    """True when the gain margin is known well enough to stop.
+
+    Evidence weighed: the GM and its σ.  Known when its σ is within the asked
+    one, or when even its lower 2σ bound lies beyond
+    :data:`~benchfit.planner.placement.DECIDING_GM_DB` (a margin that large is
+    known as "more than 30 dB", which is all a designer needs of it), or when
+    the model has no phase crossing in the band and nothing hides one (σ 0).
+    """
+    if gm_sigma_db <= settings.gm_sigma_db:
+        return True
+    return math.isfinite(gm_sigma_db) and gm_db - 2.0 * gm_sigma_db > pl.DECIDING_GM_DB
+
+
+def stop_reason(pm_sigma_deg: float, gm_db: float, gm_sigma_db: float, adequate: bool,
+                settings: AdaptiveSettings, points: int, elapsed_s: float) -> str | None:
     """Why the capture should stop now, or None to go on.
 
-    Evidence weighed, first match wins: both margins known to the asked σ from
-    an adequate fit (:func:`fit_adequate`) -> :data:`PRECISION`; the point
+    Evidence weighed, first match wins: both margins known (the PM to the asked
+    σ, the GM as :func:`gm_known` says) from an adequate fit
+    (:func:`fit_adequate`) -> :data:`PRECISION`; the point
     budget spent -> :data:`MAX_POINTS`; the time budget spent -> :data:`MAX_TIME`.
     """
-    if adequate and pm_sigma_deg <= settings.pm_sigma_deg and gm_sigma_db <= settings.gm_sigma_db:
+    if adequate and pm_sigma_deg <= settings.pm_sigma_deg and gm_known(gm_db, gm_sigma_db, settings):
         return PRECISION
     if points >= settings.max_points:
         return MAX_POINTS
@@ -337,6 +397,9 @@ class AdaptiveCapture:
         self.stop_flag: _StopFlag | None = None
         self.band = (settings.start_hz, settings.stop_hz)
         self.model = None
+        self.integrators: int | None = None
+        self.fit_from_hz: float | None = None
+        self.last: tuple | None = None
         self.per_decade = settings.per_decade
 
     # ----- bookkeeping ----------------------------------------------------------------
@@ -397,9 +460,11 @@ class AdaptiveCapture:
                                    self.s.min_bandwidth_hz, self.s.max_repeats)
         r = self.probe.read(freq_hz, level, ps.bandwidth_hz, ps.repeats)
         sd = r.sigma if r.repeats > 1 else math.nan
+        buried = noise_dominated(sd, abs(r.mean))
         row = LogRow(freq_hz=r.freq_hz, response=r.mean, stddev=sd, level_v=level,
                      bandwidth_hz=ps.bandwidth_hz, repeats=r.repeats, time_s=r.time_s,
-                     scatter=r.scatter, purpose=purpose, in_sweep=in_sweep)
+                     scatter=r.scatter, purpose=purpose + ("-buried" if buried and in_sweep else ""),
+                     in_sweep=in_sweep and not buried)
         append_row(self.log, row)
         self.rows.append(row)
         self._learn()
@@ -409,17 +474,53 @@ class AdaptiveCapture:
         return r
 
     def _crossings(self, spread: MarginSpread) -> list[float]:
-        return pl.deciding_crossings(spread.margins.crossings)
+        return [f for f, _ in pl.deciding_crossings(spread.margins.crossings)]
 
     def _resonances(self, fit) -> list[tuple[float, float]]:
         return pl.deciding_resonances(pl.model_resonances(fit.model), fit.model.response)
 
-    def _decisive(self, spread: MarginSpread, fit) -> list[float]:
-        return self._crossings(spread) + [f0 for f0, _ in self._resonances(fit)]
+    def _decisive(self, spread: MarginSpread, fit) -> list[tuple[float, float]]:
+        """(frequency, component σ) of everything that decides a margin (see required_point_sigma)."""
+        pm, gm = self.s.pm_sigma_deg, self.s.gm_sigma_db
+        out = [(f, component_sigma(kind, pm, gm)) for f, kind in
+               pl.deciding_crossings(spread.margins.crossings)]
+        out += [(f0, component_sigma("phase", pm, gm)) for f0, _ in self._resonances(fit)]
+        out += [(f, component_sigma("phase", pm, gm)) for f in self._buried(fit)]
+        return out
 
-    def _sigma_for(self, f: float, decisive: list[float]) -> float:
+    def _gm_sigma(self, spread: MarginSpread, fit) -> float:
+        """The GM's σ: infinite while buried points may hide a phase crossing."""
+        return math.inf if self._buried(fit, frontier=False) else spread.gm_sigma_db
+
+    def _buried(self, fit, *, frontier: bool = True) -> list[float]:
+        """Frequencies of buried points (at this level) that may hide a margin.
+
+        A buried point where the model's |T| lies between −30 dB and 0 dB (a
+        positive gain margin below :data:`~benchfit.planner.placement.DECIDING_GM_DB`
+        could sit there) leaves the gain margin unknown.  With
+        ``frontier``, only the lowest two not yet measured with the narrowest
+        bandwidth and the most readings are returned: they are measured again
+        with the effort a deciding point gets, so effort goes where the usable
+        data end rather than into a whole buried stretch at once.
+        """
+        usable = {r.freq_hz for r in self._sweep()}
+        out = []
+        for r in self.rows:
+            if (r.in_sweep or not r.purpose.endswith("-buried") or r.freq_hz in usable
+                    or not math.isclose(r.level_v, self.level, rel_tol=1e-9)):
+                continue
+            mag = float(abs(fit.model.response(np.array([r.freq_hz]))[0]))
+            if 0 < mag <= 1.0 and 20 * math.log10(mag) >= -pl.DECIDING_GM_DB:
+                out.append(r.freq_hz)
+        if not frontier:
+            return sorted(set(out))
+        gave_up = {r.freq_hz for r in self.rows if r.purpose.endswith("-buried")
+                   and r.repeats >= self.s.max_repeats and r.bandwidth_hz <= self.s.min_bandwidth_hz}
+        return sorted(set(out) - gave_up)[:2]
+
+    def _sigma_for(self, f: float, decisive: list[tuple[float, float]]) -> float:
         """The absolute σ a point at ``f`` must reach: the relative rule times |T| of the model."""
-        rel = required_point_sigma(f, decisive, self.s.pm_sigma_deg, self.s.gm_sigma_db)
+        rel = required_point_sigma(f, decisive)
         if not math.isfinite(rel) or self.model is None:
             return math.inf
         return rel * float(abs(self.model.response(np.array([f]))[0]))
@@ -443,11 +544,18 @@ class AdaptiveCapture:
         resp = FrequencyResponse(
             freq_hz=np.array([r.freq_hz for r in rows]), response=np.array([r.response for r in rows]),
             stddev=self._stddev(rows), quantity=self.s.quantity)
-        result = fit(resp, integrators="auto")
+        if self.fit_from_hz is not None and np.sum(resp.freq_hz >= self.fit_from_hz) >= 8:
+            resp = resp.band(self.fit_from_hz, None)
+        result = fit(resp, integrators=self.integrators if self.integrators is not None else "auto")
+        if not covariance_usable(result) and slow_pole_as_integrator(result, resp.f_min_hz):
+            again = fit(resp, integrators=result.integrators + 1)
+            if covariance_usable(again):
+                result = again
+                self.integrators = again.integrators
         resid = np.abs(resp.response - result.response(resp.freq_hz)) / resp.stddev
         return resp, result, resid
 
-    def _linearity(self, crossover_hz: float, decisive: list[float]) -> bool:
+    def _linearity(self, crossover_hz: float, decisive: list[tuple[float, float]]) -> bool:
         """Run the check; True when the level changed (the sweep must be re-measured)."""
         freqs = lin.check_frequencies(crossover_hz, self.band)
         comps: list[lin.LevelComparison] = []
@@ -491,13 +599,14 @@ class AdaptiveCapture:
         return False
 
     def _next_points(self, resp, result, spread: MarginSpread, resid: np.ndarray,
-                     decisive: list[float]) -> list[tuple[float, str]]:
+                     decisive: list[tuple[float, float]]) -> list[tuple[float, str]]:
         measured = resp.freq_hz
         asks: list[tuple[float, str]] = []
         asks += [(f, "crossing") for f in pl.crossing_points(self._crossings(spread), measured)]
         asks += [(f, "resonance") for f in pl.resonance_points(self._resonances(result),
                                                                 measured, self.band)]
         asks += [(f, "residual") for f in pl.residual_points(measured, resid)]
+        asks += [(f, "again") for f in self._buried(result)]
         if spread.log_draws.size:
             grid = spread.grid_hz
             far = np.min(np.abs(np.log10(grid)[:, None] - np.log10(measured)[None, :]), axis=1)
@@ -508,17 +617,31 @@ class AdaptiveCapture:
                                           self.s.max_repeats) for f in cand]
             sig = np.array([point_sigma(f, ps, self.level, self.noise) for f, ps in zip(cand, plan)])
             sig = sig / np.abs(result.response(cand))          # relative, as the log draws are
+            # a point the noise would bury tells the fit nothing: not a candidate
+            sig = np.where(sig > BURIED_RELATIVE_SIGMA, np.inf, sig)
             cost = np.array([float(self.times.point_time(f, ps.bandwidth_hz, ps.repeats))
                              for f, ps in zip(cand, plan)])
             n_var = max(2, POINTS_PER_ROUND - len(asks))
             asks += [(f, "variance") for f in pl.variance_points(
                 cand, spread.log_draws[:, keep], [spread.pm_draws, spread.gm_draws],
                 [self.s.pm_sigma_deg, self.s.gm_sigma_db], lambda fs: sig, lambda fs: cost, n_var)]
-        chosen = pl.merge_new_points([f for f, _ in asks], measured, self.band)
+        if not (math.isfinite(spread.pm_sigma_deg) and math.isfinite(self._gm_sigma(spread, result))):
+            asks += [(f, "densify") for f in pl.densify_points([f for f, _ in decisive], measured)]
+        chosen = pl.merge_new_points([f for f, _ in asks if self._useful(f, decisive, result)],
+                                     measured, self.band)
         why = {}
         for f, p in asks:
             why.setdefault(f, p)
         return [(f, why.get(f, "variance")) for f in chosen]
+
+    def _useful(self, f: float, decisive, fit) -> bool:
+        """False when a point at ``f`` would be buried even with the settings planned for it."""
+        if self.noise is None:
+            return True
+        ps = choose_point_settings(f, self._sigma_for(f, decisive), self.level, self.noise,
+                                   self.s.bandwidth_hz, self.s.min_bandwidth_hz, self.s.max_repeats)
+        mag = float(abs(fit.model.response(np.array([f]))[0]))
+        return not noise_dominated(point_sigma(f, ps, self.level, self.noise), mag)
 
     def run(self, *, resume: bool = False) -> AdaptiveResult:
         """Capture until the margins are known or a budget ends it; returns the result."""
@@ -555,15 +678,18 @@ class AdaptiveCapture:
                 stopped = INTERRUPTED
             self.stop_flag = None
         rounds = len(self.history)
-        try:
-            resp, result, resid = self._fit()
-            spread = margin_spread(result, *self._fit_band(resp), rng=self.rng)
-        except (FitError, InputError) as e:
-            self.warnings.append(f"the final fit failed: {e}")
+        if self.last is not None and self.last[4] == len(self._sweep()):
+            resp, result, resid, spread, _ = self.last      # nothing measured since: keep it
+        else:
+            try:
+                resp, result, resid = self._fit()
+                spread = margin_spread(result, *self._fit_band(resp), rng=self.rng, data=resp)
+            except (FitError, InputError) as e:
+                self.warnings.append(f"the final fit failed: {e}")
         if spread is not None and stopped == PRECISION and not fit_adequate(result, resid):
             stopped = NOTHING_LEFT
         self._write_sweep(complete=stopped != INTERRUPTED, stopped=stopped)
-        return self._result(spread, stopped, rounds)
+        return self._result(spread, stopped, rounds, result)
 
     def _fit_band(self, resp) -> tuple[float, float]:
         return float(resp.freq_hz[0]), float(resp.freq_hz[-1])
@@ -578,24 +704,30 @@ class AdaptiveCapture:
                     self.warnings.append(f"fit of the points so far failed ({e}); adding points")
                     self.per_decade *= 2
                     break
-                spread = margin_spread(result, *self._fit_band(resp), rng=self.rng)
+                spread = margin_spread(result, *self._fit_band(resp), rng=self.rng, data=resp)
                 self.model = result.model
+                self.last = (resp, result, resid, spread, len(self._sweep()))
                 decisive = self._decisive(spread, result)
+                self.fit_from_hz = fit_band_start([f for f, _ in decisive], self.s.start_hz)
                 adequate = fit_adequate(result, resid)
+                gm_sigma = self._gm_sigma(spread, result)
                 self.history.append({
                     "points": len(resp), "instrument_time_s": self.elapsed_s,
                     "phase_margin_deg": spread.margins.phase_margin_deg,
                     "phase_margin_sigma_deg": spread.pm_sigma_deg,
                     "gain_margin_db": spread.margins.gain_margin_db,
-                    "gain_margin_sigma_db": spread.gm_sigma_db, "fit_adequate": adequate,
+                    "gain_margin_sigma_db": gm_sigma, "fit_adequate": adequate,
                     "reduced_chi2": result.stats.get("reduced_chi2"), "order": result.stats.get("order"),
-                    "missed_points": int(np.sum(resid > pl.RESIDUAL_SIGMAS))})
+                    "missed_points": int(np.sum(resid > pl.RESIDUAL_SIGMAS)),
+                    "why_unknown": spread.reason or ("buried points may hide a phase crossing"
+                                                      if math.isinf(gm_sigma) else "")})
                 fc = spread.margins.crossover_hz
                 if self.s.linearity and self.linearity is None and math.isfinite(fc):
                     if self._linearity(fc, decisive):
                         break                      # new level: measure the sweep again
                     continue                       # refit with the same points, now checked
-                reason = stop_reason(spread.pm_sigma_deg, spread.gm_sigma_db, adequate, self.s,
+                reason = stop_reason(spread.pm_sigma_deg, spread.margins.gain_margin_db, gm_sigma,
+                                     adequate, self.s,
                                      len(self.rows), self.elapsed_s)
                 if reason:
                     return reason
@@ -607,7 +739,8 @@ class AdaptiveCapture:
             else:
                 return ROUNDS
 
-    def _result(self, spread: MarginSpread | None, stopped: str, rounds: int) -> AdaptiveResult:
+    def _result(self, spread: MarginSpread | None, stopped: str, rounds: int,
+                final_fit=None) -> AdaptiveResult:
         nan = math.nan
         m = spread.margins if spread is not None else None
         sweep = self._sweep()
@@ -620,7 +753,7 @@ class AdaptiveCapture:
             phase_margin_deg=m.phase_margin_deg if m else nan,
             phase_margin_sigma_deg=spread.pm_sigma_deg if spread else nan,
             gain_margin_db=m.gain_margin_db if m else nan,
-            gain_margin_sigma_db=spread.gm_sigma_db if spread else nan,
+            gain_margin_sigma_db=self._gm_sigma(spread, final_fit) if spread else nan,
             crossover_hz=m.crossover_hz if m else nan, phase_crossover_hz=m.phase_crossover_hz if m else nan,
             stopped_because=stopped, rounds=rounds, level_v=self.level, settings=self.s.to_dict(),
             history=tuple(self.history),

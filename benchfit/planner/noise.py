@@ -41,6 +41,25 @@ ZONE_DECADES = 0.2
 SMOOTH_DECADES = 0.35
 
 
+#: A point whose mean reading has a relative σ above this is buried in the noise:
+#: its log-magnitude is biased and its phase not even roughly known (0.3 is about
+#: 2.6 dB and 17°; common practice, no source).
+BURIED_RELATIVE_SIGMA = 0.3
+
+
+def noise_dominated(sigma_abs: float, magnitude: float) -> bool:
+    """True when a point's noise buries it (relative σ above :data:`BURIED_RELATIVE_SIGMA`).
+
+    Evidence weighed: the σ of the point's mean reading against its magnitude.
+    Such a point tells the fit (which works on log-magnitude and phase) more
+    noise than response, so it is kept in the log but out of the sweep; where
+    it might hide a margin it is measured again with more effort.
+    """
+    if not (math.isfinite(sigma_abs) and magnitude > 0):
+        return False
+    return sigma_abs / magnitude > BURIED_RELATIVE_SIGMA
+
+
 def _ln10_db() -> float:
     return 20.0 / math.log(10.0)
 
@@ -130,25 +149,37 @@ class TimeModel:
         return self.c0 + self.c1 / f + np.asarray(repeats, float) / np.asarray(bandwidth_hz, float)
 
 
-def required_point_sigma(freq_hz: float, decisive_hz: Sequence[float], pm_sigma_deg: float,
-                         gm_sigma_db: float) -> float:
+def component_sigma(kind: str, pm_sigma_deg: float, gm_sigma_db: float) -> float:
+    """The σ (rad or nepers) of phase and log-magnitude that decides a margin near a
+    frequency of ``kind``: ``"gain"`` (a gain crossing: the phase margin, in rad) or
+    ``"phase"`` (a phase crossing, a resonance above crossover, a buried stretch:
+    the gain margin, in nepers)."""
+    if kind == "gain":
+        return math.radians(pm_sigma_deg)
+    return gm_sigma_db / _ln10_db()
+
+
+def required_point_sigma(freq_hz: float, decisive: Sequence[tuple[float, float]]) -> float:
     """Relative complex σ a point at ``freq_hz`` must reach (σ of its mean reading / |T|).
 
-    Evidence weighed: where the point lies.  Within ±:data:`ZONE_DECADES` of a
-    frequency that decides a margin (``decisive_hz``: the gain and phase
-    crossings, resonances) the phase margin follows the phase there one to
-    one and the gain margin the log magnitude, shared by about
-    :data:`SHARED_POINTS` points; so each point may have ``sqrt(SHARED_POINTS)``
-    times the asked σ in each component (phase in rad, ln|T| in nepers).  A
-    complex relative σ of ``r`` puts ``r/√2`` into each component.  Elsewhere
-    points only hold the model's shape: no requirement (inf), they are taken
-    at the widest bandwidth and weighted by the noise they have.
+    Evidence weighed: where the point lies.  ``decisive`` lists (frequency,
+    component σ) of what decides a margin: at a gain crossing the phase margin
+    follows the phase one to one (component σ: the asked PM σ in rad), at a
+    phase crossing the gain margin follows the log magnitude (the asked GM σ in
+    nepers; see :func:`component_sigma`).  Within ±:data:`ZONE_DECADES` of such a
+    frequency, about :data:`SHARED_POINTS` points share the job, so each may
+    have ``sqrt(SHARED_POINTS)`` times that σ in each component; a complex
+    relative σ of ``r`` puts ``r/√2`` into each.  The tightest zone the point
+    lies in wins.  Elsewhere points only hold the model's shape: no
+    requirement (inf), they are taken at the widest bandwidth and weighted by
+    the noise they have.
     """
-    comp = min(math.radians(pm_sigma_deg), gm_sigma_db / _ln10_db()) * math.sqrt(SHARED_POINTS)
-    sigma = math.sqrt(2.0) * comp
     x = math.log10(freq_hz)
-    near = any(abs(x - math.log10(d)) <= ZONE_DECADES for d in decisive_hz if d > 0 and math.isfinite(d))
-    return sigma if near else math.inf
+    comps = [c for f, c in decisive
+             if f > 0 and math.isfinite(f) and abs(x - math.log10(f)) <= ZONE_DECADES]
+    if not comps:
+        return math.inf
+    return math.sqrt(2.0) * min(comps) * math.sqrt(SHARED_POINTS)
 
 
 @dataclass(frozen=True)

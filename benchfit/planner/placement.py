@@ -11,6 +11,8 @@
   noise allows, the neighbourhood is measured more densely.
 * :func:`variance_points`: the frequencies where one more point removes the
   most variance from PM and GM per second of instrument time.
+* :func:`densify_points`: when the covariance cannot guide (see above), halve
+  the spacing where the margins are decided.
 * :func:`merge_new_points`: drops requests that duplicate a point already taken.
 """
 
@@ -31,10 +33,11 @@ POINTS_PER_WIDTH = 5
 #: for complex Gaussian noise P(|e| > 4σ) = exp(-16) per point.
 RESIDUAL_SIGMAS = 4.0
 #: Phase crossings with a gain margin beyond this (dB, either sign) decide nothing
-#: the asked margins depend on (a delay's phase spinning far below 0 dB).
+#: a designer needs to the dB (a delay's phase spinning far below 0 dB): "more than
+#: 30 dB" is all a margin that large needs to be known as (common practice, no source).
 DECIDING_GM_DB = 30.0
-#: Resonances where the model's |T| is below this (dB) lie far from 0 dB: they move
-#: neither margin (common practice, no source).
+#: Resonances where the model's |T| is more than this far from 0 dB (either way)
+#: move neither margin (common practice, no source).
 DECIDING_RESONANCE_DB = -40.0
 #: New points closer than this (decades) to a taken one are not worth taking.
 MIN_SPACING_DECADES = 0.004
@@ -73,13 +76,13 @@ def crossing_points(crossings_hz: Sequence[float], measured_hz: Sequence[float],
     return out
 
 
-def deciding_crossings(crossings) -> list[float]:
-    """Frequencies of the crossings that decide a margin: every gain crossing, and the
-    phase crossings whose gain margin lies within ±:data:`DECIDING_GM_DB`.
+def deciding_crossings(crossings) -> list[tuple[float, str]]:
+    """(frequency, kind) of the crossings that decide a margin: every gain crossing,
+    and the phase crossings whose gain margin lies within ±:data:`DECIDING_GM_DB`.
 
-    Evidence weighed: the margins' crossing list.  A phase crossing 60 dB below
+    Evidence weighed: the margins' crossing list.  A phase crossing 40 dB below
     0 dB (a delay's phase turning far above crossover) changes no margin a user
-    asks for; spending points on it only costs time.
+    needs to the dB; spending points on it only costs time.
     """
     out = []
     for c in crossings:
@@ -87,21 +90,22 @@ def deciding_crossings(crossings) -> list[float]:
         if not (math.isfinite(f) and f > 0):
             continue
         if c["kind"] == "gain" or abs(float(c["value"])) <= DECIDING_GM_DB:
-            out.append(f)
+            out.append((f, str(c["kind"])))
     return out
 
 
 def deciding_resonances(resonances: Sequence[tuple[float, float]], response: Callable) -> list[tuple[float, float]]:
-    """The resonances whose peak comes within :data:`DECIDING_RESONANCE_DB` of 0 dB.
+    """The resonances whose |T| at f0 lies within ±|:data:`DECIDING_RESONANCE_DB`| of 0 dB.
 
-    Evidence weighed: the model's |T| at each resonance's f0.  Far below 0 dB a
-    resonance moves neither margin, and in a noisy stretch of the band it is as
-    likely the fit's picture of the noise as a real one.
+    Evidence weighed: the model's |T| at each resonance's f0.  Far from 0 dB (far
+    below, or far above where the loop gain is large) a resonance moves neither
+    margin, and in a noisy stretch of the band it is as likely the fit's picture
+    of the noise as a real one.
     """
     out = []
     for f0, q in resonances:
         mag = abs(complex(np.asarray(response(np.array([f0])))[0]))
-        if mag > 0 and 20 * math.log10(mag) >= DECIDING_RESONANCE_DB:
+        if mag > 0 and abs(20 * math.log10(mag)) <= -DECIDING_RESONANCE_DB:
             out.append((f0, q))
     return out
 
@@ -229,8 +233,9 @@ def variance_points(candidates_hz: np.ndarray, log_draws: np.ndarray, targets: S
     nq, k = z.shape[1], cand.size
     noise_var = (np.asarray(point_sigma(cand), float) / math.sqrt(2.0)) ** 2
     cost = np.maximum(np.asarray(point_cost_s(cand), float), 1e-9)
-    picked: list[int] = []
-    for _ in range(int(n_max)):
+    picked: list[int] = [j for j in range(k) if not np.isfinite(noise_var[j])]   # would tell nothing
+    skip = len(picked)
+    while len(picked) - skip < int(n_max):
         total = float(np.trace(cov[:nq, :nq]))
         if total <= 0:
             break
@@ -254,7 +259,35 @@ def variance_points(candidates_hz: np.ndarray, log_draws: np.ndarray, targets: S
         s = cov[np.ix_(idx, idx)] + noise_var[best] * np.eye(2)
         c = cov[:, idx]
         cov = cov - c @ np.linalg.solve(s, c.T)
-    return [float(cand[j]) for j in picked]
+    return [float(cand[j]) for j in picked[skip:]]
+
+
+def densify_points(decisive_hz: Sequence[float], measured_hz: Sequence[float],
+                   zone_decades: float = 0.2) -> list[float]:
+    """Geometric midpoints between the measured points within ±``zone_decades`` of each
+    deciding frequency (and the gaps just outside the zone's measured ends).
+
+    Evidence weighed: where the margins are decided and how densely it is
+    measured.  Used when the fit's covariance cannot say where a point would
+    help (no usable covariance, or draws the data contradict): then the
+    surest gain is more points, of the deciding-point quality, where the
+    margins are decided.
+    """
+    f = np.sort(np.asarray(measured_hz, float))
+    out: list[float] = []
+    if f.size < 2:
+        return out
+    x = np.log10(f)
+    for d in decisive_hz:
+        if not (math.isfinite(d) and d > 0):
+            continue
+        xd = math.log10(d)
+        inside = np.flatnonzero(np.abs(x - xd) <= zone_decades)
+        lo = max(int(inside[0]) - 1, 0) if inside.size else max(int(np.searchsorted(x, xd)) - 1, 0)
+        hi = min(int(inside[-1]) + 1, f.size - 1) if inside.size else min(lo + 1, f.size - 1)
+        for i in range(lo, hi):
+            out.append(float(math.sqrt(f[i] * f[i + 1])))
+    return out
 
 
 def merge_new_points(new_hz: Sequence[float], measured_hz: Sequence[float], band: tuple[float, float],

@@ -30,15 +30,16 @@ def converter_loop() -> PlantModel:
 
 
 def regulator_loop() -> PlantModel:
-    """Linear regulator loop whose output capacitor's ESR zero (30 kHz) lifts the phase.
+    """Linear regulator loop whose output capacitor's ESR zero (20 kHz) lifts the phase.
 
-    T(s) = A0 (1 + s/ωesr) / ((1 + s/ω1)(1 + s/ω2)(1 + s/ω3)(1 + s/ω4)) with a
-    60 dB error amplifier (pole 100 Hz), the load pole at 2 kHz, the pass
-    device at 500 kHz and the amplifier's second pole at 1 MHz.  Band 10 Hz .. 3 MHz.
+    T(s) = A0 (1 + s/ωesr) / ((1 + s/ω1)(1 + s/ω2)(1 + s/ω3)(1 + s/ω4)) with an
+    80 dB error amplifier (pole 100 Hz), the load pole at 2 kHz, the pass
+    device at 300 kHz and the amplifier's second pole at 1 MHz: crossover near
+    97 kHz, the phase crossing near 530 kHz.  Band 10 Hz .. 3 MHz.
     """
-    poles = -_W * np.array([100.0, 2e3, 500e3, 1e6])
-    wz = _W * 30e3
-    a0 = 1000.0
+    poles = -_W * np.array([100.0, 2e3, 300e3, 1e6])
+    wz = _W * 20e3
+    a0 = 1e4
     k = a0 * float(np.prod(-poles)) / wz
     return PlantModel(zeros=np.array([-wz]), poles=poles, k=k,
                       provenance=Provenance(step="scenario", settings={"name": "regulator_loop"}))

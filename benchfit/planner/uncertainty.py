@@ -13,7 +13,10 @@ ignores the tails that a plain standard deviation would let dominate).
 Sampling rather than linearising keeps the nonlinear map from, e.g., Q to
 phase margin honest when the spread is wide.  When the covariance is
 missing, or more than :data:`LOST_FRACTION` of the draws lose the crossing,
-the σ is infinite: the margin is not known yet.
+the σ is infinite: the margin is not known yet.  With the measured data at
+hand, draws the data contradict are dropped first (:func:`consistent_draws`):
+the linear approximation behind the covariance fails for poorly identified
+parameters, and such a draw would stand for a loop the measurement rules out.
 
 The same draws give, at candidate frequencies, the spread of the model's
 log-magnitude and phase and their covariance with the margins, which
@@ -31,6 +34,10 @@ from benchfit.loop.margins import Margins, margins_batch, margins_of_model
 
 #: Parameter draws per estimate.
 DRAWS = 400
+#: Fraction of draws a fit the covariance describes well loses to the consistency test.
+REJECT_P = 1e-3
+#: Fewer consistent draws than this fraction: the σ is not known.
+MIN_CONSISTENT = 0.25
 #: Draws that lose a crossing (nan PM) beyond this fraction make the σ infinite.
 LOST_FRACTION = 0.05
 #: Grid points per decade for the draws, plus this many around each crossing.
@@ -107,9 +114,36 @@ def covariance_usable(fit) -> bool:
                if v in by_name)
 
 
+def consistent_draws(at_data: np.ndarray, measured: np.ndarray, stddev: np.ndarray,
+                     nominal: np.ndarray, n_params: int, redchi: float) -> np.ndarray:
+    """Which parameter draws the data do not contradict (boolean mask).
+
+    Evidence weighed: each draw's χ² against the measured points, less the
+    nominal model's.  For draws from the fit's linearised covariance this
+    excess, divided by the reduced χ² the covariance was scaled with, follows
+    a χ² law with one degree of freedom per varied parameter; a draw beyond
+    its 1 - :data:`REJECT_P` quantile is one where the linearisation fails
+    (a poorly identified pole drawn through zero into the right half-plane
+    turns the phase of the whole band) and is dropped.  For a fit the
+    covariance describes well this drops a fraction REJECT_P of the draws.
+    """
+    from scipy.stats import chi2
+
+    sd = np.asarray(stddev, float)
+    w = 2.0 / sd ** 2                       # complex σ: σ²/2 in each component
+    c_nom = float(np.sum(w * np.abs(nominal - measured) ** 2))
+    c = np.sum(w * np.abs(at_data - measured[None, :]) ** 2, axis=1)
+    limit = chi2.ppf(1.0 - REJECT_P, max(int(n_params), 1)) * max(redchi, 1e-12)
+    return (c - c_nom) <= limit
+
+
 def margin_spread(fit, f_lo: float, f_hi: float, *, draws: int = DRAWS,
-                  rng: np.random.Generator | None = None) -> MarginSpread:
-    """PM and GM of ``fit`` over ``f_lo..f_hi`` Hz with σ from parameter sampling (module notes)."""
+                  rng: np.random.Generator | None = None, data=None) -> MarginSpread:
+    """PM and GM of ``fit`` over ``f_lo..f_hi`` Hz with σ from parameter sampling (module notes).
+
+    With ``data`` (the FrequencyResponse fitted, with its stddev), draws the
+    data contradict are dropped first (:func:`consistent_draws`).
+    """
     rng = np.random.default_rng(0) if rng is None else rng
     m = margins_of_model(fit.model, f_min_hz=f_lo, f_max_hz=f_hi)
     grid = _grid(f_lo, f_hi, m)
@@ -118,7 +152,22 @@ def margin_spread(fit, f_lo: float, f_hi: float, *, draws: int = DRAWS,
         empty = np.full(0, np.nan)
         return MarginSpread(m, math.inf, math.inf, empty, empty, grid,
                             np.zeros((0, grid.size), complex), "the fit has no usable covariance")
-    T = fit.draw_responses(grid, draws, rng)
+    if data is not None:
+        both = fit.draw_responses(np.concatenate([grid, data.freq_hz]), draws, rng)
+        T, at_data = both[:, :grid.size], both[:, grid.size:]
+        keep = consistent_draws(at_data, data.response, data.stddev,
+                                fit.response(data.freq_hz), len(fit.varied),
+                                float(fit.stats.get("reduced_chi2") or 1.0))
+        if keep.mean() < MIN_CONSISTENT:
+            empty = np.full(0, np.nan)
+            return MarginSpread(m, math.inf, math.inf, empty, empty, grid,
+                                np.zeros((0, grid.size), complex),
+                                "most parameter draws contradict the data (the linearised "
+                                "covariance does not describe this fit)")
+        T = T[keep]
+        draws = T.shape[0]
+    else:
+        T = fit.draw_responses(grid, draws, rng)
     b = margins_batch(grid, np.vstack([nominal, T]),
                       unstable_open_loop_poles=m.open_loop_unstable_poles)
     pm, gm = b["pm_deg"], b["gm_db"]
