@@ -14,11 +14,15 @@ import tempfile
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Any
-
-import numpy as np
+from typing import TYPE_CHECKING, Any
 
 from benchfit.errors import InputError
+
+if TYPE_CHECKING:
+    import numpy as np
+
+# numpy is imported inside the functions that need it: the CLI parser imports this module and
+# must start without numpy (DEVELOPERS.md, "Start-up").
 
 
 def _read_umask() -> int:
@@ -89,12 +93,16 @@ def append_lines_durable(path: str | os.PathLike, lines: Iterable[str]) -> None:
 
 def encode_complex(values: Any) -> list[list[float]]:
     """Complex array-like -> list of ``[re, im]`` pairs (the JSON form)."""
+    import numpy as np
+
     arr = np.atleast_1d(np.asarray(values, dtype=complex))
     return [[float(v.real), float(v.imag)] for v in arr]
 
 
 def decode_complex(pairs: Any, *, what: str = "value") -> np.ndarray:
     """List of ``[re, im]`` pairs (or plain reals) -> complex numpy array."""
+    import numpy as np
+
     out = []
     for p in pairs or []:
         try:
@@ -111,6 +119,20 @@ def decode_complex(pairs: Any, *, what: str = "value") -> np.ndarray:
 
 
 def _default(o: Any) -> Any:
+    if type(o).__module__.partition(".")[0] == "numpy":  # only a caller that has numpy loaded can pass its objects
+        return _numpy_default(o)
+    if isinstance(o, complex):
+        return [o.real, o.imag]
+    if isinstance(o, Path):
+        return str(o)
+    if hasattr(o, "to_dict"):
+        return o.to_dict()
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
+def _numpy_default(o: Any) -> Any:
+    import numpy as np
+
     if isinstance(o, np.ndarray):
         if np.iscomplexobj(o):
             return encode_complex(o)
@@ -121,12 +143,8 @@ def _default(o: Any) -> Any:
         return int(o)
     if isinstance(o, (np.bool_,)):
         return bool(o)
-    if isinstance(o, complex):
-        return [o.real, o.imag]
-    if isinstance(o, Path):
-        return str(o)
-    if hasattr(o, "to_dict"):
-        return o.to_dict()
+    if isinstance(o, np.complexfloating):
+        return [float(o.real), float(o.imag)]
     raise TypeError(f"not JSON serialisable: {type(o).__name__}")
 
 

@@ -44,7 +44,7 @@ step_trace.csv
     (0.80 V → 0.85 V at t = 0), CH2 the output (3.300 V → 3.50625 V, gain
     3.3/0.8) with a second-order response, ζ = 0.3 and 5 kHz ringing.  2000
     samples every 1 µs from −200 µs (pre-trigger).  Noise 0.5 mV on CH1, 2 mV
-    (1 % of the step) on CH2.  Comma separated, metadata lines, time in µs.
+    (1 % of the step) on CH2.  benchfit's canonical trace format (time in s).
 load_step_trace.csv
     Output deviation of the compensated buck for a 0.5 A → 1.5 A load step:
     closed-loop output impedance taken as Rp·2ζωn·s/(s² + 2ζωn·s + ωn²) with
@@ -318,10 +318,11 @@ def gen_step(out: Path, scen: dict) -> None:
     rng = np.random.default_rng(20240106)
     ch1 = np.where(t >= 0, ref1, ref0) + rng.normal(0, 0.5e-3, n)
     ch2 = y + rng.normal(0, 2e-3, n)
-    lines = ["Model,benchfit sample generator (simulated scope)", f"Record Length,{n}",
-             "Sample Interval,1.0E-06", "Trigger Point,200", "Source,CH1 CH2", "Vertical Units,V",
-             "Horizontal Units,us", "", "Time (us),CH1 (V),CH2 (V)"]
-    lines += [f"{ti * 1e6:.1f},{a:.5f},{b:.5f}" for ti, a, b in zip(t, ch1, ch2, strict=True)]
+    # benchfit's own canonical trace format: time in s, one column per channel in V
+    meta = {"what": "reference step on the compensated buck", "source": "sample_data/generate.py",
+            "units": {"CH1": "V", "CH2": "V"}, "channels": {"CH1": "reference", "CH2": "output"}}
+    lines = ["# benchfit trace v1", "# meta: " + json.dumps(meta), "time_s,CH1,CH2"]
+    lines += [f"{ti:.7e},{a:.5f},{b:.5f}" for ti, a, b in zip(t, ch1, ch2, strict=True)]
     write(out / "step_trace.csv", "\n".join(lines) + "\n")
     scen["step_trace.csv"] = {
         "what": "reference step on the compensated buck: CH1 reference, CH2 output",

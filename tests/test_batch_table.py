@@ -2,7 +2,9 @@
 reading a design's loop parts; the progress line."""
 
 import io
+import json
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -122,3 +124,52 @@ def test_progress_line():
     line = out.getvalue().splitlines()[-1]
     # 3 done in 6 s -> 2 s each, one left -> 0:02 left
     assert line == "batch: 3/4 (75%), 1 failed, 1 errors, 0:06 elapsed, 0:02 left"
+
+
+def test_lot_skips_what_runs_wrote_and_says_so(tmp_path):
+    """A second run over a folder takes the same sweeps as the first: its result tables,
+    summary, histograms and other non-sweep files are skipped, each with the reason."""
+    from benchfit.batch.lotfiles import find_lot, not_a_sweep
+
+    (tmp_path / "u1.csv").write_text("f,db,deg\n10,1,2\n")
+    (tmp_path / "results.csv").write_text("file,unit,status,reason\nu1.csv,u1,pass,\n")
+    (tmp_path / "old-results.csv").write_text("\ufefffile,unit,status,reason\n")
+    (tmp_path / "summary.json").write_text('{"kind": "lot_summary", "total": 1}')
+    (tmp_path / "design.json").write_text('{"kind": "design"}')
+    (tmp_path / "hist.png").write_bytes(b"\x89PNG\r\n\x1a\n\0\0")
+    (tmp_path / "sweep.json").write_text('{"kind": "frequency_response"}')
+    lot = find_lot(tmp_path)
+    assert [p.replace(str(tmp_path), "") for p in lot.files] == ["/sweep.json", "/u1.csv"]
+    reasons = {p.replace(str(tmp_path) + "/", ""): why for p, why in lot.skipped}
+    assert reasons == {"design.json": "a benchfit design", "hist.png": ".png extension",
+                       "old-results.csv": "a lot's result table", "results.csv": "a lot's result table",
+                       "summary.json": "a benchfit lot summary"}
+    line = lot.skipped_line()
+    assert line.startswith("skipped 5 file(s) that are not sweeps:") and "hist.png (.png extension)" in line
+    # a glob is judged the same way; one file named on its own is always taken
+    assert find_lot(str(tmp_path / "*")).files == lot.files
+    assert find_lot(tmp_path / "results.csv").files == [str(tmp_path / "results.csv")]
+    assert not_a_sweep(tmp_path / "u1.csv") is None
+
+
+def test_batch_rerun_over_its_own_folder(tmp_path, capsys):
+    """`benchfit batch LOT -o LOT/results.csv` run twice: the second run sees the same two
+    sweeps (no error row for its own table), and says what it skipped."""
+    import shutil
+
+    from benchfit.cli import main
+
+    sample = Path(__file__).resolve().parents[1] / "sample_data" / "ldo_loop.csv"
+    lot = tmp_path / "lot"
+    lot.mkdir()
+    for name in ("u1.csv", "u2.csv"):
+        shutil.copy(sample, lot / name)
+    args = ["batch", str(lot), "--quantity", "loop", "--summary", str(lot / "summary.json"),
+            "--quiet", "--workers", "1", "--json"]
+    assert main([*args, "-o", str(lot / "results.csv")]) == 0
+    capsys.readouterr()
+    assert main([*args, "-o", str(lot / "results2.csv")]) == 0
+    out, err = capsys.readouterr()
+    run = json.loads(out)["run"]
+    assert run["files"] == 2 and json.loads(out)["summary"]["counts"].get("error", 0) == 0
+    assert "skipped 1 file(s) that are not sweeps: results.csv (a lot's result table)" in err

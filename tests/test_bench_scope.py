@@ -30,22 +30,37 @@ def step(t):
 
 
 def profile(**changes):
-    return dataclasses.replace(find_profile("generic-scope"), timeout_s=0.3, complete_timeout_s=None,
-                               retries=1, **changes)
+    base = find_profile("generic-scope")
+    if changes.get("encoding", "").startswith("int"):
+        # the simulator's own code-scaling queries (the shipped profile sends volts)
+        changes["commands"] = {**base.commands, "volts_per_code": "TRACe:CODE:VOLTs? {channel}",
+                               "volts_at_code_zero": "TRACe:CODE:ZERO? {channel}"}
+    return dataclasses.replace(base, timeout_s=0.3, complete_timeout_s=None, retries=1, **changes)
 
 
 @pytest.mark.parametrize("encoding,order", [("int8", "big"), ("int16", "big"), ("int16", "little"),
                                             ("int32", "little"), ("real32", "big"), ("ascii", "big")])
 def test_scaled_trace_matches_waveform(tmp_path, encoding, order):
-    scope = SimulatedScope(step, record_points=500, x_increment_s=2e-7, pretrigger=0.2)
+    scope = SimulatedScope(step, record_points=500, sample_interval_s=2e-7, pretrigger=0.2)
     out = tmp_path / "t.csv"
     with simulated_session(scope, profile(encoding=encoding, byte_order=order), folder=tmp_path) as s:
         trace = capture_trace(s, "CH1", out=out)
     t_expected = -0.2 * 500 * 2e-7 + np.arange(500) * 2e-7
     np.testing.assert_allclose(trace.time_s, t_expected, rtol=0, atol=1e-15)
-    yinc = trace.meta["scaling"]["y_increment_v"]
-    assert trace.meta["scaling"]["y_reference"] == scope.yref != 0
-    assert np.max(np.abs(trace.channel("CH1") - step(trace.time_s))) <= 0.5 * yinc * (1 + 1e-9)
+    sc = trace.meta["scaling"]
+    yinc = scope.volts_per_code
+    assert sc["sample_interval_s"] == 2e-7
+    assert sc["volts_at_code_zero"] == pytest.approx(scope.volts_at_code_zero if encoding.startswith("int")
+                                                     else 0.0, rel=1e-11)
+    assert scope.volts_at_code_zero != 0  # the offset path is exercised
+    if encoding.startswith("int"):
+        assert sc["volts_per_code"] == pytest.approx(yinc, rel=1e-11)
+    else:
+        assert sc["volts_per_code"] is None
+    # half a code of quantisation, plus the scale's 12-digit ASCII rounding and, where the
+    # scope sends volts as REAL,32, float32's half ulp at 2.5 V
+    slack = 1e-11 + (2.5 * 2.0 ** -24 if encoding == "real32" else 0.0)
+    assert np.max(np.abs(trace.channel("CH1") - step(trace.time_s))) <= 0.5 * yinc * (1 + 1e-9) + slack
     if encoding == "int8":
         assert yinc > 2.5 / 256    # 8 bits really were used
     again = read_canonical_trace(out)
@@ -54,7 +69,7 @@ def test_scaled_trace_matches_waveform(tmp_path, encoding, order):
 
 
 def test_over_loopback_socket():
-    scope = SimulatedScope(step, record_points=300, x_increment_s=1e-6)
+    scope = SimulatedScope(step, record_points=300, sample_interval_s=1e-6)
     with simulated_session(scope, profile(), transport="tcp") as s:
         trace = capture_trace(s, "CH1")
     assert len(trace) == 300
@@ -70,7 +85,7 @@ def test_without_trigger_the_wait_times_out(tmp_path):
 def test_unknown_channel_is_reported_by_the_error_queue(tmp_path):
     scope = SimulatedScope(step)
     with simulated_session(scope, profile(), folder=tmp_path) as s:
-        with pytest.raises(InstrumentError, match=r"TRACe:XINCrement\? CH7.*-224"):
+        with pytest.raises(InstrumentError, match=r"TRACe:DATA\? CH7.*-224"):
             capture_trace(s, "CH7")
 
 

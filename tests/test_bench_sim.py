@@ -74,7 +74,7 @@ def test_half_forms_are_rejected_with_undefined_header():
     ("FORM:DATA REAL,16", -224),
     ("FORM:BORD SIDEWAYS", -224),
     ("SENS:SWE:SPAC CUBIC", -224),
-    ("CALC:DATA? SDAT", -230),
+    ("CALC:DATA?", -230),
 ])
 def test_standard_error_numbers(cmd, code):
     inst = SimulatedAnalyzer(lowpass)
@@ -136,11 +136,11 @@ def test_sweep_values_and_axis_in_every_encoding():
                             ("REAL,64", "real64", "big"), ("REAL,64", "real64", "little")]:
         inst.receive(f"FORM:DATA {fmt}")
         inst.receive(f"FORM:BORD {'SWAP' if order == 'little' else 'NORM'}")
-        inst.receive("FREQ:DATA?")
+        inst.receive("SWE:AXIS?")
         raw = inst.take_reply()
         f = parse_ascii(raw) if enc == "ascii" else parse_block(raw, enc, order)
         np.testing.assert_allclose(f, f_expected, rtol=1e-7)
-        inst.receive("CALC:DATA? SDAT")
+        inst.receive("CALC:DATA?")
         raw = inst.take_reply()
         v = parse_ascii(raw) if enc == "ascii" else parse_block(raw, enc, order)
         np.testing.assert_allclose(v[0::2] + 1j * v[1::2], lowpass(f_expected), rtol=1e-6, atol=1e-7)
@@ -155,7 +155,7 @@ def test_frequency_read_back_is_quantised():
 def test_noise_level_matches_setting():
     inst = SimulatedAnalyzer(lowpass, noise=1e-2, seed=3)
     inst.receive("FREQ:STAR 10;FREQ:STOP 1e5;SWE:POIN 2001;INIT")
-    inst.receive("FREQ:DATA?")
+    inst.receive("SWE:AXIS?")
     f = parse_ascii(inst.take_reply())
     inst.receive("CALC:DATA?")
     v = parse_ascii(inst.take_reply())
@@ -174,7 +174,7 @@ def test_through_pyvisa_sim_with_pyvisa_reference_reader(tmp_path):
     assert res.query("*IDN?").startswith("benchfit,simulated analyzer")
     res.write("FORM:DATA REAL,64;FORM:BORD SWAP;FREQ:STAR 100;FREQ:STOP 1e4;SWE:POIN 3;INIT")
     assert res.query("*OPC?") == "1"
-    values = res.query_binary_values("CALC:DATA? SDAT", datatype="d", is_big_endian=False)
+    values = res.query_binary_values("CALC:DATA?", datatype="d", is_big_endian=False)
     np.testing.assert_allclose(np.array(values[0::2]) + 1j * np.array(values[1::2]),
                                lowpass([100, 1e3, 1e4]), rtol=1e-12)
     res.close()

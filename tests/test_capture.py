@@ -77,10 +77,8 @@ def test_over_loopback_tcp_socket(tmp_path):
 
 
 def test_magnitude_phase_form(tmp_path):
-    prof = profile(response_form="db_deg",
-                   commands={**find_profile("generic-analyzer").commands,
-                             "data_query": "CALCulate:DATA? FDATa"})
-    inst = SimulatedAnalyzer(plant, noise=NOISE)
+    prof = profile(response_form="db_deg")
+    inst = SimulatedAnalyzer(plant, noise=NOISE, data_form="db_deg")
     with simulated_session(inst, prof, folder=tmp_path) as s:
         run_capture(s, CaptureSettings(10, 1e5, 17), tmp_path / "db.csv")
     check_against_plant(read_canonical_sweep(tmp_path / "db.csv"), 17)
@@ -94,9 +92,12 @@ def test_to_complex_forms():
 
 
 def test_frequency_axis_comes_from_the_instrument(tmp_path):
+    """With an axis query in the profile, the instrument's own axis is saved."""
     inst = SimulatedAnalyzer(plant, noise=NOISE, freq_resolution_hz=0.5)
     settings = CaptureSettings(10.3, 1e4, 25)
-    with simulated_session(inst, profile(), folder=tmp_path) as s:
+    base = profile()
+    prof = profile(commands={**base.commands, "axis_query": "SENSe:SWEep:AXIS?"})  # simulator's own query
+    with simulated_session(inst, prof, folder=tmp_path) as s:
         run_capture(s, settings, tmp_path / "q.csv")
     f = read_canonical_sweep(tmp_path / "q.csv").freq_hz
     np.testing.assert_allclose(f / 0.5, np.round(f / 0.5), atol=1e-9)   # what the instrument used
@@ -104,6 +105,31 @@ def test_frequency_axis_comes_from_the_instrument(tmp_path):
     # the instrument rounds start to 10.5 Hz, sweeps log from there and rounds each point
     expected = np.round(np.geomspace(10.5, 1e4, 25) / 0.5) * 0.5
     np.testing.assert_allclose(f, expected, rtol=1e-12)
+
+
+def test_axis_rebuilt_from_read_back_settings_without_axis_query(tmp_path):
+    """The shipped profile has no axis query (none is standard): start, stop and points are
+    read back and the log grid rebuilt, so an instrument that rounded its start is seen."""
+    assert not find_profile("generic-analyzer").has("axis_query")
+    inst = SimulatedAnalyzer(plant, noise=NOISE, freq_resolution_hz=0.5)
+    with simulated_session(inst, profile(), folder=tmp_path) as s:
+        run_capture(s, CaptureSettings(10.3, 1e4, 25), tmp_path / "r.csv")
+    f = read_canonical_sweep(tmp_path / "r.csv").freq_hz
+    np.testing.assert_allclose(f, np.geomspace(10.5, 1e4, 25), rtol=1e-12)
+    # and the response is the plant's at those frequencies (each point within the per-point
+    # rounding of the instrument, 0.25 Hz, of the rebuilt one)
+    check_against_plant(read_canonical_sweep(tmp_path / "r.csv"), 25)
+
+
+def test_axis_rebuilt_without_any_read_back(tmp_path):
+    base = profile()
+    cmds = {k: v for k, v in base.commands.items() if not k.endswith("_query") or k == "data_query"}
+    cmds["error_query"], cmds["cw_query"] = base.commands["error_query"], base.commands["cw_query"]
+    inst = SimulatedAnalyzer(plant, noise=NOISE)
+    with simulated_session(inst, profile(commands=cmds), folder=tmp_path) as s:
+        run_capture(s, CaptureSettings(100, 1e4, 11, spacing="lin"), tmp_path / "l.csv")
+    np.testing.assert_allclose(read_canonical_sweep(tmp_path / "l.csv").freq_hz,
+                               np.linspace(100, 1e4, 11), rtol=1e-12)
 
 
 def test_header_meta_and_manifest(tmp_path):

@@ -67,6 +67,17 @@ def scratch(tmp_path_factory):
     # a loop gain below 0 dB everywhere in the band: |T| = 0.3 (f/10 Hz)^-0.25
     (d / "flat_loop.csv").write_text(HEAD + "".join(f"{x:.6g},{-10 - 5 * np.log10(x):.4f},-90\n"
                                                     for x in f[::4]))
+    # reader rows (issue 21): rows that cannot be read, units not understood, one huge line
+    (d / "marker.csv").write_text(HEAD + "100,1,2\n200,1,3\nMarker 1: 5 kHz\n300,1,4\n400,1,5\n")
+    (d / "na.csv").write_text(HEAD + "100,1,2\n200,#N/A,#N/A\n300,1,4\n")
+    (d / "scpi_nan.csv").write_text(HEAD + "100,1,2\n200,9.91E+37,2\n300,1,4\n")
+    (d / "furlongs.csv").write_text(HEAD.replace("Hz", "furlongs") + "100,1,2\n200,1,3\n")
+    (d / "grad.csv").write_text(HEAD.replace("deg", "grad") + "100,1,-2\n200,1,-30\n")
+    (d / "disagree.csv").write_text(HEAD + "".join(f"{x:.6g},{-x / 1e3:.4f},{-x / 1e4:.3f}\n"
+                                                   for x in f[::20]) + f"{f[100]:.6g},10,90\n")
+    (d / "one_line.csv").write_bytes(b"1," * 100_000)
+    (d / "twice.csv").write_text("Time (s),CH1 (V)\n" + "".join(
+        f"{k * 1e-6:.6e},{np.tanh(k / 10):.5f}\n" * 2 for k in range(50)))
     (d / "bad_design.json").write_text('{"kind": "design"}')
     (d / "bad_model.json").write_text('{"kind": "plant_model", "zeros": true, "poles": [], "k": 1}')
     (d / "bad_design.toml").write_text('[plant]\nfiles = ["sweep.csv"]\ncolour = "red"\n')

@@ -152,7 +152,7 @@ def test_cli_text_report_and_warnings_on_stderr(tmp_path):
                         "--delay", "none"], capture_output=True, text=True)
     assert r.returncode == 0
     assert "pole1_hz" in r.stdout
-    assert "benchfit: warning: residual is" in r.stderr
+    assert "benchfit: warning: residual above the noise" in r.stderr
 
 
 def test_routine_simplifications_are_notes_not_warnings(result, tmp_path):
@@ -160,7 +160,7 @@ def test_routine_simplifications_are_notes_not_warnings(result, tmp_path):
     # them is routine (a note in the report and the JSON), not something to act on.  A warning
     # stays for what needs the user (see test_cli_text_report_and_warnings_on_stderr).
     assert result.warnings == ()
-    assert any("above 3× the top frequency" in n for n in result.notes), result.notes
+    assert any("above the band that the data do not need" in n for n in result.notes), result.notes
     assert "  note: " in result.report()
     p = tmp_path / "fit.json"
     result.to_json(p)

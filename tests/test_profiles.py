@@ -45,7 +45,7 @@ def test_round_trip_dict():
     (lambda r: r["connection"].__setitem__("timeout", 3), "connection.timeout"),
     (lambda r: r.__setitem__("colour", "red"), "'colour'"),
     (lambda r: r["commands"].pop("data_query"), "commands.data_query"),
-    (lambda r: r["commands"].pop("axis_query"), "commands.axis_query"),
+    (lambda r: r["commands"].pop("trigger"), "commands.trigger"),
     (lambda r: r["data"].__setitem__("encoding", "real16"), "data.encoding"),
     (lambda r: r["data"].__setitem__("byte_order", "middle"), "data.byte_order"),
     (lambda r: r["data"].__setitem__("response_form", "polar"), "data.response_form"),

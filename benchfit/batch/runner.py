@@ -8,7 +8,6 @@ not grow with the lot: a sweep is read inside the task and dropped with it.
 
 from __future__ import annotations
 
-import glob
 import os
 import sys
 import time
@@ -20,6 +19,7 @@ from itertools import islice
 from pathlib import Path
 from typing import Any, TextIO
 
+from benchfit.batch.lotfiles import SWEEP_SUFFIXES, find_lot, find_sweeps  # noqa: F401 (re-exported)
 from benchfit.batch.progress import Progress
 from benchfit.batch.table import (
     columns,
@@ -33,48 +33,6 @@ from benchfit.batch.task import TaskSettings, run_task, unit_id
 from benchfit.errors import InputError
 from benchfit.fileio import append_lines_durable
 from benchfit.provenance import Provenance
-
-#: File suffixes taken from a folder (a glob takes whatever it matches).
-SWEEP_SUFFIXES = (".csv", ".tsv", ".txt", ".dat", ".s1p", ".s2p", ".json")
-
-
-def _is_glob(spec: str) -> bool:
-    return any(ch in spec for ch in "*?[")
-
-
-def find_sweeps(spec: str | os.PathLike, exclude: Sequence[str | os.PathLike] = ()) -> list[str]:
-    """The sweep files of a lot, sorted.
-
-    Parameters
-    ----------
-    spec
-        A folder (every file with a sweep suffix below it, hidden files
-        skipped) or a glob pattern (``**`` recurses).
-    exclude
-        Files never taken (the lot's own output files).
-
-    Raises
-    ------
-    InputError
-        When the folder or pattern names no file.
-    """
-    spec = str(spec)
-    skip = {os.path.abspath(p) for p in exclude}
-    if os.path.isdir(spec):
-        found = [str(p) for p in Path(spec).rglob("*")
-                 if p.is_file() and p.suffix.lower() in SWEEP_SUFFIXES
-                 and not any(part.startswith(".") for part in p.relative_to(spec).parts)]
-    elif _is_glob(spec):
-        found = [p for p in glob.glob(spec, recursive=True) if os.path.isfile(p)]
-    elif os.path.isfile(spec):
-        found = [spec]
-    else:
-        raise InputError("no such folder or file, and not a glob pattern", source=spec)
-    files = sorted(p for p in found if os.path.abspath(p) not in skip)
-    if not files:
-        raise InputError(f"no sweep files found (folders take {', '.join(SWEEP_SUFFIXES)})",
-                         source=spec)
-    return files
 
 
 @dataclass(frozen=True)

@@ -388,7 +388,7 @@ class Capture:
         ses.configure(p.command("stop", stop_hz=float(f[-1])))
         ses.configure(p.command("points", points=int(f.size)))
         self._trigger_and_wait()
-        axis = ses.query_values(p.command("axis_query"))
+        axis = self._sweep_axis(f)
         data_cmd = p.command("data_query")
         h = to_complex(ses.query_values(data_cmd), p.response_form, what=data_cmd)
         if axis.size != h.size:
@@ -398,6 +398,34 @@ class Capture:
             self.warnings.append(f"instrument measured {axis.size} points where {f.size} were asked "
                                  f"({f[0]:g}..{f[-1]:g} Hz); its own frequency axis is used")
         return axis, h
+
+    def _read_back(self, key: str, asked: float) -> float:
+        """The instrument's own value of a sweep setting when the profile can query it."""
+        if not self.profile.has(key):
+            return asked
+        cmd = self.profile.command(key)
+        return float(parse_ascii(self.session.query(cmd), what=cmd)[0])
+
+    def _sweep_axis(self, f: np.ndarray) -> np.ndarray:
+        """Frequencies of the sweep just measured.
+
+        With an ``axis_query`` the instrument says them.  SCPI-1999 has no such query for
+        every analyzer, so without one the axis is rebuilt from the standard settings: start,
+        stop and points (read back when the profile has their queries, which catches an
+        instrument that rounded them) and the sweep's spacing.
+        """
+        p, s = self.profile, self.settings
+        if p.has("axis_query"):
+            return self.session.query_values(p.command("axis_query"))
+        lo = self._read_back("start_query", float(f[0]))
+        hi = self._read_back("stop_query", float(f[-1]))
+        n = int(round(self._read_back("points_query", float(f.size))))
+        if not (np.isfinite(lo) and np.isfinite(hi) and 0 < lo < hi) or n < 2:
+            raise InstrumentError(f"instrument reports start {lo:g} Hz, stop {hi:g} Hz, {n} points: "
+                                  "cannot rebuild the frequency axis", resource=self.session.name,
+                                  command=p.command("trigger"))
+        i = np.arange(n) / (n - 1)
+        return lo * (hi / lo) ** i if s.spacing == "log" else lo + (hi - lo) * i
 
     def _measure_point(self, f: float) -> tuple[np.ndarray, np.ndarray]:
         p, ses = self.profile, self.session

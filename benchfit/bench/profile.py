@@ -50,18 +50,19 @@ COMMANDS: dict[str, dict[str, tuple[str, ...]]] = {
                  "start": ("start_hz",), "stop": ("stop_hz",), "points": ("points",),
                  "level": ("level_v",), "bandwidth": ("bandwidth_hz",),
                  "sweep_mode": (), "step_mode": (), "cw": ("freq_hz",), "cw_query": (),
-                 "trigger": (), "axis_query": (), "data_query": ()},
+                 "trigger": (), "axis_query": (), "data_query": (),
+                 "start_query": (), "stop_query": (), "points_query": ()},
     "scope": {**{k: ("channel",) for k in _COMMON},
               "select": ("channel",), "arm": ("channel",), "trigger": ("channel",),
-              "x_increment": ("channel",), "x_origin": ("channel",),
-              "y_increment": ("channel",), "y_origin": ("channel",),
-              "y_reference": ("channel",), "data_query": ("channel",)},
+              "sample_interval": ("channel",), "first_sample_time": ("channel",),
+              "volts_per_code": ("channel",), "volts_at_code_zero": ("channel",),
+              "data_query": ("channel",)},
 }
 REQUIRED: dict[str, tuple[str, ...]] = {
     "analyzer": ("identify", "error_query", "operation_complete", "start", "stop", "points",
-                 "trigger", "axis_query", "data_query"),
-    "scope": ("identify", "error_query", "operation_complete", "arm", "x_increment", "x_origin",
-              "y_increment", "y_origin", "data_query"),
+                 "trigger", "data_query"),
+    "scope": ("identify", "error_query", "operation_complete", "arm", "sample_interval",
+              "data_query"),
 }
 
 
@@ -231,6 +232,10 @@ def parse_profile(raw: dict[str, Any], *, source: str = "profile") -> Profile:
     if form not in RESPONSE_FORMS:
         raise InputError(f"data.response_form = {form!r}; expected one of {list(RESPONSE_FORMS)}",
                          source=source)
+    if kind == "scope" and encoding.startswith("int") and not cmds.get("volts_per_code"):
+        raise InputError(f"data.encoding = {encoding!r} sends ADC codes: the profile needs "
+                         "commands.volts_per_code (and volts_at_code_zero when the zero is offset) "
+                         "to turn them into volts", source=source)
     if kind == "analyzer" and encoding.startswith("int"):
         raise InputError(f"data.encoding = {encoding!r}: an analyzer profile needs ascii, real32 "
                          "or real64", source=source)

@@ -1,10 +1,15 @@
 """Scope capture: arm, trigger, read one channel's waveform and its scaling.
 
 SCPI-1999 has no oscilloscope command tree, so every command comes from a
-scope profile.  The scaling convention is the common one::
+scope profile.  The trace is built in benchfit's own terms::
 
-    time_s = x_origin + index * x_increment
-    volts  = (code - y_reference) * y_increment + y_origin
+    time_s = first_sample_time + index * sample_interval
+    volts  = code * volts_per_code + volts_at_code_zero
+
+A profile whose data query returns volts already (``real32``, ``real64`` or
+``ascii`` encodings) needs no code scaling: ``volts_per_code`` and
+``volts_at_code_zero`` are then left out (1 and 0).  Without a
+``first_sample_time`` query the first sample is at t = 0.
 
 The result is a :class:`benchfit.data.TimeTrace`, optionally written as a
 canonical trace CSV the step tools read.
@@ -84,24 +89,24 @@ def capture_trace(session: Session, channel: str = "CH1", *, out: str | os.PathL
         session.write(cmd)
     session.wait_complete()
     session.check_errors("; ".join(sent))
-    xinc = _number(session, "x_increment", channel)
-    xorg = _number(session, "x_origin", channel)
-    yinc = _number(session, "y_increment", channel)
-    yorg = _number(session, "y_origin", channel)
-    yref = _number(session, "y_reference", channel) if p.has("y_reference") else 0.0
+    dt = _number(session, "sample_interval", channel)
+    t0 = _number(session, "first_sample_time", channel) if p.has("first_sample_time") else 0.0
+    per_code = _number(session, "volts_per_code", channel) if p.has("volts_per_code") else None
+    at_zero = (_number(session, "volts_at_code_zero", channel)
+               if p.has("volts_at_code_zero") else 0.0)
     data_cmd = p.command("data_query", channel=channel)
     codes = session.query_values(data_cmd)
     session.check_errors("end of scope capture")
-    if xinc <= 0:
-        raise InstrumentError(f"x increment {xinc} s: expected a positive sample interval",
-                              resource=session.name, command=p.command("x_increment", channel=channel))
+    if dt <= 0:
+        raise InstrumentError(f"sample interval {dt} s: expected a positive number",
+                              resource=session.name, command=p.command("sample_interval", channel=channel))
     if codes.size < 2:
         raise InstrumentError(f"{codes.size} samples; expected at least 2", resource=session.name,
                               command=data_cmd)
-    t = xorg + np.arange(codes.size) * xinc
-    v = (codes.astype(float) - yref) * yinc + yorg
-    scaling = {"x_increment_s": xinc, "x_origin_s": xorg, "y_increment_v": yinc,
-               "y_origin_v": yorg, "y_reference": yref}
+    t = t0 + np.arange(codes.size) * dt
+    v = codes.astype(float) * (1.0 if per_code is None else per_code) + at_zero
+    scaling = {"sample_interval_s": dt, "first_sample_time_s": t0,
+               "volts_per_code": per_code, "volts_at_code_zero": at_zero}
     trace = TimeTrace(
         time_s=t, channels={channel: v},
         meta={"instrument": idn, "profile": p.name, "resource": resource or session.name,

@@ -259,6 +259,9 @@ class SimulatedAnalyzer(ScpiDevice):
         held back until the sweep is done.
     f_min_hz, f_max_hz
         Frequency range the instrument accepts (-222 outside).
+    data_form
+        What ``CALCulate:DATA?`` returns per point: ``"re_im"`` (real, imaginary) or
+        ``"db_deg"`` (magnitude in dB, phase in degrees).
     freq_resolution_hz
         The instrument rounds every frequency to this step, so read-back
         frequencies differ slightly from those asked for.
@@ -269,6 +272,7 @@ class SimulatedAnalyzer(ScpiDevice):
     def __init__(self, response_fn: Callable[[np.ndarray], np.ndarray], *, noise: float = 1e-3,
                  seed: int = 0, time_per_point_s: float = 0.0, f_min_hz: float = 1e-3,
                  f_max_hz: float = 1e9, freq_resolution_hz: float = 1e-3,
+                 data_form: str = "re_im",
                  idn: str = "benchfit,simulated analyzer,SIM0001,0.1",
                  faults: Faults | None = None, clock: Callable[[], float] = time.monotonic) -> None:
         self.response_fn = response_fn
@@ -277,6 +281,9 @@ class SimulatedAnalyzer(ScpiDevice):
         self.time_per_point_s = float(time_per_point_s)
         self.f_min_hz, self.f_max_hz = float(f_min_hz), float(f_max_hz)
         self.freq_resolution_hz = float(freq_resolution_hz)
+        if data_form not in ("re_im", "db_deg"):
+            raise ValueError(f"data_form {data_form!r}: expected 're_im' or 'db_deg'")
+        self.data_form = data_form
         self.axis: np.ndarray | None = None
         self.data: np.ndarray | None = None
         self.sweeps = 0
@@ -319,7 +326,7 @@ class SimulatedAnalyzer(ScpiDevice):
             ("[SOURce]:FREQuency:CW", False, setter("cw_hz", self.f_min_hz, self.f_max_hz)),
             ("[SOURce]:FREQuency:CW", True, getter("cw_hz")),
             ("INITiate[:IMMediate]", False, self._initiate),
-            ("[SENSe]:FREQuency:DATA", True, self._axis_query),
+            ("[SENSe]:SWEep:AXIS", True, self._axis_query),  # this simulator's own query
             ("CALCulate:DATA", True, self._data_query),
         ]
 
@@ -378,15 +385,14 @@ class SimulatedAnalyzer(ScpiDevice):
         if self.data is None:
             self.push_error(-230, "no sweep measured")
             return
-        which = m.params[0] if m.params else "SDATa"
-        h = self.data
-        if keyword_matches(which, "SDATa"):
-            pairs = np.column_stack([h.real, h.imag])
-        elif keyword_matches(which, "FDATa"):
-            pairs = np.column_stack([20 * np.log10(np.abs(h)), np.degrees(np.angle(h))])
-        else:
-            self.push_error(-224, which)
+        if m.params:  # the standard query takes no selector
+            self.push_error(-108, m.params[0])
             return
+        h = self.data
+        if self.data_form == "re_im":
+            pairs = np.column_stack([h.real, h.imag])
+        else:
+            pairs = np.column_stack([20 * np.log10(np.abs(h)), np.degrees(np.angle(h))])
         self._reply(self._values(pairs.reshape(-1)), at=self._done_at())
 
 
@@ -399,11 +405,11 @@ class SimulatedScope(ScpiDevice):
         ``time_s -> volts`` of the simulated signal (trigger at t = 0).
     record_points
         Samples per record.
-    x_increment_s
+    sample_interval_s
         Sample interval in s.
     pretrigger
         Fraction of the record before the trigger.
-    x_origin_s
+    first_sample_time_s
         Time of the first sample in s; overrides ``pretrigger`` when given.
     noise_v
         RMS noise in V added before quantisation.
@@ -412,16 +418,16 @@ class SimulatedScope(ScpiDevice):
     """
 
     def __init__(self, waveform_fn: Callable[[np.ndarray], np.ndarray], *, record_points: int = 1000,
-                 x_increment_s: float = 1e-6, pretrigger: float = 0.1,
-                 x_origin_s: float | None = None, noise_v: float = 0.0,
+                 sample_interval_s: float = 1e-6, pretrigger: float = 0.1,
+                 first_sample_time_s: float | None = None, noise_v: float = 0.0,
                  seed: int = 0, channels: tuple[str, ...] = ("CH1",),
                  idn: str = "benchfit,simulated scope,SIM0002,0.1",
                  faults: Faults | None = None, clock: Callable[[], float] = time.monotonic) -> None:
         self.waveform_fn = waveform_fn
         self.record_points = int(record_points)
-        self.x_increment_s = float(x_increment_s)
+        self.sample_interval_s = float(sample_interval_s)
         self.pretrigger = float(pretrigger)
-        self._x_origin_s = x_origin_s
+        self._first_sample_time_s = first_sample_time_s
         self.noise_v = float(noise_v)
         self.rng = np.random.default_rng(seed)
         self.channel_names = tuple(channels)
@@ -430,21 +436,23 @@ class SimulatedScope(ScpiDevice):
         super().__init__(idn, faults=faults, clock=clock)
 
     @property
-    def x_origin_s(self) -> float:
-        if self._x_origin_s is not None:
-            return float(self._x_origin_s)
-        return -self.pretrigger * self.record_points * self.x_increment_s
+    def first_sample_time_s(self) -> float:
+        if self._first_sample_time_s is not None:
+            return float(self._first_sample_time_s)
+        return -self.pretrigger * self.record_points * self.sample_interval_s
 
     def _commands(self):
         scale = lambda v: (lambda m: self._scale_query(m, v))  # noqa: E731
         return super()._commands() + [
             ("INITiate[:IMMediate]", False, self._arm),
             ("*TRG", False, self._trigger),
-            ("TRACe:XINCrement", True, scale("xinc")),
-            ("TRACe:XORigin", True, scale("xorg")),
-            ("TRACe:YINCrement", True, scale("yinc")),
-            ("TRACe:YORigin", True, scale("yorg")),
-            ("TRACe:YREFerence", True, scale("yref")),
+            # time axis: the sweep subsystem's point interval and trigger offset (SCPI-1999
+            # SENSe:SWEep:TINTerval and SENSe:SWEep:OFFSet:TIME, from memory)
+            ("[SENSe]:SWEep:TINTerval", True, scale("interval")),
+            ("[SENSe]:SWEep:OFFSet:TIME", True, scale("first")),
+            # code scaling, this simulator's own queries (no standard form exists)
+            ("TRACe:CODE:VOLTs", True, scale("per_code")),
+            ("TRACe:CODE:ZERO", True, scale("at_zero")),
             ("TRACe[:DATA]", True, self._data),
         ]
 
@@ -452,6 +460,9 @@ class SimulatedScope(ScpiDevice):
         if not m.params or m.params[0].upper() not in self.channel_names:
             self.push_error(-224, f"channel {m.params[0] if m.params else ''!r}")
             return False
+        return self._captured()
+
+    def _captured(self) -> bool:
         if self.codes is None:
             self.push_error(-230, "no record captured")
             return False
@@ -465,31 +476,36 @@ class SimulatedScope(ScpiDevice):
         if not self.armed:
             self.push_error(-221, "trigger while not armed")
             return
-        t = self.x_origin_s + np.arange(self.record_points) * self.x_increment_s
+        t = self.first_sample_time_s + np.arange(self.record_points) * self.sample_interval_s
         v = np.asarray(self.waveform_fn(t), dtype=float)
         v = v + self.noise_v * self.rng.standard_normal(v.size)
         bits = {"int8": 8, "int32": 32}.get(self.encoding, 16)
-        # a non-zero reference code, so the scaling path is exercised; the signal uses
-        # about 90 % of the codes left on either side of it
-        self.yref = float(2 ** (bits - 1) // 8)
-        half = 2 ** (bits - 1) - 1 - self.yref
+        # an ADC whose code zero is not at 0 V, so the offset path is exercised; the signal
+        # uses about 90 % of the codes
+        half = 2 ** (bits - 1) - 1
         lo, hi = float(v.min()), float(v.max())
-        self.yinc = ((hi - lo) or 1.0) * 1.1 / (2 * half)
-        self.yorg = (lo + hi) / 2
-        self.codes = np.round((v - self.yorg) / self.yinc) + self.yref
+        self.volts_per_code = ((hi - lo) or 1.0) * 1.1 / (2 * half)
+        self.volts_at_code_zero = (lo + hi) / 2
+        self.codes = np.round((v - self.volts_at_code_zero) / self.volts_per_code)
         self.armed = False
-        self.busy_until = self.clock() + self.record_points * self.x_increment_s
+        self.busy_until = self.clock() + self.record_points * self.sample_interval_s
 
     def _scale_query(self, m: Message, which: str) -> None:
-        if not self._channel_ok(m):
+        ok = self._channel_ok(m) if which in ("per_code", "at_zero") else self._captured()
+        if not ok:
             return
-        value = {"xinc": self.x_increment_s, "xorg": self.x_origin_s, "yinc": self.yinc,
-                 "yorg": self.yorg, "yref": self.yref}[which]
+        value = {"interval": self.sample_interval_s, "first": self.first_sample_time_s,
+                 "per_code": self.volts_per_code, "at_zero": self.volts_at_code_zero}[which]
         self._reply(encode_ascii([value]))
 
     def _data(self, m: Message) -> None:
-        if self._channel_ok(m):
-            self._reply(self._values(self.codes), at=self._done_at())
+        if not self._channel_ok(m):
+            return
+        if self.encoding.startswith("int"):
+            values = self.codes
+        else:  # asked for numbers, the scope scales its codes itself
+            values = self.codes * self.volts_per_code + self.volts_at_code_zero
+        self._reply(self._values(values), at=self._done_at())
 
 
 def scope_for_trace(trace: TimeTrace, channel: str | int | None = None, **options) -> SimulatedScope:
@@ -497,8 +513,8 @@ def scope_for_trace(trace: TimeTrace, channel: str | int | None = None, **option
     t = trace.time_s
     v = trace.channel(channel)
     options.setdefault("record_points", len(trace))
-    options.setdefault("x_increment_s", (t[-1] - t[0]) / (len(trace) - 1))
-    options.setdefault("x_origin_s", float(t[0]))
+    options.setdefault("sample_interval_s", (t[-1] - t[0]) / (len(trace) - 1))
+    options.setdefault("first_sample_time_s", float(t[0]))
     return SimulatedScope(lambda tt: np.interp(tt, t, v), **options)
 
 

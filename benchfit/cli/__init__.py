@@ -11,18 +11,28 @@ from __future__ import annotations
 import argparse
 import importlib
 import pkgutil
+import re
 import sys
 from collections.abc import Sequence
 
 from benchfit import __version__
 from benchfit.errors import BenchfitError
 
+# argparse's "argument -o/--output: reason" for a value an option's type= refused
+_BAD_VALUE = re.compile(r"argument (?:\S+/)?(-\S+): (.*)", re.S)
+
 
 class _Parser(argparse.ArgumentParser):
-    """argparse that reports a bad option on one line and exits 2."""
+    """argparse that reports a bad option on one line and exits 2.
+
+    A value refused by an option's ``type=`` (:mod:`benchfit.cli.values`) is reported in the
+    form of every other user error, ``benchfit: error: --option: reason``.
+    """
 
     def error(self, message: str):  # noqa: D401
-        self.exit(2, f"benchfit: error: {self.prog}: {message}\n")
+        m = _BAD_VALUE.fullmatch(message)
+        where = f"{m.group(1)}: {m.group(2)}" if m else f"{self.prog}: {message}"
+        self.exit(2, "benchfit: error: " + " ".join(where.split("\n")) + "\n")
 
 
 def _command_modules() -> list[str]:
@@ -67,7 +77,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``benchfit`` console command; returns the exit status."""
     argv = list(sys.argv[1:] if argv is None else argv)
     parser = _fast_parser(argv) or build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as e:  # --help, --version, or a bad option already reported
+        return e.code if isinstance(e.code, int) else 2
     if not getattr(args, "func", None):
         parser.print_help()
         return 2

@@ -6,15 +6,10 @@ import argparse
 import sys
 from pathlib import Path
 
-from benchfit.batch.limits import Limits, read_limits
-from benchfit.batch.runner import find_sweeps, rows_path_for, run_lot
-from benchfit.batch.summary import plot_histograms, summarise
-from benchfit.batch.table import read_table
-from benchfit.batch.task import TaskSettings, read_design_loop
-from benchfit.cli.cmd_fit import _delay, _order  # the same option forms as `benchfit fit`
-from benchfit.cli.common import add_json_flag, emit, parse_band, warn
+from benchfit.cli.cmd_fit import DELAY, ORDER  # the same option forms as `benchfit fit`
+from benchfit.cli.common import add_json_flag, emit, warn
+from benchfit.cli.values import band, count, text
 from benchfit.errors import InputError
-from benchfit.fileio import write_json_atomic
 
 
 def register(subparsers) -> None:
@@ -24,48 +19,55 @@ def register(subparsers) -> None:
                     "from a fit times the design's compensator), judge each unit against limits, "
                     "and write one row per sweep.")
     p.add_argument("lot", metavar="FOLDER_OR_GLOB", help="folder of sweeps, or a glob pattern")
-    p.add_argument("--design", metavar="DESIGN_JSON",
+    p.add_argument("--design", type=text, metavar="DESIGN_JSON",
                    help="design file: its snapped compensator and sensing close the loop of plant sweeps")
-    p.add_argument("--limits", metavar="LIMITS_TOML", help="limits every unit must meet")
-    p.add_argument("--workers", type=int, metavar="N",
+    p.add_argument("--limits", type=text, metavar="LIMITS_TOML", help="limits every unit must meet")
+    p.add_argument("--workers", type=count(1), metavar="N",
                    help="local worker processes (default: number of cores; 1 = no pool)")
-    p.add_argument("--dask", metavar="ADDRESS", help="run on a Dask cluster, e.g. tcp://host:8786")
-    p.add_argument("-o", "--output", default="results.csv", metavar="RESULTS",
+    p.add_argument("--dask", type=text, metavar="ADDRESS", help="run on a Dask cluster, e.g. tcp://host:8786")
+    p.add_argument("-o", "--output", type=text, default="results.csv", metavar="RESULTS",
                    help="result table, .csv or .parquet (default results.csv)")
     p.add_argument("--resume", action="store_true",
                    help="continue an interrupted lot: skip files already in the output")
-    p.add_argument("--summary", metavar="SUMMARY_JSON", help="write the lot summary as JSON")
-    p.add_argument("--histograms", metavar="PNG", help="write histograms of each figure")
-    p.add_argument("--param", action="append", default=[], metavar="NAME",
+    p.add_argument("--summary", type=text, metavar="SUMMARY_JSON", help="write the lot summary as JSON")
+    p.add_argument("--histograms", type=text, metavar="PNG", help="write histograms of each figure")
+    p.add_argument("--param", type=text, action="append", default=[], metavar="NAME",
                    help="also report this fitted parameter in its own column (repeatable)")
     p.add_argument("--quantity", choices=("plant", "loop"),
                    help="treat every sweep as this (default: each file's own header)")
-    p.add_argument("--order", default="auto", help="fit order: auto or a number of poles")
-    p.add_argument("--delay", default="auto", help="fit delay: auto, none or seconds (e.g. 1u)")
-    p.add_argument("--band", metavar="FMIN:FMAX", help="fit only this band, Hz")
+    p.add_argument("--order", type=ORDER, default="auto", help="fit order: auto or a number of poles")
+    p.add_argument("--delay", type=DELAY, default="auto", help="fit delay: auto, none or seconds (e.g. 1u)")
+    p.add_argument("--band", type=band, metavar="FMIN:FMAX", help="fit only this band, Hz")
     p.add_argument("--quiet", action="store_true", help="no progress line")
     add_json_flag(p)
     p.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
-    if args.workers is not None and args.workers < 1:
-        raise InputError(f"{args.workers}; expected 1 or more", source="--workers")
+    from benchfit.batch.limits import Limits, read_limits
+    from benchfit.batch.runner import find_lot, rows_path_for, run_lot
+    from benchfit.batch.summary import plot_histograms, summarise
+    from benchfit.batch.table import read_table
+    from benchfit.batch.task import TaskSettings, read_design_loop
+    from benchfit.fileio import write_json_atomic
+
     out = Path(args.output)
     if out.suffix.lower() not in (".csv", ".parquet"):
         raise InputError(f"{args.output!r}: expected a .csv or .parquet file name", source="-o")
     if args.dask and args.workers is not None:
         warn("--workers is ignored with --dask (the cluster has its own workers)")
-    band = parse_band(args.band) if args.band else None
     settings = TaskSettings(
-        order=_order(args.order), delay=_delay(args.delay), band=band, quantity=args.quantity,
+        order=args.order, delay=args.delay, band=args.band, quantity=args.quantity,
         design=read_design_loop(args.design) if args.design else None,
         limits=read_limits(args.limits) if args.limits else Limits(),
         params=tuple(args.param))
     rows_csv = rows_path_for(out)
     # the lot's own inputs and outputs may sit in its folder; they are not sweeps
-    own = [p for p in (out, rows_csv, args.design, args.summary) if p]
-    files = find_sweeps(args.lot, exclude=own)
+    own = [p for p in (out, rows_csv, args.design, args.summary, args.histograms, args.limits) if p]
+    lot = find_lot(args.lot, exclude=own)
+    files = lot.files
+    if lot.skipped:
+        warn(lot.skipped_line())
     run_info = run_lot(files, settings, out, workers=args.workers, dask=args.dask,
                        resume=args.resume, progress=None if args.quiet else sys.stderr)
     _, rows = read_table(rows_csv)

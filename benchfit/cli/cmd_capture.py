@@ -6,10 +6,24 @@ import argparse
 import datetime as _dt
 import sys
 
-from benchfit.cli.common import add_json_flag, emit, parse_si, warn
+from benchfit.cli.common import add_json_flag, emit, warn
+from benchfit.cli.values import (
+    FREQUENCY,
+    NON_NEGATIVE,
+    NUMBER,
+    SEED,
+    TIME,
+    VOLTAGE,
+    Range,
+    count,
+    text,
+    value,
+)
 from benchfit.errors import InputError
 
 QUANTITY_CHOICES = ("plant", "loop", "closed", "impedance", "compensator", "unknown")
+#: longest simulated measurement time per point, s (a longer one only makes a test hang)
+MAX_SIM_POINT_S = 10.0
 
 
 def register(subparsers) -> None:
@@ -19,34 +33,35 @@ def register(subparsers) -> None:
                     "profile, sweep (or step point by point), and save a canonical sweep CSV that "
                     "'benchfit fit' reads. Every finished segment is fsync'd to disk; --resume "
                     "continues an interrupted capture. With --simulate no hardware is needed.")
-    p.add_argument("resource", nargs="?", metavar="RESOURCE",
+    p.add_argument("resource", nargs="?", type=text, metavar="RESOURCE",
                    help="VISA resource, e.g. TCPIP0::192.168.1.20::5025::SOCKET (not with --simulate)")
-    p.add_argument("--profile", metavar="NAME|FILE",
+    p.add_argument("--profile", type=text, metavar="NAME|FILE",
                    help="instrument profile (default generic-analyzer with --simulate)")
-    p.add_argument("--start", metavar="HZ", help="start frequency (SI prefixes allowed: 10, 1k)")
-    p.add_argument("--stop", metavar="HZ", help="stop frequency")
-    p.add_argument("--points", type=int, metavar="N", help="number of points")
+    p.add_argument("--start", type=value(FREQUENCY), metavar="HZ", help="start frequency (SI prefixes allowed: 10, 1k)")
+    p.add_argument("--stop", type=value(FREQUENCY), metavar="HZ", help="stop frequency")
+    p.add_argument("--points", type=count(2), metavar="N", help="number of points")
     p.add_argument("--spacing", choices=("log", "lin"), default="log", help="grid spacing (default log)")
-    p.add_argument("--level", metavar="V", help="source level in V")
-    p.add_argument("--bandwidth", metavar="HZ", help="measurement bandwidth in Hz")
+    p.add_argument("--level", type=value(VOLTAGE), metavar="V", help="source level in V")
+    p.add_argument("--bandwidth", type=value(FREQUENCY), metavar="HZ", help="measurement bandwidth in Hz")
     p.add_argument("--mode", choices=("sweep", "step"), default="sweep",
                    help="sweep: instrument sweeps each segment; step: point by point (default sweep)")
-    p.add_argument("--segment-points", type=int, default=0, metavar="N",
+    p.add_argument("--segment-points", type=count(0), default=0, metavar="N",
                    help="points per native sweep, each saved as it completes (default 0: one sweep)")
     p.add_argument("--quantity", choices=QUANTITY_CHOICES, default=None,
                    help="what is measured, written to the file header (default unknown, or the "
                         "simulated sweep's own)")
-    p.add_argument("-o", "--output", metavar="OUT.csv", help="output CSV (default capture-<time>.csv)")
+    p.add_argument("-o", "--output", type=text, metavar="OUT.csv", help="output CSV (default capture-<time>.csv)")
     p.add_argument("--resume", action="store_true", help="continue the capture in -o OUT.csv")
-    p.add_argument("--backend", default="@py", help="pyvisa backend (default @py, pure Python)")
+    p.add_argument("--backend", type=text, default="@py", help="pyvisa backend (default @py, pure Python)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
     sim = p.add_argument_group("simulation (no hardware)")
-    sim.add_argument("--simulate", metavar="PLANT_FILE",
+    sim.add_argument("--simulate", type=text, metavar="PLANT_FILE",
                      help="answer from a simulated instrument built from a sweep file or a model JSON")
-    sim.add_argument("--noise", type=float, default=1e-3, help="relative rms noise (default 1e-3)")
-    sim.add_argument("--sim-point-time", type=float, default=2e-4, metavar="S",
+    sim.add_argument("--noise", type=value(NUMBER, NON_NEGATIVE), default=1e-3, help="relative rms noise (default 1e-3)")
+    sim.add_argument("--sim-point-time", type=value(TIME, Range(ge=0, le=MAX_SIM_POINT_S)), default=2e-4,
+                     metavar="S",
                      help="simulated measurement time per point in s (default 2e-4)")
-    sim.add_argument("--seed", type=int, default=0, help="noise seed (default 0)")
+    sim.add_argument("--seed", type=SEED, default=0, help="noise seed (default 0)")
     sim.add_argument("--transport", choices=("auto", "sim", "tcp"), default="auto",
                      help="sim: pyvisa-sim backend; tcp: pyvisa-py over a 127.0.0.1 socket")
     add_json_flag(p)
@@ -76,9 +91,9 @@ def simulated_instrument(path: str, args: argparse.Namespace):
 def _settings(args: argparse.Namespace, sweep):
     from benchfit.bench.capture import CaptureSettings
 
-    def freq(value, option, default):
-        if value is not None:
-            return parse_si(value, option)
+    def freq(given, option, default):
+        if given is not None:
+            return given
         if default is None:
             raise InputError("required (or use --simulate with a sweep file)", source=option)
         return default
@@ -90,8 +105,7 @@ def _settings(args: argparse.Namespace, sweep):
         raise InputError("required", source="--points")
     return CaptureSettings(
         start_hz=start, stop_hz=stop, points=points, spacing=args.spacing,
-        level_v=parse_si(args.level, "--level") if args.level is not None else None,
-        bandwidth_hz=parse_si(args.bandwidth, "--bandwidth") if args.bandwidth is not None else None,
+        level_v=args.level, bandwidth_hz=args.bandwidth,
         mode=args.mode, segment_points=args.segment_points,
         quantity=args.quantity or (sweep.quantity if sweep is not None else "unknown"))
 

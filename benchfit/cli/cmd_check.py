@@ -4,11 +4,21 @@ from __future__ import annotations
 
 import argparse
 
-from benchfit.cli.cmd_design import parse_tolerance
-from benchfit.cli.common import add_json_flag, emit, parse_si, warn
+from benchfit.cli.cmd_design import MAX_DRAWS, TOLERANCE
+from benchfit.cli.common import add_json_flag, emit, warn
+from benchfit.cli.values import (
+    CAPACITANCE,
+    NUMBER,
+    POSITIVE,
+    RESISTANCE,
+    SEED,
+    Unit,
+    count,
+    parse_value,
+    quote,
+    text,
+)
 from benchfit.errors import InputError
-from benchfit.loop.design import Design, check_parts, with_parts
-from benchfit.loop.designfile import load_plant
 
 
 def register(subparsers) -> None:
@@ -20,13 +30,18 @@ def register(subparsers) -> None:
     p.add_argument("plants", nargs="*", metavar="PLANT",
                    help="model JSON, fit-result JSON or sweep file (several = corners; FILE@TRACE picks "
                         "one trace of a file holding several)")
-    p.add_argument("--design", required=True, metavar="JSON", help="design file from benchfit design")
-    p.add_argument("--parts", metavar="R1=10k,C1=4.7n,...", help="parts to change (SI prefixes)")
-    p.add_argument("--draws", type=int, default=0, metavar="N", help="Monte Carlo draws (default 0)")
-    p.add_argument("--tolerance", metavar="R%:C%", help="part tolerances in percent (default 1:10)")
-    p.add_argument("--seed", type=int, help="random seed for the Monte Carlo")
+    p.add_argument("--design", required=True, type=text, metavar="JSON", help="design file from benchfit design")
+    p.add_argument("--parts", type=text, metavar="R1=10k,C1=4.7n,...", help="parts to change (SI prefixes)")
+    p.add_argument("--draws", type=count(0, MAX_DRAWS), default=0, metavar="N", help="Monte Carlo draws (default 0)")
+    p.add_argument("--tolerance", type=TOLERANCE, metavar="R%:C%", help="part tolerances in percent (default 1:10)")
+    p.add_argument("--seed", type=SEED, help="random seed for the Monte Carlo")
     add_json_flag(p)
     p.set_defaults(func=run)
+
+
+def part_unit(name: str) -> Unit:
+    """What a part value is measured in, from its name: R1 ohms, C2 farads."""
+    return {"R": RESISTANCE, "C": CAPACITANCE}.get(name[:1], NUMBER)
 
 
 def parse_parts(text: str | None) -> dict[str, float]:
@@ -36,21 +51,23 @@ def parse_parts(text: str | None) -> dict[str, float]:
             continue
         name, sep, value = item.partition("=")
         if not sep:
-            raise InputError(f"{item!r}: expected NAME=VALUE, e.g. R1=10k", source="--parts")
-        out[name.strip().upper()] = parse_si(value, "--parts")
+            raise InputError(f"{quote(item)}: expected NAME=VALUE, e.g. R1=10k", source="--parts")
+        name = name.strip().upper()
+        out[name] = parse_value(value, "--parts", part_unit(name), POSITIVE)
     return out
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.loop.design import Design, check_parts, with_parts
+    from benchfit.loop.designfile import load_plant
+
     d = Design.from_json(args.design)
     net = with_parts(d.snapped.network, parse_parts(args.parts))
     if args.plants:
         corners = [load_plant(p, d.sensing) for p in args.plants]
     else:
         corners = list(d.corners)
-    if args.draws < 0:
-        raise InputError(f"{args.draws}: expected a number of draws >= 0", source="--draws")
-    tol = parse_tolerance(args.tolerance) if args.tolerance else (0.01, 0.10)
+    tol = args.tolerance or (0.01, 0.10)
     result = check_parts(corners, net, opamp=d.opamp, targets=d.targets, tolerances=tol,
                          draws=args.draws, seed=args.seed,
                          sources=tuple(args.plants) + (args.design,))

@@ -6,11 +6,13 @@ import argparse
 
 from benchfit.cli.cmd_inspect import add_reader_flags, reader_options
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.data import FrequencyResponse, write_sweep_csv, write_trace_csv
-from benchfit.data.summary import read_any, summary
+from benchfit.cli.values import text
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.data import FrequencyResponse, write_sweep_csv, write_trace_csv
+    from benchfit.data.summary import read_any, summary
+
     obj = read_any(args.file, **reader_options(args))
     if isinstance(obj, FrequencyResponse):
         path = write_sweep_csv(obj, args.output)
@@ -30,7 +32,7 @@ def register(subparsers) -> None:
                                           "write benchfit's canonical CSV (freq_hz,re,im[,stddev]"
                                           "[,weight][,coherence] or time_s,channels...) atomically.")
     p.add_argument("file", help="the file to read")
-    p.add_argument("-o", "--output", required=True, metavar="OUT.csv", help="canonical CSV to write")
+    p.add_argument("-o", "--output", required=True, type=text, metavar="OUT.csv", help="canonical CSV to write")
     add_reader_flags(p)
     add_json_flag(p)
     p.set_defaults(func=run)

@@ -15,9 +15,8 @@ from pathlib import Path
 
 import benchfit
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.data.summary import read_any, summary
+from benchfit.cli.values import text
 from benchfit.errors import InputError
-from benchfit.output.demo import DemoScenario, run_demo
 
 DATA_SUFFIXES = (".csv", ".tsv", ".txt", ".dat") + tuple(f".s{n}p" for n in range(1, 5))
 
@@ -52,6 +51,8 @@ def _row(rel: str, s: dict) -> str:
 
 
 def _read_all(folder: Path) -> tuple[list[str], list[dict], int]:
+    from benchfit.data.summary import read_any, summary
+
     files = sample_files(folder)
     if not files:
         raise InputError(f"no data files in {folder}", source="--data")
@@ -71,6 +72,8 @@ def _read_all(folder: Path) -> tuple[list[str], list[dict], int]:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.output.demo import DemoScenario, run_demo
+
     folder = Path(args.data) if args.data else default_data_dir()
     if not folder.is_dir():
         raise InputError(f"no sample-data folder at {folder}; give one with --data DIR", source="--data")
@@ -106,8 +109,8 @@ def register(subparsers) -> None:
                     "for a 20 kHz crossover, snap the parts, spread them over tolerances, predict the "
                     "step and output impedance, read the present board's step, and write the design "
                     "and an HTML report into the output folder.")
-    p.add_argument("--data", metavar="DIR", help="sample-data folder (default: sample_data/ of the repo)")
-    p.add_argument("--out", default="benchfit-out", metavar="DIR",
+    p.add_argument("--data", type=text, metavar="DIR", help="sample-data folder (default: sample_data/ of the repo)")
+    p.add_argument("--out", type=text, default="benchfit-out", metavar="DIR",
                    help="output folder (default ./benchfit-out/)")
     p.add_argument("--pdf", action="store_true", help="also write the report as PDF")
     p.add_argument("--read-only", action="store_true", help="only read and list the sample files")

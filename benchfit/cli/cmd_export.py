@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.output.spice import DESIGN_PARTS, model_from_file, write_spice
+from benchfit.cli.values import text
+from benchfit.output.choices import DESIGN_PARTS
 
 
 def register(subparsers) -> None:
@@ -15,8 +16,8 @@ def register(subparsers) -> None:
                     "resistors, capacitors, controlled sources and (for a delay) a matched "
                     "lossless line, so any SPICE simulator can use the measured plant.")
     p.add_argument("model", metavar="MODEL_JSON", help="model, fit result or design JSON")
-    p.add_argument("-o", "--output", required=True, metavar="CIR", help="netlist file to write")
-    p.add_argument("--name", help="subcircuit name (default: the --part name, e.g. plant)")
+    p.add_argument("-o", "--output", required=True, type=text, metavar="CIR", help="netlist file to write")
+    p.add_argument("--name", type=text, help="subcircuit name (default: the --part name, e.g. plant)")
     p.add_argument("--part", default="plant", choices=DESIGN_PARTS,
                    help="for a design file: which model to export (default plant)")
     add_json_flag(p)
@@ -24,6 +25,8 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.output.spice import model_from_file, write_spice
+
     model = model_from_file(args.model, args.part)
     name = args.name or args.part.replace("-", "_")
     path = write_spice(model, args.output, name)

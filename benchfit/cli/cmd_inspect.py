@@ -9,18 +9,18 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
-from benchfit.cli.common import add_json_flag, emit, parse_si
-from benchfit.data.summary import read_any, summary
+from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import POSITIVE, TIME, text, value
 
 
 def add_reader_flags(p: argparse.ArgumentParser) -> None:
     """The override flags every command that reads a sweep or trace file accepts."""
     g = p.add_argument_group("reading the file (everything is detected; these override)")
-    g.add_argument("--columns", metavar="LIST",
+    g.add_argument("--columns", type=text, metavar="LIST",
                    help="column meanings in order, e.g. freq,mag,phase or freq,db,deg or freq,re,im "
                         "(skip to ignore one); needed for a file with no header")
-    g.add_argument("--trace", metavar="N|NAME", help="which trace when the file holds several")
-    g.add_argument("--freq-unit", metavar="UNIT", help="frequency unit: Hz, kHz, MHz or GHz")
+    g.add_argument("--trace", type=text, metavar="N|NAME", help="which trace when the file holds several")
+    g.add_argument("--freq-unit", type=text, metavar="UNIT", help="frequency unit: Hz, kHz, MHz or GHz")
     m = g.add_mutually_exclusive_group()
     m.add_argument("--mag-db", dest="mag", action="store_const", const="db", help="magnitude is in dB")
     m.add_argument("--mag-linear", dest="mag", action="store_const", const="linear",
@@ -30,24 +30,27 @@ def add_reader_flags(p: argparse.ArgumentParser) -> None:
                     help="phase is in degrees")
     ph.add_argument("--phase-rad", dest="phase", action="store_const", const="rad",
                     help="phase is in radians")
-    g.add_argument("--param", metavar="NAME", help="Touchstone parameter, e.g. S21 (default) or S11")
-    g.add_argument("--quantity", metavar="WHAT",
+    g.add_argument("--param", type=text, metavar="NAME", help="Touchstone parameter, e.g. S21 (default) or S11")
+    g.add_argument("--quantity", type=text, metavar="WHAT",
                    help="what was measured: plant, loop, closed, impedance, compensator")
+    g.add_argument("--skip-bad-rows", action="store_true", default=None,
+                   help="leave out rows that cannot be read (text among the numbers, #N/A, NaN, "
+                        "9.91E37) instead of refusing the file; they are listed as skipped")
     t = p.add_argument_group("scope traces")
-    t.add_argument("--channel", metavar="NAME|INDEX", help="keep one channel of a scope trace")
-    t.add_argument("--time-unit", metavar="UNIT", help="time column unit: s, ms, us or ns")
-    t.add_argument("--sample-interval", metavar="DT",
+    t.add_argument("--channel", type=text, metavar="NAME|INDEX", help="keep one channel of a scope trace")
+    t.add_argument("--time-unit", type=text, metavar="UNIT", help="time column unit: s, ms, us or ns")
+    t.add_argument("--sample-interval", type=value(TIME, POSITIVE), metavar="DT",
                    help="sample interval when the trace has no time column (e.g. 1u, 2e-7)")
 
 
 def reader_options(args: argparse.Namespace) -> dict[str, Any]:
     """The reader keyword arguments given on the command line (unset ones left out)."""
-    dt = getattr(args, "sample_interval", None)
     opts = {
         "columns": args.columns, "trace": args.trace, "freq_unit": args.freq_unit,
         "mag": args.mag, "phase": args.phase, "param": args.param, "quantity": args.quantity,
         "channel": args.channel, "time_unit": args.time_unit,
-        "sample_interval_s": parse_si(dt, "--sample-interval") if dt is not None else None,
+        "sample_interval_s": getattr(args, "sample_interval", None),
+        "skip_bad_rows": getattr(args, "skip_bad_rows", None),
     }
     return {k: v for k, v in opts.items() if v is not None}
 
@@ -92,6 +95,8 @@ def summary_text(s: dict[str, Any]) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.data.summary import read_any, summary
+
     obj = read_any(args.file, **reader_options(args))
     s = summary(obj)
     emit(args, s, summary_text(s))

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import TIME, Range, text, value
 
 
 def register(subparsers) -> None:
@@ -14,9 +15,9 @@ def register(subparsers) -> None:
                     "finding LAN instruments sends a discovery broadcast on your local network; "
                     "use --query to narrow the search (e.g. 'USB?*::INSTR').")
     p.add_argument("--identify", action="store_true", help="open each resource and ask *IDN?")
-    p.add_argument("--backend", default="@py", help="pyvisa backend (default @py)")
-    p.add_argument("--query", default="?*::INSTR", help="VISA resource pattern (default ?*::INSTR)")
-    p.add_argument("--timeout", type=float, default=2.0, metavar="S",
+    p.add_argument("--backend", type=text, default="@py", help="pyvisa backend (default @py)")
+    p.add_argument("--query", type=text, default="?*::INSTR", help="VISA resource pattern (default ?*::INSTR)")
+    p.add_argument("--timeout", type=value(TIME, Range(gt=0, le=600)), default=2.0, metavar="S",
                    help="timeout per identify query in s (default 2)")
     add_json_flag(p)
     p.set_defaults(func=run)

@@ -4,10 +4,9 @@ from __future__ import annotations
 
 import argparse
 
-from benchfit.cli.common import add_json_flag, emit, parse_si
-from benchfit.loop.design import Design
-from benchfit.output.curves import write_curve_csv
-from benchfit.output.predicted import CURVE_NAMES, WHICH, design_curve, read_model_or_sweep
+from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import CURRENT, NONZERO, VOLTAGE, text, value
+from benchfit.output.choices import CURVE_NAMES, WHICH
 
 
 def register(subparsers) -> None:
@@ -18,22 +17,25 @@ def register(subparsers) -> None:
                     "curves as time_s,value.")
     p.add_argument("design", metavar="DESIGN_JSON", help="design file written by 'benchfit design'")
     p.add_argument("--curve", required=True, choices=CURVE_NAMES, help="which curve")
-    p.add_argument("-o", "--output", required=True, metavar="CSV", help="file to write")
+    p.add_argument("-o", "--output", required=True, type=text, metavar="CSV", help="file to write")
     p.add_argument("--parts", default="snapped", choices=WHICH, help="snapped (default) or ideal parts")
-    p.add_argument("--zout", metavar="FILE",
+    p.add_argument("--zout", type=text, metavar="FILE",
                    help="open-loop output impedance: sweep or model JSON (for load_step a sweep is fitted first)")
-    p.add_argument("--step", default="1", metavar="VOLTS", help="reference step at the reference input (1 V)")
-    p.add_argument("--load-step", default="1", metavar="AMPS", help="load-current step (1 A)")
+    p.add_argument("--step", type=value(VOLTAGE, NONZERO), default="1", metavar="VOLTS", help="reference step at the reference input (1 V)")
+    p.add_argument("--load-step", type=value(CURRENT, NONZERO), default="1", metavar="AMPS", help="load-current step (1 A)")
     add_json_flag(p)
     p.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.loop.design import Design
+    from benchfit.output.curves import write_curve_csv
+    from benchfit.output.predicted import design_curve, read_model_or_sweep
+
     design = Design.from_json(args.design)
     z_open = read_model_or_sweep(args.zout) if args.zout else None
     curve = design_curve(design, args.curve, which=args.parts, z_open=z_open,
-                         reference_step_v=parse_si(args.step, "--step"),
-                         load_step_a=parse_si(args.load_step, "--load-step"))
+                         reference_step_v=args.step, load_step_a=args.load_step)
     path = write_curve_csv(curve, args.output)
     axis = "Hz" if curve.is_frequency else "s"
     emit(args, {"output": str(path), "curve": args.curve, "name": curve.name, "points": int(curve.x.size),

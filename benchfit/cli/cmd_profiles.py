@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import text
 
 
 def register(subparsers) -> None:
@@ -13,7 +14,7 @@ def register(subparsers) -> None:
         description="List the instrument profiles found in $BENCHFIT_PROFILES, the user folder "
                     "(~/.config/benchfit/profiles) and the shipped ones, each validated. "
                     "--check NAME|FILE validates one and exits 2 naming the first bad key.")
-    p.add_argument("--check", metavar="NAME|FILE", help="validate one profile")
+    p.add_argument("--check", type=text, metavar="NAME|FILE", help="validate one profile")
     add_json_flag(p)
     p.set_defaults(func=run)
 

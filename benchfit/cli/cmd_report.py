@@ -5,13 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from benchfit.cli.common import add_json_flag, emit, parse_si
-from benchfit.data import read_sweep, read_trace
-from benchfit.fitting.result import FitResult
-from benchfit.loop.design import Design
-from benchfit.output.assemble import assemble
-from benchfit.output.predicted import read_model_or_sweep
-from benchfit.output.report import default_report_path, write_report
+from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import CURRENT, NONZERO, text, value
 
 
 def register(subparsers) -> None:
@@ -21,22 +16,29 @@ def register(subparsers) -> None:
                     "the part list (ideal and snapped), predicted margins with their spread, the "
                     "pictures and the warnings. It needs no network access to view.")
     p.add_argument("design", metavar="DESIGN_JSON", help="design file written by 'benchfit design'")
-    p.add_argument("-o", "--output", metavar="HTML", help="report file (default: report.html beside the design)")
+    p.add_argument("-o", "--output", type=text, metavar="HTML", help="report file (default: report.html beside the design)")
     p.add_argument("--pdf", action="store_true", help="also write the same report as PDF (same name, .pdf)")
-    p.add_argument("--fit", metavar="FIT_JSON", help="the plant's fit result (parameter table, fit picture)")
-    p.add_argument("--sweep", metavar="SWEEP", help="the measured plant sweep (measured-vs-model picture)")
-    p.add_argument("--trace", metavar="TRACE", help="a measured reference step to overlay on the prediction")
-    p.add_argument("--channel", help="channel of --trace holding the output (default: the first)")
-    p.add_argument("--zout", metavar="FILE", help="open-loop output impedance: sweep or model JSON")
-    p.add_argument("--load-trace", metavar="TRACE", help="a measured load step (output deviation)")
-    p.add_argument("--load-channel", help="channel of --load-trace holding the output deviation")
-    p.add_argument("--load-step", metavar="AMPS", help="load-current step of the prediction, e.g. 1 or 500m")
+    p.add_argument("--fit", type=text, metavar="FIT_JSON", help="the plant's fit result (parameter table, fit picture)")
+    p.add_argument("--sweep", type=text, metavar="SWEEP", help="the measured plant sweep (measured-vs-model picture)")
+    p.add_argument("--trace", type=text, metavar="TRACE", help="a measured reference step to overlay on the prediction")
+    p.add_argument("--channel", type=text, help="channel of --trace holding the output (default: the first)")
+    p.add_argument("--zout", type=text, metavar="FILE", help="open-loop output impedance: sweep or model JSON")
+    p.add_argument("--load-trace", type=text, metavar="TRACE", help="a measured load step (output deviation)")
+    p.add_argument("--load-channel", type=text, help="channel of --load-trace holding the output deviation")
+    p.add_argument("--load-step", type=value(CURRENT, NONZERO), metavar="AMPS", help="load-current step of the prediction, e.g. 1 or 500m")
     p.add_argument("--title", help="report title")
     add_json_flag(p)
     p.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.data import read_sweep, read_trace
+    from benchfit.fitting.result import FitResult
+    from benchfit.loop.design import Design
+    from benchfit.output.assemble import assemble
+    from benchfit.output.predicted import read_model_or_sweep
+    from benchfit.output.report import default_report_path, write_report
+
     design = Design.from_json(args.design)
     fit = FitResult.from_json(args.fit) if args.fit else None
     sweep = read_sweep(args.sweep) if args.sweep else None
@@ -46,7 +48,7 @@ def run(args: argparse.Namespace) -> int:
     if args.zout:
         z = read_model_or_sweep(args.zout)
         zout_model, zout = (z, None) if hasattr(z, "poles") else (None, z)
-    load_a = parse_si(args.load_step, "--load-step") if args.load_step else None
+    load_a = args.load_step
     inputs = assemble(design, fit=fit, sweep=sweep, step_trace=trace, step_channel=args.channel,
                       zout=zout, zout_model=zout_model, load_trace=load_trace,
                       load_channel=args.load_channel, load_step_a=load_a, title=args.title)

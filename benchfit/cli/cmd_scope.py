@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import NON_NEGATIVE, VOLTAGE, text, value
 from benchfit.errors import InputError
 
 
@@ -12,20 +13,21 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "scope", help="capture a scope channel over VISA into a trace CSV",
         description="Arm, trigger and read one channel with the commands of a scope profile, "
-                    "scale it (x increment/origin, y increment/origin/reference) and save a "
+                    "scale it (time = first sample time + index x sample interval; volts = "
+                    "code x volts per code + volts at code zero, or volts as sent) and save a "
                     "canonical trace CSV that 'benchfit step' reads. SCPI has no scope command "
                     "tree, so copy the generic-scope profile and edit it for your scope.")
-    p.add_argument("resource", nargs="?", metavar="RESOURCE", help="VISA resource (not with --simulate)")
-    p.add_argument("--profile", metavar="NAME|FILE", help="scope profile (default generic-scope with --simulate)")
-    p.add_argument("--channel", default="CH1", help="channel name for the profile's {channel} (default CH1)")
-    p.add_argument("-o", "--output", required=True, metavar="TRACE.csv", help="trace CSV to write")
+    p.add_argument("resource", nargs="?", type=text, metavar="RESOURCE", help="VISA resource (not with --simulate)")
+    p.add_argument("--profile", type=text, metavar="NAME|FILE", help="scope profile (default generic-scope with --simulate)")
+    p.add_argument("--channel", type=text, default="CH1", help="channel name for the profile's {channel} (default CH1)")
+    p.add_argument("-o", "--output", required=True, type=text, metavar="TRACE.csv", help="trace CSV to write")
     p.add_argument("--no-trigger", action="store_true",
                    help="do not send the trigger command; wait for a real trigger")
-    p.add_argument("--backend", default="@py", help="pyvisa backend (default @py)")
+    p.add_argument("--backend", type=text, default="@py", help="pyvisa backend (default @py)")
     sim = p.add_argument_group("simulation (no hardware)")
-    sim.add_argument("--simulate", metavar="TRACE_FILE", help="replay a recorded trace as a simulated scope")
-    sim.add_argument("--sim-channel", default=None, help="which channel of TRACE_FILE to replay")
-    sim.add_argument("--noise", type=float, default=0.0, help="rms noise in V added (default 0)")
+    sim.add_argument("--simulate", type=text, metavar="TRACE_FILE", help="replay a recorded trace as a simulated scope")
+    sim.add_argument("--sim-channel", type=text, default=None, help="which channel of TRACE_FILE to replay")
+    sim.add_argument("--noise", type=value(VOLTAGE, NON_NEGATIVE), default=0.0, help="rms noise in V added (default 0)")
     sim.add_argument("--transport", choices=("auto", "sim", "tcp"), default="auto",
                      help="sim: pyvisa-sim backend; tcp: pyvisa-py over a 127.0.0.1 socket")
     add_json_flag(p)
@@ -68,5 +70,5 @@ def run(args: argparse.Namespace) -> int:
                 "channel": args.channel, "time_s": [float(trace.time_s[0]), float(trace.time_s[-1])],
                 "meta": trace.meta},
          f"saved {len(trace)} samples of {args.channel} into {args.output} "
-         f"({trace.time_s[0]:.4g}..{trace.time_s[-1]:.4g} s, {sc['x_increment_s']:.3g} s/sample)")
+         f"({trace.time_s[0]:.4g}..{trace.time_s[-1]:.4g} s, {sc['sample_interval_s']:.3g} s per sample)")
     return 0

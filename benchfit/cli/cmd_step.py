@@ -4,7 +4,19 @@ from __future__ import annotations
 
 import argparse
 
-from benchfit.cli.common import add_json_flag, emit, parse_si
+from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.values import (
+    CURRENT,
+    PERCENT,
+    POSITIVE,
+    TIME,
+    VOLTAGE,
+    Range,
+    argtype,
+    parse_value,
+    text,
+    value,
+)
 from benchfit.errors import InputError
 
 
@@ -15,30 +27,33 @@ def register(subparsers) -> None:
                     "with standard errors, estimate the phase margin from the damping, and compare with "
                     "a loop prediction. With --load-step, measure deviation and recovery instead.")
     p.add_argument("trace", help="scope export (CSV/TSV, any dialect) or canonical trace CSV")
-    p.add_argument("--channel", help="channel name or 0-based index (default: the first)")
-    p.add_argument("--model", default="second-order", metavar="MODEL",
+    p.add_argument("--channel", type=text, help="channel name or 0-based index (default: the first)")
+    p.add_argument("--model", type=text, default="second-order", metavar="MODEL",
                    help="second-order (default), third-order, or loop:DESIGN.json (fit the loop's gain "
                         "and dominant pole pair to the trace)")
-    p.add_argument("--band", default="2%", help="settling / recovery band: a percentage of the step "
+    p.add_argument("--band", type=argtype(parse_band, "band"), default="2%", help="settling / recovery band: a percentage of the step "
                                                 "(2%%) or volts (5mV); default 2%%")
-    p.add_argument("--step-time", help="step instant in s when known (default: found from the trace)")
-    p.add_argument("--loop", metavar="JSON", help="design or loop-gain JSON to compare the step with "
+    p.add_argument("--step-time", type=value(TIME, Range()), help="step instant in s when known (default: found from the trace)")
+    p.add_argument("--loop", type=text, metavar="JSON", help="design or loop-gain JSON to compare the step with "
                                                   "(implied by --model loop:...)")
     p.add_argument("--no-fit", action="store_true", help="measurements only")
     g = p.add_argument_group("load step")
     g.add_argument("--load-step", action="store_true", help="the trace is the output after a load step")
-    g.add_argument("--current-step", metavar="AMPS", help="load current step, e.g. 2 or 500m (A)")
-    g.add_argument("--current-channel", metavar="NAME",
+    g.add_argument("--current-step", type=value(CURRENT, POSITIVE), metavar="AMPS", help="load current step, e.g. 2 or 500m (A)")
+    g.add_argument("--current-channel", type=text, metavar="NAME",
                    help="channel of the same trace holding the load current (its step gives the size)")
-    g.add_argument("--zout", metavar="FILE", help="closed-loop output impedance to compare with: a sweep "
+    g.add_argument("--zout", type=text, metavar="FILE", help="closed-loop output impedance to compare with: a sweep "
                                                   "file or JSON (frequency response or model)")
     r = p.add_argument_group("reading the trace (detected; these override)")
-    r.add_argument("--columns", metavar="LIST", help="column names in order, e.g. time,CH1,CH2 "
+    r.add_argument("--columns", type=text, metavar="LIST", help="column names in order, e.g. time,CH1,CH2 "
                                                      "(for a file with no header)")
-    r.add_argument("--time-unit", metavar="UNIT", help="time column unit: s, ms, us or ns")
-    r.add_argument("--sample-interval", metavar="DT", help="sample interval when the file has no time "
+    r.add_argument("--time-unit", type=text, metavar="UNIT", help="time column unit: s, ms, us or ns")
+    r.add_argument("--sample-interval", type=value(TIME, POSITIVE), metavar="DT", help="sample interval when the file has no time "
                                                            "column (e.g. 1u, 2e-7)")
-    p.add_argument("-o", "--output", metavar="JSON", help="write the full result (with curves) here")
+    r.add_argument("--skip-bad-rows", action="store_true", default=None,
+                   help="leave out rows that cannot be read instead of refusing the file; they are "
+                        "listed as skipped")
+    p.add_argument("-o", "--output", type=text, metavar="JSON", help="write the full result (with curves) here")
     add_json_flag(p)
     p.set_defaults(func=run)
 
@@ -47,18 +62,8 @@ def parse_band(text: str) -> tuple[float, float | None]:
     """'2%' -> (0.02, None); '5mV' / '0.005' V -> (0.02, 0.005)."""
     t = text.strip()
     if t.endswith("%"):
-        try:
-            frac = float(t[:-1]) / 100.0
-        except ValueError:
-            raise InputError(f"{text!r}: expected a percentage like 2% or a voltage like 5mV",
-                             source="--band") from None
-        if not 0 < frac < 1:
-            raise InputError(f"{text!r}: expected a percentage between 0 and 100", source="--band")
-        return frac, None
-    volts = parse_si(t, "--band")
-    if volts <= 0:
-        raise InputError(f"{text!r}: expected a positive voltage", source="--band")
-    return 0.02, volts
+        return parse_value(t, "--band", PERCENT, Range(gt=0, lt=100)) / 100.0, None
+    return 0.02, parse_value(t, "--band", VOLTAGE, POSITIVE)
 
 
 def _read_zout(path: str):
@@ -82,8 +87,8 @@ def run(args: argparse.Namespace) -> int:
     from benchfit.steps.analyse import analyse_load_step, analyse_step
     from benchfit.steps.compare import read_loop_gain
 
-    band, band_v = parse_band(args.band)
-    step_time = parse_si(args.step_time, "--step-time") if args.step_time else None
+    band, band_v = args.band
+    step_time = args.step_time
     model = args.model
     loop_path = args.loop
     if model.startswith("loop:"):
@@ -96,21 +101,20 @@ def run(args: argparse.Namespace) -> int:
                          source="--model")
     channel = args.channel
     overrides = {"columns": args.columns, "time_unit": args.time_unit,
-                 "sample_interval_s": parse_si(args.sample_interval, "--sample-interval")
-                 if args.sample_interval else None}
+                 "sample_interval_s": args.sample_interval, "skip_bad_rows": args.skip_bad_rows}
     trace = read_trace(args.trace, **{k: v for k, v in overrides.items() if v is not None})
     if args.load_step:
         if args.model != "second-order" or loop_path:
             raise InputError("--model and --loop apply to reference steps, not --load-step",
                              source="--load-step")
-        current = parse_si(args.current_step, "--current-step") if args.current_step else None
+        current = args.current_step
         zout = _read_zout(args.zout) if args.zout else None
         result = analyse_load_step(trace, channel=channel, band=band, band_v=band_v, step_time_s=step_time,
                                    current_step_a=current, current_channel=args.current_channel, zout=zout,
                                    zout_label=f"output impedance {args.zout}" if args.zout else "",
                                    fit=not args.no_fit)
     else:
-        if args.current_step or args.zout or args.current_channel:
+        if args.current_step is not None or args.zout or args.current_channel:
             raise InputError("--current-step, --current-channel and --zout need --load-step",
                              source="--zout")
         loop = predicted = None

@@ -28,7 +28,9 @@ from pathlib import Path
 
 import numpy as np
 
+from benchfit.data.quote import quote, quote_list
 from benchfit.data.response import FrequencyResponse
+from benchfit.data.rows import marker_name, value_problem
 from benchfit.data.trace import TimeTrace
 from benchfit.errors import InputError
 from benchfit.fileio import write_text_atomic
@@ -89,6 +91,24 @@ def _provenance(fields: dict, source: str) -> Provenance | None:
         raise InputError(e.message, source=source) from None
 
 
+#: Deepest nesting a meta or provenance line may have (benchfit writes a few levels; a
+#: deeper one would only make later JSON writing and copying recurse without need).
+MAX_DEPTH = 64
+
+
+def _depth(obj: object) -> int:
+    """Nesting depth of a JSON value, without recursion."""
+    deepest, stack = 0, [(obj, 1)]
+    while stack:
+        o, d = stack.pop()
+        deepest = max(deepest, d)
+        if isinstance(o, dict):
+            stack.extend((v, d + 1) for v in o.values())
+        elif isinstance(o, list):
+            stack.extend((v, d + 1) for v in o)
+    return deepest
+
+
 def _header(lines: list[str], source: str) -> tuple[dict, int]:
     """Parse the '# key: value' lines; return (fields, index of the column-name line)."""
     fields: dict[str, object] = {}
@@ -99,10 +119,16 @@ def _header(lines: list[str], source: str) -> tuple[dict, int]:
         if key in ("meta", "provenance"):
             try:
                 fields[key] = json.loads(value)
-            except json.JSONDecodeError:
-                raise InputError(f"'# {key}:' is not one JSON object", source=source, line=i + 1) from None
+            except (json.JSONDecodeError, RecursionError, ValueError):
+                # ValueError: an integer past Python's digit limit; RecursionError: nesting
+                # deeper than the interpreter's stack (a damaged or hostile line)
+                raise InputError(f"'# {key}:' is not one JSON object (or nests too deeply)",
+                                 source=source, line=i + 1) from None
             if not isinstance(fields[key], dict):
                 raise InputError(f"'# {key}:' is not one JSON object", source=source, line=i + 1)
+            if _depth(fields[key]) > MAX_DEPTH:
+                raise InputError(f"'# {key}:' nests deeper than {MAX_DEPTH} levels; expected the flat "
+                                 "object benchfit writes", source=source, line=i + 1)
         else:
             fields[key] = value
         i += 1
@@ -121,9 +147,13 @@ def _rows(lines: list[str], start: int, ncols: int, source: str) -> np.ndarray:
         if len(cells) != ncols:
             raise InputError(f"{len(cells)} cells, expected {ncols}", source=source, line=k + 1)
         try:
-            rows.append([float(c) for c in cells])
+            values = [float(c) for c in cells]
         except ValueError:
-            raise InputError(f"non-numeric cell in {line[:60]!r}", source=source, line=k + 1) from None
+            raise InputError(f"non-numeric cell in {quote(line)}", source=source, line=k + 1) from None
+        for c, v in zip(cells, values, strict=True):
+            if marker_name(v):  # an instrument's 9.91E37 written through by a capture
+                raise InputError(value_problem(c, v), source=source, line=k + 1)
+        rows.append(values)
     if not rows:
         raise InputError("no data rows", source=source)
     return np.asarray(rows, dtype=float)
@@ -140,7 +170,8 @@ def read_canonical_sweep(path: str | os.PathLike, text: str | None = None) -> Fr
     fields, hline = _header(lines, source)
     cols = [c.strip() for c in lines[hline].split(",")]
     if cols[:3] != ["freq_hz", "re", "im"]:
-        raise InputError(f"columns {cols} ; expected freq_hz,re,im first", source=source, line=hline + 1)
+        raise InputError(f"columns {quote_list(cols)}; expected freq_hz,re,im first", source=source,
+                         line=hline + 1)
     a = _rows(lines, hline + 1, len(cols), source)
     extra = {c: a[:, j] for j, c in enumerate(cols) if j >= 3}
     prov = _provenance(fields, source)
@@ -174,7 +205,8 @@ def read_canonical_trace(path: str | os.PathLike, text: str | None = None) -> Ti
     fields, hline = _header(lines, source)
     cols = [c.strip() for c in lines[hline].split(",")]
     if cols[0] != "time_s" or len(cols) < 2:
-        raise InputError(f"columns {cols}; expected time_s then channels", source=source, line=hline + 1)
+        raise InputError(f"columns {quote_list(cols)}; expected time_s then channels", source=source,
+                         line=hline + 1)
     a = _rows(lines, hline + 1, len(cols), source)
     prov = _provenance(fields, source)
     try:

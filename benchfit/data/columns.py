@@ -12,7 +12,9 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 
+from benchfit.data.quote import cut, quote
 from benchfit.data.units import find_freq_unit
+from benchfit.errors import InputError
 
 ROLES = ("freq", "mag", "phase", "re", "im", "coherence", "stddev", "weight", "skip")
 
@@ -55,6 +57,8 @@ class Column:
         True when the name says ohms / impedance.
     label
         What is left of the name after role and unit words (tells traces apart).
+    written_unit
+        The unit as written (in brackets, after a '/', or in the unit row), or None.
     """
 
     index: int
@@ -64,6 +68,7 @@ class Column:
     form: str = "auto"
     impedance: bool = False
     label: str = ""
+    written_unit: str | None = None
 
     def to_dict(self) -> dict:
         return {"index": self.index, "name": self.name, "role": self.role, "unit": self.unit,
@@ -83,6 +88,24 @@ def tokens(name: str) -> list[str]:
     if "|" in name:
         out.append("|")
     return out
+
+
+_BRACKETED = re.compile(r"[\(\[]\s*([^\)\]]*?)\s*[\)\]]\s*$")
+_SLASHED = re.compile(r"^\s*[A-Za-z]+\s*/\s*([^/\s]+)\s*$")
+
+
+def written_unit(name: str, unit_cell: str | None = None) -> str | None:
+    """The unit a column's name states: 'Frequency (kHz)' -> 'kHz', 'f/MHz' -> 'MHz', or the
+    unit row's cell; None when none is written."""
+    if unit_cell and unit_cell.strip():
+        return unit_cell.strip().strip("[]() ") or None
+    m = _BRACKETED.search(name) or _SLASHED.match(name)
+    return m.group(1).strip() or None if m else None
+
+
+def is_phase_unit(text: str) -> bool:
+    """True when ``text`` names degrees or radians ('deg', '°', 'rad', 'radians'...)."""
+    return "°" in text or bool(set(tokens(text)) & (_DEG_WORDS | _RAD_WORDS))
 
 
 def classify(name: str, index: int, unit_cell: str | None = None) -> Column:
@@ -115,7 +138,8 @@ def classify(name: str, index: int, unit_cell: str | None = None) -> Column:
         form = "db" if ws & _DB_WORDS else "linear" if (ws & _LIN_WORDS or "|" in ws) else "auto"
     elif ws & {"skip", "-", "ignore"} or name.strip() in ("-", "_"):
         role = "skip"
-    return Column(index=index, name=full, role=role, unit=unit, form=form, impedance=imp, label=label)
+    return Column(index=index, name=full, role=role, unit=unit, form=form, impedance=imp, label=label,
+                  written_unit=written_unit(name, unit_cell))
 
 
 def classify_all(names: list[str], units: list[str] | None = None) -> list[Column]:
@@ -178,3 +202,23 @@ def pair_traces(cols: list[Column]) -> tuple[list[TracePair], list[str]]:
         warnings.append(f"column {c.name!r} has no partner column; ignored")
     out = [TracePair(freq=p[0], first=p[1], second=p[2], extras=tuple(p[3])) for p in pairs if p[0]]
     return out, warnings
+
+
+def check_units(pair: TracePair, freq_unit: str | None, phase: str, source: str,
+                 header_line: int | None) -> None:
+    """Refuse a frequency or phase column whose written unit is not one benchfit knows.
+
+    ``Frequency (furlongs)`` must not be read as Hz, nor ``Phase (grad)`` as degrees;
+    an override (``freq_unit``, ``phase``) says what the column holds instead.
+    """
+    u = pair.freq.written_unit
+    if freq_unit is None and u is not None and find_freq_unit(u) is None:
+        raise InputError(f"unit {quote(u)} of the frequency column is not a frequency unit; "
+                         "expected Hz, kHz, MHz or GHz (or give freq_unit=, --freq-unit)",
+                         source=source, line=header_line, column=cut(pair.freq.name, 40))
+    if pair.kind == "mag_phase" and phase == "auto":
+        u = pair.second.written_unit
+        if u is not None and not is_phase_unit(u):
+            raise InputError(f"unit {quote(u)} of the phase column is not a phase unit; expected "
+                             "deg or rad (or give phase=, --phase-deg / --phase-rad)",
+                             source=source, line=header_line, column=cut(pair.second.name, 40))

@@ -8,6 +8,7 @@ all-numeric rows.  :mod:`benchfit.data.table` then finds the numeric blocks.
 
 from __future__ import annotations
 
+import csv
 import os
 import re
 from collections import Counter
@@ -61,9 +62,21 @@ def load_text(path: str | os.PathLike) -> str:
     return text
 
 
+#: Cell values a spreadsheet writes where a formula failed ('#N/A', '#VALUE!', ...): a row
+#: that starts with one is a broken data row, not a '#' comment.
+SPREADSHEET_ERRORS = ("#N/A", "#VALUE!", "#DIV/0!", "#NUM!", "#REF!", "#NAME?", "#NULL!")
+_SPREADSHEET_ERROR = re.compile(r"""^["']?(?:#N/A|#VALUE!|#DIV/0!|#NUM!|#REF!|#NAME\?|#NULL!)""",
+                                re.IGNORECASE)
+
+
+def is_spreadsheet_error(stripped: str) -> bool:
+    """True when a line starts with a spreadsheet error value such as '#N/A'."""
+    return bool(_SPREADSHEET_ERROR.match(stripped))
+
+
 def is_comment(stripped: str) -> bool:
-    """True for a comment line ('#', '!', '%', '//' or '*' first)."""
-    return stripped.startswith(COMMENT_MARKS)
+    """True for a comment line ('#', '!', '%', '//' or '*' first), but not a '#N/A' row."""
+    return stripped.startswith(COMMENT_MARKS) and not is_spreadsheet_error(stripped)
 
 
 def strip_comment_mark(stripped: str) -> str:
@@ -85,21 +98,46 @@ class Dialect:
         return _SEP_NAMES[self.separator]
 
     def split(self, line: str) -> list[str]:
-        """Cells of one line (quotes and surrounding blanks removed, trailing empties dropped)."""
+        """Cells of one line (quotes and surrounding blanks removed, trailing empties dropped).
+
+        A double-quoted cell may hold the separator (``"1,000.50",-3.2``).
+        """
         if self.separator == "whitespace":
             cells = line.split()
+        elif '"' in line:
+            try:
+                cells = next(csv.reader([line.strip()], delimiter=self.separator,
+                                        skipinitialspace=True))
+            except (csv.Error, StopIteration):
+                cells = line.strip().split(self.separator)
+            cells = [c.strip().strip('"').strip("'").strip() for c in cells]
         else:
             cells = [c.strip().strip('"').strip("'").strip() for c in line.strip().split(self.separator)]
         while cells and cells[-1] == "":
             cells.pop()
         return cells
 
-    def number(self, cell: str) -> float:
-        """One cell as a float; ValueError when it is not a number."""
+    @property
+    def thousands(self) -> str:
+        """The thousands separator this dialect allows inside a number: the other mark."""
+        return "," if self.decimal == "." else "."
+
+    def number(self, cell: str, grouping: bool = True) -> float:
+        """One cell as a float; ValueError when it is not a number.
+
+        Digits grouped in threes by the other mark (``1,000.50`` with a decimal point,
+        ``1.000,50`` with a decimal comma) are read as thousands separators, unless
+        ``grouping`` is False (the sniffer's strict reading, so that '12,345' cannot make
+        a decimal-point reading of a decimal-comma file look as good as the right one).
+        """
         c = cell.strip().strip('"').strip("'")
-        if self.decimal == ",":
-            if "." in c:  # a decimal-comma file never has a point inside a number
+        if self.thousands in c:
+            if not grouping:
                 raise ValueError(cell)
+            if not _GROUPED[self.decimal].match(c):
+                raise ValueError(cell)  # e.g. a point inside a decimal-comma number
+            c = c.replace(self.thousands, "")
+        if self.decimal == ",":
             c = c.replace(",", ".")
         return float(c)
 
@@ -108,17 +146,31 @@ class Dialect:
 
     def first_cell_pattern(self) -> re.Pattern:
         """A regex matching a line whose first cell is a number in this dialect (a data line)."""
-        dm = re.escape(self.decimal)
-        num = rf"[+-]?(?:\d+(?:{dm}\d*)?|{dm}\d+)(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity)"
+        dm, tm = re.escape(self.decimal), re.escape(self.thousands)
+        num = (rf"[+-]?(?:\d{{1,3}}(?:{tm}\d{{3}})+(?:{dm}\d*)?|\d+(?:{dm}\d*)?|{dm}\d+)"
+               rf"(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity)")
+        if self.separator == ",":  # an unquoted comma ends the cell: no grouping there
+            num = (rf"[+-]?(?:\d+(?:{dm}\d*)?|{dm}\d+)(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity)")
+            quoted = (rf"[+-]?(?:\d{{1,3}}(?:,\d{{3}})+(?:{dm}\d*)?|\d+(?:{dm}\d*)?|{dm}\d+)"
+                      rf"(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity)")
+        else:
+            quoted = num
         end = r"\s" if self.separator == "whitespace" else rf"\s*{re.escape(self.separator)}"
-        return re.compile(rf"""^\s*(?:"(?:{num})"|'(?:{num})'|(?:{num}))(?:{end}|\s*$)""",
+        return re.compile(rf"""^\s*(?:"(?:{quoted})"|'(?:{quoted})'|(?:{num}))(?:{end}|\s*$)""",
                           re.IGNORECASE)
 
 
-def _parses(d: Dialect, cells: list[str]) -> bool:
+# A number with its digits grouped in threes: '1,000.50' (decimal point), '1.000,50' (comma).
+_GROUPED = {
+    ".": re.compile(r"^[+-]?\d{1,3}(?:,\d{3})+(?:\.\d*)?(?:[eE][+-]?\d+)?$"),
+    ",": re.compile(r"^[+-]?\d{1,3}(?:\.\d{3})+(?:,\d*)?(?:[eE][+-]?\d+)?$"),
+}
+
+
+def _parses(d: Dialect, cells: list[str], grouping: bool) -> bool:
     try:
         for c in cells:
-            d.number(c)
+            d.number(c, grouping)
     except ValueError:
         return False
     return bool(cells)
@@ -150,6 +202,19 @@ def sniff(lines: list[str], source: str, *, min_columns: int = 2) -> Dialect:
     sample = [lines[k].strip() for k in head + tail[::-1]]
     above = next((lines[k].strip() for k in range(head[0] - 1, -1, -1) if lines[k].strip()), None)
     header = strip_comment_mark(above) if above else None
+    # Strict numbers first; digits grouped in threes only when nothing reads without them.
+    best = _best_dialect(sample, header, min_columns, grouping=False) or \
+        _best_dialect(sample, header, min_columns, grouping=True)
+    if best is None:
+        raise InputError(
+            f"could not split the numeric rows into {min_columns} or more columns with any "
+            "separator (comma, semicolon, tab, whitespace) and decimal mark ('.' or ',')",
+            source=source)
+    return best
+
+
+def _best_dialect(sample: list[str], header: str | None, min_columns: int,
+                  grouping: bool) -> Dialect | None:
     best: tuple[tuple[int, ...], Dialect] | None = None
     order = 0
     for sep in SEPARATORS:
@@ -161,7 +226,7 @@ def sniff(lines: list[str], source: str, *, min_columns: int = 2) -> Dialect:
             counts = Counter()
             for ln in sample:
                 cells = d.split(ln)
-                if _parses(d, cells):
+                if _parses(d, cells, grouping):
                     counts[len(cells)] += 1
             if not counts:
                 continue
@@ -175,9 +240,4 @@ def sniff(lines: list[str], source: str, *, min_columns: int = 2) -> Dialect:
             score = (hits, header_fits, ncols, order)
             if best is None or score > best[0]:
                 best = (score, d)
-    if best is None:
-        raise InputError(
-            f"could not split the numeric rows into {min_columns} or more columns with any "
-            "separator (comma, semicolon, tab, whitespace) and decimal mark ('.' or ',')",
-            source=source)
-    return best[1]
+    return best[1] if best else None

@@ -19,6 +19,8 @@ from benchfit.errors import InputError
 
 SWEEP_OPTIONS = ("columns", "trace", "freq_unit", "mag", "phase", "param", "quantity")
 TRACE_OPTIONS = ("channel", "time_unit", "sample_interval_s")
+#: Options both readers take (the row rule of :mod:`benchfit.data.rows`).
+BOTH_OPTIONS = ("skip_bad_rows",)
 
 
 def read_any(path: str | os.PathLike, **options: Any) -> FrequencyResponse | TimeTrace:
@@ -40,20 +42,21 @@ def read_any(path: str | os.PathLike, **options: Any) -> FrequencyResponse | Tim
     """
     sweep_opts = {k: v for k, v in options.items() if k in SWEEP_OPTIONS and v is not None}
     trace_opts = {k: v for k, v in options.items() if k in TRACE_OPTIONS and v is not None}
-    unknown = set(options) - set(SWEEP_OPTIONS) - set(TRACE_OPTIONS)
+    both = {k: v for k, v in options.items() if k in BOTH_OPTIONS and v is not None}
+    unknown = set(options) - set(SWEEP_OPTIONS) - set(TRACE_OPTIONS) - set(BOTH_OPTIONS)
     if unknown:
         raise InputError(f"unknown option(s) {sorted(unknown)}")
     if trace_opts and not sweep_opts:
-        return read_trace(path, **trace_opts)
+        return read_trace(path, **trace_opts, **both)
     try:
-        return read_sweep(path, **sweep_opts)
+        return read_sweep(path, **sweep_opts, **both)
     except InputError as sweep_error:
         if sweep_opts:
             raise
         # A file whose named columns are a time record reads as a trace; anything the
         # trace reader would have to guess stays a sweep error.
         try:
-            tr = read_trace(path)
+            tr = read_trace(path, **both)
         except InputError:
             raise sweep_error from None
         if tr.meta["dialect"].get("header") == "none":
@@ -66,7 +69,13 @@ def _rng(a: np.ndarray) -> list[float]:
 
 
 def summary(obj: FrequencyResponse | TimeTrace) -> dict[str, Any]:
-    """Plain-JSON description of a sweep or trace: size, span, dialect, columns, warnings."""
+    """Plain-JSON description of a sweep or trace: size, span, dialect, columns, warnings,
+    rows skipped."""
+    with np.errstate(all="ignore"):
+        return _summary(obj)
+
+
+def _summary(obj: FrequencyResponse | TimeTrace) -> dict[str, Any]:
     meta = obj.meta
     if isinstance(obj, FrequencyResponse):
         return {
@@ -84,6 +93,7 @@ def summary(obj: FrequencyResponse | TimeTrace) -> dict[str, Any]:
             "phase_deg_range": _rng(obj.phase_deg),
             "has": {k: getattr(obj, k) is not None for k in ("stddev", "weight", "coherence")},
             "notes": list(meta.get("notes", [])),
+            "skipped_rows": list(meta.get("skipped_rows", [])),
         }
     units = meta.get("units", {})
     return {
@@ -98,4 +108,5 @@ def summary(obj: FrequencyResponse | TimeTrace) -> dict[str, Any]:
         "dialect": meta.get("dialect", {}),
         "warnings": list(meta.get("warnings", [])),
         "notes": list(meta.get("notes", [])),
+        "skipped_rows": list(meta.get("skipped_rows", [])),
     }

@@ -19,12 +19,15 @@ from typing import Any
 import numpy as np
 
 from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_sweep
-from benchfit.data.columns import Column, TracePair, classify_all, pair_traces
+from benchfit.data.columns import Column, TracePair, check_units, classify_all, pair_traces
 from benchfit.data.dialect import load_text, sniff
+from benchfit.data.quote import cut, quote, quote_list
+from benchfit.data.repeats import order_and_average
 from benchfit.data.response import QUANTITIES, FrequencyResponse
+from benchfit.data.rows import BadRow, apply_row_rule, bad_row, skipped_warning
 from benchfit.data.table import Block, find_blocks
 from benchfit.data.touchstone import looks_like_touchstone, ports_from_name, read_touchstone
-from benchfit.data.units import freq_factor, freq_to_hz, freq_unit_name
+from benchfit.data.units import freq_factor, freq_unit_name
 from benchfit.errors import InputError
 from benchfit.provenance import Provenance
 
@@ -123,6 +126,18 @@ def _decide_mag(values: np.ndarray, col: Column, override: str, lines: np.ndarra
 
 def _decide_phase(values: np.ndarray, col: Column, override: str, warnings: list[str]) -> str:
     form = override if override != "auto" else col.form
+    if override == "auto" and values.size >= 3:
+        peak = float(np.max(np.abs(values)))
+        # A wrapped phase in radians never leaves ±π; one in degrees seldom stays inside it,
+        # and an unwrapped one in radians seldom passes two turns (common practice, no source).
+        if form == "deg" and 0.2 < peak <= np.pi * 1.001:
+            warnings.append(f"phase column {quote(col.name)} is labelled degrees but every value lies "
+                            f"within ±π (largest {peak:.3g}); if it is in radians, use phase='rad' "
+                            "(--phase-rad)")
+        elif form == "rad" and peak > 4 * np.pi:
+            warnings.append(f"phase column {quote(col.name)} is labelled radians but holds values up "
+                            f"to {peak:.4g}, more than two turns; if it is in degrees, use "
+                            "phase='deg' (--phase-deg)")
     if form == "auto":
         peak = float(np.max(np.abs(values)))
         if 0.2 < peak <= np.pi * 1.001:
@@ -141,13 +156,15 @@ class _Table:
     freq_hz: np.ndarray
     response: np.ndarray
     extras: dict[str, np.ndarray]  # coherence / stddev / weight columns
+    line_no: np.ndarray  # file line of each point
     dialect: dict[str, Any]
     columns: list[Column]
     impedance: bool
     notes: list[str]
+    skipped: list[BadRow]
 
 
-def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phase,
+def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phase, skip_bad_rows,
                  warnings: list[str]) -> _Table:
     lines = text.splitlines()
     d = sniff(lines, source)
@@ -155,6 +172,7 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
     spec = parse_columns(columns) if columns is not None else None
     traces: list[tuple[str, Block, TracePair]] = []
     problems: list[str] = []
+    unread: list[Block] = []
     for bi, blk in enumerate(blocks):
         ncols = blk.data.shape[1]
         if spec is not None:
@@ -162,14 +180,17 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
         elif blk.names is not None:
             cols = classify_all(blk.names, blk.units)
         else:
-            problems.append(f"no header line above the numbers at line {int(blk.line_no[0])}"
-                            + (f" (the line above, {blk.header_text!r}, does not have {ncols} names)"
-                               if blk.header_text else ""))
+            first = int(blk.line_no[0]) if blk.line_no.size else blk.bad_rows[0].line
+            problems.append(f"no header line above the numbers at line {first}"
+                            + (f" (the line above, {quote(blk.header_text)}, does not have {ncols} "
+                               "names)" if blk.header_text else ""))
+            unread.append(blk)
             continue
         pairs, pair_warn = pair_traces(cols)
         if not pairs:
-            problems.append(f"the names {[c.name for c in cols]} (line {blk.header_line}) give no "
-                            "frequency column with a magnitude/phase or real/imaginary pair")
+            problems.append(f"the names {quote_list([c.name for c in cols])} (line {blk.header_line}) "
+                            "give no frequency column with a magnitude/phase or real/imaginary pair")
+            unread.append(blk)
             continue
         if spec is None:
             warnings.extend(pair_warn)
@@ -183,11 +204,25 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
     if not traces:
         raise InputError(problems[0] + "; give the columns, e.g. columns='freq,mag,phase' "
                          "(--columns freq,mag,phase)", source=source)
+    for blk in unread:
+        lo = int(blk.line_no[0]) if blk.line_no.size else blk.bad_rows[0].line
+        hi = int(blk.line_no[-1]) if blk.line_no.size else blk.bad_rows[-1].line
+        warnings.append(f"the {blk.rows_in_block} rows at lines {lo}-{hi} were not read (no names "
+                        "line of their own: a table of another kind?)")
     k, label, blk, pair = _select_trace(traces, trace, source, warnings)
+    check_units(pair, freq_unit, phase, source, blk.header_line)
     data, lines_no = blk.data, blk.line_no
     f_unit = freq_unit_name(freq_unit or pair.freq.unit or "Hz", exact_case=freq_unit is None)
-    f = freq_to_hz(data[:, pair.freq.index], f_unit, source=source, lines=lines_no,
-                   column=pair.freq.name)
+    raw_f = data[:, pair.freq.index]
+    with np.errstate(over="ignore", invalid="ignore"):
+        f = raw_f * freq_factor(f_unit)
+    bad: list[BadRow] = list(blk.bad_rows)
+    fcol = pair.freq.name
+    for i in np.flatnonzero(~np.isfinite(f) | (f <= 0)):
+        why = (f"frequency {raw_f[i]:g} {f_unit} is too large to represent in Hz; check the "
+               "frequency unit" if not np.isfinite(f[i]) else
+               f"frequency {raw_f[i]:g} {f_unit} is not positive; expected frequencies > 0")
+        bad.append(bad_row(int(lines_no[i]), lines[int(lines_no[i]) - 1], why, fcol))
     a, b = data[:, pair.first.index], data[:, pair.second.index]
     if pair.kind == "mag_phase":
         mag_form = _decide_mag(a, pair.first, mag, lines_no, source, warnings)
@@ -195,24 +230,27 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
         with np.errstate(over="ignore", invalid="ignore"):
             m = 10.0 ** (a / 20.0) if mag_form == "db" else a
             h = m * np.exp(1j * (b if ph_form == "rad" else np.radians(b)))
-        if not np.all(np.isfinite(h)):
-            i = int(np.flatnonzero(~np.isfinite(h))[0])
-            raise InputError(f"magnitude {a[i]:g} dB overflows; expected a value below about 6000 dB "
-                             "(is the column linear?)", source=source, line=int(lines_no[i]),
-                             column=pair.first.name)
+        for i in np.flatnonzero(~np.isfinite(h)):
+            bad.append(bad_row(int(lines_no[i]), lines[int(lines_no[i]) - 1],
+                               f"magnitude {a[i]:g} dB overflows; expected a value below about "
+                               "6000 dB (is the column linear?)", pair.first.name))
     else:
         mag_form = ph_form = None
         h = a + 1j * b
-    bad = np.flatnonzero(f <= 0)
-    if bad.size:
-        i = int(bad[0])
-        raise InputError(f"frequency {data[i, pair.freq.index]:g} {f_unit} is not positive; "
-                         "expected frequencies > 0", source=source, line=int(lines_no[i]),
-                         column=pair.freq.name)
+    skipped = apply_row_rule(bad, skip_bad_rows, source)
+    if skipped:
+        drop = np.isin(lines_no, [x.line for x in skipped])
+        keep = ~drop
+        f, h, lines_no = f[keep], h[keep], lines_no[keep]
+        data = data[keep]
+        warnings.append(skipped_warning(skipped))
+    if not lines_no.size:
+        raise InputError("no row of the data could be read", source=source)
     extras = {c.role: data[:, c.index] for c in pair.extras}
     dialect = {
         "format": "table",
         **d.to_dict(),
+        **({"thousands": d.thousands} if blk.grouped else {}),
         "header": "names and unit row" if blk.units else ("names" if blk.names else "none"),
         "header_line": blk.header_line,
         "first_data_line": int(lines_no[0]),
@@ -224,44 +262,18 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
         "trace": k + 1,
         "trace_label": label,
         "traces": [t[0] for t in traces],
+        "rows_read": int(lines_no.size),
+        "rows_skipped": len(skipped),
     }
-    return _Table(freq_hz=f, response=h, extras=extras, dialect=dialect, columns=pair.columns(),
-                  impedance=any(c.impedance for c in (pair.first, pair.second)), notes=blk.notes)
-
-
-def _order(f: np.ndarray, h: np.ndarray, extras: dict[str, np.ndarray], warnings: list[str]
-           ) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray], str]:
-    """Sort by frequency and average repeated frequencies."""
-    steps = np.diff(f)
-    order = "ascending"
-    if np.all(steps < 0):
-        order = "descending (sorted)"
-    elif not np.all(steps > 0):
-        order = "mixed (sorted)" if np.any(steps < 0) else "ascending"
-    if order != "ascending":
-        idx = np.argsort(f, kind="stable")
-        f, h = f[idx], h[idx]
-        extras = {k: v[idx] for k, v in extras.items()}
-        if order.startswith("mixed"):
-            warnings.append("frequencies were out of order; sorted")
-    uniq, inv, counts = np.unique(f, return_inverse=True, return_counts=True)
-    if uniq.size != f.size:
-        n_dup = int(np.sum(counts > 1))
-        warnings.append(f"{n_dup} frequencies appear more than once; their values were averaged")
-
-        def avg(v):
-            return np.bincount(inv, weights=v, minlength=uniq.size) / counts
-
-        h = avg(h.real) + 1j * avg(h.imag)
-        extras = {k: avg(v) for k, v in extras.items()}
-        f = uniq
-    return f, h, extras, order
+    return _Table(freq_hz=f, response=h, extras=extras, line_no=lines_no, dialect=dialect,
+                  columns=pair.columns(), impedance=any(c.impedance for c in (pair.first, pair.second)),
+                  notes=blk.notes + blk.footer, skipped=skipped)
 
 
 def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = None,
                trace: int | str | None = None, freq_unit: str | None = None,
                mag: str = "auto", phase: str = "auto", param: str | None = None,
-               quantity: str | None = None) -> FrequencyResponse:
+               quantity: str | None = None, skip_bad_rows: bool = False) -> FrequencyResponse:
     """Read a frequency sweep from a text export, a Touchstone file or a canonical CSV.
 
     Parameters
@@ -287,20 +299,32 @@ def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = Non
     quantity
         What was measured, one of :data:`benchfit.data.QUANTITIES` (default: 'impedance'
         when the columns say ohms, else 'unknown').
+    skip_bad_rows
+        Leave out the rows of a text table that cannot be read (text among the numbers,
+        '#N/A', NaN, a SCPI 9.91E37 marker, a non-positive frequency) instead of
+        refusing the file; they are counted and listed in ``meta["skipped_rows"]``, a
+        warning and the provenance (see :mod:`benchfit.data.rows`).
 
     Returns
     -------
     FrequencyResponse
-        Sorted by frequency; ``meta`` holds ``dialect``, ``warnings``, ``columns`` and
-        ``notes`` (metadata lines found above the data).
+        Sorted by frequency; ``meta`` holds ``dialect``, ``warnings``, ``columns``,
+        ``notes`` (metadata lines found above the data) and ``skipped_rows``.
 
     Raises
     ------
     InputError
-        Naming file, line and column: empty file, no numeric rows, non-numeric or
-        non-finite cell, non-positive frequency, a single point, mismatched column
-        count, unknown Touchstone option, unknown override value.
+        Naming file, line and column: empty file, no numeric rows, a row that cannot
+        be read (unless ``skip_bad_rows``), a unit that is not understood, a single
+        point, unknown Touchstone option, unknown override value.
     """
+    with np.errstate(all="ignore"):  # every value is checked; numpy's notes must not reach stderr
+        return _read_sweep(path, columns=columns, trace=trace, freq_unit=freq_unit, mag=mag,
+                           phase=phase, param=param, quantity=quantity, skip_bad_rows=skip_bad_rows)
+
+
+def _read_sweep(path, *, columns, trace, freq_unit, mag, phase, param, quantity,
+                skip_bad_rows) -> FrequencyResponse:
     source = str(path)
     mag = _check_choice(mag, ("auto", "db", "linear"), "--mag")
     phase = _check_choice(phase, ("auto", "deg", "rad"), "--phase")
@@ -309,7 +333,8 @@ def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = Non
     if quantity is not None and quantity not in QUANTITIES:
         raise InputError(f"{quantity!r}; expected one of {', '.join(QUANTITIES)}", source="--quantity")
     settings = {k: v for k, v in dict(columns=columns, trace=trace, freq_unit=freq_unit, mag=mag,
-                                      phase=phase, param=param, quantity=quantity).items()
+                                      phase=phase, param=param, quantity=quantity,
+                                      skip_bad_rows=skip_bad_rows or None).items()
                 if v is not None and v != "auto"}
     text = load_text(path)
     first = text[:4096].lstrip().split("\n", 1)[0].strip()
@@ -332,6 +357,8 @@ def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = Non
     warnings: list[str] = []
     notes: list[str] = []
     impedance = False
+    skipped: list[BadRow] = []
+    lines_no = None
     if looks_like_touchstone(path, text):
         ts = read_touchstone(text, source, param=param, ports=ports_from_name(path))
         f, h, extras = ts.freq_hz, ts.values, {}
@@ -350,13 +377,13 @@ def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = Non
         if param is not None:
             warnings.append("param applies to Touchstone files only; ignored")
         tab = _table_sweep(text, source, columns=columns, trace=trace, freq_unit=freq_unit, mag=mag,
-                           phase=phase, warnings=warnings)
+                           phase=phase, skip_bad_rows=skip_bad_rows, warnings=warnings)
         f, h, extras, dialect = tab.freq_hz, tab.response, tab.extras, tab.dialect
-        impedance, notes = tab.impedance, tab.notes
+        impedance, notes, skipped, lines_no = tab.impedance, tab.notes, tab.skipped, tab.line_no
         cols = [c.to_dict() for c in tab.columns]
     if f.size < 2:
         raise InputError(f"only {f.size} data point; a sweep needs at least 2", source=source)
-    f, h, extras, order = _order(f, h, extras, warnings)
+    f, h, extras, order = order_and_average(f, h, extras, lines_no, warnings)
     if f.size < 2:
         raise InputError("all rows have the same frequency; a sweep needs at least 2", source=source)
     dialect["order"] = order
@@ -372,8 +399,11 @@ def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = Non
         "dialect": dialect,
         "columns": cols,
         "warnings": warnings,
-        "notes": notes[:40],
+        "notes": [cut(x, 200) for x in notes[:40]],
+        "skipped_rows": [b.to_dict() for b in skipped],
     }
+    if skipped:
+        settings["skipped_rows"] = [b.line for b in skipped]
     try:
         return FrequencyResponse(
             freq_hz=f, response=h, stddev=extras.get("stddev"), weight=extras.get("weight"),

@@ -2,11 +2,15 @@
 
 Data come in *blocks*: runs of numeric rows (blank and comment lines inside are
 skipped), each with the text lines above it (metadata, a title, the column
-names and an optional unit row).  Rows are parsed by pandas' C parser when
-the block is clean; otherwise line by line, so that the first bad cell is
-reported with its file line.
+names and an optional unit row).  A new block starts only where a names line
+stands above the numbers (stacked traces) or the rows change their number of
+cells; any other line among the rows is a row of the block that could not be
+read (``Marker 1: 5 kHz``, ``#N/A,#N/A,#N/A``), and so is a line after the last
+row that has the block's number of cells.  Such rows go to ``Block.bad_rows``;
+the readers apply the one rule of :mod:`benchfit.data.rows` to them.
 
-Every error names the file and the 1-based line where the problem is.
+Rows are parsed by pandas' C parser when the block is clean; otherwise line by
+line, so that every bad row is found with its file line.
 """
 
 from __future__ import annotations
@@ -19,7 +23,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from benchfit.data.dialect import Dialect, is_comment, strip_comment_mark
+from benchfit.data.dialect import Dialect, is_comment, is_spreadsheet_error, strip_comment_mark
+from benchfit.data.quote import quote
+from benchfit.data.rows import BadRow, bad_row, is_marker, value_problem
 from benchfit.errors import InputError
 
 
@@ -43,6 +49,12 @@ class Block:
         Raw text of the line just above the data when it could not serve as names.
     notes
         Other text lines above the block (metadata, title), oldest first.
+    bad_rows
+        Rows of the block that could not be read, in line order (see :mod:`benchfit.data.rows`).
+    footer
+        Text lines after the last row that are not rows (an 'end of data' line).
+    grouped
+        True when numbers with thousands separators ('1,000.50') were read.
     """
 
     data: np.ndarray
@@ -52,6 +64,14 @@ class Block:
     header_line: int | None = None
     header_text: str | None = None
     notes: list[str] = field(default_factory=list)
+    bad_rows: list[BadRow] = field(default_factory=list)
+    footer: list[str] = field(default_factory=list)
+    grouped: bool = False
+
+    @property
+    def rows_in_block(self) -> int:
+        """Rows read plus rows that could not be read."""
+        return int(self.data.shape[0]) + len(self.bad_rows)
 
     @property
     def title(self) -> str | None:
@@ -99,57 +119,88 @@ def _numeric_cells(cells: list[str], d: Dialect) -> int:
 
 def _fast_rows(texts: list[str], d: Dialect, ncols: int) -> np.ndarray | None:
     """Rows parsed by pandas' C parser; None when anything is off (the slow path then
-    finds and reports the first bad cell with its line)."""
+    finds every bad row with its line)."""
     if d.separator != "whitespace":
         texts = [t.rstrip(d.separator) for t in texts]
     try:
         frame = pd.read_csv(io.StringIO("\n".join(texts)), sep=r"\s+" if d.separator == "whitespace"
                             else d.separator, header=None, decimal=d.decimal, dtype=float,
-                            engine="c", skipinitialspace=True, skip_blank_lines=False)
+                            engine="c", skipinitialspace=True, skip_blank_lines=False,
+                            na_filter=False)
     except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
         return None
     data = frame.to_numpy(dtype=float)
-    if data.shape != (len(texts), ncols) or not np.all(np.isfinite(data)):
+    if data.shape != (len(texts), ncols) or not np.all(np.isfinite(data)) or np.any(is_marker(data)):
         return None
     return data
 
 
-def _parse_rows(rows: list[tuple[int, list[str]]], d: Dialect, ncols: int, source: str,
-                names: list[str] | None) -> np.ndarray:
-    """Rows of cells -> float array; the first bad row raises with its line number."""
-    for ln, cells in rows:
-        if len(cells) != ncols:
-            raise InputError(f"{len(cells)} cells, expected {ncols} like the rows above",
-                             source=source, line=ln)
-    cells_all = [c for _, cells in rows for c in cells]
-    try:
-        if d.decimal == ",":
-            if any("." in c for c in cells_all):
-                raise ValueError
-            cells_all = [c.replace(",", ".") for c in cells_all]
-        flat = np.array(cells_all, dtype=float)
-    except ValueError:
-        # Slow path, cell by cell with the dialect's own rule (which also takes quoted
-        # numbers): either every cell parses or the first bad one is reported.
-        values = []
-        for ln, cells in rows:
-            for j, c in enumerate(cells):
-                try:
-                    values.append(d.number(c))
-                except ValueError:
-                    col = names[j] if names and j < len(names) else j + 1
-                    raise InputError(f"non-numeric cell {c!r}; expected a number"
-                                     + (" with a decimal comma" if d.decimal == "," else ""),
-                                     source=source, line=ln, column=col) from None
-        flat = np.array(values, dtype=float)
-    data = flat.reshape(len(rows), ncols)
-    bad = ~np.isfinite(data)
-    if bad.any():
-        i, j = np.argwhere(bad)[0]
-        col = names[j] if names and j < len(names) else int(j) + 1
-        raise InputError(f"value {rows[i][1][j]!r} is not finite; expected a finite number",
-                         source=source, line=rows[i][0], column=col)
-    return data
+def _column(names: list[str] | None, j: int) -> str | int:
+    return names[j] if names and j < len(names) else j + 1
+
+
+def _row_problem(cells: list[str], d: Dialect, ncols: int,
+                 names: list[str] | None) -> tuple[list[float] | None, str | None, str | int | None]:
+    """(values, None, None) for a good row, else (None, why, column)."""
+    if len(cells) != ncols:
+        return None, f"{len(cells)} cells, expected {ncols} like the other rows", None
+    values = []
+    for j, c in enumerate(cells):
+        try:
+            v = d.number(c)
+        except ValueError:
+            return None, (f"non-numeric cell {quote(c)}; expected a number"
+                          + (" with a decimal comma" if d.decimal == "," else "")), _column(names, j)
+        why = value_problem(c, v)
+        if why:
+            return None, why, _column(names, j)
+        values.append(v)
+    return values, None, None
+
+
+def _parse_rows(rows: list[tuple[int, str]], d: Dialect, ncols: int, names: list[str] | None
+                ) -> tuple[np.ndarray, np.ndarray, list[BadRow], bool]:
+    """Rows of text -> (values of the good rows, their lines, the bad rows, thousands seen).
+
+    The whole block is converted at once when it can be; otherwise row by row, so that
+    each row that cannot be read is named with its line and the reason.
+    """
+    split = [(ln, raw, d.split(raw)) for ln, raw in rows]
+    if all(len(c) == ncols for _, _, c in split):
+        flat = [c for _, _, cells in split for c in cells]
+        try:
+            if d.decimal == ",":
+                if any("." in c for c in flat):
+                    raise ValueError
+                flat = [c.replace(",", ".") for c in flat]
+            data = np.array(flat, dtype=float).reshape(len(split), ncols)
+        except ValueError:
+            data = None
+        if data is not None:
+            ok = np.all(np.isfinite(data), axis=1) & ~np.any(is_marker(data), axis=1)
+            if ok.all():
+                return data, np.array([ln for ln, _, _ in split], dtype=int), [], False
+    good, lines, bad, grouped = [], [], [], False
+    for ln, raw, cells in split:
+        values, why, col = _row_problem(cells, d, ncols, names)
+        if why is not None:
+            bad.append(bad_row(ln, raw, why, col))
+            continue
+        grouped = grouped or any(d.thousands in c for c in cells)
+        good.append(values)
+        lines.append(ln)
+    data = np.array(good, dtype=float).reshape(len(good), ncols)
+    return data, np.array(lines, dtype=int), bad, grouped
+
+
+def _row_like(raw: str, d: Dialect, ncols: int) -> bool:
+    """A text line that is a broken row: a spreadsheet error first, or the block's number of
+    cells with at least one number among them."""
+    s = raw.strip()
+    if is_spreadsheet_error(s):
+        return True
+    cells = d.split(s)
+    return len(cells) == ncols and _numeric_cells(cells, d) > 0
 
 
 _DATA_FIRST = frozenset("0123456789+-.,\"'nNiI")
@@ -197,7 +248,7 @@ def _kinds(lines: list[str], d: Dialect, exact: bool) -> list[str]:
 
 
 def find_blocks(lines: list[str], d: Dialect, source: str) -> list[Block]:
-    """The numeric blocks of ``lines`` with their headers.
+    """The numeric blocks of ``lines`` with their headers and the rows that could not be read.
 
     A one-row block without a header is taken as metadata (e.g. ``401;points``)
     unless it is the only block.
@@ -208,10 +259,47 @@ def find_blocks(lines: list[str], d: Dialect, source: str) -> list[Block]:
         return _blocks(lines, d, source, exact=True)
 
 
+@dataclass
+class _Header:
+    names: list[str] | None
+    units: list[str] | None
+    header_line: int | None
+    header_text: str | None
+    consumed: set[int]
+
+
+def _header(lines: list[str], above: list[int], d: Dialect, ncols: int) -> _Header:
+    """The names (and unit row) in the last lines of ``above``, if they are there."""
+    if not above:
+        return _Header(None, None, None, None, set())
+    last = above[-1]
+    if is_spreadsheet_error(lines[last].strip()):  # '#N/A,#N/A' is a broken row, not names
+        return _Header(None, None, None, strip_comment_mark(lines[last].strip()), set())
+    cells = split_header(lines[last], d, ncols)
+    if cells is not None and _is_unit_row(cells) and len(above) >= 2:
+        names_cells = split_header(lines[above[-2]], d, ncols)
+        if names_cells is not None:
+            return _Header(names_cells, cells, above[-2] + 1, None, {last, above[-2]})
+    if cells is not None and _numeric_cells(cells, d) == 0:
+        return _Header(cells, None, last + 1, None, {last})
+    return _Header(None, None, None, strip_comment_mark(lines[last].strip()), set())
+
+
+@dataclass
+class _Pending:
+    """A block being collected: its data lines, broken rows and the lines above."""
+
+    idx: list[int]
+    ncols: int
+    above: list[int]
+    head: _Header
+    bad_lines: list[int] = field(default_factory=list)
+
+
 def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Block]:
     kinds = _kinds(lines, d, exact)
 
-    raw_blocks: list[tuple[int, list[int]]] = []  # (first line index, indices of data lines)
+    runs: list[tuple[int, list[int]]] = []  # (first line index, indices of data lines)
     i, n = 0, len(lines)
     while i < n:
         if kinds[i] != "data":
@@ -222,60 +310,88 @@ def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Bloc
             if kinds[i] == "data":
                 idx.append(i)
             i += 1
-        raw_blocks.append((start, idx))
+        runs.append((start, idx))
 
-    if not raw_blocks:
+    if not runs:
         raise InputError("no numeric rows; expected rows of numbers (after an optional header)",
                          source=source)
 
     blocks: list[Block] = []
+    cur: _Pending | None = None
     prev_end = 0
-    for start, idx in raw_blocks:
-        texts = [lines[k].strip() for k in idx]
-        ncols = Counter(len(d.split(t)) for t in texts[:50]).most_common(1)[0][0]
-        above = [k for k in range(prev_end, start) if kinds[k] in ("text", "comment")]
-        # A text row straight after a block with a number in it is a broken data row.
-        if blocks and above and kinds[above[0]] == "text":
-            first = above[0]
-            cells = d.split(lines[first].strip())
-            if len(cells) == blocks[-1].data.shape[1] and _numeric_cells(cells, d) > 0:
-                # The first cell failed the data-line pattern even when the lenient
-                # per-cell rule takes it (a stray quote after the exponent, say).
-                bad = next((c for c in cells if _numeric_cells([c], d) == 0), cells[0])
-                raise InputError(f"non-numeric cell {bad!r}; expected a number", source=source,
-                                 line=first + 1)
-        names = units = None
-        header_line = header_text = None
-        consumed: set[int] = set()
-        if above:
-            last = above[-1]
-            cells = split_header(lines[last], d, ncols)
-            if cells is not None and _is_unit_row(cells) and len(above) >= 2:
-                names_cells = split_header(lines[above[-2]], d, ncols)
-                if names_cells is not None:
-                    names, units, header_line = names_cells, cells, above[-2] + 1
-                    consumed = {last, above[-2]}
-            if names is None and cells is not None and _numeric_cells(cells, d) == 0:
-                names, header_line = cells, last + 1
-                consumed = {last}
-            if names is None:
-                header_text = strip_comment_mark(lines[last].strip())
-        notes = [strip_comment_mark(lines[k].strip()) for k in above if k not in consumed]
-        notes = [x for x in notes if x]
-        if len(idx) == 1 and names is None and len(raw_blocks) > 1:
-            prev_end = start + 1
-            continue  # a lone numeric line among text: metadata
-        data = _fast_rows(texts, d, ncols)
-        if data is None:
-            if not exact:
-                raise _Retry
-            rows = [(k + 1, d.split(t)) for k, t in zip(idx, texts, strict=True)]
-            ncols = Counter(len(c) for _, c in rows).most_common(1)[0][0]
-            data = _parse_rows(rows, d, ncols, source, names)
-        blocks.append(Block(data=data, line_no=np.asarray(idx) + 1, names=names,
-                            units=units, header_line=header_line, header_text=header_text,
-                            notes=notes))
+    for start, idx in runs:
+        ncols = Counter(len(d.split(lines[k].strip())) for k in idx[:50]).most_common(1)[0][0]
+        between = [k for k in range(prev_end, start) if kinds[k] in ("text", "comment")]
+        # broken rows just above these numbers (under their names) belong to them
+        tail: list[int] = []
+        while len(between) - len(tail) > 1 and kinds[between[-1 - len(tail)]] == "text" \
+                and _row_like(lines[between[-1 - len(tail)]], d, ncols):
+            tail.insert(0, between[-1 - len(tail)])
+        above = between[:len(between) - len(tail)]
+        head = _header(lines, above, d, ncols)
+        if cur is not None and head.names is None and ncols == cur.ncols:
+            # no names between two runs of rows alike: one block, the text lines are broken rows
+            cur.bad_lines.extend(k for k in between if kinds[k] == "text")
+            cur.idx.extend(idx)
+            prev_end = idx[-1] + 1
+            continue
+        if head.names is None and not tail and len(idx) == 1 and len(runs) > 1:
+            kinds[idx[0]] = "text"  # a lone numeric line among text: metadata ('401;points')
+            continue
+        if cur is not None:
+            lead = []
+            for k in above:  # broken rows right after the block before belong to it
+                if kinds[k] != "text" or not _row_like(lines[k], d, cur.ncols):
+                    break
+                lead.append(k)
+            cur.bad_lines.extend(lead)
+            if lead:
+                above = above[len(lead):]
+                head = _header(lines, above, d, ncols)
+            blocks.append(_finish(cur, lines, d, exact, kinds, []))
+        cur = _Pending(idx=list(idx), ncols=ncols, above=above, head=head, bad_lines=list(tail))
         prev_end = idx[-1] + 1
-    if not blocks:
+    if cur is None:
         raise InputError("no block of two or more numeric rows", source=source)
+    trailing = [k for k in range(prev_end, n) if kinds[k] in ("text", "comment")]
+    footer = []
+    for k in trailing:
+        if kinds[k] == "text" and _row_like(lines[k], d, cur.ncols):
+            cur.bad_lines.append(k)
+        else:
+            footer.append(k)
+    blocks.append(_finish(cur, lines, d, exact, kinds, footer))
     return blocks
+
+
+def _finish(cur: _Pending, lines: list[str], d: Dialect, exact: bool, kinds: list[str],
+            footer: list[int]) -> Block:
+    head = cur.head
+    texts = [lines[k].strip() for k in cur.idx]
+    data = _fast_rows(texts, d, cur.ncols)
+    bad: list[BadRow] = []
+    grouped = False
+    if data is not None:
+        line_no = np.asarray(cur.idx) + 1
+    else:
+        if not exact:
+            raise _Retry
+        data, line_no, bad, grouped = _parse_rows(
+            [(k + 1, lines[k]) for k in cur.idx], d, cur.ncols, head.names)
+    for k in cur.bad_lines:
+        s = lines[k].strip()
+        if is_spreadsheet_error(s) or _row_like(s, d, cur.ncols):
+            _, why, col = _row_problem(d.split(s), d, cur.ncols, head.names)
+            why = why or f"row {quote(s)} could not be read"
+        else:
+            why = (f"text {quote(s)} among the data rows; expected a row of {cur.ncols} numbers "
+                   "like the rows around it")
+            col = None
+        bad.append(bad_row(k + 1, s, why, col))
+    bad.sort(key=lambda b: b.line)
+    notes = [strip_comment_mark(lines[k].strip()) for k in cur.above if k not in head.consumed]
+    return Block(data=data, line_no=line_no, names=head.names, units=head.units,
+                 header_line=head.header_line, header_text=head.header_text,
+                 notes=[x for x in notes if x], bad_rows=bad,
+                 footer=[x for x in (strip_comment_mark(lines[k].strip()) for k in footer) if x],
+                 grouped=grouped)

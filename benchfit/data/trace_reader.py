@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import re
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -18,11 +19,20 @@ import numpy as np
 
 from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_trace
 from benchfit.data.dialect import Dialect, load_text, sniff
+from benchfit.data.quote import cut, quote
+from benchfit.data.rows import BadRow, apply_row_rule, bad_row, skipped_warning
 from benchfit.data.table import Block, find_blocks
+from benchfit.data.timing import (
+    duplicate_rows,
+    printed_step,
+    rounding_explains_repeats,
+    time_axis_findings,
+)
 from benchfit.data.trace import TimeTrace
 from benchfit.data.units import (
     SIGNAL_UNITS,
     find_time_unit,
+    parse_quantity,
     rate_value_hz,
     time_factor,
     time_value_s,
@@ -89,7 +99,8 @@ def _metadata(notes: list[str], d: Dialect) -> dict[str, tuple[str, str]]:
 
 def _time_axis(block: Block, time_col: int | None, names: list[str], units: list[str] | None,
                meta_keys: dict, time_unit: str | None, sample_interval_s: float | None,
-               source: str, warnings: list[str]) -> tuple[np.ndarray, dict[str, Any]]:
+               source: str, warnings: list[str], time_cells: list[str]
+               ) -> tuple[np.ndarray, dict[str, Any]]:
     n = block.data.shape[0]
     info: dict[str, Any] = {}
     if time_col is not None:
@@ -106,26 +117,32 @@ def _time_axis(block: Block, time_col: int | None, names: list[str], units: list
             how = "metadata line"
         if unit is None:
             unit, how = "s", "assumed"
-        t = block.data[:, time_col] * time_factor(unit, source="time unit")
+        factor = time_factor(unit, source="time unit")
+        raw = block.data[:, time_col]
+        with np.errstate(over="ignore", invalid="ignore"):
+            t = raw * factor
+        if not np.all(np.isfinite(t)):
+            i = int(np.flatnonzero(~np.isfinite(t))[0])
+            raise InputError(f"time {raw[i]:g} {unit} is too large to represent in s",
+                             source=source, line=int(block.line_no[i]))
         info.update(time_source="time column", time_unit=unit, time_unit_from=how)
-        return _check_time(t, block.line_no, source, warnings), info
+        return _check_time(t, block.line_no, printed_step(time_cells) * factor, source, warnings), info
     dt = sample_interval_s
     how = "option"
     if dt is None and "interval" in meta_keys:
         raw, line = meta_keys["interval"]
-        default = find_time_unit(meta_keys["time_unit"][0]) if "time_unit" in meta_keys else "s"
-        dt = time_value_s(raw, default_unit=default or "s")
-        how = f"metadata: {line}"
+        dt = time_value_s(raw, default_unit=_interval_unit(raw, meta_keys, warnings))
+        how = f"metadata: {cut(line, 80)}"
         if dt is None:
-            raise InputError(f"sample interval {raw!r} is not a time; expected e.g. 2e-7 or 200 ns",
-                             source=source)
+            raise InputError(f"sample interval {quote(raw)} is not a time; expected e.g. 2e-7 or "
+                             "200 ns", source=source)
     if dt is None and "rate" in meta_keys:
         raw, line = meta_keys["rate"]
         rate = rate_value_hz(raw)
-        if rate is None or rate <= 0:
-            raise InputError(f"sample rate {raw!r} is not a rate; expected e.g. 5e6 or 5 MSa/s",
+        if rate is None or not rate > 0:
+            raise InputError(f"sample rate {quote(raw)} is not a rate; expected e.g. 5e6 or 5 MSa/s",
                              source=source)
-        dt, how = 1.0 / rate, f"metadata: {line}"
+        dt, how = 1.0 / rate, f"metadata: {cut(line, 80)}"
     if dt is None:
         raise InputError("no time column and no sample-interval line; give the interval "
                          "(--sample-interval) or name a column 'time'", source=source)
@@ -150,29 +167,61 @@ def _time_axis(block: Block, time_col: int | None, names: list[str], units: list
     return t, info
 
 
-def _check_time(t: np.ndarray, line_no: np.ndarray, source: str, warnings: list[str]) -> np.ndarray:
+#: A bare interval below this is in seconds even beside a 'horizontal units: us' line.
+_SECONDS_BELOW = 1e-3
+
+
+def _interval_unit(raw: str, meta_keys: dict, warnings: list[str]) -> str:
+    """The unit of a sample-interval value written without one.
+
+    Evidence weighed: a 'horizontal units' line (``us``) names the unit of the time
+    axis, and an interval written as a plain number (``0.2``) is in that unit; but an
+    export that states its interval in seconds writes it so (``1.0E-06`` beside
+    ``Horizontal Units,us``), and reading that as microseconds would make a 1 µs
+    interval 1 ps.  A plain value below :data:`_SECONDS_BELOW` is taken as seconds (an
+    export that scales its numbers by a unit prefix keeps them at 0.001 or more; common
+    practice, no source), with a warning naming the other reading.
+    """
+    q = parse_quantity(raw)
+    if q is None or q[1] or "time_unit" not in meta_keys:
+        return "s"
+    unit = find_time_unit(meta_keys["time_unit"][0])
+    if unit is None or time_factor(unit, source="time unit") == 1.0:
+        return "s"
+    if abs(q[0]) >= _SECONDS_BELOW:
+        return unit
+    warnings.append(f"sample interval {quote(raw)} has no unit of its own and is read in seconds "
+                    f"({q[0]:g} s), not in the {unit} of the {quote(cut(meta_keys['time_unit'][1], 60))} "
+                    "line; if it is in that unit, give sample_interval_s= (--sample-interval)")
+    return "s"
+
+
+def _check_time(t: np.ndarray, line_no: np.ndarray, resolution: float, source: str,
+                warnings: list[str]) -> np.ndarray:
+    """The time axis from a time column: repeats the digits explain are rebuilt evenly,
+    other repeats and backward steps are errors; gaps, rate changes and jitter are warned."""
     steps = np.diff(t)
     if np.all(steps > 0):
+        warnings.extend(time_axis_findings(t, line_no, resolution))
         return t
-    k = np.arange(t.size)
-    if np.all(steps >= 0) and t[-1] > t[0]:
-        # Repeated times: the export printed too few digits.  If the printed times sit within
-        # one print step of an evenly spaced line, the samples were evenly spaced.
+    if np.all(steps >= 0) and t[-1] > t[0] and rounding_explains_repeats(t, resolution):
+        # Repeated times: the export printed too few digits for the sample interval.
+        k = np.arange(t.size)
         slope, start = np.polyfit(k, t, 1)
-        uniform = start + slope * k
-        resolution = float(np.min(steps[steps > 0]))
-        if slope > 0 and np.max(np.abs(t - uniform)) <= resolution:
-            warnings.append("time column repeats values (printed with too few digits); rebuilt an "
-                            "evenly spaced time axis fitted to the printed times")
-            return uniform
+        warnings.append("time column repeats values (printed with too few digits); rebuilt an "
+                        "evenly spaced time axis fitted to the printed times")
+        return start + slope * k
     i = int(np.flatnonzero(steps <= 0)[0]) + 1
-    raise InputError(f"time {t[i]:g} s does not increase from the row before ({t[i - 1]:g} s)",
+    what = "repeats" if steps[i - 1] == 0 else "does not increase from"
+    raise InputError(f"time {t[i]:g} s {what} the row before ({t[i - 1]:g} s)"
+                     + ("; the times are printed with digits to spare, so this is no rounding"
+                        if steps[i - 1] == 0 else "") + "; expected increasing times",
                      source=source, line=int(line_no[i]))
 
 
 def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
                columns: str | list[str] | None = None, time_unit: str | None = None,
-               sample_interval_s: float | None = None) -> TimeTrace:
+               sample_interval_s: float | None = None, skip_bad_rows: bool = False) -> TimeTrace:
     """Read a scope export (CSV/TSV/whitespace, any decimal mark) or a canonical trace CSV.
 
     Parameters
@@ -189,21 +238,33 @@ def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
         Unit of the time column ('s', 'ms', 'us', 'ns'), overriding what the file says.
     sample_interval_s
         Sample interval in s when the file has no time column and no interval line.
+    skip_bad_rows
+        Leave out rows that cannot be read (text among the numbers, '#N/A', NaN, a SCPI
+        9.91E37 marker, a row repeated exactly) instead of refusing the file; they are
+        listed in ``meta["skipped_rows"]``, a warning and the provenance.
 
     Returns
     -------
     TimeTrace
         Time in s; channels in V (or A) by the unit in their names.  ``meta`` holds
-        ``dialect``, ``units``, ``warnings`` and ``notes``.
+        ``dialect``, ``units``, ``warnings``, ``notes`` and ``skipped_rows``.
 
     Raises
     ------
     InputError
-        Bad file (with line numbers), unknown channel, no way to know the time.
+        Bad file (with line numbers), a row that cannot be read (unless
+        ``skip_bad_rows``), unknown channel, no way to know the time.
     """
+    with np.errstate(all="ignore"):  # every value is checked; numpy's notes must not reach stderr
+        return _read_trace(path, channel, columns=columns, time_unit=time_unit,
+                           sample_interval_s=sample_interval_s, skip_bad_rows=skip_bad_rows)
+
+
+def _read_trace(path, channel, *, columns, time_unit, sample_interval_s, skip_bad_rows) -> TimeTrace:
     source = str(path)
     settings = {k: v for k, v in dict(channel=channel, columns=columns, time_unit=time_unit,
-                                      sample_interval_s=sample_interval_s).items() if v is not None}
+                                      sample_interval_s=sample_interval_s,
+                                      skip_bad_rows=skip_bad_rows or None).items() if v is not None}
     if time_unit is not None:
         time_factor(time_unit)
     text = load_text(path)
@@ -223,10 +284,11 @@ def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
     d = sniff(lines, source, min_columns=1)
     blocks = find_blocks(lines, d, source)
     warnings: list[str] = []
-    block = max(blocks, key=lambda b: b.data.shape[0])
+    block = max(blocks, key=lambda b: b.rows_in_block)
     if len(blocks) > 1:
+        first_line = int(block.line_no[0]) if block.line_no.size else block.bad_rows[0].line
         warnings.append(f"file holds {len(blocks)} blocks of rows; read the longest "
-                        f"(from line {int(block.line_no[0])})")
+                        f"(from line {first_line})")
     ncols = block.data.shape[1]
     units = block.units
     if columns is not None:
@@ -251,9 +313,16 @@ def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
                             + ("" if time_unit else " in seconds (give time_unit if not)"))
         names = ["time" if i == time_col else f"ch{i + 1 - (time_col is not None)}"
                  for i in range(ncols)]
+    block, skipped = _row_rule(block, time_col, lines, skip_bad_rows, source, warnings)
     meta_keys = _metadata(block.notes, d)
+    time_cells = []
+    if time_col is not None:  # the time column as written, for its print step (a sample)
+        for ln in block.line_no[:: max(1, block.line_no.size // 500)]:
+            cells = d.split(lines[int(ln) - 1])
+            if time_col < len(cells):
+                time_cells.append(cells[time_col])
     t, tinfo = _time_axis(block, time_col, names, units, meta_keys, time_unit, sample_interval_s,
-                          source, warnings)
+                          source, warnings, time_cells)
     channels: dict[str, np.ndarray] = {}
     ch_units: dict[str, str] = {}
     for i in keep:
@@ -277,14 +346,40 @@ def read_trace(path: str | os.PathLike, channel: str | int | None = None, *,
                     **tinfo},
         "units": ch_units,
         "warnings": warnings,
-        "notes": block.notes[:40],
+        "notes": [cut(x, 200) for x in (block.notes + block.footer)[:40]],
+        "skipped_rows": [b.to_dict() for b in skipped],
     }
+    if skipped:
+        settings["skipped_rows"] = [b.line for b in skipped]
     try:
         tr = TimeTrace(time_s=t, channels=channels, meta=meta,
                        provenance=Provenance(step="read_trace", sources=(source,), settings=settings))
     except InputError as e:  # e.g. a single sample: name the file
         raise InputError(e.message, source=source) from None
     return _pick(tr, channel) if channel is not None else tr
+
+
+def _row_rule(block: Block, time_col: int | None, lines: list[str], skip: bool, source: str,
+              warnings: list[str]) -> tuple[Block, list[BadRow]]:
+    """The block with its unreadable rows refused or (``skip``) left out, and those rows.
+
+    With a time column, a row equal in every column to the row before is a duplicated
+    export row (it would halve the apparent sample interval); it cannot be read either.
+    """
+    bad = list(block.bad_rows)
+    if time_col is not None:
+        for i in duplicate_rows(block.data):
+            ln = int(block.line_no[i])
+            bad.append(bad_row(ln, lines[ln - 1], f"row repeats line {int(block.line_no[i - 1])} "
+                               "exactly (time and every channel); expected each sample once"))
+    skipped = apply_row_rule(bad, skip, source)
+    if skipped:
+        keep = ~np.isin(block.line_no, [b.line for b in skipped])
+        block = replace(block, data=block.data[keep], line_no=block.line_no[keep], bad_rows=[])
+        warnings.append(skipped_warning(skipped))
+    if block.data.shape[0] == 0:
+        raise InputError("no row of the data could be read", source=source)
+    return block, skipped
 
 
 def _pick(tr: TimeTrace, channel: str | int) -> TimeTrace:

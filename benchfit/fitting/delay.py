@@ -65,6 +65,8 @@ def excess_phase_delay(freq_hz: np.ndarray, h: np.ndarray, top_fraction: float =
     return float(max(-coef[1], 0.0))
 
 
+#: A delay whose phase at f_max is below this (rad) is not worth a parameter.
+DELAY_MIN_PHASE = 0.05
 #: Pole relocations per delay tried in a coarse search: each trial starts from the
 #: previous one's poles, so a few steps follow the optimum (common practice, no source).
 COARSE_ITER = 3

@@ -261,3 +261,24 @@ def log_jacobian(st: Structure, values: np.ndarray, s: np.ndarray) -> np.ndarray
     if st.delay:
         jac[:, i] = -s
     return jac
+
+
+def renumbering(st: Structure, values: np.ndarray) -> np.ndarray:
+    """Index permutation that numbers each group from the lowest frequency up.
+
+    ``values[perm]`` are the same model's values with real poles, pole pairs,
+    real zeros and zero pairs each in order of |frequency| (stable for ties),
+    the order :func:`from_zpk` gives and the parameter names promise; the
+    refinement moves values and can leave ``pole1_hz`` above ``pole2_hz``.
+    """
+    v = np.asarray(values, dtype=float)
+    perm = np.arange(v.shape[0])
+    i = 1
+    for n, width in ((st.real_poles, 1), (st.pole_pairs, 2), (st.real_zeros, 1),
+                     (st.zero_pairs, 2)):
+        starts = i + width * np.arange(n)
+        order = starts[np.argsort(np.abs(v[starts]), kind="stable")]
+        for k in range(width):
+            perm[starts + k] = order + k
+        i += width * n
+    return perm

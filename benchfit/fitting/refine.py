@@ -15,14 +15,15 @@ With ``weighting="absolute"`` the residual is the plain complex error
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import lmfit
 import numpy as np
 from scipy import optimize
 
 from benchfit.errors import InputError
-from benchfit.fitting.parameters import Structure, log_jacobian, response
+from benchfit.fitting.parameters import Structure, log_jacobian, renumbering, response
+from benchfit.fitting.uncertainty import covariance
 
 #: Residual given to a point where a trial model does not evaluate.
 _PENALTY = 1e6
@@ -33,14 +34,27 @@ class Refined:
     """Outcome of :func:`refine`."""
 
     values: np.ndarray
-    stderr: np.ndarray          # NaN for fixed parameters or when not estimable
+    stderr: np.ndarray          # NaN for fixed parameters or when not determined
     varied: tuple[str, ...]     # names of the varied parameters, covariance order
-    covariance: np.ndarray      # (n_varied, n_varied), scaled by reduced chi-square
+    covariance: np.ndarray      # (n_varied, n_varied), scaled by reduced chi-square;
+    #                             NaN rows/columns for the parameters not determined
     evaluations: int
     success: bool
     chisqr: float
     redchi: float
     message: str
+    undetermined: tuple[str, ...] = ()  # varied parameters the data cannot determine
+    uncertainty_reason: str = ""  # why they are not, or why no σ at all ("" when all are given)
+
+    @property
+    def uncertainty_note(self) -> str:
+        """A warning for the user when some σ are not given ("" when all are)."""
+        if not self.undetermined:
+            return self.uncertainty_reason
+        rest = len(self.undetermined) < len(self.varied)
+        return (f"not determined by the data: {', '.join(self.undetermined)}: "
+                f"{self.uncertainty_reason}; no σ is given for them"
+                + (", and the others' σ hold them at their values" if rest else ""))
 
 
 def wrap(x: np.ndarray) -> np.ndarray:
@@ -102,7 +116,7 @@ def refine(
             raise InputError(f"no parameter {key!r} in this model; it has {', '.join(names)}",
                              source="--fix" if key in fix else "--bound")
     params = lmfit.Parameters()
-    v0 = np.array(values0, dtype=float)
+    v0 = start_beside_fixed(st, np.array(values0, dtype=float), fix)
     for i, name in enumerate(names):
         if name in fix:
             v0[i] = float(fix[name])
@@ -178,17 +192,25 @@ def refine(
     if not np.all(np.isfinite(out.residual)) or out.chisqr > 1.001 * float(r0 @ r0) + 1e-300:
         # The search wandered off (a badly under-modelled start): keep the start.
         return _kept_start(names, v0, tuple(out.var_names), r0, int(out.nfev))
-    stderr = np.full(len(names), np.nan)
     varied = tuple(out.var_names)
-    if out.covar is not None:
-        cov = np.asarray(out.covar, dtype=float)
-        for k, name in enumerate(varied):
-            stderr[names.index(name)] = np.sqrt(max(cov[k, k], 0.0))
-    else:
-        cov = np.full((len(varied), len(varied)), np.nan)
-    return Refined(values=vals, stderr=stderr, varied=varied, covariance=cov,
-                   evaluations=int(out.nfev), success=bool(out.success),
-                   chisqr=float(out.chisqr), redchi=float(out.redchi), message=str(out.message))
+    return _with_covariance(names, vals, [names.index(n) for n in varied], jacobian(vals[var_idx]),
+                            int(out.nfev), bool(out.success), float(out.chisqr),
+                            float(out.redchi), str(out.message))
+
+
+def _with_covariance(names, values: np.ndarray, var_idx, jac: np.ndarray, nfev: int,
+                     success: bool, chisqr: float, redchi: float, message: str) -> Refined:
+    """A :class:`Refined` whose σ and covariance come from ``jac`` at ``values``
+    (:func:`benchfit.fitting.uncertainty.covariance`: only what the data determine)."""
+    var_idx = np.asarray(var_idx, dtype=int)
+    varied = tuple(names[i] for i in var_idx)
+    cov = covariance(jac, redchi)
+    stderr = np.full(len(names), np.nan)
+    stderr[var_idx] = cov.stderr
+    return Refined(values=values, stderr=stderr, varied=varied, covariance=cov.matrix,
+                   evaluations=nfev, success=success, chisqr=chisqr, redchi=redchi,
+                   message=message, undetermined=tuple(varied[k] for k in cov.undetermined),
+                   uncertainty_reason=cov.reason)
 
 
 def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
@@ -215,16 +237,8 @@ def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
         return _kept_start(names, v0, varied, r0, int(out.nfev))
     v = v0.copy()
     v[var_idx] = out.x
-    redchi = chi / dof
-    stderr = np.full(len(names), np.nan)
-    try:
-        cov = np.linalg.inv(out.jac.T @ out.jac) * redchi
-        stderr[var_idx] = np.sqrt(np.maximum(np.diag(cov), 0.0))
-    except np.linalg.LinAlgError:
-        cov = np.full((var_idx.size,) * 2, np.nan)
-    return Refined(values=v, stderr=stderr, varied=varied, covariance=cov,
-                   evaluations=int(out.nfev), success=bool(out.status > 0), chisqr=chi,
-                   redchi=redchi, message=str(out.message))
+    return _with_covariance(names, v, var_idx, out.jac, int(out.nfev), bool(out.status > 0),
+                            chi, chi / dof, str(out.message))
 
 
 def _kept_start(names, v0: np.ndarray, varied: tuple[str, ...], r0: np.ndarray,
@@ -235,4 +249,56 @@ def _kept_start(names, v0: np.ndarray, varied: tuple[str, ...], r0: np.ndarray,
     return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=varied,
                    covariance=np.full((len(varied),) * 2, np.nan), evaluations=nfev,
                    success=False, chisqr=chi0, redchi=chi0 / max(r0.size - len(varied), 1),
-                   message="refinement made the fit worse; kept the vector-fitting values")
+                   message="refinement made the fit worse; kept the vector-fitting values",
+                   uncertainty_reason="no uncertainties: the refinement did not reach an optimum")
+
+
+def start_beside_fixed(st: Structure, values: np.ndarray, fix: dict[str, float]) -> np.ndarray:
+    """Start values with, for each fixed pole or zero frequency, the group of its kind
+    whose start lies nearest to the fixed value moved into the fixed slot.
+
+    The user names a group by its number (``pole1_hz``), which the start's
+    numbering need not match: holding ``pole1_hz`` at 350 kHz when the start's
+    pole1 is at 1 kHz and its pole2 at 350 kHz would throw the 1 kHz pole away
+    and leave the refinement to drag pole2 down three decades (it went to the
+    right half-plane instead).  Swapping the two starts keeps both; the result
+    is numbered by frequency afterwards (:func:`renumbered`).
+    """
+    v = values.copy()
+    names = st.names
+    for key, target in fix.items():
+        if key not in names or not key.endswith("_hz") or key.startswith("delay"):
+            continue
+        kind, width = (("zero_pair", 2) if key.startswith("zero_pair") else
+                       ("pair", 2) if key.startswith("pair") else
+                       ("zero", 1) if key.startswith("zero") else ("pole", 1))
+        suffix = "_f0_hz" if width == 2 else "_hz"
+        slots = [names.index(nm) for nm in names if nm.startswith(kind) and nm.endswith(suffix)
+                 and nm[len(kind)].isdigit() and nm not in fix]
+        i = names.index(key)
+        if not slots or not np.isfinite(target) or target == 0:
+            continue
+        j = min(slots + [i], key=lambda k: abs(np.log(abs(v[k] / target))) if v[k] else np.inf)
+        if j != i:
+            v[i: i + width], v[j: j + width] = v[j: j + width].copy(), v[i: i + width].copy()
+    return v
+
+
+def renumbered(st: Structure, ref: Refined) -> tuple[Refined, dict[str, str]]:
+    """``ref`` with each group numbered from the lowest frequency up
+    (:func:`benchfit.fitting.parameters.renumbering`), and the names that moved
+    (old name -> new name: a fixed or bounded parameter keeps its flag under
+    its new name)."""
+    perm = renumbering(st, ref.values)
+    names = st.names
+    moved = {names[perm[i]]: names[i] for i in range(len(names)) if perm[i] != i}
+    if not moved:
+        return ref, {}
+    varied = tuple(moved.get(n, n) for n in ref.varied)
+    # Covariance rows follow the names: new row k is the old row of varied[k]'s old name.
+    back = {new: old for old, new in moved.items()}
+    rows = [ref.varied.index(back.get(n, n)) for n in sorted(varied, key=names.index)]
+    cov = np.asarray(ref.covariance)[np.ix_(rows, rows)] if len(rows) else ref.covariance
+    return replace(ref, values=ref.values[perm], stderr=ref.stderr[perm],
+                   varied=tuple(sorted(varied, key=names.index)), covariance=cov,
+                   undetermined=tuple(moved.get(n, n) for n in ref.undetermined)), moved

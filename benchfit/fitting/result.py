@@ -123,6 +123,12 @@ class FitResult:
                 return p
         raise KeyError(f"no parameter {name!r}; have {', '.join(p.name for p in self.parameters)}")
 
+    @property
+    def undetermined(self) -> tuple[str, ...]:
+        """Varied parameters the data cannot determine (their σ is NaN, JSON null)."""
+        return tuple(p.name for p in self.parameters
+                     if not p.fixed and p.name in self.varied and not np.isfinite(p.stderr))
+
     def response(self, freq_hz: np.ndarray) -> np.ndarray:
         """Model response at ``freq_hz`` (Hz)."""
         return self.model.response(freq_hz)
@@ -153,12 +159,16 @@ class FitResult:
         names = [p.name for p in self.parameters]
         idx = [names.index(v) for v in self.varied]
         cov = np.asarray(self.covariance, dtype=float)
-        if idx and np.all(np.isfinite(cov)):
+        # Parameters the data do not determine (NaN rows) stay at their values; the
+        # others' covariance is the one with those held (see fitting.uncertainty).
+        known = [k for k in range(len(idx)) if np.isfinite(cov[k, k])] if idx else []
+        if known:
+            sub = cov[np.ix_(known, known)]
             # eigh-based square root tolerates a (numerically) singular covariance.
-            evals, evecs = np.linalg.eigh(0.5 * (cov + cov.T))
+            evals, evecs = np.linalg.eigh(0.5 * (sub + sub.T))
             root = evecs * np.sqrt(np.clip(evals, 0.0, None))
-            z = rng.standard_normal((int(n), len(idx)))
-            draws[:, idx] += z @ root.T
+            z = rng.standard_normal((int(n), len(known)))
+            draws[:, [idx[k] for k in known]] += z @ root.T
         return response(st, draws, 2j * np.pi * f)
 
     # ----- report -------------------------------------------------------------------
@@ -174,16 +184,18 @@ class FitResult:
                     if self.integrators else "")
                  + f", {st.get('points')} points, {st.get('f_min_hz', 0):.4g}..{st.get('f_max_hz', 0):.4g} Hz",
                  "",
-                 f"  {'parameter':<18} {'value':>13} {'± 1σ':>11} {'rel':>8}  unit"]
+                 f"  {'parameter':<18} {'value':>13} {'± 1σ':>14} {'rel':>8}  unit"]
         for p in self.parameters:
             if p.fixed:
                 err, rel = "fixed", ""
             elif np.isfinite(p.stderr):
                 err = f"{p.stderr:.3g}"
                 rel = f"{abs(p.stderr / p.value) * 100:.2g}%" if p.value else ""
+            elif p.name in self.varied:
+                err, rel = "not determined", ""
             else:
                 err, rel = "n/a", ""
-            lines.append(f"  {p.name:<18} {p.value:>13.6g} {err:>11} {rel:>8}  {p.unit}")
+            lines.append(f"  {p.name:<18} {p.value:>13.6g} {err:>14} {rel:>8}  {p.unit}")
         strong = []
         c = np.asarray(self.correlation)
         for i in range(len(self.varied)):
@@ -226,6 +238,7 @@ class FitResult:
             "notes": list(self.notes),
             "order_scan": [dict(d) for d in self.order_scan],
             "varied": list(self.varied),
+            "undetermined": list(self.undetermined),
             "covariance": np.asarray(self.covariance).tolist(),
             "correlation": np.asarray(self.correlation).tolist(),
             "integrators": self.integrators,

@@ -52,6 +52,7 @@ from typing import Any
 import numpy as np
 
 from benchfit.errors import DesignError, InputError
+from benchfit.loop.choices import METHODS
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import Network, check_kind
 from benchfit.loop.opamp import OpAmp
@@ -60,7 +61,6 @@ from benchfit.loop.opamp import OpAmp
 BOOST_LIMITS = {"type1": (0.0, 0.0), "pi": (5.0, 88.0), "type2": (5.0, 88.0), "type3": (5.0, 176.0)}
 #: Slope of |C| in the network's boost region, dB/decade.
 NETWORK_SLOPE_DB = {"type1": -20.0, "pi": 0.0, "type2": 0.0, "type3": 20.0}
-METHODS = ("k-factor", "crossing")
 #: Numerical slack when judging "target met" (degrees / dB).
 TOL = 0.01
 # Extra design phase margins tried, in degrees, when one closed-form placement is not enough.

@@ -17,12 +17,9 @@ from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.design import Design
 from benchfit.loop.predict import Prediction, predict
+from benchfit.output.choices import CURVE_NAMES, WHICH
 from benchfit.output.curves import Curve
 from benchfit.provenance import Provenance
-
-#: Curves ``benchfit predict --curve`` can write.
-CURVE_NAMES = ("loop", "closed", "step", "zout", "load_step")
-WHICH = ("snapped", "ideal")
 
 
 def design_loop(design: Design, which: str = "snapped") -> PlantModel | FrequencyResponse:

@@ -40,6 +40,7 @@ import numpy as np
 from benchfit.errors import InputError
 from benchfit.fileio import write_text_atomic
 from benchfit.fitting.model import PlantModel
+from benchfit.output.choices import DESIGN_PARTS
 
 #: Leak resistance across each state capacitor (ohm): gives every node a DC path.
 LEAK_OHM = 1e12
@@ -239,9 +240,6 @@ def write_spice(model: PlantModel, path: str | os.PathLike, name: str = "plant")
     """Write :func:`spice_subcircuit` of ``model`` to ``path`` atomically."""
     return write_text_atomic(path, spice_subcircuit(model, name))
 
-
-#: What ``export-spice`` can take out of a design file.
-DESIGN_PARTS = ("plant", "compensator", "compensator-ideal", "loop", "loop-ideal")
 
 
 def model_from_file(path: str | os.PathLike, part: str = "plant") -> PlantModel:

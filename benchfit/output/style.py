@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import contextlib
 import functools
-import math
 from collections.abc import Callable, Iterator
 from typing import Any, TypeVar
 
@@ -24,6 +23,8 @@ import matplotlib
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+from benchfit.numfmt import eng, tick  # noqa: F401  (eng: the one formatter, used by every plot module)
 
 #: Okabe–Ito palette (2008), by role.
 BLACK = "#000000"
@@ -78,45 +79,11 @@ _RC: dict[str, Any] = {
     "pdf.fonttype": 42,          # TrueType in PDFs: text stays selectable
 }
 
-_PREFIXES = {-15: "f", -12: "p", -9: "n", -6: "µ", -3: "m", 0: "", 3: "k", 6: "M", 9: "G", 12: "T"}
-
 F = TypeVar("F", bound=Callable[..., Any])
 
 
-def eng(value: float, unit: str = "", digits: int = 3) -> str:
-    """Engineering-prefix text of a number: ``eng(4700, 'Ω') -> '4.7 kΩ'``, ``eng(1e4) -> '10k'``.
-
-    With a unit, a space separates number and unit (SI Brochure, 9th ed., 5.4.3).
-
-    Parameters
-    ----------
-    value
-        The number in SI base units.
-    unit
-        Unit symbol appended after the prefix.
-    digits
-        Significant digits.
-    """
-    if value is None or not math.isfinite(value):
-        return f"{value} {unit}".strip() if value is not None else "n/a"
-    if value == 0:
-        return f"0 {unit}" if unit else "0"
-    exp3 = int(math.floor(math.log10(abs(value)) / 3.0) * 3)
-    exp3 = max(min(exp3, 12), -15)
-    mant = value / 10.0 ** exp3
-    text = f"{mant:.{digits}g}"
-    if "e" in text:  # rounding carried into the next prefix (e.g. 999.9 -> 1e+03)
-        exp3 = min(exp3 + 3, 12)
-        text = f"{value / 10.0 ** exp3:.{digits}g}"
-    return f"{text} {_PREFIXES[exp3]}{unit}" if unit else f"{text}{_PREFIXES[exp3]}"
-
-
-def _tick_text(value: float, _pos: Any = None) -> str:
-    return eng(value, "", digits=3)
-
-
 #: Tick formatter for log-frequency (and log-ohm) axes: 1, 10, 100, 1k, 10k, 1M.
-ENG_FORMATTER = FuncFormatter(_tick_text)
+ENG_FORMATTER = FuncFormatter(tick)
 
 
 def log_axis(ax: Axes, which: str = "x") -> None:

@@ -1,0 +1,117 @@
+"""The last stage of a fit: the chosen refinement written out as a FitResult.
+
+The model in scipy's zpk form, the parameter table, the residual statistics
+against the noise floor, and the warnings a user must see.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from benchfit.fitting.model import PlantModel
+from benchfit.fitting.order import Attempt
+from benchfit.fitting.parameters import TWO_PI, to_zpk
+from benchfit.fitting.refine import Refined, log_residual, renumbered
+from benchfit.fitting.result import FitResult, Parameter
+from benchfit.fitting.uncertainty import correlation
+
+#: Mirrored poles within this factor of the band's edges are reported.
+MIRROR_NEAR = 3.0
+#: A reduced χ² above this, at the measured noise, is always a warning: the model
+#: misses part of the response (common practice, no source).
+RESIDUAL_WARN = 1.5
+_DB = 20.0 / np.log(10.0)
+
+
+def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed, settings,
+                  att_scale: float) -> FitResult:
+    f, h = resp.freq_hz, resp.response
+    s = 1j * TWO_PI * f
+    # Each group numbered from the lowest frequency up, as the names promise.
+    ref, moved = renumbered(st, ref)
+    held = sorted(k for k in moved if k in fixed or k in (settings.get("bounds") or {}))
+    if held:
+        notes = [*notes, "numbered from the lowest frequency up: " + ", ".join(
+            f"{k} is now {moved[k]}" for k in held)]
+    fixed = {moved.get(k, k): v for k, v in fixed.items()}
+    zeros, poles, k, tau = to_zpk(st, ref.values)
+    model = PlantModel(zeros=zeros, poles=poles, k=k, delay_s=max(tau, 0.0),
+                       provenance=resp.provenance.derive("fit", settings))
+    r = log_residual(st, ref.values, s, np.log(h))
+    r_db, r_deg = _DB * r.real, np.degrees(r.imag)
+    chi = float(np.sqrt(0.5 * np.mean((r.real / sigma.mag) ** 2 + (r.imag / sigma.phase) ** 2)))
+    gain_unit = "ohm" if resp.quantity == "impedance" else ""
+    if st.integrators:
+        gain_unit = (gain_unit + "·" if gain_unit else "") + (
+            "rad/s" if st.integrators == 1 else f"(rad/s)^{st.integrators}")
+    units = st.units(gain_unit)
+    params = tuple(
+        Parameter(name=nm, value=float(ref.values[i]), stderr=float(ref.stderr[i]), unit=units[i],
+                  fixed=nm in fixed)
+        for i, nm in enumerate(st.names))
+    cov = np.asarray(ref.covariance, dtype=float)
+    corr = correlation(cov)
+    warnings: list[str] = []
+    # The refinement is the estimator; vector fitting only starts it.  A VF run
+    # stopped by its iteration cap is reported (stats["vf_converged"]), and is a
+    # warning only when the refinement did not converge from its poles either.
+    converged = bool(ref.success)
+    if not att.vf.converged and not ref.success:
+        warnings.append(f"vector fitting did not converge in {att.vf.iterations} iterations")
+    if not ref.success:
+        warnings.append(f"refinement did not converge: {ref.message}")
+    if ref.uncertainty_note:
+        warnings.append(ref.uncertainty_note)
+    for p in params:
+        if p.name.endswith("_hz") and (abs(p.value) < 0.9 * f[0] or abs(p.value) > 1.1 * f[-1]):
+            warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "
+                            f"{f[0]:.4g}..{f[-1]:.4g} Hz: poorly identified")
+    fl = np.abs(att.vf.flipped) * att_scale
+    n_fl = int(np.sum((fl <= MIRROR_NEAR * TWO_PI * f[-1]) & (fl >= TWO_PI * f[0] / MIRROR_NEAR)))
+    if n_fl:
+        warnings.append(f"{n_fl} right-half-plane pole(s) were mirrored into the left "
+                        "half-plane; if the plant is really unstable, this model is wrong")
+    warnings += residual_warnings(ref, chi)
+    stats = {
+        "rms_db": float(np.sqrt(np.mean(r_db ** 2))),
+        "rms_deg": float(np.sqrt(np.mean(r_deg ** 2))),
+        "max_db": float(np.max(np.abs(r_db))),
+        "max_deg": float(np.max(np.abs(r_deg))),
+        "reduced_chi2": float(ref.redchi),
+        "points": int(f.shape[0]),
+        "f_min_hz": float(f[0]),
+        "f_max_hz": float(f[-1]),
+        "order": int(model.order),
+        "iterations": int(att.vf.iterations),
+        "evaluations": int(ref.evaluations),
+        "converged": converged,
+        "vf_converged": bool(att.vf.converged),
+        "noise_floor_db": sigma.floor_db,
+        "noise_floor_deg": sigma.floor_deg,
+        "noise_source": sigma.source,
+        "residual_over_floor": chi,
+        "mirrored_poles": n_fl,
+        "delay_s": float(max(tau, 0.0)),
+    }
+    return FitResult(
+        model=model, parameters=params, stats=stats, warnings=tuple(warnings), notes=tuple(notes),
+        order_scan=tuple(a.summary() for a in scan), varied=ref.varied,
+        covariance=cov, correlation=corr, integrators=st.integrators,
+        provenance=resp.provenance.derive("fit", settings),
+    )
+
+
+def residual_warnings(ref: Refined, chi: float) -> list[str]:
+    """The warning for a residual above the noise (reduced χ² > :data:`RESIDUAL_WARN`).
+
+    The standard errors come from the Jacobian scaled by the reduced χ²
+    (:mod:`benchfit.fitting.refine`), so σ grows by √χ² where the model does
+    not reach the floor; the warning says so, since such σ measure the misfit
+    as much as the noise.
+    """
+    if not (np.isfinite(ref.redchi) and ref.redchi > RESIDUAL_WARN):
+        return []
+    return [f"residual above the noise: reduced chi-square {ref.redchi:.3g} at the measured noise "
+            f"({chi:.2f}× the noise floor); the model misses part of the response (try a higher "
+            f"--order, --delay auto or a narrower --band); standard errors are scaled by "
+            f"√χ² = {np.sqrt(ref.redchi):.3g}"]

@@ -1,0 +1,207 @@
+"""Hypotheses: vector-fitting candidates turned into refined, pruned models, and the race.
+
+Stages 3 to 5 of docs/fitting.md: the order (and delay) scans give
+candidates (:func:`candidates`); each is factored into physical parameters
+and refined briefly (:func:`start`), pruned of the groups the data do not
+need (:func:`benchfit.fitting.pruning.pruned`), and the information
+criterion picks one (:func:`race`, rules in :mod:`benchfit.fitting.selection`).
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+
+from benchfit.errors import FitError, InputError
+from benchfit.fitting.delay import (
+    choose_delay_order,
+    delay_stepper,
+    excess_phase_delay,
+    refine_delay,
+)
+from benchfit.fitting.order import CHI_OK, Attempt, Context, attempt, choose_order, max_order, polish
+from benchfit.fitting.groups import conform
+from benchfit.fitting.parameters import Structure, from_zpk
+from benchfit.fitting.problem import SCAN_POINTS, Problem
+from benchfit.fitting.pruning import pruned
+from benchfit.fitting.refine import Refined
+from benchfit.fitting.selection import CLOSE_CALL, bic, bic_floor, delay_worth_testing, screen
+from benchfit.fitting.vectfit import vf_to_zpk
+
+#: When the no-delay scan's first order already reaches the floor, it restarts this
+#: many orders lower.
+DROP_STEP = 3
+
+
+class Hypothesis(NamedTuple):
+    """A candidate model: its VF attempt, structure, refinement and notes."""
+
+    att: Attempt
+    st: Structure
+    ref: Refined
+    notes: list[str]
+
+
+
+def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt], list[Attempt]]:
+    """Vector fits to refine: the best without a delay, and with one when ``delay="auto"``.
+
+    With ``delay="auto"`` and a delay worth testing
+    (:func:`benchfit.fitting.selection.delay_worth_testing`: excess phase), the
+    order is first chosen with a delay searched at each order (starting from
+    the excess-phase estimate), then without a delay up to a few orders more;
+    without excess phase, the no-delay scan runs first and the delay scan
+    follows when its residual stays above the noise.  A delay and a damped pair near the top of the
+    band look alike to vector fitting, so both candidates are refined and
+    compared afterwards (:func:`race`).  Scans run on a thinned sweep; the
+    candidates' residues are re-solved on every point.
+
+    Returns
+    -------
+    candidates, scan
+    """
+    h = ctx.h
+    fixed_tau = float(delay) if not isinstance(delay, str) else 0.0
+    tau0 = excess_phase_delay(f, h) if delay == "auto" else 0.0
+    try_delay = delay == "auto" and delay_worth_testing(tau0, f[-1])
+    sub = ctx.subsample(SCAN_POINTS)
+    scan: list[Attempt] = []
+    with_delay = None
+    extra: list[Attempt] = []
+    if order != "auto":
+        n = int(order)
+        att = attempt(sub, n, fixed_tau)
+        if att.chi > CHI_OK:
+            # A fresh start may miss a weak feature; build up to n as the scan does.
+            scan = choose_order(sub, fixed_tau, n_min=1, n_max=n, scan_all=True)[1]
+            att = min([att, scan[-1]], key=lambda x: x.chi)
+        if delay == "auto" and (try_delay or delay_worth_testing(tau0, f[-1], att.chi)):
+            with_delay = refine_delay(sub, delay_stepper(sub, tau0)(n))
+    elif try_delay:
+        # Both hypotheses, the delay one first: its order bounds the no-delay scan
+        # (a delay mistaken for poles needs more of them, never fewer).
+        with_delay, nxt, scan_d = choose_delay_order(sub, tau0)
+        extra = [nxt] if nxt is not None and np.isfinite(nxt.chi) else []
+        # Below the delay order less two, the no-delay residual is far above the
+        # floor (the delay scan's is already), so the no-delay scan starts there,
+        # warm-started from the delay scan's poles; it restarts DROP_STEP orders
+        # lower whenever its first order already reaches the floor.
+        top = min(with_delay.order + 4, max_order(sub.s.shape[0]))
+        n0 = with_delay.order - 2 + DROP_STEP
+        while True:
+            n0 = max(1, n0 - DROP_STEP)
+            prior = [a for a in scan_d if n0 - 2 <= a.order < n0 and np.isfinite(a.chi)]
+            att, scan = choose_order(sub, fixed_tau, n_min=n0, n_max=top, prior=prior)
+            if n0 == 1 or att.order > n0:
+                break
+        scan = scan + scan_d
+    else:
+        att, scan = choose_order(sub, fixed_tau)
+        if delay == "auto" and delay_worth_testing(tau0, f[-1], att.chi):
+            # No excess phase to speak of, but the residual stays above the noise:
+            # a delay the phase estimate missed is a hypothesis too.
+            with_delay, nxt, scan_d = choose_delay_order(sub, tau0)
+            extra = [nxt] if nxt is not None and np.isfinite(nxt.chi) else []
+            scan = scan + scan_d
+    # The scans' poles (settled to 1e-4 near the floor) only start the refinement,
+    # which is the estimator: they are carried to every point as they are.
+    out = [polish(ctx, att)]
+    for a in ([with_delay] if with_delay is not None else []) + extra:
+        if np.isfinite(a.chi):
+            out.append(polish(ctx, a))
+    return out, scan
+
+
+def start(pb: Problem, att: Attempt, refit) -> Hypothesis:
+    """VF attempt -> physical parameters -> a first, capped refinement (and notes).
+
+    Every pole and zero vector fitting found is kept, also far above the band:
+    whether the data need it is the pruning's question (:func:`pruned`), never
+    decided here.  The structure is conformed to the parameters the user fixes
+    or bounds (:func:`benchfit.fitting.groups.conform`).  ``refit`` refines on
+    the points the scans used.
+    """
+    ctx = pb.ctx
+    m, scale = ctx.integrators, ctx.scale
+    fit_delay = pb.delay == "auto" and att.tau_s > 0
+    zeros, poles, k = vf_to_zpk(att.vf, scale)
+    k_h = k * scale ** m  # the VF model was of H·(s/scale)^m
+    has_delay = fit_delay or "delay_s" in pb.fixed
+    st, v0 = from_zpk(zeros, poles, k_h, att.tau_s, integrators=m, delay=has_delay)
+    st, v0 = conform(st, v0, pb.fixed, pb.bounds, order_given=pb.order != "auto")
+    # Capped: spurious zeros above the band make it slow, and they are pruned next.
+    return Hypothesis(att, st, refit(st, v0, max_nfev=40), [])
+
+
+def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
+    """Start, prune and compare the candidates; the winner (not yet refined on every
+    point unless the second value, ``refined``, is True).
+
+    Hypotheses are refined, pruned and compared on the thinned copy the scans
+    used (each decision is a χ² difference against ln N, valid at any N);
+    a single one is refined with lmfit and pruned on every point straight away.
+    """
+    f, n_pts = pb.f, pb.n_points
+    idx = pb.idx
+    worth = screen(cands, 2 * idx.shape[0])
+    single = len(worth) == 1
+    if single:
+        idx = np.arange(n_pts)
+        refit_sub, trial_sub = pb.refiner(), pb.refiner(quick=True)
+    else:
+        refit_sub = trial_sub = pb.refiner(idx, quick=True)
+    n_sub = 2 * idx.shape[0]
+    starts: list[Hypothesis] = []
+    missing: InputError | None = None
+    for att in worth:
+        try:
+            starts.append(start(pb, att, refit_sub))
+        except InputError as e:
+            # This hypothesis has no parameter the user holds or bounds: it is not
+            # one the user asked about.  Only when none has it is that an error.
+            missing = missing or e
+        except (ValueError, np.linalg.LinAlgError):
+            continue
+    if not starts and missing is not None:
+        raise missing
+    # The most promising start is pruned first; a later one whose best possible
+    # outcome is out of reach of the best so far is not worth its pruning.
+    starts.sort(key=lambda o: bic(o.ref, n_sub))
+    outcomes: list[Hypothesis] = []
+    for hyp in starts:
+        if outcomes and bic_floor(hyp.st, hyp.ref, f[-1], n_sub, pb.may_add_delay) > min(
+                bic(o.ref, n_sub) for o in outcomes) + CLOSE_CALL:
+            continue
+        outcomes.append(Hypothesis(hyp.att, *pruned(pb, hyp.st, hyp.ref, hyp.notes, idx,
+                                                    refit_sub, trial=trial_sub)))
+    # A hypothesis whose refinement stopped at its cap is refined to the end when
+    # it is still in the running; one far behind is left where it stopped.
+    for i, o in enumerate(outcomes):
+        if not o.ref.success and bic(o.ref, n_sub) - min(
+                bic(x.ref, n_sub) for x in outcomes) < 2 * CLOSE_CALL:
+            outcomes[i] = o._replace(ref=refit_sub(o.st, o.ref.values))
+    if not outcomes:
+        raise FitError("vector fitting failed: the model does not evaluate on the band "
+                       "(check the data for gaps or exact zeros)")
+    return choose(outcomes, n_sub, 2 * n_pts, pb.refiner(quick=True)), single
+
+
+def choose(outcomes: list[Hypothesis], n_sub: int, n_all: int, refit_all) -> Hypothesis:
+    """The hypothesis with the lowest BIC (:func:`benchfit.fitting.selection.bic`).
+
+    Delay or no delay, one order or the next: BIC rather than AIC, since a
+    many-pole rational can mimic a delay and BIC's stronger penalty keeps the
+    simpler explanation unless the data insist.  When the best ones on the
+    thinned copy (``n_sub`` residuals) are within :data:`CLOSE_CALL`, they are
+    refined on every point (``refit_all``, ``n_all`` residuals) and compared
+    again there.
+    """
+    outcomes = sorted(outcomes, key=lambda o: bic(o.ref, n_sub))
+    best = bic(outcomes[0].ref, n_sub)
+    close = [o for o in outcomes if bic(o.ref, n_sub) - best < CLOSE_CALL]
+    if len(close) > 1 and n_sub != n_all:
+        close = [o._replace(ref=refit_all(o.st, o.ref.values)) for o in close]
+        close.sort(key=lambda o: bic(o.ref, n_all))
+        return close[0]
+    return outcomes[0]

@@ -1,0 +1,211 @@
+"""One fit's fixed inputs: the band's data, its noise, the options, and refiners over them.
+
+:func:`prepare` checks the data, estimates the per-point σ
+(:mod:`benchfit.fitting.weights`) and builds the vector-fitting
+:class:`~benchfit.fitting.order.Context`; :class:`Problem` carries these
+through the stages of :func:`benchfit.fitting.api.fit` and hands out the
+refinements the stages compare models with (:meth:`Problem.refiner`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from benchfit.data.response import FrequencyResponse
+from benchfit.errors import FitError, InputError
+from benchfit.fitting.order import Context
+from benchfit.fitting.parameters import TWO_PI, Structure
+from benchfit.fitting.refine import Refined, refine
+from benchfit.fitting.weights import PointSigma, point_sigma, scatter_sigma, vf_weight
+
+#: Orders and delays are scanned, and hypotheses compared, on at most this many points
+#: (see Context.subsample).
+SCAN_POINTS = 250
+
+Refiner = Callable[..., Refined]
+
+
+def _slope(f: np.ndarray, mag: np.ndarray, part: slice) -> float:
+    """Median log-log slope of |H| (decades of |H| per decade of f) over ``part``."""
+    g = np.gradient(np.log(mag), np.log(f))[part]
+    return float(np.median(g)) if g.size else 0.0
+
+
+def detect_integrators(f: np.ndarray, h: np.ndarray) -> int:
+    """Integrators seen at the bottom of the band: slope −m and phase −90°·m (common practice)."""
+    n = f.shape[0]
+    part = slice(0, max(3, n // 20))
+    m = int(round(-_slope(f, np.abs(h), part)))
+    if m <= 0:
+        return 0
+    ph = np.degrees(np.angle(h[part]))
+    # phase of gain/s^m: −90·m (or +180 offset for an inverting gain)
+    err = np.abs(((ph + 90.0 * m) + 90.0) % 180.0 - 90.0)
+    return min(m, 3) if float(np.median(err)) < 20.0 else 0
+
+
+def hf_terms(f: np.ndarray, h: np.ndarray, integrators: int) -> tuple[bool, bool]:
+    """Direct/proportional terms from the magnitude slope at the top of the band."""
+    n = f.shape[0]
+    s = _slope(f, np.abs(h), slice(n - max(3, n // 10), n)) + integrators
+    return s > -0.5, s > 0.5
+
+
+@dataclass(frozen=True, eq=False)
+class Problem:
+    """The data and options of one fit (see :func:`prepare`)."""
+
+    resp: FrequencyResponse
+    sigma: PointSigma
+    ctx: Context
+    order: int | str
+    delay: float | str
+    fixed: dict[str, float]
+    bounds: dict[str, tuple[float, float]]
+    weighting: str
+    settings: dict[str, Any]
+    sig_abs: np.ndarray | None = None
+    idx: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=int))
+    stable: bool = False
+
+    @property
+    def f(self) -> np.ndarray:
+        return self.resp.freq_hz
+
+    @property
+    def h(self) -> np.ndarray:
+        return self.resp.response
+
+    @property
+    def n_points(self) -> int:
+        return int(self.resp.freq_hz.shape[0])
+
+    @property
+    def may_add_delay(self) -> bool:
+        """Pruning may offer a delay in place of lagging zeros (``delay="auto"`` only)."""
+        return self.delay == "auto" and "delay_s" not in self.fixed
+
+    def held(self, *prefixes: str) -> bool:
+        """True when the user fixes or bounds a parameter whose name starts with a prefix."""
+        return any(key.startswith(prefixes) for key in (*self.fixed, *self.bounds))
+
+    def bounds_for(self, st: Structure) -> dict[str, tuple[float, float]]:
+        """The user's bounds, and with :attr:`stable` every pole frequency and pair Q
+        held at or above zero (left half-plane) for the parameters of ``st``."""
+        if not self.stable:
+            return self.bounds
+        out = dict(self.bounds)
+        for nm in st.names:
+            if nm.startswith("pole") or (nm.startswith("pair") and nm.endswith(("_hz", "_q"))):
+                lo, hi = out.get(nm, (-np.inf, np.inf))
+                out[nm] = (max(lo, 0.0), hi)
+        return out
+
+    def refiner(self, idx: np.ndarray | None = None, quick: bool = False) -> Refiner:
+        """``(structure, values, max_nfev=200) -> Refined`` on the points ``idx`` (all when
+        None).  ``quick``: scipy's least squares directly, for trial refinements that
+        only compare χ² (:func:`benchfit.fitting.refine.refine`); the refinement a
+        result reports is lmfit's."""
+        s = 1j * TWO_PI * self.f
+        h, sig = self.h, self.sigma
+        sel = slice(None) if idx is None else idx
+        sig_abs = None if self.sig_abs is None else self.sig_abs[sel]
+
+        def run(st: Structure, values: np.ndarray, max_nfev: int = 200) -> Refined:
+            return refine(st, values, s[sel], h[sel], sig.mag[sel], sig.phase[sel],
+                          fix=self.fixed, bounds=self.bounds_for(st), weighting=self.weighting,
+                          sig_abs=sig_abs, max_nfev=max_nfev, quick=quick)
+
+        return run
+
+
+def passive(resp: FrequencyResponse) -> bool:
+    """True when the data are of a passive device, whose model must be stable.
+
+    Evidence weighed: the quantity (an impedance is passive, common practice),
+    or a Touchstone scattering parameter whose magnitude never exceeds 1 (a
+    passive network does not amplify; a |S| > 1 anywhere may be an amplifier).
+    """
+    if resp.quantity == "impedance":
+        return True
+    dialect = (resp.meta or {}).get("dialect") or {}
+    param = str(dialect.get("parameter", ""))
+    return bool(str(dialect.get("format", "")).startswith("touchstone") and param.startswith("S")
+                and np.max(np.abs(resp.response)) <= 1.0)
+
+
+def prepare(resp: FrequencyResponse, order: int | str, delay: float | str, band, fix,
+            weighting: str, integrators: int | str, bounds, stable: bool | None = None
+            ) -> Problem:
+    """Check the band's data and build the :class:`Problem` (σ, VF context, options).
+
+    ``stable``: force left-half-plane poles; None (default) forces them for
+    :func:`passive` data only.
+
+    Raises
+    ------
+    FitError
+        A response with exact zeros, a constant one, no usable weight, or too
+        few points for the order asked.
+    """
+    settings: dict[str, Any] = {"order": order, "delay": delay, "band": list(band) if band else None,
+                                "fix": dict(fix or {}), "weighting": weighting,
+                                "integrators": integrators,
+                                "bounds": {k: list(v) for k, v in (bounds or {}).items()},
+                                "stable": stable}
+    if band is not None:
+        resp = resp.band(*band)
+    f, h = resp.freq_hz, resp.response
+    n_pts = f.shape[0]
+    mag = np.abs(h)
+    if np.any(mag == 0):
+        raise FitError("the response is exactly zero at some points; a log fit needs |H| > 0")
+    lnm, ph = np.log(mag), np.unwrap(np.angle(h))
+    if np.ptp(lnm) < 1e-9 and np.ptp(ph) < 1e-9:
+        raise FitError("the response is constant over the band: there is nothing for poles and "
+                       "zeros to fit (a pure gain)")
+    sigma = point_sigma(h, resp.stddev, resp.coherence, resp.weight)
+    m = detect_integrators(f, h) if integrators == "auto" else int(integrators)
+    scale = TWO_PI * float(np.sqrt(f[0] * f[-1]))
+    direct, prop = hf_terms(f, h, m)
+    w = vf_weight(h, sigma, weighting, resp.stddev)
+    if not np.any(w > 0):
+        raise FitError("no point has a usable weight")
+    ctx = Context(s=1j * TWO_PI * f / scale, scale=scale, h=h, sigma=sigma, w=w, integrators=m,
+                  direct=direct, proportional=prop)
+    if order != "auto" and n_pts < int(order) + 3:
+        raise FitError(f"order {order} needs at least {int(order) + 3} points in the band; "
+                       f"it holds {n_pts}")
+    fixed = dict(fix or {})
+    if not isinstance(delay, str) and delay > 0:
+        fixed.setdefault("delay_s", float(delay))
+    sig_abs = None
+    if weighting == "absolute":
+        # The stddev column is the σ of the complex response: a circular error puts
+        # σ/√2 into each of the real and imaginary parts the residual is made of.
+        sig_abs = resp.stddev / np.sqrt(2.0) if resp.stddev is not None else np.full(
+            n_pts, float(np.median(np.concatenate([scatter_sigma(h.real), scatter_sigma(h.imag)]))))
+    force = passive(resp) if stable is None else bool(stable)
+    if force:
+        _check_stable_options(fixed, dict(bounds or {}))
+    return Problem(resp=resp, sigma=sigma, ctx=ctx, order=order, delay=delay, fixed=fixed,
+                   bounds=dict(bounds or {}), weighting=weighting, settings=settings,
+                   sig_abs=sig_abs, idx=ctx.subsample_index(SCAN_POINTS), stable=force)
+
+
+def _check_stable_options(fixed: dict[str, float], bounds: dict[str, tuple[float, float]]) -> None:
+    """A right-half-plane pole the user fixes or bounds cannot be honoured with a stable model."""
+    for name, value in fixed.items():
+        if name.startswith(("pole", "pair")) and not name.endswith("f0_hz") and value < 0:
+            raise InputError(f"{name}={value:g} is a right-half-plane pole, but the model is held "
+                             "stable (--stable, the default for passive data; --no-stable "
+                             "allows it)", source="--fix")
+    for name, (_, hi) in bounds.items():
+        if name.startswith(("pole", "pair")) and not name.endswith("f0_hz") and hi < 0:
+            raise InputError(f"{name} bounded below zero is a right-half-plane pole, but the "
+                             "model is held stable (--stable, the default for passive data; "
+                             "--no-stable allows it)", source="--bound")

@@ -1,0 +1,294 @@
+"""Pruning a refined hypothesis: groups the data do not need are tried for removal.
+
+Each loop here proposes a smaller model (groups above the band, a delay in
+place of lagging zeros, nearly cancelling pole/zero groups, groups the data
+cannot locate), refines it briefly, and keeps it only when
+:func:`benchfit.fitting.selection.drop_allowed` says the data allow it.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from benchfit.fitting.delay import DELAY_MIN_PHASE
+from benchfit.fitting.groups import (
+    RHP_NEAR_TOP,
+    below_noise,
+    cancelling,
+    dropped_phase_as_delay,
+    groups_above,
+    narrower_than_spacing,
+    unidentified,
+    with_delay,
+    without,
+)
+from benchfit.fitting.parameters import TWO_PI, Structure
+from benchfit.fitting.problem import Problem
+from benchfit.fitting.refine import Refined
+from benchfit.fitting.selection import drop_allowed, prunable
+from benchfit.fitting.weights import PointSigma
+
+#: Evaluations a pruning trial gets: a group the data do not need leaves the rest
+#: next to its optimum (5..10 evaluations); one they need stays far above the bar.
+TRIAL_NFEV = 20
+#: Evaluations a pruned hypothesis gets before it is judged against the others (one
+#: still within reach of the best is then refined to convergence).
+PRUNED_NFEV = 60
+
+
+def trial(refit, st: Structure, values: np.ndarray, ref: Refined, bar: float) -> Refined:
+    """A pruning trial's refinement: :data:`TRIAL_NFEV` evaluations, as many again when
+    it stopped at the cap within twice the ``bar`` (χ² rise in units of the reduced
+    χ² of ``ref``) of passing."""
+    ref2 = refit(st, values, max_nfev=TRIAL_NFEV)
+    if not ref2.success and (ref2.chisqr - ref.chisqr) / ref.redchi <= 2.0 * bar:
+        ref2 = refit(st, ref2.values, max_nfev=TRIAL_NFEV)
+    return ref2
+
+
+def delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray,
+                 **kinds: bool) -> tuple[list[str], float] | None:
+    """Groups a delay could stand in for in a model without one, and that delay.
+
+    The groups are the poles and zeros above the band and the right-half-plane
+    zeros near its top (:func:`groups_above`); the delay is the one whose
+    phase matches theirs (:func:`dropped_phase_as_delay`).  None when there
+    are none or their phase is not a lag worth a delay parameter.
+    """
+    groups = [g for g, _ in groups_above(st, values, f_max, rhp_from=RHP_NEAR_TOP * f_max,
+                                               **kinds)]
+    if not groups:
+        return None
+    tau = dropped_phase_as_delay(st, values, groups, w)
+    return (groups, tau) if tau * float(w[-1]) >= DELAY_MIN_PHASE else None
+
+
+def prune_above(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
+                 w: np.ndarray | None = None, delay_free: bool = False, add_delay: bool = False,
+                 **kinds: bool) -> tuple[Structure, Refined, int]:
+    """Drop zeros (and poles) above the band that the data do not need.
+
+    A group is dropped when the rise of chi-square, in units of the reduced
+    chi-square, stays under Schwarz's penalty ln N per parameter dropped (the
+    same criterion that chooses delay or no delay, :func:`bic`).  Above the
+    band a zero's phase, −ω/ω_z, is a delay's phase, so a plain 95 %
+    likelihood-ratio test (penalty 3.8 per parameter) let noise buy a spurious
+    zero that stole part of the delay and shrank its error bar.  All groups
+    are tried at once first, then one at a time (highest frequency first).
+    With ``delay_free`` (a fitted delay) the delay takes over the dropped
+    zeros' phase over ``w`` (rad/s), see :func:`dropped_phase_as_delay`.
+    With ``add_delay`` a model without a delay is offered one in place of
+    its lagging zeros near and above the top of the band when dropping all
+    zeros above the band fails (:func:`delay_trial`): a short delay, a
+    radian or two at the top of the band, is otherwise fitted as a cluster
+    of such zeros (one parameter fewer per zero dropped, one more for the
+    delay).  Poles above the band are tried like zeros (``kinds``: ``poles`` and
+    ``zeros`` flags of :func:`groups_above`).
+    """
+    penalty = float(np.log(n_res))
+    dropped = 0
+    while True:
+        groups = groups_above(st, ref.values, f_max, rhp_from=(
+            RHP_NEAR_TOP * f_max if delay_free and st.delay else None), **kinds)
+        if not np.isfinite(ref.redchi) or ref.redchi <= 0:
+            return st, ref, dropped
+        groups.sort(key=lambda g: -g[1])
+        trials: list[tuple[list[str], float | None]] = []
+        if groups:
+            trials.append(([g for g, _ in groups], None))
+        # The swap comes after plain dropping: a delay only when the zeros are needed.
+        swap = delay_trial(st, ref.values, f_max, w, **kinds) if (
+            add_delay and not st.delay and w is not None) else None
+        if swap is not None:
+            trials.append(swap)
+        if len(groups) > 1:
+            trials += [([g], None) for g, _ in groups]
+        for drop, tau in trials:
+            st2, v2 = without(st, ref.values, drop)
+            if tau is not None:
+                st2, v2 = with_delay(st2, v2, tau)
+            elif delay_free and st2.delay and w is not None:
+                v2 = v2.copy()
+                v2[-1] += dropped_phase_as_delay(st, ref.values, drop, w)
+            dp = len(st.names) - len(st2.names)
+            ref2 = trial(refit, st2, v2, ref, penalty * dp)
+            if drop_allowed(ref, ref2, dp, n_res):
+                st, ref = st2, ref2
+                dropped += len(drop)
+                break
+        else:
+            return st, ref, dropped
+
+
+def drop_unneeded(st: Structure, ref: Refined, refit, n_res: int, candidates, waive=None
+                   ) -> tuple[Structure, Refined, int]:
+    """Greedy pruning: drop the first of ``candidates(st, ref)`` (lists of groups) the data
+    do not need, by the ln N rule of :func:`prune_above` (or outright when
+    ``waive(st, ref, groups)``), and look again until none goes.
+
+    Returns the structure, its refinement and the number of drops.
+    """
+    penalty = float(np.log(n_res))
+    dropped = 0
+    while np.isfinite(ref.redchi) and ref.redchi > 0:
+        for drop in candidates(st, ref):
+            st2, v2 = without(st, ref.values, drop)
+            dp = len(st.names) - len(st2.names)
+            ref2 = trial(refit, st2, v2, ref, penalty * dp)
+            waived = waive is not None and waive(st, ref, drop)
+            if drop_allowed(ref, ref2, dp, n_res, waived=waived):
+                st, ref = st2, ref2
+                dropped += 1
+                break
+        else:
+            break
+    return st, ref, dropped
+
+
+def prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: np.ndarray,
+                      sigma: PointSigma) -> tuple[Structure, Refined, int]:
+    """Drop pole/zero groups that nearly cancel when the data do not need them.
+
+    Inside the band such a pair (often with Q in the hundreds) fits a noise
+    spike, not the plant.  It is dropped outright when its bandwidth is under
+    the point spacing (:func:`narrower_than_spacing`) or its effect is under
+    the noise at every point (:func:`below_noise`: its frequency is free, so
+    it can go looking for the luckiest run of noise, which a per-parameter
+    penalty does not price), otherwise by the rule of :func:`prune_above`:
+    unless χ² rises by more than ln N per parameter removed (Schwarz 1978).
+    ``freq_hz`` and ``sigma`` are those of the full sweep.
+    """
+    def waive(st_: Structure, ref_: Refined, drop: list[str]) -> bool:
+        return (all(narrower_than_spacing(st_, ref_.values, g, freq_hz) for g in drop)
+                or below_noise(st_, ref_.values, drop, freq_hz, sigma))
+
+    return drop_unneeded(st, ref, refit, n_res, lambda st_, ref_: cancelling(st_, ref_.values),
+                          waive)
+
+
+def prune_unidentified(st: Structure, ref: Refined, refit, n_res: int, poles: bool = True,
+                       zeros: bool = True) -> tuple[Structure, Refined, int]:
+    """Drop pole or zero groups the data cannot locate (σ above the value), one at a
+    time, by the ln N rule of :func:`prune_above`.
+
+    A spare pole the refinement parks somewhere the data say nothing about (a
+    second real pole beside an overdamped pair, a pair far past the band)
+    shows as an error bar larger than the value itself.
+    """
+    def kind_ok(g: str) -> bool:
+        return zeros if g.startswith("zero") else poles
+
+    return drop_unneeded(st, ref, refit, n_res,
+                         lambda st_, ref_: [[g] for g in unidentified(st_, ref_) if kind_ok(g)])
+
+
+def _cancel_note(n: int) -> str:
+    return f"dropped {n} nearly cancelling pole/zero group(s) that the data do not need"
+
+
+def pruned(pb: Problem, hyp_st: Structure, ref: Refined, notes: list[str], idx: np.ndarray,
+           refit, trial=None) -> tuple[Structure, Refined, list[str]]:
+    """A started hypothesis (:func:`~benchfit.fitting.hypotheses.start`) with the groups
+    the data do not need pruned.
+
+    Only groups of the kinds :func:`~benchfit.fitting.selection.prunable` allows
+    are tried (never a pole when the user gave the order, never a kind the user
+    holds or bounds).  ``refit`` refines on the points ``idx`` (``trial``, the
+    pruning trials, when given).
+    """
+    st = hyp_st
+    f = pb.f
+    trial = trial or refit
+    notes = list(notes)
+    n_res = 2 * idx.shape[0]
+    n_drop = 0
+    may = prunable(pb)
+    kinds = {"poles": may["poles"], "zeros": may["zeros"]}
+    if kinds["poles"] or kinds["zeros"]:
+        had_delay = st.delay
+        st, ref, n_drop = prune_above(st, ref, trial, f[-1], n_res, TWO_PI * f[idx],
+                                      delay_free="delay_s" not in pb.fixed,
+                                      add_delay=pb.may_add_delay, **kinds)
+        if st.delay and not had_delay:
+            notes.append("a delay fits the phase lag that poles or zeros near and above the "
+                         "top of the band had taken")
+        if n_drop:
+            where = "above or, with a delay, near the top of" if st.delay else "above"
+            notes.append(f"dropped {n_drop} pole or zero group(s) {where} the band that the data "
+                         "do not need")
+    if may["cancelling"]:
+        # The point spacing that matters is the full sweep's, not the thinned copy's.
+        st, ref, n_cancel = prune_cancelling(st, ref, trial, n_res, f, pb.sigma)
+        if n_cancel:
+            notes.append(_cancel_note(n_cancel))
+            n_drop += n_cancel
+    if kinds["poles"] or kinds["zeros"]:
+        st, ref, n_vague = prune_unidentified(st, ref, trial, n_res, **kinds)
+        if n_vague:
+            notes.append(f"dropped {n_vague} pole or zero group(s) whose frequency the data "
+                         "could not pin (σ above the value) and do not need")
+            n_drop += n_vague
+    if not ref.success or n_drop:
+        # The capped runs above may have stopped short.  Capped again: only a
+        # hypothesis still in the running is refined to the end (see race()).
+        ref = refit(st, ref.values, max_nfev=PRUNED_NFEV)
+    return st, ref, notes
+
+
+def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: bool = False
+          ) -> tuple[Structure, Refined, list[str]]:
+    """Refine the chosen structure on every point with lmfit; drop a delay that is not
+    significant.
+
+    On every point a pair the thinned copy could not see (a spike between its
+    points) may appear and cancel with a zero pair: the cancelling check runs
+    again here, its trials refined quickly (:func:`refine` with ``quick``).
+    ``ref`` may come from the thinned copy or from every point: the lmfit
+    refinement starts from its values either way (from an optimum on every
+    point it takes a few evaluations).  ``refined``: ``ref`` is lmfit's on every
+    point already.  With ``--order N`` a note says when the data would accept
+    fewer poles (:func:`fewer_poles_note`).
+    """
+    refit, quick = pb.refiner(), pb.refiner(quick=True)
+    f = pb.f
+    n_res = 2 * f.shape[0]
+    if not refined:
+        ref = refit(st, ref.values)
+    if prunable(pb)["cancelling"]:
+        st, ref, n_cancel = prune_cancelling(st, ref, quick, n_res, f, pb.sigma)
+        if n_cancel:
+            notes = [*notes, _cancel_note(n_cancel)]
+            ref = refit(st, ref.values)
+    if st.delay and "delay_s" not in pb.fixed:
+        i = st.names.index("delay_s")
+        tv, te = ref.values[i], ref.stderr[i]
+        if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
+            # Under 2σ: refine without the delay, and keep that only when the drop test
+            # passes: a parameter strongly correlated with the delay can blow up its σ
+            # while the data still need it.
+            keep = [j for j in range(len(st.names)) if j != i]
+            st2 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
+                            st.integrators, False)
+            ref2 = refit(st2, ref.values[keep])
+            if tv <= 0 or drop_allowed(ref, ref2, 1, n_res):
+                st, ref = st2, ref2
+                notes = [*notes, "delay estimate not significant; fitted without delay"]
+    if pb.order != "auto":
+        note = fewer_poles_note(pb, st, ref, quick, n_res)
+        if note:
+            notes = [*notes, note]
+    return st, ref, notes
+
+
+def fewer_poles_note(pb: Problem, st: Structure, ref: Refined, quick, n_res: int) -> str | None:
+    """With ``--order N``: a note when the pole groups above the band could go by the
+    drop test (the model is kept with N poles, as asked)."""
+    kinds = {"poles": not pb.held("pole", "pair"), "zeros": not pb.held("zero")}
+    if not kinds["poles"]:
+        return None
+    st2, _, _ = prune_above(st, ref, quick, pb.f[-1], n_res, **kinds)
+    fewer = st.order - st2.order
+    if fewer <= 0:
+        return None
+    return (f"the data would accept {fewer} pole(s) fewer (order {st.order - st.integrators - fewer}"
+            f" by the drop test); kept at --order {pb.order} as asked")

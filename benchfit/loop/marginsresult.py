@@ -1,0 +1,183 @@
+"""The :class:`Margins` result: stability margins of one loop gain, its JSON and text forms.
+
+Produced by :mod:`benchfit.loop.margins` (see its notes for the conventions).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+from benchfit.errors import InputError
+from benchfit.fileio import as_float
+from benchfit.provenance import Provenance
+
+# the text report lists phase crossings with a larger GM on one summary line
+_QUIET_GM_DB = 60.0
+
+
+@dataclass(frozen=True)
+class Margins:
+    """Stability margins of one loop gain.
+
+    Attributes
+    ----------
+    phase_margin_deg
+        Phase margin at the main crossover, degrees, in (-180, 180];
+        inf when |T| never crosses 1, nan when the band does not reach it.
+    crossover_hz
+        Main gain crossover frequency, Hz (nan if none).
+    gain_margin_db
+        Smallest positive gain margin, dB (inf if none); see module notes.
+    phase_crossover_hz
+        Frequency of the phase crossing that gives ``gain_margin_db``, Hz.
+    delay_margin_s
+        Smallest extra delay that destabilises the loop, s.
+    modulus_margin
+        min |1 + T| over the band (dimensionless).
+    modulus_freq_hz
+        Where that minimum lies, Hz.
+    peak_sensitivity
+        Ms = 1 / modulus_margin.
+    crossings
+        Every crossing: dicts with ``kind`` ("gain" or "phase"), ``freq_hz``,
+        ``value`` (PM in degrees for gain crossings, GM in dB for phase
+        crossings), ``direction`` ("down"/"up": the way |T| or ∠T goes) and
+        ``main`` (True for the main crossover).
+    gain_reduction_margin_db
+        Negative gain margin closest to 0 dB (-inf if none).
+    min_phase_margin_deg, min_phase_margin_hz
+        The phase margin of smallest magnitude over *all* gain crossings (the
+        crossing that comes closest to -1), signed, and where it is; equal
+        to the main one for a loop with a single crossing.
+    open_loop_unstable_poles
+        P, as stated by the caller (or counted from the model).
+    closed_loop_stable
+        Nyquist verdict.
+    encirclements
+        Counter-clockwise encirclements of -1 by T (N; Z = P - N).
+    integrators
+        Number of open-loop poles at s = 0 used for the count.
+    f_min_hz, f_max_hz
+        The band examined.
+    warnings
+        Plain-language warnings.
+    provenance
+        What produced this result.
+    """
+
+    phase_margin_deg: float
+    crossover_hz: float
+    gain_margin_db: float
+    phase_crossover_hz: float
+    delay_margin_s: float
+    modulus_margin: float
+    modulus_freq_hz: float
+    peak_sensitivity: float
+    crossings: tuple[dict[str, Any], ...]
+    gain_reduction_margin_db: float = -math.inf
+    min_phase_margin_deg: float = math.inf
+    min_phase_margin_hz: float = math.nan
+    open_loop_unstable_poles: int = 0
+    closed_loop_stable: bool = True
+    encirclements: int = 0
+    integrators: int = 0
+    f_min_hz: float = math.nan
+    f_max_hz: float = math.nan
+    warnings: tuple[str, ...] = ()
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="margins"))
+
+    _FLOATS = ("phase_margin_deg", "crossover_hz", "gain_margin_db", "phase_crossover_hz",
+               "delay_margin_s", "modulus_margin", "modulus_freq_hz", "peak_sensitivity",
+               "gain_reduction_margin_db", "min_phase_margin_deg", "min_phase_margin_hz",
+               "f_min_hz", "f_max_hz")
+
+    def to_dict(self) -> dict[str, Any]:
+        d: dict[str, Any] = {"kind": "margins"}
+        for k in self._FLOATS:
+            d[k] = float(getattr(self, k))
+        d["crossings"] = [dict(c) for c in self.crossings]
+        d["open_loop_unstable_poles"] = int(self.open_loop_unstable_poles)
+        d["closed_loop_stable"] = bool(self.closed_loop_stable)
+        d["encirclements"] = int(self.encirclements)
+        d["integrators"] = int(self.integrators)
+        d["warnings"] = list(self.warnings)
+        d["provenance"] = self.provenance.to_dict()
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> Margins:
+        if not isinstance(d, dict) or "phase_margin_deg" not in d:
+            raise InputError("expected a margins object with 'phase_margin_deg'")
+        kw: dict[str, Any] = {k: as_float(d.get(k)) for k in cls._FLOATS if k in d}
+        crossings = []
+        for c in d.get("crossings", []):
+            c = dict(c)
+            c["freq_hz"] = as_float(c.get("freq_hz"))
+            c["value"] = as_float(c.get("value"))
+            crossings.append(c)
+        return cls(
+            crossings=tuple(crossings),
+            open_loop_unstable_poles=int(d.get("open_loop_unstable_poles", 0)),
+            closed_loop_stable=bool(d.get("closed_loop_stable", True)),
+            encirclements=int(d.get("encirclements", 0)),
+            integrators=int(d.get("integrators", 0)),
+            warnings=tuple(str(w) for w in d.get("warnings", ())),
+            provenance=Provenance.from_dict(d.get("provenance")),
+            **kw,
+        )
+
+    def to_json(self, path) -> None:
+        from benchfit.fileio import write_json_atomic
+
+        write_json_atomic(path, self.to_dict())
+
+    @classmethod
+    def from_json(cls, path) -> Margins:
+        from benchfit.fileio import read_json
+
+        return cls.from_dict(read_json(path))
+
+    def report(self) -> str:
+        """A short human-readable summary."""
+        def num(v: float, fmt: str, unit: str) -> str:
+            if math.isnan(v):
+                return "n/a"
+            if math.isinf(v):
+                return "none" if v > 0 else "-inf"
+            return f"{v:{fmt}} {unit}".rstrip()
+
+        lines = [
+            f"phase margin    {num(self.phase_margin_deg, '.1f', 'deg')} at {num(self.crossover_hz, '.4g', 'Hz')}",
+            f"gain margin     {num(self.gain_margin_db, '.1f', 'dB')} at {num(self.phase_crossover_hz, '.4g', 'Hz')}",
+        ]
+        if math.isfinite(self.gain_reduction_margin_db):
+            lines.append(f"gain reduction  {self.gain_reduction_margin_db:.1f} dB (gain may fall this much)")
+        lines += [
+            f"delay margin    {num(self.delay_margin_s, '.4g', 's')}",
+            f"modulus margin  {num(self.modulus_margin, '.3f', '')} (Ms {num(self.peak_sensitivity, '.3f', '')}, "
+            f"{num(20 * math.log10(self.peak_sensitivity) if self.peak_sensitivity > 0 else math.nan, '.1f', 'dB')}) "
+            f"at {num(self.modulus_freq_hz, '.4g', 'Hz')}",
+            f"closed loop     {'stable' if self.closed_loop_stable else 'UNSTABLE'} "
+            f"(open-loop RHP poles {self.open_loop_unstable_poles}, encirclements of -1: {self.encirclements})",
+            "crossings:",
+        ]
+        quiet = []      # phase crossings far below 0 dB (a delay's spinning phase): summarised
+        for c in self.crossings:
+            tag = " (main)" if c.get("main") else ""
+            if c["kind"] == "gain":
+                lines.append(f"  gain  {c['freq_hz']:12.5g} Hz  PM {c['value']:7.1f} deg{tag}")
+            elif c["value"] > _QUIET_GM_DB:
+                quiet.append(c)
+            else:
+                lines.append(f"  phase {c['freq_hz']:12.5g} Hz  GM {c['value']:7.1f} dB")
+        if quiet:
+            lines.append(f"  ... and {len(quiet)} phase crossing(s) with GM above {_QUIET_GM_DB:g} dB "
+                         f"between {quiet[0]['freq_hz']:.4g} and {quiet[-1]['freq_hz']:.4g} Hz "
+                         "(all listed in --json)")
+        if not self.crossings:
+            lines.append("  none in the band")
+        for w in self.warnings:
+            lines.append(f"warning: {w}")
+        return "\n".join(lines)

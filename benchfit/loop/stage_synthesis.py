@@ -1,0 +1,401 @@
+"""Placing an op-amp stage's feedback network on the measured Aol for a phase-margin target.
+
+The gain resistors come first: Rg is the impedance level (``r_level``) and
+Rf follows from the closed-loop gain (1 + Rf/Rg non-inverting, −Rf/Rg
+inverting).  Each network then has one placement variable, swept on a log
+grid with every row's margins computed at once
+(:func:`benchfit.loop.margins.margins_batch`), and the sweep's crossing of
+the phase-margin target is refined by bisection:
+
+===========  =================================  =============================================
+network      swept                              rule of the sweep
+===========  =================================  =============================================
+lead         zero of Cf·Rf, high to low         the smallest Cf that reaches the target
+lag          high-frequency noise gain H        the smallest H (Rn = Rf/(H − 1/β0)); Cn puts the
+                                                Rn–Cn corner a decade below where |Aol| = H
+lag-lead     crossover fc, high to low          1/β falls at −20 dB/decade through |Aol(fc)|:
+                                                lead pole at fc/4, plateau H = 4·|Aol(fc)|,
+                                                lag corner at fc/20 (a 20 dB/decade closure
+                                                where Aol falls at −40)
+isolation    Cf (op-amp pin to V-), small up    the smallest Cf; Riso the smallest of 1 Ω..1 kΩ
+                                                (E3 steps) that reaches the target
+snubber      Rs, low to high                    Cs the smallest of 1, 2.2, 4.7, 10 × CL that reaches
+                                                the target; among Rs crossings the highest crossover
+===========  =================================  =============================================
+
+When even the end of the sweep leaves more margin than asked (a benign
+plant), that end is kept and ``on_target`` is False; when no setting
+reaches the target, a :class:`DesignError` says how far the network got.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from benchfit.errors import DesignError, InputError
+from benchfit.loop import eseries
+from benchfit.loop.loopgain import LoopPlant
+from benchfit.loop.stage_load import StageLoad
+from benchfit.loop.stage_networks import StageNetwork
+from benchfit.loop.synthesis import Targets
+
+#: Points of each placement sweep.
+SWEEP_POINTS = 90
+#: Bisection steps refining a crossing of the target.
+BISECT_STEPS = 30
+#: |PM − target| below which a placement counts as on target, degrees.
+ON_TARGET_DEG = 0.5
+#: Closed-loop DC gain error allowed after snapping (the issue's 1 %).
+GAIN_TOL = 0.01
+#: Lag-lead shape: lead pole at fc/LL_M, plateau LL_M·|Aol(fc)|, lag corner at fc/(5·LL_M).
+LL_M = 4.0
+ISO_RISO = (1.0, 2.2, 4.7, 10.0, 22.0, 47.0, 100.0, 220.0, 470.0, 1000.0)
+SNUB_CS = (1.0, 2.2, 4.7, 10.0)
+
+
+@dataclass(frozen=True)
+class StageSynthesis:
+    """How a stage network was placed.
+
+    Attributes
+    ----------
+    network
+        The ideal network.
+    swept
+        Name of the placement variable and its final value.
+    on_target
+        True when the ideal phase margin is within 0.5° of the target.
+    pm_deg, crossover_hz
+        Ideal margins found by the sweep.
+    notes
+        Plain-language notes (the rule used, costs).
+    """
+
+    network: StageNetwork
+    swept: dict[str, float]
+    on_target: bool
+    pm_deg: float
+    crossover_hz: float
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"network": self.network.to_dict(), "swept": dict(self.swept),
+                "on_target": self.on_target, "pm_deg": self.pm_deg,
+                "crossover_hz": self.crossover_hz, "notes": list(self.notes)}
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any] | None) -> StageSynthesis | None:
+        if not d:
+            return None
+        return cls(network=StageNetwork.from_dict(d["network"]), swept=dict(d["swept"]),
+                   on_target=bool(d["on_target"]), pm_deg=float(d["pm_deg"]),
+                   crossover_hz=float(d["crossover_hz"]), notes=tuple(d.get("notes", ())))
+
+
+def gain_resistors(gain: float, stage: str, r_level: float) -> dict[str, float]:
+    """Ideal Rf, Rg for the closed-loop gain (Rg = ``r_level``; a follower has no Rg)."""
+    g = float(gain)
+    if not math.isfinite(g) or g == 0:
+        raise InputError(f"closed-loop gain {gain!r}; expected a finite non-zero gain",
+                         source="--closed-loop-gain")
+    if stage == "noninverting":
+        if g < 1.0:
+            raise InputError(f"closed-loop gain {g:g}: a non-inverting stage has a gain >= 1",
+                             source="--closed-loop-gain")
+        return {"Rf": r_level} if g == 1.0 else {"Rf": (g - 1.0) * r_level, "Rg": r_level}
+    return {"Rf": abs(g) * r_level, "Rg": r_level}
+
+
+def snapped_gain_pairs(ideal: dict[str, float], series: str, count: int = 3) -> list[dict[str, float]]:
+    """The ``count`` pairs of series values (Rg within a decade of its ideal) whose ratio
+    Rf/Rg is nearest the ideal one, best first."""
+    if "Rg" not in ideal:
+        return [{"Rf": float(eseries.snap(ideal["Rf"], series))}]
+    ratio = ideal["Rf"] / ideal["Rg"]
+    dec = math.floor(math.log10(ideal["Rg"]))
+    rg = np.concatenate([eseries.series_values(series) * 10.0 ** d for d in (dec - 1, dec, dec + 1)])
+    rg = eseries.snap(rg, series)
+    keep = (rg >= ideal["Rg"] / 3) & (rg <= ideal["Rg"] * 3)
+    rg = rg[keep]
+    rf = eseries.snap(rg * ratio, series)
+    err = np.abs(np.log((rf / rg) / ratio)) + 1e-3 * np.abs(np.log(rg / ideal["Rg"]))
+    order = np.argsort(err)[:count]
+    return [{"Rf": float(rf[i]), "Rg": float(rg[i])} for i in order]
+
+
+def stage_grid(lp: LoopPlant) -> np.ndarray:
+    """Frequencies the stage loop is judged on: the sweep's own, or the model's band."""
+    return lp.grid()
+
+
+def _margins(lp: LoopPlant, f: np.ndarray, net: StageNetwork, values: dict[str, Any] | None):
+    """(PM, GM, stable, crossover) of every row; PM is the smallest over all gain crossings."""
+    from benchfit.loop.margins import margins_batch
+
+    t = lp.response(f)[None, :] * net.response(f, None, values)
+    out = margins_batch(f, t, unstable_open_loop_poles=lp.unstable_poles)
+    pm = np.nan_to_num(np.asarray(out["pm_deg"], dtype=float), nan=-np.inf)
+    # every gain crossing must meet the target, not only the main one (a loop whose |T|
+    # dips below 1 and rises again has a second crossing with its own margin)
+    worst = np.asarray(out["min_pm_deg"], dtype=float)
+    pm = np.where(np.isfinite(worst), np.minimum(pm, worst), pm)
+    return pm, np.asarray(out["gm_db"], dtype=float), np.asarray(out["stable"], dtype=bool), \
+        np.asarray(out["crossover_hz"], dtype=float)
+
+
+def _aol_mag_at(lp: LoopPlant, f: np.ndarray, fq: np.ndarray) -> np.ndarray:
+    mag = np.abs(lp.response(f))
+    return np.exp(np.interp(np.log(fq), np.log(f), np.log(np.where(mag > 0, mag, 1e-300))))
+
+
+def _freq_where(lp: LoopPlant, f: np.ndarray, level: np.ndarray) -> np.ndarray:
+    """Lowest frequency where |Aol| falls to ``level`` (top of the band if never)."""
+    mag = np.abs(lp.response(f))
+    out = np.empty(np.size(level))
+    for k, lv in enumerate(np.atleast_1d(level)):
+        idx = np.flatnonzero(mag <= lv)
+        out[k] = f[idx[0]] if idx.size else f[-1]
+    return out
+
+
+class _Family:
+    """Part values of one network as functions of the swept variable (arrays)."""
+
+    def __init__(self, kind: str, base: dict[str, float], stage: str, load: StageLoad,
+                 lag_at: str, lp: LoopPlant, f: np.ndarray, option: float | None) -> None:
+        self.kind, self.base, self.stage, self.load, self.lag_at = kind, base, stage, load, lag_at
+        self.lp, self.f, self.option = lp, f, option
+        self.g0 = 1.0 + (base["Rf"] / base["Rg"] if "Rg" in base else 0.0)
+        self.net = StageNetwork(kind, {**base, **self.values(np.array([self.range()[0]]), scalar=True)},
+                                stage, load, lag_at)
+
+    def range(self) -> tuple[float, float, str, bool]:
+        """(start, end, name, prefer_start): the sweep runs from start to end on a log scale."""
+        f = self.f
+        if self.kind == "lead":
+            return f[-1], f[0], "lead_zero_hz", True
+        if self.kind == "lag":
+            top = float(np.max(np.abs(self.lp.response(f))))
+            return self.g0 * 1.02, max(top, self.g0 * 1.05), "noise_gain_hf", True
+        if self.kind == "lag-lead":  # from where the plateau 4·|Aol| would fall to 1/β0
+            top = float(_freq_where(self.lp, f, np.array([self.g0 / LL_M]))[0])
+            return top, f[0] * LL_M * 5, "crossover_hz", True
+        if self.kind == "isolation":
+            return 1e-13, 1e-6, "cf_f", True
+        return 1e-3, 1e3, "rs_ohm", False
+
+    def values(self, x: np.ndarray, scalar: bool = False) -> dict[str, Any]:
+        x = np.asarray(x, dtype=float)
+        rf = self.base["Rf"]
+        out: dict[str, Any]
+        if self.kind == "lead":
+            out = {"Cf": 1.0 / (2 * np.pi * rf * x)}
+        elif self.kind == "lag":
+            rn = rf / (x - self.g0)
+            fc = _freq_where(self.lp, self.f, x)
+            out = {"Rn": rn, "Cn": 1.0 / (2 * np.pi * rn * fc / 10.0)}
+        elif self.kind == "lag-lead":
+            h = np.maximum(LL_M * _aol_mag_at(self.lp, self.f, x), self.g0 * 1.02)
+            rn = rf / (h - self.g0)
+            out = {"Cf": 1.0 / (2 * np.pi * rf * x / LL_M),
+                   "Rn": rn, "Cn": 1.0 / (2 * np.pi * rn * x / (5 * LL_M))}
+        elif self.kind == "isolation":
+            out = {"Cf": x, "Riso": np.full_like(x, self.option)}
+        else:
+            out = {"Rs": x, "Cs": np.full_like(x, self.option * self.load.c_f)}
+        if scalar:
+            return {k: float(np.ravel(v)[0]) for k, v in out.items()}
+        return {k: np.asarray(v, dtype=float).reshape(-1, 1) for k, v in out.items()}
+
+    def margins(self, x: np.ndarray):
+        return _margins(self.lp, self.f, self.net, self.values(x))
+
+
+def _ok(pm, gm, stable, targets: Targets) -> np.ndarray:
+    return stable & (pm >= targets.phase_margin_deg) & (gm >= targets.gain_margin_db)
+
+
+def _solve(fam: _Family, targets: Targets) -> tuple[float, float, float, bool] | None:
+    """(x, pm, crossover, on_target) of the preferred crossing of the target, or None."""
+    start, end, _, _ = fam.range()
+    x = np.logspace(math.log10(start), math.log10(end), SWEEP_POINTS)
+    pm, gm, st, fc = fam.margins(x)
+    ok = _ok(pm, gm, st, targets)
+    if not ok.any():
+        return None
+    cands = []
+    for i in range(len(x) - 1):
+        if ok[i] != ok[i + 1]:
+            lo, hi = (i, i + 1) if not ok[i] else (i + 1, i)  # lo fails, hi passes
+            a, b = math.log10(x[lo]), math.log10(x[hi])
+            for _ in range(BISECT_STEPS):
+                m = 0.5 * (a + b)
+                r = fam.margins(np.array([10 ** m]))
+                if _ok(*r[:3], targets)[0]:
+                    b = m
+                else:
+                    a = m
+            r = fam.margins(np.array([10 ** b]))
+            cands.append((10 ** b, float(r[0][0]), float(r[3][0]), i))
+    if not cands:  # passes everywhere: keep the preferred end
+        j = 0 if fam.range()[3] else len(x) - 1
+        return float(x[j]), float(pm[j]), float(fc[j]), False
+    if fam.kind == "snubber":
+        best = max(cands, key=lambda c: c[2])
+    else:
+        best = min(cands, key=lambda c: c[3])  # the first crossing from the preferred start
+    return best[0], best[1], best[2], abs(best[1] - targets.phase_margin_deg) <= ON_TARGET_DEG
+
+
+NOTES = {
+    "lead": "Cf across Rf: 1/β falls from 1/β0 toward 1 above Rf·Cf; for a non-inverting stage "
+            "the signal gain falls with it (the closed-loop bandwidth is set by Cf)",
+    "lag": "Rn–Cn raises the noise gain 1/β to H at high frequency so 1/β meets Aol lower down; "
+           "cost: loop gain and bandwidth drop by H·β0, input noise is amplified by H",
+    "lag-lead": "lag raises 1/β, lead makes it fall at −20 dB/decade through Aol: a 20 dB/decade "
+                "closure where Aol falls at −40",
+    "isolation": "Riso isolates the load capacitor; Rf from the load keeps the DC gain exact, Cf "
+                 "from the op-amp pin closes the loop at high frequency; cost: Riso in series with "
+                 "the load at high frequency (load steps)",
+    "snubber": "Rs–Cs to ground adds the zero a low-ESR capacitor lacks; cost: a second large "
+               "capacitor and Rs's dissipation",
+    "plain": "resistive feedback only",
+}
+
+
+def lag_cost_note(net: StageNetwork) -> str:
+    """The lag network's cost to the signal gain, in words."""
+    h = net.dc_noise_gain() + net.parts["Rf"] / net.parts["Rn"]
+    if net.stage == "noninverting" and net.lag_at == "across":
+        return (f"lag across the inputs: the ideal signal gain stays {net.ideal_gain():.4g} at all "
+                f"frequencies (no current flows in Rn–Cn when V+ = V-) while the noise gain rises "
+                f"to {h:.4g}; the source must drive Rn–Cn")
+    return (f"lag to ground: the noise gain rises to {h:.4g} above the Rn–Cn corner"
+            + (f" and so does the signal gain (from {net.ideal_gain():.4g})"
+               if net.stage == "noninverting" else "; the inverting signal gain −Rf/Rg is kept"))
+
+
+def synthesize_stage(kind: str, lp: LoopPlant, targets: Targets, *, gain: float,
+                     stage: str = "noninverting", load: StageLoad | None = None,
+                     r_level: float = 10e3, lag_at: str = "across") -> StageSynthesis:
+    """Place one network on the Aol in ``lp`` for the phase-margin target.
+
+    Raises
+    ------
+    DesignError
+        When no setting of the network reaches the targets (the message says
+        the best phase margin reached).
+    """
+    load = load or StageLoad()
+    base = gain_resistors(gain, stage, r_level)
+    f = stage_grid(lp)
+    if kind == "plain":
+        net = StageNetwork("plain", base, stage, load, lag_at)
+        pm, gm, st, fc = _margins(lp, f, net, None)
+        if not _ok(pm, gm, st, targets)[0]:
+            raise DesignError(f"plain feedback leaves PM {pm[0]:.1f}° (GM {gm[0]:.1f} dB); the "
+                              f"target is {targets.phase_margin_deg:g}°")
+        return StageSynthesis(net, {}, False, float(pm[0]), float(fc[0]), (NOTES["plain"],))
+    options = {"isolation": ISO_RISO, "snubber": SNUB_CS}.get(kind, (None,))
+    best_pm = -math.inf
+    found: list[StageSynthesis] = []
+    for opt in options:
+        fam = _Family(kind, base, stage, load, lag_at, lp, f, opt)
+        got = _solve(fam, targets)
+        if got is None:
+            s0, s1, _, _ = fam.range()
+            best_pm = max(best_pm, float(np.max(fam.margins(
+                np.logspace(math.log10(s0), math.log10(s1), SWEEP_POINTS))[0])))
+            continue
+        x, pm, fc, on = got
+        net = StageNetwork(kind, {**base, **fam.values(np.array([x]), scalar=True)}, stage,
+                           load, lag_at)
+        notes = [NOTES[kind]]
+        if kind in ("lag", "lag-lead"):
+            notes.append(lag_cost_note(net))
+        if not on:
+            notes.append(f"{kind}: no setting lands on the {targets.phase_margin_deg:g}° target "
+                         f"(the margin jumps past it, or every setting leaves more); kept PM "
+                         f"{pm:.1f}°")
+        found.append(StageSynthesis(net, {fam.range()[2]: x} | ({"option": opt} if opt else {}),
+                                    on, pm, fc, tuple(notes)))
+        if on:
+            break
+    if found:
+        return next((s for s in found if s.on_target), found[0])
+    raise DesignError(f"the {kind} network reaches at most PM {best_pm:.1f}° on this plant "
+                      f"(target {targets.phase_margin_deg:g}°, GM {targets.gain_margin_db:g} dB)")
+
+
+#: The order networks are tried in by :func:`choose_network` (fewest parts, least cost first).
+AUTO_ORDER = ("lead", "lag-lead", "lag", "isolation", "snubber")
+
+
+def snubber_applies(load: StageLoad, fc_hz: float) -> bool:
+    """True when the load capacitor's ESR is too low to help: its zero lies above ``fc_hz``
+    (the crossover plain feedback would have) or the capacitor has no ESR."""
+    fz = load.esr_zero_hz()
+    return load.known and (fz is None or fz > fc_hz)
+
+
+def choose_network(lp: LoopPlant, targets: Targets, *, gain: float, stage: str = "noninverting",
+                   load: StageLoad | None = None, r_level: float = 10e3,
+                   lag_at: str = "across") -> tuple[StageSynthesis, list[str]]:
+    """Pick the network for ``--network auto`` and say why.
+
+    Evidence weighed, in order: (1) plain feedback already meets the targets
+    -> no network; (2) each network of :data:`AUTO_ORDER` that can be placed
+    (isolation and snubber only when Ro and CL are known, the snubber only
+    when the ESR zero lies above the plain crossover) and lands on the
+    phase-margin target; among those, the highest crossover (the fastest
+    closed loop and load-step recovery) wins, ties to the earlier in the
+    order; (3) if none lands on target, the highest-crossover one that meets it.
+
+    Returns
+    -------
+    synthesis, reasons
+        ``reasons`` holds one line per network considered.
+    """
+    load = load or StageLoad()
+    reasons: list[str] = []
+    try:
+        plain = synthesize_stage("plain", lp, targets, gain=gain, stage=stage, load=load,
+                                 r_level=r_level, lag_at=lag_at)
+        return plain, [f"plain feedback already gives PM {plain.pm_deg:.1f}° at "
+                       f"{plain.crossover_hz:.4g} Hz: no compensation network needed"]
+    except DesignError as e:
+        reasons.append(f"plain: {e}")
+    f = stage_grid(lp)
+    pm0, _, _, fc0 = _margins(lp, f, StageNetwork("plain", gain_resistors(gain, stage, r_level),
+                                                  stage, load, lag_at), None)
+    good: list[StageSynthesis] = []
+    for kind in AUTO_ORDER:
+        if kind in ("isolation", "snubber") and not load.known:
+            reasons.append(f"{kind}: not tried (needs --output-resistance and --load-cap)")
+            continue
+        if kind == "snubber" and not snubber_applies(load, float(fc0[0])):
+            reasons.append(f"snubber: not needed, the capacitor's ESR zero "
+                           f"({load.esr_zero_hz():.4g} Hz) lies below the crossover")
+            continue
+        try:
+            s = synthesize_stage(kind, lp, targets, gain=gain, stage=stage, load=load,
+                                 r_level=r_level, lag_at=lag_at)
+        except DesignError as e:
+            reasons.append(f"{kind}: {e}")
+            continue
+        good.append(s)
+        reasons.append(f"{kind}: PM {s.pm_deg:.1f}° at {s.crossover_hz:.4g} Hz"
+                       + ("" if s.on_target else " (not on target)"))
+    if not good:
+        raise DesignError("no stage network meets the targets on this plant: "
+                          + "; ".join(reasons))
+    pool = [s for s in good if s.on_target] or good
+    best = max(pool, key=lambda s: (s.crossover_hz, -AUTO_ORDER.index(s.network.kind)))
+    reasons.append(f"chosen: {best.network.kind}, the highest crossover "
+                   f"({best.crossover_hz:.4g} Hz) among the networks that "
+                   + ("land on the target" if best.on_target else "meet the target"))
+    return best, reasons
