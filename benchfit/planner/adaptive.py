@@ -68,6 +68,9 @@ POINTS_PER_ROUND = 8
 #: Halvings of the level the auto-level search may make.
 MAX_HALVINGS = 4
 
+#: Purposes of the placement rules that must be satisfied before the capture may stop.
+RULE_PURPOSES = ("crossing", "resonance", "residual", "again")
+
 PRECISION = "precision reached"
 MAX_POINTS = "max points"
 MAX_TIME = "max time"
@@ -240,25 +243,56 @@ class AdaptiveResult:
                 + (f"\nlinearity: {self.linearity['message']}" if self.linearity else ""))
 
 
-#: A real pole this far below the bottom of the band acts there as an integrator.
-SLOW_POLE_FACTOR = 10.0
-
-
 def slow_pole_as_integrator(fit, f_min_hz: float) -> bool:
-    """True when the fit holds a real pole far below the band, to be refitted as an integrator.
+    """True when the fit holds a real pole below the band, a candidate for an integrator.
 
-    Evidence weighed: the fit's real pole frequencies against the band.  Below
-    its pole frequency a real pole is flat, above it falls as 1/f; a pole
-    below ``f_min_hz / SLOW_POLE_FACTOR`` therefore looks like an integrator
-    (1/f, −90°) over the whole band to within a few degrees, and its frequency
-    and the gain cannot be told apart (their covariance is singular).  A loop
-    gain with an integrator measured in noise often ends so; fitting the
-    integrator as such removes the unidentifiable pair.
+    Evidence weighed: the fit's real pole frequencies against the band.  Above
+    its frequency a real pole falls as 1/f with a phase heading for −90°, so
+    one below ``f_min_hz`` looks over the band much like an integrator, and
+    its frequency and the gain can hardly be told apart (their covariance is
+    near singular, draws cross into the right half-plane).  A loop gain with
+    an integrator measured in noise often ends so.  The caller refits with one
+    more integrator and keeps that fit only when its residual stays within the
+    noise and its parameters are identified.
     """
     for p in fit.parameters:
-        if p.name.startswith("pole") and p.name.endswith("_hz") and 0 < p.value < f_min_hz / SLOW_POLE_FACTOR:
+        if p.name.startswith("pole") and p.name.endswith("_hz") and 0 < p.value < f_min_hz:
             return True
     return False
+
+
+#: Orders below the automatic choice tried by simpler_fit.
+SIMPLER_STEPS = 3
+
+
+def simpler_fit(resp, result, resid, identified, *, integrators: int = 0):
+    """The fit to decide the margins with: ``result``, or a lower order whose parameters
+    the data identify.
+
+    Evidence weighed: whether the fit's covariance yields a σ (``identified``:
+    a usable covariance whose draws the data do not contradict) and whether
+    the residual stays within the noise (:func:`fit_adequate`).  The automatic
+    order may keep a pole or pair that lowers the residual a little but that
+    the data cannot place (two real poles at one frequency, a pair far outside
+    the points); the margins do not need it, and its degenerate covariance
+    hides the σ of those that matter.  Orders 1..SIMPLER_STEPS below are tried,
+    highest first; the first that is identified and adequate wins, otherwise
+    ``result`` stays.
+    """
+    from benchfit.fitting import fit
+
+    order = int(result.stats.get("order") or 0) - int(result.integrators)
+    for k in range(1, SIMPLER_STEPS + 1):
+        if order - k < 1:
+            break
+        try:
+            cand = fit(resp, order=order - k, integrators=integrators)
+        except FitError:
+            continue
+        r = np.abs(resp.response - cand.response(resp.freq_hz)) / resp.stddev
+        if fit_adequate(cand, r) and identified(cand, resp):
+            return cand, r
+    return result, resid
 
 
 #: The planner's fit starts this many decades below the lowest deciding frequency.
@@ -311,15 +345,20 @@ def gm_known(gm_db: float, gm_sigma_db: float, settings: AdaptiveSettings) -> bo
 
 
 def stop_reason(pm_sigma_deg: float, gm_db: float, gm_sigma_db: float, adequate: bool,
-                settings: AdaptiveSettings, points: int, elapsed_s: float) -> str | None:
+                settings: AdaptiveSettings, points: int, elapsed_s: float,
+                pending: int = 0) -> str | None:
     """Why the capture should stop now, or None to go on.
 
     Evidence weighed, first match wins: both margins known (the PM to the asked
     σ, the GM as :func:`gm_known` says) from an adequate fit
-    (:func:`fit_adequate`) -> :data:`PRECISION`; the point
+    (:func:`fit_adequate`), with no point still asked for by the crossing,
+    resonance, residual or buried-point rules (``pending``: a σ from a fit
+    that has not yet seen both sides of a crossing or the width of a resonance
+    speaks only for the model's shape) -> :data:`PRECISION`; the point
     budget spent -> :data:`MAX_POINTS`; the time budget spent -> :data:`MAX_TIME`.
     """
-    if adequate and pm_sigma_deg <= settings.pm_sigma_deg and gm_known(gm_db, gm_sigma_db, settings):
+    if (adequate and pending == 0 and pm_sigma_deg <= settings.pm_sigma_deg
+            and gm_known(gm_db, gm_sigma_db, settings)):
         return PRECISION
     if points >= settings.max_points:
         return MAX_POINTS
@@ -547,13 +586,25 @@ class AdaptiveCapture:
         if self.fit_from_hz is not None and np.sum(resp.freq_hz >= self.fit_from_hz) >= 8:
             resp = resp.band(self.fit_from_hz, None)
         result = fit(resp, integrators=self.integrators if self.integrators is not None else "auto")
-        if not covariance_usable(result) and slow_pole_as_integrator(result, resp.f_min_hz):
-            again = fit(resp, integrators=result.integrators + 1)
-            if covariance_usable(again):
-                result = again
-                self.integrators = again.integrators
         resid = np.abs(resp.response - result.response(resp.freq_hz)) / resp.stddev
+        if slow_pole_as_integrator(result, resp.f_min_hz) and not self._identified(result, resp):
+            again = fit(resp, integrators=result.integrators + 1)
+            r2 = np.abs(resp.response - again.response(resp.freq_hz)) / resp.stddev
+            if fit_adequate(again, r2) and self._identified(again, resp):
+                result, resid = again, r2
+                self.integrators = again.integrators
+        if not self._identified(result, resp):
+            result, resid = simpler_fit(resp, result, resid, self._identified,
+                                        integrators=result.integrators)
         return resp, result, resid
+
+    def _identified(self, result, resp) -> bool:
+        """True when the draws of ``result`` give a σ (see simpler_fit)."""
+        if not covariance_usable(result):
+            return False
+        spread = margin_spread(result, *self._fit_band(resp), rng=np.random.default_rng(1),
+                               data=resp, draws=100)
+        return "contradict" not in spread.reason and "covariance" not in spread.reason
 
     def _linearity(self, crossover_hz: float, decisive: list[tuple[float, float]]) -> bool:
         """Run the check; True when the level changed (the sweep must be re-measured)."""
@@ -725,13 +776,12 @@ class AdaptiveCapture:
                 if self.s.linearity and self.linearity is None and math.isfinite(fc):
                     if self._linearity(fc, decisive):
                         break                      # new level: measure the sweep again
-                    continue                       # refit with the same points, now checked
+                todo = self._next_points(resp, result, spread, resid, decisive)
+                pending = sum(1 for _, why in todo if why in RULE_PURPOSES)
                 reason = stop_reason(spread.pm_sigma_deg, spread.margins.gain_margin_db, gm_sigma,
-                                     adequate, self.s,
-                                     len(self.rows), self.elapsed_s)
+                                     adequate, self.s, len(self.rows), self.elapsed_s, pending)
                 if reason:
                     return reason
-                todo = self._next_points(resp, result, spread, resid, decisive)
                 if not todo:
                     return NOTHING_LEFT
                 for f, why in todo:
