@@ -198,7 +198,7 @@ def run(args: argparse.Namespace) -> int:
     for w in result.warnings:
         warn(w)
     d = {**result.to_dict(), "points": result.points_saved, "instrument_time_s": clock() - t0}
-    emit(args, d, result.summary() + f" in {d['instrument_time_s']:.4g} s of instrument time")
+    emit(args, d, result.summary())
     if not result.complete:
         print(f"benchfit: {result.summary()}", file=sys.stderr)
         return 130

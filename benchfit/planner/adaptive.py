@@ -295,6 +295,38 @@ def simpler_fit(resp, result, resid, identified, *, integrators: int = 0):
     return result, resid
 
 
+def identified(result, resp) -> bool:
+    """True when the fit's parameter draws give the margins a σ: a usable covariance
+    whose draws the data do not mostly contradict (see benchfit.planner.uncertainty)."""
+    if not covariance_usable(result):
+        return False
+    spread = margin_spread(result, resp.f_min_hz, resp.f_max_hz, rng=np.random.default_rng(1),
+                           data=resp, draws=100)
+    return "contradict" not in spread.reason and "covariance" not in spread.reason
+
+
+def fit_for_margins(resp, integrators: int | None = None):
+    """The fit the margins are judged on, and ``|residual| / σ`` per point.
+
+    :func:`benchfit.fitting.fit` (integrators ``auto`` unless given), then, when
+    its parameters are not :func:`identified`: one more integrator when
+    :func:`slow_pole_as_integrator` says so (kept only if adequate and
+    identified), else :func:`simpler_fit`.  ``resp`` must carry a stddev column.
+    """
+    from benchfit.fitting import fit
+
+    result = fit(resp, integrators=integrators if integrators is not None else "auto")
+    resid = np.abs(resp.response - result.response(resp.freq_hz)) / resp.stddev
+    if identified(result, resp):
+        return result, resid
+    if slow_pole_as_integrator(result, resp.f_min_hz):
+        again = fit(resp, integrators=result.integrators + 1)
+        r2 = np.abs(resp.response - again.response(resp.freq_hz)) / resp.stddev
+        if fit_adequate(again, r2) and identified(again, resp):
+            return again, r2
+    return simpler_fit(resp, result, resid, identified, integrators=result.integrators)
+
+
 #: The planner's fit starts this many decades below the lowest deciding frequency.
 FIT_DECADES_BELOW = 1.5
 
@@ -433,6 +465,9 @@ class AdaptiveCapture:
         self.warnings: list[str] = []
         self.history: list[dict[str, Any]] = []
         self.linearity: lin.LinearityResult | None = None
+        self.last_linearity: lin.LinearityResult | None = None
+        self.linearity_notes: list[str] = []
+        self.halvings = 0
         self.stop_flag: _StopFlag | None = None
         self.band = (settings.start_hz, settings.stop_hz)
         self.model = None
@@ -575,7 +610,6 @@ class AdaptiveCapture:
     def _fit(self):
         """Fit the sweep so far; returns (response, fit result, |residual|/σ per point)."""
         from benchfit.data.response import FrequencyResponse
-        from benchfit.fitting import fit
 
         rows = self._sweep()
         if len(rows) < 2:
@@ -585,26 +619,10 @@ class AdaptiveCapture:
             stddev=self._stddev(rows), quantity=self.s.quantity)
         if self.fit_from_hz is not None and np.sum(resp.freq_hz >= self.fit_from_hz) >= 8:
             resp = resp.band(self.fit_from_hz, None)
-        result = fit(resp, integrators=self.integrators if self.integrators is not None else "auto")
-        resid = np.abs(resp.response - result.response(resp.freq_hz)) / resp.stddev
-        if slow_pole_as_integrator(result, resp.f_min_hz) and not self._identified(result, resp):
-            again = fit(resp, integrators=result.integrators + 1)
-            r2 = np.abs(resp.response - again.response(resp.freq_hz)) / resp.stddev
-            if fit_adequate(again, r2) and self._identified(again, resp):
-                result, resid = again, r2
-                self.integrators = again.integrators
-        if not self._identified(result, resp):
-            result, resid = simpler_fit(resp, result, resid, self._identified,
-                                        integrators=result.integrators)
+        result, resid = fit_for_margins(resp, self.integrators)
+        if result.integrators:
+            self.integrators = result.integrators
         return resp, result, resid
-
-    def _identified(self, result, resp) -> bool:
-        """True when the draws of ``result`` give a σ (see simpler_fit)."""
-        if not covariance_usable(result):
-            return False
-        spread = margin_spread(result, *self._fit_band(resp), rng=np.random.default_rng(1),
-                               data=resp, draws=100)
-        return "contradict" not in spread.reason and "covariance" not in spread.reason
 
     def _linearity(self, crossover_hz: float, decisive: list[tuple[float, float]]) -> bool:
         """Run the check; True when the level changed (the sweep must be re-measured)."""
@@ -628,24 +646,35 @@ class AdaptiveCapture:
         else:
             worst = max(changed, key=lambda c: abs(c.change_db))
             if math.isnan(lo):
-                span = f"not linear even at {ref / 2:g} V (the lowest level tested)"
-                cand = ref / 4
+                span = f"not linear at {ref:g} V: already {ref / 2:g} V reads differently"
             else:
                 span = f"linear from {lo:g} to {hi:g} V"
-                cand = hi if hi < ref * 2 else ref
             msg = (f"NOT linear: at {worst.level_v:g} V the response at {worst.freq_hz:.4g} Hz changed "
                    f"by {worst.change_db:+.2f} dB / {worst.change_deg:+.2f} deg (noise allows "
                    f"±{worst.allowed_db:.2f} dB); {span}")
-            if self.s.auto_level and (math.isnan(lo) or cand < ref):
-                new_level = cand
-                msg += f"; continuing at {new_level:g} V (--auto-level)"
-            elif not self.s.auto_level:
+            if math.isnan(lo) and self.s.auto_level:
+                if self.halvings < MAX_HALVINGS:
+                    new_level = ref / 2
+                    self.halvings += 1
+                    msg += f"; continuing at {new_level:g} V (--auto-level), checked again there"
+                else:
+                    msg += f"; still not linear after {MAX_HALVINGS} halvings of the level"
+                    self.warnings.append(msg)
+            elif math.isnan(lo):
                 msg += "; lower --level or pass --auto-level"
                 self.warnings.append(msg)
+            else:
+                msg += f"; continuing at {ref:g} V, inside it"
+        self.linearity_notes.append(msg)
         self.linearity = lin.LinearityResult(linear=not changed, linear_from_v=lo, linear_to_v=hi,
-                                             level_v=new_level, comparisons=tuple(comps), message=msg)
+                                             level_v=new_level, comparisons=tuple(comps),
+                                             message=" | ".join(self.linearity_notes))
         if new_level != self.level:
             self.level = new_level
+            self.linearity = None              # check again at the new level
+            self.last_linearity = lin.LinearityResult(
+                linear=False, linear_from_v=lo, linear_to_v=hi, level_v=new_level,
+                comparisons=tuple(comps), message=" | ".join(self.linearity_notes))
             return True
         return False
 
@@ -807,7 +836,8 @@ class AdaptiveCapture:
             crossover_hz=m.crossover_hz if m else nan, phase_crossover_hz=m.phase_crossover_hz if m else nan,
             stopped_because=stopped, rounds=rounds, level_v=self.level, settings=self.s.to_dict(),
             history=tuple(self.history),
-            linearity=self.linearity.to_dict() if self.linearity else None,
+            linearity=(self.linearity or self.last_linearity).to_dict()
+            if (self.linearity or self.last_linearity) else None,
             warnings=tuple(dict.fromkeys(self.warnings)),
             provenance=Provenance(step="adaptive_capture", sources=(self.resource,),
                                   settings={"profile": self.probe.profile.name, "out": str(self.out),

@@ -38,7 +38,7 @@ RESIDUAL_SIGMAS = 4.0
 DECIDING_GM_DB = 30.0
 #: Resonances where the model's |T| is more than this far from 0 dB (either way)
 #: move neither margin (common practice, no source).
-DECIDING_RESONANCE_DB = -40.0
+DECIDING_RESONANCE_DB = -20.0
 #: New points closer than this (decades) to a taken one are not worth taking.
 MIN_SPACING_DECADES = 0.004
 #: A further variance pick must remove at least this fraction of what remains.
