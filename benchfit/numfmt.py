@@ -35,6 +35,8 @@ _SYMBOLS = {"ohm": "Ω", "Ohm": "Ω", "ohms": "Ω", "deg": "°", "degree": "°",
             "1": "", "V/V": "V/V"}
 #: Significant figures of a measured or predicted value.
 DIGITS = 3
+#: Significant figures of a fitted parameter (its table, the fit report, the Q written on the fit picture).
+FIT_DIGITS = 4
 #: What a NaN reads as when the caller gives no reason.
 NOT_DEFINED = "not defined"
 INFINITE = "none (∞)"

@@ -52,6 +52,14 @@ load_step_trace.csv
     no time column (a 'Sample interval' line instead).  Channels ``Iout (A)``
     (noise 5 mA) and ``Vout AC (mV)`` (noise 0.3 mV).  Semicolon separator,
     decimal comma.
+refbuf_aol.csv
+    Open-loop gain (differential input to the output at the capacitor) of a
+    precision reference buffer for an ADC: op amp A0 = 3e5, 8 MHz gain-
+    bandwidth, second pole 25 MHz, an emitter-follower output stage (pole at
+    60 MHz, 4 Ω open-loop output resistance) driving a 22 µF ceramic reservoir
+    capacitor with 3 mΩ ESR (load pole ≈ 1.8 kHz, ESR zero ≈ 2.4 MHz).  The
+    stage is to run at a closed-loop gain of 2.5 (1 V → 2.5 V).  1 Hz–50 MHz,
+    361 points.  Noise 0.05 dB / 0.3°.  Comma separated, dB and unwrapped degrees.
 dialects/
     The same scenarios written in other dialects the readers accept: a
     whitespace file with a commented header, kHz, phase in radians and a
@@ -299,6 +307,46 @@ def gen_buffer(out: Path, scen: dict) -> None:
         "seed": 20240105}
 
 
+def refbuf_parts() -> dict:
+    return {"a0": 3e5, "gbw_hz": 8e6, "f_pole2_hz": 25e6, "f_follower_hz": 60e6,
+            "r_out_ohm": 4.0, "c_load_f": 22e-6, "esr_ohm": 0.003, "closed_loop_gain": 2.5}
+
+
+def refbuf_aol_tf(p: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Aol = A0/((1 + s/ω1)(1 + s/ω2)(1 + s/ωf)) · (ESR + 1/sC)/(Ro + ESR + 1/sC)."""
+    w1 = TWO_PI * p["gbw_hz"] / p["a0"]
+    den = np.polymul(np.polymul([1 / w1, 1], [1 / (TWO_PI * p["f_pole2_hz"]), 1]),
+                     [1 / (TWO_PI * p["f_follower_hz"]), 1])
+    c, esr, ro = p["c_load_f"], p["esr_ohm"], p["r_out_ohm"]
+    return (p["a0"] * np.array([esr * c, 1.0]),
+            np.polymul(den, [(ro + esr) * c, 1.0]))
+
+
+def gen_refbuf(out: Path, scen: dict) -> None:
+    """Open-loop gain of a precision reference buffer (op-amp + emitter follower) into 22 µF."""
+    p = refbuf_parts()
+    f = np.logspace(0, np.log10(50e6), 361)
+    num, den = refbuf_aol_tf(p)
+    h = evaluate(num, den, f)
+    rng = np.random.default_rng(20240108)
+    mag_db = 20 * np.log10(np.abs(h)) + rng.normal(0, 0.05, f.size)
+    ph = np.degrees(np.unwrap(np.angle(h))) + rng.normal(0, 0.3, f.size)
+    lines = ["# open-loop gain, reference buffer: op-amp + emitter follower into 22 uF (benchfit sample)",
+             "# measured in the loop (injection), differential input to output at the capacitor",
+             "Frequency (Hz),Gain (dB),Phase (deg)"]
+    lines += [f"{fi:.6e},{m:.4f},{a:.3f}" for fi, m, a in zip(f, mag_db, ph, strict=True)]
+    write(out / "refbuf_aol.csv", "\n".join(lines) + "\n")
+    scen["refbuf_aol.csv"] = {
+        "what": "open-loop gain Aol of a reference buffer (op-amp, emitter-follower output stage) "
+                "driving a 22 uF reservoir capacitor for an ADC; the stage is to be designed for a "
+                "closed-loop gain of 2.5", "quantity": "plant", "parts": p,
+        "noise": {"mag_db_std": 0.05, "phase_deg_std": 0.3},
+        "freq_hz": [float(f[0]), float(f[-1]), int(f.size)], "truth": zpk_dict(num, den),
+        "approx": {"load_pole_hz": 1 / (TWO_PI * (p["r_out_ohm"] + p["esr_ohm"]) * p["c_load_f"]),
+                   "esr_zero_hz": 1 / (TWO_PI * p["esr_ohm"] * p["c_load_f"])},
+        "seed": 20240108}
+
+
 def second_order_step(t: np.ndarray, zeta: float, wn: float) -> np.ndarray:
     """Unit step response of wn²/(s² + 2ζwn·s + wn²), zero before t = 0."""
     wd = wn * np.sqrt(1 - zeta ** 2)
@@ -364,7 +412,8 @@ def generate(out: Path = HERE) -> list[Path]:
     """Write every sample file under ``out``; return the paths written."""
     out = Path(out)
     scen: dict = {}
-    for gen in (gen_buck_plant, gen_buck_zout, gen_ldo, gen_buffer, gen_step, gen_load_step):
+    for gen in (gen_buck_plant, gen_buck_zout, gen_ldo, gen_buffer, gen_step, gen_load_step,
+                gen_refbuf):
         gen(out, scen)
     doc = {"about": "true models and settings of benchfit's sample data; written by generate.py",
            "units": "zeros and poles in rad/s ([re, im]); k in scipy's zpk convention; SI units",

@@ -2,13 +2,19 @@
 
 A hypothesis strategy turns valid file bytes into damaged ones: truncated,
 bytes flipped, columns swapped, huge numbers, NaN/inf, empty lines, mixed
-encodings, very long lines.  The fuzz tests feed the result to a reader and
-accept either a correct result or the project's own error.
+encodings, very long lines, and the shapes issue 21 found (thousands
+separators, a text line among the rows, '#N/A' rows, the SCPI 9.91E37 marker,
+a repeated row whose values disagree, header units nobody knows, a deeply
+nested JSON line, a file with no line ends, a huge cell, a 20 000-column header).
+The fuzz tests feed the result to a reader and accept either a correct result or
+the project's own error, within a time and memory bound (:func:`bounded`).
 """
 
 from __future__ import annotations
 
 import re
+import time
+import tracemalloc
 
 from hypothesis import strategies as st
 
@@ -17,6 +23,11 @@ from benchfit.errors import BenchfitError
 _NUMBER = re.compile(rb"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?")
 HUGE = [b"1e308", b"-1e308", b"1e309", b"-1e999", b"1e-400", b"9" * 400, b"0", b"-0", b"1e400"]
 NONFINITE = [b"nan", b"NaN", b"inf", b"-inf", b"Infinity", b"-NAN", b"1.#INF", b"#N/A", b""]
+SCPI = [b"9.91E+37", b"9.91E37", b"9.9E37", b"-9.9E+37"]
+TEXT_LINES = [b"Marker 1: 5 kHz", b"#N/A,#N/A,#N/A", b"#N/A;#N/A;#N/A", b"#VALUE!\t#VALUE!",
+              b"-- sweep paused --", b"END"]
+UNIT_WORDS = [(b"(Hz)", b"(furlongs)"), (b"(deg)", b"(grad)"), (b"[Hz]", b"[rad/s]"),
+              (b"(deg)", b"(rad)"), (b"(rad)", b"(deg)"), (b"(us)", b"(fortnights)")]
 STRANGE = ["\u00b0", "\u00b5", "\u2212", "\ufeff", "\u00e9", "\u0000", "\u202e", "\U0001f600", "\x1a"]
 
 
@@ -49,7 +60,9 @@ def mutation(draw, data: bytes, seps: tuple[bytes, ...] = (b",", b";", b"\t", b"
     """One to three damages applied to ``data``."""
     for _ in range(draw(st.integers(1, 3))):
         kind = draw(st.sampled_from(["truncate", "flip", "swap", "huge", "nonfinite", "empty_lines",
-                                     "encoding", "long_line", "delete_line", "duplicate_line"]))
+                                     "encoding", "long_line", "delete_line", "duplicate_line",
+                                     "thousands", "text_line", "scpi", "disagree", "unit_word",
+                                     "nested_json", "no_line_ends", "huge_cell", "wide_header"]))
         n = max(len(data), 1)
         if kind == "truncate":
             data = data[:draw(st.integers(0, n))]
@@ -93,11 +106,98 @@ def mutation(draw, data: bytes, seps: tuple[bytes, ...] = (b",", b";", b"\t", b"
             if lines:
                 del lines[draw(st.integers(0, len(lines) - 1))]
             data = b"\n".join(lines)
-        else:
+        elif kind == "duplicate_line":
             lines = data.split(b"\n")
             k = draw(st.integers(0, len(lines) - 1))
             data = b"\n".join(lines[:k + 1] + [lines[k]] + lines[k + 1:])
+        else:
+            data = _issue21(draw, kind, data, n)
     return data
+
+
+def _group(m: re.Match) -> bytes:
+    """'1234567.5' -> '1,234,567.5' (digits grouped in threes)."""
+    num = m.group(0)
+    whole, _, frac = num.partition(b".")
+    sign = whole[:1] if whole[:1] in (b"-", b"+") else b""
+    digits = whole[len(sign):]
+    groups = []
+    while len(digits) > 3:
+        groups.insert(0, digits[-3:])
+        digits = digits[:-3]
+    groups.insert(0, digits)
+    return sign + b",".join(groups) + (b"." + frac if frac else b"")
+
+
+def _issue21(draw, kind: str, data: bytes, n: int) -> bytes:
+    """The damages issue 21 reported, each as a generated case."""
+    if kind == "thousands":  # '1234.5' -> '1,234.5' in one line (or every line)
+        every = draw(st.booleans())
+        lines = data.split(b"\n")
+        pick = range(len(lines)) if every else [draw(st.integers(0, max(len(lines) - 1, 0)))]
+        for k in pick:
+            lines[k] = re.sub(rb"(?<![\d.eE+-])[-+]?\d{4,}(?:\.\d+)?(?![\deE])", _group, lines[k])
+        return b"\n".join(lines)
+    if kind == "text_line":
+        return _insert_at_line(data, draw(st.integers(0, 10_000)), draw(st.sampled_from(TEXT_LINES)))
+    if kind == "scpi":
+        return _replace_number(data, draw(st.integers(0, 10_000)), draw(st.sampled_from(SCPI)))
+    if kind == "disagree":  # a row repeated with its other numbers moved far off
+        lines = data.split(b"\n")
+        k = draw(st.integers(0, max(len(lines) - 1, 0)))
+        spans = [m.span() for m in _NUMBER.finditer(lines[k])]
+        row = lines[k]
+        for a, b in reversed(spans[1:]):
+            row = row[:a] + str(float(row[a:b]) + draw(st.sampled_from([10.0, 90.0, -45.0]))).encode() + row[b:]
+        return b"\n".join(lines[:k + 1] + [row] + lines[k + 1:])
+    if kind == "unit_word":
+        old, new = draw(st.sampled_from(UNIT_WORDS))
+        return data.replace(old, new, 1)
+    if kind == "nested_json":
+        depth = draw(st.sampled_from([100, 2_000, 20_000]))
+        line = b"# meta: " + b'{"a":' * depth + b"1" + b"}" * depth
+        return _insert_at_line(data, 1, line)
+    if kind == "no_line_ends":
+        return data.replace(b"\r", b"").replace(b"\n", draw(st.sampled_from([b"", b" ", b","]))) \
+            * draw(st.sampled_from([1, 50, 3_000]))
+    if kind == "huge_cell":
+        return _replace_number(data, draw(st.integers(0, 10_000)),
+                               draw(st.sampled_from([b"x", b"1", b"#"])) * draw(st.sampled_from([5_000, 60_000, 200_000])))
+    # wide_header: a names line of thousands of columns above the data
+    cols = draw(st.sampled_from([500, 20_000]))
+    sep = draw(st.sampled_from([b",", b";", b"\t"]))
+    return _insert_at_line(data, 0, sep.join(b"col%d" % k for k in range(cols)))
+
+
+#: Bounds per file: time (s) and traced memory above the file's own size.  Generous on
+#: purpose (a loaded two-core machine); they catch runaways such as the 7 GB, 600 s read
+#: of a one-line file, not ordinary slowness (benchmarks measure that).
+MAX_SECONDS = 20.0
+MAX_BYTES = 96 * 2**20
+BYTES_PER_BYTE = 60
+
+
+def bounded(call, size: int):
+    """Run ``call()`` with a time and memory bound; return its result.
+
+    Memory is what ``tracemalloc`` sees (Python objects and numpy buffers) at its peak,
+    which must stay below :data:`MAX_BYTES` plus :data:`BYTES_PER_BYTE` times the file size.
+    """
+    started = tracemalloc.is_tracing()
+    if not started:
+        tracemalloc.start()
+    tracemalloc.reset_peak()
+    t0 = time.perf_counter()
+    try:
+        return call()
+    finally:
+        elapsed = time.perf_counter() - t0
+        peak = tracemalloc.get_traced_memory()[1]
+        if not started:
+            tracemalloc.stop()
+        assert elapsed < MAX_SECONDS, f"read took {elapsed:.1f} s for a {size}-byte file"
+        limit = MAX_BYTES + BYTES_PER_BYTE * size
+        assert peak < limit, f"read peaked at {peak / 2**20:.0f} MiB for a {size}-byte file"
 
 
 def mutated(valid: st.SearchStrategy[bytes]) -> st.SearchStrategy[bytes]:
@@ -105,18 +205,26 @@ def mutated(valid: st.SearchStrategy[bytes]) -> st.SearchStrategy[bytes]:
     return valid.flatmap(lambda data: mutation(data))
 
 
-def expect_own_error(call, *, names: str | None = None):
-    """Run ``call()``; a BenchfitError is fine (and must say something useful), anything else fails.
+#: Longest error line a reader may print (a cell or header it quotes is cut).
+MAX_MESSAGE = 600
+
+
+def expect_own_error(call, *, names: str | None = None, size: int = 0):
+    """Run ``call()`` within :func:`bounded`; a BenchfitError is fine (and must say
+    something useful, in one readable line), anything else fails.
 
     Returns the result, or None when the reader refused the input.
     ``names``: a text the error message must contain (the file name or option).
+    ``size``: the file's size, for the memory bound.
     """
     try:
-        return call()
+        return bounded(call, size)
     except BenchfitError as e:
         msg = str(e)
         assert msg.strip(), "an error with an empty message"
         assert "Traceback" not in msg
+        assert "\n" not in msg, msg[:300]
+        assert len(msg) - len(names or "") < MAX_MESSAGE, msg[:300] + " ..."
         if names is not None:
             assert names in msg, f"error does not name {names!r}: {msg}"
         # "useful": longer than the bare location, says what was found or expected

@@ -160,7 +160,8 @@ def test_routine_simplifications_are_notes_not_warnings(result, tmp_path):
     # them is routine (a note in the report and the JSON), not something to act on.  A warning
     # stays for what needs the user (see test_cli_text_report_and_warnings_on_stderr).
     assert result.warnings == ()
-    assert any("above the band that the data do not need" in n for n in result.notes), result.notes
+    assert any("above the band that the data do not need" in n or "cost less than the noise" in n
+               for n in result.notes), result.notes
     assert "  note: " in result.report()
     p = tmp_path / "fit.json"
     result.to_json(p)

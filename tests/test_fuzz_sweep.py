@@ -128,7 +128,7 @@ def _read_touchstone(path, case):
 
 def _damaged(path, data, **options):
     path.write_bytes(data)
-    r = expect_own_error(lambda: read_sweep(path, **options), names=path.name)
+    r = expect_own_error(lambda: read_sweep(path, **options), names=path.name, size=len(data))
     if r is not None:
         _is_sane(r)
 

@@ -64,7 +64,7 @@ def _is_sane(tr: TimeTrace) -> None:
 
 def _damaged(path, data):
     path.write_bytes(data)
-    tr = expect_own_error(lambda: read_trace(path), names=path.name)
+    tr = expect_own_error(lambda: read_trace(path), names=path.name, size=len(data))
     if tr is not None:
         _is_sane(tr)
 

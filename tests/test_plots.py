@@ -171,7 +171,8 @@ def test_spread_histograms_counts_targets_and_yield():
     assert sum(p.get_height() for p in axes[0].patches) == 500
     assert sum(p.get_height() for p in axes[2].patches) == 497
     assert "yield 95.0 %" in fig.get_suptitle()
-    assert "3 draws: none" in " ".join(t.get_text() for t in axes[2].texts)
+    # said in words (issue 18 item 8): no phase crossing, so no gain margin
+    assert "3 draws: no phase crossing" in " ".join(t.get_text() for t in axes[2].texts)
     assert any(ln.get_xdata()[0] == 50 for ln in axes[0].get_lines())
 
 

@@ -250,3 +250,17 @@ def test_canonical_file_refuses_the_scpi_marker(tmp_path):
     p.write_text("# benchfit sweep v1\nfreq_hz,re,im\n10,1,0\n20,9.91e37,0\n")
     with pytest.raises(InputError, match="c.csv, line 4.*not-a-number marker"):
         read_sweep(p)
+
+
+def test_a_table_of_another_kind_after_the_data_is_named_not_read(tmp_path):
+    rows = _rows()
+    p = _write(tmp_path, "mk.csv", [HEAD, *rows, "", "Markers", "Name,Freq,Value", "M1,1000,-2.5"])
+    r = read_sweep(p)
+    assert len(r) == 101
+    assert any("3 lines of text after the last row (from line 104" in w for w in r.meta["warnings"])
+
+
+def test_unquoted_thousands_in_a_comma_file_are_an_error_that_says_so(tmp_path):
+    p = _write(tmp_path, "tc.csv", [HEAD, "100,-1,-5", "999,-2,-10", "1,000.5,-3,-20"])
+    with pytest.raises(InputError, match="line 4: 4 cells, expected 3.*thousands separator"):
+        read_sweep(p)

@@ -24,12 +24,12 @@ from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.sensing import Sensing
 from benchfit.loop.synthesis import Targets
+from benchfit.numfmt import db, deg, eng
 from benchfit.output.assemble import assemble
 from benchfit.output.report import render_html, render_pdf, write_report
 from benchfit.output.report_figures import report_figures
 from benchfit.output.report_inputs import ReportInputs
 from benchfit.output.spread_draws import spread_draws
-from benchfit.output.style import eng
 
 W = 2 * np.pi
 EVIL = "<script>alert(1)</script>.csv"
@@ -139,7 +139,8 @@ def test_part_list_and_margins_are_in_the_report(report, job):
     for name, value in d.ideal.network.parts.items():
         assert eng(value, "Ω" if name.startswith("R") else "F", 4) in words
     m = d.snapped.worst_margins()
-    assert f"{m.phase_margin_deg:.1f} °" in words and f"{m.gain_margin_db:.1f} dB" in words
+    # one spacing rule (benchfit.numfmt): "52.0°" without a space, "32.8 dB" with one (was "52.0 °")
+    assert deg(m.phase_margin_deg) in words and db(m.gain_margin_db) in words
     assert f"Yield {d.spread.yield_fraction * 100:.1f} %" in words
     assert "Plant fit" in words and "gain" in words   # parameter table
     for p in job["fit"].parameters:

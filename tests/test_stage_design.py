@@ -16,7 +16,8 @@ import pytest
 from benchfit.errors import DesignError, InputError
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.loopgain import LoopPlant
-from benchfit.loop.stage import StageDesign, closure_reading, crossing, design_stage, pick_snapped
+from benchfit.loop.stage import StageDesign, design_stage, pick_snapped
+from benchfit.loop.stage_crossing import closure_reading, crossing
 from benchfit.loop.stage_load import StageLoad
 from benchfit.loop.synthesis import Targets
 

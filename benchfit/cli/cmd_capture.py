@@ -23,6 +23,7 @@ from benchfit.cli.values import (
     value,
 )
 from benchfit.errors import InputError
+from benchfit.safety import CAUTION
 
 QUANTITY_CHOICES = ("plant", "loop", "closed", "impedance", "compensator", "unknown")
 #: longest simulated measurement time per point, s (a longer one only makes a test hang)
@@ -35,7 +36,8 @@ def register(subparsers) -> None:
         description="Configure a frequency-response analyzer with the commands of an instrument "
                     "profile, sweep (or step point by point), and save a canonical sweep CSV that "
                     "'benchfit fit' reads. Every finished segment is fsync'd to disk; --resume "
-                    "continues an interrupted capture. With --simulate no hardware is needed.")
+                    "continues an interrupted capture. With --simulate no hardware is needed.",
+        epilog=CAUTION)
     p.add_argument("resource", nargs="?", type=text, metavar="RESOURCE",
                    help="VISA resource, e.g. TCPIP0::192.168.1.20::5025::SOCKET (not with --simulate)")
     p.add_argument("--profile", type=text, metavar="NAME|FILE",

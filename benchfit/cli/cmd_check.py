@@ -33,8 +33,10 @@ def register(subparsers) -> None:
     p.add_argument("--design", required=True, type=text, metavar="JSON", help="design file from benchfit design")
     p.add_argument("--parts", type=text, metavar="R1=10k,C1=4.7n,...", help="parts to change (SI prefixes)")
     p.add_argument("--draws", type=count(0, MAX_DRAWS), default=0, metavar="N", help="Monte Carlo draws (default 0)")
-    p.add_argument("--tolerance", type=TOLERANCE, metavar="R%:C%", help="part tolerances in percent (default 1:10)")
-    p.add_argument("--seed", type=SEED, help="random seed for the Monte Carlo")
+    p.add_argument("--tolerance", type=TOLERANCE, metavar="R%:C%",
+                   help="part tolerances in percent (default: the design's own, from its Monte Carlo or "
+                        "its part series; the output says which)")
+    p.add_argument("--seed", type=SEED, help="random seed for the Monte Carlo (default: the design's)")
     add_json_flag(p)
     p.set_defaults(func=run)
 
@@ -58,6 +60,7 @@ def parse_parts(text: str | None) -> dict[str, float]:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.loop.checkdefaults import check_tolerances
     from benchfit.loop.design import Design, check_parts, with_parts
     from benchfit.loop.designfile import load_plant
 
@@ -67,12 +70,19 @@ def run(args: argparse.Namespace) -> int:
         corners = [load_plant(p, d.sensing) for p in args.plants]
     else:
         corners = list(d.corners)
-    tol = args.tolerance or (0.01, 0.10)
-    result = check_parts(corners, net, opamp=d.opamp, targets=d.targets, tolerances=tol,
-                         draws=args.draws, seed=args.seed,
+    tol = check_tolerances(d, args.tolerance, args.seed)
+    result = check_parts(corners, net, opamp=d.opamp, targets=d.targets, tolerances=(tol.r_tol, tol.c_tol),
+                         draws=args.draws, seed=tol.seed,
                          sources=tuple(args.plants) + (args.design,))
     if not args.json:
         for w in result.warnings:
             warn(w)
-    emit(args, result.to_dict(), result.report().split("\nwarning: ")[0])
+    out = result.report().split("\nwarning: ")[0]
+    if args.draws:
+        varied = d.spread is not None and d.spread.plant_uncertainty and not any(
+            getattr(lp, "draws", None) is not None for lp in corners)
+        out += f"\ndrew the parts with {tol.text()}" + (
+            "; the plant is not varied (the design file keeps no fit covariance; the design's own "
+            "spread varied it too)" if varied else "")
+    emit(args, {**result.to_dict(), "check_tolerances": tol.to_dict()}, out)
     return 0

@@ -1,7 +1,8 @@
 """``benchfit demo``: read every sample file, then take the sample scenario through the whole job.
 
 Stage 1 reads each file in the sample-data folder and says what the reader
-understood; stage 2 (:func:`benchfit.output.demo.run_demo`) fits the buck
+understood; stage 3 (:func:`benchfit.output.demo_stage.run_stage_demo`) designs the
+second scenario, a reference buffer's feedback network in the 1/β picture; stage 2 (:func:`benchfit.output.demo.run_demo`) fits the buck
 plant, designs a Type III network, spreads it over tolerances, predicts the
 step and output impedance, reads the present board's step, and writes the
 design, the fits, curves, a SPICE model and the HTML report into ``--out``.
@@ -96,9 +97,17 @@ def run(args: argparse.Namespace) -> int:
 
     result = run_demo(folder, args.out, scenario=DemoScenario(), pdf=args.pdf, log=log)
     data["job"] = result.to_dict()
+    if not quiet:
+        sys.stdout.write("\nThe second scenario: a reference buffer into 22 uF (op-amp stage, 1/beta)\n\n")
+    from benchfit.output.demo_stage import run_stage_demo
+
+    data["stage_job"] = run_stage_demo(folder, args.out, log=log)
     report = Path(result.files["report"]).resolve()
-    emit(args, data, f"\nwrote {len(result.files)} files into {result.out_dir}/ in {result.seconds:.1f} s\n"
-                     f"open the report: {report}")
+    stage_files = data["stage_job"]["files"]
+    emit(args, data, f"\nwrote {len(result.files)} files into {result.out_dir}/ in {result.seconds:.1f} s"
+                     f" and {len(stage_files)} into {Path(stage_files['stage_report']).parent}/\n"
+                     f"open the report: {report}\n"
+                     f"and the reference buffer's: {Path(stage_files['stage_report']).resolve()}")
     return 0
 
 

@@ -6,6 +6,7 @@ import argparse
 from typing import TYPE_CHECKING
 
 from benchfit.cli.common import add_json_flag, emit, warn
+from benchfit.cli.stage_design import add_stage_args, refuse_stray_stage_options, run_stage
 from benchfit.cli.values import (
     ANGLE,
     DECIBEL,
@@ -63,6 +64,7 @@ def register(subparsers) -> None:
                    help="design for more margin until this percentage of the Monte Carlo draws "
                         "meets the targets (e.g. 95; default: design at the targets)")
     p.add_argument("-o", "--output", type=text, metavar="JSON", help="write the design here")
+    add_stage_args(p)
     add_json_flag(p)
     p.set_defaults(func=run)
 
@@ -140,6 +142,9 @@ def spec_from_args(args: argparse.Namespace) -> DesignSpec:
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.stage:
+        return run_stage(args)
+    refuse_stray_stage_options(args)
     result = spec_from_args(args).run()
     if args.output:
         result.to_json(args.output)

@@ -28,6 +28,10 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.cli.stage_design import is_stage_design, run_stage_predict
+
+    if is_stage_design(args.design):
+        return run_stage_predict(args)
     from benchfit.loop.design import Design
     from benchfit.output.curves import write_curve_csv
     from benchfit.output.predicted import design_curve, read_model_or_sweep

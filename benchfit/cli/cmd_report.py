@@ -32,6 +32,10 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from benchfit.cli.stage_design import is_stage_design, run_stage_report
+
+    if is_stage_design(args.design):
+        return run_stage_report(args)
     from benchfit.data import read_sweep, read_trace
     from benchfit.fitting.result import FitResult
     from benchfit.loop.design import Design

@@ -7,6 +7,7 @@ import argparse
 from benchfit.cli.common import add_json_flag, emit
 from benchfit.cli.values import NON_NEGATIVE, VOLTAGE, text, value
 from benchfit.errors import InputError
+from benchfit.safety import CAUTION
 
 
 def register(subparsers) -> None:
@@ -16,7 +17,8 @@ def register(subparsers) -> None:
                     "scale it (time = first sample time + index x sample interval; volts = "
                     "code x volts per code + volts at code zero, or volts as sent) and save a "
                     "canonical trace CSV that 'benchfit step' reads. SCPI has no scope command "
-                    "tree, so copy the generic-scope profile and edit it for your scope.")
+                    "tree, so copy the generic-scope profile and edit it for your scope.",
+        epilog=CAUTION)
     p.add_argument("resource", nargs="?", type=text, metavar="RESOURCE", help="VISA resource (not with --simulate)")
     p.add_argument("--profile", type=text, metavar="NAME|FILE", help="scope profile (default generic-scope with --simulate)")
     p.add_argument("--channel", type=text, default="CH1", help="channel name for the profile's {channel} (default CH1)")

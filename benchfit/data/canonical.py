@@ -28,7 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
-from benchfit.data.quote import quote, quote_list
+from benchfit.data.quote import cut, quote, quote_list
 from benchfit.data.response import FrequencyResponse
 from benchfit.data.rows import marker_name, value_problem
 from benchfit.data.trace import TimeTrace
@@ -182,7 +182,7 @@ def read_canonical_sweep(path: str | os.PathLike, text: str | None = None) -> Fr
         i, j = np.argwhere(bad)[0]
         data_lines = [k + 1 for k in range(hline + 1, len(lines)) if lines[k].strip()]
         raise InputError(f"{cols[j]} value {a[i, j]:g} is not finite; expected a finite number",
-                         source=source, line=data_lines[int(i)], column=cols[j])
+                         source=source, line=data_lines[int(i)], column=cut(cols[j], 40))
     try:
         return FrequencyResponse(
             freq_hz=a[:, 0], response=a[:, 1] + 1j * a[:, 2],

@@ -192,14 +192,14 @@ def pair_traces(cols: list[Column]) -> tuple[list[TracePair], list[str]]:
                              early_extras if not pairs else []]
                 pairs.append(last_pair)
             elif c.role in waiting:
-                warnings.append(f"column {waiting[c.role].name!r} has no partner column; ignored")
+                warnings.append(f"column {quote(waiting[c.role].name)} has no partner column; ignored")
                 waiting[c.role] = c
             else:
                 waiting[c.role] = c
         elif c.role in ("coherence", "stddev", "weight"):
             (last_pair[3] if last_pair is not None else early_extras).append(c)
     for c in waiting.values():
-        warnings.append(f"column {c.name!r} has no partner column; ignored")
+        warnings.append(f"column {quote(c.name)} has no partner column; ignored")
     out = [TracePair(freq=p[0], first=p[1], second=p[2], extras=tuple(p[3])) for p in pairs if p[0]]
     return out, warnings
 

@@ -21,6 +21,10 @@ FLOOR_DB = 1.0
 FLOOR_DEG = 6.0
 #: How many times the sweep's own point-to-point scatter a disagreement must exceed.
 FACTOR = 10.0
+#: A disagreement beyond 6 dB or 30 degrees is reported whatever the scatter: on a coarse
+#: sweep the scatter is mostly the curve's own bending, not noise (common practice, no source).
+CEIL_DB = 6.0
+CEIL_DEG = 30.0
 
 
 @dataclass(frozen=True)
@@ -48,9 +52,9 @@ def disagreeing_repeats(f: np.ndarray, h: np.ndarray, lines: np.ndarray | None,
     (dB between the largest and smallest magnitude) and in phase (degrees between the
     extreme angles about their mean); against the sweep's own scatter (the median
     distance of each point of the averaged sweep from the mean of its neighbours, in
-    dB and degrees).  A repeat disagrees when its spread exceeds both :data:`FACTOR`
-    times that scatter and the floor (:data:`FLOOR_DB`, :data:`FLOOR_DEG`), in gain or
-    in phase.
+    dB and degrees).  A repeat disagrees when its spread, in gain or in phase, exceeds
+    :data:`FACTOR` times that scatter and the floor (:data:`FLOOR_DB`, :data:`FLOOR_DEG`),
+    or exceeds the ceiling (:data:`CEIL_DB`, :data:`CEIL_DEG`) whatever the scatter.
 
     Parameters
     ----------
@@ -77,8 +81,8 @@ def disagreeing_repeats(f: np.ndarray, h: np.ndarray, lines: np.ndarray | None,
     finite = np.isfinite(mean_db)
     noise_db = _scatter(mean_db[finite]) if finite.any() else 0.0
     noise_deg = _scatter(mean_deg)
-    lim_db = max(FLOOR_DB, FACTOR * noise_db)
-    lim_deg = max(FLOOR_DEG, FACTOR * noise_deg)
+    lim_db = min(max(FLOOR_DB, FACTOR * noise_db), CEIL_DB)
+    lim_deg = min(max(FLOOR_DEG, FACTOR * noise_deg), CEIL_DEG)
     out = []
     for u in np.flatnonzero(counts > 1):
         idx = np.flatnonzero(inv == u)
@@ -98,8 +102,9 @@ def repeats_warning(found: list[Disagreement], noise_db: float, noise_deg: float
         f"{x.freq_hz:g} Hz" + (f" (lines {', '.join(map(str, x.lines[:4]))})" if x.lines else "")
         + f": {x.spread_db:.3g} dB, {x.spread_deg:.3g}° apart" for x in worst[:3])
     more = f"; and {len(found) - 3} more" if len(found) > 3 else ""
-    return (f"{len(found)} repeated frequenc{'ies' if len(found) != 1 else 'y'} hold values that "
-            f"disagree far beyond the sweep's scatter ({noise_db:.2g} dB, {noise_deg:.2g}°): "
+    return (f"{len(found)} frequenc{'ies appear' if len(found) != 1 else 'y appears'} more than "
+            "once with values that disagree far beyond the sweep's scatter "
+            f"({noise_db:.2g} dB, {noise_deg:.2g}°): "
             f"{shown}{more}; they were averaged, which hides the disagreement: check the file "
             "(two measurements in one?)")
 

@@ -59,8 +59,9 @@ class BadRow:
 
     def error(self, source: str) -> InputError:
         """The InputError that names this row."""
+        column = cut(self.column, 40) if isinstance(self.column, str) else self.column
         return InputError(f"{self.reason}; {SKIP_HINT}", source=source, line=self.line,
-                          column=self.column)
+                          column=column)
 
     def to_dict(self) -> dict[str, Any]:
         return {"line": self.line, "text": self.text, "reason": self.reason,

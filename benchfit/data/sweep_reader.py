@@ -25,7 +25,7 @@ from benchfit.data.quote import cut, quote, quote_list
 from benchfit.data.repeats import order_and_average
 from benchfit.data.response import QUANTITIES, FrequencyResponse
 from benchfit.data.rows import BadRow, apply_row_rule, bad_row, skipped_warning
-from benchfit.data.table import Block, find_blocks
+from benchfit.data.table import Block, find_blocks, footer_warning
 from benchfit.data.touchstone import looks_like_touchstone, ports_from_name, read_touchstone
 from benchfit.data.units import freq_factor, freq_unit_name
 from benchfit.errors import InputError
@@ -110,16 +110,16 @@ def _decide_mag(values: np.ndarray, col: Column, override: str, lines: np.ndarra
             form = "db"
         else:
             form = "linear"
-            warnings.append(f"magnitude column {col.name!r} states no unit and has no negative "
+            warnings.append(f"magnitude column {quote(col.name)} states no unit and has no negative "
                             "value, so it was read as linear; use mag='db' (--mag-db) if it is dB")
     if form == "linear" and np.any(values < 0):
         i = int(np.flatnonzero(values < 0)[0])
         raise InputError(f"linear magnitude {values[i]:g} is negative; expected >= 0 (if the column "
-                         "is in dB, use --mag-db)", source=source, line=int(lines[i]), column=col.name)
+                         "is in dB, use --mag-db)", source=source, line=int(lines[i]), column=cut(col.name, 40))
     if form == "db" and values.size >= 3 and np.all(values > 0) and values.max() > 100 * values.min():
         # A dB column holding only positive values spread over decades is more likely a linear
         # magnitude (common practice, no source); a warning only.
-        warnings.append(f"magnitude column {col.name!r} is read as dB but looks linear (all values "
+        warnings.append(f"magnitude column {quote(col.name)} is read as dB but looks linear (all values "
                         f"between {values.min():.3g} and {values.max():.3g}); use --mag-linear if so")
     return form
 
@@ -142,7 +142,7 @@ def _decide_phase(values: np.ndarray, col: Column, override: str, warnings: list
         peak = float(np.max(np.abs(values)))
         if 0.2 < peak <= np.pi * 1.001:
             form = "rad"
-            warnings.append(f"phase column {col.name!r} states no unit and stays within ±π; read as "
+            warnings.append(f"phase column {quote(col.name)} states no unit and stays within ±π; read as "
                             "radians (use --phase-deg if it is degrees)")
         else:
             form = "deg"
@@ -210,6 +210,8 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
         warnings.append(f"the {blk.rows_in_block} rows at lines {lo}-{hi} were not read (no names "
                         "line of their own: a table of another kind?)")
     k, label, blk, pair = _select_trace(traces, trace, source, warnings)
+    if blk.footer:
+        warnings.append(footer_warning(blk))
     check_units(pair, freq_unit, phase, source, blk.header_line)
     data, lines_no = blk.data, blk.line_no
     f_unit = freq_unit_name(freq_unit or pair.freq.unit or "Hz", exact_case=freq_unit is None)

@@ -53,6 +53,8 @@ class Block:
         Rows of the block that could not be read, in line order (see :mod:`benchfit.data.rows`).
     footer
         Text lines after the last row that are not rows (an 'end of data' line).
+    footer_line
+        1-based line of the first of them.
     grouped
         True when numbers with thousands separators ('1,000.50') were read.
     """
@@ -66,6 +68,7 @@ class Block:
     notes: list[str] = field(default_factory=list)
     bad_rows: list[BadRow] = field(default_factory=list)
     footer: list[str] = field(default_factory=list)
+    footer_line: int | None = None
     grouped: bool = False
 
     @property
@@ -143,7 +146,12 @@ def _row_problem(cells: list[str], d: Dialect, ncols: int,
                  names: list[str] | None) -> tuple[list[float] | None, str | None, str | int | None]:
     """(values, None, None) for a good row, else (None, why, column)."""
     if len(cells) != ncols:
-        return None, f"{len(cells)} cells, expected {ncols} like the other rows", None
+        grouped = d.separator == "," and any(
+            re.fullmatch(r"[+-]?\d{1,3}", a) and re.fullmatch(r"\d{3}(?:\.\d*)?", b)
+            for a, b in zip(cells, cells[1:], strict=False))
+        return None, (f"{len(cells)} cells, expected {ncols} like the other rows"
+                      + (" (a thousands separator in a comma-separated file? quote such numbers"
+                         " or export them without one)" if grouped and len(cells) > ncols else "")), None
     values = []
     for j, c in enumerate(cells):
         try:
@@ -285,6 +293,46 @@ def _header(lines: list[str], above: list[int], d: Dialect, ncols: int) -> _Head
     return _Header(None, None, None, strip_comment_mark(lines[last].strip()), set())
 
 
+def _row_width(lines: list[str], idx: list[int], above: list[int], d: Dialect) -> int:
+    """The number of cells the rows of a run have: the most common among its first 50, or
+    a count at least half as common that the names line above it has (so that one row cut
+    short at the top does not hide the header)."""
+    counts = Counter(len(d.split(lines[k].strip())) for k in idx[:50]).most_common()
+    top = counts[0][1]
+    names_line = next((k for k in reversed(above) if not is_spreadsheet_error(lines[k].strip())), None)
+    if names_line is not None:
+        for width, count in counts:
+            if 2 * count < top:
+                break
+            cells = split_header(lines[names_line], d, width)
+            if cells is not None and _numeric_cells(cells, d) == 0:
+                return width
+    return counts[0][0]
+
+
+def _under_names(lines: list[str], kinds: list[str], between: list[int], d: Dialect, ncols: int
+                 ) -> tuple[list[int], list[int], _Header]:
+    """Split the lines above a run into (broken rows just above it, the rest, its header).
+
+    A line with a spreadsheet error ('#N/A,#N/A') is always a broken row; another line with
+    the rows' number of cells and a number among them is one only under a names line (above
+    numbers with no names, 'Start;10;Hz' is metadata).
+    """
+    tail: list[int] = []
+    while len(tail) < len(between):
+        k = between[-1 - len(tail)]
+        if kinds[k] != "text" or not _row_like(lines[k], d, ncols):
+            break
+        tail.insert(0, k)
+    above = between[:len(between) - len(tail)]
+    head = _header(lines, above, d, ncols)
+    if head.names is None:  # no names above: only spreadsheet errors are rows for sure
+        while tail and not is_spreadsheet_error(lines[tail[0]].strip()):
+            above.append(tail.pop(0))
+        head = _header(lines, above, d, ncols)
+    return tail, above, head
+
+
 @dataclass
 class _Pending:
     """A block being collected: its data lines, broken rows and the lines above."""
@@ -294,6 +342,8 @@ class _Pending:
     above: list[int]
     head: _Header
     bad_lines: list[int] = field(default_factory=list)
+    lone: bool = False  # one headerless row before any block: metadata if names follow
+    scan_from: int = 0  # first line of the text above it
 
 
 def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Block]:
@@ -320,23 +370,22 @@ def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Bloc
     cur: _Pending | None = None
     prev_end = 0
     for start, idx in runs:
-        ncols = Counter(len(d.split(lines[k].strip())) for k in idx[:50]).most_common(1)[0][0]
         between = [k for k in range(prev_end, start) if kinds[k] in ("text", "comment")]
-        # broken rows just above these numbers (under their names) belong to them
-        tail: list[int] = []
-        while len(between) - len(tail) > 1 and kinds[between[-1 - len(tail)]] == "text" \
-                and _row_like(lines[between[-1 - len(tail)]], d, ncols):
-            tail.insert(0, between[-1 - len(tail)])
-        above = between[:len(between) - len(tail)]
-        head = _header(lines, above, d, ncols)
-        if cur is not None and head.names is None and ncols == cur.ncols:
-            # no names between two runs of rows alike: one block, the text lines are broken rows
+        ncols = _row_width(lines, idx, between, d)
+        tail, above, head = _under_names(lines, kinds, between, d, ncols)
+        if cur is not None and cur.lone and head.names is not None:
+            # a lone numeric line before the first names was metadata ('401;points')
+            kinds[cur.idx[0]] = "text"
+            between = [k for k in range(cur.scan_from, start) if kinds[k] in ("text", "comment")]
+            tail, above, head = _under_names(lines, kinds, between, d, ncols)
+            cur = None
+        if cur is not None and head.names is None:
+            # no names between two runs of rows: one block; the text lines between are broken
+            # rows, and so are rows with another number of cells (a row cut short)
             cur.bad_lines.extend(k for k in between if kinds[k] == "text")
             cur.idx.extend(idx)
+            cur.lone = False
             prev_end = idx[-1] + 1
-            continue
-        if head.names is None and not tail and len(idx) == 1 and len(runs) > 1:
-            kinds[idx[0]] = "text"  # a lone numeric line among text: metadata ('401;points')
             continue
         if cur is not None:
             lead = []
@@ -349,14 +398,16 @@ def _blocks(lines: list[str], d: Dialect, source: str, exact: bool) -> list[Bloc
                 above = above[len(lead):]
                 head = _header(lines, above, d, ncols)
             blocks.append(_finish(cur, lines, d, exact, kinds, []))
-        cur = _Pending(idx=list(idx), ncols=ncols, above=above, head=head, bad_lines=list(tail))
+        cur = _Pending(idx=list(idx), ncols=ncols, above=above, head=head, bad_lines=list(tail),
+                       lone=not blocks and head.names is None and not tail and len(idx) == 1,
+                       scan_from=prev_end)
         prev_end = idx[-1] + 1
     if cur is None:
         raise InputError("no block of two or more numeric rows", source=source)
-    trailing = [k for k in range(prev_end, n) if kinds[k] in ("text", "comment")]
+    trailing = [k for k in range(prev_end, n) if kinds[k] == "text"]
     footer = []
-    for k in trailing:
-        if kinds[k] == "text" and _row_like(lines[k], d, cur.ncols):
+    for k in trailing:  # broken rows right after the last row; from the first other text on, a footer
+        if not footer and _row_like(lines[k], d, cur.ncols):
             cur.bad_lines.append(k)
         else:
             footer.append(k)
@@ -394,4 +445,12 @@ def _finish(cur: _Pending, lines: list[str], d: Dialect, exact: bool, kinds: lis
                  header_line=head.header_line, header_text=head.header_text,
                  notes=[x for x in notes if x], bad_rows=bad,
                  footer=[x for x in (strip_comment_mark(lines[k].strip()) for k in footer) if x],
-                 grouped=grouped)
+                 footer_line=footer[0] + 1 if footer else None, grouped=grouped)
+
+
+def footer_warning(block: Block) -> str:
+    """The warning that says text after the last row was not read (it is in the notes)."""
+    n = len(block.footer)
+    return (f"{n} line{'s' if n != 1 else ''} of text after the last row (from line "
+            f"{block.footer_line}: {quote(block.footer[0], 40)}) {'were' if n != 1 else 'was'} not "
+            "read as data; they are in the notes")

@@ -30,12 +30,13 @@ def printed_step(cells: list[str]) -> float:
     """The step of the last printed digit of numbers as written: 0.001 for '12.345',
     1e-13 for '1.000000000e-04', 1 for '17'; the coarsest among ``cells``.
 
-    Cells that are not plain numbers are passed over; 0.0 when none is.
+    Cells that are not plain numbers, and zeros (whose exponent says nothing:
+    '0.000000000e+00'), are passed over; 0.0 when none is left.
     """
     step = 0.0
     for c in cells:
         m = _PRINTED.match(c.strip())
-        if m:
+        if m and any(ch in "123456789" for ch in c.lower().split("e")[0]):
             step = max(step, 10.0 ** (int(m.group(2) or 0) - len(m.group(1) or "")))
     return step
 
@@ -48,6 +49,16 @@ def duplicate_rows(data: np.ndarray) -> np.ndarray:
     return np.flatnonzero(same) + 1
 
 
+def straight_line(t: np.ndarray) -> tuple[float, float]:
+    """(step, start) of the least-squares line through ``t`` against the sample index
+    (closed form: no rank warning on a degenerate axis)."""
+    k = np.arange(t.size, dtype=float)
+    km = k.mean()
+    var = float(np.sum((k - km) ** 2))
+    slope = float(np.sum((k - km) * (t - t.mean())) / var) if var > 0 else 0.0
+    return slope, float(t.mean() - slope * km)
+
+
 def rounding_explains_repeats(t: np.ndarray, resolution: float) -> bool:
     """True when repeated time stamps come from printing too few digits.
 
@@ -57,7 +68,7 @@ def rounding_explains_repeats(t: np.ndarray, resolution: float) -> bool:
     still repeat (a record with every time written twice) are not explained.
     """
     k = np.arange(t.size)
-    slope, start = np.polyfit(k, t, 1)
+    slope, start = straight_line(t)
     step = float(np.min(np.diff(t)[np.diff(t) > 0])) if np.any(np.diff(t) > 0) else 0.0
     res = max(resolution, step)
     uniform = start + slope * k
@@ -90,19 +101,23 @@ def time_axis_findings(t: np.ndarray, line_no: np.ndarray, resolution: float) ->
         return out
     med = float(np.median(steps))
     slack = 2 * resolution + 1e-9 * float(np.max(np.abs(t)))
-    gaps = np.flatnonzero(steps > GAP_FACTOR * med + slack)
     # runs of alike steps: a run ends where a step differs from the one before beyond the digits
-    is_gap = np.zeros(steps.size, dtype=bool)
-    is_gap[gaps] = True
     differs = np.abs(np.diff(steps)) > slack + 0.002 * steps[:-1]
-    cut_at = np.flatnonzero(differs | is_gap[1:] | is_gap[:-1]) + 1
-    bounds = np.concatenate(([0], cut_at, [steps.size]))
-    runs = [(int(a), int(b - a), float(np.median(steps[a:b])))
-            for a, b in zip(bounds[:-1], bounds[1:], strict=True) if b > a and not is_gap[a]]
-    long_runs = [r for r in runs if r[1] >= MIN_RUN]
-    changes = [(a, b) for a, b in zip(long_runs, long_runs[1:], strict=False)
-               if abs(a[2] - b[2]) > slack + 0.01 * min(a[2], b[2])]
-    if gaps.size and len(gaps) <= steps.size // 2:
+    bounds = np.concatenate(([0], np.flatnonzero(differs) + 1, [steps.size]))
+    in_long = np.zeros(steps.size, dtype=bool)
+    long_runs = []  # (first step, count, step)
+    for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
+        if hi - lo >= MIN_RUN:
+            in_long[lo:hi] = True
+            long_runs.append((int(lo), int(hi - lo), float(np.median(steps[lo:hi]))))
+    changes = [(x, y) for x, y in zip(long_runs, long_runs[1:], strict=False)
+               if abs(x[2] - y[2]) > slack + 0.01 * min(x[2], y[2])]
+    # a long step that is not part of a steady stretch of such steps is a gap
+    long_step = steps > GAP_FACTOR * med + slack
+    if changes:
+        long_step &= ~in_long
+    gaps = np.flatnonzero(long_step)
+    if gaps.size:
         i = int(gaps[0])
         out.append(f"the time column jumps by {steps[i]:.4g} s ({steps[i] / med:.3g} sample "
                    f"intervals of {med:.4g} s) at line {int(line_no[i + 1])}"

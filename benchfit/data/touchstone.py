@@ -26,6 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from benchfit.data.quote import cut, quote
+from benchfit.data.rows import is_marker, value_problem
 from benchfit.data.units import freq_to_hz
 from benchfit.errors import InputError
 
@@ -113,15 +115,15 @@ def _options(line: str, source: str, lineno: int) -> dict:
             try:
                 opts["r_ohm"] = float(toks[i + 1])
             except ValueError:
-                raise InputError(f"option line: reference resistance {toks[i + 1]!r} is not a number",
+                raise InputError(f"option line: reference resistance {quote(toks[i + 1])} is not a number",
                                  source=source, line=lineno) from None
             if not (np.isfinite(opts["r_ohm"]) and opts["r_ohm"] > 0):
-                raise InputError(f"option line: reference resistance {toks[i + 1]} must be a "
+                raise InputError(f"option line: reference resistance {cut(toks[i + 1])} must be a "
                                  "finite number > 0", source=source, line=lineno)
             i += 1
         else:
             raise InputError(
-                f"unknown option {toks[i]!r} in the option line; expected a frequency unit "
+                f"unknown option {quote(toks[i])} in the option line; expected a frequency unit "
                 "(Hz kHz MHz GHz), a parameter (S Y Z H G), a format (MA RI DB) or 'R <ohms>'",
                 source=source, line=lineno)
         i += 1
@@ -131,7 +133,7 @@ def _options(line: str, source: str, lineno: int) -> dict:
 def _param_index(param: str, ports: int, kind: str, source: str) -> tuple[int, int, str]:
     m = re.fullmatch(r"\s*([SYZHG])?(\d)(\d)\s*", param, re.IGNORECASE)
     if not m:
-        raise InputError(f"{param!r} is not a parameter name; expected e.g. S21 or S11", source="--param")
+        raise InputError(f"{quote(param)} is not a parameter name; expected e.g. S21 or S11", source="--param")
     letter = (m.group(1) or kind).upper()
     if letter != kind:
         raise InputError(f"{source} holds {kind} parameters; asked for {param!r} "
@@ -150,7 +152,7 @@ def _fast_table(lines: list[str], m: int) -> np.ndarray | None:
     except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
         return None
     table = frame.to_numpy(dtype=float)
-    if table.shape != (len(lines), m) or not np.all(np.isfinite(table)):
+    if table.shape != (len(lines), m) or not np.all(np.isfinite(table)) or np.any(is_marker(table)):
         return None
     return table
 
@@ -170,10 +172,11 @@ def _slow_table(lines: list[str], line_no: list[int], ports: int, m: int,
             try:
                 v = float(t)
             except ValueError:
-                raise InputError(f"non-numeric value {t!r}; expected a number", source=source,
+                raise InputError(f"non-numeric value {quote(t)}; expected a number", source=source,
                                  line=k) from None
-            if not np.isfinite(v):
-                raise InputError(f"value {t!r} is not finite", source=source, line=k)
+            why = value_problem(t, v)  # not finite, or a SCPI 9.91E37 / 9.9E37 marker
+            if why:
+                raise InputError(why, source=source, line=k)
             values.append(v)
             where.append(k)
         counts.append(len(toks))
@@ -231,7 +234,7 @@ def read_touchstone(text: str, source: str, *, param: str | None = None,
                 opts = _options(s, source, k)
             continue  # later option lines are ignored, as the standard says
         if s[0] == "[":
-            raise InputError(f"Touchstone 2 keyword {s.split()[0]!r}; only version 1 files are read",
+            raise InputError(f"Touchstone 2 keyword {quote(s.split()[0])}; only version 1 files are read",
                              source=source, line=k)
         data_lines.append(s)
         data_no.append(k)

@@ -8,6 +8,7 @@ from typing import Any
 
 import numpy as np
 
+from benchfit.data.quote import quote_list
 from benchfit.errors import InputError
 from benchfit.fileio import read_json, write_json_atomic
 from benchfit.provenance import Provenance
@@ -85,13 +86,14 @@ class TimeTrace:
             i = int(which)
             if 0 <= i < len(names):
                 return self.channels[names[i]]
-            raise InputError(f"channel index {i} out of range; the trace has {names}", source="--channel")
+            raise InputError(f"channel index {i} out of range; the trace has {quote_list(names)}",
+                             source="--channel")
         if which in self.channels:
             return self.channels[which]
         low = {n.lower(): n for n in names}
         if which.lower() in low:
             return self.channels[low[which.lower()]]
-        raise InputError(f"no channel {which!r}; the trace has {names}", source="--channel")
+        raise InputError(f"no channel {which!r}; the trace has {quote_list(names)}", source="--channel")
 
     def to_dict(self) -> dict[str, Any]:
         return {

@@ -21,11 +21,12 @@ from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_tra
 from benchfit.data.dialect import Dialect, load_text, sniff
 from benchfit.data.quote import cut, quote
 from benchfit.data.rows import BadRow, apply_row_rule, bad_row, skipped_warning
-from benchfit.data.table import Block, find_blocks
+from benchfit.data.table import Block, find_blocks, footer_warning
 from benchfit.data.timing import (
     duplicate_rows,
     printed_step,
     rounding_explains_repeats,
+    straight_line,
     time_axis_findings,
 )
 from benchfit.data.trace import TimeTrace
@@ -207,7 +208,7 @@ def _check_time(t: np.ndarray, line_no: np.ndarray, resolution: float, source: s
     if np.all(steps >= 0) and t[-1] > t[0] and rounding_explains_repeats(t, resolution):
         # Repeated times: the export printed too few digits for the sample interval.
         k = np.arange(t.size)
-        slope, start = np.polyfit(k, t, 1)
+        slope, start = straight_line(t)
         warnings.append("time column repeats values (printed with too few digits); rebuilt an "
                         "evenly spaced time axis fitted to the printed times")
         return start + slope * k
@@ -314,6 +315,8 @@ def _read_trace(path, channel, *, columns, time_unit, sample_interval_s, skip_ba
         names = ["time" if i == time_col else f"ch{i + 1 - (time_col is not None)}"
                  for i in range(ncols)]
     block, skipped = _row_rule(block, time_col, lines, skip_bad_rows, source, warnings)
+    if block.footer:
+        warnings.append(footer_warning(block))
     meta_keys = _metadata(block.notes, d)
     time_cells = []
     if time_col is not None:  # the time column as written, for its print step (a sample)

@@ -63,7 +63,7 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
     if ref.uncertainty_note:
         warnings.append(ref.uncertainty_note)
     for p in params:
-        if p.name.endswith("_hz") and (abs(p.value) < 0.9 * f[0] or abs(p.value) > 1.1 * f[-1]):
+        if p.name.endswith("_hz") and not p.fixed and poorly_identified(p, f[0], f[-1]):
             warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "
                             f"{f[0]:.4g}..{f[-1]:.4g} Hz: poorly identified")
     fl = np.abs(att.vf.flipped) * att_scale
@@ -99,6 +99,27 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
         covariance=cov, correlation=corr, integrators=st.integrators,
         provenance=resp.provenance.derive("fit", settings),
     )
+
+
+#: A frequency outside the band whose σ exceeds this fraction of it is poorly identified.
+LOOSE = 0.2
+
+
+def poorly_identified(p: Parameter, f_min: float, f_max: float) -> bool:
+    """True for a frequency outside the band (by 10 %) whose σ is undetermined, or over
+    :data:`LOOSE` of the value below the band.
+
+    Above the band a finite but large σ gets a note instead
+    (:func:`benchfit.fitting.pruning.loose_notes`: the data need the group);
+    one located to a few percent by its effect in the band is not a warning.
+    """
+    v = abs(p.value)
+    if f_min * 0.9 <= v <= 1.1 * f_max:
+        return False
+    sd = p.stderr
+    if sd is None or not np.isfinite(sd):
+        return True
+    return bool(v < f_min and sd > LOOSE * v)
 
 
 def residual_warnings(ref: Refined, chi: float) -> list[str]:

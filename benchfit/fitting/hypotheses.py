@@ -21,12 +21,26 @@ from benchfit.fitting.delay import (
     refine_delay,
 )
 from benchfit.fitting.order import CHI_OK, Attempt, Context, attempt, choose_order, max_order, polish
-from benchfit.fitting.groups import conform
-from benchfit.fitting.parameters import Structure, from_zpk
+from benchfit.fitting.groups import (
+    conform,
+    dropped_phase_as_delay,
+    groups_above,
+    in_groups,
+    without,
+)
+from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk
 from benchfit.fitting.problem import SCAN_POINTS, Problem
 from benchfit.fitting.pruning import pruned
 from benchfit.fitting.refine import Refined
-from benchfit.fitting.selection import CLOSE_CALL, bic, bic_floor, delay_worth_testing, screen
+from benchfit.fitting.selection import (
+    CLOSE_CALL,
+    bic,
+    bic_floor,
+    delay_worth_testing,
+    drop_allowed,
+    prunable,
+    screen,
+)
 from benchfit.fitting.vectfit import vf_to_zpk
 
 #: When the no-delay scan's first order already reaches the floor, it restarts this
@@ -113,14 +127,16 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
     return out, scan
 
 
-def start(pb: Problem, att: Attempt, refit) -> Hypothesis:
+def start(pb: Problem, att: Attempt, refit, idx: np.ndarray | None = None) -> Hypothesis:
     """VF attempt -> physical parameters -> a first, capped refinement (and notes).
 
-    Every pole and zero vector fitting found is kept, also far above the band:
-    whether the data need it is the pruning's question (:func:`pruned`), never
-    decided here.  The structure is conformed to the parameters the user fixes
-    or bounds (:func:`benchfit.fitting.groups.conform`).  ``refit`` refines on
-    the points the scans used.
+    No pole or zero vector fitting found is dropped unconditionally, however
+    far above the band: those beyond :data:`FAR` × f_max go before the first
+    refinement only when the drop test passes on the start's own values
+    (:func:`drop_far`), the others are the pruning's question (:func:`pruned`).
+    The structure is conformed to the parameters the user fixes or bounds
+    (:func:`benchfit.fitting.groups.conform`).  ``refit`` refines on the points
+    ``idx`` the scans used (all when None).
     """
     ctx = pb.ctx
     m, scale = ctx.integrators, ctx.scale
@@ -130,8 +146,52 @@ def start(pb: Problem, att: Attempt, refit) -> Hypothesis:
     has_delay = fit_delay or "delay_s" in pb.fixed
     st, v0 = from_zpk(zeros, poles, k_h, att.tau_s, integrators=m, delay=has_delay)
     st, v0 = conform(st, v0, pb.fixed, pb.bounds, order_given=pb.order != "auto")
+    st, v0, notes = drop_far(pb, st, v0, idx)
     # Capped: spurious zeros above the band make it slow, and they are pruned next.
-    return Hypothesis(att, st, refit(st, v0, max_nfev=40), [])
+    return Hypothesis(att, st, refit(st, v0, max_nfev=40), notes)
+
+
+#: Groups beyond this multiple of the top frequency are tested for removal before the
+#: first refinement (they slow it down: a zero at 1e4 × f_max has a Jacobian column of
+#: almost nothing).
+FAR = 3.0
+
+
+def drop_far(pb: Problem, st: Structure, values: np.ndarray, idx: np.ndarray | None
+             ) -> tuple[Structure, np.ndarray, list[str]]:
+    """The start without its groups far above the band, when the data allow it.
+
+    Evidence weighed: the χ² of the start's values as they are, with and
+    without every group beyond :data:`FAR` × f_max (of the kinds
+    :func:`benchfit.fitting.selection.prunable` allows), by
+    :func:`benchfit.fitting.selection.drop_allowed`; a fitted delay takes over
+    their phase (:func:`benchfit.fitting.groups.dropped_phase_as_delay`).
+    Unrefined on both sides, so a group the refinement would need to move is
+    kept here and left to the pruning.
+    """
+    may = prunable(pb)
+    f_max = pb.f[-1]
+    far = sorted(groups_above(st, values, FAR * f_max, poles=may["poles"], zeros=may["zeros"]),
+                 key=lambda g: -g[1])
+    w = TWO_PI * (pb.f if idx is None else pb.f[idx])
+    n_res = 2 * w.shape[0]
+    n_drop = 0
+    # Every such group at once, then one at a time from the highest.
+    for drop in ([[g for g, _ in far]] if len(far) > 1 else []) + [[g] for g, _ in far]:
+        if not all(any(in_groups(nm, [g]) for nm in st.names) for g in drop):
+            continue  # gone with an earlier trial
+        st2, v2 = without(st, values, drop)
+        if st2.delay and "delay_s" not in pb.fixed:
+            v2 = v2.copy()
+            v2[-1] += dropped_phase_as_delay(st, values, drop, w)
+        kept, dropped = pb.evaluate(st, values, idx), pb.evaluate(st2, v2, idx)
+        if drop_allowed(kept, dropped, len(st.names) - len(st2.names), n_res):
+            st, values = st2, v2
+            n_drop += len(drop)
+    if not n_drop:
+        return st, values, []
+    return st, values, [f"dropped {n_drop} pole or zero group(s) beyond {FAR:g}× the top "
+                        "frequency that cost less than the noise"]
 
 
 def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
@@ -156,7 +216,7 @@ def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
     missing: InputError | None = None
     for att in worth:
         try:
-            starts.append(start(pb, att, refit_sub))
+            starts.append(start(pb, att, refit_sub, None if single else idx))
         except InputError as e:
             # This hypothesis has no parameter the user holds or bounds: it is not
             # one the user asked about.  Only when none has it is that an error.

@@ -32,6 +32,27 @@ TWO_PI = 2.0 * np.pi
 _REAL_TOL = 1e-9
 
 
+_LABEL_FORMS = (("zero_pair", "_f0_hz", "zero pair {i}, natural frequency"), ("zero_pair", "_q", "zero pair {i}, Q"),
+                ("pair", "_f0_hz", "pole pair {i}, natural frequency"), ("pair", "_q", "pole pair {i}, Q"),
+                ("pole", "_hz", "real pole {i}"), ("zero", "_hz", "real zero {i}"))
+
+
+def parameter_label(name: str) -> str:
+    """What a person reads for a parameter name: 'pair1_f0_hz' -> 'pole pair 1, natural frequency'.
+
+    The stable names (above) stay in JSON and ``--fix``; every human view uses these.
+    """
+    if name == "gain":
+        return "gain"
+    if name == "delay_s":
+        return "delay"
+    for head, tail, form in _LABEL_FORMS:
+        mid = name[len(head):-len(tail)] if name.startswith(head) and name.endswith(tail) else ""
+        if mid.isdigit():
+            return form.format(i=int(mid))
+    return name
+
+
 @dataclass(frozen=True)
 class Structure:
     """How many factors of each kind a model has (fixes the parameter layout)."""

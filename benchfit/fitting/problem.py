@@ -105,6 +105,16 @@ class Problem:
                 out[nm] = (max(lo, 0.0), hi)
         return out
 
+    def evaluate(self, st: Structure, values: np.ndarray, idx: np.ndarray | None = None
+                 ) -> Refined:
+        """χ² of ``values`` as they are (nothing refined) on the points ``idx``."""
+        fix = dict(zip(st.names, np.asarray(values, dtype=float), strict=True))
+        sel = slice(None) if idx is None else idx
+        s = 1j * TWO_PI * self.f[sel]
+        return refine(st, values, s, self.h[sel], self.sigma.mag[sel], self.sigma.phase[sel],
+                      fix=fix, weighting=self.weighting,
+                      sig_abs=None if self.sig_abs is None else self.sig_abs[sel])
+
     def refiner(self, idx: np.ndarray | None = None, quick: bool = False) -> Refiner:
         """``(structure, values, max_nfev=200) -> Refined`` on the points ``idx`` (all when
         None).  ``quick``: scipy's least squares directly, for trial refinements that

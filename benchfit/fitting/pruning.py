@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from benchfit.fitting.assemble import LOOSE
 from benchfit.fitting.delay import DELAY_MIN_PHASE
 from benchfit.fitting.groups import (
     RHP_NEAR_TOP,
@@ -277,7 +278,22 @@ def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: b
         note = fewer_poles_note(pb, st, ref, quick, n_res)
         if note:
             notes = [*notes, note]
-    return st, ref, notes
+    return st, ref, [*notes, *loose_notes(st, ref, f[-1])]
+
+
+def loose_notes(st: Structure, ref: Refined, f_max: float) -> list[str]:
+    """Notes for the pole and zero groups above the band that the data locate only loosely
+    (σ above :data:`~benchfit.fitting.assemble.LOOSE` of the frequency) but that survived pruning: the data
+    need them, so they stay with their large σ; ``--fix`` or ``--bound`` can pin them."""
+    out = []
+    for g, fr in groups_above(st, ref.values, f_max):
+        key = f"{g}_f0_hz" if g.startswith(("pair", "zero_pair")) else f"{g}_hz"
+        sd = ref.stderr[st.names.index(key)]
+        if np.isfinite(sd) and sd > LOOSE * fr:
+            out.append(f"{key} = {fr:.4g} Hz lies above the band and the data locate it only "
+                       f"loosely (σ {100 * sd / fr:.0f} %), but dropping it costs more than the "
+                       "noise; it stays (--fix or --bound can pin it)")
+    return out
 
 
 def fewer_poles_note(pb: Problem, st: Structure, ref: Refined, quick, n_res: int) -> str | None:

@@ -7,7 +7,8 @@ physical parameters are refined on the complex log response: the residual of
 a point is ``ln(H_model/H_data)``, whose real part is the magnitude error in
 nepers and whose imaginary part is the phase of the ratio (wrapped, never a
 difference of unwrapped phases), each divided by its σ.  The Jacobian is
-analytic (:func:`benchfit.fitting.parameters.log_jacobian`).
+analytic (:func:`benchfit.fitting.parameters.log_jacobian`, evaluated by
+:mod:`benchfit.fitting.factors`).
 
 With ``weighting="absolute"`` the residual is the plain complex error
 ``(H_model − H_data)/σ_abs`` instead.
@@ -22,6 +23,8 @@ import numpy as np
 from scipy import optimize
 
 from benchfit.errors import InputError
+from benchfit.fitting.factors import log_jacobian_at, log_response
+from benchfit.fitting.lsq import trust_region
 from benchfit.fitting.parameters import Structure, log_jacobian, renumbering, response
 from benchfit.fitting.uncertainty import covariance
 
@@ -64,7 +67,7 @@ def wrap(x: np.ndarray) -> np.ndarray:
 
 def log_residual(st: Structure, values, s, log_h) -> np.ndarray:
     """ln(H_model/H_data) with the phase part wrapped; complex, one per point."""
-    d = np.log(response(st, values, s)) - log_h
+    d = log_response(st, values, s)[0] - log_h
     return d.real + 1j * wrap(d.imag)
 
 
@@ -140,6 +143,8 @@ def refine(
             v[i] = p[names[i]].value
         return v
 
+    last: list = [None]  # factor terms of the last residual, for the Jacobian at that point
+
     def residual(p):
         v = current(p)
         with np.errstate(all="ignore"):
@@ -147,20 +152,28 @@ def refine(
                 d = (response(st, v, s) - h) * w_a
                 out = np.concatenate([d.real, d.imag])
             else:
-                r = log_residual(st, v, s, log_h)
-                out = np.concatenate([r.real * w_m, r.imag * w_p])
+                lg, last[0] = log_response(st, v, s)
+                d = lg - log_h
+                out = np.concatenate([d.real * w_m, wrap(d.imag) * w_p])
         # A trial step onto a singular model (a frequency at 0...) must look bad, not NaN.
         return np.where(np.isfinite(out), out, _PENALTY)
 
     def jacobian(p):
         v = current(p)
         with np.errstate(all="ignore"):
-            j = log_jacobian(st, v, s)[:, var_idx]
             if absolute:
+                j = log_jacobian(st, v, s)[:, var_idx]
                 j = j * (response(st, v, s) * w_a)[:, None]
                 out = np.vstack([j.real, j.imag])
             else:
-                out = np.vstack([j.real * w_m[:, None], j.imag * w_p[:, None]])
+                terms = last[0]
+                if terms is None or not np.array_equal(terms.values, v):
+                    terms = log_response(st, v, s)[1]
+                jt = log_jacobian_at(st, terms, s)[var_idx]
+                out = np.empty((var_idx.size, 2 * n_s))
+                out[:, :n_s] = jt.real * w_m
+                out[:, n_s:] = jt.imag * w_p
+                out = out.T
         return np.where(np.isfinite(out), out, 0.0)
 
     if quick and var_idx.size:
@@ -215,11 +228,14 @@ def _with_covariance(names, values: np.ndarray, var_idx, jac: np.ndarray, nfev: 
 
 def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
            bounds: dict[str, tuple[float, float]], max_nfev: int) -> Refined:
-    """:func:`refine` through ``scipy.optimize.least_squares`` directly (``quick=True``).
+    """:func:`refine` without lmfit (``quick=True``).
 
-    The options are lmfit's least_squares call's above (TRF, analytic Jacobian,
-    Jacobian scaling, same tolerances); the covariance is lmfit's estimate,
-    (JᵀJ)⁻¹ scaled by the reduced χ².
+    The trust-region method of the lmfit call above (TRF, analytic Jacobian,
+    Jacobian scaling, same tolerances): without bounds through
+    :func:`benchfit.fitting.lsq.trust_region` (the same algorithm on the normal
+    matrix instead of an SVD per iteration), with bounds through
+    ``scipy.optimize.least_squares``.  The covariance is
+    :func:`benchfit.fitting.uncertainty.covariance`'s.
     """
     lo = np.array([bounds.get(names[i], (-np.inf, np.inf))[0] for i in var_idx], dtype=float)
     hi = np.array([bounds.get(names[i], (-np.inf, np.inf))[1] for i in var_idx], dtype=float)
@@ -227,9 +243,13 @@ def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
     r0 = residual(x0)
     chi0 = float(r0 @ r0)
     with np.errstate(all="ignore"):
-        out = optimize.least_squares(residual, x0, jac=jacobian, bounds=(lo, hi), method="trf",
-                                     x_scale="jac", ftol=1e-9, xtol=1e-9, gtol=1e-10,
-                                     max_nfev=max_nfev)
+        if np.all(np.isinf(lo)) and np.all(np.isinf(hi)):
+            out = trust_region(residual, jacobian, x0, f0=r0, max_nfev=max_nfev,
+                               ftol=1e-9, xtol=1e-9, gtol=1e-10)
+        else:
+            out = optimize.least_squares(residual, x0, jac=jacobian, bounds=(lo, hi),
+                                         method="trf", x_scale="jac", ftol=1e-9, xtol=1e-9,
+                                         gtol=1e-10, max_nfev=max_nfev)
     varied = tuple(names[i] for i in var_idx)
     dof = max(r0.size - var_idx.size, 1)
     chi = float(out.fun @ out.fun)

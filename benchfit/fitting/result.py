@@ -8,10 +8,11 @@ from typing import Any
 
 import numpy as np
 
+from benchfit import numfmt
 from benchfit.errors import InputError
 from benchfit.fileio import as_float, malformed_as_input_error, read_json, write_json_atomic
 from benchfit.fitting.model import PlantModel
-from benchfit.fitting.parameters import Structure, response
+from benchfit.fitting.parameters import Structure, parameter_label, response
 from benchfit.provenance import Provenance
 
 #: Statistics keys every FitResult carries.
@@ -182,20 +183,23 @@ class FitResult:
         lines = [f"fit of {src}: order {st.get('order')}"
                  + (f" (+{self.integrators} integrator{'s' * (self.integrators > 1)})"
                     if self.integrators else "")
-                 + f", {st.get('points')} points, {st.get('f_min_hz', 0):.4g}..{st.get('f_max_hz', 0):.4g} Hz",
+                 + f", {st.get('points')} points, {numfmt.eng(st.get('f_min_hz', 0), 'Hz')} to "
+                 f"{numfmt.eng(st.get('f_max_hz', 0), 'Hz')}",
                  "",
-                 f"  {'parameter':<18} {'value':>13} {'± 1σ':>14} {'rel':>8}  unit"]
+                 f"  {'parameter':<32} {'value':>12} {'± 1σ':>14} {'relative':>9}  key (--fix, JSON)"]
         for p in self.parameters:
+            unit = p.unit or ""
             if p.fixed:
                 err, rel = "fixed", ""
             elif np.isfinite(p.stderr):
-                err = f"{p.stderr:.3g}"
-                rel = f"{abs(p.stderr / p.value) * 100:.2g}%" if p.value else ""
+                err = numfmt.quantity(p.stderr, unit, 2)
+                rel = f"{numfmt.sig(abs(p.stderr / p.value) * 100, 2)} %" if p.value else ""
             elif p.name in self.varied:
                 err, rel = "not determined", ""
             else:
-                err, rel = "n/a", ""
-            lines.append(f"  {p.name:<18} {p.value:>13.6g} {err:>14} {rel:>8}  {p.unit}")
+                err, rel = "not estimated", ""
+            lines.append(f"  {parameter_label(p.name):<32} {numfmt.quantity(p.value, unit, numfmt.FIT_DIGITS):>12} "
+                         f"{err:>14} {rel:>9}  {p.name}")
         strong = []
         c = np.asarray(self.correlation)
         for i in range(len(self.varied)):

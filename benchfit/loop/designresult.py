@@ -2,17 +2,19 @@
 
 from __future__ import annotations
 
+import math
 import os
 from dataclasses import dataclass, field
 from typing import Any
 
+from benchfit import numfmt
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError
 from benchfit.fileio import malformed_as_input_error, read_json, to_json_text, write_json_atomic
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.marginsresult import Margins
-from benchfit.loop.networks import Network, check_kind
+from benchfit.loop.networks import Network, check_kind, network_label
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.prediction import Prediction, target_warnings
 from benchfit.loop.sensing import Sensing
@@ -178,13 +180,14 @@ class Design:
 
     def report(self) -> str:
         """A plain-text summary: parts, margins (ideal and snapped), spread, warnings."""
-        lines = [f"{self.kind} network, {self.method}"
+        lines = [f"{network_label(self.kind)} network, {self.method}"
                  + (f", {len(self.corners)} plant corners" if len(self.corners) > 1 else "")]
         if self.synthesis is not None:
             s = self.synthesis
             auto = " (chosen automatically)" if self.targets.crossover_hz is None else ""
-            lines.append(f"placed for crossover {s.crossover_hz:.4g} Hz{auto}: plant phase "
-                         f"{s.plant_phase_deg:.1f}°, boost {s.boost_deg:.1f}°, K {s.k:.3g}")
+            lines.append(f"placed for crossover {numfmt.eng(s.crossover_hz, 'Hz')}{auto}: plant phase "
+                         f"{numfmt.deg(s.plant_phase_deg)}, boost {numfmt.deg(s.boost_deg)}, "
+                         f"K {numfmt.sig(s.k)}")
         given = self.method == "check"
         lines.append(f"{'part':6}{'given':>14}" if given else f"{'part':6}{'ideal':>14}{'snapped':>12}")
         for n, v in self.ideal.network.parts.items():
@@ -198,16 +201,18 @@ class Design:
         for label, p in preds:
             m = p.worst_margins()
             name = f" (worst: {self.corners[p.worst].name})" if len(self.corners) > 1 else ""
-            lines.append(f"{label:8} PM {m.phase_margin_deg:6.1f}° at {m.crossover_hz:.4g} Hz, "
-                         f"GM {m.gain_margin_db:.1f} dB{name}"
+            gm = (f"GM {numfmt.db(m.gain_margin_db)} at {numfmt.eng(m.phase_crossover_hz, 'Hz')}"
+                  if math.isfinite(m.gain_margin_db) else "GM not defined (no phase crossing in the band)")
+            lines.append(f"{label:8} PM {numfmt.deg(m.phase_margin_deg):>6} at {numfmt.eng(m.crossover_hz, 'Hz')}, "
+                         f"{gm}{name}"
                          + ("" if m.closed_loop_stable else "  UNSTABLE"))
         aim = self.provenance.settings.get("designed_for") or {}
         if aim and aim.get("phase_margin_deg") != self.targets.phase_margin_deg:
-            lines.append(f"designed for PM {aim['phase_margin_deg']:.1f}°, GM "
-                         f"{aim['gain_margin_db']:.1f} dB so that "
-                         f"{(self.provenance.settings.get('min_yield') or 0) * 100:g} % of the draws meet "
-                         f"the targets (PM ≥ {self.targets.phase_margin_deg:g}°, GM ≥ "
-                         f"{self.targets.gain_margin_db:g} dB)")
+            lines.append(f"designed for PM {numfmt.deg(aim['phase_margin_deg'])}, GM "
+                         f"{numfmt.db(aim['gain_margin_db'])} so that "
+                         f"{numfmt.pct(self.provenance.settings.get('min_yield') or 0, 0)} of the draws meet "
+                         f"the targets (PM ≥ {numfmt.deg(self.targets.phase_margin_deg)}, GM ≥ "
+                         f"{numfmt.db(self.targets.gain_margin_db)})")
         if self.spread is not None:
             lines.append(self.spread.report())
         lines += [f"warning: {w}" for w in self.warnings]
@@ -215,8 +220,4 @@ class Design:
 
 
 def _eng(v: float, unit: str) -> str:
-    for mult, pre in ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"),
-                      (1e-12, "p")):
-        if abs(v) >= mult * 0.9999:
-            return f"{v / mult:.4g}{pre}{unit}"
-    return f"{v:.3g}{unit}"
+    return numfmt.eng(v, unit, numfmt.FIT_DIGITS)

@@ -65,7 +65,7 @@ def read_loop(path: str | os.PathLike, *, which: str = "snapped",
     d = read_json(p)
     kind = d.get("kind")
     with malformed_as_input_error(path, "JSON file"):
-        if kind == "design":
+        if kind in ("design", "stage_design"):
             if which not in ("snapped", "ideal"):
                 raise InputError(f"{which!r}: expected 'snapped' or 'ideal'")
             if isinstance(d.get("loop_model"), dict) and which in d["loop_model"]:

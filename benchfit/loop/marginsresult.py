@@ -9,6 +9,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
+from benchfit import numfmt
 from benchfit.errors import InputError
 from benchfit.fileio import as_float
 from benchfit.provenance import Provenance
@@ -139,26 +140,46 @@ class Margins:
 
         return cls.from_dict(read_json(path))
 
-    def report(self) -> str:
-        """A short human-readable summary."""
-        def num(v: float, fmt: str, unit: str) -> str:
-            if math.isnan(v):
-                return "n/a"
-            if math.isinf(v):
-                return "none" if v > 0 else "-inf"
-            return f"{v:{fmt}} {unit}".rstrip()
+    def band_text(self) -> str:
+        """'between 10 Hz and 2 MHz' (the band the margins were looked for in), or ''."""
+        if math.isfinite(self.f_min_hz) and math.isfinite(self.f_max_hz):
+            return f"between {numfmt.eng(self.f_min_hz, 'Hz')} and {numfmt.eng(self.f_max_hz, 'Hz')}"
+        return "in the examined band"
 
+    def phase_margin_text(self) -> str:
+        """'56.8° at 19.6 kHz', or in words why there is none."""
+        if math.isfinite(self.phase_margin_deg) and math.isfinite(self.crossover_hz):
+            return f"{numfmt.deg(self.phase_margin_deg)} at {numfmt.eng(self.crossover_hz, 'Hz')}"
+        return f"not defined: |T| does not cross 1 (0 dB) {self.band_text()}"
+
+    def gain_margin_text(self) -> str:
+        """'32.8 dB at 247 kHz', or in words why there is none."""
+        if math.isfinite(self.gain_margin_db) and math.isfinite(self.phase_crossover_hz):
+            return f"{numfmt.db(self.gain_margin_db)} at {numfmt.eng(self.phase_crossover_hz, 'Hz')}"
+        top = (f"below {numfmt.eng(self.f_max_hz, 'Hz')}" if math.isfinite(self.f_max_hz)
+               else "in the examined band")
+        return f"not defined in the measured band: no phase crossing (∠T = −180°) {top}"
+
+    def report(self) -> str:
+        """A short human-readable summary (numbers by :mod:`benchfit.numfmt`, gaps said in words)."""
+        if math.isfinite(self.delay_margin_s):
+            delay = numfmt.eng(self.delay_margin_s, "s")
+        elif math.isinf(self.delay_margin_s) and self.delay_margin_s > 0:
+            delay = "unlimited: no gain crossing, so no delay can make the loop unstable there"
+        else:
+            delay = "not defined (no gain crossing)"
+        ms = self.peak_sensitivity
         lines = [
-            f"phase margin    {num(self.phase_margin_deg, '.1f', 'deg')} at {num(self.crossover_hz, '.4g', 'Hz')}",
-            f"gain margin     {num(self.gain_margin_db, '.1f', 'dB')} at {num(self.phase_crossover_hz, '.4g', 'Hz')}",
+            f"phase margin    {self.phase_margin_text()}",
+            f"gain margin     {self.gain_margin_text()}",
         ]
         if math.isfinite(self.gain_reduction_margin_db):
-            lines.append(f"gain reduction  {self.gain_reduction_margin_db:.1f} dB (gain may fall this much)")
+            lines.append(f"gain reduction  {numfmt.db(self.gain_reduction_margin_db)} (gain may fall this much)")
         lines += [
-            f"delay margin    {num(self.delay_margin_s, '.4g', 's')}",
-            f"modulus margin  {num(self.modulus_margin, '.3f', '')} (Ms {num(self.peak_sensitivity, '.3f', '')}, "
-            f"{num(20 * math.log10(self.peak_sensitivity) if self.peak_sensitivity > 0 else math.nan, '.1f', 'dB')}) "
-            f"at {num(self.modulus_freq_hz, '.4g', 'Hz')}",
+            f"delay margin    {delay}",
+            f"modulus margin  {numfmt.sig(self.modulus_margin)} (Ms {numfmt.sig(ms)}, "
+            f"{numfmt.db(20 * math.log10(ms) if ms > 0 else math.nan)}) "
+            f"at {numfmt.eng(self.modulus_freq_hz, 'Hz')}",
             f"closed loop     {'stable' if self.closed_loop_stable else 'UNSTABLE'} "
             f"(open-loop RHP poles {self.open_loop_unstable_poles}, encirclements of -1: {self.encirclements})",
             "crossings:",
@@ -167,17 +188,17 @@ class Margins:
         for c in self.crossings:
             tag = " (main)" if c.get("main") else ""
             if c["kind"] == "gain":
-                lines.append(f"  gain  {c['freq_hz']:12.5g} Hz  PM {c['value']:7.1f} deg{tag}")
+                lines.append(f"  gain  {numfmt.eng(c['freq_hz'], 'Hz', 4):>12}  PM {numfmt.deg(c['value']):>7}{tag}")
             elif c["value"] > _QUIET_GM_DB:
                 quiet.append(c)
             else:
-                lines.append(f"  phase {c['freq_hz']:12.5g} Hz  GM {c['value']:7.1f} dB")
+                lines.append(f"  phase {numfmt.eng(c['freq_hz'], 'Hz', 4):>12}  GM {numfmt.db(c['value']):>8}")
         if quiet:
-            lines.append(f"  ... and {len(quiet)} phase crossing(s) with GM above {_QUIET_GM_DB:g} dB "
-                         f"between {quiet[0]['freq_hz']:.4g} and {quiet[-1]['freq_hz']:.4g} Hz "
+            lines.append(f"  ... and {len(quiet)} phase crossing(s) with GM above {numfmt.db(_QUIET_GM_DB, 0)} "
+                         f"between {numfmt.eng(quiet[0]['freq_hz'], 'Hz')} and {numfmt.eng(quiet[-1]['freq_hz'], 'Hz')} "
                          "(all listed in --json)")
         if not self.crossings:
-            lines.append("  none in the band")
+            lines.append(f"  none {self.band_text()}")
         for w in self.warnings:
             lines.append(f"warning: {w}")
         return "\n".join(lines)

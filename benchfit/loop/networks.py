@@ -57,6 +57,15 @@ PARTS: dict[str, tuple[str, ...]] = {
 }
 
 
+#: What a person reads for each kind (the JSON keeps the short keys above).
+LABELS: dict[str, str] = {"type1": "Type I", "type2": "Type II", "type3": "Type III", "pi": "PI"}
+
+
+def network_label(kind: str) -> str:
+    """'Type III' for 'type3': the name every human view uses for a network kind."""
+    return LABELS.get(kind, str(kind))
+
+
 def check_kind(kind: str, source: str = "network") -> str:
     """Normalise a network name ('Type II', 'type2', '2' …) or raise InputError."""
     k = str(kind).strip().lower().replace(" ", "").replace("-", "").replace("_", "")

@@ -275,7 +275,8 @@ class StageNetwork:
             raise InputError("the compensator's polynomial form is model(); sample it with VALUES")
         h = self.loop_factor(alg, values)
         d = self.aol_divider(alg)
-        return Frac(h.value() / d.value(), None, VALUES)
+        # a resistive network does not depend on s: broadcast it over the frequencies
+        return Frac(h.value() / d.value() * np.ones_like(np.asarray(alg.s)), None, VALUES)
 
     def response(self, freq_hz: np.ndarray, opamp: Any = None,
                  values: dict[str, Any] | None = None) -> np.ndarray:
@@ -354,6 +355,20 @@ class StageNetwork:
         c = self.corners_hz()
         f = c["zeros_hz"] + c["poles_hz"]
         return float(np.exp(np.mean(np.log(f)))) if f else 1e3
+
+    def practical_warnings(self, label: str = "") -> list[str]:
+        """Parts outside a practical range (common practice, no source): feedback resistors
+        100 Ω..10 MΩ, feedback-network capacitors (Cf, Cn) 10 pF..10 µF."""
+        out = []
+        pre = f"{label} " if label else ""
+        for n, v in self.parts.items():
+            if n in ("Rf", "Rg") and not (100.0 <= v <= 10e6):
+                out.append(f"{pre}{n} = {v:.4g} ohm is outside the practical 100 ohm..10 Mohm range; "
+                           "change --r-in")
+            elif n in ("Cf", "Cn") and not (10e-12 <= v <= 10e-6):
+                out.append(f"{pre}{n} = {v:.4g} F is outside the practical 10 pF..10 uF range "
+                           "for a feedback capacitor")
+        return out
 
     def to_dict(self) -> dict[str, Any]:
         return {"kind": self.kind, "parts": dict(self.parts), "stage": self.stage,

@@ -127,9 +127,18 @@ def snapped_gain_pairs(ideal: dict[str, float], series: str, count: int = 3) -> 
     return [{"Rf": float(rf[i]), "Rg": float(rg[i])} for i in order]
 
 
+#: Points per decade of a model's grid (denser than the converter's: the margins of a
+#: stage must land within a fraction of a degree of the exact ones).
+STAGE_GRID_PER_DECADE = 150
+
+
 def stage_grid(lp: LoopPlant) -> np.ndarray:
     """Frequencies the stage loop is judged on: the sweep's own, or the model's band."""
-    return lp.grid()
+    if lp.is_data:
+        return lp.grid()
+    lo, hi = lp.band_hz
+    n = int(np.ceil(np.log10(hi / lo) * STAGE_GRID_PER_DECADE)) + 1
+    return np.logspace(np.log10(lo), np.log10(hi), n)
 
 
 def _margins(lp: LoopPlant, f: np.ndarray, net: StageNetwork, values: dict[str, Any] | None):
@@ -329,73 +338,3 @@ def synthesize_stage(kind: str, lp: LoopPlant, targets: Targets, *, gain: float,
         return next((s for s in found if s.on_target), found[0])
     raise DesignError(f"the {kind} network reaches at most PM {best_pm:.1f}° on this plant "
                       f"(target {targets.phase_margin_deg:g}°, GM {targets.gain_margin_db:g} dB)")
-
-
-#: The order networks are tried in by :func:`choose_network` (fewest parts, least cost first).
-AUTO_ORDER = ("lead", "lag-lead", "lag", "isolation", "snubber")
-
-
-def snubber_applies(load: StageLoad, fc_hz: float) -> bool:
-    """True when the load capacitor's ESR is too low to help: its zero lies above ``fc_hz``
-    (the crossover plain feedback would have) or the capacitor has no ESR."""
-    fz = load.esr_zero_hz()
-    return load.known and (fz is None or fz > fc_hz)
-
-
-def choose_network(lp: LoopPlant, targets: Targets, *, gain: float, stage: str = "noninverting",
-                   load: StageLoad | None = None, r_level: float = 10e3,
-                   lag_at: str = "across") -> tuple[StageSynthesis, list[str]]:
-    """Pick the network for ``--network auto`` and say why.
-
-    Evidence weighed, in order: (1) plain feedback already meets the targets
-    -> no network; (2) each network of :data:`AUTO_ORDER` that can be placed
-    (isolation and snubber only when Ro and CL are known, the snubber only
-    when the ESR zero lies above the plain crossover) and lands on the
-    phase-margin target; among those, the highest crossover (the fastest
-    closed loop and load-step recovery) wins, ties to the earlier in the
-    order; (3) if none lands on target, the highest-crossover one that meets it.
-
-    Returns
-    -------
-    synthesis, reasons
-        ``reasons`` holds one line per network considered.
-    """
-    load = load or StageLoad()
-    reasons: list[str] = []
-    try:
-        plain = synthesize_stage("plain", lp, targets, gain=gain, stage=stage, load=load,
-                                 r_level=r_level, lag_at=lag_at)
-        return plain, [f"plain feedback already gives PM {plain.pm_deg:.1f}° at "
-                       f"{plain.crossover_hz:.4g} Hz: no compensation network needed"]
-    except DesignError as e:
-        reasons.append(f"plain: {e}")
-    f = stage_grid(lp)
-    pm0, _, _, fc0 = _margins(lp, f, StageNetwork("plain", gain_resistors(gain, stage, r_level),
-                                                  stage, load, lag_at), None)
-    good: list[StageSynthesis] = []
-    for kind in AUTO_ORDER:
-        if kind in ("isolation", "snubber") and not load.known:
-            reasons.append(f"{kind}: not tried (needs --output-resistance and --load-cap)")
-            continue
-        if kind == "snubber" and not snubber_applies(load, float(fc0[0])):
-            reasons.append(f"snubber: not needed, the capacitor's ESR zero "
-                           f"({load.esr_zero_hz():.4g} Hz) lies below the crossover")
-            continue
-        try:
-            s = synthesize_stage(kind, lp, targets, gain=gain, stage=stage, load=load,
-                                 r_level=r_level, lag_at=lag_at)
-        except DesignError as e:
-            reasons.append(f"{kind}: {e}")
-            continue
-        good.append(s)
-        reasons.append(f"{kind}: PM {s.pm_deg:.1f}° at {s.crossover_hz:.4g} Hz"
-                       + ("" if s.on_target else " (not on target)"))
-    if not good:
-        raise DesignError("no stage network meets the targets on this plant: "
-                          + "; ".join(reasons))
-    pool = [s for s in good if s.on_target] or good
-    best = max(pool, key=lambda s: (s.crossover_hz, -AUTO_ORDER.index(s.network.kind)))
-    reasons.append(f"chosen: {best.network.kind}, the highest crossover "
-                   f"({best.crossover_hz:.4g} Hz) among the networks that "
-                   + ("land on the target" if best.on_target else "meet the target"))
-    return best, reasons

@@ -53,6 +53,7 @@ import numpy as np
 
 from benchfit.errors import DesignError, InputError
 from benchfit.loop.choices import METHODS
+from benchfit.loop.closure import rate_of_closure_db
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import Network, check_kind
 from benchfit.loop.opamp import OpAmp
@@ -140,7 +141,8 @@ class Synthesis:
         Phase margin the placement aimed at (> target when extra was needed
         for a finite op-amp or several corners).
     rate_of_closure_db
-        1/beta rate of closure at the crossover, dB/decade (first corner).
+        1/beta rate of closure at the crossover, dB/decade (first corner, the placed
+        network's actual slope: :func:`benchfit.loop.closure.rate_of_closure_db`).
     notes
         Plain-language remarks (boost clamped, target out of reach...).
     """
@@ -268,7 +270,12 @@ def plant_slope_db(lp: LoopPlant, f_hz: np.ndarray) -> np.ndarray:
 
 
 def rate_of_closure(kind: str, lp: LoopPlant, f_hz: np.ndarray) -> np.ndarray:
-    """1/beta rate of closure at ``f_hz``: −slope(|C|) − slope(|P·H|), dB/decade."""
+    """Asymptotic 1/beta rate of closure at ``f_hz``: −slope(|C|) − slope(|P·H|), dB/decade.
+
+    The network's slope is its boost-region asymptote (:data:`NETWORK_SLOPE_DB`): this
+    chooses candidate crossovers before any network is placed.  A placed network's figure
+    comes from :func:`benchfit.loop.closure.rate_of_closure_db` on its actual response.
+    """
     return -NETWORK_SLOPE_DB[kind] - plant_slope_db(lp, f_hz)
 
 
@@ -361,7 +368,8 @@ class _Placer:
         pm, net, boost, k, notes = cand
         lp = self.corners[0]
         phase = math.degrees(np.angle(lp.response(np.array([fc]))[0]))
-        roc = float(rate_of_closure(self.kind, lp, np.array([fc]))[0])
+        # the placed network's own slope, not its asymptote (the figure the report quotes)
+        roc = rate_of_closure_db(lp, lambda f: net.response(f, self.opamp), fc)
         return Synthesis(network=net, method=method, crossover_hz=float(fc),
                          plant_phase_deg=float(phase - 360.0 if phase > 0 else phase),
                          boost_deg=float(boost), k=float(k), design_pm_deg=float(pm),

@@ -19,6 +19,7 @@ from typing import Any
 
 import numpy as np
 
+from benchfit import numfmt
 from benchfit.errors import InputError
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import Network
@@ -83,16 +84,16 @@ class Spread:
 
     def report(self) -> str:
         pc = self.percentiles
-        lines = [f"Monte Carlo: {self.draws} draws, R ±{self.r_tol * 100:g} %, "
-                 f"C ±{self.c_tol * 100:g} %"
+        lines = [f"Monte Carlo: {self.draws} draws, R ±{numfmt.sig(self.r_tol * 100)} %, "
+                 f"C ±{numfmt.sig(self.c_tol * 100)} %"
                  + (", plant from fit covariance" if self.plant_uncertainty else ""),
-                 "                 " + "".join(f"{'p' + str(p):>12}" for p in PERCENTILES)]
-        for key, label, fmt in (("pm_deg", "phase margin °", "{:12.1f}"),
-                                ("gm_db", "gain margin dB", "{:12.1f}"),
-                                ("crossover_hz", "crossover Hz", "{:12.4g}")):
-            lines.append(f"{label:17}" + "".join(fmt.format(pc[key][f"p{p}"]) for p in PERCENTILES))
-        lines.append(f"yield {self.yield_fraction * 100:.1f} % "
-                     f"(unstable {self.unstable_fraction * 100:.1f} %)")
+                 "                 " + "".join(f"{str(p) + ' %':>12}" for p in PERCENTILES)]
+        for key, label, fmt in (("pm_deg", "phase margin", numfmt.deg),
+                                ("gm_db", "gain margin", numfmt.db),
+                                ("crossover_hz", "crossover", lambda v: numfmt.eng(v, "Hz"))):
+            lines.append(f"{label:17}" + "".join(f"{fmt(pc[key][f'p{p}']):>12}" for p in PERCENTILES))
+        lines.append(f"yield {numfmt.pct(self.yield_fraction)} "
+                     f"(unstable {numfmt.pct(self.unstable_fraction)})")
         return "\n".join(lines)
 
 

@@ -27,9 +27,11 @@ from benchfit.fileio import write_json_atomic
 from benchfit.fitting import fit
 from benchfit.loop.design import Design, design
 from benchfit.loop.loopgain import LoopPlant
+from benchfit.loop.networks import network_label
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.sensing import Sensing
 from benchfit.loop.synthesis import Targets
+from benchfit.numfmt import deg, eng, sig
 from benchfit.output.assemble import assemble
 from benchfit.output.curves import write_curve_csv
 from benchfit.output.report import write_report
@@ -48,7 +50,7 @@ class DemoScenario:
     step_channel: str = "CH2"
     load_file: str = "load_step_trace.csv"
     load_channel: str = "Vout AC"
-    load_step_a: float = 1.0            # 0.5 A -> 1.5 A in the load-step record
+    load_current_channel: str = "Iout"  # the prediction is made for the current step measured there
     network: str = "type3"
     crossover_hz: float = 20e3          # a tenth of a 200 kHz switching frequency
     phase_margin_deg: float = 55.0
@@ -137,7 +139,7 @@ def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit
     rel = {n: str(data / n) for n in (sc.plant_file, sc.zout_file, sc.step_file, sc.load_file)}
 
     sweep = read_sweep(rel[sc.plant_file])
-    log(f"read {rel[sc.plant_file]}: {len(sweep)} points, {sweep.f_min_hz:g} Hz to {sweep.f_max_hz:g} Hz")
+    log(f"read {rel[sc.plant_file]}: {len(sweep)} points, {eng(sweep.f_min_hz, 'Hz')} to {eng(sweep.f_max_hz, 'Hz')}")
     plant_fit = fit(sweep)
     log("\n" + plant_fit.report() + "\n")
 
@@ -158,9 +160,9 @@ def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit
     inputs = assemble(
         des, fit=plant_fit, sweep=sweep, step_trace=step_trace, step_channel=sc.step_channel, zout=zout,
         zout_model=zout_fit.model, load_trace=load_trace, load_channel=sc.load_channel,
-        load_step_a=sc.load_step_a, title="benchfit demo: Type III compensation of a 3.3 V buck converter",
-        settings={"load step (prediction)": f"{sc.load_step_a:g} A",
-                  "output impedance model": f"fit of {rel[sc.zout_file]}, order {zout_fit.stats.get('order')}"},
+        load_current_channel=sc.load_current_channel,
+        title=f"benchfit demo: {network_label(sc.network)} compensation of a 3.3 V buck converter",
+        settings={"output impedance model": f"fit of {rel[sc.zout_file]}, order {zout_fit.stats.get('order')}"},
         notes=("The measured traces are of the board as it is now, with its present compensation; the "
                "coloured curves predict the new design. The present board's ringing is what the new "
                "network is meant to remove.",))
@@ -168,8 +170,8 @@ def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit
     pm_now = step.phase_margin
     present = {"zeta": pm_now.zeta, "phase_margin_deg": pm_now.phase_margin_deg,
                "overshoot_pct": step.measurement.overshoot_pct}
-    log(f"present board, from {rel[sc.step_file]}: overshoot {step.measurement.overshoot_pct:.0f} %, "
-        f"ζ {pm_now.zeta:.3f}, phase margin about {pm_now.phase_margin_deg:.0f}°")
+    log(f"present board, from {rel[sc.step_file]}: overshoot {sig(step.measurement.overshoot_pct)} %, "
+        f"ζ {sig(pm_now.zeta)}, phase margin about {deg(pm_now.phase_margin_deg, 0)}")
 
     out.mkdir(parents=True, exist_ok=True)
     files = {

@@ -10,6 +10,7 @@ from matplotlib.transforms import blended_transform_factory
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.fitting.model import PlantModel
+from benchfit.numfmt import FIT_DIGITS, sig
 from benchfit.output import style
 from benchfit.output.plot_common import (
     FREQ_LABEL,
@@ -49,7 +50,7 @@ def mark_roots(ax, model: PlantModel, f_min_hz: float, f_max_hz: float) -> int:
                     transform=tr, clip_on=False, zorder=12, linestyle="none")
             if r.imag > 0:
                 q = abs(r) / (2 * abs(r.real)) if r.real != 0 else np.inf
-                ax.text(f, 0.075, f"Q {q:.2g}", transform=tr, ha="center", va="bottom",
+                ax.text(f, 0.075, f"Q {sig(q, FIT_DIGITS)}", transform=tr, ha="center", va="bottom",
                         fontsize=8, color=color, zorder=12)
     return outside
 

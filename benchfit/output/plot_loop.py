@@ -16,12 +16,16 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Circle
 
 from benchfit.data.response import FrequencyResponse
+from benchfit.loop.closure import rate_of_closure_db
 from benchfit.loop.margins import Margins
+from benchfit.numfmt import db, db_per_decade, deg, eng, sig
 from benchfit.output import style
+from benchfit.output.placement import free_annotation, free_note
 from benchfit.output.plot_common import FREQ_LABEL, phase_ticks, sampled
-from benchfit.output.style import eng, log_axis, new_figure, note, styled
+from benchfit.output.style import log_axis, new_figure, styled
 
 _LABEL_BOX = {"boxstyle": "round,pad=0.25", "fc": "white", "ec": "none", "alpha": 0.85}
+_NOTE_BOX = {"boxstyle": "round,pad=0.35", "facecolor": "white", "edgecolor": "#999999", "alpha": 0.95}
 
 
 def loop_band(margins: Margins, loop: Any, decades: float = 2.0) -> tuple[float, float]:
@@ -89,13 +93,13 @@ def loop_gain(loop: Any, margins: Margins, *, reference: Any = None,
     """
     lo, hi = loop_band(margins, loop, decades=1.5)
     f, h = sampled(loop, lo, hi, 300)
-    db = 20 * np.log10(np.abs(h))
+    mag_db = 20 * np.log10(np.abs(h))
     ph = _phase_branch(f, h, margins)
     fig = new_figure(8.0, 6.6)
     ax_m, ax_p = fig.subplots(2, 1, sharex=True, height_ratios=[1.0, 1.0])
     log_axis(ax_m)
     is_data = isinstance(loop, FrequencyResponse)
-    ax_m.plot(f, db, "-" if not is_data else ".-", color=style.MODEL, lw=2.0, ms=3, label=label)
+    ax_m.plot(f, mag_db, "-" if not is_data else ".-", color=style.MODEL, lw=2.0, ms=3, label=label)
     ax_p.plot(f, ph, "-" if not is_data else ".-", color=style.MODEL, lw=2.0, ms=3, label=label)
     if reference is not None:
         fr, hr = sampled(reference, lo, hi, 300)
@@ -120,7 +124,7 @@ def loop_gain(loop: Any, margins: Margins, *, reference: Any = None,
             ax_p.plot([fx], [_interp_log(f, ph, fx)], "o", ms=8, mfc="white", mec=style.BLACK,
                       mew=1.8, zorder=6)
         else:
-            ax_m.plot([fx], [_interp_log(f, db, fx)], "D", ms=7, mfc="white", mec=style.BLACK,
+            ax_m.plot([fx], [_interp_log(f, mag_db, fx)], "D", ms=7, mfc="white", mec=style.BLACK,
                       mew=1.8, zorder=6)
             ax_p.plot([fx], [_interp_log(f, ph, fx)], "D", ms=7, mfc="white", mec=style.BLACK,
                       mew=1.8, zorder=6)
@@ -128,21 +132,20 @@ def loop_gain(loop: Any, margins: Margins, *, reference: Any = None,
               label="gain crossing (|T| = 1)")
     ax_m.plot([], [], "D", ms=7, mfc="white", mec=style.BLACK, mew=1.8, ls="none",
               label="phase crossing (∠T = −180°)")
+    pm_label = gm_label = None
     if math.isfinite(fc) and math.isfinite(pm) and f[0] <= fc <= f[-1]:
         at = _interp_log(f, ph, fc)
         base = at - pm
         ax_p.annotate("", xy=(fc, at), xytext=(fc, base),
                       arrowprops={"arrowstyle": "-|>", "color": style.TARGET, "lw": 2.2})
-        ax_p.text(fc * 1.15, (at + base) / 2, f"phase margin {pm:.1f}°\nat {eng(fc, 'Hz')}",
-                  color=style.TARGET, fontsize=9.5, fontweight="bold", va="center", bbox=_LABEL_BOX)
+        pm_label = (f"phase margin {deg(pm)}\nat {eng(fc, 'Hz')}", (fc, (at + base) / 2))
         for ax in (ax_m, ax_p):
             ax.axvline(fc, color=style.TARGET, lw=0.9, ls=":")
     if math.isfinite(fg) and math.isfinite(gm) and f[0] <= fg <= f[-1]:
-        at_db = _interp_log(f, db, fg)
+        at_db = _interp_log(f, mag_db, fg)
         ax_m.annotate("", xy=(fg, 0.0), xytext=(fg, at_db),
                       arrowprops={"arrowstyle": "-|>", "color": style.WARN, "lw": 2.2})
-        ax_m.text(fg * 1.15, at_db / 2, f"gain margin {gm:.1f} dB\nat {eng(fg, 'Hz')}",
-                  color=style.WARN, fontsize=9.5, fontweight="bold", va="center", bbox=_LABEL_BOX)
+        gm_label = (f"gain margin {db(gm)}\nat {eng(fg, 'Hz')}", (fg, at_db / 2))
         for ax in (ax_m, ax_p):
             ax.axvline(fg, color=style.WARN, lw=0.9, ls=":")
     ax_m.set_ylabel("|T| (dB)")
@@ -154,8 +157,16 @@ def loop_gain(loop: Any, margins: Margins, *, reference: Any = None,
     phase_ticks(ax_p)
     ax_m.legend(loc="lower left", fontsize=8.5)
     ax_m.set_title(title or "Loop gain and margins")
+    # labels last, each where it hides no curve
+    for ax, lab, color in ((ax_p, pm_label, style.TARGET), (ax_m, gm_label, style.WARN)):
+        if lab is not None:
+            free_annotation(ax, lab[0], lab[1], color=color, fontsize=9.5, fontweight="bold", bbox=_LABEL_BOX)
+    if not (math.isfinite(fg) and math.isfinite(gm)):
+        free_note(ax_m, "gain margin not defined:\nno phase crossing in view", fontsize=9, bbox=_NOTE_BOX,
+                  prefer=("upper right", "lower right", "upper left"))
     verdict = "closed loop stable" if margins.closed_loop_stable else "CLOSED LOOP UNSTABLE"
-    note(ax_p, f"{verdict}\nmodulus margin {margins.modulus_margin:.2f}", loc="lower left")
+    free_note(ax_p, f"{verdict}\nmodulus margin {sig(margins.modulus_margin)}", fontsize=9, bbox=_NOTE_BOX,
+              prefer=("lower left", "upper right", "lower right", "upper left"))
     return fig
 
 
@@ -184,6 +195,7 @@ def nyquist(loop: Any, margins: Margins, *, title: str | None = None, half_width
     lo, hi = loop_band(margins, loop, decades=3.0)
     f, h = sampled(loop, lo, hi, 800)
     mm = margins.modulus_margin
+    closest = None
     w = half_width or max(2.0, 2.2 * mm if math.isfinite(mm) else 2.0)
     fig = new_figure(6.4, 6.2)
     ax = fig.add_subplot(1, 1, 1)
@@ -197,14 +209,13 @@ def nyquist(loop: Any, margins: Margins, *, title: str | None = None, half_width
     ax.add_patch(Circle((0, 0), 1.0, fill=False, ls=":", color="#777777", lw=1.0, label="|T| = 1"))
     if math.isfinite(mm) and mm > 0:
         ax.add_patch(Circle((-1, 0), mm, fill=False, ls="--", color=style.WARN, lw=1.8,
-                            label=f"modulus margin {mm:.2f}"))
+                            label=f"modulus margin {sig(mm)}"))
         fm = margins.modulus_freq_hz
         if math.isfinite(fm):
             tm = complex(h[int(np.argmin(np.abs(np.log10(f) - np.log10(fm))))])
             ax.plot([-1, tm.real], [0, tm.imag], "-", color=style.WARN, lw=1.2)
             ax.plot([tm.real], [tm.imag], "o", color=style.WARN, ms=6)
-            ax.annotate(f"closest at {eng(fm, 'Hz')}", (tm.real, tm.imag), textcoords="offset points",
-                        xytext=(8, -14), color=style.WARN, fontsize=9)
+            closest = (f"closest at {eng(fm, 'Hz')}", (tm.real, tm.imag))
     ax.plot([-1], [0], "P", color=style.WARN, ms=11, mec="white", mew=1.0, zorder=8, label="−1")
     ax.axhline(0, color="#555555", lw=0.8)
     ax.axvline(0, color="#555555", lw=0.8)
@@ -216,28 +227,25 @@ def nyquist(loop: Any, margins: Margins, *, title: str | None = None, half_width
     ax.legend(loc="upper right", fontsize=8.5)
     ax.set_title(title or "Nyquist plot near −1")
     ms_db = 20 * math.log10(margins.peak_sensitivity) if margins.peak_sensitivity > 0 else math.nan
-    note(ax, f"peak sensitivity Ms {margins.peak_sensitivity:.2f} ({ms_db:.1f} dB)", loc="lower left")
+    if closest is not None:
+        free_annotation(ax, closest[0], closest[1], color=style.WARN, fontsize=9, bbox=_LABEL_BOX)
+    free_note(ax, f"peak sensitivity Ms {sig(margins.peak_sensitivity)} ({db(ms_db)})", fontsize=9,
+              bbox=_NOTE_BOX, prefer=("lower left", "upper left", "lower right"))
     return fig
-
-
-def _slope_db_per_decade(f: np.ndarray, db: np.ndarray, at: float) -> float:
-    """d(dB)/d(log10 f) at ``at`` from the drawn curve (±1/20 decade)."""
-    x = np.log10(f)
-    x0 = math.log10(at)
-    lo, hi = max(x0 - 0.05, x[0]), min(x0 + 0.05, x[-1])
-    if hi <= lo:
-        return math.nan
-    return (float(np.interp(hi, x, db)) - float(np.interp(lo, x, db))) / (hi - lo)
 
 
 @styled
 def crossing_view(plant: Any, compensator: Any, *, target_crossover_hz: float | None = None,
                   achieved_crossover_hz: float | None = None, band_hz: tuple[float, float] | None = None,
-                  reference_compensator: Any = None, title: str | None = None) -> Figure:
+                  reference_compensator: Any = None, crossing_hz: float | None = None,
+                  rate_of_closure: float | None = None, title: str | None = None) -> Figure:
     """Plant gain and the compensator's 1/beta on one log-log plot, crossing marked.
 
     The loop crosses over where ``|P·H| = 1/|C|``; the rate of closure written
-    there is ``slope(1/|C|) − slope(|P·H|)`` in dB/decade, read off the drawn curves.
+    there is ``slope(1/|C|) − slope(|P·H|)`` in dB/decade
+    (:func:`benchfit.loop.closure.rate_of_closure_db`).  A report passes the
+    figure it quotes elsewhere (``crossing_hz``, ``rate_of_closure``) so the
+    picture shows that very number.
 
     Parameters
     ----------
@@ -252,6 +260,9 @@ def crossing_view(plant: Any, compensator: Any, *, target_crossover_hz: float | 
         decades either side of the crossover).
     reference_compensator
         Optional second compensator drawn dashed (ideal parts).
+    crossing_hz, rate_of_closure
+        Where the crossing is and its rate of closure (dB/decade); found on the
+        drawn curves and computed from ``plant`` and ``compensator`` when None.
 
     Returns
     -------
@@ -272,30 +283,33 @@ def crossing_view(plant: Any, compensator: Any, *, target_crossover_hz: float | 
     ax = fig.add_subplot(1, 1, 1)
     log_axis(ax)
     is_data = isinstance(plant, FrequencyResponse)
-    ax.plot(f, p_db, ".-" if is_data else "-", ms=3, color=style.BLACK, lw=2.0, label="plant gain |P·H|")
-    ax.plot(f, inv_beta_db, "-", color=style.MODEL, lw=2.0, label="1/beta = 1/|C| (snapped parts)")
+    ax.plot(f, p_db, ".-" if is_data else "-", ms=3, color=style.BLACK, lw=2.0,
+            label="plant gain |P·H| (plant × sensing)")
+    ax.plot(f, inv_beta_db, "-", color=style.MODEL, lw=2.0,
+            label="1/beta = 1/|compensator| (snapped parts)")
     if reference_compensator is not None:
         hr = np.asarray(reference_compensator.response(f) if hasattr(reference_compensator, "response")
                         else reference_compensator(f))
         ax.plot(f, -20 * np.log10(np.abs(hr)), "--", color=style.SECOND, lw=1.5,
                 label="1/beta (ideal parts)")
-    diff = p_db - inv_beta_db
-    idx = np.flatnonzero((diff[:-1] > 0) & (diff[1:] <= 0))
-    if idx.size == 0:
-        idx = np.flatnonzero(np.sign(diff[:-1]) != np.sign(diff[1:]))
-    if idx.size:
-        # the falling crossing closest to the achieved (or target) crossover
-        ref = achieved_crossover_hz or target_crossover_hz
-        i = int(idx[np.argmin(np.abs(np.log10(f[idx]) - math.log10(ref)))] if ref else idx[-1])
-        t = diff[i] / (diff[i] - diff[i + 1])
-        xc = 10 ** (np.log10(f[i]) + t * (np.log10(f[i + 1]) - np.log10(f[i])))
-        yc = p_db[i] + t * (p_db[i + 1] - p_db[i])
-        roc = _slope_db_per_decade(f, inv_beta_db, xc) - _slope_db_per_decade(f, p_db, xc)
+    label = None
+    xc = crossing_hz if crossing_hz is not None and math.isfinite(crossing_hz) else None
+    if xc is None:
+        diff = p_db - inv_beta_db
+        idx = np.flatnonzero((diff[:-1] > 0) & (diff[1:] <= 0))
+        if idx.size == 0:
+            idx = np.flatnonzero(np.sign(diff[:-1]) != np.sign(diff[1:]))
+        if idx.size:
+            # the falling crossing closest to the achieved (or target) crossover
+            ref = achieved_crossover_hz or target_crossover_hz
+            i = int(idx[np.argmin(np.abs(np.log10(f[idx]) - math.log10(ref)))] if ref else idx[-1])
+            t = diff[i] / (diff[i] - diff[i + 1])
+            xc = float(10 ** (np.log10(f[i]) + t * (np.log10(f[i + 1]) - np.log10(f[i]))))
+    if xc is not None:
+        roc = rate_of_closure if rate_of_closure is not None else rate_of_closure_db(plant, compensator, xc)
+        yc = _interp_log(f, p_db, xc)
         ax.plot([xc], [yc], "o", ms=10, mfc="white", mec=style.WARN, mew=2.2, zorder=8)
-        ax.annotate(f"crossing at {eng(xc, 'Hz')}\nrate of closure {roc:.0f} dB/decade",
-                    (xc, yc), textcoords="offset points", xytext=(14, 14), fontsize=9.5,
-                    color=style.WARN, fontweight="bold",
-                    bbox={"boxstyle": "round,pad=0.3", "fc": "white", "ec": style.WARN, "alpha": 0.9})
+        label = (f"crossing at {eng(xc, 'Hz')}\nrate of closure {db_per_decade(roc)}", (xc, yc))
     if target_crossover_hz:
         ax.axvline(target_crossover_hz, color=style.TARGET, ls="--", lw=1.4,
                    label=f"target crossover {eng(target_crossover_hz, 'Hz')}")
@@ -310,4 +324,7 @@ def crossing_view(plant: Any, compensator: Any, *, target_crossover_hz: float | 
     ax.set_ylabel("Gain (dB)")
     ax.legend(loc="best", fontsize=8.5)
     ax.set_title(title or "Crossing view: plant gain against 1/beta")
+    if label is not None:
+        free_annotation(ax, label[0], label[1], fontsize=9.5, color=style.WARN, fontweight="bold",
+                        bbox={"boxstyle": "round,pad=0.3", "fc": "white", "ec": style.WARN, "alpha": 0.9})
     return fig

@@ -8,26 +8,89 @@ from collections.abc import Sequence
 import numpy as np
 from matplotlib.figure import Figure
 
+from benchfit.numfmt import db, deg, eng, pct
 from benchfit.output import style
 from benchfit.output.curves import Curve
+from benchfit.output.placement import free_annotation, free_note
 from benchfit.output.plot_common import FREQ_LABEL, time_scale
-from benchfit.output.style import ENG_FORMATTER, eng, log_axis, new_figure, note, styled
+from benchfit.output.style import ENG_FORMATTER, log_axis, new_figure, styled
+
+_NOTE_BOX = {"boxstyle": "round,pad=0.35", "facecolor": "white", "edgecolor": "#999999", "alpha": 0.95}
 
 
-def _hist(ax, values: np.ndarray, *, log: bool, color: str) -> None:
+def _hist(ax, values: np.ndarray, *, log: bool, color: str) -> tuple[float, float] | None:
+    """Histogram of the finite values; returns the x range of the data (None when there is none)."""
     v = values[np.isfinite(values)]
     if v.size == 0:
         ax.text(0.5, 0.5, "no finite values", transform=ax.transAxes, ha="center")
-        return
+        return None
     bins: int | np.ndarray = 30
-    if log and np.all(v > 0):
-        lo, hi = float(v.min()), float(v.max())
-        if hi > 10 * lo:   # a wide spread reads best on a log axis
-            bins = np.logspace(np.log10(lo), np.log10(hi), 31)
-            log_axis(ax)
-        else:              # a narrow one on a linear axis, still with prefixes
-            ax.xaxis.set_major_formatter(ENG_FORMATTER)
+    lo, hi = float(v.min()), float(v.max())
+    if log and np.all(v > 0) and hi > 10 * lo:   # a wide spread reads best on a log axis
+        bins = np.logspace(np.log10(lo), np.log10(hi), 31)
+        log_axis(ax)
+    elif log:                                     # a narrow one on a linear axis, still with prefixes
+        ax.xaxis.set_major_formatter(ENG_FORMATTER)
+    else:
+        ax.ticklabel_format(axis="x", useOffset=False, style="plain")
+    if hi == lo:
+        bins = 1
     ax.hist(v, bins=bins, color=color, edgecolor="white", linewidth=0.5, alpha=0.95)
+    return lo, hi
+
+
+def data_view(lo: float, hi: float, log: bool) -> tuple[float, float]:
+    """The x range a histogram is drawn over: its own data with a 6 % margin each side.
+
+    The targets do not widen it: a target far from the draws would squeeze
+    the histogram into a sliver (it is drawn as an arrow at the edge instead,
+    :func:`target_marker`).
+    """
+    if log and lo > 0:
+        a, b = np.log10(lo), np.log10(hi)
+        pad = max(0.06 * (b - a), 0.01)
+        return float(10 ** (a - pad)), float(10 ** (b + pad))
+    span = hi - lo
+    pad = 0.06 * span if span > 0 else max(abs(lo) * 0.01, 1e-12)
+    return lo - pad, hi + pad
+
+
+def view_with_target(view: tuple[float, float], target: float, log: bool) -> tuple[float, float]:
+    """Widen a histogram's view to a target lying near it (within half the view's width).
+
+    A near target reads best as a line beside the bars; a far one would squeeze
+    them, so the view stays on the data and the target becomes an edge arrow.
+    """
+    lo, hi = view
+    tr = (lambda v: math.log10(v)) if log else (lambda v: v)
+    if log and not target > 0:
+        return view
+    a, b, t = tr(lo), tr(hi), tr(target)
+    span = b - a
+    if a <= t <= b or span <= 0 or min(abs(t - a), abs(t - b)) > 0.5 * span:
+        return view
+    a, b = min(a, t - 0.04 * span), max(b, t + 0.04 * span)
+    return (10 ** a, 10 ** b) if log else (a, b)
+
+
+def target_marker(ax, target: float, view: tuple[float, float], text: str) -> str:
+    """Draw a target inside the view as a dashed line, outside it as an arrow at the nearer edge.
+
+    Returns 'line', 'left' or 'right' (where it was drawn).
+    """
+    lo, hi = view
+    if lo <= target <= hi:
+        ax.axvline(target, color=style.TARGET, ls="--", lw=2.0, label=text)
+        return "line"
+    right = target > hi
+    x = 0.985 if right else 0.015
+    arrow = "→" if right else "←"
+    ax.annotate(f"{text} {arrow}" if right else f"{arrow} {text}", xy=(x, 0.70), xycoords="axes fraction",
+                ha="right" if right else "left", va="center", color=style.TARGET, fontsize=8.5,
+                fontweight="bold", bbox={"boxstyle": "round,pad=0.25", "fc": "white", "ec": style.TARGET,
+                                         "alpha": 0.95}, zorder=11)
+    ax.plot([], [], ls="none", marker=">" if right else "<", color=style.TARGET, label=f"{text} (off scale)")
+    return "right" if right else "left"
 
 
 @styled
@@ -38,13 +101,17 @@ def spread_histograms(pm_deg: Sequence[float], crossover_hz: Sequence[float],
                       title: str | None = None) -> Figure:
     """Histograms of phase margin, crossover (and gain margin) over Monte Carlo draws.
 
+    Each histogram is scaled to its own draws (:func:`data_view`); a target
+    inside that view is a dashed line, one outside it an arrow at the edge
+    with its value (:func:`target_marker`).
+
     Parameters
     ----------
     pm_deg, crossover_hz, gm_db
         One value per draw (degrees, Hz, dB).  Infinite gain margins (no
         phase crossing) are counted in the note, not drawn.
     pm_min_deg, crossover_target_hz, gm_min_db
-        Targets, drawn as vertical lines.
+        Targets.
     yield_fraction
         Fraction of draws meeting every target (0..1), written on the figure.
     what
@@ -53,37 +120,44 @@ def spread_histograms(pm_deg: Sequence[float], crossover_hz: Sequence[float],
     Returns
     -------
     Figure
-        Two or three axes: count against phase margin (deg), crossover (Hz)
+        Two or three axes: count against phase margin (°), crossover (Hz)
         and gain margin (dB).
     """
     pm = np.asarray(pm_deg, dtype=float)
     fc = np.asarray(crossover_hz, dtype=float)
-    panels = [("Phase margin (deg)", pm, False, pm_min_deg, "minimum"),
-              ("Crossover (Hz)", fc, True, crossover_target_hz, "target")]
+    panels = [("Phase margin (deg)", pm, False, pm_min_deg, "minimum", deg),
+              ("Crossover (Hz)", fc, True, crossover_target_hz, "target", lambda v: eng(v, "Hz"))]
     if gm_db is not None:
-        panels.append(("Gain margin (dB)", np.asarray(gm_db, dtype=float), False, gm_min_db, "minimum"))
-    fig = new_figure(3.4 * len(panels) + 0.8, 3.9)
+        panels.append(("Gain margin (dB)", np.asarray(gm_db, dtype=float), False, gm_min_db, "minimum", db))
+    fig = new_figure(3.6 * len(panels) + 0.8, 4.0)
     axes = fig.subplots(1, len(panels), sharey=True)
-    for ax, (label, vals, log, target, kind) in zip(axes, panels, strict=True):
-        _hist(ax, vals, log=log, color=style.SPREAD)
-        finite = vals[np.isfinite(vals)]
-        if finite.size:
-            med = float(np.median(finite))
-            ax.axvline(med, color=style.MODEL, lw=1.6, label=f"median {eng(med, 'Hz') if log else f'{med:.1f}'}")
-        if target is not None and math.isfinite(target):
-            ax.axvline(target, color=style.TARGET, ls="--", lw=2.0,
-                       label=f"{kind} {eng(target, 'Hz') if log else f'{target:g}'}")
-        n_inf = int(np.sum(np.isinf(vals)))
-        if n_inf:
-            note(ax, f"{n_inf} draws: none (∞)", loc="upper left")
+    for ax, (label, vals, log, target, kind, fmt) in zip(axes, panels, strict=True):
+        rng = _hist(ax, vals, log=log, color=style.SPREAD)
+        if rng is not None:
+            view = data_view(*rng, log=log and ax.get_xscale() == "log")
+            med = float(np.median(vals[np.isfinite(vals)]))
+            ax.axvline(med, color=style.MODEL, lw=1.6, label=f"median {fmt(med)}")
+            if target is not None and math.isfinite(target):
+                view = view_with_target(view, target, log and ax.get_xscale() == "log")
+                target_marker(ax, target, view, f"{kind} {fmt(target)}")
+            ax.set_xlim(*view)
         ax.set_xlabel(label)
         ax.legend(loc="upper right", fontsize=8)
     axes[0].set_ylabel("Draws (count)")
+    # headroom above the tallest bar: the legend and the off-scale targets sit there, over no bar
+    top = max((max((p.get_height() for p in ax.patches), default=0.0) for ax in axes), default=0.0)
+    if top > 0:
+        axes[0].set_ylim(0.0, top * 1.6)
+    for ax, (_label, vals, *_rest) in zip(axes, panels, strict=True):
+        n_inf = int(np.sum(np.isinf(vals)))
+        if n_inf:
+            free_note(ax, f"{n_inf} draws: no phase crossing\n(gain margin not defined)", fontsize=8.5,
+                      bbox=_NOTE_BOX, prefer=("upper left", "upper right"))
     n = len(pm)
     head = title or f"Spread over {n} draws of {what}"
     if yield_fraction is not None:
         ok = yield_fraction >= 0.99
-        fig.suptitle(f"{head}: yield {100 * yield_fraction:.1f} %", fontweight="bold",
+        fig.suptitle(f"{head}: yield {pct(yield_fraction)}", fontweight="bold",
                      color=style.BLACK if ok else style.WARN, x=0.01, ha="left", fontsize=11.5)
     else:
         fig.suptitle(head, fontweight="bold", x=0.01, ha="left", fontsize=11.5)
@@ -188,12 +262,13 @@ def output_impedance(open_loop: Curve, closed_loop: Curve, *, measured: Curve | 
     zc = np.abs(closed_loop.y)
     i = int(np.argmax(zc))
     ax.plot([closed_loop.x[i]], [zc[i]], "v", color=style.WARN, ms=8)
-    ax.annotate(f"peak {eng(float(zc[i]), 'Ω')} at {eng(float(closed_loop.x[i]), 'Hz')}",
-                (closed_loop.x[i], zc[i]), textcoords="offset points", xytext=(8, 8),
-                color=style.WARN, fontsize=9.5)
+    peak = (f"peak {eng(float(zc[i]), 'Ω')} at {eng(float(closed_loop.x[i]), 'Hz')}",
+            (float(closed_loop.x[i]), float(zc[i])))
     ax.set_xlim(closed_loop.x[0], closed_loop.x[-1])
     ax.set_xlabel(FREQ_LABEL)
     ax.set_ylabel("|Z| (Ω)")
     ax.legend(loc="best", fontsize=8.5)
     ax.set_title(title or "Output impedance, open and closed loop")
+    free_annotation(ax, peak[0], peak[1], color=style.WARN, fontsize=9.5,
+                    bbox={"boxstyle": "round,pad=0.25", "fc": "white", "ec": "none", "alpha": 0.85})
     return fig

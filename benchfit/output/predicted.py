@@ -7,6 +7,7 @@ them and turns them into :class:`~benchfit.output.curves.Curve` objects.
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -17,6 +18,7 @@ from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.design import Design
 from benchfit.loop.predict import Prediction, predict
+from benchfit.numfmt import eng
 from benchfit.output.choices import CURVE_NAMES, WHICH
 from benchfit.output.curves import Curve
 from benchfit.provenance import Provenance
@@ -65,14 +67,15 @@ def prediction_curves(pred: Prediction, which: str = "snapped", loop: Any = None
     out["closed"] = Curve("closed loop Vout/Vref" + tag, "freq_hz", pred.closed.freq_hz,
                           pred.closed.response, "1", prov)
     if pred.step is not None:
-        out["step"] = Curve(f"output for a {pred.step.step_size:.4g} V reference step" + tag, "time_s",
+        out["step"] = Curve(f"predicted output for a {eng(pred.step.step_size, 'V')} reference step" + tag,
+                            "time_s",
                             pred.step.time_s, pred.step.value, "V", prov)
     if pred.impedance is not None:
         z = pred.impedance
         out["zout_open"] = Curve("open loop", "freq_hz", z.freq_hz, z.open_loop, "ohm", prov)
         out["zout_closed"] = Curve("closed loop" + tag, "freq_hz", z.freq_hz, z.closed_loop, "ohm", prov)
     if pred.load is not None:
-        out["load_step"] = Curve(f"output deviation for a {pred.load.step_size:.4g} A load step" + tag,
+        out["load_step"] = Curve(f"predicted deviation for a {eng(pred.load.step_size, 'A')} load step" + tag,
                                  "time_s", pred.load.time_s, pred.load.value, "V", prov)
     return out
 
@@ -116,8 +119,8 @@ def measured_step_curve(trace: TimeTrace, channel: str | None, step: Any) -> Cur
     m = getattr(step, "measurement", step)
     y = np.asarray(trace.channel(channel), dtype=float)
     t = trace.time_s - float(m.step_time_s)
-    src = ", ".join(trace.provenance.sources) or "trace"
-    return Curve(f"measured ({src})", "time_s", t, y - float(m.initial_v), "V",
+    src = ", ".join(Path(s).name for s in trace.provenance.sources) or "trace"
+    return Curve(f"measured ({src}, {m.channel or channel or 'first channel'})", "time_s", t, y - float(m.initial_v), "V",
                  Provenance(step="align_step", sources=trace.provenance.sources,
                             settings={"step_time_s": float(m.step_time_s), "initial_v": float(m.initial_v)}))
 

@@ -23,10 +23,17 @@ from matplotlib.figure import Figure
 
 from benchfit import __version__
 from benchfit.fileio import to_json_text, write_bytes_atomic, write_text_atomic
+from benchfit.fitting.parameters import parameter_label
+from benchfit.loop.networks import network_label
+from benchfit.numfmt import FIT_DIGITS, db, deg, eng, pct, quantity, sig, unit_symbol
 from benchfit.output.report_figures import ReportFigure, report_figures
 from benchfit.output.report_inputs import ReportInputs
-from benchfit.output.style import eng, new_figure, plot_style
-from benchfit.output.summary import design_summary, summary_lines
+from benchfit.output.style import new_figure, plot_style
+from benchfit.output.summary import design_summary, rate_of_closure_text, summary_lines
+from benchfit.safety import CAUTION
+
+#: The short caution every report ends with (the full text: README.md "Safety", docs/capture.md).
+SAFETY_NOTE = CAUTION
 
 _CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",sans-serif;color:#1a1a1a;
@@ -52,16 +59,13 @@ def esc(value: Any) -> str:
     return html.escape(str(value), quote=True)
 
 
-def _num(v: Any, fmt: str = ".4g", unit: str = "") -> str:
+def _num(v: Any, unit: str = "", digits: int = 3) -> str:
+    """A value in a table cell, written by the one formatter (:mod:`benchfit.numfmt`)."""
     try:
-        x = float(v)
+        float(v)
     except (TypeError, ValueError):
         return esc(v)
-    if math.isnan(x):
-        return "n/a"
-    if math.isinf(x):
-        return "none (∞)" if x > 0 else "−∞"
-    return esc(f"{x:{fmt}}{(' ' + unit) if unit else ''}")
+    return esc(quantity(v, unit, digits))
 
 
 def _table(head: Sequence[str], rows: Iterable[Sequence[Any]], numeric: Sequence[int] = ()) -> str:
@@ -110,8 +114,11 @@ def _inputs(inputs: ReportInputs) -> str:
             files.append((f"plant ({lp.name})", s))
     if inputs.sweep is not None:
         files += [("measured sweep", s) for s in inputs.sweep.provenance.sources]
+    measured = _trace_measurements(inputs)
     if inputs.step_trace is not None:
-        files += [("step trace", s) for s in inputs.step_trace.provenance.sources]
+        files += [("measured reference step", s) for s in inputs.step_trace.provenance.sources]
+    if inputs.load_trace is not None:
+        files += [("measured load step", s) for s in inputs.load_trace.provenance.sources]
     if inputs.zout is not None:
         files += [("output impedance", s) for s in inputs.zout.provenance.sources]
     roles: dict[str, list[str]] = {}
@@ -121,10 +128,12 @@ def _inputs(inputs: ReportInputs) -> str:
             roles[f].append(role)
     parts = ["<h2>Inputs</h2>"]
     if roles:
-        parts.append(_table(("file", "used as"), ((f"<code>{esc(f)}</code>", esc(", ".join(r)))
-                                                  for f, r in roles.items())))
+        parts.append(_table(("file", "used as", "measured there"),
+                            ((f"<code>{esc(f)}</code>", esc(", ".join(r)), esc(measured.get(f, "")))
+                             for f, r in roles.items())))
     idn: list[tuple[str, str]] = []
-    for label, obj in (("sweep", inputs.sweep), ("step trace", inputs.step_trace), ("impedance", inputs.zout)):
+    for label, obj in (("sweep", inputs.sweep), ("reference step", inputs.step_trace),
+                       ("load step", inputs.load_trace), ("impedance", inputs.zout)):
         if obj is not None:
             idn += [(label, line) for line in _instrument_lines(obj.meta)]
     if idn:
@@ -132,13 +141,13 @@ def _inputs(inputs: ReportInputs) -> str:
         parts.append(_table(("from", "as recorded"), ((esc(a), esc(b)) for a, b in idn)))
     t = d.targets
     settings: list[tuple[str, str]] = [
-        ("network", d.kind), ("method", d.method),
+        ("network", network_label(d.kind)), ("method", d.method),
         ("target crossover", eng(t.crossover_hz, "Hz") if t.crossover_hz else "automatic (highest that meets the margins)"),
-        ("target phase margin", f"≥ {t.phase_margin_deg:g}°"), ("target gain margin", f"≥ {t.gain_margin_db:g} dB"),
-        ("sensing", f"divider {eng(d.sensing.r_top, 'Ω')} / {eng(d.sensing.r_bottom, 'Ω')} (gain {d.sensing.gain:.4g})"
-         if d.sensing.is_divider else f"gain {d.sensing.gain:.4g}"),
+        ("target phase margin", f"≥ {deg(t.phase_margin_deg)}"), ("target gain margin", f"≥ {db(t.gain_margin_db)}"),
+        ("sensing", f"divider {eng(d.sensing.r_top, 'Ω')} / {eng(d.sensing.r_bottom, 'Ω')} (gain {sig(d.sensing.gain)})"
+         if d.sensing.is_divider else f"gain {sig(d.sensing.gain)}"),
         ("op-amp", "ideal" if d.opamp is None else
-         f"GBW {eng(d.opamp.gbw_hz, 'Hz')}, A0 {d.opamp.dc_gain_db:g} dB"
+         f"GBW {eng(d.opamp.gbw_hz, 'Hz')}, open-loop gain {db(d.opamp.dc_gain_db)}"
          + (f", second pole {eng(d.opamp.second_pole_hz, 'Hz')}" if d.opamp.second_pole_hz else "")),
         ("part series", f"R {d.series.get('resistor')}, C {d.series.get('capacitor')}"),
     ]
@@ -163,10 +172,11 @@ def _fit(inputs: ReportInputs, figs: dict[str, list[ReportFigure]]) -> str:
     if fit is not None:
         rows = []
         for p in fit.parameters:
-            rel = (f"{abs(p.stderr / p.value) * 100:.2g} %" if p.value and math.isfinite(p.stderr) else "")
-            rows.append((esc(p.name), _num(p.value, ".6g"), "fixed" if p.fixed else _num(p.stderr, ".3g"),
-                         esc(rel), esc(p.unit or "—")))
-        parts.append(_table(("parameter", "value", "± 1σ", "relative", "unit"), rows, numeric=(1, 2, 3)))
+            rel = (f"{sig(abs(p.stderr / p.value) * 100, 2)} %" if p.value and math.isfinite(p.stderr) else "")
+            unit = unit_symbol(p.unit or "")
+            rows.append((esc(parameter_label(p.name)), _num(p.value, unit, FIT_DIGITS),
+                         "fixed" if p.fixed else _num(p.stderr, unit, 2), esc(rel)))
+        parts.append(_table(("parameter", "value", "± 1σ", "relative"), rows, numeric=(1, 2, 3)))
         parts.append(f"<details><summary>Full fit report</summary><pre>{esc(fit.report())}</pre></details>")
     parts += [_img(f) for f in figs.get("fit", [])]
     return "".join(parts)
@@ -174,13 +184,14 @@ def _fit(inputs: ReportInputs, figs: dict[str, list[ReportFigure]]) -> str:
 
 def _design(inputs: ReportInputs, figs: dict[str, list[ReportFigure]]) -> str:
     d = inputs.design
-    parts = [f"<h2>Design: {esc(d.kind)} network</h2>"]
+    parts = [f"<h2>Design: {esc(network_label(d.kind))} network</h2>"]
     if d.synthesis is not None:
         s = d.synthesis
         parts.append(f"<p>Placed by the {esc(s.method)} method for a crossover of "
-                     f"{esc(eng(s.crossover_hz, 'Hz'))}: plant phase there {s.plant_phase_deg:.1f}°, "
-                     f"phase boost {s.boost_deg:.1f}°, K = {s.k:.3g}, rate of closure "
-                     f"{s.rate_of_closure_db:.0f} dB/decade.</p>")
+                     f"{esc(eng(s.crossover_hz, 'Hz'))}: plant phase there {esc(deg(s.plant_phase_deg))}, "
+                     f"phase boost {esc(deg(s.boost_deg))}, K = {esc(sig(s.k))}.</p>")
+    parts.append(f"<p>With the snapped parts: {esc(rate_of_closure_text(design_summary(d)))}, "
+                 "the difference of the slopes of 1/beta and the plant gain where they cross.</p>")
     tol = {"resistor": d.spread.r_tol if d.spread else None, "capacitor": d.spread.c_tol if d.spread else None}
     rows = []
     for n, v in d.ideal.network.parts.items():
@@ -190,7 +201,7 @@ def _design(inputs: ReportInputs, figs: dict[str, list[ReportFigure]]) -> str:
         t = tol[kind]
         rows.append((esc(n), esc(eng(v, unit, 4)), f"<b>{esc(eng(sv, unit))}</b>",
                      esc(f"{(sv / v - 1) * 100:+.1f} %"),
-                     esc(f"{d.series.get(kind)}" + (f", ±{t * 100:g} %" if t is not None else ""))))
+                     esc(f"{d.series.get(kind)}" + (f", ±{sig(t * 100)} %" if t is not None else ""))))
     parts.append("<h3>Part list</h3>")
     parts.append(_table(("part", "ideal", "snapped (order this)", "change", "series, tolerance"), rows,
                         numeric=(1, 2, 3)))
@@ -210,10 +221,11 @@ def _margins(inputs: ReportInputs, figs: dict[str, list[ReportFigure]]) -> str:
     for label, pred in (("ideal", d.ideal), ("snapped", d.snapped)):
         for lp, m in zip(d.corners, pred.corners, strict=False):
             stable = '<span class="good">stable</span>' if m.closed_loop_stable else '<span class="bad">UNSTABLE</span>'
+            gm = (_num(m.gain_margin_db, "dB") if math.isfinite(m.gain_margin_db)
+                  else esc("not defined (no phase crossing in the band)"))
             rows.append((esc(label), esc(lp.name), esc(eng(m.crossover_hz, "Hz")) if math.isfinite(m.crossover_hz)
-                         else "n/a", _num(m.phase_margin_deg, ".1f", "°"), _num(m.gain_margin_db, ".1f", "dB"),
-                         _num(m.modulus_margin, ".2f"), esc(eng(m.delay_margin_s, "s"))
-                         if math.isfinite(m.delay_margin_s) else _num(m.delay_margin_s), stable))
+                         else esc("no crossover"), _num(m.phase_margin_deg, "°"), gm,
+                         _num(m.modulus_margin), _num(m.delay_margin_s, "s"), stable))
     parts.append(_table(("parts", "plant", "crossover", "phase margin", "gain margin", "modulus margin",
                          "delay margin", "closed loop"), rows, numeric=(2, 3, 4, 5, 6)))
     if d.spread is not None:
@@ -221,16 +233,14 @@ def _margins(inputs: ReportInputs, figs: dict[str, list[ReportFigure]]) -> str:
         pc = sp.percentiles
         keys = sorted(pc["pm_deg"], key=lambda k: float(k[1:]))
         rows = []
-        for key, label, fmt in (("pm_deg", "phase margin", ".1f"), ("gm_db", "gain margin", ".1f")):
-            unit = "°" if key == "pm_deg" else "dB"
-            rows.append((esc(label), *(_num(pc[key][k], fmt, unit) for k in keys)))
-        rows.append(("crossover", *(esc(eng(pc["crossover_hz"][k], "Hz")) if math.isfinite(pc["crossover_hz"][k])
-                                    else _num(pc["crossover_hz"][k]) for k in keys)))
+        for key, label, unit in (("pm_deg", "phase margin", "°"), ("gm_db", "gain margin", "dB"),
+                                 ("crossover_hz", "crossover", "Hz")):
+            rows.append((esc(label), *(_num(pc[key][k], unit) for k in keys)))
         parts.append(f"<h3>Spread over {sp.draws} Monte Carlo draws</h3>")
-        parts.append(f"<p>Parts drawn uniformly within R ±{sp.r_tol * 100:g} %, C ±{sp.c_tol * 100:g} %"
+        parts.append(f"<p>Parts drawn uniformly within R ±{sig(sp.r_tol * 100)} %, C ±{sig(sp.c_tol * 100)} %"
                      + (", plant parameters drawn from the fit's covariance" if sp.plant_uncertainty else "")
-                     + f". <b>Yield {sp.yield_fraction * 100:.1f} %</b> meet every target with a stable loop "
-                     f"(unstable: {sp.unstable_fraction * 100:.1f} %).</p>")
+                     + f". <b>Yield {esc(pct(sp.yield_fraction))}</b> meet every target with a stable loop "
+                     f"(unstable: {esc(pct(sp.unstable_fraction))}).</p>")
         parts.append(_table(("percentile", *(k.replace("p", "") + " %" for k in keys)), rows,
                             numeric=tuple(range(1, len(keys) + 1))))
     parts += [_img(f) for f in figs.get("margins", [])]
@@ -238,45 +248,65 @@ def _margins(inputs: ReportInputs, figs: dict[str, list[ReportFigure]]) -> str:
 
 
 def _time(inputs: ReportInputs, figs: dict[str, list[ReportFigure]]) -> str:
-    if not figs.get("time") and inputs.step is None:
+    if not figs.get("time") and inputs.step is None and inputs.load_step is None:
         return ""
     parts = ["<h2>Time response and output impedance</h2>"]
     parts += [f"<p>{esc(n)}</p>" for n in inputs.notes]
-    step = inputs.step
-    if step is not None:
-        rows = _step_rows(step)
+    for step, what in ((inputs.step, "Measured reference step"), (inputs.load_step, "Measured load step")):
+        rows = _step_rows(step) if step is not None else []
         if rows:
             src = ", ".join(step.provenance.sources) if hasattr(step, "provenance") else ""
-            parts.append(f"<h3>Measured step{(' (' + esc(src) + ')') if src else ''}</h3>")
+            parts.append(f"<h3>{what}{(' (' + esc(src) + ')') if src else ''}</h3>")
             parts.append(_table(("quantity", "value"), rows, numeric=(1,)))
     parts += [_img(f) for f in figs.get("time", [])]
     return "".join(parts)
 
 
 def _step_rows(step: Any) -> list[tuple[str, str]]:
-    """Rows of the measured-step table from a StepResult or a StepFit."""
+    """Rows of a measured-step table from a StepResult (reference or load step) or a StepFit."""
     rows: list[tuple[str, str]] = []
     m = getattr(step, "measurement", None)
     if m is not None:
-        for attr, label, unit in (("overshoot_pct", "overshoot", "%"), ("rise_time_s", "rise time 10–90 %", "s"),
-                                  ("settling_time_s", "settling time", "s"),
-                                  ("ringing_freq_hz", "ringing frequency", "Hz")):
+        load = hasattr(m, "deviation_v")
+        attrs = ((("current_step_a", "load-current step", "A"), ("deviation_v", "peak deviation", "V"),
+                  ("peak_impedance_ohm", "peak |ΔV|/|ΔI|", "Ω"), ("recovery_time_s", "recovery time", "s"),
+                  ("ringing_freq_hz", "ringing frequency", "Hz")) if load else
+                 (("step_v", "step at the output", "V"), ("overshoot_pct", "overshoot", "%"),
+                  ("rise_time_s", "rise time 10–90 %", "s"), ("settling_time_s", "settling time", "s"),
+                  ("ringing_freq_hz", "ringing frequency", "Hz")))
+        for attr, label, unit in attrs:
             v = getattr(m, attr, None)
             if v is not None and math.isfinite(float(v)):
-                rows.append((esc(label), esc(f"{v:.3g} %") if unit == "%" else esc(eng(float(v), unit))))
+                rows.append((esc(label), _num(v, unit)))
     fits = getattr(step, "fits", None) or ((step,) if hasattr(step, "parameters") else ())
     for f in fits[:1]:
         for p in f.parameters:
             if p.name in ("zeta", "fn_hz"):
                 label = "damping ratio ζ" if p.name == "zeta" else "natural frequency"
-                val = f"{p.value:.3g} ± {p.stderr:.2g}" if p.name == "zeta" else \
+                val = f"{sig(p.value)} ± {sig(p.stderr, 2)}" if p.name == "zeta" else \
                     f"{eng(p.value, 'Hz')} ± {eng(p.stderr, 'Hz', 2)}"
                 rows.append((esc(f"{label} ({f.model} fit)"), esc(val)))
     pm = getattr(step, "phase_margin", None)
     if pm is not None and math.isfinite(pm.phase_margin_deg):
         rows.append(("phase margin read from ζ (second-order loop)",
-                     esc(f"{pm.phase_margin_deg:.0f}° ± {pm.phase_margin_stderr_deg:.1g}°")))
+                     esc(f"{deg(pm.phase_margin_deg, 0)} ± {deg(pm.phase_margin_stderr_deg, 0)}")))
     return rows
+
+
+def _trace_measurements(inputs: ReportInputs) -> dict[str, str]:
+    """File -> a line of what was measured on it (each measured trace with its own figures)."""
+    out: dict[str, str] = {}
+    for obj, step, channel in ((inputs.step_trace, inputs.step, inputs.step_channel),
+                               (inputs.load_trace, inputs.load_step, inputs.load_channel)):
+        if obj is None or step is None:
+            continue
+        rows = _step_rows(step)
+        m = getattr(step, "measurement", None)
+        ch = getattr(m, "channel", None) or channel or "first channel"
+        text = f"{ch}: " + "; ".join(f"{html.unescape(a)} {html.unescape(b)}" for a, b in rows)
+        for src in obj.provenance.sources:
+            out[src] = text
+    return out
 
 
 def _warnings(inputs: ReportInputs) -> str:
@@ -287,8 +317,9 @@ def _warnings(inputs: ReportInputs) -> str:
     for obj, label in ((inputs.sweep, "sweep"), (inputs.step_trace, "step trace")):
         if obj is not None:
             items += [(label, w) for w in (obj.meta.get("warnings") or [])]
-    if inputs.step is not None:
-        items += [("step", w) for w in getattr(inputs.step, "warnings", ())]
+    for step, label in ((inputs.step, "reference step"), (inputs.load_step, "load step")):
+        if step is not None:
+            items += [(label, w) for w in getattr(step, "warnings", ())]
     items = list(dict.fromkeys(items))
     body = ("<ul class=\"warn\">" + "".join(f"<li><b>{esc(a)}:</b> {esc(b)}</li>" for a, b in items) + "</ul>"
             if items else "<p>None.</p>")
@@ -303,7 +334,7 @@ def render_html(inputs: ReportInputs, figures: Sequence[ReportFigure]) -> str:
         by.setdefault(f.section, []).append(f)
     s = design_summary(d)
     src = ", ".join(dict.fromkeys([*d.provenance.sources, *d.corners[0].plant.provenance.sources])) or "in-memory plant"
-    title = inputs.title or f"Loop design report: {d.kind} network for {src}"
+    title = inputs.title or f"Loop design report: {network_label(d.kind)} network for {src}"
     ok = s["targets_met"] and s["closed_loop_stable"]
     verdict = ('<span class="good">targets met</span>' if ok else '<span class="bad">targets NOT met</span>')
     quote = "".join(f"<li>{esc(line)}</li>" for line in summary_lines(s))
@@ -316,7 +347,7 @@ def render_html(inputs: ReportInputs, figures: Sequence[ReportFigure]) -> str:
         "<h2>Provenance</h2><details><summary>What produced this design (JSON)</summary>"
         f"<pre>{esc(to_json_text(d.provenance.to_dict()))}</pre></details>",
         f"<footer>Written by benchfit {esc(__version__)}. Predictions come from the fitted model and "
-        "the part values above; check them on the bench.</footer>",
+        f"the part values above; check them on the bench.<br>{esc(SAFETY_NOTE)}</footer>",
     ]
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             f"<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\"><title>{esc(title)}</title>"
@@ -341,6 +372,7 @@ def render_pdf(inputs: ReportInputs, figures: Sequence[ReportFigure]) -> bytes:
         lines += ["", inputs.fit.report()]
     if d.warnings:
         lines += ["", "Warnings:", *(f"- {w}" for w in d.warnings)]
+    lines += ["", SAFETY_NOTE]
     wrapped: list[str] = []
     for line in "\n".join(lines).splitlines():
         while len(line) > 100:
@@ -348,7 +380,8 @@ def render_pdf(inputs: ReportInputs, figures: Sequence[ReportFigure]) -> bytes:
             line = "    " + line[100:]
         wrapped.append(line)
     buf = io.BytesIO()
-    with PdfPages(buf, metadata={"Title": inputs.title or f"benchfit {d.kind} design", "Creator": "benchfit"}) as pdf:
+    with PdfPages(buf, metadata={"Title": inputs.title or f"benchfit {network_label(d.kind)} design",
+                                 "Creator": "benchfit"}) as pdf:
         for i in range(0, max(len(wrapped), 1), 90):
             pdf.savefig(_text_page("Loop design report" + (" (continued)" if i else ""), wrapped[i:i + 90]))
         for f in figures:

@@ -8,9 +8,11 @@ from dataclasses import dataclass
 from matplotlib.figure import Figure
 
 from benchfit.data.response import FrequencyResponse
+from benchfit.numfmt import sig
 from benchfit.output import plots
 from benchfit.output.report_inputs import ReportInputs
 from benchfit.output.spread_draws import SpreadDraws, spread_draws
+from benchfit.output.summary import rate_of_closure
 
 
 @dataclass(frozen=True, eq=False)
@@ -58,13 +60,16 @@ def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None) ->
             plots.bode_fit(inputs.sweep, fit)))
     fc_t, fc_a = target_crossover_hz(inputs), achieved_crossover_hz(inputs)
     band = (d.corners[0].band_hz if d.corners[0].band_hz else None)
+    roc = rate_of_closure(d)      # the one figure the text and the JSON summary quote too
     out.append(ReportFigure(
-        "crossing", "design", "Plant gain |P·H| (plant times sensing) against 1/beta = 1/|C| of the "
-        "compensator: the loop crosses over where they meet. The rate of closure written at the "
-        "crossing is the difference of their slopes there.",
+        "crossing", "design", "Plant gain |P·H| (plant times sensing) against 1/beta, the inverse of the "
+        "compensator's gain: the loop crosses over where they meet. The rate of closure written at the "
+        f"crossing is the difference of their slopes there ({roc['parts']} parts, {roc['plant']} plant), "
+        "the figure quoted above.",
         plots.crossing_view(d.corners[0].response, d.snapped.compensator, target_crossover_hz=fc_t,
                             achieved_crossover_hz=fc_a if math.isfinite(fc_a) else None,
-                            band_hz=band, reference_compensator=d.ideal.compensator)))
+                            band_hz=band, reference_compensator=d.ideal.compensator,
+                            crossing_hz=roc["freq_hz"], rate_of_closure=roc["rate_of_closure_db"])))
     # the worst corner's loop when it is at hand (a design read from JSON keeps only the nominal one)
     w = d.snapped.worst if d.snapped.worst < len(d.snapped.loops) else 0
     loop, margins = d.snapped.loops[w], d.snapped.corners[w]
@@ -88,10 +93,11 @@ def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None) ->
             same = draws.plant_uncertainty == d.spread.plant_uncertainty and draws.seed is not None
             out.append(ReportFigure(
                 "spread", "margins", f"Margins over {draws.pm_deg.size} Monte Carlo draws of the snapped "
-                f"parts (R ±{d.spread.r_tol * 100:g} %, C ±{d.spread.c_tol * 100:g} %"
+                f"parts (R ±{sig(d.spread.r_tol * 100)} %, C ±{sig(d.spread.c_tol * 100)} %"
                 + (", plant parameters from the fit's covariance" if draws.plant_uncertainty else "")
                 + "), worst corner of each draw. The yield is the share of draws meeting every target "
-                "with a stable loop. " + ("These are the draws the table above was computed from."
+                "with a stable loop. Each histogram is scaled to its own draws; a target outside that "
+                "range is an arrow at the edge. " + ("These are the draws the table above was computed from."
                                           if same else "Fresh draws: the table above quotes the "
                                           "design's own (the plant fit was not given, or no seed)."),
                 plots.spread_histograms(draws.pm_deg, draws.crossover_hz, draws.gm_db,
@@ -100,11 +106,18 @@ def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None) ->
                                         yield_fraction=draws.yield_fraction)))
     step, load = inputs.curve("step"), inputs.curve("load_step")
     if step is not None or load is not None:
+        st = inputs.stimuli or {}
+        sizes = []
+        if step is not None and st.get("reference"):
+            sizes.append(f"reference step: {st['reference']}")
+        if load is not None and st.get("load"):
+            sizes.append(f"load step: {st['load']}")
         out.append(ReportFigure(
             "step", "time", "Predicted response to a reference step and to a load step (snapped "
             "parts, delay simulated exactly)"
             + ("; black: the measured traces, aligned at their step instant and initial level"
-               if inputs.curve("step_measured") or inputs.curve("load_measured") else "") + ".",
+               if inputs.curve("step_measured") or inputs.curve("load_measured") else "") + ". "
+            + ("Step sizes of the predictions: " + "; ".join(sizes) + "." if sizes else ""),
             plots.step_response(step, load, measured=inputs.curve("step_measured"),
                                 measured_load=inputs.curve("load_measured"))))
     zo, zc = inputs.curve("zout_open"), inputs.curve("zout_closed")

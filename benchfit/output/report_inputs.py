@@ -41,6 +41,12 @@ class ReportInputs:
     notes
         Paragraphs shown with the time responses (e.g. what the measured
         traces are of).
+    load_trace, load_channel, load_step
+        A measured load step, the channel with the output deviation and its
+        analysis (:class:`benchfit.steps.result.StepResult`).
+    stimuli
+        Words saying what size each predicted step is and where that size
+        came from (``reference``, ``load``), for the captions.
     """
 
     design: Design
@@ -54,6 +60,10 @@ class ReportInputs:
     title: str | None = None
     settings: dict[str, Any] | None = None
     notes: tuple[str, ...] = ()
+    load_trace: TimeTrace | None = None
+    load_channel: str | None = None
+    load_step: Any = None
+    stimuli: dict[str, str] | None = None
 
     def curve(self, name: str) -> Curve | None:
         return (self.curves or {}).get(name)

@@ -7,6 +7,7 @@ import os
 from dataclasses import dataclass, field
 from typing import Any
 
+from benchfit import numfmt
 from benchfit.errors import InputError
 from benchfit.fileio import read_json, write_json_atomic
 from benchfit.provenance import Provenance
@@ -154,9 +155,9 @@ class StepResult:
         rows = [("initial level", _si(m.initial_v, "V")), ("final level", _si(m.final_v, "V"))]
         if isinstance(m, StepMeasurement):
             rows += [("step", _si(m.step_v, "V")), ("step instant", _si(m.step_time_s, "s")),
-                     ("overshoot", f"{m.overshoot_pct:.3g} %"), ("undershoot", f"{m.undershoot_pct:.3g} %"),
+                     ("overshoot", _si(m.overshoot_pct, "%")), ("undershoot", _si(m.undershoot_pct, "%")),
                      ("rise time 10-90 %", _si(m.rise_time_s, "s")), ("peak time", _si(m.peak_time_s, "s")),
-                     (f"settling time ±{100 * m.band:.3g} %", _si(m.settling_time_s, "s"))]
+                     (f"settling time ±{numfmt.sig(100 * m.band)} %", _si(m.settling_time_s, "s"))]
         else:
             rows += [("level shift", _si(m.shift_v, "V")), ("step instant", _si(m.step_time_s, "s")),
                      ("peak deviation", _si(m.deviation_v, "V")), ("time of peak", _si(m.peak_time_s, "s")),
@@ -164,8 +165,8 @@ class StepResult:
             if math.isfinite(m.current_step_a):
                 rows += [("load step", _si(m.current_step_a, "A")),
                          ("peak |dV|/|dI|", _si(m.peak_impedance_ohm, "ohm"))]
-        rows += [("ringing frequency", _si(m.ringing_freq_hz, "Hz")),
-                 ("log decrement", f"{m.log_decrement:.4g} ({m.lobes} lobes)"),
+        ring_f, ring_dec = _ringing_text(m.ringing_freq_hz, m.log_decrement, m.lobes)
+        rows += [("ringing frequency", ring_f), ("log decrement", ring_dec),
                  ("noise (1 sigma)", f"{_si(m.noise_v, 'V')} from {m.noise_source}")]
         lines += [f"  {k:<24} {v}" for k, v in rows]
         for f in self.fits:
@@ -177,9 +178,9 @@ class StepResult:
             pm = self.phase_margin
             basis = "fitted ζ" if self.fits else "ζ of the log decrement"
             lines += ["", f"Phase margin estimated from the {basis}",
-                      f"  {'exact second order':<24} {pm.phase_margin_deg:.3g} ± "
-                      f"{pm.phase_margin_stderr_deg:.2g} deg (crossover {_si(pm.crossover_hz, 'Hz')})",
-                      f"  {'100·ζ':<24} {pm.rule_of_thumb_deg:.3g} deg  [{RULE_OF_THUMB_NOTE}]"]
+                      f"  {'exact second order':<24} {numfmt.deg(pm.phase_margin_deg)} ± "
+                      f"{numfmt.deg(pm.phase_margin_stderr_deg)} (crossover {_si(pm.crossover_hz, 'Hz')})",
+                      f"  {'100·ζ':<24} {numfmt.deg(pm.rule_of_thumb_deg)}  [{RULE_OF_THUMB_NOTE}]"]
         if self.comparison:
             c = self.comparison
             lines += ["", f"Measured vs predicted ({c.against})",
@@ -192,22 +193,29 @@ class StepResult:
         return "\n".join(lines) + "\n"
 
 
-_PREFIX = [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"), (1e-9, "n"), (1e-12, "p")]
-
-
 def _si(x: float, unit: str) -> str:
-    """4 significant digits with an SI prefix ('—' for NaN)."""
+    """A measured figure in the one number format (:mod:`benchfit.numfmt`), 'not defined' for NaN."""
     if x is None or not math.isfinite(x):
-        return "—"
-    if unit in ("%", "deg", "") or x == 0:
-        return f"{x + 0.0:.4g} {unit}".rstrip()  # + 0.0 turns -0 into 0
-    for scale, p in _PREFIX:
-        if abs(x) >= scale or scale == 1e-12:
-            return f"{x / scale:.4g} {p}{unit}"
-    return f"{x:.4g} {unit}"
+        return numfmt.NOT_DEFINED
+    return numfmt.quantity(x + 0.0, unit)   # + 0.0 turns -0 into 0
+
+
+def _ringing_text(freq_hz: float, log_decrement: float, lobes: int) -> tuple[str, str]:
+    """The ringing rows, with what is not defined said in words (the decrement needs two lobes)."""
+    if not math.isfinite(freq_hz):
+        freq = (f"not defined: {'no' if lobes == 0 else 'only ' + str(lobes)} ringing lobe"
+                f"{'s' * (lobes != 1)} above the noise")
+    else:
+        freq = _si(freq_hz, "Hz")
+    if math.isfinite(log_decrement):
+        dec = f"{numfmt.sig(log_decrement)} (from {lobes} lobes)"
+    else:
+        dec = (f"not defined: {'no' if lobes == 0 else 'only ' + str(lobes)} ringing lobe"
+               f"{'s' * (lobes != 1)} above the noise; it needs two")
+    return freq, dec
 
 
 def _pm(value: float, stderr: float, unit: str) -> str:
     if unit in ("", "%", "deg"):
-        return f"{value:.5g} ± {stderr:.2g} {unit}".rstrip()
-    return f"{_si(value, unit)} ± {_si(stderr, unit)}"
+        return f"{numfmt.sig(value, numfmt.FIT_DIGITS)} ± {numfmt.sig(stderr, 2)} {numfmt.unit_symbol(unit)}".rstrip()
+    return f"{_si(value, unit)} ± {numfmt.eng(stderr, unit, 2)}"

@@ -1,0 +1,177 @@
+"""Trust-region least squares for the many trial refinements of one fit.
+
+The trial refinements (``refine(..., quick=True)``) only compare χ² between
+candidate models; they are small (a dozen or two parameters, a few hundred to
+a few thousand residuals) and called dozens of times per fit.  scipy's
+trust-region solver (:func:`scipy.optimize.least_squares`, ``method="trf"``
+without bounds, ``tr_solver="exact"``, ``x_scale="jac"``) spends most of such
+a call on an SVD of the M × P Jacobian per iteration.  This is the same
+algorithm — the same trust-region subproblem solved by the same Newton
+iteration on the step length (J. J. Moré, "The Levenberg–Marquardt algorithm:
+implementation and theory", Lecture Notes in Mathematics 630, 1978; scipy's
+``solve_lsq_trust_region``), the same radius updates and stopping tests — with
+the SVD of J replaced by a QR factorisation and the SVD of its small P × P
+factor R (J = QR, R = U S Vᵀ: the same S and V; the subproblem needs only
+those and S·Uᵀr = Vᵀ·Jᵀr, so Q is never formed).  The QR costs about a third
+of the SVD of a tall matrix and keeps its accuracy (the normal matrix JᵀJ
+would square the condition number, and trial fits here are often ill
+conditioned).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.linalg.lapack import dgeqrf as _dgeqrf
+
+_EPS = np.finfo(float).eps
+
+
+@dataclass(frozen=True)
+class LsqOutcome:
+    """What :func:`trust_region` returns (field names and status codes as scipy's)."""
+
+    x: np.ndarray
+    fun: np.ndarray
+    jac: np.ndarray
+    nfev: int
+    status: int  # 0: evaluation cap; 1: gtol; 2: ftol; 3: xtol; 4: ftol and xtol
+    message: str
+
+
+_MESSAGES = {0: "The maximum number of function evaluations is exceeded.",
+             1: "`gtol` termination condition is satisfied.",
+             2: "`ftol` termination condition is satisfied.",
+             3: "`xtol` termination condition is satisfied.",
+             4: "Both `ftol` and `xtol` termination conditions are satisfied."}
+
+
+def _r_factor(a: np.ndarray) -> np.ndarray:
+    """R of a = QR (P × P, upper triangular), Q never formed (LAPACK dgeqrf)."""
+    qr, _, _, info = _dgeqrf(np.asfortranarray(a))
+    if info != 0:
+        raise np.linalg.LinAlgError(f"QR factorisation failed (info {info})")
+    n = a.shape[1]
+    return np.triu(qr[:n, :n])
+
+
+def _subproblem(suf: np.ndarray, s2: np.ndarray, v: np.ndarray, delta: float, alpha: float,
+                full_rank: bool) -> tuple[np.ndarray, float]:
+    """Step of length ≤ ``delta`` minimising the quadratic model (scipy's
+    ``solve_lsq_trust_region`` written with S² and S·Uᵀr = ``suf``)."""
+    if full_rank:
+        p = -v @ (suf / s2)
+        if np.linalg.norm(p) <= delta:
+            return p, 0.0
+
+    def phi(a: float) -> tuple[float, float]:
+        denom = s2 + a
+        p_norm = np.linalg.norm(suf / denom)
+        return p_norm - delta, -float(np.sum(suf ** 2 / denom ** 3)) / p_norm
+
+    alpha_upper = np.linalg.norm(suf) / delta
+    alpha_lower = -phi(0.0)[0] / phi(0.0)[1] if full_rank else 0.0
+    if not full_rank and alpha == 0.0:
+        alpha = max(0.001 * alpha_upper, (alpha_lower * alpha_upper) ** 0.5)
+    for _ in range(10):
+        if alpha < alpha_lower or alpha > alpha_upper:
+            alpha = max(0.001 * alpha_upper, (alpha_lower * alpha_upper) ** 0.5)
+        ph, dph = phi(alpha)
+        if ph < 0:
+            alpha_upper = alpha
+        ratio = ph / dph
+        alpha_lower = max(alpha_lower, alpha - ratio)
+        alpha -= (ph + delta) * ratio / delta
+        if abs(ph) < 0.01 * delta:
+            break
+    p = -v @ (suf / (s2 + alpha))
+    return p * (delta / np.linalg.norm(p)), alpha
+
+
+def trust_region(fun: Callable[[np.ndarray], np.ndarray],
+                 jac: Callable[[np.ndarray], np.ndarray], x0: np.ndarray, *,
+                 max_nfev: int, f0: np.ndarray | None = None, ftol: float = 1e-9,
+                 xtol: float = 1e-9, gtol: float = 1e-10) -> LsqOutcome:
+    """Minimise ½‖fun(x)‖² from ``x0`` (no bounds), as scipy's TRF with ``x_scale="jac"``.
+
+    Parameters
+    ----------
+    fun, jac
+        Residual vector and its Jacobian (M × P) at ``x``; the Jacobian is
+        asked for only at accepted points, right after ``fun`` at the same x.
+    x0
+        Start.
+    max_nfev
+        Cap on evaluations of ``fun``.
+    f0
+        ``fun(x0)`` when the caller has it already (counted as the first evaluation).
+    ftol, xtol, gtol
+        scipy's stopping tests: relative reduction of the cost under ``ftol``
+        on a step that went well, a step under ``xtol`` relative to x, the
+        gradient's largest component under ``gtol``.
+    """
+    x = np.array(x0, dtype=float)
+    f = fun(x) if f0 is None else np.asarray(f0, dtype=float)
+    nfev = 1
+    j = jac(x)
+    m = f.shape[0]
+    cost = 0.5 * float(f @ f)
+    g = j.T @ f
+    scale_inv = np.sqrt(np.einsum("ij,ij->j", j, j))
+    scale_inv[scale_inv == 0] = 1.0
+    delta = float(np.linalg.norm(x * scale_inv)) or 1.0
+    alpha = 0.0
+    status = None
+    while True:
+        if np.max(np.abs(g), initial=0.0) < gtol:
+            status = 1
+        if status is not None or nfev >= max_nfev:
+            break
+        d = 1.0 / scale_inv
+        g_h = d * g
+        r_h = _r_factor(j * d)
+        _, s, vt = np.linalg.svd(r_h)
+        v = vt.T
+        s2 = s * s
+        full_rank = bool(s[-1] > _EPS * m * s[0])
+        suf = v.T @ g_h
+        reduction = -1.0
+        while reduction <= 0 and nfev < max_nfev:
+            step_h, alpha = _subproblem(suf, s2, v, delta, alpha, full_rank)
+            rs = r_h @ step_h
+            predicted = -(0.5 * float(rs @ rs) + float(g_h @ step_h))
+            step = d * step_h
+            x_new = x + step
+            f_new = fun(x_new)
+            nfev += 1
+            step_h_norm = float(np.linalg.norm(step_h))
+            if not np.all(np.isfinite(f_new)):
+                delta = 0.25 * step_h_norm
+                continue
+            cost_new = 0.5 * float(f_new @ f_new)
+            reduction = cost - cost_new
+            if predicted > 0:
+                ratio = reduction / predicted
+            else:
+                ratio = 1.0 if predicted == reduction == 0 else 0.0
+            delta_new = delta
+            if ratio < 0.25:
+                delta_new = 0.25 * step_h_norm
+            elif ratio > 0.75 and step_h_norm > 0.95 * delta:
+                delta_new = 2.0 * delta
+            ftol_ok = reduction < ftol * cost and ratio > 0.25
+            xtol_ok = np.linalg.norm(step) < xtol * (xtol + np.linalg.norm(x))
+            if ftol_ok or xtol_ok:
+                status = 4 if ftol_ok and xtol_ok else 2 if ftol_ok else 3
+                break
+            alpha *= delta / delta_new
+            delta = delta_new
+        if reduction > 0:
+            x, f, cost = x_new, f_new, cost_new
+            j = jac(x)
+            g = j.T @ f
+            scale_inv = np.maximum(scale_inv, np.sqrt(np.einsum("ij,ij->j", j, j)))
+    status = 0 if status is None else status
+    return LsqOutcome(x=x, fun=f, jac=j, nfev=nfev, status=status, message=_MESSAGES[status])
