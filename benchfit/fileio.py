@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import math
 import os
+import stat
 import tempfile
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
@@ -35,6 +36,43 @@ def _read_umask() -> int:
 _FILE_MODE = 0o666 & ~_read_umask()
 
 
+_SPECIAL = ((stat.S_ISCHR, "a character device"), (stat.S_ISBLK, "a block device"),
+            (stat.S_ISFIFO, "a named pipe"), (stat.S_ISSOCK, "a socket"))
+
+
+def check_output_path(path: str | os.PathLike) -> Path:
+    """The one check every writer makes before writing ``path``: a new name or a regular file.
+
+    An existing folder, device (``/dev/full``, ``/dev/null``), named pipe or socket is refused:
+    the atomic rename would replace it with a regular file (as root, a device node) or the
+    append would write into it.  A symbolic link is judged by what it points to.
+
+    Raises
+    ------
+    InputError
+        Naming ``path`` and what it is.
+    """
+    path = Path(path)
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        return path
+    except OSError as e:  # a path through a file, a folder we may not look into
+        raise InputError(f"cannot write here: {e.strerror}", source=str(path)) from None
+    if stat.S_ISDIR(st.st_mode):
+        raise InputError("is a folder; expected the name of a file to write", source=str(path))
+    if not stat.S_ISREG(st.st_mode):
+        kind = next((name for test, name in _SPECIAL if test(st.st_mode)), "not a regular file")
+        raise InputError(f"is {kind}, not a regular file; benchfit writes its outputs only to "
+                         "regular files: choose a file name", source=str(path))
+    return path
+
+
+def _write_failed(path: Path, e: OSError, *, kept: str) -> InputError:
+    # Disk full, quota, an I/O error: one line naming the file and what is left of it.
+    return InputError(f"cannot write: {e.strerror or e}; {kept}", source=str(path))
+
+
 def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     """Write ``data`` to ``path`` atomically (temp file, fsync, rename).
 
@@ -42,11 +80,15 @@ def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     -------
     Path
         The path written.
+
+    Raises
+    ------
+    InputError
+        ``path`` is not a regular file (:func:`check_output_path`), its folder cannot be
+        written, or writing failed (disk full); the old file is then unchanged.
     """
-    path = Path(path)
+    path = check_output_path(path)
     folder = path.parent if str(path.parent) else Path(".")
-    if path.is_dir():
-        raise InputError("is a folder; expected the name of a file to write", source=str(path))
     try:
         folder.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
@@ -60,11 +102,14 @@ def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as e:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
+        if isinstance(e, OSError):
+            kept = "the old file is unchanged" if path.exists() else "nothing was written"
+            raise _write_failed(path, e, kept=kept) from None
         raise
     try:  # make the rename itself durable
         dfd = os.open(folder, os.O_RDONLY)
@@ -83,12 +128,24 @@ def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
 
 
 def append_lines_durable(path: str | os.PathLike, lines: Iterable[str]) -> None:
-    """Append lines to a file and fsync before returning (capture, batch rows)."""
-    with open(path, "a", encoding="utf-8", newline="\n") as fh:
-        for line in lines:
-            fh.write(line if line.endswith("\n") else line + "\n")
-        fh.flush()
-        os.fsync(fh.fileno())
+    """Append lines to a file and fsync before returning (capture, batch rows).
+
+    Raises
+    ------
+    InputError
+        ``path`` is not a regular file, or writing failed (disk full).  The lines may then be
+        partly on disk; whoever appends keeps its own record of what was acknowledged (the
+        capture manifest, the batch table's complete rows).
+    """
+    path = check_output_path(path)
+    try:
+        with open(path, "a", encoding="utf-8", newline="\n") as fh:
+            for line in lines:
+                fh.write(line if line.endswith("\n") else line + "\n")
+            fh.flush()
+            os.fsync(fh.fileno())
+    except OSError as e:
+        raise _write_failed(path, e, kept="what was written before is kept") from None
 
 
 def encode_complex(values: Any) -> list[list[float]]:

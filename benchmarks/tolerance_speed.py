@@ -26,11 +26,12 @@ import numpy as np  # noqa: E402
 from benchfit.data.response import FrequencyResponse  # noqa: E402
 from benchfit.fitting import fit  # noqa: E402
 from benchfit.fitting.model import PlantModel  # noqa: E402
+from benchfit.loop.featuregrid import feature_grid  # noqa: E402
 from benchfit.loop.loopgain import LoopPlant  # noqa: E402
 from benchfit.loop.opamp import OpAmp  # noqa: E402
 from benchfit.loop.sensing import Sensing  # noqa: E402
 from benchfit.loop.synthesis import Targets, synthesize  # noqa: E402
-from benchfit.loop.tolerance import _grid, monte_carlo  # noqa: E402
+from benchfit.loop.tolerance import monte_carlo  # noqa: E402
 
 
 def buck(r_load: float = 1.0) -> PlantModel:
@@ -79,7 +80,7 @@ def main() -> None:
             for label, corners in (("1", one), ("3", three), ("fit", fitted)):
                 net = synthesize(kind, corners[0], Targets(20e3 if kind == "type3" else 5e3, 50, 6),
                                  opamp=op).network
-                grid = _grid(corners[0], net, op).size
+                grid = feature_grid(corners[0], net, op).size
                 for n in counts:
                     wall, cpu = best_time(lambda n=n, c=corners, net=net, op=op: monte_carlo(
                         c, net, op, targets, r_tol=0.01, c_tol=0.1, draws=n, seed=1), args.repeat)

@@ -40,15 +40,18 @@ buck_zout.csv
     source): (rL + sL) ∥ R ∥ (ESR + 1/sC).  10 Hz–1 MHz, 301 points, real and
     imaginary parts in ohm, comma separated.  Noise: 0.5 % complex Gaussian.
 step_trace.csv
-    Scope record of a reference step on the compensated buck: CH1 the reference
-    (0.80 V → 0.85 V at t = 0), CH2 the output (3.300 V → 3.50625 V, gain
-    3.3/0.8) with a second-order response, ζ = 0.3 and 5 kHz ringing.  2000
-    samples every 1 µs from −200 µs (pre-trigger).  Noise 0.5 mV on CH1, 2 mV
-    (1 % of the step) on CH2.  benchfit's canonical trace format (time in s).
+    Scope record of a reference step on the buck as it is now: the same buck
+    (with its 150 ns delay, Padé-approximated) closed by an older, weaker Type III
+    network (crossover 8 kHz, 92° of boost: about 33° of phase margin) through
+    the demo's 10 kΩ / 3.24 kΩ divider.  CH1 the reference (0.80 V → 0.85 V at
+    t = 0), CH2 the output, Vout/Vref = (1/H)·T/(1 + T).  2000 samples every
+    1 µs from −200 µs (pre-trigger).  Noise 0.5 mV on CH1, 2 mV on CH2.
+    benchfit's canonical trace format (time in s).  scenarios.json records the
+    ζ and fn of the closed loop's dominant pole pair.
 load_step_trace.csv
-    Output deviation of the compensated buck for a 0.5 A → 1.5 A load step:
-    closed-loop output impedance taken as Rp·2ζωn·s/(s² + 2ζωn·s + ωn²) with
-    Rp = 40 mΩ, fn = 8 kHz, ζ = 0.4.  2000 samples every 0.5 µs from −100 µs;
+    Output deviation of the same present board for a 0.5 A → 1 A load step:
+    ΔI times the step response of Zcl = Zol/(1 + T) (peak |Zcl| recorded as
+    rp_ohm).  2000 samples every 0.5 µs from −100 µs;
     no time column (a 'Sample interval' line instead).  Channels ``Iout (A)``
     (noise 5 mA) and ``Vout AC (mV)`` (noise 0.3 mV).  Semicolon separator,
     decimal comma.
@@ -347,50 +350,113 @@ def gen_refbuf(out: Path, scen: dict) -> None:
         "seed": 20240108}
 
 
-def second_order_step(t: np.ndarray, zeta: float, wn: float) -> np.ndarray:
-    """Unit step response of wn²/(s² + 2ζwn·s + wn²), zero before t = 0."""
-    wd = wn * np.sqrt(1 - zeta ** 2)
-    tt = np.maximum(t, 0.0)
-    y = 1 - np.exp(-zeta * wn * tt) * (np.cos(wd * tt) + zeta / np.sqrt(1 - zeta ** 2) * np.sin(wd * tt))
-    return np.where(t >= 0, y, 0.0)
+# --------------------------------------------------------------------------------------
+# the board as it is now: the same buck closed by an older, weaker Type III network
+# --------------------------------------------------------------------------------------
+#: Divider of the demo's design (10 kΩ over 3.24 kΩ): sensing gain H.
+SENSE_H = 3.24e3 / (10e3 + 3.24e3)
+#: The present compensator: crossover 8 kHz with 92° of boost (the new design: 20 kHz, 126°).
+PRESENT_FC_HZ, PRESENT_BOOST_DEG = 8e3, 92.0
+
+
+def present_compensator(p: dict) -> tuple[np.ndarray, np.ndarray]:
+    """C = ωi/s · (1 + s/ωz)² / (1 + s/ωp)², ωz = ωc/√K, ωp = √K·ωc (K factor), |T(jωc)| = 1."""
+    k = np.tan(np.radians(PRESENT_BOOST_DEG / 4 + 45.0)) ** 2
+    wc = TWO_PI * PRESENT_FC_HZ
+    wz, wp = wc / np.sqrt(k), wc * np.sqrt(k)
+    num = np.polymul([1 / wz, 1.0], [1 / wz, 1.0])
+    den = np.polymul([1.0, 0.0], np.polymul([1 / wp, 1.0], [1 / wp, 1.0]))
+    nump, denp = buck_plant_tf(p)
+    s = 1j * wc
+    t_unit = (np.polyval(nump, s) / np.polyval(denp, s) * np.exp(-s * p["delay_s"]) * SENSE_H
+              * np.polyval(num, s) / np.polyval(den, s))
+    return num / abs(t_unit), den
+
+
+def present_loop(p: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Loop gain T = P·H·C of the present board, the delay as a second-order Padé approximant."""
+    tau = p["delay_s"]
+    pade_n = np.array([tau ** 2 / 12, -tau / 2, 1.0])
+    pade_d = np.array([tau ** 2 / 12, tau / 2, 1.0])
+    nump, denp = buck_plant_tf(p)
+    numc, denc = present_compensator(p)
+    return (SENSE_H * np.polymul(np.polymul(nump, pade_n), numc),
+            np.polymul(np.polymul(denp, pade_d), denc))
+
+
+def dominant_pair(den_closed: np.ndarray) -> tuple[float, float]:
+    """(ζ, fn) of the closed-loop complex pole pair closest to the imaginary axis."""
+    r = np.roots(den_closed)
+    pair = r[r.imag > 0]
+    q = pair[np.argmin(np.abs(pair.real))]
+    return float(-q.real / abs(q)), float(abs(q) / TWO_PI)
+
+
+def closed_step(num: np.ndarray, den: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Unit-step response of num/den at the times t (zero before t = 0)."""
+    tt = t[t >= 0]
+    _, y = signal.step(signal.lti(num, den), T=tt - tt[0])
+    out = np.zeros_like(t)
+    out[t >= 0] = y
+    return out
+
+
+def present_board(p: dict) -> dict:
+    """Closed-loop figures of the present board: Vout/Vref, Zcl, their dominant pair, the Zcl peak."""
+    nt, dt = present_loop(p)
+    n, d = nt, np.polyadd(dt, nt)
+    numz, denz = buck_zout_tf(p)
+    zn, zd = np.polymul(numz, dt), np.polymul(denz, np.polyadd(dt, nt))
+    zeta, fn = dominant_pair(np.polyadd(dt, nt))
+    f = np.logspace(2, 6, 2000)
+    zmag = np.abs(np.polyval(zn, 2j * np.pi * f) / np.polyval(zd, 2j * np.pi * f))
+    return {"vout_over_vref": (n / SENSE_H, d), "zcl": (zn, zd), "zeta": zeta, "fn_hz": fn,
+            "zcl_peak_ohm": float(zmag.max()), "zcl_peak_hz": float(f[np.argmax(zmag)])}
 
 
 def gen_step(out: Path, scen: dict) -> None:
-    zeta, fd = 0.3, 5e3
-    wn = TWO_PI * fd / np.sqrt(1 - zeta ** 2)
+    p = buck_parts()
+    pb = present_board(p)
     n, dt, t0 = 2000, 1e-6, -200e-6
     t = t0 + dt * np.arange(n)
     ref0, ref1 = 0.80, 0.85
-    gain = 3.3 / 0.8
-    y = ref0 * gain + (ref1 - ref0) * gain * second_order_step(t, zeta, wn)
+    gain = 1.0 / SENSE_H
+    y = ref0 * gain + (ref1 - ref0) * closed_step(*pb["vout_over_vref"], t)
     rng = np.random.default_rng(20240106)
     ch1 = np.where(t >= 0, ref1, ref0) + rng.normal(0, 0.5e-3, n)
     ch2 = y + rng.normal(0, 2e-3, n)
     # benchfit's own canonical trace format: time in s, one column per channel in V
-    meta = {"what": "reference step on the compensated buck", "source": "sample_data/generate.py",
+    meta = {"what": "reference step on the buck with its present compensation",
+            "source": "sample_data/generate.py",
             "units": {"CH1": "V", "CH2": "V"}, "channels": {"CH1": "reference", "CH2": "output"}}
     lines = ["# benchfit trace v1", "# meta: " + json.dumps(meta), "time_s,CH1,CH2"]
     lines += [f"{ti:.7e},{a:.5f},{b:.5f}" for ti, a, b in zip(t, ch1, ch2, strict=True)]
     write(out / "step_trace.csv", "\n".join(lines) + "\n")
+    step = (ref1 - ref0) * gain
     scen["step_trace.csv"] = {
-        "what": "reference step on the compensated buck: CH1 reference, CH2 output",
+        "what": "reference step on the buck with its present compensation (an older Type III network: "
+                f"{PRESENT_FC_HZ:g} Hz crossover, {PRESENT_BOOST_DEG:g}° boost): CH1 reference, CH2 output",
         "channels": {"CH1": "reference (V)", "CH2": "output (V)"},
-        "truth": {"zeta": zeta, "f_ring_hz": fd, "fn_hz": wn / TWO_PI, "t_step_s": 0.0,
+        "truth": {"zeta": pb["zeta"], "fn_hz": pb["fn_hz"],
+                  "f_ring_hz": pb["fn_hz"] * float(np.sqrt(1 - pb["zeta"] ** 2)), "t_step_s": 0.0,
                   "ch1_before_v": ref0, "ch1_after_v": ref1, "ch2_before_v": ref0 * gain,
-                  "ch2_after_v": ref1 * gain, "overshoot_fraction": float(np.exp(-np.pi * zeta / np.sqrt(1 - zeta ** 2)))},
+                  "ch2_after_v": ref1 * gain, "overshoot_fraction": float((y.max() - ref1 * gain) / step),
+                  "closed_loop": "Vout/Vref = (1/H)·T/(1 + T), T = buck · H · present compensator",
+                  "dominant_pair": "zeta and fn of the closed-loop pole pair nearest the imaginary axis"},
+        "present_compensator": {"crossover_hz": PRESENT_FC_HZ, "boost_deg": PRESENT_BOOST_DEG,
+                                "sensing_gain": SENSE_H},
         "sampling": {"n": n, "dt_s": dt, "t0_s": t0},
         "noise": {"ch1_v_std": 0.5e-3, "ch2_v_std": 2e-3}, "seed": 20240106}
 
 
 def gen_load_step(out: Path, scen: dict) -> None:
-    zeta, fn, rp, di = 0.4, 8e3, 40e-3, 1.0
-    wn = TWO_PI * fn
-    wd = wn * np.sqrt(1 - zeta ** 2)
+    p = buck_parts()
+    pb = present_board(p)
+    di = 0.5
     n, dt, t0 = 2000, 0.5e-6, -100e-6
     t = t0 + dt * np.arange(n)
-    tt = np.maximum(t, 0)
-    v = np.where(t >= 0, -di * rp * 2 * zeta * wn / wd * np.exp(-zeta * wn * tt) * np.sin(wd * tt), 0.0)
-    i_load = np.where(t >= 0, 1.5, 0.5)
+    v = -di * closed_step(*pb["zcl"], t)
+    i_load = np.where(t >= 0, 0.5 + di, 0.5)
     rng = np.random.default_rng(20240107)
     i_n = i_load + rng.normal(0, 5e-3, n)
     v_n = v + rng.normal(0, 0.3e-3, n)
@@ -399,10 +465,12 @@ def gen_load_step(out: Path, scen: dict) -> None:
     lines += [f"{dc(a, '%.4f')};{dc(b * 1e3, '%.3f')}" for a, b in zip(i_n, v_n, strict=True)]
     write(out / "load_step_trace.csv", "\n".join(lines) + "\n")
     scen["load_step_trace.csv"] = {
-        "what": "output deviation of the compensated buck for a 0.5 A -> 1.5 A load step",
+        "what": "output deviation of the buck with its present compensation for a 0.5 A -> 1 A load step",
         "channels": {"Iout": "load current (A)", "Vout AC": "output deviation (V, file in mV)"},
-        "truth": {"zcl": "Rp*2*zeta*wn*s/(s^2 + 2*zeta*wn*s + wn^2)", "rp_ohm": rp, "fn_hz": fn,
-                  "zeta": zeta, "delta_i_a": di, "t_step_s": 0.0,
+        "truth": {"zcl": "Zol/(1 + T), T = buck · H · present compensator (as step_trace.csv)",
+                  "zcl_model": zpk_dict(*pb["zcl"]),
+                  "rp_ohm": pb["zcl_peak_ohm"], "zcl_peak_hz": pb["zcl_peak_hz"], "fn_hz": pb["fn_hz"],
+                  "zeta": pb["zeta"], "delta_i_a": di, "t_step_s": 0.0,
                   "peak_deviation_v": float(v.min())},
         "sampling": {"n": n, "dt_s": dt, "t0_s": t0},
         "noise": {"iout_a_std": 5e-3, "vout_v_std": 0.3e-3}, "seed": 20240107}

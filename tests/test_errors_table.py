@@ -52,6 +52,8 @@ def scratch(tmp_path_factory):
     (d / "sweep.csv").write_text(HEAD + "".join(
         f"{x:.6g},{20 * np.log10(abs(h)):.4f},{np.degrees(np.angle(h)):.3f}\n" for x, h in zip(f, noisy, strict=True)))
     (d / "folder").mkdir()
+    if hasattr(os, "mkfifo"):
+        os.mkfifo(d / "pipe")   # a special file where an output belongs
     (d / "lot").mkdir()
     write_sweep_csv(FrequencyResponse(freq_hz=f, response=noisy), d / "lot" / "unit1.csv")
     (d / "empty.csv").write_bytes(b"")
@@ -62,6 +64,7 @@ def scratch(tmp_path_factory):
     (d / "one_point.csv").write_text(HEAD + "100,1,2\n")
     (d / "negative_freq.csv").write_text(HEAD + "100,1,2\n-200,1,2\n")
     (d / "nan.csv").write_text(HEAD + "100,1,2\n200,nan,2\n")
+    (d / "far.csv").write_text(HEAD + "".join(f"{x:.6g},-20,-90\n" for x in np.geomspace(1e297, 1e300, 20)))
     (d / "four_points.csv").write_text(HEAD + "100,-1,-90\n200,-2,-91\n300,-3,-92\n400,-4,-93\n")
     (d / "lin_as_db.csv").write_text(HEAD + "".join(f"{x:.6g},{1e3 / x:.6g},-90\n" for x in f[::7]))
     # a loop gain below 0 dB everywhere in the band: |T| = 0.3 (f/10 Hz)^-0.25
@@ -82,6 +85,9 @@ def scratch(tmp_path_factory):
     (d / "bad_model.json").write_text('{"kind": "plant_model", "zeros": true, "poles": [], "k": 1}')
     (d / "bad_design.toml").write_text('[plant]\nfiles = ["sweep.csv"]\ncolour = "red"\n')
     (d / "folder" / "escape.toml").write_text('[plant]\nfiles = ["../sweep.csv"]\n')
+    generic = Path(__file__).resolve().parents[1] / "benchfit/bench/profiles/generic-analyzer.toml"
+    (d / "format_spec.toml").write_text(generic.read_text(encoding="utf-8").replace(
+        "{start_hz}", "{start_hz:>999999999}", 1), encoding="utf-8")
     (d / "bad_profile.toml").write_text('name = "mine"\nkind = "analyzer"\n')
     (d / "bad_limits.toml").write_text("phase_margin_deg = 45\n")
     design(LoopPlant(m, Sensing.divider(30e3, 10e3), name="buck", band_hz=(10, 1e6)), "type3",

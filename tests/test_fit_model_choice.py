@@ -221,3 +221,23 @@ def test_scikit_rf_shipped_files_fit_near_their_floor(name, param):
     res = fit(read_sweep(SKRF_DATA / name, param=param))
     assert res.stats["reduced_chi2"] <= 2.0, res.stats
     assert res.model.is_stable       # passive data are held stable by default
+
+
+def test_a_pole_above_the_band_beside_a_resonance_is_not_mimicked_by_zeros():
+    # Pole 100 Hz, pair 20 kHz Q 10, pole 250 kHz above a 10 Hz..100 kHz band, 0.05 dB /
+    # 0.3 deg.  On 4 of 20 seeds the 250 kHz pole went first in the pruning and a
+    # right-half-plane zero at 250 kHz with an undamped zero pair at 263 kHz took its
+    # place (seven parameters for five).
+    f = np.geomspace(10, 100e3, 301)
+    p = [-TWO_PI * 100.0, -TWO_PI * 250e3, *signal.tf2zpk([1.0], [1.0, TWO_PI * 20e3 / 10.0,
+                                                                  (TWO_PI * 20e3) ** 2])[1]]
+    k = 2.0 * float(np.real(np.prod(np.abs(p))))
+    _, h0 = signal.freqs_zpk([], p, k, TWO_PI * f)      # reference: scipy
+    for seed in (60, 61, 65, 66, 400, 401):
+        rng = np.random.default_rng(seed)
+        h = h0 * 10 ** (rng.normal(0, 0.05, f.shape) / 20) * np.exp(1j * np.radians(rng.normal(0, 0.3, f.shape)))
+        res = fit(FrequencyResponse(freq_hz=f, response=h))
+        assert [p.name for p in res.parameters] == ["gain", "pole1_hz", "pole2_hz", "pair1_f0_hz",
+                                                    "pair1_q"], seed
+        assert res.parameter("pair1_q").value == pytest.approx(10.0, rel=0.05)
+        assert _model_error(res, f, [], p, k) < 0.02

@@ -53,7 +53,7 @@ def test_load_step_size_given_or_none():
     assert load_step_size(None, None, None) == (None, "")
     assert load_step_size(None, None, 2.0) == (2.0, "as given")
     di, words = load_step_size(_load_trace(0.5), None, 1.0)
-    assert di == 1.0 and "no current channel" in words
+    assert di == 1.0 and "no current channel" in words and "as given" in words
     with pytest.raises(InputError, match="not both"):
         load_step_size(_load_trace(0.5), "Iout", 1.0)
 
@@ -182,3 +182,69 @@ def test_docs_carry_the_caution_and_the_full_reference():
     # the reference as tests/test_synthesis.py gives it
     assert ('H. Dean Venable, "The K factor: a new mathematical tool for stability analysis and '
             'synthesis", Proceedings of Powercon 10, 1983') in design_doc
+
+
+def test_predicted_frequency_curves_cover_the_measured_band(tmp_path, capsys):
+    """`predict --curve loop` writes the plant's band and says so (was 5.6e-05 Hz to 2e+08 Hz)."""
+    from benchfit.cli import main
+    from benchfit.output.curves import read_curve_csv
+
+    d = _small_design()
+    d.to_json(tmp_path / "design.json")
+    assert main(["predict", str(tmp_path / "design.json"), "--curve", "loop", "-o", str(tmp_path / "c.csv")]) == 0
+    out = capsys.readouterr().out
+    c = read_curve_csv(tmp_path / "c.csv")
+    assert c.x[0] >= 10.0 and c.x[-1] <= 1e6 and c.x.size > 100
+    assert "(the plant's measured band)" in out and "e+" not in out
+
+
+def test_simulated_scope_keeps_the_replayed_channels_name(tmp_path, capsys):
+    """`scope --simulate FILE --sim-channel CH2` stores CH2 (it stored CH1), and says what it replayed."""
+    from benchfit.cli import main
+    from benchfit.cli.cmd_scope import replay_channel_name
+    from benchfit.data import read_trace
+
+    assert replay_channel_name("ch2") == "CH2" and replay_channel_name("Vout AC") == "CH1"
+    assert replay_channel_name(None) == "CH1"
+    out = tmp_path / "t.csv"
+    assert main(["scope", "--simulate", str(SAMPLES / "step_trace.csv"), "--sim-channel", "CH2",
+                 "-o", str(out)]) == 0
+    assert read_trace(out).names == ["CH2"]
+    assert "replaying CH2 of" in capsys.readouterr().out
+
+
+def test_batch_histograms_are_labelled_with_units():
+    from benchfit.batch.summary import histogram_figure
+
+    rng = np.random.default_rng(3)
+    rows = [{"status": "pass", "phase_margin_deg": float(rng.normal(55, 2)),
+             "crossover_hz": float(rng.normal(20e3, 500)), "modulus_margin": float(rng.normal(0.8, 0.02)),
+             "param:pair1_f0_hz": float(rng.normal(5062, 20))} for _ in range(40)]
+    fig = histogram_figure(rows)
+    fig.canvas.draw()
+    shown = [ax for ax in fig.axes if ax.get_visible()]
+    assert [ax.get_xlabel() for ax in shown] == ["Phase margin (deg)", "Crossover (Hz)", "Modulus margin (ratio)",
+                                                "Pole pair 1, natural frequency (Hz)"]
+    for ax in shown:
+        assert "_" not in ax.get_title() and ax.get_ylabel() == "Units (count)"
+        assert ax.xaxis.get_offset_text().get_text() == ""      # no '+2e4' offset on the ticks
+    ticks = [t.get_text() for t in shown[1].get_xticklabels() if t.get_text()]
+    assert any(t.endswith("k") for t in ticks)                   # 19.5k, 20k: prefixes
+
+
+def test_report_command_matches_the_load_step_to_the_current_channel(tmp_path):
+    """`report --load-current-channel Iout`: the caption says the measured current step is the size."""
+    from benchfit.cli import main
+    from benchfit.data import read_sweep
+    from benchfit.fitting import fit
+
+    d = _small_design()
+    d.to_json(tmp_path / "design.json")
+    fit(read_sweep(SAMPLES / "buck_zout.csv")).to_json(tmp_path / "zout.json")
+    html_path = tmp_path / "r.html"
+    assert main(["report", str(tmp_path / "design.json"), "-o", str(html_path), "--zout", str(tmp_path / "zout.json"),
+                 "--load-trace", str(SAMPLES / "load_step_trace.csv"), "--load-channel", "Vout AC",
+                 "--load-current-channel", "Iout"]) == 0
+    page = html_path.read_text(encoding="utf-8")
+    assert "load step: 500 mA, the current step measured on Iout of load_step_trace.csv" in page
+    assert "measured load step" in page

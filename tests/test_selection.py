@@ -239,3 +239,21 @@ def test_drop_far_tests_groups_beyond_3x_on_the_data():
     assert drop_far(pb2, st, v, None)[0] == st2       # zeros may go with --order N
     assert drop_far(pb2, Structure(real_poles=3), np.array([1.0, 1e3, 350e3, 1e12]),
                     None)[0].real_poles == 3          # poles may not
+
+
+
+def test_pole_trial_offers_a_pole_for_a_lagging_zero_just_above_the_band():
+    from benchfit.fitting.groups import with_pole
+    from benchfit.fitting.pruning import pole_trial
+
+    # Right-half-plane zero at 249 kHz and a zero pair at 261 kHz over a 100 kHz band.
+    st = Structure(real_poles=1, real_zeros=1, zero_pairs=1)
+    v = np.array([2.0, 100.0, -249e3, 261e3, 70.0])
+    groups, f_pole = pole_trial(st, v, 100e3)
+    assert sorted(groups) == ["zero1", "zero_pair1"] and f_pole == pytest.approx(249e3)
+    assert pole_trial(st, v, 100e3, poles=False) is None           # --order N: no new pole
+    assert pole_trial(Structure(real_poles=1, real_zeros=1), np.array([1.0, 1e2, 5e5]),
+                      100e3) is None                               # a left-half-plane zero
+    st2, v2 = with_pole(*without(st, v, groups), f_pole)
+    assert st2.names == ("gain", "pole1_hz", "pole2_hz")
+    np.testing.assert_array_equal(v2, [2.0, 100.0, 249e3])

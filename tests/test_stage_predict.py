@@ -84,6 +84,24 @@ def test_predict_and_report_read_a_stage_design(tmp_path):
     d = json.loads(out.read_text())
     assert f"rate of closure {d['crossing']['rate_of_closure_db_per_decade']:.0f} dB/decade" in page
     assert page.count("data:image/png;base64,") == 2
+    # measured traces and a measured closed loop overlaid (the predicted curves themselves,
+    # written as a scope record and a sweep: the report must draw them, not fail)
+    from benchfit.data.canonical import write_sweep_csv, write_trace_csv
+    from benchfit.data.response import FrequencyResponse
+    from benchfit.data.trace import TimeTrace
+
+    st = np.loadtxt(tmp_path / "step.csv", delimiter=",", comments="#", skiprows=5)
+    ld = np.loadtxt(tmp_path / "load_step.csv", delimiter=",", comments="#", skiprows=5)
+    write_trace_csv(TimeTrace(st[:, 0], {"out": st[:, 1]}), tmp_path / "st.csv")
+    write_trace_csv(TimeTrace(ld[:, 0], {"dev": ld[:, 1]}), tmp_path / "ld.csv")
+    cl = np.loadtxt(tmp_path / "closed.csv", delimiter=",", comments="#", skiprows=5)
+    write_sweep_csv(FrequencyResponse(cl[:, 0], cl[:, 1] + 1j * cl[:, 2], quantity="closed"),
+                    tmp_path / "cl.csv")
+    r = run_cli("report", str(out), "-o", str(tmp_path / "r2.html"), "--trace", str(tmp_path / "st.csv"),
+                "--load-trace", str(tmp_path / "ld.csv"), "--sweep", str(tmp_path / "cl.csv"))
+    assert r.returncode == 0, r.stderr
+    r = run_cli("report", str(out), "--pdf")
+    assert r.returncode == 2 and "--pdf" in r.stderr
 
 
 @pytest.mark.parametrize("kind", ["plain", "lead", "lag", "lag-lead", "isolation", "snubber"])

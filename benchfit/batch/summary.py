@@ -17,7 +17,8 @@ import numpy as np
 from benchfit.batch.limits import Limits
 from benchfit.batch.table import PARAM_PREFIX
 from benchfit.fileio import as_float, write_bytes_atomic
-from benchfit.output.style import MEASURED, TARGET, log_axis, new_figure, styled
+from benchfit.fitting.parameters import parameter_label
+from benchfit.output.style import ENG_FORMATTER, MEASURED, TARGET, log_axis, new_figure, styled
 from benchfit.provenance import Provenance
 
 #: Figures summarised when present, in report order.
@@ -181,6 +182,29 @@ def _limit_values(name: str, limits: Limits | None) -> list[float]:
     return [v for v in vals if v is not None]
 
 
+#: What a person reads for each summarised column: (label, unit symbol; '' for a plain ratio).
+_COLUMN_LABELS = {"phase_margin_deg": ("Phase margin", "deg"), "gain_margin_db": ("Gain margin", "dB"),
+                  "crossover_hz": ("Crossover", "Hz"), "phase_crossover_hz": ("Phase crossover", "Hz"),
+                  "delay_margin_s": ("Delay margin", "s"), "modulus_margin": ("Modulus margin", ""),
+                  "fit_rms_db": ("Fit residual rms, magnitude", "dB"),
+                  "fit_rms_deg": ("Fit residual rms, phase", "deg")}
+
+
+def column_label(name: str) -> tuple[str, str]:
+    """('Crossover', 'Hz') for 'crossover_hz'; fitted parameters by their readable names.
+
+    The result table keeps its stable column names; pictures and text use these.
+    """
+    if name in _COLUMN_LABELS:
+        return _COLUMN_LABELS[name]
+    if name.startswith(PARAM_PREFIX):
+        key = name[len(PARAM_PREFIX):]
+        unit = "Hz" if key.endswith("_hz") else ("s" if key.endswith("_s") else "")
+        label = parameter_label(key)
+        return (label[:1].upper() + label[1:], unit)
+    return (name, "")
+
+
 @styled
 def histogram_figure(rows: Sequence[dict[str, Any]], *, limits: Limits | None = None):
     """A matplotlib Figure: one histogram per summarised figure, limits as dashed lines.
@@ -197,6 +221,7 @@ def histogram_figure(rows: Sequence[dict[str, Any]], *, limits: Limits | None = 
     axes = fig.subplots(nrow, ncol, squeeze=False)
     for ax, name in zip(axes.flat, names, strict=False):
         v = np.array([r[name] for r in good if r.get(name) is not None and math.isfinite(r[name])])
+        label, unit = column_label(name)
         bins = int(np.clip(2 * np.sqrt(v.size), 5, 60))
         logx = bool(name.endswith("_hz") and np.all(v > 0) and v.max() / v.min() > 10)
         edges = np.geomspace(v.min(), v.max(), bins + 1) if logx else bins
@@ -204,10 +229,15 @@ def histogram_figure(rows: Sequence[dict[str, Any]], *, limits: Limits | None = 
         ax.hist(v, bins=edges, color=MEASURED, alpha=0.75, histtype="stepfilled")
         if logx:
             log_axis(ax, "x")
+        elif unit in ("Hz", "s"):          # prefixes on the ticks (19.6k), never an offset
+            ax.xaxis.set_major_formatter(ENG_FORMATTER)
+        else:
+            ax.ticklabel_format(axis="x", useOffset=False, style="plain")
         for x in _limit_values(name, limits):
             ax.axvline(x, color=TARGET, linestyle="--", linewidth=1.5)
-        ax.set_title(f"{name} (n={v.size})")
-        ax.set_ylabel("units")
+        ax.set_title(f"{label} (n = {v.size})", fontsize=9.5)
+        ax.set_xlabel(f"{label} ({unit})" if unit else f"{label} (ratio)")
+        ax.set_ylabel("Units (count)")
     for ax in list(axes.flat)[len(names):]:
         ax.set_visible(False)
     return fig

@@ -7,13 +7,18 @@ reports and the data); in ``step`` mode each point is its own segment (set
 the CW frequency, trigger, ``*OPC?``, read one point).
 
 After each segment its rows are appended to the output CSV and fsync'd, then
-a small manifest (``OUT.csv.capture.json``) recording how many segments and
-bytes are safely on disk is atomically replaced.  The output is a canonical
-sweep CSV (:mod:`benchfit.data.canonical`) after every append.  ``resume``
-truncates anything past the manifest's byte count (a torn last line, or rows
-of a segment whose manifest update never landed) and carries on, so the
-finished file has no duplicate and no missing point.  At the end the header
-is rewritten atomically with the end time.
+a small manifest (``OUT.csv.capture.json``) recording how many rows are safely
+on disk, and the frequency of the last, is atomically replaced.  The output is a
+canonical sweep CSV (:mod:`benchfit.data.canonical`) after every append.  At the
+end the header is rewritten atomically with the end time, then the manifest is
+marked complete.
+
+``resume`` follows one rule (:func:`resume_offset`): the acknowledged rows are
+the manifest's count, checked against the rows actually in the file; the file is
+cut only after the last of them (a torn last line, rows of a segment whose
+manifest update never landed), never inside them, whatever the file's size or
+header says.  A kill at any write (tested at every one) therefore resumes with
+no duplicate, no missing point and no acknowledged row lost.
 """
 
 from __future__ import annotations
@@ -36,7 +41,13 @@ from benchfit.bench.session import Session
 from benchfit.data.canonical import SWEEP_MAGIC, read_canonical_sweep
 from benchfit.data.response import QUANTITIES, FrequencyResponse
 from benchfit.errors import InputError, InstrumentError
-from benchfit.fileio import append_lines_durable, read_json, write_json_atomic, write_text_atomic
+from benchfit.fileio import (
+    append_lines_durable,
+    check_output_path,
+    read_json,
+    write_json_atomic,
+    write_text_atomic,
+)
 from benchfit.provenance import Provenance
 
 MAX_POINTS = 100001
@@ -208,6 +219,119 @@ def _header_text(meta: dict[str, Any], prov: Provenance, quantity: str) -> str:
             f"# provenance: {json.dumps(prov.to_dict(), default=str)}\nfreq_hz,re,im\n")
 
 
+@dataclass(frozen=True)
+class CaptureFile:
+    """What is in a capture file, read line by line the way it was written.
+
+    Attributes
+    ----------
+    meta
+        The ``# meta:`` object of the header (settings, instrument, ``complete``).
+    header_end
+        Byte offset just after the column-name line.
+    row_ends
+        Byte offset just after each complete row, in order.
+    row_freqs
+        Frequency of each complete row, Hz.
+    size
+        Bytes in the file; past ``row_ends[-1]`` (or ``header_end``) is a torn or foreign tail.
+    """
+
+    meta: dict[str, Any]
+    header_end: int
+    row_ends: tuple[int, ...]
+    row_freqs: tuple[float, ...]
+    size: int
+
+    @property
+    def rows(self) -> int:
+        return len(self.row_ends)
+
+
+def scan_capture_file(path: str | os.PathLike) -> CaptureFile:
+    """Read the header and every complete row of a capture file (finished or not).
+
+    A row is complete when its line ends in a newline and holds three finite numbers with
+    a frequency above the previous row's; the scan stops at the first line that is not one.
+
+    Raises
+    ------
+    InputError
+        The file is not a capture file (no canonical sweep header with a meta line).
+    """
+    path = check_output_path(path)  # a regular file: reading a pipe would wait forever
+    try:
+        data = path.read_bytes()
+    except OSError as e:
+        raise InputError(f"cannot read: {e.strerror}", source=str(path)) from None
+    lines = data.split(b"\n")
+    if not lines or lines[0].rstrip(b"\r").decode("utf-8", "replace") != SWEEP_MAGIC:
+        raise InputError("not a capture file (no benchfit sweep header); it is left as it is",
+                         source=str(path))
+    meta: dict[str, Any] | None = None
+    offset = 0
+    for i, raw in enumerate(lines[:-1]):
+        offset += len(raw) + 1
+        text = raw.decode("utf-8", "replace")
+        if text.startswith("# meta: "):
+            try:
+                meta = json.loads(text[len("# meta: "):])
+            except (ValueError, RecursionError):
+                meta = None
+        if text.strip() == "freq_hz,re,im":
+            header_end, first = offset, i + 1
+            break
+        if not text.startswith("#"):
+            break
+    else:
+        first = None
+    if first is None or not isinstance(meta, dict):
+        raise InputError("capture file has no complete header (column names and meta line); "
+                         "it is left as it is", source=str(path))
+    ends: list[int] = []
+    freqs: list[float] = []
+    for raw in lines[first:-1]:  # the last piece has no newline after it: never a complete row
+        try:
+            f, re_, im = (float(c) for c in raw.decode("ascii").split(","))
+        except (ValueError, UnicodeDecodeError):
+            break
+        if not (np.isfinite(f) and np.isfinite(re_) and np.isfinite(im) and f > 0) or \
+                (freqs and f <= freqs[-1]):
+            break
+        offset += len(raw) + 1
+        ends.append(offset)
+        freqs.append(f)
+    return CaptureFile(meta=meta, header_end=header_end, row_ends=tuple(ends),
+                       row_freqs=tuple(freqs), size=len(data))
+
+
+def resume_offset(scan: CaptureFile, rows_acknowledged: int, last_freq_hz: float | None,
+                  source: str) -> int:
+    """Byte offset a resumed capture continues from: just after the last acknowledged row.
+
+    The evidence is the manifest's row count (written only after those rows were fsync'd)
+    and its last frequency, checked against the rows the file really holds.  The offset is
+    never before an acknowledged row: when the file holds fewer complete rows than were
+    acknowledged, or its last acknowledged row is not at the recorded frequency, the file was
+    changed after the capture and nothing is cut (InputError).  Rows after that (written but
+    never acknowledged) and a torn last line lie after the offset and are measured again.
+    The header's size plays no part, so a header rewritten at the end cannot move the cut.
+    """
+    n = int(rows_acknowledged)
+    if scan.rows < n:
+        raise InputError(f"holds {scan.rows} complete rows but {n} were saved by the capture; "
+                         "it was changed afterwards, so it is not resumed (nothing was cut)",
+                         source=source)
+    if n == 0:
+        return scan.header_end
+    f = scan.row_freqs[n - 1]
+    if last_freq_hz is None or not np.isclose(f, float(last_freq_hz), rtol=1e-9, atol=0.0):
+        raise InputError(f"row {n} is at {f:g} Hz but the capture saved {last_freq_hz} Hz there; "
+                         "it was changed afterwards, so it is not resumed (nothing was cut)",
+                         source=source)
+    return scan.row_ends[n - 1]
+
+
 class _StopFlag:
     """First Ctrl-C asks the loop to stop after the current point; a second aborts."""
 
@@ -253,8 +377,8 @@ class Capture:
         self.session = session
         self.profile: Profile = session.profile
         self.settings = settings
-        self.out = Path(out)
-        self.manifest_file = manifest_path(out)
+        self.out = check_output_path(out)  # a device or pipe is refused before anything is read
+        self.manifest_file = check_output_path(manifest_path(out))
         self.resource = resource or session.name
         self.progress = progress or (lambda done, total: None)
         self.warnings: list[str] = []
@@ -280,7 +404,7 @@ class Capture:
         write_json_atomic(self.manifest_file, m)
 
     def _fresh(self, idn: str) -> dict[str, Any]:
-        if self.out.exists():
+        if self.out.exists() and not self._holds_nothing():
             raise InputError("output file exists; pass --resume to continue that capture or "
                              "choose another file", source=str(self.out))
         started = _now()
@@ -299,13 +423,44 @@ class Capture:
         self._write_manifest(m)
         return m
 
+    def _holds_nothing(self) -> bool:
+        """True for an unfinished capture file with no row and no manifest (killed while the
+        capture was creating it): starting again loses nothing."""
+        if self.manifest_file.exists():
+            return False
+        try:
+            scan = scan_capture_file(self.out)
+        except InputError:
+            return False
+        return scan.rows == 0 and scan.meta.get("complete") is False
+
+    def _manifest_or_header(self, scan: CaptureFile | None) -> dict[str, Any]:
+        """The manifest; or, for a file killed before its first manifest landed (no rows yet),
+        the manifest its header implies."""
+        if self.manifest_file.exists():
+            m = read_json(self.manifest_file)
+            if m.get("kind") != "capture_manifest":
+                raise InputError("not a capture manifest", source=str(self.manifest_file))
+            return m
+        if scan is not None and scan.rows == 0 and scan.meta.get("complete") is False \
+                and isinstance(scan.meta.get("settings"), dict):
+            meta = scan.meta
+            return {"kind": "capture_manifest", "version": 1, "settings": meta["settings"],
+                    "profile": meta.get("profile"), "resource": meta.get("resource"),
+                    "instrument": meta.get("instrument"), "started": meta.get("start_time"),
+                    "segments_total": len(self.settings.segments()), "segments_done": 0,
+                    "rows": 0, "bytes": scan.header_end, "last_freq_hz": None, "complete": False}
+        raise InputError(f"no capture manifest {self.manifest_file.name} beside it; nothing to "
+                         "resume (remove the file to start again)", source=str(self.out))
+
     def _resumed(self) -> dict[str, Any]:
-        if not self.manifest_file.exists():
-            raise InputError(f"no capture manifest {self.manifest_file.name} beside it; nothing to "
-                             "resume (remove the file to start again)", source=str(self.out))
-        m = read_json(self.manifest_file)
-        if m.get("kind") != "capture_manifest":
-            raise InputError("not a capture manifest", source=str(self.manifest_file))
+        try:
+            scan = scan_capture_file(self.out) if self.out.exists() else None
+        except InputError:
+            if self.manifest_file.exists():
+                raise
+            scan = None  # and no manifest: nothing to resume (said by _manifest_or_header)
+        m = self._manifest_or_header(scan)
         old = CaptureSettings.from_dict(m.get("settings", {})).to_dict()
         for key, value in self.settings.to_dict().items():
             if old.get(key) != value:
@@ -315,23 +470,43 @@ class Capture:
         if m.get("profile") != self.profile.name:
             raise InputError(f"{self.profile.name!r} differs from the capture being resumed "
                              f"({m.get('profile')!r})", source="--profile")
-        if not self.out.exists():
+        if scan is None:
             raise InputError("output file is missing; cannot resume", source=str(self.out))
-        size = self.out.stat().st_size
-        want = m.get("bytes")
-        if not isinstance(want, int) or not isinstance(m.get("segments_done"), int):
-            raise InputError("manifest lacks its byte and segment counts; cannot resume safely",
+        n, done = m.get("rows"), m.get("segments_done")
+        if not isinstance(n, int) or not isinstance(done, int) or n < 0:
+            raise InputError("manifest lacks its row and segment counts; cannot resume safely",
                              source=str(self.manifest_file))
-        if size < want:
-            raise InputError(f"file holds {size} bytes but the manifest recorded {want}; the file was "
-                             "changed after capture, cannot resume safely", source=str(self.out))
-        if size > want:
-            self.warnings.append(f"discarded {size - want} bytes after the last acknowledged segment "
+        if scan.meta.get("complete") is True:
+            return self._finished_before(m, scan)
+        m["complete"] = False  # the header is not rewritten yet: the end of the capture is still to do
+        cut = resume_offset(scan, n, m.get("last_freq_hz"), str(self.out))
+        if scan.size > cut:
+            self.warnings.append(f"discarded {scan.size - cut} bytes after the last saved row "
                                  "(a torn or unacknowledged write); they are measured again")
             with open(self.out, "r+b") as fh:
-                fh.truncate(want)
+                fh.truncate(cut)
                 fh.flush()
                 os.fsync(fh.fileno())
+        m["bytes"] = cut
+        return m
+
+    def _finished_before(self, m: dict[str, Any], scan: CaptureFile) -> dict[str, Any]:
+        """The header says complete: the end-of-capture rewrite landed.  The file is the
+        finished capture when it holds every row its header counts (at least the manifest's);
+        the manifest is then brought up to date, and nothing is measured or cut."""
+        points = scan.meta.get("points")
+        whole = scan.rows > 0 and points == scan.rows >= int(m["rows"]) \
+            and scan.size == scan.row_ends[-1]
+        if not whole:
+            raise InputError(f"header says the capture is complete with {points} points but "
+                             f"{scan.rows} complete rows follow it; it was changed afterwards, "
+                             "so it is not resumed (nothing was cut)", source=str(self.out))
+        if not m.get("complete"):
+            m.update(complete=True, rows=scan.rows, bytes=scan.size,
+                     segments_done=len(self.settings.segments()),
+                     last_freq_hz=scan.row_freqs[-1],
+                     finished=scan.meta.get("end_time") or _now())
+            self._write_manifest(m)
         return m
 
     def _finish_file(self, m: dict[str, Any], finished: str) -> None:
@@ -486,6 +661,10 @@ class Capture:
             except InstrumentError as e:
                 raise InstrumentError(f"{e}; {m['rows']} of {total} points are saved in {self.out}; "
                                       "run the same command with --resume to continue") from None
+            except InputError as e:  # the output could not be written (disk full)
+                raise InputError(f"{e.message}; {m['rows']} of {total} points are saved; make room "
+                                 "and run the same command with --resume to continue",
+                                 source=e.source) from None
         if status == "complete":
             self._finish_file(m, _now())
             read_canonical_sweep(self.out)  # the finished file must read back

@@ -13,6 +13,7 @@ import importlib
 import pkgutil
 import re
 import sys
+import warnings
 from collections.abc import Sequence
 
 from benchfit import __version__
@@ -73,6 +74,20 @@ def _fast_parser(argv: Sequence[str]) -> argparse.ArgumentParser | None:
     return None
 
 
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Where a Python warning raised inside a command goes.
+
+    A RuntimeWarning is numpy's note on a floating-point event (``divide by zero encountered
+    in log10``, ``invalid value``, ``overflow``): the libraries check the values that matter
+    and say so in their own warnings, so the note is dropped rather than printed as a
+    two-line Python warning.  Any other warning is one ``benchfit: warning:`` line.
+    """
+    if issubclass(category, RuntimeWarning):
+        return
+    text = " ".join(str(message).split())
+    print(f"benchfit: warning: {text[:300]}", file=sys.stderr)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``benchfit`` console command; returns the exit status."""
     argv = list(sys.argv[1:] if argv is None else argv)
@@ -84,8 +99,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 2
+    args.command_line = argv  # a command can say the exact command that continues it
     try:
-        return int(args.func(args) or 0)
+        with warnings.catch_warnings():
+            warnings.showwarning = _show_warning
+            return int(args.func(args) or 0)
     except BenchfitError as e:
         print(f"benchfit: error: {e}", file=sys.stderr)
         return e.exit_code

@@ -19,6 +19,7 @@ from benchfit.cli.values import (
     VOLTAGE,
     Range,
     count,
+    output,
     text,
     value,
 )
@@ -55,7 +56,7 @@ def register(subparsers) -> None:
     p.add_argument("--quantity", choices=QUANTITY_CHOICES, default=None,
                    help="what is measured, written to the file header (default unknown, or the "
                         "simulated sweep's own)")
-    p.add_argument("-o", "--output", type=text, metavar="OUT.csv", help="output CSV (default capture-<time>.csv)")
+    p.add_argument("-o", "--output", type=output, metavar="OUT.csv", help="output CSV (default capture-<time>.csv)")
     p.add_argument("--resume", action="store_true", help="continue the capture in -o OUT.csv")
     p.add_argument("--backend", type=text, default="@py", help="pyvisa backend (default @py, pure Python)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")

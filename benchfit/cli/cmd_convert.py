@@ -6,7 +6,7 @@ import argparse
 
 from benchfit.cli.cmd_inspect import add_reader_flags, reader_options
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.cli.values import text
+from benchfit.cli.values import output
 
 
 def run(args: argparse.Namespace) -> int:
@@ -32,7 +32,7 @@ def register(subparsers) -> None:
                                           "write benchfit's canonical CSV (freq_hz,re,im[,stddev]"
                                           "[,weight][,coherence] or time_s,channels...) atomically.")
     p.add_argument("file", help="the file to read")
-    p.add_argument("-o", "--output", required=True, type=text, metavar="OUT.csv", help="canonical CSV to write")
+    p.add_argument("-o", "--output", required=True, type=output, metavar="OUT.csv", help="canonical CSV to write")
     add_reader_flags(p)
     add_json_flag(p)
     p.set_defaults(func=run)

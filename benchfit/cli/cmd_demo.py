@@ -18,6 +18,7 @@ import benchfit
 from benchfit.cli.common import add_json_flag, emit
 from benchfit.cli.values import text
 from benchfit.errors import InputError
+from benchfit.numfmt import eng
 
 DATA_SUFFIXES = (".csv", ".tsv", ".txt", ".dat") + tuple(f".s{n}p" for n in range(1, 5))
 
@@ -36,7 +37,7 @@ def sample_files(folder: Path) -> list[Path]:
 def _row(rel: str, s: dict) -> str:
     if s["kind"] == "sweep":
         size = f"{s['points']:>6} pts"
-        span = f"{s['f_min_hz']:.3g} .. {s['f_max_hz']:.3g} Hz"
+        span = f"{eng(s['f_min_hz'], 'Hz')} to {eng(s['f_max_hz'], 'Hz')}"
         d = s["dialect"]
         how = d.get("format", "")
         if how == "table":
@@ -45,7 +46,7 @@ def _row(rel: str, s: dict) -> str:
             how = f"touchstone {d['parameter']} {d['data_form']}"
     else:
         size = f"{s['samples']:>6} smp"
-        span = f"{s['t_start_s']:.3g} .. {s['t_end_s']:.3g} s"
+        span = f"{eng(s['t_start_s'], 's')} to {eng(s['t_end_s'], 's')}"
         how = "trace " + ",".join(s["channels"])
     warn = f"  ({len(s['warnings'])} warning{'s' * (len(s['warnings']) != 1)})" if s["warnings"] else ""
     return f"{rel:<42} {s['kind']:<6} {size}  {span:<24} {how}{warn}"
@@ -107,7 +108,8 @@ def run(args: argparse.Namespace) -> int:
     emit(args, data, f"\nwrote {len(result.files)} files into {result.out_dir}/ in {result.seconds:.1f} s"
                      f" and {len(stage_files)} into {Path(stage_files['stage_report']).parent}/\n"
                      f"open the report: {report}\n"
-                     f"and the reference buffer's: {Path(stage_files['stage_report']).resolve()}")
+                     f"and the reference buffer's: {Path(stage_files['stage_report']).resolve()}\n"
+                     f"(both from {Path(stage_files['index']).resolve()})")
     return 0
 
 

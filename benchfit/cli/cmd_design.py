@@ -18,6 +18,7 @@ from benchfit.cli.values import (
     Range,
     argtype,
     count,
+    output,
     pair,
     parse_range,
     quote,
@@ -63,10 +64,27 @@ def register(subparsers) -> None:
     p.add_argument("--min-yield", type=value(PERCENT, Range(gt=0, le=100)), metavar="PCT",
                    help="design for more margin until this percentage of the Monte Carlo draws "
                         "meets the targets (e.g. 95; default: design at the targets)")
-    p.add_argument("-o", "--output", type=text, metavar="JSON", help="write the design here")
+    p.add_argument("--count-crossings", type=COUNTED, metavar="WHICH",
+                   help="crossings that must meet the targets (targets met, snapping, yield): "
+                        "all (default: every gain crossing the phase margin, every phase "
+                        "crossing the gain margin), main, or a band FMIN:FMAX")
+    p.add_argument("-o", "--output", type=output, metavar="JSON", help="write the design here")
     add_stage_args(p)
     add_json_flag(p)
     p.set_defaults(func=run)
+
+
+def _counted(t: str) -> str | tuple[float, float]:
+    """``all``, ``main`` or a band FMIN:FMAX (both ends) for --count-crossings."""
+    if t.strip().lower() in ("all", "main"):
+        return t.strip().lower()
+    lo, hi = parse_range(t, None, FREQUENCY, form="FMIN:FMAX", open_ends=False)
+    if not lo < hi:
+        raise InputError(f"{quote(t)}: expected FMIN below FMAX")
+    return (lo, hi)
+
+
+COUNTED = argtype(_counted, "crossings")
 
 
 def parse_pair(text: str, option: str) -> tuple[str, str]:
@@ -138,6 +156,8 @@ def spec_from_args(args: argparse.Namespace) -> DesignSpec:
         ch["seed"] = args.seed
     if args.min_yield is not None:
         ch["min_yield"] = args.min_yield / 100.0
+    if args.count_crossings is not None:
+        ch["crossings"] = args.count_crossings
     return spec.with_changes(**ch)
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.cli.values import text
+from benchfit.cli.values import output, text
 from benchfit.output.choices import DESIGN_PARTS
 
 
@@ -16,7 +16,7 @@ def register(subparsers) -> None:
                     "resistors, capacitors, controlled sources and (for a delay) a matched "
                     "lossless line, so any SPICE simulator can use the measured plant.")
     p.add_argument("model", metavar="MODEL_JSON", help="model, fit result or design JSON")
-    p.add_argument("-o", "--output", required=True, type=text, metavar="CIR", help="netlist file to write")
+    p.add_argument("-o", "--output", required=True, type=output, metavar="CIR", help="netlist file to write")
     p.add_argument("--name", type=text, help="subcircuit name (default: the --part name, e.g. plant)")
     p.add_argument("--part", default="plant", choices=DESIGN_PARTS,
                    help="for a design file: which model to export (default plant)")

@@ -15,6 +15,7 @@ from benchfit.cli.values import (
     Unit,
     band,
     count,
+    output,
     parse_range,
     parse_value,
     quote,
@@ -96,7 +97,7 @@ def register(subparsers) -> None:
                    help="hold every pole in the left half-plane (default: only for passive data, "
                         "an impedance or a Touchstone S-parameter never above 1); --no-stable "
                         "lets the data put poles anywhere")
-    p.add_argument("-o", "--output", type=text, metavar="MODEL.json", help="write the fit result as JSON")
+    p.add_argument("-o", "--output", type=output, metavar="MODEL.json", help="write the fit result as JSON")
     add_reader_flags(p)
     add_json_flag(p)
     p.set_defaults(func=run)

@@ -11,6 +11,7 @@ from typing import Any
 
 from benchfit.cli.common import add_json_flag, emit
 from benchfit.cli.values import POSITIVE, TIME, text, value
+from benchfit.numfmt import FIT_DIGITS, eng
 
 
 def add_reader_flags(p: argparse.ArgumentParser) -> None:
@@ -56,11 +57,7 @@ def reader_options(args: argparse.Namespace) -> dict[str, Any]:
 
 
 def _fmt_si(x: float, unit: str) -> str:
-    for scale, prefix in ((1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"),
-                          (1e-9, "n")):
-        if abs(x) >= scale * 0.9995:
-            return f"{x / scale:.4g} {prefix}{unit}"
-    return f"{x:.4g} {unit}"
+    return eng(x, unit, FIT_DIGITS)
 
 
 def summary_text(s: dict[str, Any]) -> str:
@@ -70,7 +67,7 @@ def summary_text(s: dict[str, Any]) -> str:
     if s["kind"] == "sweep":
         out.append(f"sweep:     {s['points']} points, {_fmt_si(s['f_min_hz'], 'Hz')} .. "
                    f"{_fmt_si(s['f_max_hz'], 'Hz')}, quantity {s['quantity']}")
-        mag = (f"{s['magnitude_range'][0]:.4g} .. {s['magnitude_range'][1]:.4g} ohm"
+        mag = (f"{_fmt_si(s['magnitude_range'][0], 'Ω')} .. {_fmt_si(s['magnitude_range'][1], 'Ω')}"
                if s["quantity"] == "impedance" else
                f"{s['mag_db_range'][0]:.2f} .. {s['mag_db_range'][1]:.2f} dB")
         out.append(f"magnitude: {mag}; phase {s['phase_deg_range'][0]:.1f} .. "

@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.cli.values import CURRENT, NONZERO, VOLTAGE, text, value
+from benchfit.cli.values import CURRENT, NONZERO, VOLTAGE, output, text, value
+from benchfit.numfmt import eng
 from benchfit.output.choices import CURVE_NAMES, WHICH
 
 
@@ -17,7 +18,7 @@ def register(subparsers) -> None:
                     "curves as time_s,value.")
     p.add_argument("design", metavar="DESIGN_JSON", help="design file written by 'benchfit design'")
     p.add_argument("--curve", required=True, choices=CURVE_NAMES, help="which curve")
-    p.add_argument("-o", "--output", required=True, type=text, metavar="CSV", help="file to write")
+    p.add_argument("-o", "--output", required=True, type=output, metavar="CSV", help="file to write")
     p.add_argument("--parts", default="snapped", choices=WHICH, help="snapped (default) or ideal parts")
     p.add_argument("--zout", type=text, metavar="FILE",
                    help="open-loop output impedance: sweep or model JSON (for load_step a sweep is fitted first)")
@@ -44,5 +45,8 @@ def run(args: argparse.Namespace) -> int:
     axis = "Hz" if curve.is_frequency else "s"
     emit(args, {"output": str(path), "curve": args.curve, "name": curve.name, "points": int(curve.x.size),
                 "x_name": curve.x_name, "x_min": float(curve.x[0]), "x_max": float(curve.x[-1])},
-         f"wrote {path}: {curve.name}, {curve.x.size} points, {curve.x[0]:.4g}..{curve.x[-1]:.4g} {axis}")
+         f"wrote {path}: {curve.name}, {curve.x.size} points, {eng(float(curve.x[0]), axis)} to "
+         f"{eng(float(curve.x[-1]), axis)}"
+         + (" (the plant's measured band)" if curve.is_frequency and "band_hz" in curve.provenance.settings
+            else ""))
     return 0

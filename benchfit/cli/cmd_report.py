@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.cli.values import CURRENT, NONZERO, text, value
+from benchfit.cli.values import CURRENT, NONZERO, output, text, value
 
 
 def register(subparsers) -> None:
@@ -16,7 +16,7 @@ def register(subparsers) -> None:
                     "the part list (ideal and snapped), predicted margins with their spread, the "
                     "pictures and the warnings. It needs no network access to view.")
     p.add_argument("design", metavar="DESIGN_JSON", help="design file written by 'benchfit design'")
-    p.add_argument("-o", "--output", type=text, metavar="HTML", help="report file (default: report.html beside the design)")
+    p.add_argument("-o", "--output", type=output, metavar="HTML", help="report file (default: report.html beside the design)")
     p.add_argument("--pdf", action="store_true", help="also write the same report as PDF (same name, .pdf)")
     p.add_argument("--fit", type=text, metavar="FIT_JSON", help="the plant's fit result (parameter table, fit picture)")
     p.add_argument("--sweep", type=text, metavar="SWEEP", help="the measured plant sweep (measured-vs-model picture)")
@@ -25,7 +25,12 @@ def register(subparsers) -> None:
     p.add_argument("--zout", type=text, metavar="FILE", help="open-loop output impedance: sweep or model JSON")
     p.add_argument("--load-trace", type=text, metavar="TRACE", help="a measured load step (output deviation)")
     p.add_argument("--load-channel", type=text, help="channel of --load-trace holding the output deviation")
-    p.add_argument("--load-step", type=value(CURRENT, NONZERO), metavar="AMPS", help="load-current step of the prediction, e.g. 1 or 500m")
+    p.add_argument("--load-current-channel", type=text, metavar="CHANNEL",
+                   help="channel of --load-trace holding the load current: the prediction is made for "
+                        "the current step measured there")
+    p.add_argument("--load-step", type=value(CURRENT, NONZERO), metavar="AMPS",
+                   help="load-current step of the prediction, e.g. 1 or 500m (when the trace has no "
+                        "current channel)")
     p.add_argument("--title", help="report title")
     add_json_flag(p)
     p.set_defaults(func=run)
@@ -55,7 +60,8 @@ def run(args: argparse.Namespace) -> int:
     load_a = args.load_step
     inputs = assemble(design, fit=fit, sweep=sweep, step_trace=trace, step_channel=args.channel,
                       zout=zout, zout_model=zout_model, load_trace=load_trace,
-                      load_channel=args.load_channel, load_step_a=load_a, title=args.title)
+                      load_channel=args.load_channel, load_current_channel=args.load_current_channel,
+                      load_step_a=load_a, title=args.title)
     html_path = Path(args.output) if args.output else default_report_path(args.design)
     out = write_report(inputs, html_path, pdf_path=html_path.with_suffix(".pdf") if args.pdf else None)
     text = f"wrote {out['html']}" + (f" and {out['pdf']}" if out["pdf"] else "")

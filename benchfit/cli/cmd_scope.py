@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import argparse
+import re
 
 from benchfit.cli.common import add_json_flag, emit
-from benchfit.cli.values import NON_NEGATIVE, VOLTAGE, text, value
+from benchfit.cli.values import NON_NEGATIVE, VOLTAGE, output, text, value
 from benchfit.errors import InputError
+from benchfit.numfmt import eng
 from benchfit.safety import CAUTION
 
 
@@ -21,8 +23,10 @@ def register(subparsers) -> None:
         epilog=CAUTION)
     p.add_argument("resource", nargs="?", type=text, metavar="RESOURCE", help="VISA resource (not with --simulate)")
     p.add_argument("--profile", type=text, metavar="NAME|FILE", help="scope profile (default generic-scope with --simulate)")
-    p.add_argument("--channel", type=text, default="CH1", help="channel name for the profile's {channel} (default CH1)")
-    p.add_argument("-o", "--output", required=True, type=text, metavar="TRACE.csv", help="trace CSV to write")
+    p.add_argument("--channel", type=text, default=None,
+                   help="channel name for the profile's {channel} (default CH1; with --simulate the "
+                        "--sim-channel when it is a CHn name, so the trace keeps the name it had)")
+    p.add_argument("-o", "--output", required=True, type=output, metavar="TRACE.csv", help="trace CSV to write")
     p.add_argument("--no-trigger", action="store_true",
                    help="do not send the trigger command; wait for a real trigger")
     p.add_argument("--backend", type=text, default="@py", help="pyvisa backend (default @py)")
@@ -47,6 +51,14 @@ def _read_trace(path: str):
         return read_canonical_trace(path)
 
 
+def replay_channel_name(sim_channel: str | None) -> str:
+    """The channel name a simulated capture stores under: the replayed channel's own name when it
+    is a scope channel name (CH1, CH2, ...), else CH1 (the profile's commands need such a name)."""
+    if sim_channel and re.fullmatch(r"CH\d+", sim_channel.strip(), flags=re.IGNORECASE):
+        return sim_channel.strip().upper()
+    return "CH1"
+
+
 def run(args: argparse.Namespace) -> int:
     from benchfit.bench.profile import find_profile
     from benchfit.bench.scope import capture_trace
@@ -59,18 +71,21 @@ def run(args: argparse.Namespace) -> int:
         raise InputError("required with a real instrument (see 'benchfit profiles')", source="--profile")
     profile = find_profile(args.profile or "generic-scope", kind="scope")
     inst = None
+    channel = args.channel or replay_channel_name(args.sim_channel if args.simulate else None)
     if args.simulate:
         inst = scope_for_trace(_read_trace(args.simulate), args.sim_channel, noise_v=args.noise,
-                               channels=(args.channel.upper(),))
+                               channels=(channel.upper(),))
     resource = f"simulated:{args.simulate}" if inst is not None else args.resource
     with bench_session(profile, resource=args.resource, instrument=inst, transport=args.transport,
                        backend=args.backend) as session:
-        trace = capture_trace(session, args.channel, out=args.output, resource=resource,
+        trace = capture_trace(session, channel, out=args.output, resource=resource,
                               trigger=not args.no_trigger)
     sc = trace.meta["scaling"]
     emit(args, {"kind": "scope_capture", "output": args.output, "samples": len(trace),
-                "channel": args.channel, "time_s": [float(trace.time_s[0]), float(trace.time_s[-1])],
+                "channel": channel, "time_s": [float(trace.time_s[0]), float(trace.time_s[-1])],
                 "meta": trace.meta},
-         f"saved {len(trace)} samples of {args.channel} into {args.output} "
-         f"({trace.time_s[0]:.4g}..{trace.time_s[-1]:.4g} s, {sc['sample_interval_s']:.3g} s per sample)")
+         f"saved {len(trace)} samples of {channel} into {args.output} "
+         + (f"(replaying {args.sim_channel or 'the first channel'} of {args.simulate}) " if args.simulate else "")
+         + f"({eng(float(trace.time_s[0]), 's')} to {eng(float(trace.time_s[-1]), 's')}, "
+         f"{eng(sc['sample_interval_s'], 's')} per sample)")
     return 0

@@ -13,6 +13,7 @@ from benchfit.cli.values import (
     VOLTAGE,
     Range,
     argtype,
+    output,
     parse_value,
     text,
     value,
@@ -53,7 +54,7 @@ def register(subparsers) -> None:
     r.add_argument("--skip-bad-rows", action="store_true", default=None,
                    help="leave out rows that cannot be read instead of refusing the file; they are "
                         "listed as skipped")
-    p.add_argument("-o", "--output", type=text, metavar="JSON", help="write the full result (with curves) here")
+    p.add_argument("-o", "--output", type=output, metavar="JSON", help="write the full result (with curves) here")
     add_json_flag(p)
     p.set_defaults(func=run)
 

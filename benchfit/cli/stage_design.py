@@ -10,7 +10,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.common import emit, warn
-from benchfit.cli.values import CAPACITANCE, NUMBER, RESISTANCE, Range, value
+from benchfit.cli.values import CAPACITANCE, FREQUENCY, NUMBER, RESISTANCE, Range, value
 from benchfit.errors import InputError
 
 STAGE_NETWORKS = ("auto", "plain", "lead", "lag", "lag-lead", "isolation", "snubber")
@@ -33,13 +33,17 @@ def add_stage_args(p: argparse.ArgumentParser) -> None:
                    help="load capacitance CL")
     g.add_argument("--load-esr", type=value(RESISTANCE, Range(ge=0)), metavar="OHM",
                    help="load capacitor ESR (default 0)")
+    g.add_argument("--gain-band", type=value(FREQUENCY), metavar="HZ",
+                   help="also check the closed-loop gain stays within 1 %% of --closed-loop-gain up "
+                        "to this frequency")
     g.add_argument("--lag-at", choices=("across", "ground"),
                    help="lag R-C across the inputs (default; keeps the signal gain) or V- to ground")
 
 
 def refuse_stray_stage_options(args: argparse.Namespace) -> None:
     """A stage option given without --stage is a mistake, not something to ignore."""
-    for name in ("closed_loop_gain", "output_resistance", "load_cap", "load_esr", "lag_at"):
+    for name in ("closed_loop_gain", "output_resistance", "load_cap", "load_esr", "lag_at",
+                 "gain_band"):
         if getattr(args, name, None) is not None:
             raise InputError("is an op-amp stage option; add --stage noninverting or inverting",
                              source="--" + name.replace("_", "-"))
@@ -63,7 +67,7 @@ def run_stage(args: argparse.Namespace) -> int:
     if args.closed_loop_gain is None:
         raise InputError("a stage needs --closed-loop-gain (its DC gain is set by the same "
                          "network)", source="--closed-loop-gain")
-    for name in ("opamp_gbw", "divider", "sensing_gain", "crossover", "method", "min_yield"):
+    for name in ("opamp_gbw", "divider", "sensing_gain", "crossover", "method"):
         if getattr(args, name, None) is not None:
             raise InputError("does not apply to a stage: the op-amp is the plant and the "
                              "crossover follows from the network", source="--" + name.replace("_", "-"))
@@ -81,7 +85,8 @@ def run_stage(args: argparse.Namespace) -> int:
                      series=parse_pair(args.series, "--series") if args.series else ("E24", "E12"),
                      tolerances=args.tolerance or (None, None),
                      draws=2000 if args.draws is None else args.draws, seed=args.seed,
-                     sources=tuple(args.plants))
+                     sources=tuple(args.plants), gain_band_hz=args.gain_band,
+                     min_yield=None if args.min_yield is None else args.min_yield / 100.0)
     if args.output:
         d.to_json(args.output)
     if not args.json:

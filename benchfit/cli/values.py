@@ -24,6 +24,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 from benchfit.errors import InputError
+from benchfit.fileio import check_output_path
 
 #: longest part of a value quoted back in a message
 QUOTE_CHARS = 40
@@ -194,8 +195,8 @@ def argtype(fn: Callable[[str], object], name: str) -> Callable[[str], object]:
     def convert(text: str):
         try:
             return fn(text)
-        except InputError as e:
-            raise argparse.ArgumentTypeError(e.message) from None
+        except InputError as e:  # its source, when it has one, is the file the value names
+            raise argparse.ArgumentTypeError(str(e)) from None
         except ValueError as e:
             raise argparse.ArgumentTypeError(str(e)) from None
     convert.__name__ = name
@@ -284,3 +285,13 @@ band = argtype(lambda t: parse_range(t, None, FREQUENCY, form="FMIN:FMAX"), "ban
 def pair(unit: Unit, rng: Range = POSITIVE, form: str = "A:B"):
     """argparse ``type=`` for ``A:B``, both given, each in ``unit`` (``--divider 30k:10k``)."""
     return argtype(lambda t: parse_range(t, None, unit, rng, open_ends=False, form=form), "pair")
+
+
+def _output(t: str) -> str:
+    check_output_path(_text(t))  # a folder, device or pipe is refused before any work is done
+    return t
+
+
+#: argparse ``type=`` for an output file name (``-o``): not empty, and a new name or a regular
+#: file (:func:`benchfit.fileio.check_output_path`); every writer checks again when it writes
+output = argtype(_output, "output")

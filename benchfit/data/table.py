@@ -120,6 +120,10 @@ def _numeric_cells(cells: list[str], d: Dialect) -> int:
     return n
 
 
+#: Widest table handed to pandas' C parser (a 30 000-column line took it 7 s).
+_PANDAS_MAX_COLUMNS = 64
+
+
 def _fast_rows(texts: list[str], d: Dialect, ncols: int) -> np.ndarray | None:
     """Rows parsed by pandas' C parser; None when anything is off (the slow path then
     finds every bad row with its line)."""
@@ -419,7 +423,10 @@ def _finish(cur: _Pending, lines: list[str], d: Dialect, exact: bool, kinds: lis
             footer: list[int]) -> Block:
     head = cur.head
     texts = [lines[k].strip() for k in cur.idx]
-    data = _fast_rows(texts, d, cur.ncols)
+    # pandas builds one object per column: past a few dozen columns numpy is far quicker
+    data = _fast_rows(texts, d, cur.ncols) if cur.ncols <= _PANDAS_MAX_COLUMNS else None
+    if data is None and cur.ncols > _PANDAS_MAX_COLUMNS:
+        exact = True
     bad: list[BadRow] = []
     grouped = False
     if data is not None:

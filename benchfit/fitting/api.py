@@ -26,7 +26,7 @@ from dataclasses import replace
 import numpy as np
 
 from benchfit.data.response import FrequencyResponse
-from benchfit.errors import InputError
+from benchfit.errors import FitError, InputError
 from benchfit.fitting.assemble import build_result
 from benchfit.fitting.hypotheses import candidates, race
 from benchfit.fitting.order import Context
@@ -51,6 +51,26 @@ def _check_options(order, delay, weighting, integrators) -> None:
                                       and 0 <= integrators <= 3)):
         raise InputError(f"{integrators!r}: expected auto or 0..3", source="--integrators")
 
+
+
+#: Frequencies a fit accepts, Hz: far beyond any bench measurement on both sides (common
+#: practice, no source); past about 1e150 Hz the squares of ω leave the float range.
+FIT_SPAN_HZ = (1e-12, 1e15)
+
+
+def check_fit_span(resp: FrequencyResponse) -> None:
+    """Refuse a sweep whose frequencies lie outside :data:`FIT_SPAN_HZ` (FitError naming its file).
+
+    Such a sweep is almost always a column in the wrong unit; fitting it overflowed deep inside
+    the arithmetic ("Geometric sequence cannot include zero", "SVD did not converge").
+    """
+    f = resp.freq_hz
+    lo, hi = FIT_SPAN_HZ
+    if f.size and not (f[0] >= lo and f[-1] <= hi):
+        src = ", ".join(resp.provenance.sources) or "the sweep"
+        raise FitError(f"{src}: frequencies {f[0]:.3g}..{f[-1]:.3g} Hz lie outside the "
+                       f"{lo:g}..{hi:g} Hz a fit accepts; check the frequency column's unit "
+                       "(--freq-unit)")
 
 
 def fit(
@@ -108,6 +128,7 @@ def fit(
     if not isinstance(resp, FrequencyResponse):
         raise InputError(f"expected a FrequencyResponse, got {type(resp).__name__}")
     _check_options(order, delay, weighting, integrators)
+    check_fit_span(resp)
     pb = prepare(resp, order, delay, band, fix, weighting, integrators, bounds, stable)
     result = _fit_with(pb, pb.ctx)
     if pb.stable:

@@ -47,6 +47,17 @@ def with_delay(st: Structure, values: np.ndarray, tau: float) -> tuple[Structure
     return st2, np.append(values, tau)
 
 
+def with_pole(st: Structure, values: np.ndarray, f_hz: float) -> tuple[Structure, np.ndarray]:
+    """Structure and values with a real pole at ``f_hz`` added (numbered by frequency)."""
+    v = dict(zip(st.names, values, strict=True))
+    rp = sorted([v[f"pole{i}_hz"] for i in range(1, st.real_poles + 1)] + [f_hz], key=abs)
+    st2 = Structure(st.real_poles + 1, st.pole_pairs, st.real_zeros, st.zero_pairs,
+                    st.integrators, st.delay)
+    rest = [x for nm, x in zip(st.names, values, strict=True)
+            if nm != "gain" and not nm.startswith("pole")]
+    return st2, np.asarray([v["gain"], *rp, *rest], dtype=float)
+
+
 def dropped_phase_as_delay(st: Structure, values: np.ndarray, drop: list[str],
                             w: np.ndarray) -> float:
     """The delay (s) whose phase −ωτ best matches, over ``w`` (rad/s), the phase of

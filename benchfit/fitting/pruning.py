@@ -21,6 +21,7 @@ from benchfit.fitting.groups import (
     narrower_than_spacing,
     unidentified,
     with_delay,
+    with_pole,
     without,
 )
 from benchfit.fitting.parameters import TWO_PI, Structure
@@ -64,6 +65,27 @@ def delay_trial(st: Structure, values: np.ndarray, f_max: float, w: np.ndarray,
     return (groups, tau) if tau * float(w[-1]) >= DELAY_MIN_PHASE else None
 
 
+def pole_trial(st: Structure, values: np.ndarray, f_max: float, poles: bool = True,
+               zeros: bool = True) -> tuple[list[str], float] | None:
+    """Lagging zeros near and above the top of the band that one real pole could stand in
+    for, and that pole's frequency (Hz).
+
+    A pole just above the band lags the phase like a right-half-plane zero at the
+    same frequency; vector fitting sometimes finds the zero (with a zero pair
+    above the band bending the magnitude back) and parks its spare pole far
+    away, where no refinement walks it back from.  The groups are the zeros
+    above the band and the right-half-plane zeros above a third of f_max
+    (:func:`groups_above`); the pole starts at the lowest such right-half-plane
+    zero.  None without one, or when poles or zeros may not change.
+    """
+    if not (poles and zeros):
+        return None
+    v = dict(zip(st.names, values, strict=True))
+    groups = groups_above(st, values, f_max, rhp_from=RHP_NEAR_TOP * f_max, poles=False)
+    rhp = [fr for g, fr in groups if not g.startswith("zero_pair") and v[f"{g}_hz"] < 0]
+    return ([g for g, _ in groups], min(rhp)) if rhp else None
+
+
 def prune_above(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
                  w: np.ndarray | None = None, delay_free: bool = False, add_delay: bool = False,
                  **kinds: bool) -> tuple[Structure, Refined, int]:
@@ -84,7 +106,10 @@ def prune_above(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
     radian or two at the top of the band, is otherwise fitted as a cluster
     of such zeros (one parameter fewer per zero dropped, one more for the
     delay).  Poles above the band are tried like zeros (``kinds``: ``poles`` and
-    ``zeros`` flags of :func:`groups_above`).
+    ``zeros`` flags of :func:`groups_above`).  Trials, the first that passes
+    wins: every group at once, the delay swap, a pole in place of lagging zeros
+    (:func:`pole_trial`), the zeros alone, the poles
+    alone, then each group (highest first).
     """
     penalty = float(np.log(n_res))
     dropped = 0
@@ -94,20 +119,33 @@ def prune_above(st: Structure, ref: Refined, refit, f_max: float, n_res: int,
         if not np.isfinite(ref.redchi) or ref.redchi <= 0:
             return st, ref, dropped
         groups.sort(key=lambda g: -g[1])
-        trials: list[tuple[list[str], float | None]] = []
+        trials: list[tuple[list[str], float | None, float | None]] = []
         if groups:
-            trials.append(([g for g, _ in groups], None))
+            trials.append(([g for g, _ in groups], None, None))
         # The swap comes after plain dropping: a delay only when the zeros are needed.
         swap = delay_trial(st, ref.values, f_max, w, **kinds) if (
             add_delay and not st.delay and w is not None) else None
         if swap is not None:
-            trials.append(swap)
+            trials.append((*swap, None))
+        as_pole = pole_trial(st, ref.values, f_max, **kinds)
+        if as_pole is not None:
+            trials.append((as_pole[0], None, as_pole[1]))
         if len(groups) > 1:
-            trials += [([g], None) for g, _ in groups]
-        for drop, tau in trials:
+            # The zeros alone, then the poles alone, before single groups: dropped one at
+            # a time from the top, a pole above the band went first and the zeros left
+            # behind rearranged to mimic it (a right-half-plane zero beside an undamped
+            # zero pair, two parameters more than the pole).
+            zs = [g for g, _ in groups if g.startswith("zero")]
+            ps = [g for g, _ in groups if not g.startswith("zero")]
+            if zs and ps:
+                trials += [(zs, None, None), (ps, None, None)]
+            trials += [([g], None, None) for g, _ in groups]
+        for drop, tau, pole_hz in trials:
             st2, v2 = without(st, ref.values, drop)
             if tau is not None:
                 st2, v2 = with_delay(st2, v2, tau)
+            if pole_hz is not None:
+                st2, v2 = with_pole(st2, v2, pole_hz)
             elif delay_free and st2.delay and w is not None:
                 v2 = v2.copy()
                 v2[-1] += dropped_phase_as_delay(st, ref.values, drop, w)

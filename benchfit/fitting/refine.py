@@ -119,7 +119,7 @@ def refine(
             raise InputError(f"no parameter {key!r} in this model; it has {', '.join(names)}",
                              source="--fix" if key in fix else "--bound")
     params = lmfit.Parameters()
-    v0 = start_beside_fixed(st, np.array(values0, dtype=float), fix)
+    v0 = start_beside_fixed(st, np.array(values0, dtype=float), fix, bounds)
     for i, name in enumerate(names):
         if name in fix:
             v0[i] = float(fix[name])
@@ -273,34 +273,47 @@ def _kept_start(names, v0: np.ndarray, varied: tuple[str, ...], r0: np.ndarray,
                    uncertainty_reason="no uncertainties: the refinement did not reach an optimum")
 
 
-def start_beside_fixed(st: Structure, values: np.ndarray, fix: dict[str, float]) -> np.ndarray:
-    """Start values with, for each fixed pole or zero frequency, the group of its kind
-    whose start lies nearest to the fixed value moved into the fixed slot.
+def start_beside_fixed(st: Structure, values: np.ndarray, fix: dict[str, float],
+                       bounds: dict[str, tuple[float, float]] | None = None) -> np.ndarray:
+    """Start values with, for each fixed or bounded pole or zero frequency, the group of
+    its kind whose start lies nearest to the held value (or inside the bounds) moved into
+    the held slot.
 
     The user names a group by its number (``pole1_hz``), which the start's
     numbering need not match: holding ``pole1_hz`` at 350 kHz when the start's
     pole1 is at 1 kHz and its pole2 at 350 kHz would throw the 1 kHz pole away
     and leave the refinement to drag pole2 down three decades (it went to the
-    right half-plane instead).  Swapping the two starts keeps both; the result
-    is numbered by frequency afterwards (:func:`renumbered`).
+    right half-plane instead); a bound clips the start the same way.  Swapping
+    the two starts keeps both; the result is numbered by frequency afterwards
+    (:func:`renumbered`).  Fixed parameters are placed first, then bounded ones;
+    a slot once placed is not taken again.
     """
     v = values.copy()
     names = st.names
-    for key, target in fix.items():
-        if key not in names or not key.endswith("_hz") or key.startswith("delay"):
+    held = [(k, (float(x), float(x))) for k, x in fix.items()]
+    held += [(k, (float(lo), float(hi))) for k, (lo, hi) in (bounds or {}).items() if k not in fix]
+    placed: set[str] = set()
+
+    def distance(x: float, lo: float, hi: float) -> float:
+        if lo <= x <= hi:
+            return 0.0
+        edges = [e for e in (lo, hi) if np.isfinite(e) and e != 0 and x != 0]
+        return min((abs(np.log(abs(x / e))) for e in edges), default=np.inf)
+
+    for key, (lo, hi) in held:
+        if key not in names or not key.endswith("_hz") or not (np.isfinite(lo) or np.isfinite(hi)):
             continue
         kind, width = (("zero_pair", 2) if key.startswith("zero_pair") else
                        ("pair", 2) if key.startswith("pair") else
                        ("zero", 1) if key.startswith("zero") else ("pole", 1))
         suffix = "_f0_hz" if width == 2 else "_hz"
-        slots = [names.index(nm) for nm in names if nm.startswith(kind) and nm.endswith(suffix)
-                 and nm[len(kind)].isdigit() and nm not in fix]
         i = names.index(key)
-        if not slots or not np.isfinite(target) or target == 0:
-            continue
-        j = min(slots + [i], key=lambda k: abs(np.log(abs(v[k] / target))) if v[k] else np.inf)
-        if j != i:
+        slots = [names.index(nm) for nm in names if nm.startswith(kind) and nm.endswith(suffix)
+                 and nm[len(kind)].isdigit() and nm not in placed and nm not in fix]
+        j = min(slots + [i], key=lambda k: distance(v[k], lo, hi))
+        if j != i and distance(v[j], lo, hi) < distance(v[i], lo, hi):
             v[i: i + width], v[j: j + width] = v[j: j + width].copy(), v[i: i + width].copy()
+        placed.add(key)
     return v
 
 

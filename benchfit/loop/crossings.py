@@ -20,16 +20,7 @@ def to_db(T):
         return 20.0 * np.log10(np.abs(T))
 
 
-def slope_integrators(x: np.ndarray, T: np.ndarray) -> np.ndarray:
-    """Estimate the number of integrators from the low-end magnitude slope (rows)."""
-    a = np.log10(np.abs(T[..., 1]) + 1e-300) - np.log10(np.abs(T[..., 0]) + 1e-300)
-    slope = a / (x[1] - x[0])
-    n = np.rint(-slope)
-    big = np.abs(T[..., 0]) > 1.0        # below 0 dB at the bottom: no integrator is acting
-    return np.where(big & (n > 0), n, 0).astype(int)
-
-
-def nyquist_count(T: np.ndarray, integrators, unstable, cand=None):
+def nyquist_count(T: np.ndarray, integrators, unstable, cand=None, low_phase=None):
     """Nyquist count for sampled loops (rows of ``T``), with the asymptotic ends.
 
     The change of ∠(1+T) over the band is its principal change plus 360° for
@@ -39,6 +30,12 @@ def nyquist_count(T: np.ndarray, integrators, unstable, cand=None):
     ω→∞ gives ∠(1 + T(∞)), a multiple of 180°.  The full Nyquist contour is
     twice the positive-frequency half plus the small indentation around s = 0
     (−n·180°), and Z = P − N.
+
+    ``low_phase`` (degrees, one per row), when given, is ∠(1+T) at ω → 0+ on
+    the branch of the first point's principal angle, carried there along a
+    fitted low-end model (:func:`benchfit.loop.asymptote.low_end_phase`); it
+    is snapped to the asymptote instead of the first point's own angle, so an
+    excess phase at the bottom of the band (a delay) is not rounded away.
 
     Returns
     -------
@@ -55,6 +52,8 @@ def nyquist_count(T: np.ndarray, integrators, unstable, cand=None):
     np.add.at(jumps, r, np.where(step > 0, 360.0, -360.0))
     n = np.asarray(integrators)
     th0 = np.degrees(np.angle(1.0 + T[:, 0]))
+    if low_phase is not None:
+        th0 = np.broadcast_to(np.asarray(low_phase, dtype=float), th0.shape)
     thinf = np.degrees(np.angle(1.0 + T[:, -1])) + jumps
     s0 = -n * 90.0 + 180.0 * np.rint((th0 + n * 90.0) / 180.0)
     sinf = 180.0 * np.rint(thinf / 180.0)

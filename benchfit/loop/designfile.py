@@ -102,6 +102,7 @@ class DesignSpec:
     draws: int = 2000
     seed: int | None = None
     min_yield: float | None = None
+    crossings: str | tuple[float, float] = "all"
     existing: Network | None = None
     source: str | None = None
 
@@ -121,6 +122,7 @@ class DesignSpec:
         return design(self.corners(), self.kind, self.targets, method=self.method, r_in=self.r_in,
                       opamp=self.opamp, series=self.series, tolerances=self.tolerances,
                       draws=self.draws, seed=self.seed, min_yield=self.min_yield,
+                      crossings=self.crossings,
                       sources=tuple(self.plant_files) + ((self.source,) if self.source else ()))
 
 

@@ -16,6 +16,7 @@ from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.marginsresult import Margins
 from benchfit.loop.networks import Network, check_kind, network_label
 from benchfit.loop.opamp import OpAmp
+from benchfit.loop.passrules import check_crossings
 from benchfit.loop.prediction import Prediction, target_warnings
 from benchfit.loop.sensing import Sensing
 from benchfit.loop.synthesis import Synthesis, Targets
@@ -84,8 +85,15 @@ class Design:
 
     @property
     def targets_met(self) -> bool:
-        """True when the snapped parts meet every target on every corner."""
-        return not target_warnings(self.snapped, self.targets, self.corner_names, "snapped")
+        """True when the snapped parts meet every target on every corner (every counted
+        crossing, no slack: :func:`benchfit.loop.passrules.margins_meet`)."""
+        return not target_warnings(self.snapped, self.targets, self.corner_names, "snapped",
+                                   self.crossings)
+
+    @property
+    def crossings(self) -> str | tuple[float, float]:
+        """Which crossings count towards the targets (the design's setting, "all" by default)."""
+        return check_crossings(self.provenance.settings.get("crossings", "all"))
 
     @property
     def corner_names(self) -> list[str]:

@@ -85,7 +85,7 @@ def read_loop(path: str | os.PathLike, *, which: str = "snapped",
 def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
                     unstable_open_loop_poles: int | None = None,
                     band: tuple[float | None, float | None] | None = None,
-                    extra_delay_s: float = 0.0) -> Margins:
+                    extra_delay_s: float = 0.0, integrators: int | None = None) -> Margins:
     """Margins of a loop gain given as a model or a sweep.
 
     Parameters
@@ -100,6 +100,9 @@ def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
     extra_delay_s
         A pure delay added to the loop, exactly (e.g. to see the margin
         left after a sampling delay).
+    integrators
+        Open-loop poles at s = 0 of a sweep, when the caller knows them
+        (None: from the fit of its low-frequency asymptote); a model counts its own.
     """
     lo, hi = band if band is not None else (None, None)
     d = float(extra_delay_s)
@@ -117,7 +120,7 @@ def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
         prov = sweep.provenance if not d else sweep.provenance.derive("add_delay", {"delay_s": d})
         m = margins_from_data(sweep.freq_hz, T,
                               unstable_open_loop_poles=unstable_open_loop_poles or 0,
-                              provenance=prov)
+                              integrators=integrators, provenance=prov)
         if sweep.quantity in ("plant", "closed", "impedance", "compensator"):
             m = replace(m, warnings=(f"the sweep is marked as a {sweep.quantity} measurement, not a "
                                      "loop gain; these margins treat it as T",) + m.warnings)

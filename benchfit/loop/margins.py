@@ -82,8 +82,8 @@ def margins_from_data(freq_hz, loop_response, *, unstable_open_loop_poles: int =
     unstable_open_loop_poles
         Number of open-loop right-half-plane poles P (for the Nyquist count).
     integrators
-        Number of open-loop poles at s = 0; estimated from the low-end slope
-        when None.
+        Number of open-loop poles at s = 0; estimated from the fit of the low-frequency
+        asymptote (:mod:`benchfit.loop.asymptote`) when None.
     provenance
         Provenance of the data; the result's provenance derives from it.
 
@@ -150,7 +150,8 @@ def margins_from_model(loop_fn: LoopFn, f_min_hz: float, f_max_hz: float, *,
     delay_s
         An extra pure delay multiplied into the loop, exactly (e^(-sτ)).
     integrators
-        Open-loop poles at s = 0 (estimated from the low-end slope when None).
+        Open-loop poles at s = 0 (estimated from the fit of the low-frequency asymptote
+        when None).
     hint_freqs_hz
         Frequencies of known singularities (lightly damped poles, zeros) to
         sample finely.

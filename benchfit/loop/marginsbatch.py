@@ -5,18 +5,12 @@ from __future__ import annotations
 import numpy as np
 
 from benchfit.errors import InputError
-from benchfit.loop.crossings import (
-    branch_crossings,
-    main_score,
-    nyquist_count,
-    slope_integrators,
-    to_db,
-    wrap180,
-    wrap_rad,
-)
+from benchfit.loop.crossings import branch_crossings, main_score, to_db, wrap180, wrap_rad
+from benchfit.loop.verdict import nyquist_verdict
 
 
-def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str, np.ndarray]:
+def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0,
+                  integrators=None) -> dict[str, np.ndarray]:
     """Margins of many sampled loops at once (Monte Carlo draws), vectorised over rows.
 
     Uses the rules of :func:`margins_from_data` (linear interpolation in log f
@@ -33,6 +27,10 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
         Complex loop gains, shape (n, m) (or (m,) for one loop).
     unstable_open_loop_poles
         P for the Nyquist count (the same for every row).
+    integrators
+        Open-loop poles at s = 0 (an int, or one per row); None estimates
+        them from each row's low-frequency asymptote
+        (:func:`benchfit.loop.verdict.nyquist_verdict`).
 
     Returns
     -------
@@ -42,8 +40,11 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
         ``min_pm_deg`` (the PM of smallest magnitude over all gain crossings, signed); ``gm_db``
         (smallest positive gain margin, inf if none) and
         ``phase_crossover_hz``; ``modulus_margin`` (min |1+T| on the grid);
-        ``delay_margin_s`` (0 when unstable); ``stable`` (Nyquist verdict,
-        integrators estimated from the low-end slope).
+        ``delay_margin_s`` (0 when unstable); ``stable`` (True only where the
+        Nyquist verdict is "stable"), ``verdict`` ("stable", "unstable",
+        "undecided") and ``integrators``; ``gains_pm_deg`` and
+        ``phases_gm_db``: (row, frequency Hz, value) arrays of every gain crossing's phase
+        margin and every phase crossing's gain margin.
     """
     f = np.asarray(freq_hz, dtype=float).reshape(-1)
     T = np.atleast_2d(np.asarray(T, dtype=complex))
@@ -100,8 +101,11 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
     fgm[pr[hit]] = 10 ** (x[pc[hit]] + pt[hit] * dx[pc[hit]])
 
     # --- Nyquist count (shared rule), reusing the Im T sign changes found above
-    _, Z, _, _ = nyquist_count(T, slope_integrators(x, T), unstable_open_loop_poles, cand)
-    stable = Z == 0
+    # a given count comes from a model evaluated far below its corners: its first point is on
+    # the asymptote (as in margins_of_model); an estimated one carries the low end down
+    v = nyquist_verdict(f, T, unstable_open_loop_poles, integrators, cand=cand,
+                        carry_low_end=integrators is None)
+    stable = v.stable
 
     # --- delay margin over all gain crossings
     pm_mod = np.mod(pm, 360.0)
@@ -113,4 +117,7 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0) -> dict[str,
         "pm_deg": pm_main, "crossover_hz": fc, "min_pm_deg": min_pm,
         "gm_db": gm, "phase_crossover_hz": fgm,
         "modulus_margin": np.hypot(T.real + 1.0, T.imag).min(axis=1), "delay_margin_s": dm, "stable": stable,
+        "verdict": v.verdict, "integrators": v.integrators,
+        "gains_pm_deg": (r, 10 ** xc, pm),
+        "phases_gm_db": (pr, 10 ** (x[pc] + pt * dx[pc]), gm_all),
     }

@@ -17,9 +17,10 @@ import numpy as np
 from scipy import optimize
 
 from benchfit.errors import InputError
-from benchfit.loop.crossings import main_score, nyquist_count, slope_integrators, to_db, wrap180
+from benchfit.loop.crossings import main_score, to_db, wrap180
 from benchfit.loop.densegrid import LIVE_DB, LoopFn
 from benchfit.loop.marginsresult import Margins
+from benchfit.loop.verdict import STABLE, UNDECIDED, UNSTABLE, nyquist_verdict
 from benchfit.provenance import Provenance
 
 # data: a crossing whose neighbouring points differ more than this is "coarse"
@@ -191,13 +192,20 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
                             f"{pm_main:.1f} deg")
 
     # --- closed-loop stability (Nyquist)
-    n_int = int(slope_integrators(x, T[None, :])[0]) if integrators is None else int(integrators)
-    if n_int == 0 and db[0] < 0 and integrators is None and len(x) > 1 and db[1] < db[0] - 0.1 * (x[1] - x[0]) * 20:
+    v = nyquist_verdict(f, T, unstable, integrators, carry_low_end=data or integrators is None)
+    n_int, N, Z = int(v.integrators[0]), int(v.encirclements[0]), int(v.rhp[0])
+    verdict = str(v.verdict[0])
+    dev0, devinf = v.low_deviation, v.high_deviation
+    asym = v.asymptotes[0] if v.asymptotes is not None else None
+    evidence = asym.describe() if asym is not None else f"{n_int} integrator(s), {'given' if data else 'of the model'}"
+    stable = Z == 0          # with the chosen count: which margins apply
+    if asym is not None and db[0] < 0 and asym.slope_n - 3 * asym.slope_sigma > 0.1:
         warnings.append(f"the loop gain is below 0 dB at the bottom of the band ({f[0]:.4g} Hz) "
                         "and rising towards lower frequencies: a crossing may lie below the band")
-    N, Z, dev0, devinf = nyquist_count(T[None, :], np.array([n_int]), unstable)
-    N, Z = int(N[0]), int(Z[0])
-    stable = Z == 0
+    if verdict == UNDECIDED:
+        warnings.append(f"closed-loop stability is UNDECIDED: {evidence}, and these counts give "
+                        "different encirclement verdicts; extend the sweep downwards or state "
+                        "the integrator count")
     if float(dev0[0]) > 60.0:
         warnings.append(f"at the bottom of the band ({f[0]:.4g} Hz) the loop phase is still "
                         f"{float(dev0[0]):.0f} deg from its low-frequency asymptote: the stability "
@@ -207,7 +215,7 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
     if data and np.any(np.abs(np.diff(np.degrees(np.unwrap(np.angle(1 + T))))) > 90.0):
         warnings.append("1+T turns more than 90 deg between neighbouring points: the sweep is too "
                         "coarse near -1 for a sure encirclement count")
-    if not stable:
+    if verdict == UNSTABLE:
         warnings.append(f"the closed loop is UNSTABLE: {Z} closed-loop pole(s) in the right "
                         f"half-plane (Nyquist: P = {unstable}, N = {N})")
     if unstable:
@@ -295,7 +303,8 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
         crossings=tuple(crossings), gain_reduction_margin_db=float(gm_down),
         min_phase_margin_deg=worst["value"] if worst else math.inf,
         min_phase_margin_hz=worst["freq_hz"] if worst else math.nan,
-        open_loop_unstable_poles=int(unstable), closed_loop_stable=bool(stable),
+        open_loop_unstable_poles=int(unstable), closed_loop_stable=verdict == STABLE,
+        verdict=verdict, integrators_evidence=evidence,
         encirclements=N, integrators=n_int, f_min_hz=float(f[0]), f_max_hz=float(f[-1]),
         warnings=tuple(dict.fromkeys(warnings)), provenance=provenance,
     )

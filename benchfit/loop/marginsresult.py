@@ -55,11 +55,19 @@ class Margins:
     open_loop_unstable_poles
         P, as stated by the caller (or counted from the model).
     closed_loop_stable
-        Nyquist verdict.
+        True only when the Nyquist verdict is "stable".
+    verdict
+        "stable", "unstable" or "undecided": undecided when the integrator
+        count of a sweep is not settled by its low end and the counts it
+        allows give different encirclement verdicts (:mod:`benchfit.loop.verdict`).
     encirclements
         Counter-clockwise encirclements of -1 by T (N; Z = P - N).
     integrators
         Number of open-loop poles at s = 0 used for the count.
+    integrators_evidence
+        Where that count came from: the model, the caller, or the fit of the
+        sweep's low-frequency asymptote (slope with its standard error,
+        asymptotic phase, window).
     f_min_hz, f_max_hz
         The band examined.
     warnings
@@ -84,6 +92,8 @@ class Margins:
     closed_loop_stable: bool = True
     encirclements: int = 0
     integrators: int = 0
+    verdict: str = ""
+    integrators_evidence: str = ""
     f_min_hz: float = math.nan
     f_max_hz: float = math.nan
     warnings: tuple[str, ...] = ()
@@ -103,6 +113,8 @@ class Margins:
         d["closed_loop_stable"] = bool(self.closed_loop_stable)
         d["encirclements"] = int(self.encirclements)
         d["integrators"] = int(self.integrators)
+        d["verdict"] = self.verdict or ("stable" if self.closed_loop_stable else "unstable")
+        d["integrators_evidence"] = self.integrators_evidence
         d["warnings"] = list(self.warnings)
         d["provenance"] = self.provenance.to_dict()
         return d
@@ -124,6 +136,9 @@ class Margins:
             closed_loop_stable=bool(d.get("closed_loop_stable", True)),
             encirclements=int(d.get("encirclements", 0)),
             integrators=int(d.get("integrators", 0)),
+            verdict=str(d.get("verdict") or ("stable" if d.get("closed_loop_stable", True)
+                                             else "unstable")),
+            integrators_evidence=str(d.get("integrators_evidence", "")),
             warnings=tuple(str(w) for w in d.get("warnings", ())),
             provenance=Provenance.from_dict(d.get("provenance")),
             **kw,
@@ -139,6 +154,10 @@ class Margins:
         from benchfit.fileio import read_json
 
         return cls.from_dict(read_json(path))
+
+    def _verdict_word(self) -> str:
+        v = self.verdict or ("stable" if self.closed_loop_stable else "unstable")
+        return v if v == "stable" else v.upper()
 
     def band_text(self) -> str:
         """'between 10 Hz and 2 MHz' (the band the margins were looked for in), or ''."""
@@ -180,8 +199,12 @@ class Margins:
             f"modulus margin  {numfmt.sig(self.modulus_margin)} (Ms {numfmt.sig(ms)}, "
             f"{numfmt.db(20 * math.log10(ms) if ms > 0 else math.nan)}) "
             f"at {numfmt.eng(self.modulus_freq_hz, 'Hz')}",
-            f"closed loop     {'stable' if self.closed_loop_stable else 'UNSTABLE'} "
+            f"closed loop     {self._verdict_word()} "
             f"(open-loop RHP poles {self.open_loop_unstable_poles}, encirclements of -1: {self.encirclements})",
+        ]
+        if self.integrators_evidence:
+            lines.append(f"integrators     {self.integrators_evidence}")
+        lines += [
             "crossings:",
         ]
         quiet = []      # phase crossings far below 0 dB (a delay's spinning phase): summarised

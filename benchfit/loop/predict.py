@@ -14,6 +14,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
+from benchfit import numfmt
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
@@ -72,17 +73,17 @@ class Prediction:
         lines = [self.margins.report(), ""]
         c = self.closed
         lines.append(f"closed-loop bandwidth  {_n(c.bandwidth_hz, 'Hz')}  (-3 dB from "
-                     f"{c.low_freq_gain:.4g} V/V), peaking {c.peaking_db:.1f} dB")
+                     f"{numfmt.sig(c.low_freq_gain)} V/V), peaking {numfmt.db(c.peaking_db)}")
         if self.step is not None:
             s = self.step
-            lines.append(f"reference step  overshoot {s.overshoot_pct:.1f} %, rise {_n(s.rise_time_s, 's')}, "
-                         f"settling ({s.settle_band * 100:g} %) {_n(s.settling_time_s, 's')}")
+            lines.append(f"reference step  overshoot {numfmt.sig(s.overshoot_pct)} %, rise {_n(s.rise_time_s, 's')}, "
+                         f"settling ({numfmt.sig(s.settle_band * 100)} %) {_n(s.settling_time_s, 's')}")
         if self.impedance is not None:
             z = self.impedance
-            lines.append(f"output impedance  peak {z.peak_ohm:.4g} ohm at {z.peak_freq_hz:.4g} Hz")
+            lines.append(f"output impedance  peak {_n(z.peak_ohm, 'Ω')} at {_n(z.peak_freq_hz, 'Hz')}")
         if self.load is not None:
             ld = self.load
-            lines.append(f"load step {ld.step_size:g} A  peak deviation {ld.peak_value * 1e3:.4g} mV at "
+            lines.append(f"load step {_n(ld.step_size, 'A')}  peak deviation {_n(ld.peak_value, 'V')} at "
                          f"{_n(ld.peak_time_s, 's')}, recovery {_n(ld.settling_time_s, 's')}")
         for w in self.warnings:
             lines.append(f"warning: {w}")
@@ -90,7 +91,7 @@ class Prediction:
 
 
 def _n(v: float, unit: str) -> str:
-    return "n/a" if not math.isfinite(v) else f"{v:.4g} {unit}"
+    return numfmt.NOT_DEFINED if not math.isfinite(v) else numfmt.eng(v, unit)
 
 
 def predict(loop: PlantModel | FrequencyResponse, *, sensing_gain: float = 1.0,

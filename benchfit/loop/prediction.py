@@ -19,12 +19,11 @@ from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.marginsresult import Margins
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
+from benchfit.loop.passrules import shortfalls, worst_of
 from benchfit.loop.synthesis import Targets
 
 #: Op-amp phase lost at the crossover that earns a warning, degrees.
 OPAMP_PHASE_WARN_DEG = 3.0
-#: Slack when judging a predicted margin against its target.
-MARGIN_SLACK = 0.1
 
 
 def sign_warnings(corners: Sequence[LoopPlant]) -> list[str]:
@@ -32,19 +31,32 @@ def sign_warnings(corners: Sequence[LoopPlant]) -> list[str]:
 
     The compensator folds the error amplifier's inversion into the loop sign;
     an inverting plant (e.g. through an optocoupler) then makes the feedback
-    positive.  A low-frequency phase beyond ±90° (after removing integrators'
-    −90° each; beyond ±150° for measured data) is the sign of that.
+    positive.  A low-frequency phase beyond ±90° after removing integrators'
+    −90° each is the sign of that.  A model counts its poles at s = 0; a
+    measured plant's count comes from the fit of its low-frequency asymptote
+    (:func:`benchfit.loop.asymptote.fit_asymptote`, the estimate the margins
+    use), whose asymptotic phase is then compared; when that fit does not
+    decide the count, only a phase beyond ±150° at the bottom of the band counts.
     """
+    from benchfit.loop.asymptote import fit_asymptote
+
     out = []
     for lp in corners:
         f0 = lp.band_hz[0]
         ph = math.degrees(np.angle(lp.response(np.array([f0]))[0]))
+        limit = 90.0
         if not lp.is_data:
             ph += 90.0 * int(np.sum(np.abs(lp.plant.poles) == 0))
             ph -= 90.0 * int(np.sum(np.abs(lp.plant.zeros) == 0))
+        else:
+            f = np.asarray(lp.plant.freq_hz, dtype=float)
+            asym = fit_asymptote(f, lp.response(f))[0]
+            if asym.decided:
+                ph = asym.phase_deg + 90.0 * asym.n
+            else:
+                limit = 150.0     # integrators not told apart: only a clear inversion counts
         ph = 180.0 - ((180.0 - ph) % 360.0)
-        # data: integrators cannot be told apart, so only a clear inversion counts
-        if abs(ph) > (150.0 if lp.is_data else 90.0):
+        if abs(ph) > limit:
             out.append(f"{lp.name}: plant · sensing is inverting at {f0:.4g} Hz (phase "
                        f"{ph:.0f}°): with an inverting error amplifier the feedback is positive; "
                        "use a negative sensing gain or a non-inverting error amplifier")
@@ -95,18 +107,40 @@ def predict(corners: Sequence[LoopPlant], net: Network, opamp: OpAmp | None) -> 
                       loops=tuple(lo.data() if lo.plant.is_data else lo.model() for lo in loops))
 
 
+def shown(value: float, target: float) -> str:
+    """``value`` with enough decimals that a shortfall shows (44.995 below 45 is not "45.0")."""
+    for digits in range(1, 7):
+        if round(value, digits) < target:
+            return f"{value:.{digits}f}"
+    return f"{target:g} - {target - value:.1e}"
+
+
 def target_warnings(pred: Prediction, targets: Targets, names: Sequence[str],
-                    label: str) -> list[str]:
+                    label: str, crossings: str | tuple[float, float] = "all") -> list[str]:
+    """One warning per corner and kind whose margins miss a target (no slack).
+
+    The rule is :func:`benchfit.loop.passrules.shortfalls` (every counted
+    crossing, stable closed loop), the one the Monte Carlo yield uses; each
+    message quotes the crossing furthest below its target, as listed in
+    the corner's margins.
+    """
     out = []
     for m, name in zip(pred.corners, names, strict=True):
         where = f"{label} parts on {name}" if len(names) > 1 else f"{label} parts"
-        if not m.closed_loop_stable:
-            out.append(f"{where}: the closed loop is unstable")
+        short = shortfalls(m, targets, crossings)
+        if short and short[0]["kind"] == "stability":
+            out.append(f"{where}: the closed loop is {short[0]['verdict']}")
             continue
-        if not (m.phase_margin_deg >= targets.phase_margin_deg - MARGIN_SLACK):
-            out.append(f"{where}: phase margin {m.phase_margin_deg:.1f}° is below the "
+        g = worst_of(short, "gain")
+        if g is not None:
+            at = "" if g["freq_hz"] == m.crossover_hz else f" at the {g['freq_hz']:.4g} Hz crossing"
+            out.append(f"{where}: phase margin {shown(g['value'], g['target'])}°{at} is below the "
                        f"{targets.phase_margin_deg:g}° target")
-        if m.gain_margin_db < targets.gain_margin_db - MARGIN_SLACK:
-            out.append(f"{where}: gain margin {m.gain_margin_db:.1f} dB is below the "
+        p = worst_of(short, "phase")
+        if p is not None:
+            v = p["value"]
+            at = "" if p["freq_hz"] == m.phase_crossover_hz else f" at {p['freq_hz']:.4g} Hz"
+            what = "gain margin" if v >= 0 else "gain reduction margin"
+            out.append(f"{where}: {what} {shown(abs(v), p['target'])} dB{at} is below the "
                        f"{targets.gain_margin_db:g} dB target")
     return out

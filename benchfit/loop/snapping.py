@@ -11,8 +11,11 @@ from benchfit.loop import eseries
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
-from benchfit.loop.prediction import MARGIN_SLACK
+from benchfit.loop.passrules import draws_pass, margins_meet
 from benchfit.loop.synthesis import Targets
+
+#: screened part sets checked with the dense analysis, at most (each costs one prediction)
+VERIFY_AT_MOST = 8
 
 
 def snap_network(net: Network, r_series: str, c_series: str) -> Network:
@@ -34,15 +37,19 @@ def series_neighbours(value: float, name: str) -> tuple[float, float]:
 
 
 def snap_search(net: Network, corners: Sequence[LoopPlant], opamp: OpAmp | None,
-                targets: Targets, fc_hz: float, r_series: str,
-                c_series: str) -> tuple[Network, str]:
+                targets: Targets, fc_hz: float, r_series: str, c_series: str,
+                crossings: str | tuple[float, float] = "all") -> tuple[Network, str]:
     """Snap parts to their series, trying each part's lower and upper neighbour.
 
     Log-nearest snapping alone can lose a degree or two of phase margin.  All
     combinations of rounding each part down or up (at most 2⁶ = 64 sets) are
-    evaluated at once; among the sets that meet the targets on every corner,
-    the one whose crossover is closest to ``fc_hz`` (on the first corner) is
-    kept.  When none meets them, the log-nearest set is returned.
+    screened at once on a sampled grid with the Monte Carlo's pass rule
+    (:func:`benchfit.loop.passrules.draws_pass`, no slack); the sets that pass
+    on every corner are then checked in order of preference (the log-nearest
+    set first, then by the distance of the crossover from ``fc_hz`` on the
+    first corner) with the dense analysis the design reports
+    (:func:`benchfit.loop.passrules.margins_meet`), and the first that meets
+    the targets is kept.  When none does, the log-nearest set is returned.
 
     Returns
     -------
@@ -50,6 +57,8 @@ def snap_search(net: Network, corners: Sequence[LoopPlant], opamp: OpAmp | None,
         ``how`` is "nearest" or "neighbour search".
     """
     from benchfit.loop.margins import margins_batch
+    from benchfit.loop.prediction import predict
+    from benchfit.loop.tolerance import integrators_of
 
     nearest = snap_network(net, r_series, c_series)
     names = list(net.parts)
@@ -64,17 +73,19 @@ def snap_search(net: Network, corners: Sequence[LoopPlant], opamp: OpAmp | None,
     for i, lp in enumerate(corners):
         f = lp.grid(fc_hz / 1e3, max(fc_hz * 1e3, 0.0 if opamp is None else opamp.gbw_hz * 10))
         t = lp.response(f)[None, :] * net.response(f, opamp, vals)
-        out = margins_batch(f, t, unstable_open_loop_poles=lp.unstable_poles)
-        pm = np.nan_to_num(np.asarray(out["pm_deg"], dtype=float), nan=-np.inf)
-        ok &= np.asarray(out["stable"], dtype=bool) & (pm >= targets.phase_margin_deg + MARGIN_SLACK)
-        ok &= np.asarray(out["gm_db"], dtype=float) >= targets.gain_margin_db + MARGIN_SLACK
+        out = margins_batch(f, t, unstable_open_loop_poles=lp.unstable_poles,
+                            integrators=None if lp.is_data else integrators_of(lp, net, opamp))
+        ok &= draws_pass(out["stable"], out["pm_deg"], out["gm_db"], out["gains_pm_deg"],
+                         out["phases_gm_db"], targets, crossings)
         if i == 0:
             dist = np.abs(np.log(np.asarray(out["crossover_hz"], dtype=float) / fc_hz))
-    if not ok.any():
-        return nearest, "nearest"
     nearest_row = np.array([nearest.parts[n] for n in names])
-    if ok[np.all(np.isclose(combos, nearest_row, rtol=1e-9, atol=0.0), axis=1)].any():
-        return nearest, "nearest"
-    best = int(np.argmin(np.where(ok, np.nan_to_num(dist, nan=np.inf), np.inf)))
-    return Network(net.kind, {n: float(combos[best, i]) for i, n in enumerate(names)}), \
-        "neighbour search"
+    is_nearest = np.all(np.isclose(combos, nearest_row, rtol=1e-9, atol=0.0), axis=1)
+    order = np.lexsort((np.nan_to_num(dist, nan=np.inf), ~is_nearest))
+    for j in [int(k) for k in order if ok[k]][:VERIFY_AT_MOST]:
+        cand = nearest if is_nearest[j] else \
+            Network(net.kind, {n: float(combos[j, i]) for i, n in enumerate(names)})
+        pred = predict(corners, cand, opamp)
+        if all(margins_meet(m, targets, crossings) for m in pred.corners):
+            return cand, "nearest" if is_nearest[j] else "neighbour search"
+    return nearest, "nearest"

@@ -5,9 +5,13 @@ factor drawn uniformly within its tolerance band, ``1 ± tol`` (a uniform
 spread over the band is the usual pessimistic reading of a tolerance: common
 practice, no source), and, when the plant came from a fit, draws the plant's
 response from the fit's parameter covariance (``FitResult.draw_responses``).
-Every draw is evaluated on every plant corner at once (numpy broadcasting),
-and its worst corner counts: the yield is the fraction of draws that meet
-the targets on all corners with a stable closed loop.
+Every draw is evaluated on every plant corner at once (numpy broadcasting)
+on a grid that holds the plant's own features and the nominal crossings
+(:mod:`benchfit.loop.featuregrid`), so a draw equal to the nominal loop has
+the nominal margins exactly.  A draw passes when, on every corner, its
+closed loop is stable and every counted crossing meets its target, with no
+slack (:func:`benchfit.loop.passrules.draws_pass`); the yield is the
+fraction of draws that pass.
 """
 
 from __future__ import annotations
@@ -21,9 +25,11 @@ import numpy as np
 
 from benchfit import numfmt
 from benchfit.errors import InputError
-from benchfit.loop.loopgain import LoopPlant
+from benchfit.loop.featuregrid import feature_grid
+from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
+from benchfit.loop.passrules import check_crossings, describe, draws_pass
 from benchfit.loop.synthesis import Targets
 
 #: Percentiles reported.
@@ -52,6 +58,12 @@ class Spread:
         Fraction of draws meeting every target on every corner, stable.
     unstable_fraction
         Fraction of draws with an unstable closed loop on some corner.
+    undecided_fraction
+        Fraction of draws whose stability verdict is undecided on some corner
+        (measured plants whose low end does not settle the integrator count);
+        they do not pass.
+    crossings
+        Which crossings counted for the yield ("all", "main" or a band in Hz).
     """
 
     draws: int
@@ -62,12 +74,17 @@ class Spread:
     percentiles: dict[str, dict[str, float]]
     yield_fraction: float
     unstable_fraction: float
+    undecided_fraction: float = 0.0
+    crossings: str | tuple[float, float] = "all"
 
     def to_dict(self) -> dict[str, Any]:
         return {"draws": self.draws, "seed": self.seed, "r_tol": self.r_tol, "c_tol": self.c_tol,
                 "plant_uncertainty": self.plant_uncertainty,
                 "percentiles": {k: dict(v) for k, v in self.percentiles.items()},
-                "yield": self.yield_fraction, "unstable_fraction": self.unstable_fraction}
+                "yield": self.yield_fraction, "unstable_fraction": self.unstable_fraction,
+                "undecided_fraction": self.undecided_fraction,
+                "crossings": self.crossings if isinstance(self.crossings, str)
+                else list(self.crossings)}
 
     @classmethod
     def from_dict(cls, d: dict[str, Any] | None) -> Spread | None:
@@ -80,7 +97,9 @@ class Spread:
                    percentiles={k: {p: as_float(x) for p, x in v.items()}
                                 for k, v in d["percentiles"].items()},
                    yield_fraction=float(d["yield"]),
-                   unstable_fraction=float(d.get("unstable_fraction", 0.0)))
+                   unstable_fraction=float(d.get("unstable_fraction", 0.0)),
+                   undecided_fraction=float(d.get("undecided_fraction", 0.0)),
+                   crossings=check_crossings(d.get("crossings", "all")))
 
     def report(self) -> str:
         pc = self.percentiles
@@ -92,8 +111,11 @@ class Spread:
                                 ("gm_db", "gain margin", numfmt.db),
                                 ("crossover_hz", "crossover", lambda v: numfmt.eng(v, "Hz"))):
             lines.append(f"{label:17}" + "".join(f"{fmt(pc[key][f'p{p}']):>12}" for p in PERCENTILES))
+        undecided = (f", stability undecided {numfmt.pct(self.undecided_fraction)}"
+                     if self.undecided_fraction else "")
         lines.append(f"yield {numfmt.pct(self.yield_fraction)} "
-                     f"(unstable {numfmt.pct(self.unstable_fraction)})")
+                     f"(unstable {numfmt.pct(self.unstable_fraction)}{undecided}; "
+                     f"counting {describe(self.crossings)})")
         return "\n".join(lines)
 
 
@@ -108,7 +130,8 @@ def _check_tol(v: float, what: str) -> float:
 def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
                  opamp: OpAmp | None, targets: Targets, *, r_tol: float, c_tol: float,
                  draws: int = 10_000, seed: int | None = None, plant_uncertainty: bool = True,
-                 freq_hz: np.ndarray | None = None) -> dict[str, Any]:
+                 freq_hz: np.ndarray | None = None,
+                 crossings: str | tuple[float, float] = "all") -> dict[str, Any]:
     """The margins of every draw (worst corner of each): the arrays behind :func:`monte_carlo`.
 
     Parameters are those of :func:`monte_carlo`.
@@ -117,14 +140,17 @@ def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
     -------
     dict
         ``pm_deg``, ``gm_db``, ``crossover_hz`` (shape (draws,); PM −inf where
-        the band never reaches the crossover), ``stable`` and ``passed``
-        (bool arrays), and ``plant_uncertainty`` (True when some plant was drawn).
+        the band never reaches the crossover), ``stable`` (verdict "stable" on
+        every corner), ``undecided`` (some corner's verdict undecided) and
+        ``passed`` (:func:`benchfit.loop.passrules.draws_pass` on every
+        corner), and ``plant_uncertainty`` (True when some plant was drawn).
     """
     from benchfit.loop.margins import margins_batch
 
     corners = [corners] if isinstance(corners, LoopPlant) else list(corners)
     r_tol = _check_tol(r_tol, "resistor")
     c_tol = _check_tol(c_tol, "capacitor")
+    crossings = check_crossings(crossings)
     if isinstance(draws, bool) or int(draws) != draws or draws < 1:
         raise InputError(f"draws {draws!r}; expected a whole number >= 1", source="--draws")
     draws = int(draws)
@@ -137,11 +163,14 @@ def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
     pm_w = np.full(draws, np.inf)
     gm_w = np.full(draws, np.inf)
     fc_w = np.full(draws, np.nan)
-    unstable = np.zeros(draws, dtype=bool)
+    stable_all = np.ones(draws, dtype=bool)
+    undecided = np.zeros(draws, dtype=bool)
+    passed = np.ones(draws, dtype=bool)
     used_plant = False
     for lp in corners:
-        f = freq_hz if freq_hz is not None else _grid(lp, network, opamp)
+        f = freq_hz if freq_hz is not None else feature_grid(lp, network, opamp)
         nominal_p = lp.plant.response(f) if not lp.is_data else lp.response(f) / lp.sensing.gain
+        n_int = None if lp.is_data else integrators_of(lp, network, opamp)
         for a in range(0, draws, _CHUNK):
             b = min(draws, a + _CHUNK)
             vals = {n: network.parts[n] * factors[a:b, i:i + 1] for i, n in enumerate(names)}
@@ -152,26 +181,35 @@ def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
             else:
                 p = nominal_p[None, :]
             t = p * lp.sensing.gain_draws(div_f[a:b]) * c
-            out = margins_batch(f, t, unstable_open_loop_poles=lp.unstable_poles)
+            out = margins_batch(f, t, unstable_open_loop_poles=lp.unstable_poles,
+                                integrators=n_int)
             stable = np.asarray(out["stable"], dtype=bool)
             pm = np.asarray(out["pm_deg"], dtype=float)
+            gm = np.asarray(out["gm_db"], dtype=float)
+            passed[a:b] &= draws_pass(stable, pm, gm, out["gains_pm_deg"],
+                                      out["phases_gm_db"], targets, crossings)
             pm = np.where(np.isnan(pm), -np.inf, pm)
             worse = pm < pm_w[a:b]
             fc_w[a:b] = np.where(worse, out["crossover_hz"], fc_w[a:b])
             pm_w[a:b] = np.minimum(pm_w[a:b], pm)
-            gm_w[a:b] = np.minimum(gm_w[a:b], np.asarray(out["gm_db"], dtype=float))
-            unstable[a:b] |= ~stable
-    passed = ~unstable & (pm_w >= targets.phase_margin_deg - 0.1) \
-        & (gm_w >= targets.gain_margin_db - 0.1)
-    return {"pm_deg": pm_w, "gm_db": gm_w, "crossover_hz": fc_w, "stable": ~unstable,
-            "passed": passed, "plant_uncertainty": used_plant, "r_tol": r_tol, "c_tol": c_tol,
-            "draws": draws}
+            gm_w[a:b] = np.minimum(gm_w[a:b], gm)
+            stable_all[a:b] &= stable
+            undecided[a:b] |= np.asarray(out["verdict"]) == "undecided"
+    return {"pm_deg": pm_w, "gm_db": gm_w, "crossover_hz": fc_w, "stable": stable_all,
+            "undecided": undecided, "passed": passed, "plant_uncertainty": used_plant,
+            "r_tol": r_tol, "c_tol": c_tol, "draws": draws, "crossings": crossings}
+
+
+def integrators_of(lp: LoopPlant, network: Network, opamp: OpAmp | None) -> int:
+    """Poles at s = 0 of the nominal loop model (the count the nominal margins use)."""
+    return int(np.sum(Loop(lp, network, opamp).model().poles == 0))
 
 
 def monte_carlo(corners: LoopPlant | Sequence[LoopPlant], network: Network,
                 opamp: OpAmp | None, targets: Targets, *, r_tol: float, c_tol: float,
                 draws: int = 10_000, seed: int | None = None,
-                plant_uncertainty: bool = True, freq_hz: np.ndarray | None = None) -> Spread:
+                plant_uncertainty: bool = True, freq_hz: np.ndarray | None = None,
+                crossings: str | tuple[float, float] = "all") -> Spread:
     """Spread of phase margin, gain margin and crossover over random parts (and plants).
 
     Parameters
@@ -194,16 +232,22 @@ def monte_carlo(corners: LoopPlant | Sequence[LoopPlant], network: Network,
     plant_uncertainty
         Draw plant responses from the fits' covariances where available.
     freq_hz
-        Evaluation grid; by default three decades either side of the
-        network's corners (and to 10× the op-amp GBW), 40 points per decade,
-        or a measured plant's own frequencies.
+        Evaluation grid; by default :func:`benchfit.loop.featuregrid.feature_grid`
+        (the plant's and network's poles and zeros and the nominal crossings,
+        refined around each), or a measured plant's own frequencies.
+    crossings
+        Which crossings count for the yield: "all" (default: every gain
+        crossing must meet the phase-margin target and every phase crossing
+        the gain-margin target), "main", or a band (f_lo_hz, f_hi_hz)
+        (:mod:`benchfit.loop.passrules`).
 
     Returns
     -------
     Spread
     """
     d = draw_margins(corners, network, opamp, targets, r_tol=r_tol, c_tol=c_tol, draws=draws,
-                     seed=seed, plant_uncertainty=plant_uncertainty, freq_hz=freq_hz)
+                     seed=seed, plant_uncertainty=plant_uncertainty, freq_hz=freq_hz,
+                     crossings=crossings)
     pcs: dict[str, dict[str, float]] = {}
     for key in ("pm_deg", "gm_db", "crossover_hz"):
         arr = d[key]
@@ -214,16 +258,6 @@ def monte_carlo(corners: LoopPlant | Sequence[LoopPlant], network: Network,
     return Spread(draws=d["draws"], seed=seed, r_tol=d["r_tol"], c_tol=d["c_tol"],
                   plant_uncertainty=d["plant_uncertainty"], percentiles=pcs,
                   yield_fraction=float(d["passed"].mean()),
-                  unstable_fraction=float(1.0 - d["stable"].mean()))
-
-
-def _grid(lp: LoopPlant, network: Network, opamp: OpAmp | None) -> np.ndarray:
-    if lp.is_data:
-        return np.asarray(lp.plant.freq_hz)
-    c = network.corners_hz()
-    f = c["zeros_hz"] + c["poles_hz"] + [network.integrator_hz()]
-    lo, hi = min(f) / 1e3, max(f) * 1e3
-    if opamp is not None:
-        hi = max(hi, opamp.gbw_hz * 10)
-    n = int(np.ceil(np.log10(hi / lo) * 40)) + 1
-    return np.logspace(np.log10(lo), np.log10(hi), n)
+                  unstable_fraction=float(np.mean(~d["stable"] & ~d["undecided"])),
+                  undecided_fraction=float(d["undecided"].mean()),
+                  crossings=d["crossings"])

@@ -3,8 +3,10 @@
 The scenario: a small synchronous buck converter (12 V in, 3.3 V out,
 10 µH, 100 µF) whose control-to-output response was swept on the bench
 (``sample_data/buck_plant.csv``, noisy), whose open-loop output impedance was
-swept too (``buck_zout.csv``), and whose present compensation rings on a
-reference step (``step_trace.csv``) and a load step (``load_step_trace.csv``).
+swept too (``buck_zout.csv``), and whose present compensation (an older,
+weaker Type III network on the same buck, simulated by
+``sample_data/generate.py``) rings on a reference step (``step_trace.csv``)
+and a load step (``load_step_trace.csv``).
 The job: fit the plant, design a Type III network for a 20 kHz crossover
 with at least 55° phase margin and 10 dB gain margin, snap the parts, spread
 them over tolerances, predict the step and output impedance, read the
@@ -34,6 +36,7 @@ from benchfit.loop.synthesis import Targets
 from benchfit.numfmt import deg, eng, sig
 from benchfit.output.assemble import assemble
 from benchfit.output.curves import write_curve_csv
+from benchfit.output.predicted import in_band
 from benchfit.output.report import write_report
 from benchfit.output.spice import write_spice
 from benchfit.output.summary import design_summary, summary_lines
@@ -166,12 +169,17 @@ def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit
         notes=("The measured traces are of the board as it is now, with its present compensation; the "
                "coloured curves predict the new design. The present board's ringing is what the new "
                "network is meant to remove.",))
-    step = inputs.step
-    pm_now = step.phase_margin
+    step, ls = inputs.step, inputs.load_step
+    # the load step rings with the closed loop's dominant poles: its ζ is the present board's
+    pm_now = ls.phase_margin if ls is not None and ls.phase_margin is not None else step.phase_margin
     present = {"zeta": pm_now.zeta, "phase_margin_deg": pm_now.phase_margin_deg,
-               "overshoot_pct": step.measurement.overshoot_pct}
-    log(f"present board, from {rel[sc.step_file]}: overshoot {sig(step.measurement.overshoot_pct)} %, "
-        f"ζ {sig(pm_now.zeta)}, phase margin about {deg(pm_now.phase_margin_deg, 0)}")
+               "overshoot_pct": step.measurement.overshoot_pct,
+               "load_step_deviation_v": ls.measurement.deviation_v if ls is not None else float("nan"),
+               "load_step_a": ls.measurement.current_step_a if ls is not None else float("nan")}
+    log(f"present board: reference step ({rel[sc.step_file]}) overshoot {sig(step.measurement.overshoot_pct)} %; "
+        f"load step ({rel[sc.load_file]}) {eng(present['load_step_a'], 'A')} gives "
+        f"{eng(present['load_step_deviation_v'], 'V')}, ringing ζ {sig(pm_now.zeta)}, "
+        f"phase margin about {deg(pm_now.phase_margin_deg, 0)} (second-order reading)")
 
     out.mkdir(parents=True, exist_ok=True)
     files = {
@@ -186,7 +194,7 @@ def run_demo(data_dir: str | os.PathLike, out_dir: str | os.PathLike = "benchfit
     for key in ("loop", "closed", "step", "zout_closed", "load_step"):
         c = inputs.curve(key)
         if c is not None:
-            files[f"curve_{key}"] = write_curve_csv(c, out / f"curve_{key}.csv")
+            files[f"curve_{key}"] = write_curve_csv(in_band(c, lp.band_hz), out / f"curve_{key}.csv")
     rep = write_report(inputs, files["report"], pdf_path=out / "report.pdf" if pdf else None)
     if rep["pdf"]:
         files["pdf"] = Path(rep["pdf"])

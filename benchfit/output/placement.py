@@ -130,6 +130,9 @@ def free_annotation(ax: Axes, text: str, xy: tuple[float, float], *,
     """
     def make(off: tuple[float, float, str, str]) -> Text:
         dx, dy, ha, va = off
+        # a label set further off keeps a thin leader line to its point
+        lead = ({"arrowprops": {"arrowstyle": "-", "color": style.get("color", "#555555"), "lw": 0.8,
+                                "shrinkA": 0, "shrinkB": 4}} if max(abs(dx), abs(dy)) > 20 else {})
         return ax.annotate(text, xy, textcoords="offset points", xytext=(dx, dy), ha=ha, va=va, zorder=10,
-                           **style)
+                           **lead, **style)
     return _choose(ax, make, offsets)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -119,8 +120,12 @@ def bode_fit(resp: FrequencyResponse, fit: Any, *, title: str | None = None) -> 
     _root_legend(ax_m)
     ax_m.legend(loc="best", ncols=2)
     lines = [ax_r.get_lines()[-1], ax_r2.get_lines()[-1]]
+    # headroom above the residuals: the legend sits there, over no data
+    for ax in (ax_r, ax_r2):
+        lo, hi = ax.get_ylim()
+        ax.set_ylim(lo, hi + 0.9 * (hi - lo))
     ax_r.legend(lines, [ln.get_label() for ln in lines], loc="upper left", ncols=2, fontsize=8)
-    src = ", ".join(resp.provenance.sources) or "measured response"
+    src = ", ".join(Path(s).name for s in resp.provenance.sources) or "measured response"
     ax_m.set_title(title or f"Fit of {src}")
     stats = getattr(fit, "stats", None) or {}
     nz = len(model.zeros)

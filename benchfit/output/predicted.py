@@ -108,7 +108,26 @@ def design_curve(design: Design, name: str, *, which: str = "snapped",
     if key not in curves:
         why = "; ".join(pred.warnings) or "not available for this design"
         raise InputError(f"no {name} curve: {why}", source="--curve")
-    return curves[key]
+    return in_band(curves[key], design.corners[0].band_hz)
+
+
+def in_band(curve: Curve, band_hz: tuple[float, float] | None) -> Curve:
+    """A frequency curve cut to the plant's measured band (the model beyond it is a guess).
+
+    The predictions are computed on a wide grid (every pole and zero ± decades, so
+    crossings and time responses are exact); a curve written for a person covers
+    the band the plant was measured over.  Time curves and curves without a
+    known band are returned as they are.
+    """
+    if not curve.is_frequency or not band_hz:
+        return curve
+    lo, hi = float(band_hz[0]), float(band_hz[1])
+    keep = (curve.x >= lo * (1 - 1e-9)) & (curve.x <= hi * (1 + 1e-9))
+    if np.count_nonzero(keep) < 2:
+        return curve
+    prov = Provenance(step="in_band", sources=curve.provenance.sources,
+                      settings={**dict(curve.provenance.settings), "band_hz": [lo, hi]})
+    return Curve(curve.name, curve.x_name, curve.x[keep], curve.y[keep], curve.unit, prov)
 
 
 def measured_step_curve(trace: TimeTrace, channel: str | None, step: Any) -> Curve:

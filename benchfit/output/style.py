@@ -77,6 +77,7 @@ _RC: dict[str, Any] = {
     "figure.dpi": 100,
     "savefig.dpi": 130,
     "pdf.fonttype": 42,          # TrueType in PDFs: text stays selectable
+    "text.parse_math": False,    # labels carry file and trace names: a '$' in one is not math
 }
 
 F = TypeVar("F", bound=Callable[..., Any])

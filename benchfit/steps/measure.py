@@ -8,7 +8,9 @@ Definitions (all times from the step instant unless said otherwise):
   (smoothed) output is still within the noise of the initial level, unless
   given;
 - rise time: first 10 % crossing to first 90 % crossing of the step;
-- overshoot: peak beyond the final level, % of the step; undershoot: largest
+- overshoot: peak beyond the final level, % of the step, the peak from a
+  polynomial fitted to the raw samples of the lobe's upper half (the maximum
+  of noisy samples is biased high); undershoot: largest
   excursion past the initial level against the step's direction before the
   90 % crossing (a non-minimum-phase dip), % of the step;
 - settling time: when the output last leaves final ± band (default 2 % of the step);
@@ -33,6 +35,7 @@ from benchfit.steps.features import (
     clipped_runs,
     difference_sigma,
     first_crossing,
+    fitted_peak,
     last_exit,
     make_smoother,
     ringing,
@@ -85,6 +88,11 @@ class StepMeasurement:
         Samples in runs of identical extreme values (probable clipping) and those values.
     channel
         Channel measured.
+    peak_method
+        How the peak (and so the overshoot) was found: a polynomial fitted to
+        the raw samples of the lobe's upper half (unbiased on noise), or the
+        smoothed maximum when the lobe has too few samples
+        (:func:`benchfit.steps.features.fitted_peak`).
     warnings
         Anything that makes a figure less trustworthy.
     provenance
@@ -117,6 +125,7 @@ class StepMeasurement:
     clipped_samples: int = 0
     clipped_levels_v: tuple[float, ...] = ()
     channel: str = ""
+    peak_method: str = ""
     warnings: tuple[str, ...] = ()
     provenance: Provenance = field(default_factory=lambda: Provenance(step="measure_step"))
 
@@ -232,14 +241,16 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
                         "(and everything relative to it) is uncertain")
 
     post = u[i_s:]
-    j_pk = int(np.argmax(post))
+    # the smoother's last half-window extrapolates (Savitzky-Golay at the record's end): no peak there
+    end = n - smoother.width // 2 if smoother.width > 1 else n
+    pk = fitted_peak(t[i_s:end], (y[i_s:end] - y0) / step, u[i_s:end], level=1.0)
     # The largest of N noise samples is about σ·√(2 ln N): anything below that is noise.
     floor = rel_noise * (1.0 + math.sqrt(2.0 * math.log(max(post.size, 2))))
-    over = post[j_pk] - 1.0
+    over = pk.value - 1.0
     overshoot = 100.0 * over if over > floor else 0.0
     dip = -float(np.min(u[i_s:i90 + 1]))
     undershoot = 100.0 * dip if dip > floor else 0.0
-    peak_time = float(t[i_s + j_pk] - t_s)
+    peak_time = float(pk.time_s - t_s)
 
     band_frac = band if band_v is None else abs(band_v) / abs(step)
     if band_frac <= floor:
@@ -260,14 +271,15 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
     return StepMeasurement(
         initial_v=y0, final_v=y1, step_v=step, step_time_s=t_s,
         overshoot_pct=float(overshoot), undershoot_pct=float(undershoot),
-        peak_v=float(y0 + step * post[j_pk]), peak_time_s=peak_time,
+        peak_v=float(y0 + step * pk.value), peak_time_s=peak_time,
         rise_time_s=float(t90 - t10), t10_s=t10, t90_s=t90,
         settling_time_s=float(t_set - t_s) if settled else float("nan"), band=float(band_frac),
         ringing_freq_hz=ring.freq_hz, log_decrement=ring.log_decrement, zeta_from_decrement=zeta_dec,
         lobes=len(ring.lobe_peaks), noise_v=float(noise), noise_source=noise_source,
         pre_step_samples=int(pre_n), samples=int(n), sample_interval_s=dt,
         smoothing_samples=smoother.width, clipped_samples=int(mask.sum()),
-        clipped_levels_v=tuple(levels), channel=name, warnings=tuple(warnings),
+        clipped_levels_v=tuple(levels), channel=name, peak_method=pk.method,
+        warnings=tuple(warnings),
         provenance=Provenance(step="measure_step", sources=(source,) if source else (),
                               settings={"channel": name, "band": band, "band_v": band_v,
                                         "step_time_s": step_time_s}),
