@@ -246,3 +246,20 @@ def test_ctrl_c_names_the_missing_sweeps_and_the_resume(tmp_path, capsys, monkey
     monkeypatch.undo()
     assert main([*argv, "--resume"]) == 0
     assert len(read_table(out)[1]) == 6
+
+
+def test_workers_run_the_task_without_numpy_notes(monkeypatch, capsys):
+    # a pool or Dask worker prints straight to its stderr: the task it runs drops them itself
+    import warnings
+
+    import benchfit.batch.runner as runner
+
+    def noisy(path, settings):
+        np.log10(np.zeros(2))
+        return {"file": path}
+
+    monkeypatch.setattr(runner, "run_task", noisy)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")               # any warning that escapes would raise here
+        assert runner.quiet_task("x.csv", TaskSettings()) == {"file": "x.csv"}
+    assert runner._pool.__defaults__[-1] is runner.quiet_task

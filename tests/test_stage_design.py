@@ -111,7 +111,7 @@ def test_each_network_meets_its_target_where_it_can(kind):
                              stage=stage, load=StageLoad(ro, cl, esr), series=("E96", "E12"),
                              draws=0)
         except DesignError as e:
-            assert "reaches at most" in str(e)
+            assert "reaches at most" in str(e) or "gain margin" in str(e) or "unstable" in str(e)
             continue
         dd = d.to_dict()
         gm, pm, wg, wp = control.margin(tf * comp_tf(dd))

@@ -102,13 +102,27 @@ def _failed_row(path: str, exc: BaseException) -> dict[str, Any]:
             "error": f"worker failed ({type(exc).__name__}: {exc})".replace("\n", " ")}
 
 
+def quiet_task(path: str, settings: TaskSettings) -> dict[str, Any]:
+    """:func:`run_task` with numpy's floating-point notes (RuntimeWarning) dropped.
+
+    In this process the CLI drops them; a pool or Dask worker prints straight to its stderr,
+    so the task the workers run drops them itself.  Every value that matters is checked by
+    the task and reported in its row.
+    """
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return run_task(path, settings)
+
+
 def _serial(files: Sequence[str], settings: TaskSettings) -> Iterator[dict[str, Any]]:
     for p in files:
         yield run_task(p, settings)
 
 
 def _pool(files: Sequence[str], settings: TaskSettings, workers: int,
-          task: Callable[[str, TaskSettings], dict[str, Any]] = run_task) -> Iterator[dict[str, Any]]:
+          task: Callable[[str, TaskSettings], dict[str, Any]] = quiet_task) -> Iterator[dict[str, Any]]:
     """Rows from a local process pool, at most ``4 * workers`` files in flight.
 
     A worker that dies (killed, out of memory, a crash in native code) breaks the
@@ -244,7 +258,7 @@ def _dask(files: Sequence[str], settings: TaskSettings, address: Any,
         while todo or running:
             while todo and len(running) < window:
                 p = todo.popleft()
-                running[client.submit(run_task, p, settings, pure=False)] = p
+                running[client.submit(quiet_task, p, settings, pure=False)] = p
             try:
                 done = dask_wait(list(running), timeout=_POLL_S, return_when="FIRST_COMPLETED").done
             except TimeoutError:
