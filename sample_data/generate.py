@@ -468,6 +468,7 @@ def gen_load_step(out: Path, scen: dict) -> None:
         "what": "output deviation of the buck with its present compensation for a 0.5 A -> 1 A load step",
         "channels": {"Iout": "load current (A)", "Vout AC": "output deviation (V, file in mV)"},
         "truth": {"zcl": "Zol/(1 + T), T = buck · H · present compensator (as step_trace.csv)",
+                  "zcl_model": zpk_dict(*pb["zcl"]),
                   "rp_ohm": pb["zcl_peak_ohm"], "zcl_peak_hz": pb["zcl_peak_hz"], "fn_hz": pb["fn_hz"],
                   "zeta": pb["zeta"], "delta_i_a": di, "t_step_s": 0.0,
                   "peak_deviation_v": float(v.min())},

@@ -172,3 +172,14 @@ def test_check_command_draws_the_designs_tolerances_and_says_so(views, tmp_path)
     # the margins of the given parts are the design's snapped ones
     m = views["design"].snapped.worst_margins()
     assert f"PM {deg(m.phase_margin_deg)} at {eng(m.crossover_hz, 'Hz')}" in text.replace("  ", " ")
+
+
+def test_spread_picture_draws_are_the_designs_own(views):
+    """The histograms repeat the design's Monte Carlo (same seed, tolerances, crossing rule, plant draws):
+    their yield is the yield the table and the text quote."""
+    from benchfit.output.spread_draws import spread_draws
+
+    d = views["design"]
+    draws = spread_draws(d, plant_draws=views["fit"].draw_responses)
+    assert draws.yield_fraction == pytest.approx(d.spread.yield_fraction, abs=1e-12)
+    assert "these draws" not in views["figs"]["spread"]

@@ -195,3 +195,71 @@ def test_lot_run_json_round_trip(lot, tmp_path):
     back = LotRun.from_dict(json.loads(to_json_text(info)))
     assert back.to_dict() == info.to_dict()
     assert info.provenance.settings["limits"]["min_phase_margin_deg"] == 45.0
+
+
+def test_dask_with_no_worker_left_times_out_naming_the_missing_sweeps(lot, tmp_path):
+    # it used to wait for ever, silently, once the cluster had no worker
+    distributed = pytest.importorskip("distributed")
+    from benchfit.batch.runner import LotIncomplete
+
+    files = find_sweeps(lot)[:5]
+    with distributed.LocalCluster(processes=False, n_workers=0, dashboard_address=None) as cluster:
+        t0 = time.monotonic()
+        with pytest.raises(LotIncomplete) as ei:
+            run_lot(files, TaskSettings(), tmp_path / "r.csv", dask=cluster.scheduler_address,
+                    progress=None, worker_timeout_s=1.0)
+        assert time.monotonic() - t0 < 30
+    e = ei.value
+    assert e.missing == files and e.written == 0 and e.exit_code == 2
+    msg = str(e)
+    assert "no Dask worker left for 1 s" in msg and "5 missing" in msg and "--resume" in msg
+    assert os.path.basename(files[0]) in msg
+    # the run that completes them
+    info = run_lot(files, TaskSettings(), tmp_path / "r.csv", workers=1, resume=True, progress=None)
+    assert info.ran == 5 and len(read_table(tmp_path / "r.csv")[1]) == 5
+
+
+def test_ctrl_c_names_the_missing_sweeps_and_the_resume(tmp_path, capsys, monkeypatch):
+    import benchfit.batch.runner as runner
+    from benchfit.cli import main
+
+    folder = tmp_path / "six"
+    make_lot(folder, 6, quantity="loop", seed=7)
+    files = find_sweeps(folder)
+    real = runner.append_lines_durable
+    rows = []
+
+    def append(path, lines):
+        real(path, lines)
+        rows.append(lines)
+        if len(rows) == 2:          # two rows written: Ctrl-C
+            raise KeyboardInterrupt
+
+    monkeypatch.setattr(runner, "append_lines_durable", append)
+    out = tmp_path / "r.csv"
+    argv = ["batch", str(folder), "-o", str(out), "--workers", "1", "--quiet"]
+    assert main(argv) == 130
+    err = capsys.readouterr().err
+    assert err.startswith("benchfit: error: interrupted: 2 of 6 sweeps written") and err.count("\n") == 1
+    assert "4 missing (" + os.path.basename(files[2]) in err, err
+    assert "complete them with: benchfit batch " in err and err.rstrip().endswith("--resume")
+    monkeypatch.undo()
+    assert main([*argv, "--resume"]) == 0
+    assert len(read_table(out)[1]) == 6
+
+
+def test_workers_run_the_task_without_numpy_notes(monkeypatch, capsys):
+    # a pool or Dask worker prints straight to its stderr: the task it runs drops them itself
+    import warnings
+
+    import benchfit.batch.runner as runner
+
+    def noisy(path, settings):
+        np.log10(np.zeros(2))
+        return {"file": path}
+
+    monkeypatch.setattr(runner, "run_task", noisy)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")               # any warning that escapes would raise here
+        assert runner.quiet_task("x.csv", TaskSettings()) == {"file": "x.csv"}
+    assert runner._pool.__defaults__[-1] is runner.quiet_task

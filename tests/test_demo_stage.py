@@ -28,6 +28,8 @@ def zpk_tf(z, p, k):
 def test_files_written(job):
     for role, path in job["files"].items():
         assert Path(path).stat().st_size > 0, role
+    index = Path(job["files"]["index"]).read_text()
+    assert 'href="report.html"' in index and 'href="stage/report_stage.html"' in index
     page = Path(job["files"]["stage_report"]).read_text()
     d = json.loads(Path(job["files"]["stage_design"]).read_text())
     assert f"rate of closure {d['crossing']['rate_of_closure_db_per_decade']:.0f} dB/decade" in page

@@ -85,6 +85,9 @@ def scratch(tmp_path_factory):
     (d / "bad_model.json").write_text('{"kind": "plant_model", "zeros": true, "poles": [], "k": 1}')
     (d / "bad_design.toml").write_text('[plant]\nfiles = ["sweep.csv"]\ncolour = "red"\n')
     (d / "folder" / "escape.toml").write_text('[plant]\nfiles = ["../sweep.csv"]\n')
+    generic = Path(__file__).resolve().parents[1] / "benchfit/bench/profiles/generic-analyzer.toml"
+    (d / "format_spec.toml").write_text(generic.read_text(encoding="utf-8").replace(
+        "{start_hz}", "{start_hz:>999999999}", 1), encoding="utf-8")
     (d / "bad_profile.toml").write_text('name = "mine"\nkind = "analyzer"\n')
     (d / "bad_limits.toml").write_text("phase_margin_deg = 45\n")
     design(LoopPlant(m, Sensing.divider(30e3, 10e3), name="buck", band_hz=(10, 1e6)), "type3",

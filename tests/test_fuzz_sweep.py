@@ -14,11 +14,17 @@ counts row by row with at most four pairs per line.
 import numpy as np
 import pytest
 from dialect_text import FORMS, write_dialect
-from fuzz_mutate import expect_own_error, mutation
+from fuzz_mutate import MAX_MESSAGE, expect_own_error, mutation
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from benchfit.data import FrequencyResponse, read_sweep, write_sweep_csv
+
+
+def damage(data: bytes):
+    """The damages of tests/fuzz_mutate.py, with the shapes of issue 21."""
+    return mutation(data, issue21=True)
+
 
 # A reader must answer damaged input with a result or an InputError, never with numpy
 # RuntimeWarnings printed on the user's terminal.
@@ -128,7 +134,8 @@ def _read_touchstone(path, case):
 
 def _damaged(path, data, **options):
     path.write_bytes(data)
-    r = expect_own_error(lambda: read_sweep(path, **options), names=path.name, size=len(data))
+    r = expect_own_error(lambda: read_sweep(path, **options), names=path.name, size=len(data),
+                         max_message=MAX_MESSAGE)
     if r is not None:
         _is_sane(r)
 
@@ -161,13 +168,13 @@ def test_canonical_csv_round_trips(tmp_path_factory, resp):
 @NORMAL
 @given(data=st.data(), w=table_files())
 def test_damaged_tables(tmp_path_factory, data, w):
-    _damaged(tmp_path_factory.mktemp("d") / "sweep.csv", data.draw(mutation(w.data)), **w.options)
+    _damaged(tmp_path_factory.mktemp("d") / "sweep.csv", data.draw(damage(w.data)), **w.options)
 
 
 @NORMAL
 @given(data=st.data(), case=touchstone_files())
 def test_damaged_touchstone(tmp_path_factory, data, case):
-    _damaged(tmp_path_factory.mktemp("d") / f"net.s{case[1]}p", data.draw(mutation(case[0])))
+    _damaged(tmp_path_factory.mktemp("d") / f"net.s{case[1]}p", data.draw(damage(case[0])))
 
 
 @NORMAL
@@ -175,7 +182,7 @@ def test_damaged_touchstone(tmp_path_factory, data, case):
 def test_damaged_canonical_csv(tmp_path_factory, data, resp):
     p = tmp_path_factory.mktemp("d") / "canon.csv"
     write_sweep_csv(FrequencyResponse(freq_hz=resp[0], response=resp[1]), p)
-    _damaged(p, data.draw(mutation(p.read_bytes())))
+    _damaged(p, data.draw(damage(p.read_bytes())))
 
 
 # ----- `make fuzz` --------------------------------------------------------------------------
@@ -190,14 +197,14 @@ def test_touchstone_round_trips_fuzz(tmp_path_factory, case):
 @FUZZ
 @given(data=st.data(), w=table_files())
 def test_damaged_tables_fuzz(tmp_path_factory, data, w):
-    _damaged(tmp_path_factory.mktemp("d") / "sweep.csv", data.draw(mutation(w.data)), **w.options)
+    _damaged(tmp_path_factory.mktemp("d") / "sweep.csv", data.draw(damage(w.data)), **w.options)
 
 
 @pytest.mark.fuzz
 @FUZZ
 @given(data=st.data(), case=touchstone_files())
 def test_damaged_touchstone_fuzz(tmp_path_factory, data, case):
-    _damaged(tmp_path_factory.mktemp("d") / f"net.s{case[1]}p", data.draw(mutation(case[0])))
+    _damaged(tmp_path_factory.mktemp("d") / f"net.s{case[1]}p", data.draw(damage(case[0])))
 
 
 @pytest.mark.fuzz

@@ -1,6 +1,7 @@
 """Instrument profiles: shipped ones validate, errors name the key, search path order."""
 
 import tomllib
+from pathlib import Path
 
 import pytest
 
@@ -125,3 +126,19 @@ def test_profile_by_path(tmp_path):
     f = tmp_path / "x.toml"
     f.write_text((SHIPPED_DIR / "generic-analyzer.toml").read_text())
     assert find_profile(str(f)).source == str(f)
+
+
+@pytest.mark.parametrize("placeholder", ["{start_hz:>999999999}", "{start_hz!r}", "{start_hz:.3f}",
+                                         "{start_hz.__class__}", "{start_hz[0]}"])
+def test_placeholders_are_plain_names(tmp_path, placeholder):
+    # a format spec passed --check and then grew a capture's command to 9.8 GB
+    from benchfit.bench.profile import load_profile_file
+
+    src = (Path(__file__).resolve().parents[1] / "benchfit" / "bench" / "profiles"
+           / "generic-analyzer.toml").read_text(encoding="utf-8")
+    assert "{start_hz}" in src
+    bad = tmp_path / "bad.toml"
+    bad.write_text(src.replace("{start_hz}", placeholder, 1), encoding="utf-8")
+    with pytest.raises(InputError, match="commands.start") as e:
+        load_profile_file(bad)
+    assert len(str(e.value)) < 300

@@ -264,3 +264,17 @@ def test_unquoted_thousands_in_a_comma_file_are_an_error_that_says_so(tmp_path):
     p = _write(tmp_path, "tc.csv", [HEAD, "100,-1,-5", "999,-2,-10", "1,000.5,-3,-20"])
     with pytest.raises(InputError, match="line 4: 4 cells, expected 3.*thousands separator"):
         read_sweep(p)
+
+
+def test_cli_skip_bad_rows_lists_them(tmp_path, capsys):
+    import json
+
+    from benchfit.cli import main
+
+    rows = _rows()
+    p = _write(tmp_path, "m.csv", [HEAD, *rows[:50], "Marker 1: 5 kHz", *rows[50:]])
+    assert main(["inspect", str(p), "--json"]) == 2
+    assert "line 52" in capsys.readouterr().err
+    assert main(["inspect", str(p), "--skip-bad-rows", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["points"] == 101 and [s["line"] for s in out["skipped_rows"]] == [52]

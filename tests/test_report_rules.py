@@ -53,7 +53,7 @@ def test_load_step_size_given_or_none():
     assert load_step_size(None, None, None) == (None, "")
     assert load_step_size(None, None, 2.0) == (2.0, "as given")
     di, words = load_step_size(_load_trace(0.5), None, 1.0)
-    assert di == 1.0 and "no current channel" in words
+    assert di == 1.0 and "no current channel" in words and "as given" in words
     with pytest.raises(InputError, match="not both"):
         load_step_size(_load_trace(0.5), "Iout", 1.0)
 

@@ -72,9 +72,12 @@ def test_sample_load_step_trace_matches_its_scenario():
     assert abs(s["zeta"] - truth["zeta"]) < 4 * s["zeta_stderr"]
     assert abs(s["natural_freq_hz"] - truth["fn_hz"]) < 4 * s["natural_freq_stderr_hz"]
     assert s["zcl_resonant_ohm"] == pytest.approx(truth["rp_ohm"], rel=0.02)
-    # Zcl of the scenario, as a model: the predicted dip matches the measured one.
-    wn = 2 * np.pi * truth["fn_hz"]
-    zcl = PlantModel(zeros=[0.0], poles=np.roots([1, 2 * truth["zeta"] * wn, wn * wn]),
-                     k=truth["rp_ohm"] * 2 * truth["zeta"] * wn)
+    # Zcl of the scenario, as a model: the predicted dip matches the measured one.  The trace is the
+    # full closed loop of the buck and its present compensator (issue 18 item 6), so the scenario's
+    # exact Zcl (zeros/poles in scenarios.json) is the model; a one-resonance Zcl built from the
+    # dominant pair misses the dip by 5 % (it did not when the trace was that resonance).
+    zm = truth["zcl_model"]
+    zcl = PlantModel(zeros=[complex(*z) for z in zm["zeros"]], poles=[complex(*q) for q in zm["poles"]],
+                     k=zm["k"])
     c = analyse_load_step(tr, channel="Vout AC", current_step_a=truth["delta_i_a"], zout=zcl).comparison
     assert c.row("deviation_v")["predicted"] == pytest.approx(c.row("deviation_v")["measured"], rel=0.05)

@@ -138,3 +138,10 @@ def test_printed_step():
 def test_findings_on_an_even_axis_are_empty():
     t = np.arange(1000) * 1e-9
     assert time_axis_findings(t, np.arange(1000) + 1, 1e-18) == []
+
+
+def test_interval_key_with_its_unit_in_brackets(tmp_path):
+    tr = read_trace(_file(tmp_path, ["Sample interval (us): 0.5", "Start time (us): -10", "CH1",
+                                     *(f"{v:.4f}" for v in STEP[:50])]))
+    assert tr.sample_interval_s == pytest.approx(5e-7, rel=1e-12)
+    assert tr.time_s[0] == pytest.approx(-1e-5, rel=1e-12)

@@ -117,14 +117,17 @@ def test_undecided_low_end_is_said_and_never_counted_stable():
 
 
 def test_choose_integrators_weighs_slope_and_phase_together():
-    # the best whole n must fit (chi2 <= 13.8) and beat every other by 10
-    a = choose_integrators(np.array([50.0, 1.0, 40.0, 90.0, 99.0]), 1.01, 0.01, -90.0, 1, 10)
-    assert a.decided and a.n == 1 and a.plausible == (1,)
-    b = choose_integrators(np.array([50.0, 3.0, 8.0, 90.0, 99.0]), 1.4, 0.01, -110.0, 1, 10)
-    assert not b.decided and b.plausible == (1, 2)
-    # nothing fits: the slope's neighbours stay open
-    c = choose_integrators(np.array([500.0, 300.0, 400.0, 900.0, 990.0]), 1.5, 0.01, -130.0, 1, 10)
-    assert not c.decided and set(c.plausible) >= {1, 2}
+    # the best whole n must fit (chi2 <= 13.8) and beat every other by 10 (rows at once)
+    chi2 = np.array([[50.0, 1.0, 40.0, 90.0, 99.0],        # decided: 1
+                     [50.0, 3.0, 8.0, 90.0, 99.0],         # 1 and 2 both fit
+                     [500.0, 300.0, 400.0, 900.0, 990.0]])  # nothing fits: slope 1.5 opens 1, 2
+    best, decided, plausible = choose_integrators(chi2, np.array([1.01, 1.4, 1.5]),
+                                                  np.array([0.01, 0.01, 0.01]))
+    assert list(best) == [1, 1, 1] and list(decided) == [True, False, False]
+    assert [list(np.flatnonzero(p)) for p in plausible] == [[1], [1, 2], [1, 2]]
+    # a slope within 0.02 of a whole n does not open its neighbours
+    _, _, p = choose_integrators(chi2[2:], np.array([1.00003]), np.array([5e-5]))
+    assert list(np.flatnonzero(p[0])) == [1]
     # the fit itself: a clean -40 dB/decade, -180 deg low end over more than a decade
     f = np.logspace(0, 2, 200)
     fit = fit_asymptote(f, 1e4 / (2j * np.pi * f) ** 2)[0]

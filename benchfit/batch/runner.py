@@ -15,7 +15,6 @@ from collections import deque
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field
-from itertools import islice
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -30,7 +29,7 @@ from benchfit.batch.table import (
     write_parquet,
 )
 from benchfit.batch.task import TaskSettings, run_task, unit_id
-from benchfit.errors import InputError
+from benchfit.errors import BenchfitError, InputError
 from benchfit.fileio import append_lines_durable, write_text_atomic
 from benchfit.provenance import Provenance
 
@@ -103,13 +102,27 @@ def _failed_row(path: str, exc: BaseException) -> dict[str, Any]:
             "error": f"worker failed ({type(exc).__name__}: {exc})".replace("\n", " ")}
 
 
+def quiet_task(path: str, settings: TaskSettings) -> dict[str, Any]:
+    """:func:`run_task` with numpy's floating-point notes (RuntimeWarning) dropped.
+
+    In this process the CLI drops them; a pool or Dask worker prints straight to its stderr,
+    so the task the workers run drops them itself.  Every value that matters is checked by
+    the task and reported in its row.
+    """
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return run_task(path, settings)
+
+
 def _serial(files: Sequence[str], settings: TaskSettings) -> Iterator[dict[str, Any]]:
     for p in files:
         yield run_task(p, settings)
 
 
 def _pool(files: Sequence[str], settings: TaskSettings, workers: int,
-          task: Callable[[str, TaskSettings], dict[str, Any]] = run_task) -> Iterator[dict[str, Any]]:
+          task: Callable[[str, TaskSettings], dict[str, Any]] = quiet_task) -> Iterator[dict[str, Any]]:
     """Rows from a local process pool, at most ``4 * workers`` files in flight.
 
     A worker that dies (killed, out of memory, a crash in native code) breaks the
@@ -181,33 +194,93 @@ def _dask_client(address: Any):
         raise InputError(f"cannot reach a Dask scheduler at {address} ({e})", source="--dask") from None
 
 
-def _dask(files: Sequence[str], settings: TaskSettings, address: Any) -> Iterator[dict[str, Any]]:
-    from distributed import as_completed
+#: How long a lot on Dask waits while the cluster has no worker, s (run_lot's default).
+NO_WORKER_TIMEOUT_S = 60.0
+#: How often the Dask loop looks at the cluster while nothing finishes, s.
+_POLL_S = 0.5
+
+
+class LotIncomplete(BenchfitError):
+    """A lot stopped before every sweep had its row: which are missing, and how to finish.
+
+    Attributes
+    ----------
+    missing
+        The files with no row yet (in the lot's order).
+    written, total
+        Rows written by this run, files this run had to do.
+    """
+
+    def __init__(self, why: str, missing: Sequence[str], written: int, total: int, rows_csv: str,
+                 *, exit_code: int = 2) -> None:
+        self.missing, self.written, self.total = list(missing), written, total
+        self.exit_code = exit_code
+        names = ", ".join(Path(m).name for m in self.missing[:8])
+        more = f" and {len(self.missing) - 8} more" if len(self.missing) > 8 else ""
+        self.resume_hint = "run the same command with --resume to complete them"
+        super().__init__(f"{why}: {written} of {total} sweeps written to {rows_csv}; "
+                         f"{len(self.missing)} missing ({names}{more}); {self.resume_hint}")
+
+
+def _no_worker_for(client: Any, since: float | None) -> float | None:
+    """When the cluster was first seen without a worker (None while it has one).
+
+    The evidence is the scheduler's own list of workers; a lot then waits for
+    ``worker_timeout_s`` before it gives up, so a worker restarting or a cluster scaling
+    up from zero has time to arrive.
+    """
+    try:
+        n = len(client.scheduler_info().get("workers", {}))
+    except Exception:  # noqa: BLE001 - the scheduler itself is gone: no worker either
+        n = 0
+    if n:
+        return None
+    return since if since is not None else time.monotonic()
+
+
+def _dask(files: Sequence[str], settings: TaskSettings, address: Any,
+          worker_timeout_s: float = NO_WORKER_TIMEOUT_S) -> Iterator[dict[str, Any]]:
+    """Rows from a Dask cluster, at most ``4 * threads`` files in flight.
+
+    Raises :class:`LotIncomplete` naming the files without a row when the cluster has had no
+    worker for ``worker_timeout_s`` (it used to wait for ever, silently).
+    """
+    from distributed import wait as dask_wait
 
     client, owned = _dask_client(address)
     try:
         nworkers = max(1, sum(w.get("nthreads", 1)
                               for w in client.scheduler_info().get("workers", {}).values()))
         window = 4 * nworkers
-        todo = iter(files)
-        futures = {}
-        pending = as_completed()
-        for p in islice(todo, window):
-            fut = client.submit(run_task, p, settings, pure=False)
-            futures[fut.key] = p
-            pending.add(fut)
-        for fut in pending:
-            path = futures.pop(fut.key)
+        todo = deque(files)
+        running: dict[Any, str] = {}
+        idle_since: float | None = None
+        while todo or running:
+            while todo and len(running) < window:
+                p = todo.popleft()
+                running[client.submit(quiet_task, p, settings, pure=False)] = p
             try:
-                yield fut.result()
-            except Exception as e:  # noqa: BLE001
-                yield _failed_row(path, e)
-            fut.release()
-            nxt = next(todo, None)
-            if nxt is not None:
-                f2 = client.submit(run_task, nxt, settings, pure=False)
-                futures[f2.key] = nxt
-                pending.add(f2)
+                done = dask_wait(list(running), timeout=_POLL_S, return_when="FIRST_COMPLETED").done
+            except TimeoutError:
+                done = set()
+            if not done:
+                idle_since = _no_worker_for(client, idle_since)
+                if idle_since is not None and time.monotonic() - idle_since > worker_timeout_s:
+                    left = set(running.values()) | set(todo)
+                    raise LotIncomplete(
+                        f"no Dask worker left for {worker_timeout_s:g} s",
+                        [f for f in files if f in left], len(files) - len(left), len(files),
+                        "the result table")
+                continue
+            idle_since = None
+            for fut in done:
+                path = running.pop(fut)
+                try:
+                    row = fut.result()
+                except Exception as e:  # noqa: BLE001
+                    row = _failed_row(path, e)
+                fut.release()
+                yield row
     finally:
         if owned:
             client.close()
@@ -258,7 +331,8 @@ def _prepare(rows_csv: Path, cols: list[str], resume: bool) -> set[str]:
 def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathLike, *,
             workers: int | None = None, dask: Any = None, resume: bool = False,
             progress: TextIO | None = sys.stderr,
-            on_row: Callable[[dict[str, Any]], None] | None = None) -> LotRun:
+            on_row: Callable[[dict[str, Any]], None] | None = None,
+            worker_timeout_s: float = NO_WORKER_TIMEOUT_S) -> LotRun:
     """Run every file of a lot and write the result table.
 
     Parameters
@@ -284,6 +358,14 @@ def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathL
         Stream for the progress line (None for silence).
     on_row
         Called with each row once it is written (a notebook's live view, a benchmark's probe).
+    worker_timeout_s
+        On Dask: give up when the cluster has had no worker this long.
+
+    Raises
+    ------
+    LotIncomplete
+        Interrupted (Ctrl-C, exit status 130) or no Dask worker left: names the files
+        without a row; every row written before is kept and ``resume`` completes the lot.
 
     Returns
     -------
@@ -294,7 +376,8 @@ def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathL
     done = _prepare(rows_csv, cols, resume)
     todo = [f for f in files if _norm(f) not in done]
     if dask is not None:
-        executor, nworkers, rows = "dask", dask_workers(dask), _dask(todo, settings, dask)
+        executor, nworkers = "dask", dask_workers(dask)
+        rows = _dask(todo, settings, dask, worker_timeout_s)
     else:
         nworkers = max(1, int(workers or os.cpu_count() or 1))
         nworkers = min(nworkers, max(1, len(todo)))
@@ -305,12 +388,26 @@ def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathL
     bar = Progress(len(todo), stream=progress)
     counts: dict[str, int] = {}
     t0 = time.perf_counter()
-    for row in rows:
-        append_lines_durable(rows_csv, [format_row(row, cols)])
-        counts[row["status"]] = counts.get(row["status"], 0) + 1
-        bar.update(row["status"])
-        if on_row is not None:
-            on_row(row)
+    written: set[str] = set()
+    try:
+        for row in rows:
+            append_lines_durable(rows_csv, [format_row(row, cols)])
+            written.add(row["file"])
+            counts[row["status"]] = counts.get(row["status"], 0) + 1
+            bar.update(row["status"])
+            if on_row is not None:
+                on_row(row)
+    except (KeyboardInterrupt, LotIncomplete) as e:
+        bar.close()
+        rows.close()  # a Dask client or a process pool is shut down here, not left behind
+        why = "interrupted" if isinstance(e, KeyboardInterrupt) else str(e).split(":")[0]
+        try:  # the table is the record: a row written just before the interrupt counts
+            written |= {_norm(r["file"]) for r in read_table(rows_csv)[1]}
+        except InputError:
+            pass  # a torn last line: the rows this run counted
+        missing = [f for f in todo if f not in written and _norm(f) not in written]
+        raise LotIncomplete(why, missing, len(todo) - len(missing), len(todo), str(rows_csv),
+                            exit_code=130 if why == "interrupted" else 2) from None
     bar.close()
     seconds = time.perf_counter() - t0
     if Path(output).suffix.lower() == ".parquet":

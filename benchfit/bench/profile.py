@@ -214,13 +214,22 @@ def parse_profile(raw: dict[str, Any], *, source: str = "profile") -> Profile:
             raise InputError(f"missing required key commands.{key} for a {kind} profile", source=source)
     for key, text in cmds.items():
         try:
-            fields = [f for _, f, _, _ in string.Formatter().parse(text) if f is not None]
+            parts = [(f, spec, conv) for _, f, spec, conv in string.Formatter().parse(text)
+                     if f is not None]
         except ValueError as e:
-            raise InputError(f"commands.{key} = {text!r}: {e}", source=source) from None
-        for f in fields:
+            raise InputError(f"commands.{key} = {text[:60]!r}: {e}", source=source) from None
+        for f, spec, conv in parts:
+            ok = ", ".join("{" + p + "}" for p in allowed[key]) or "none"
             if f not in allowed[key]:
-                ok = ", ".join("{" + p + "}" for p in allowed[key]) or "none"
-                raise InputError(f"commands.{key} uses placeholder {{{f}}}; allowed: {ok}", source=source)
+                raise InputError(f"commands.{key} uses placeholder {{{f[:40]}}}; allowed: {ok}",
+                                 source=source)
+            if spec or conv:
+                # benchfit writes every value itself (12 significant digits); a format spec such
+                # as {start_hz:>999999999} would let a profile grow a command without bound
+                fmt = (f"!{conv}" if conv else "") + (f":{spec}" if spec else "")
+                raise InputError(f"commands.{key}: placeholder {{{f}{fmt[:40]}}} has a format; "
+                                 f"write it plain, {{{f}}} (benchfit formats the value)",
+                                 source=source)
     encoding = data.get("encoding", "ascii")
     if encoding not in ENCODINGS:
         raise InputError(f"data.encoding = {encoding!r}; expected one of {list(ENCODINGS)}", source=source)

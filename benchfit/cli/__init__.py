@@ -99,6 +99,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 2
+    args.command_line = argv  # a command can say the exact command that continues it
     try:
         with warnings.catch_warnings():
             warnings.showwarning = _show_warning

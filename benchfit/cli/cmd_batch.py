@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import argparse
+import shlex
 import sys
 from pathlib import Path
 
 from benchfit.cli.cmd_fit import DELAY, ORDER  # the same option forms as `benchfit fit`
 from benchfit.cli.common import add_json_flag, emit, warn
-from benchfit.cli.values import band, count, output, text
+from benchfit.cli.values import POSITIVE, TIME, band, count, output, text, value
 from benchfit.errors import InputError
 
 
@@ -38,6 +39,9 @@ def register(subparsers) -> None:
     p.add_argument("--order", type=ORDER, default="auto", help="fit order: auto or a number of poles")
     p.add_argument("--delay", type=DELAY, default="auto", help="fit delay: auto, none or seconds (e.g. 1u)")
     p.add_argument("--band", type=band, metavar="FMIN:FMAX", help="fit only this band, Hz")
+    p.add_argument("--worker-timeout", type=value(TIME, POSITIVE), default=60.0, metavar="S",
+                   help="with --dask: give up when the cluster has had no worker this long "
+                        "(default 60 s); the message names the sweeps left and the --resume")
     p.add_argument("--quiet", action="store_true", help="no progress line")
     add_json_flag(p)
     p.set_defaults(func=run)
@@ -45,7 +49,7 @@ def register(subparsers) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from benchfit.batch.limits import Limits, read_limits
-    from benchfit.batch.runner import find_lot, rows_path_for, run_lot
+    from benchfit.batch.runner import LotIncomplete, find_lot, rows_path_for, run_lot
     from benchfit.batch.summary import plot_histograms, summarise
     from benchfit.batch.table import read_table
     from benchfit.batch.task import TaskSettings, read_design_loop
@@ -68,8 +72,16 @@ def run(args: argparse.Namespace) -> int:
     files = lot.files
     if lot.skipped:
         warn(lot.skipped_line())
-    run_info = run_lot(files, settings, out, workers=args.workers, dask=args.dask,
-                       resume=args.resume, progress=None if args.quiet else sys.stderr)
+    try:
+        run_info = run_lot(files, settings, out, workers=args.workers, dask=args.dask,
+                           resume=args.resume, progress=None if args.quiet else sys.stderr,
+                           worker_timeout_s=args.worker_timeout)
+    except LotIncomplete as e:
+        argv = [a for a in getattr(args, "command_line", []) if a != "--resume"]
+        if argv:  # the exact command that completes the lot
+            again = shlex.join(["benchfit", *argv, "--resume"])
+            e.args = (str(e).replace(e.resume_hint, f"complete them with: {again}"),)
+        raise
     _, rows = read_table(rows_csv)
     summary = summarise(rows, source=str(rows_csv))
     if args.summary:

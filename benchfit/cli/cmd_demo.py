@@ -108,7 +108,8 @@ def run(args: argparse.Namespace) -> int:
     emit(args, data, f"\nwrote {len(result.files)} files into {result.out_dir}/ in {result.seconds:.1f} s"
                      f" and {len(stage_files)} into {Path(stage_files['stage_report']).parent}/\n"
                      f"open the report: {report}\n"
-                     f"and the reference buffer's: {Path(stage_files['stage_report']).resolve()}")
+                     f"and the reference buffer's: {Path(stage_files['stage_report']).resolve()}\n"
+                     f"(both from {Path(stage_files['index']).resolve()})")
     return 0
 
 

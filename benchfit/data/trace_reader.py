@@ -87,11 +87,16 @@ def _metadata(notes: list[str], d: Dialect) -> dict[str, tuple[str, str]]:
         if len(parts) == 2:
             splits.append((parts[0], parts[1]))
         for key, value in splits:
-            what = known.get(re.sub(r"[^a-z0-9]", "", key.lower()))
+            # 'Sample interval (us): 0.2': the unit in brackets after the key goes with the value
+            unit = _UNIT_IN_NAME.search(key)
+            base = key[:unit.start()] + key[unit.end():] if unit else key
+            what = known.get(re.sub(r"[^a-z0-9]", "", base.lower()))
             if what is None:
                 continue
             split_at = r"[;\t,]" if d.decimal == "." else r"[;\t]"
             cells = [c.strip() for c in re.split(split_at, value) if c.strip()]
+            if unit and what in ("interval", "start") and len(cells) == 1:
+                cells.append(unit.group(1))
             if what not in out and cells:
                 out[what] = (" ".join(cells), note)
             break

@@ -117,6 +117,27 @@ def _rss(M: np.ndarray, Y: np.ndarray) -> np.ndarray:
     return np.sum(r * r, axis=-1)
 
 
+@dataclass(frozen=True)
+class AsymptoteRows:
+    """:class:`Asymptote` of many rows at once, as arrays (row ``i``: :meth:`row`)."""
+
+    n: np.ndarray
+    decided: np.ndarray
+    plausible: np.ndarray      # (rows, MAX_INTEGRATORS + 1) bool
+    slope_n: np.ndarray
+    slope_sigma: np.ndarray
+    phase_deg: np.ndarray
+    f_lo_hz: float
+    f_hi_hz: float
+
+    def row(self, i: int) -> Asymptote:
+        return Asymptote(n=int(self.n[i]), decided=bool(self.decided[i]),
+                         plausible=tuple(int(k) for k in np.flatnonzero(self.plausible[i])),
+                         slope_n=float(self.slope_n[i]), slope_sigma=float(self.slope_sigma[i]),
+                         phase_deg=float(self.phase_deg[i]), f_lo_hz=self.f_lo_hz,
+                         f_hi_hz=self.f_hi_hz)
+
+
 def fit_asymptote(freq_hz, T) -> list[Asymptote]:
     """Fit the low-frequency asymptote of every row of ``T`` (see the module notes).
 
@@ -131,6 +152,12 @@ def fit_asymptote(freq_hz, T) -> list[Asymptote]:
     -------
     list of Asymptote, one per row
     """
+    rows = fit_asymptote_rows(freq_hz, T)
+    return [rows.row(i) for i in range(rows.n.size)]
+
+
+def fit_asymptote_rows(freq_hz, T) -> AsymptoteRows:
+    """:func:`fit_asymptote` as arrays (no per-row objects: the Monte Carlo's form)."""
     f = np.asarray(freq_hz, dtype=float).reshape(-1)
     T = np.atleast_2d(np.asarray(T, dtype=complex))
     x = np.log10(f)
@@ -162,16 +189,16 @@ def fit_asymptote(freq_hz, T) -> list[Asymptote]:
         b_n = -n * np.pi / 2 + np.pi * np.rint((b_free + n * np.pi / 2) / np.pi)
         rp = _rss(ph_m[:, 1:], yph - b_n[:, None])
         chi[:, j] = (rm - rss_m) / s2_m + (rp - rss_p) / s2_p
-    return [choose_integrators(chi[i], float(n_free[i]), float(sigma_n[i]),
-                               float(np.degrees(b_free[i])), float(f[w[0]]), float(f[w[-1]]))
-            for i in range(T.shape[0])]
+    best, decided, plausible = choose_integrators(chi, n_free, sigma_n)
+    return AsymptoteRows(n=best, decided=decided, plausible=plausible, slope_n=n_free,
+                         slope_sigma=sigma_n, phase_deg=np.degrees(b_free),
+                         f_lo_hz=float(f[w[0]]), f_hi_hz=float(f[w[-1]]))
 
 
-def choose_integrators(chi2: np.ndarray, slope_n: float, slope_sigma: float, phase_deg: float,
-                       f_lo_hz: float, f_hi_hz: float) -> Asymptote:
-    """The integrator count the low end supports, and whether it is decided.
+def choose_integrators(chi2, slope_n, slope_sigma) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The integrator count the low end supports, and whether it is decided (rows at once).
 
-    Evidence weighed: for each whole n = 0 … :data:`MAX_INTEGRATORS`, ``chi2[n]``
+    Evidence weighed: for each whole n = 0 … :data:`MAX_INTEGRATORS`, ``chi2[row, n]``
     is how much worse the low-end fit gets (in units of the free fit's own
     scatter, magnitude and phase together) when the slope is fixed at −20·n
     dB/decade and the asymptotic phase at a multiple of 90° of n's parity,
@@ -180,22 +207,28 @@ def choose_integrators(chi2: np.ndarray, slope_n: float, slope_sigma: float, pha
     costs :data:`DECIDE_CHI2` more.  ``plausible`` holds every n within
     :data:`DECIDE_CHI2` of the best; when even the best does not fit (the
     sweep has not reached its asymptote) it also holds the whole numbers
-    either side of the slope's 3σ range.
+    either side of the slope's 3σ range (``slope_n`` ± 3 ``slope_sigma``; a
+    slope within :data:`SLOPE_SNAP` of a whole n does not open its neighbour).
+
+    Returns
+    -------
+    best (int, rows), decided (bool, rows), plausible (bool, rows × counts)
     """
-    chi2 = np.asarray(chi2, dtype=float)
-    best = int(np.argmin(chi2))
-    fits = chi2[best] <= ACCEPT_CHI2
-    close = np.flatnonzero(chi2 - chi2[best] < DECIDE_CHI2)
-    if not fits:
-        # no asymptote reached: the whole numbers either side of the slope's 3-sigma range
-        # stay open (a slope within SLOPE_SNAP of a whole n does not open its neighbour)
-        lo = max(int(np.floor(slope_n - 3 * slope_sigma + SLOPE_SNAP)), 0)
-        hi = min(int(np.ceil(slope_n + 3 * slope_sigma - SLOPE_SNAP)), chi2.size - 1)
-        close = np.union1d(close, np.arange(lo, max(hi, lo) + 1))
-    plausible = tuple(int(k) for k in close)
-    return Asymptote(n=best, decided=bool(fits and plausible == (best,)), plausible=plausible,
-                     slope_n=slope_n, slope_sigma=slope_sigma, phase_deg=phase_deg,
-                     f_lo_hz=f_lo_hz, f_hi_hz=f_hi_hz)
+    chi2 = np.atleast_2d(np.asarray(chi2, dtype=float))
+    slope_n = np.atleast_1d(np.asarray(slope_n, dtype=float))
+    slope_sigma = np.atleast_1d(np.asarray(slope_sigma, dtype=float))
+    ns = np.arange(chi2.shape[1])
+    best = np.argmin(chi2, axis=1)
+    low = chi2[np.arange(chi2.shape[0]), best]
+    fits = low <= ACCEPT_CHI2
+    plausible = chi2 - low[:, None] < DECIDE_CHI2
+    lo = np.maximum(np.floor(slope_n - 3 * slope_sigma + SLOPE_SNAP), 0)
+    hi = np.minimum(np.ceil(slope_n + 3 * slope_sigma - SLOPE_SNAP), ns[-1])
+    hi = np.maximum(hi, lo)
+    around = (ns[None, :] >= lo[:, None]) & (ns[None, :] <= hi[:, None])
+    plausible |= ~fits[:, None] & around
+    decided = fits & (plausible.sum(axis=1) == 1)
+    return best, decided, plausible
 
 
 def low_end_phase(freq_hz, T, n: np.ndarray) -> np.ndarray:

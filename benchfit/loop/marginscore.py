@@ -196,7 +196,7 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
     n_int, N, Z = int(v.integrators[0]), int(v.encirclements[0]), int(v.rhp[0])
     verdict = str(v.verdict[0])
     dev0, devinf = v.low_deviation, v.high_deviation
-    asym = v.asymptotes[0] if v.asymptotes is not None else None
+    asym = v.asymptotes.row(0) if v.asymptotes is not None else None
     evidence = asym.describe() if asym is not None else f"{n_int} integrator(s), {'given' if data else 'of the model'}"
     stable = Z == 0          # with the chosen count: which margins apply
     if asym is not None and db[0] < 0 and asym.slope_n - 3 * asym.slope_sigma > 0.1:

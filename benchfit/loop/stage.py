@@ -45,6 +45,7 @@ from benchfit.loop.stage_snapping import snap_stage
 from benchfit.loop.stage_synthesis import GAIN_TOL, StageSynthesis, stage_grid, synthesize_stage
 from benchfit.loop.synthesis import Targets
 from benchfit.loop.tolerance import Spread, monte_carlo
+from benchfit.numfmt import eng
 from benchfit.provenance import Provenance
 
 #: Redesign rounds allowed to reach a minimum yield.
@@ -56,7 +57,7 @@ def band_gain_error(lp: LoopPlant, net: StageNetwork, want: float,
     f0 = stage_grid(lp)[0]
     if not (band_hz > f0):
         raise InputError(f"gain band {band_hz:g} Hz; expected a frequency above the plant's "
-                         f"lowest, {f0:.4g} Hz", source="--gain-band")
+                         f"lowest, {eng(f0, 'Hz')}", source="--gain-band")
     f = np.logspace(np.log10(f0), np.log10(band_hz), 200)
     g = closed_loop_values(net, lp.response(f), f)["gain"]
     err = np.abs(np.abs(g) / abs(want) - 1.0)
@@ -172,54 +173,49 @@ class StageDesign:
 
     def report(self) -> str:
         """Plain text: parts, closed-loop gain, margins beside the rate of closure, spread, warnings."""
+        from benchfit.numfmt import db, db_per_decade, deg, sig
+
         sign = "" if self.stage == "noninverting" else "−"
-        lines = [f"{self.stage} stage, {self.kind} network, closed-loop gain {sign}{abs(self.gain):g} asked"]
+        lines = [f"{self.stage} stage, {self.kind} network, closed-loop gain {sign}{sig(abs(self.gain))} asked"]
         if self.choice:
             lines += [f"  {r}" for r in self.choice]
         lines.append(f"{'part':6}{'ideal':>14}{'snapped':>12}")
         for n, v in self.ideal.network.parts.items():
             unit = "ohm" if n[0] == "R" else "F"
-            lines.append(f"{n:6}{_eng(v, unit):>14}{_eng(self.snapped.network.parts[n], unit):>12}")
+            lines.append(f"{n:6}{eng(v, unit, 4):>14}{eng(self.snapped.network.parts[n], unit):>12}")
         lines.append(f"series: R {self.series.get('resistor')}, C {self.series.get('capacitor')}")
         cg = self.closed_loop_gain
-        lines.append(f"DC closed-loop gain: ideal {cg['ideal']:.5g}, snapped {cg['snapped']:.5g} "
-                     f"({(cg['snapped'] / self.gain - 1) * 100:+.2f} % of the asked {self.gain:g})"
-                     + (f"; {cg['tolerance_low']:.4g}..{cg['tolerance_high']:.4g} over the resistor "
-                        "tolerance" if "tolerance_low" in cg else ""))
+        lines.append(f"DC closed-loop gain: ideal {sig(cg['ideal'], 5)}, snapped {sig(cg['snapped'], 5)} "
+                     f"({(cg['snapped'] / self.gain - 1) * 100:+.2f} % of the asked {sig(self.gain)})"
+                     + (f"; {sig(cg['tolerance_low'], 4)} to {sig(cg['tolerance_high'], 4)} over the "
+                        "resistor tolerance" if "tolerance_low" in cg else ""))
         if "band_hz" in cg:
             lines.append(f"closed-loop gain within {cg['band_error'] * 100:.2f} % of the asked one "
-                         f"up to {cg['band_hz']:.4g} Hz")
+                         f"up to {eng(cg['band_hz'], 'Hz')}")
         for label, p in (("ideal", self.ideal), ("snapped", self.snapped)):
             m = p.corners[0]
-            lines.append(f"{label:8} PM {m.phase_margin_deg:6.1f}° at {m.crossover_hz:.4g} Hz, "
-                         f"GM {m.gain_margin_db:.1f} dB" + ("" if m.closed_loop_stable else "  UNSTABLE")
-                         + (f"; another gain crossing at {m.min_phase_margin_hz:.4g} Hz has PM "
-                            f"{m.min_phase_margin_deg:.1f}°" if worst_pm(m) < m.phase_margin_deg - 0.05
+            lines.append(f"{label:8} PM {deg(m.phase_margin_deg)} at {eng(m.crossover_hz, 'Hz')}, "
+                         f"GM {db(m.gain_margin_db)}" + ("" if m.closed_loop_stable else "  UNSTABLE")
+                         + (f"; another gain crossing at {eng(m.min_phase_margin_hz, 'Hz')} has PM "
+                            f"{deg(m.min_phase_margin_deg)}" if worst_pm(m) < m.phase_margin_deg - 0.05
                             else ""))
         c = self.crossing
-        lines.append(f"1/β meets Aol at {c['freq_hz']:.4g} Hz ({c['aol_db']:.1f} dB): Aol "
-                     f"{c['aol_slope_db_per_decade']:.0f}, 1/β {c['inv_beta_slope_db_per_decade']:.0f} "
-                     f"dB/decade, rate of closure {c['rate_of_closure_db_per_decade']:.0f} dB/decade "
-                     f"— {c['reading']}; the margins above are the exact figures")
+        lines.append(f"1/β meets Aol at {eng(c['freq_hz'], 'Hz')} ({db(c['aol_db'])}): Aol "
+                     f"{db_per_decade(c['aol_slope_db_per_decade'])}, 1/β "
+                     f"{db_per_decade(c['inv_beta_slope_db_per_decade'])}, rate of closure "
+                     f"{db_per_decade(c['rate_of_closure_db_per_decade'])} — {c['reading']}; "
+                     "the margins above are the exact figures")
         aim = self.provenance.settings.get("designed_for") or {}
         if aim and aim.get("phase_margin_deg") != self.targets.phase_margin_deg:
-            lines.append(f"placed for PM {aim['phase_margin_deg']:.1f}° so that "
+            lines.append(f"placed for PM {deg(aim['phase_margin_deg'])} so that "
                          f"{(self.provenance.settings.get('min_yield') or 0) * 100:g} % of the draws "
-                         f"keep {self.targets.phase_margin_deg:g}°")
+                         f"keep {deg(self.targets.phase_margin_deg)}")
         if self.synthesis is not None:
             lines += [f"note: {n}" for n in self.synthesis.notes]
         if self.spread is not None:
             lines.append(self.spread.report())
         lines += [f"warning: {w}" for w in self.warnings]
         return "\n".join(lines)
-
-
-def _eng(v: float, unit: str) -> str:
-    for mult, pre in ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"),
-                      (1e-12, "p")):
-        if abs(v) >= mult * 0.9999:
-            return f"{v / mult:.4g}{pre}{unit}"
-    return f"{v:.3g}{unit}"
 
 
 def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
@@ -300,7 +296,7 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
         cg["band_hz"], cg["band_error"] = float(gain_band_hz), err
         if err > GAIN_TOL:
             warnings.append(f"the closed-loop gain's magnitude is {err * 100:.2f} % off the asked {want:g} at "
-                            f"{f_at:.4g} Hz, inside the {gain_band_hz:.4g} Hz band asked "
+                            f"{eng(f_at, 'Hz')}, inside the {eng(gain_band_hz, 'Hz')} band asked "
                             "(--gain-band); the loop gain there is too low")
     if abs(cg["snapped"] / want - 1) > GAIN_TOL:
         warnings.append(f"snapped DC closed-loop gain {cg['snapped']:.5g} is more than 1 % from the "

@@ -12,6 +12,7 @@ from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_synthesis import (StageSynthesis, _margins, gain_resistors, stage_grid,
                                            synthesize_stage)
 from benchfit.loop.synthesis import Targets
+from benchfit.numfmt import eng
 
 
 #: The order networks are tried in by :func:`choose_network` (fewest parts, least cost first).
@@ -50,7 +51,7 @@ def choose_network(lp: LoopPlant, targets: Targets, *, gain: float, stage: str =
         plain = synthesize_stage("plain", lp, targets, gain=gain, stage=stage, load=load,
                                  r_level=r_level, lag_at=lag_at)
         return plain, [f"plain feedback already gives PM {plain.pm_deg:.1f}° at "
-                       f"{plain.crossover_hz:.4g} Hz: no compensation network needed"]
+                       f"{eng(plain.crossover_hz, 'Hz')}: no compensation network needed"]
     except DesignError as e:
         reasons.append(f"plain: {e}")
     f = stage_grid(lp)
@@ -63,7 +64,7 @@ def choose_network(lp: LoopPlant, targets: Targets, *, gain: float, stage: str =
             continue
         if kind == "snubber" and not snubber_applies(load, float(fc0[0])):
             reasons.append(f"snubber: not needed, the capacitor's ESR zero "
-                           f"({load.esr_zero_hz():.4g} Hz) lies below the crossover")
+                           f"({eng(load.esr_zero_hz(), 'Hz')}) lies below the crossover")
             continue
         try:
             s = synthesize_stage(kind, lp, targets, gain=gain, stage=stage, load=load,
@@ -73,11 +74,11 @@ def choose_network(lp: LoopPlant, targets: Targets, *, gain: float, stage: str =
             continue
         bad = s.network.practical_warnings()
         if bad:
-            reasons.append(f"{kind}: PM {s.pm_deg:.1f}° at {s.crossover_hz:.4g} Hz but not "
+            reasons.append(f"{kind}: PM {s.pm_deg:.1f}° at {eng(s.crossover_hz, 'Hz')} but not "
                            f"practical ({bad[0]})")
             continue
         good.append(s)
-        reasons.append(f"{kind}: PM {s.pm_deg:.1f}° at {s.crossover_hz:.4g} Hz"
+        reasons.append(f"{kind}: PM {s.pm_deg:.1f}° at {eng(s.crossover_hz, 'Hz')}"
                        + ("" if s.on_target else " (not on target)"))
     if not good:
         raise DesignError("no stage network meets the targets on this plant: "
@@ -86,7 +87,7 @@ def choose_network(lp: LoopPlant, targets: Targets, *, gain: float, stage: str =
     bw = {id(s): loop_bandwidth_hz(lp, s.network) for s in pool}
     best = max(pool, key=lambda s: (bw[id(s)], -AUTO_ORDER.index(s.network.kind)))
     reasons.append(f"chosen: {best.network.kind}, the widest loop bandwidth (|T| first falls to 1 "
-                   f"at {bw[id(best)]:.4g} Hz) among the networks that "
+                   f"at {eng(bw[id(best)], 'Hz')}) among the networks that "
                    + ("land on the target" if best.on_target else "meet the target"))
     return best, reasons
 

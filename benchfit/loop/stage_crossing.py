@@ -12,29 +12,26 @@ from benchfit.loop.stage_networks import StageNetwork
 
 
 #: Half-width (decades) of the difference that reads the slopes at the crossing.
-SLOPE_SPAN_DEC = 0.05
-
-
 def crossing(lp: LoopPlant, net: StageNetwork, fc_hz: float) -> dict[str, float | str]:
     """Where 1/β_eff = Aol/T meets Aol: frequency, level, slopes and rate of closure.
 
     The rate of closure is slope(|1/β|) − slope(|Aol|) in dB/decade (= −slope |T|),
-    from a central difference over ±0.05 decade.  The reading beside it is a
-    rule of thumb (20 dB/decade ≈ stable with ample margin, 40 ≈ marginal;
-    common practice, no source), never a margin.
+    from :func:`benchfit.loop.closure.rate_of_closure_db` (the one place the
+    figure is computed, for converter and stage designs alike).  The reading
+    beside it is a rule of thumb (20 dB/decade ≈ stable with ample margin,
+    40 ≈ marginal; common practice, no source), never a margin.
     """
+    from benchfit.loop.closure import rate_of_closure_db, slope_db_per_decade
+
     if not (math.isfinite(fc_hz) and fc_hz > 0):
         return {"freq_hz": math.nan, "aol_db": math.nan, "aol_slope_db_per_decade": math.nan,
                 "inv_beta_slope_db_per_decade": math.nan, "rate_of_closure_db_per_decade": math.nan,
                 "reading": "no crossing"}
-    f = fc_hz * 10.0 ** np.array([-SLOPE_SPAN_DEC, 0.0, SLOPE_SPAN_DEC])
-    aol = lp.response(f)
-    inv_beta = 1.0 / net.response(f)
-    sa = (20 * np.log10(abs(aol[2])) - 20 * np.log10(abs(aol[0]))) / (2 * SLOPE_SPAN_DEC)
-    sb = (20 * np.log10(abs(inv_beta[2])) - 20 * np.log10(abs(inv_beta[0]))) / (2 * SLOPE_SPAN_DEC)
-    roc = float(sb - sa)
-    return {"freq_hz": float(fc_hz), "aol_db": float(20 * np.log10(abs(aol[1]))),
-            "aol_slope_db_per_decade": float(sa), "inv_beta_slope_db_per_decade": float(sb),
+    roc = float(rate_of_closure_db(lp, net, fc_hz))
+    aol_db = float(20 * np.log10(abs(lp.response(np.array([fc_hz]))[0])))
+    return {"freq_hz": float(fc_hz), "aol_db": aol_db,
+            "aol_slope_db_per_decade": float(slope_db_per_decade(lp, fc_hz)),
+            "inv_beta_slope_db_per_decade": float(-slope_db_per_decade(net, fc_hz)),
             "rate_of_closure_db_per_decade": roc, "reading": closure_reading(roc)}
 
 

@@ -50,6 +50,7 @@ from benchfit.fitting.model import PlantModel
 from benchfit.loop.nodal import Ring, cancel_pair, trim
 from benchfit.loop.rational import POLY, VALUES, Algebra, Frac
 from benchfit.loop.stage_load import StageLoad
+from benchfit.numfmt import eng
 from benchfit.provenance import Provenance
 
 STAGES = ("noninverting", "inverting")
@@ -363,10 +364,10 @@ class StageNetwork:
         pre = f"{label} " if label else ""
         for n, v in self.parts.items():
             if n in ("Rf", "Rg") and not (100.0 <= v <= 10e6):
-                out.append(f"{pre}{n} = {v:.4g} ohm is outside the practical 100 ohm..10 Mohm range; "
+                out.append(f"{pre}{n} = {eng(v, 'ohm')} is outside the practical 100 Ω to 10 MΩ range; "
                            "change --r-in")
             elif n in ("Cf", "Cn") and not (10e-12 <= v <= 10e-6):
-                out.append(f"{pre}{n} = {v:.4g} F is outside the practical 10 pF..10 uF range "
+                out.append(f"{pre}{n} = {eng(v, 'F')} is outside the practical 10 pF to 10 µF range "
                            "for a feedback capacitor")
         return out
 

@@ -36,6 +36,7 @@ from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_response import closed_loop_values
 from benchfit.loop.timeresponse import StepResponse, state_space, step_metrics
 from benchfit.provenance import Provenance
+from benchfit.numfmt import eng
 
 #: Time samples of a predicted step.
 STEP_POINTS = 800
@@ -180,22 +181,22 @@ class StagePrediction:
                 "warnings": list(self.warnings), "provenance": self.provenance.to_dict()}
 
     def report(self) -> str:
-        lines = [f"closed-loop bandwidth {self.bandwidth_hz():.4g} Hz (-3 dB from "
+        lines = [f"closed-loop bandwidth {eng(self.bandwidth_hz(), 'Hz')} (-3 dB from "
                  f"{abs(self.closed[0]):.4g} V/V), peaking "
                  f"{20 * math.log10(np.max(np.abs(self.closed)) / abs(self.closed[0])):.1f} dB"]
         if self.step is not None:
             s = self.step
             lines.append(f"small-signal step {s.step_size:g} V: overshoot {s.overshoot_pct:.1f} %, "
-                         f"rise {s.rise_time_s:.4g} s, settling ({s.settle_band * 100:g} %) "
-                         f"{s.settling_time_s:.4g} s")
+                         f"rise {eng(s.rise_time_s, 's')}, settling ({s.settle_band * 100:g} %) "
+                         f"{eng(s.settling_time_s, 's')}")
         if np.any(self.z_closed):
             j = int(np.argmax(np.abs(self.z_closed)))
-            lines.append(f"output impedance peak {abs(self.z_closed[j]):.4g} ohm at "
-                         f"{self.freq_hz[j]:.4g} Hz")
+            lines.append(f"output impedance peak {eng(abs(self.z_closed[j]), 'ohm')} at "
+                         f"{eng(self.freq_hz[j], 'Hz')}")
         if self.load is not None:
             ld = self.load
             lines.append(f"load step {ld.step_size:g} A into the capacitor: peak deviation "
-                         f"{ld.peak_value * 1e3:.4g} mV at {ld.peak_time_s:.4g} s")
+                         f"{ld.peak_value * 1e3:.4g} mV at {eng(ld.peak_time_s, 's')}")
         lines += [f"warning: {w}" for w in self.warnings]
         return "\n".join(lines)
 

@@ -310,15 +310,18 @@ def synthesize_stage(kind: str, lp: LoopPlant, targets: Targets, *, gain: float,
                               f"target is {targets.phase_margin_deg:g}°")
         return StageSynthesis(net, {}, False, float(pm[0]), float(fc[0]), (NOTES["plain"],))
     options = {"isolation": ISO_RISO, "snubber": SNUB_CS}.get(kind, (None,))
-    best_pm = -math.inf
+    best_pm = best_gm = -math.inf
     found: list[StageSynthesis] = []
     for opt in options:
         fam = _Family(kind, base, stage, load, lag_at, lp, f, opt)
         got = _solve(fam, targets)
         if got is None:
             s0, s1, _, _ = fam.range()
-            best_pm = max(best_pm, float(np.max(fam.margins(
-                np.logspace(math.log10(s0), math.log10(s1), SWEEP_POINTS))[0])))
+            pm_s, gm_s, st_s, _ = fam.margins(np.logspace(math.log10(s0), math.log10(s1),
+                                                          SWEEP_POINTS))
+            keeps_gm = st_s & (gm_s >= targets.gain_margin_db)  # the PM reachable with the GM kept
+            best_pm = max(best_pm, float(np.max(np.where(keeps_gm, pm_s, -np.inf))))
+            best_gm = max(best_gm, float(np.max(np.where(st_s, gm_s, -np.inf))))
             continue
         x, pm, fc, on = got
         net = StageNetwork(kind, {**base, **fam.values(np.array([x]), scalar=True)}, stage,
@@ -336,5 +339,12 @@ def synthesize_stage(kind: str, lp: LoopPlant, targets: Targets, *, gain: float,
             break
     if found:
         return next((s for s in found if s.on_target), found[0])
+    if best_gm == -math.inf:
+        raise DesignError(f"the {kind} network leaves the loop unstable at every setting tried on "
+                          "this plant (Nyquist count); choose another network")
+    if not math.isfinite(best_pm):
+        raise DesignError(f"the {kind} network keeps no {targets.gain_margin_db:g} dB gain margin on "
+                          f"this plant (at most {best_gm:.1f} dB stable); lower --gain-margin or "
+                          "choose another network")
     raise DesignError(f"the {kind} network reaches at most PM {best_pm:.1f}° on this plant "
                       f"(target {targets.phase_margin_deg:g}°, GM {targets.gain_margin_db:g} dB)")

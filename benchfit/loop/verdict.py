@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from benchfit.loop.asymptote import Asymptote, fit_asymptote, low_end_phase
+from benchfit.loop.asymptote import AsymptoteRows, fit_asymptote_rows, low_end_phase
 from benchfit.loop.crossings import nyquist_count
 
 STABLE, UNSTABLE, UNDECIDED = "stable", "unstable", "undecided"
@@ -32,7 +32,7 @@ class Verdicts:
     verdict: np.ndarray           # "stable" / "unstable" / "undecided"
     low_deviation: np.ndarray     # deg: the low end's distance from its asymptote
     high_deviation: np.ndarray    # deg: the high end's distance from its asymptote
-    asymptotes: tuple[Asymptote, ...] | None  # None when the count was given
+    asymptotes: AsymptoteRows | None  # None when the count was given (``.row(i)``)
 
     @property
     def stable(self) -> np.ndarray:
@@ -85,19 +85,16 @@ def nyquist_verdict(freq_hz, T, unstable: int, integrators=None, *, cand=None,
     if cand is None:
         im = T.imag
         cand = np.nonzero((im[:, :-1] > 0) != (im[:, 1:] > 0))
-    asym: tuple[Asymptote, ...] | None = None
+    asym: AsymptoteRows | None = None
     if integrators is not None:
         n = np.broadcast_to(np.asarray(integrators, dtype=int), (rows,)).copy()
         counts = np.unique(n)
         plausible = np.zeros((rows, int(counts.max()) + 1), dtype=bool)
         plausible[np.arange(rows), n] = True
     else:
-        asym = tuple(fit_asymptote(f, T))
-        n = np.array([a.n for a in asym], dtype=int)
-        width = max(max(a.plausible) for a in asym) + 1
-        plausible = np.zeros((rows, width), dtype=bool)
-        for i, a in enumerate(asym):
-            plausible[i, list(a.plausible)] = True
+        asym = fit_asymptote_rows(f, T)
+        n = asym.n.astype(int)
+        plausible = asym.plausible
         counts = np.flatnonzero(plausible.any(axis=0))
     z_by = np.zeros(plausible.shape, dtype=int)
     N = np.zeros(rows, dtype=int)
@@ -106,9 +103,10 @@ def nyquist_verdict(freq_hz, T, unstable: int, integrators=None, *, cand=None,
     devinf = np.zeros(rows)
     for k in counts:
         sel = np.flatnonzero(plausible[:, k])
-        Tk = T[sel]
+        whole = sel.size == rows            # every row: no copies
+        Tk = T if whole else T[sel]
         low = low_end_phase(f, Tk, np.full(sel.size, k)) if carry_low_end else None
-        cand_k = _rows_of(cand, sel)
+        cand_k = cand if whole else _rows_of(cand, sel)
         nk, zk, d0, dinf = nyquist_count(Tk, np.full(sel.size, k), unstable, cand_k, low)
         z_by[sel, k] = zk
         mine = n[sel] == k

@@ -54,7 +54,7 @@ def load_step_size(load_trace: TimeTrace | None, current_channel: str | None,
     if load_step_a is None:
         return None, ""
     if load_trace is not None:
-        return float(load_step_a), "as given (the measured trace has no current channel to read it from)"
+        return float(load_step_a), "as given (no current channel of the trace was named to measure it on)"
     return float(load_step_a), "as given"
 
 

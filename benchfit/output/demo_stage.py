@@ -101,5 +101,24 @@ def run_stage_demo(data_dir: str | Path, out_dir: str | Path, *, scenario: Stage
                "yield": None if d.spread is None else d.spread.yield_fraction}
     write_json_atomic(out / "summary.json", summary)
     files["stage_summary"] = out / "summary.json"
+    files["index"] = write_index(Path(out_dir), files["stage_report"], summary)
     return {"files": {k: str(v) for k, v in files.items()}, "summary": summary,
             "scenario": asdict(sc)}
+
+
+def write_index(out_dir: Path, stage_report: Path, summary: dict[str, Any]) -> Path:
+    """``OUT/index.html``: one page pointing at both scenarios' reports."""
+    import html
+
+    from benchfit.fileio import write_text_atomic
+
+    rows = [("report.html", "Buck converter: Type III compensation (the first scenario)"),
+            (str(stage_report.relative_to(out_dir)),
+             f"Reference buffer into 22 µF: {summary['network']} feedback network, gain "
+             f"{summary['closed_loop_gain']:.4g}, PM {summary['phase_margin_deg']:.1f}°, rate of "
+             f"closure {summary['rate_of_closure_db_per_decade']:.0f} dB/decade")]
+    items = "\n".join(f'<li><a href="{html.escape(h)}">{html.escape(t)}</a></li>' for h, t in rows)
+    page = ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>benchfit demo"
+            "</title></head><body><h1>benchfit demo: two scenarios</h1><ul>\n" + items +
+            "\n</ul></body></html>\n")
+    return write_text_atomic(out_dir / "index.html", page)

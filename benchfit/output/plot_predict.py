@@ -98,7 +98,7 @@ def spread_histograms(pm_deg: Sequence[float], crossover_hz: Sequence[float],
                       gm_db: Sequence[float] | None = None, *, pm_min_deg: float | None = None,
                       crossover_target_hz: float | None = None, gm_min_db: float | None = None,
                       yield_fraction: float | None = None, what: str = "part tolerances",
-                      title: str | None = None) -> Figure:
+                      drawn_yield: float | None = None, title: str | None = None) -> Figure:
     """Histograms of phase margin, crossover (and gain margin) over Monte Carlo draws.
 
     Each histogram is scaled to its own draws (:func:`data_view`); a target
@@ -114,6 +114,9 @@ def spread_histograms(pm_deg: Sequence[float], crossover_hz: Sequence[float],
         Targets.
     yield_fraction
         Fraction of draws meeting every target (0..1), written on the figure.
+    drawn_yield
+        When the histograms are of other draws than ``yield_fraction`` was
+        computed from: their own yield, written beside it.
     what
         What was varied, for the note.
 
@@ -157,7 +160,8 @@ def spread_histograms(pm_deg: Sequence[float], crossover_hz: Sequence[float],
     head = title or f"Spread over {n} draws of {what}"
     if yield_fraction is not None:
         ok = yield_fraction >= 0.99
-        fig.suptitle(f"{head}: yield {pct(yield_fraction)}", fontweight="bold",
+        extra = f" (these draws: {pct(drawn_yield)})" if drawn_yield is not None else ""
+        fig.suptitle(f"{head}: yield {pct(yield_fraction)}{extra}", fontweight="bold",
                      color=style.BLACK if ok else style.WARN, x=0.01, ha="left", fontsize=11.5)
     else:
         fig.suptitle(head, fontweight="bold", x=0.01, ha="left", fontsize=11.5)

@@ -16,8 +16,9 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from benchfit.data.trace import TimeTrace
+from benchfit.numfmt import eng
 from benchfit.output.plot_common import FREQ_LABEL, dense_grid
-from benchfit.output.style import (MEASURED, MODEL, SECOND, TARGET, WARN, EXTRA, log_axis,
+from benchfit.output.style import (EXTRA, MEASURED, MODEL, SECOND, TARGET, WARN, log_axis,
                                    new_figure, note, styled)
 
 
@@ -56,17 +57,17 @@ def crossing_figure(design: Any, *, which: str = "snapped", measured_closed: Any
     if math.isfinite(c["freq_hz"]):
         ax.plot([c["freq_hz"]], [c["aol_db"]], marker="o", color=WARN, markersize=7, zorder=5)
         ax.annotate(f"rate of closure {c['rate_of_closure_db_per_decade']:.0f} dB/decade\n"
-                    f"at {c['freq_hz']:.3g} Hz",
+                    f"at {eng(c['freq_hz'], 'Hz')}",
                     (c["freq_hz"], c["aol_db"]), textcoords="offset points", xytext=(12, 14),
                     fontsize=9, color=WARN)
     ld = design.load
     for fz, label, style in ((ld.load_pole_hz(), "load pole", ":"), (ld.esr_zero_hz(), "ESR zero", "-.")):
         if fz is not None and f[0] <= fz <= f[-1]:
             ax.axvline(fz, color=EXTRA, linestyle=style, linewidth=1.1)
-            ax.text(fz, 0.55, f" {label}\n {fz:.3g} Hz", transform=ax.get_xaxis_transform(),
+            ax.text(fz, 0.55, f" {label}\n {eng(fz, 'Hz')}", transform=ax.get_xaxis_transform(),
                     fontsize=8.5, color=EXTRA, va="bottom")
     m = pred.corners[0]
-    note(ax, f"PM {m.phase_margin_deg:.1f}° at {m.crossover_hz:.3g} Hz, GM {m.gain_margin_db:.1f} dB\n"
+    note(ax, f"PM {m.phase_margin_deg:.1f}° at {eng(m.crossover_hz, 'Hz')}, GM {m.gain_margin_db:.1f} dB\n"
              f"(exact margins; the rate of closure is the rule-of-thumb view:\n"
              f" {c['reading']})")
     log_axis(ax)

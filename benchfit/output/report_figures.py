@@ -103,7 +103,8 @@ def report_figures(inputs: ReportInputs, *, draws: SpreadDraws | None = None) ->
                 plots.spread_histograms(draws.pm_deg, draws.crossover_hz, draws.gm_db,
                                         pm_min_deg=d.targets.phase_margin_deg, crossover_target_hz=fc_t,
                                         gm_min_db=d.targets.gain_margin_db,
-                                        yield_fraction=draws.yield_fraction)))
+                                        yield_fraction=d.spread.yield_fraction,
+                                        drawn_yield=None if same else draws.yield_fraction)))
     step, load = inputs.curve("step"), inputs.curve("load_step")
     if step is not None or load is not None:
         st = inputs.stimuli or {}

@@ -94,7 +94,8 @@ def spread_draws(design: Design, plant_draws=None) -> SpreadDraws | None:
     if plant_draws is not None and sp.plant_uncertainty:
         corners[0] = replace(corners[0], draws=plant_draws)
     out = draw_margins(corners, design.snapped.network, design.opamp, design.targets, r_tol=sp.r_tol,
-                       c_tol=sp.c_tol, draws=sp.draws, seed=sp.seed, plant_uncertainty=sp.plant_uncertainty)
+                       c_tol=sp.c_tol, draws=sp.draws, seed=sp.seed, plant_uncertainty=sp.plant_uncertainty,
+                       crossings=sp.crossings)
     return SpreadDraws(pm_deg=np.asarray(out["pm_deg"], float), gm_db=np.asarray(out["gm_db"], float),
                        crossover_hz=np.asarray(out["crossover_hz"], float),
                        passed=np.asarray(out["passed"], bool), seed=sp.seed,

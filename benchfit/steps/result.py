@@ -173,7 +173,8 @@ class StepResult:
             lines += ["", f"Fit: {f.model} (residual rms {_si(f.stats['rms_v'], 'V')} = "
                           f"{f.stats['rms_over_noise']:.3g}x noise, {f.stats['points']} points)"]
             for p in f.parameters:
-                lines.append(f"  {p.name:<24} {_pm(p.value, p.stderr, p.unit)}")
+                lines.append(f"  {STEP_PARAMETER_LABELS.get(p.name, p.name):<24} {_pm(p.value, p.stderr, p.unit)}"
+                             f"  {p.name}")
         if self.phase_margin:
             pm = self.phase_margin
             basis = "fitted ζ" if self.fits else "ζ of the log decrement"
@@ -191,6 +192,14 @@ class StepResult:
         if self.warnings:
             lines += ["", "Warnings"] + [f"  - {w}" for w in self.warnings]
         return "\n".join(lines) + "\n"
+
+
+#: What a person reads for each step-model parameter (JSON keeps the names; the text shows both).
+STEP_PARAMETER_LABELS = {"zeta": "damping ratio ζ", "fn_hz": "natural frequency", "fp_hz": "real pole",
+                         "initial_v": "initial level", "step_v": "step", "t0_s": "step instant",
+                         "droop_v": "droop (DC part)", "resonant_v": "resonant dip",
+                         "loop_gain": "loop gain", "pair_fn_hz": "pole pair, natural frequency",
+                         "pair_zeta": "pole pair, damping ratio"}
 
 
 def _si(x: float, unit: str) -> str:
