@@ -48,3 +48,13 @@ def test_design_holds_on_the_true_plant(job):
     g_dc = (1 + parts["Rf"] / parts["Rg"]) * t0 / (1 + t0)  # non-inverting feedback algebra
     assert g_dc == pytest.approx(2.5, rel=0.01)
     assert job["summary"]["closed_loop_gain"] == pytest.approx(g_dc, rel=1e-3)
+
+
+def test_zero_tolerance_monte_carlo_is_the_nominal_on_the_demo(job):
+    # the demo's refbuf design as written (its fitted Aol, the covariance not drawn)
+    from test_stage_design import assert_zero_tolerance_is_nominal
+
+    from benchfit.loop.stage import StageDesign
+
+    d = StageDesign.from_json(job["files"]["stage_design"])
+    assert_zero_tolerance_is_nominal(d.plant, d, "refbuf")

@@ -16,7 +16,8 @@ import pytest
 from benchfit.errors import DesignError, InputError
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.loopgain import LoopPlant
-from benchfit.loop.stage import StageDesign, design_stage
+from benchfit.loop.passrules import margins_meet
+from benchfit.loop.stage import StageDesign, design_stage, stage_spread
 from benchfit.loop.stage_snapping import pick_snapped
 from benchfit.loop.stage_crossing import closure_reading, crossing
 from benchfit.loop.stage_load import StageLoad
@@ -209,3 +210,43 @@ def test_mistakes():
     with pytest.raises(InputError, match="output resistance"):
         design_stage(LoopPlant(model), "isolation", Targets(), gain=2, draws=0)
     assert math.isnan(crossing(LoopPlant(model), None, math.nan)["freq_hz"])
+
+
+def assert_zero_tolerance_is_nominal(lp, d, where=""):
+    """Every draw of a zero-tolerance Monte Carlo is the nominal loop: its percentiles are the
+    nominal (dense) margins to the arithmetic's resolution and its yield the nominal verdict
+    (issue 19 item 2), also for targets a hair either side of the nominal phase margin."""
+    m = d.snapped.corners[0]
+    s = stage_spread(lp, d.network, d.targets, r_tol=0.0, c_tol=0.0, draws=5, seed=1,
+                     plant_uncertainty=False)
+    for key, ref in (("pm_deg", m.phase_margin_deg), ("gm_db", m.gain_margin_db),
+                     ("crossover_hz", m.crossover_hz)):
+        for p, got in s.percentiles[key].items():
+            assert got == pytest.approx(ref, rel=1e-9, abs=1e-9), (where, key, p, got, ref)
+    assert s.yield_fraction == (1.0 if margins_meet(m, d.targets) else 0.0), where
+    for pm_t in (m.phase_margin_deg - 1e-6, m.phase_margin_deg + 1e-6):
+        t = Targets(phase_margin_deg=pm_t, gain_margin_db=d.targets.gain_margin_db)
+        y = stage_spread(lp, d.network, t, r_tol=0.0, c_tol=0.0, draws=3, seed=1,
+                         plant_uncertainty=False).yield_fraction
+        assert y == (1.0 if margins_meet(m, t) else 0.0), (where, pm_t)
+
+
+@pytest.mark.parametrize("kind, plant", [
+    ("lag-lead", (2e6, 30.0, 10e-6, 0.005)),
+    ("isolation", (10e6, 10.0, 1e-6, 0.01)),
+    ("snubber", (5e6, 5.0, 22e-6, 0.002)),
+    ("auto", (1e6, 20.0, 1e-6, 0.01)),
+])
+def test_zero_tolerance_monte_carlo_is_the_nominal(kind, plant):
+    gbw, ro, cl, esr = plant
+    _, model = true_plant(gbw, ro, cl, esr)
+    lp = LoopPlant(model)
+    d = design_stage(lp, kind, Targets(phase_margin_deg=55), gain=2, load=StageLoad(ro, cl, esr),
+                     draws=0)
+    assert_zero_tolerance_is_nominal(lp, d, kind)
+    # the design's own Monte Carlo at zero tolerance: the same figures and the nominal verdict
+    z = design_stage(lp, kind, Targets(phase_margin_deg=55), gain=2, load=StageLoad(ro, cl, esr),
+                     tolerances=(0.0, 0.0), draws=4, seed=2)
+    m = z.snapped.corners[0]
+    assert z.spread.percentiles["pm_deg"]["p1"] == pytest.approx(m.phase_margin_deg, rel=1e-9)
+    assert z.spread.yield_fraction == (1.0 if z.targets_met else 0.0)

@@ -12,7 +12,8 @@ op-amp + output stage + load and
    (:func:`benchfit.loop.stage_snapping.pick_snapped`);
 3. re-verifies the snapped loop T = Aol · compensator from the model (or the
    sweep) and checks the DC closed-loop gain with the finite Aol;
-4. spreads it over part tolerances (:func:`benchfit.loop.tolerance.monte_carlo`);
+4. spreads it over part tolerances (:func:`stage_spread`: the feature grid and the one
+   pass rule of the converter designs, so zero tolerance is the nominal loop);
 5. reads the crossing once (:func:`crossing`): where |1/β_eff| = |Aol| with
    1/β_eff = Aol/T, the slopes there and the rate of closure.
 
@@ -35,7 +36,8 @@ from benchfit.fileio import malformed_as_input_error, read_json, to_json_text, w
 from benchfit.loop import eseries
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.margins import Margins
-from benchfit.loop.prediction import Prediction, predict
+from benchfit.loop.passrules import margins_meet
+from benchfit.loop.prediction import Prediction, predict, target_warnings
 from benchfit.loop.stage_choice import choose_network
 from benchfit.loop.stage_crossing import crossing, worst_pm
 from benchfit.loop.stage_load import StageLoad
@@ -50,6 +52,24 @@ from benchfit.provenance import Provenance
 
 #: Redesign rounds allowed to reach a minimum yield.
 YIELD_ROUNDS = 6
+
+
+def stage_spread(lp: LoopPlant, net: StageNetwork, targets: Targets, *, r_tol: float,
+                 c_tol: float, draws: int, seed: int | None = None,
+                 plant_uncertainty: bool = True) -> Spread:
+    """Monte Carlo of a stage network, as the converter designs run it.
+
+    Every draw is evaluated on :func:`benchfit.loop.featuregrid.feature_grid`
+    (the plant's and the network's poles and zeros, clusters at lightly damped
+    pairs, every nominal crossing exactly) and judged by
+    :func:`benchfit.loop.passrules.draws_pass`, the rule the nominal verdict
+    (:attr:`StageDesign.targets_met`) uses, so a draw equal to the nominal
+    loop has the nominal margins and verdict.
+    """
+    return monte_carlo([lp], net, None, targets, r_tol=r_tol, c_tol=c_tol, draws=draws,
+                       seed=seed, plant_uncertainty=plant_uncertainty)
+
+
 def band_gain_error(lp: LoopPlant, net: StageNetwork, want: float,
                     band_hz: float) -> tuple[float, float]:
     """Largest | |G|/|want| − 1 | (magnitude) from the bottom of the band to ``band_hz``,
@@ -98,8 +118,11 @@ class StageDesign:
 
     @property
     def targets_met(self) -> bool:
+        """Snapped parts meet every margin target (every crossing, no slack:
+        :func:`benchfit.loop.passrules.margins_meet`, the rule of the Monte Carlo yield)
+        and the DC closed-loop gain is within 1 %."""
         m = self.snapped.corners[0]
-        return bool(m.closed_loop_stable and self.targets.met(worst_pm(m), m.gain_margin_db)
+        return bool(margins_meet(m, self.targets)
                     and abs(self.closed_loop_gain["snapped"] / self.gain - 1) <= GAIN_TOL)
 
     def to_dict(self) -> dict[str, Any]:
@@ -275,9 +298,8 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
             break  # more margin than the plant allows: keep the last design
         snapped_net = snap_stage(syn, lp, aim, g_abs, r_series, c_series)
         got = (syn, choice, snapped_net, aim)
-        spread = None if not draws else monte_carlo(
-            [lp], snapped_net, None, targets, r_tol=rt, c_tol=ct, draws=draws, seed=seed,
-            freq_hz=stage_grid(lp))
+        spread = None if not draws else stage_spread(lp, snapped_net, targets, r_tol=rt,
+                                                     c_tol=ct, draws=draws, seed=seed)
         if min_yield is None or spread.yield_fraction >= min_yield:
             break
         q = "p1" if min_yield > 0.95 else "p5"
@@ -301,9 +323,7 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
     if abs(cg["snapped"] / want - 1) > GAIN_TOL:
         warnings.append(f"snapped DC closed-loop gain {cg['snapped']:.5g} is more than 1 % from the "
                         f"{want:g} asked; use a finer resistor series (--series E96:E12)")
-    if not (m.closed_loop_stable and targets.met(worst_pm(m), m.gain_margin_db)):
-        warnings.append(f"snapped parts: PM {worst_pm(m):.1f}°, GM {m.gain_margin_db:.1f} dB "
-                        f"miss the targets ({targets.phase_margin_deg:g}°, {targets.gain_margin_db:g} dB)")
+    warnings += target_warnings(snapped, targets, ["Aol"], "snapped")
     if spread is not None:
         if min_yield is not None and spread.yield_fraction < min_yield:
             warnings.append(f"the {min_yield * 100:g} % yield asked for was not reached: "
