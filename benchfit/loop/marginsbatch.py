@@ -10,7 +10,7 @@ from benchfit.loop.verdict import nyquist_verdict
 
 
 def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0,
-                  integrators=None) -> dict[str, np.ndarray]:
+                  integrators=None, live_db: float | None = None) -> dict[str, np.ndarray]:
     """Margins of many sampled loops at once (Monte Carlo draws), vectorised over rows.
 
     Uses the rules of :func:`margins_from_data` (linear interpolation in log f
@@ -31,6 +31,12 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0,
         Open-loop poles at s = 0 (an int, or one per row); None estimates
         them from each row's low-frequency asymptote
         (:func:`benchfit.loop.verdict.nyquist_verdict`).
+    live_db
+        When given (rows sampled from a model), phase crossings between two
+        points both below this level are left out, as the dense analysis of a
+        model leaves them out (:data:`benchfit.loop.densegrid.LIVE_DB`): so a
+        row equal to a model's nominal loop lists the crossings its nominal
+        margins list.  None (measured rows) keeps every crossing.
 
     Returns
     -------
@@ -91,6 +97,9 @@ def margins_batch(freq_hz, T, *, unstable_open_loop_poles: int = 0,
     im = T.imag
     cand = np.nonzero((im[:, :-1] > 0) != (im[:, 1:] > 0))
     pr, pc, pa, pstep, pt = branch_crossings(T, cand)
+    if live_db is not None:
+        keep = np.maximum(to_db(T[pr, pc]), to_db(T[pr, pc + 1])) >= live_db
+        pr, pc, pa, pstep, pt = pr[keep], pc[keep], pa[keep], pstep[keep], pt[keep]
     gdb = to_db(T[pr, pc]) + pt * (to_db(T[pr, pc + 1]) - to_db(T[pr, pc]))
     gm_all = -gdb
     pos = gm_all > 0

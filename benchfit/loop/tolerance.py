@@ -25,6 +25,7 @@ import numpy as np
 
 from benchfit import numfmt
 from benchfit.errors import InputError
+from benchfit.loop.densegrid import LIVE_DB
 from benchfit.loop.featuregrid import feature_grid
 from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.networks import Network
@@ -182,7 +183,7 @@ def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
                 p = nominal_p[None, :]
             t = p * lp.sensing.gain_draws(div_f[a:b]) * c
             out = margins_batch(f, t, unstable_open_loop_poles=lp.unstable_poles,
-                                integrators=n_int)
+                                integrators=n_int, live_db=None if lp.is_data else LIVE_DB)
             stable = np.asarray(out["stable"], dtype=bool)
             pm = np.asarray(out["pm_deg"], dtype=float)
             gm = np.asarray(out["gm_db"], dtype=float)
