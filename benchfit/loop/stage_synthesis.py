@@ -40,15 +40,18 @@ from benchfit.errors import DesignError, InputError
 from benchfit.loop import eseries
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.stage_load import StageLoad
+from benchfit.loop.passrules import margins_meet
 from benchfit.loop.stage_networks import StageNetwork
+from benchfit.loop.stage_refine import exact_margins, exact_pm, refine_on_exact
 from benchfit.loop.synthesis import Targets
 
 #: Points of each placement sweep.
 SWEEP_POINTS = 90
 #: Bisection steps refining a crossing of the target.
 BISECT_STEPS = 30
-#: |PM − target| below which a placement counts as on target, degrees.
-ON_TARGET_DEG = 0.5
+#: How far above the target the exact phase margin of a placement may lie and count as on
+#: target, degrees (the exact bisection lands within ~1e-9° where the margin is continuous).
+ON_TARGET_DEG = 0.05
 #: Closed-loop DC gain error allowed after snapping (the issue's 1 %).
 GAIN_TOL = 0.01
 #: Lag-lead shape: lead pole at fc/LL_M, plateau LL_M·|Aol(fc)|, lag corner at fc/(5·LL_M).
@@ -68,9 +71,10 @@ class StageSynthesis:
     swept
         Name of the placement variable and its final value.
     on_target
-        True when the ideal phase margin is within 0.5° of the target.
+        True when the ideal parts meet the targets on the exact margins with a phase
+        margin at most :data:`ON_TARGET_DEG` above the target.
     pm_deg, crossover_hz
-        Ideal margins found by the sweep.
+        Ideal margins (exact, smallest PM over the gain crossings).
     notes
         Plain-language notes (the rule used, costs).
     """
@@ -223,13 +227,25 @@ class _Family:
     def margins(self, x: np.ndarray):
         return _margins(self.lp, self.f, self.net, self.values(x))
 
+    def network_at(self, x: float) -> StageNetwork:
+        """The network at one setting ``x`` of the swept variable."""
+        return StageNetwork(self.kind, {**self.base, **self.values(np.array([x]), scalar=True)},
+                            self.stage, self.load, self.lag_at)
+
 
 def _ok(pm, gm, stable, targets: Targets) -> np.ndarray:
     return stable & (pm >= targets.phase_margin_deg) & (gm >= targets.gain_margin_db)
 
 
 def _solve(fam: _Family, targets: Targets) -> tuple[float, float, float, bool] | None:
-    """(x, pm, crossover, on_target) of the preferred crossing of the target, or None."""
+    """(x, pm, crossover, on_target) of the preferred crossing of the target, or None.
+
+    The sweep and its bisection judge the grid margins; the chosen crossing is
+    then refined on the exact margins (:func:`benchfit.loop.stage_refine.refine_on_exact`),
+    and ``pm``, ``crossover`` and ``on_target`` are the exact figures: on target
+    when the exact margins meet the targets and the phase margin lies within
+    :data:`ON_TARGET_DEG` above the target.
+    """
     start, end, _, _ = fam.range()
     x = np.logspace(math.log10(start), math.log10(end), SWEEP_POINTS)
     pm, gm, st, fc = fam.margins(x)
@@ -249,15 +265,21 @@ def _solve(fam: _Family, targets: Targets) -> tuple[float, float, float, bool] |
                 else:
                     a = m
             r = fam.margins(np.array([10 ** b]))
-            cands.append((10 ** b, float(r[0][0]), float(r[3][0]), i))
+            cands.append((10 ** b, float(r[0][0]), float(r[3][0]), i, a, b))
     if not cands:  # passes everywhere: keep the preferred end
         j = 0 if fam.range()[3] else len(x) - 1
-        return float(x[j]), float(pm[j]), float(fc[j]), False
+        m = exact_margins(fam.lp, fam.network_at(float(x[j])))
+        return float(x[j]), exact_pm(m), float(m.crossover_hz), False
     if fam.kind == "snubber":
         best = max(cands, key=lambda c: c[2])
     else:
         best = min(cands, key=lambda c: c[3])  # the first crossing from the preferred start
-    return best[0], best[1], best[2], abs(best[1] - targets.phase_margin_deg) <= ON_TARGET_DEG
+    step = abs(math.log10(x[1] / x[0]))
+    xb, m, _ = refine_on_exact(fam.network_at, fam.lp, targets, best[4], best[5], step,
+                               (math.log10(start), math.log10(end)))
+    pm_x = exact_pm(m)
+    on = margins_meet(m, targets) and pm_x - targets.phase_margin_deg <= ON_TARGET_DEG
+    return xb, pm_x, float(m.crossover_hz), bool(on)
 
 
 NOTES = {
@@ -304,35 +326,41 @@ def synthesize_stage(kind: str, lp: LoopPlant, targets: Targets, *, gain: float,
     f = stage_grid(lp)
     if kind == "plain":
         net = StageNetwork("plain", base, stage, load, lag_at)
-        pm, gm, st, fc = _margins(lp, f, net, None)
-        if not _ok(pm, gm, st, targets)[0]:
-            raise DesignError(f"plain feedback leaves PM {pm[0]:.1f}° (GM {gm[0]:.1f} dB); the "
-                              f"target is {targets.phase_margin_deg:g}°")
-        return StageSynthesis(net, {}, False, float(pm[0]), float(fc[0]), (NOTES["plain"],))
+        m = exact_margins(lp, net)
+        if not margins_meet(m, targets):
+            raise DesignError(f"plain feedback leaves PM {exact_pm(m):.2f}° (GM "
+                              f"{m.gain_margin_db:.2f} dB, exact margins); the target is "
+                              f"{targets.phase_margin_deg:g}°")
+        return StageSynthesis(net, {}, False, exact_pm(m), float(m.crossover_hz), (NOTES["plain"],))
     options = {"isolation": ISO_RISO, "snubber": SNUB_CS}.get(kind, (None,))
     best_pm = best_gm = -math.inf
+    best_at: tuple[_Family, float] | None = None
     found: list[StageSynthesis] = []
     for opt in options:
         fam = _Family(kind, base, stage, load, lag_at, lp, f, opt)
         got = _solve(fam, targets)
         if got is None:
             s0, s1, _, _ = fam.range()
-            pm_s, gm_s, st_s, _ = fam.margins(np.logspace(math.log10(s0), math.log10(s1),
-                                                          SWEEP_POINTS))
+            xs = np.logspace(math.log10(s0), math.log10(s1), SWEEP_POINTS)
+            pm_s, gm_s, st_s, _ = fam.margins(xs)
             keeps_gm = st_s & (gm_s >= targets.gain_margin_db)  # the PM reachable with the GM kept
-            best_pm = max(best_pm, float(np.max(np.where(keeps_gm, pm_s, -np.inf))))
+            pm_k = np.where(keeps_gm, pm_s, -np.inf)
+            if float(np.max(pm_k)) > best_pm:
+                best_pm, best_at = float(np.max(pm_k)), (fam, float(xs[int(np.argmax(pm_k))]))
             best_gm = max(best_gm, float(np.max(np.where(st_s, gm_s, -np.inf))))
             continue
         x, pm, fc, on = got
-        net = StageNetwork(kind, {**base, **fam.values(np.array([x]), scalar=True)}, stage,
-                           load, lag_at)
+        net = fam.network_at(x)
         notes = [NOTES[kind]]
         if kind in ("lag", "lag-lead"):
             notes.append(lag_cost_note(net))
         if not on:
+            m = exact_margins(lp, net)
+            verdict = "meets" if margins_meet(m, targets) else "MISSES"
             notes.append(f"{kind}: no setting lands on the {targets.phase_margin_deg:g}° target "
-                         f"(the margin jumps past it, or every setting leaves more); kept PM "
-                         f"{pm:.1f}°")
+                         f"(the margin jumps past it, or every setting leaves more); the kept "
+                         f"setting {verdict} it: PM {pm:.3f}°, GM {m.gain_margin_db:.2f} dB "
+                         "(exact margins)")
         found.append(StageSynthesis(net, {fam.range()[2]: x} | ({"option": opt} if opt else {}),
                                     on, pm, fc, tuple(notes)))
         if on:
@@ -346,5 +374,8 @@ def synthesize_stage(kind: str, lp: LoopPlant, targets: Targets, *, gain: float,
         raise DesignError(f"the {kind} network keeps no {targets.gain_margin_db:g} dB gain margin on "
                           f"this plant (at most {best_gm:.1f} dB stable); lower --gain-margin or "
                           "choose another network")
-    raise DesignError(f"the {kind} network reaches at most PM {best_pm:.1f}° on this plant "
-                      f"(target {targets.phase_margin_deg:g}°, GM {targets.gain_margin_db:g} dB)")
+    fam, x_best = best_at
+    m = exact_margins(lp, fam.network_at(x_best))
+    raise DesignError(f"the {kind} network reaches at most PM {exact_pm(m):.2f}° on this plant "
+                      f"(exact margins at the sweep's best setting, GM {m.gain_margin_db:.2f} dB; "
+                      f"target {targets.phase_margin_deg:g}°, GM {targets.gain_margin_db:g} dB)")
