@@ -58,3 +58,15 @@ def test_zero_tolerance_monte_carlo_is_the_nominal_on_the_demo(job):
 
     d = StageDesign.from_json(job["files"]["stage_design"])
     assert_zero_tolerance_is_nominal(d.plant, d, "refbuf")
+
+
+def test_demo_asks_for_the_converter_scenarios_minimum_yield(job):
+    # the stage scenario is designed for the minimum yield the converter scenario asks for, so
+    # its report does not sign off a design most of whose draws miss the targets
+    from benchfit.output.demo import DemoScenario
+
+    d = json.loads(Path(job["files"]["stage_design"]).read_text())
+    assert StageScenario().min_yield == DemoScenario().min_yield
+    assert d["provenance"]["settings"]["min_yield"] == StageScenario().min_yield
+    assert d["spread"]["yield"] >= StageScenario().min_yield
+    assert job["summary"]["yield"] == d["spread"]["yield"]

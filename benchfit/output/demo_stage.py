@@ -49,6 +49,7 @@ class StageScenario:
     esr_ohm: float = 0.003
     series: tuple[str, str] = ("E96", "E12")
     draws: int = 1000
+    min_yield: float = 0.95             # as the converter scenario: headroom for the part tolerances
     seed: int = 2025
     step_v: float = 0.01
     load_step_a: float = 0.01
@@ -77,7 +78,7 @@ def run_stage_demo(data_dir: str | Path, out_dir: str | Path, *, scenario: Stage
                                              gain_margin_db=sc.gain_margin_db),
                      gain=sc.closed_loop_gain, stage=sc.stage,
                      load=StageLoad(sc.r_out_ohm, sc.c_load_f, sc.esr_ohm), series=sc.series,
-                     draws=sc.draws, seed=sc.seed, sources=(str(path),))
+                     draws=sc.draws, seed=sc.seed, sources=(str(path),), min_yield=sc.min_yield)
     log(d.report() + "\n")
     out = Path(out_dir) / "stage"
     out.mkdir(parents=True, exist_ok=True)
