@@ -63,6 +63,12 @@ refbuf_aol.csv
     capacitor with 3 mΩ ESR (load pole ≈ 1.8 kHz, ESR zero ≈ 2.4 MHz).  The
     stage is to run at a closed-loop gain of 2.5 (1 V → 2.5 V).  1 Hz–50 MHz,
     361 points.  Noise 0.05 dB / 0.3°.  Comma separated, dB and unwrapped degrees.
+refbuf_step_trace.csv
+    Scope record of a 10 mV input step (1.00 V → 1.01 V at t = 0) on the same
+    reference buffer as it is now: Rf 15 kΩ, Rg 10 kΩ and only a 100 pF lead
+    capacitor across Rf, which leaves the loop ringing (closed loop
+    Aol/(1 + Aol·β), computed with scipy).  CH1 the input, CH2 the output at the
+    capacitor; 2000 samples every 50 ns from −10 µs; noise 0.1 mV / 0.3 mV.
 dialects/
     The same scenarios written in other dialects the readers accept: a
     whitespace file with a commented header, kHz, phase in radians and a
@@ -359,6 +365,41 @@ SENSE_H = 3.24e3 / (10e3 + 3.24e3)
 PRESENT_FC_HZ, PRESENT_BOOST_DEG = 8e3, 92.0
 
 
+def gen_refbuf_step(out: Path, scen: dict) -> None:
+    """Scope record of a 10 mV input step on the reference buffer as it is now (lead network only)."""
+    p = refbuf_parts()
+    rf, rg, cf = 15e3, 10e3, 100e-12          # the present board: Cf across Rf, no lag
+    w = 1e6                                    # polynomials in s/w (time in µs) keep their scale
+    num, den = refbuf_aol_tf(p)
+    n_a = num * w ** np.arange(len(num) - 1, -1, -1)
+    d_a = den * w ** np.arange(len(den) - 1, -1, -1)
+    n_b = np.array([rg * rf * cf * w, rg])     # β = Rg(1 + sRfCf)/(Rg(1 + sRfCf) + Rf)
+    d_b = np.array([rg * rf * cf * w, rg + rf])
+    n, dt, t0 = 2000, 50e-9, -10e-6
+    t = t0 + dt * np.arange(n)
+    y = closed_step(np.polymul(n_a, d_b), np.polyadd(np.polymul(d_a, d_b), np.polymul(n_a, n_b)),
+                    t * w)                     # G = Aol/(1 + Aol·β), time in µs
+    v_in0, dv = 1.0, 0.01
+    out_v = v_in0 * (1 + rf / rg) + dv * y
+    rng = np.random.default_rng(20240109)
+    ch1 = np.where(t >= 0, v_in0 + dv, v_in0) + rng.normal(0, 0.1e-3, n)
+    ch2 = out_v + rng.normal(0, 0.3e-3, n)
+    meta = {"what": "10 mV input step on the reference buffer as it is now (Cf = 100 pF across Rf only)",
+            "source": "sample_data/generate.py", "units": {"CH1": "V", "CH2": "V"},
+            "channels": {"CH1": "input", "CH2": "output at the 22 uF capacitor"}}
+    lines = ["# benchfit trace v1", "# meta: " + json.dumps(meta), "time_s,CH1,CH2"]
+    lines += [f"{ti:.7e},{a:.5f},{b:.5f}" for ti, a, b in zip(t, ch1, ch2, strict=True)]
+    write(out / "refbuf_step_trace.csv", "\n".join(lines) + "\n")
+    scen["refbuf_step_trace.csv"] = {
+        "what": "input step on the reference buffer as it is now: CH1 input, CH2 output",
+        "channels": {"CH1": "input (V)", "CH2": "output (V)"},
+        "parts": {"Rf_ohm": rf, "Rg_ohm": rg, "Cf_f": cf, **p},
+        "truth": {"closed_loop": "Aol/(1 + Aol·beta), beta = Rg(1 + sRfCf)/(Rg(1 + sRfCf) + Rf)",
+                  "overshoot_fraction": float(y.max() / y[-1] - 1.0), "t_step_s": 0.0},
+        "sampling": {"n": n, "dt_s": dt, "t0_s": t0},
+        "noise": {"ch1_v_std": 0.1e-3, "ch2_v_std": 0.3e-3}, "seed": 20240109}
+
+
 def present_compensator(p: dict) -> tuple[np.ndarray, np.ndarray]:
     """C = ωi/s · (1 + s/ωz)² / (1 + s/ωp)², ωz = ωc/√K, ωp = √K·ωc (K factor), |T(jωc)| = 1."""
     k = np.tan(np.radians(PRESENT_BOOST_DEG / 4 + 45.0)) ** 2
@@ -481,7 +522,7 @@ def generate(out: Path = HERE) -> list[Path]:
     out = Path(out)
     scen: dict = {}
     for gen in (gen_buck_plant, gen_buck_zout, gen_ldo, gen_buffer, gen_step, gen_load_step,
-                gen_refbuf):
+                gen_refbuf, gen_refbuf_step):
         gen(out, scen)
     doc = {"about": "true models and settings of benchfit's sample data; written by generate.py",
            "units": "zeros and poles in rad/s ([re, im]); k in scipy's zpk convention; SI units",

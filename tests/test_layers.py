@@ -8,8 +8,8 @@ import pytest
 PKG = Path(__file__).resolve().parents[1] / "benchfit"
 
 # layer rank: a module may import only from its own rank or lower.
-RANK = {"errors": 0, "provenance": 0, "fileio": 0, "numfmt": 0, "safety": 0, "data": 1, "bench": 1, "fitting": 2,
-        "loop": 3, "steps": 3, "output": 4, "batch": 5, "cli": 6}
+RANK = {"errors": 0, "provenance": 0, "fileio": 0, "numfmt": 0, "safety": 0, "data": 1, "bench": 1,
+        "fitting": 2, "loop": 3, "steps": 3, "output": 4, "planner": 4, "batch": 5, "cli": 6}
 
 
 def _layer(parts: tuple[str, ...]) -> str | None:

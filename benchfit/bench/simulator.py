@@ -361,11 +361,19 @@ class SimulatedAnalyzer(ScpiDevice):
             else:
                 f = self.start_hz + (self.stop_hz - self.start_hz) * i
             f = np.array([self._q(x) for x in f])
+        self.axis, self.data = f, self._measured(f)
+        self.busy_until = self._done_at() + self._sweep_time(f)
+        self.sweeps += 1
+
+    def _measured(self, f: np.ndarray) -> np.ndarray:
+        """The response read at ``f``: the device's plus relative complex noise."""
         h = np.asarray(self.response_fn(f), dtype=complex)
         e = (self.rng.standard_normal(f.size) + 1j * self.rng.standard_normal(f.size)) / np.sqrt(2)
-        self.axis, self.data = f, h + self.noise * np.abs(h) * e
-        self.busy_until = self._done_at() + self.time_per_point_s * f.size
-        self.sweeps += 1
+        return h + self.noise * np.abs(h) * e
+
+    def _sweep_time(self, f: np.ndarray) -> float:
+        """Simulated time (s) to measure the points ``f``."""
+        return self.time_per_point_s * f.size
 
     def _axis_query(self, m: Message) -> None:
         if self.axis is None:

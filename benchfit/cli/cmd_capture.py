@@ -5,9 +5,12 @@ from __future__ import annotations
 import argparse
 import datetime as _dt
 import sys
+import time
 
 from benchfit.cli.common import add_json_flag, emit, warn
 from benchfit.cli.values import (
+    ANGLE,
+    DECIBEL,
     FREQUENCY,
     NON_NEGATIVE,
     NUMBER,
@@ -67,19 +70,49 @@ def register(subparsers) -> None:
     sim.add_argument("--seed", type=SEED, default=0, help="noise seed (default 0)")
     sim.add_argument("--transport", choices=("auto", "sim", "tcp"), default="auto",
                      help="sim: pyvisa-sim backend; tcp: pyvisa-py over a 127.0.0.1 socket")
+    sim.add_argument("--noise-density", type=value(NUMBER, NON_NEGATIVE), default=0.0, metavar="V/rtHz",
+                     help="noise density of each analyzer channel, V/sqrt(Hz) (default 0)")
+    sim.add_argument("--settle-cycles", type=value(NUMBER, NON_NEGATIVE), default=0.0, metavar="N",
+                     help="stimulus cycles waited after each change of frequency, level or bandwidth")
+    sim.add_argument("--saturation", type=value(VOLTAGE), metavar="V",
+                     help="soft saturation of the simulated loop above this amplitude (default none)")
+    ad = p.add_argument_group("adaptive capture (--adaptive)")
+    ad.add_argument("--adaptive", action="store_true",
+                    help="place points where the margins are decided and stop when they are known")
+    ad.add_argument("--pm-sigma", type=value(ANGLE), default=0.5, metavar="DEG",
+                    help="stop when the phase margin's sigma is this small (default 0.5 deg)")
+    ad.add_argument("--gm-sigma", type=value(DECIBEL), default=0.5, metavar="DB",
+                    help="... and the gain margin's (default 0.5 dB)")
+    ad.add_argument("--max-points", type=count(5), default=400, metavar="N",
+                    help="stop after this many points (default 400)")
+    ad.add_argument("--max-time", type=value(TIME), default=float("inf"), metavar="S",
+                    help="stop after this much instrument time (default none)")
+    ad.add_argument("--min-bandwidth", type=value(FREQUENCY), default=1.0, metavar="HZ",
+                    help="narrowest bandwidth; beyond it readings are averaged (default 1 Hz); "
+                         "--bandwidth is the widest (default 1 kHz)")
+    ad.add_argument("--no-linearity-check", action="store_true",
+                    help="skip measuring at half and double the level around the crossover")
+    ad.add_argument("--auto-level", action="store_true",
+                    help="when the level changes the response, continue at a level that does not")
     add_json_flag(p)
     p.set_defaults(func=run)
 
 
 def simulated_instrument(path: str, args: argparse.Namespace):
-    """The simulated analyzer for --simulate, and the sweep it was built from (or None)."""
-    from benchfit.bench.simulator import SimulatedAnalyzer, analyzer_for_sweep
+    """The simulated analyzer for --simulate, and the sweep it was built from (or, for a
+    model file, the model)."""
+    from benchfit.bench.benchlike import BenchAnalyzer
+    from benchfit.bench.simulator import interpolated_response
 
-    opts = {"noise": args.noise, "seed": args.seed, "time_per_point_s": args.sim_point_time}
+    opts = {"noise": args.noise, "seed": args.seed, "overhead_s": args.sim_point_time,
+            "noise_density_v": args.noise_density, "settle_cycles": args.settle_cycles,
+            "saturation_v": args.saturation,
+            "injection": (args.quantity or ("loop" if args.adaptive else "unknown")) == "loop"}
     if str(path).lower().endswith(".json"):
         from benchfit.fitting.model import PlantModel
 
-        return SimulatedAnalyzer(PlantModel.from_json(path).response, **opts), None
+        model = PlantModel.from_json(path)
+        return BenchAnalyzer(model.response, **opts), model
     try:
         from benchfit.data import read_sweep
 
@@ -88,7 +121,19 @@ def simulated_instrument(path: str, args: argparse.Namespace):
         from benchfit.data import read_canonical_sweep
 
         resp = read_canonical_sweep(path)
-    return analyzer_for_sweep(resp, **opts), resp
+    return BenchAnalyzer(interpolated_response(resp), f_min_hz=resp.f_min_hz, f_max_hz=resp.f_max_hz,
+                         **opts), resp
+
+
+def _band(args: argparse.Namespace, sweep) -> tuple[float | None, float | None]:
+    """The default band: a sweep file's own, or around a model's poles, zeros and crossover."""
+    if sweep is None:
+        return None, None
+    if hasattr(sweep, "f_min_hz"):
+        return sweep.f_min_hz, sweep.f_max_hz
+    from benchfit.loop.densegrid import model_band
+
+    return model_band(sweep, margin_decades=1.0)
 
 
 def _settings(args: argparse.Namespace, sweep):
@@ -101,16 +146,22 @@ def _settings(args: argparse.Namespace, sweep):
             raise InputError("required (or use --simulate with a sweep file)", source=option)
         return default
 
-    start = freq(args.start, "--start", sweep.f_min_hz if sweep is not None else None)
-    stop = freq(args.stop, "--stop", sweep.f_max_hz if sweep is not None else None)
-    points = args.points if args.points is not None else (min(len(sweep), 201) if sweep is not None else None)
+    lo, hi = _band(args, sweep)
+    start = freq(args.start, "--start", lo)
+    stop = freq(args.stop, "--stop", hi)
+    if args.points is not None:
+        points = args.points
+    elif sweep is not None:
+        points = min(len(sweep), 201) if hasattr(sweep, "f_min_hz") else 201
+    else:
+        points = None
     if points is None:
         raise InputError("required", source="--points")
     return CaptureSettings(
         start_hz=start, stop_hz=stop, points=points, spacing=args.spacing,
         level_v=args.level, bandwidth_hz=args.bandwidth,
         mode=args.mode, segment_points=args.segment_points,
-        quantity=args.quantity or (sweep.quantity if sweep is not None else "unknown"))
+        quantity=args.quantity or getattr(sweep, "quantity", "unknown"))
 
 
 def run(args: argparse.Namespace) -> int:
@@ -130,9 +181,13 @@ def run(args: argparse.Namespace) -> int:
         raise InputError("required with a real instrument (see 'benchfit profiles')", source="--profile")
     profile = find_profile(args.profile or "generic-analyzer", kind="analyzer")
     inst, sweep = simulated_instrument(args.simulate, args) if args.simulate else (None, None)
+    out = args.output or f"capture-{_dt.datetime.now(_dt.UTC).strftime('%Y%m%d-%H%M%S')}.csv"
+    if args.adaptive:
+        return _run_adaptive(args, profile, inst, sweep, out)
     settings = _settings(args, sweep)
     settings.validate()
-    out = args.output or f"capture-{_dt.datetime.now(_dt.UTC).strftime('%Y%m%d-%H%M%S')}.csv"
+    clock = inst.clock if inst is not None else time.monotonic
+    t0 = clock()
     bar = ProgressBar(settings.points) if not args.no_progress else None
     resource = f"simulated:{args.simulate}" if inst is not None else args.resource
     with bench_session(profile, resource=args.resource, instrument=inst, transport=args.transport,
@@ -145,8 +200,61 @@ def run(args: argparse.Namespace) -> int:
                 bar.close()
     for w in result.warnings:
         warn(w)
-    emit(args, result.to_dict(), result.summary())
+    d = {**result.to_dict(), "points": result.points_saved, "instrument_time_s": clock() - t0}
+    emit(args, d, result.summary())
     if not result.complete:
         print(f"benchfit: {result.summary()}", file=sys.stderr)
         return 130
+    return 0
+
+
+def _run_adaptive(args: argparse.Namespace, profile, inst, sweep, out: str) -> int:
+    """--adaptive: the sweep planner (benchfit.planner) on the session."""
+    from benchfit.bench.sim_transport import bench_session
+    from benchfit.planner.adaptive import INTERRUPTED, PRECISION, AdaptiveSettings, run_adaptive
+    from benchfit.planner.probe import Probe
+
+    if args.points is not None or args.mode != "sweep" or args.segment_points:
+        bad = "--points" if args.points is not None else ("--mode" if args.mode != "sweep"
+                                                          else "--segment-points")
+        raise InputError("the adaptive capture places its own points one by one; leave it out",
+                         source=bad)
+    lo, hi = _band(args, sweep)
+    for given, opt in ((args.start if args.start is not None else lo, "--start"),
+                       (args.stop if args.stop is not None else hi, "--stop")):
+        if given is None:
+            raise InputError("required with --adaptive (or use --simulate with a sweep or model file)",
+                             source=opt)
+    settings = AdaptiveSettings(
+        start_hz=args.start if args.start is not None else lo,
+        stop_hz=args.stop if args.stop is not None else hi,
+        level_v=args.level if args.level is not None else 0.01,
+        bandwidth_hz=args.bandwidth if args.bandwidth is not None else 1000.0,
+        min_bandwidth_hz=args.min_bandwidth, pm_sigma_deg=args.pm_sigma, gm_sigma_db=args.gm_sigma,
+        max_points=args.max_points, max_time_s=args.max_time, linearity=not args.no_linearity_check,
+        auto_level=args.auto_level, quantity=args.quantity or "loop")
+    settings.validate()
+    resource = f"simulated:{args.simulate}" if inst is not None else args.resource
+    show = (not args.no_progress) and sys.stderr.isatty()
+
+    def progress(n: int, why: str) -> None:
+        if show:
+            print(f"\r{n} points measured (last: {why})   ", end="", file=sys.stderr, flush=True)
+
+    with bench_session(profile, resource=args.resource, instrument=inst, transport=args.transport,
+                       backend=args.backend) as session:
+        probe = Probe(session, clock=inst.clock if inst is not None else time.monotonic)
+        result = run_adaptive(probe, settings, out, resume=args.resume, resource=resource,
+                              seed=args.seed, progress=progress)
+    if show:
+        print(file=sys.stderr)
+    for w in result.warnings:
+        warn(w)
+    emit(args, result.to_dict(), result.summary())
+    if result.stopped_because == INTERRUPTED:
+        print(f"benchfit: interrupted; {result.points_measured} points are saved in {out} and its "
+              "log; run the same command with --resume to continue", file=sys.stderr)
+        return 130
+    if result.stopped_because != PRECISION:
+        warn(f"stopped ({result.stopped_because}) before the margins reached the asked sigma")
     return 0

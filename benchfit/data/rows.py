@@ -120,4 +120,4 @@ def skipped_warning(bad: list[BadRow]) -> str:
     more = f" and {len(bad) - _LIST} more" if len(bad) > _LIST else ""
     return (f"skipped {len(bad)} row{'s' if len(bad) != 1 else ''} that could not be read "
             f"(line{'s' if len(bad) != 1 else ''} {lines}{more}; first: {bad[0].reason}); "
-            "meta['skipped_rows'] lists them")
+            "listed under skipped_rows (inspect --json) and in the provenance")

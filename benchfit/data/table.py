@@ -3,10 +3,10 @@
 Data come in *blocks*: runs of numeric rows (blank and comment lines inside are
 skipped), each with the text lines above it (metadata, a title, the column
 names and an optional unit row).  A new block starts only where a names line
-stands above the numbers (stacked traces) or the rows change their number of
-cells; any other line among the rows is a row of the block that could not be
-read (``Marker 1: 5 kHz``, ``#N/A,#N/A,#N/A``), and so is a line after the last
-row that has the block's number of cells.  Such rows go to ``Block.bad_rows``;
+stands above the numbers (stacked traces); any other line among the rows is a
+row of the block that could not be read (``Marker 1: 5 kHz``, ``#N/A,#N/A``, a
+row cut short), and so is a line right after the last row that has the block's
+number of cells with a number among them.  Such rows go to ``Block.bad_rows``;
 the readers apply the one rule of :mod:`benchfit.data.rows` to them.
 
 Rows are parsed by pandas' C parser when the block is clean; otherwise line by
@@ -15,17 +15,16 @@ line, so that every bad row is found with its file line.
 
 from __future__ import annotations
 
-import io
 import re
 from collections import Counter
 from dataclasses import dataclass, field
 
 import numpy as np
-import pandas as pd
 
 from benchfit.data.dialect import Dialect, is_comment, is_spreadsheet_error, strip_comment_mark
 from benchfit.data.quote import quote
-from benchfit.data.rows import BadRow, bad_row, is_marker, value_problem
+from benchfit.data.rowparse import PANDAS_MAX_COLUMNS, fast_rows, parse_rows, row_problem
+from benchfit.data.rows import BadRow, bad_row
 from benchfit.errors import InputError
 
 
@@ -118,91 +117,6 @@ def _numeric_cells(cells: list[str], d: Dialect) -> int:
         except ValueError:
             pass
     return n
-
-
-#: Widest table handed to pandas' C parser (a 30 000-column line took it 7 s).
-_PANDAS_MAX_COLUMNS = 64
-
-
-def _fast_rows(texts: list[str], d: Dialect, ncols: int) -> np.ndarray | None:
-    """Rows parsed by pandas' C parser; None when anything is off (the slow path then
-    finds every bad row with its line)."""
-    if d.separator != "whitespace":
-        texts = [t.rstrip(d.separator) for t in texts]
-    try:
-        frame = pd.read_csv(io.StringIO("\n".join(texts)), sep=r"\s+" if d.separator == "whitespace"
-                            else d.separator, header=None, decimal=d.decimal, dtype=float,
-                            engine="c", skipinitialspace=True, skip_blank_lines=False,
-                            na_filter=False)
-    except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
-        return None
-    data = frame.to_numpy(dtype=float)
-    if data.shape != (len(texts), ncols) or not np.all(np.isfinite(data)) or np.any(is_marker(data)):
-        return None
-    return data
-
-
-def _column(names: list[str] | None, j: int) -> str | int:
-    return names[j] if names and j < len(names) else j + 1
-
-
-def _row_problem(cells: list[str], d: Dialect, ncols: int,
-                 names: list[str] | None) -> tuple[list[float] | None, str | None, str | int | None]:
-    """(values, None, None) for a good row, else (None, why, column)."""
-    if len(cells) != ncols:
-        grouped = d.separator == "," and any(
-            re.fullmatch(r"[+-]?\d{1,3}", a) and re.fullmatch(r"\d{3}(?:\.\d*)?", b)
-            for a, b in zip(cells, cells[1:], strict=False))
-        return None, (f"{len(cells)} cells, expected {ncols} like the other rows"
-                      + (" (a thousands separator in a comma-separated file? quote such numbers"
-                         " or export them without one)" if grouped and len(cells) > ncols else "")), None
-    values = []
-    for j, c in enumerate(cells):
-        try:
-            v = d.number(c)
-        except ValueError:
-            return None, (f"non-numeric cell {quote(c)}; expected a number"
-                          + (" with a decimal comma" if d.decimal == "," else "")), _column(names, j)
-        why = value_problem(c, v)
-        if why:
-            return None, why, _column(names, j)
-        values.append(v)
-    return values, None, None
-
-
-def _parse_rows(rows: list[tuple[int, str]], d: Dialect, ncols: int, names: list[str] | None
-                ) -> tuple[np.ndarray, np.ndarray, list[BadRow], bool]:
-    """Rows of text -> (values of the good rows, their lines, the bad rows, thousands seen).
-
-    The whole block is converted at once when it can be; otherwise row by row, so that
-    each row that cannot be read is named with its line and the reason.
-    """
-    split = [(ln, raw, d.split(raw)) for ln, raw in rows]
-    if all(len(c) == ncols for _, _, c in split):
-        flat = [c for _, _, cells in split for c in cells]
-        try:
-            if d.decimal == ",":
-                if any("." in c for c in flat):
-                    raise ValueError
-                flat = [c.replace(",", ".") for c in flat]
-            data = np.array(flat, dtype=float).reshape(len(split), ncols)
-        except ValueError:
-            data = None
-        if data is not None:
-            ok = np.all(np.isfinite(data), axis=1) & ~np.any(is_marker(data), axis=1)
-            if ok.all():
-                return data, np.array([ln for ln, _, _ in split], dtype=int), [], False
-    good, lines, bad, grouped = [], [], [], False
-    for ln, raw, cells in split:
-        values, why, col = _row_problem(cells, d, ncols, names)
-        if why is not None:
-            bad.append(bad_row(ln, raw, why, col))
-            continue
-        grouped = grouped or any(d.thousands in c for c in cells)
-        good.append(values)
-        lines.append(ln)
-    data = np.array(good, dtype=float).reshape(len(good), ncols)
-    return data, np.array(lines, dtype=int), bad, grouped
 
 
 def _row_like(raw: str, d: Dialect, ncols: int) -> bool:
@@ -424,8 +338,8 @@ def _finish(cur: _Pending, lines: list[str], d: Dialect, exact: bool, kinds: lis
     head = cur.head
     texts = [lines[k].strip() for k in cur.idx]
     # pandas builds one object per column: past a few dozen columns numpy is far quicker
-    data = _fast_rows(texts, d, cur.ncols) if cur.ncols <= _PANDAS_MAX_COLUMNS else None
-    if data is None and cur.ncols > _PANDAS_MAX_COLUMNS:
+    data = fast_rows(texts, d, cur.ncols) if cur.ncols <= PANDAS_MAX_COLUMNS else None
+    if data is None and cur.ncols > PANDAS_MAX_COLUMNS:
         exact = True
     bad: list[BadRow] = []
     grouped = False
@@ -434,12 +348,12 @@ def _finish(cur: _Pending, lines: list[str], d: Dialect, exact: bool, kinds: lis
     else:
         if not exact:
             raise _Retry
-        data, line_no, bad, grouped = _parse_rows(
+        data, line_no, bad, grouped = parse_rows(
             [(k + 1, lines[k]) for k in cur.idx], d, cur.ncols, head.names)
     for k in cur.bad_lines:
         s = lines[k].strip()
         if is_spreadsheet_error(s) or _row_like(s, d, cur.ncols):
-            _, why, col = _row_problem(d.split(s), d, cur.ncols, head.names)
+            _, why, col = row_problem(d.split(s), d, cur.ncols, head.names)
             why = why or f"row {quote(s)} could not be read"
         else:
             why = (f"text {quote(s)} among the data rows; expected a row of {cur.ncols} numbers "

@@ -51,6 +51,7 @@ from typing import Any
 
 import numpy as np
 
+from benchfit import numfmt
 from benchfit.errors import DesignError, InputError
 from benchfit.loop.choices import METHODS
 from benchfit.loop.closure import rate_of_closure_db
@@ -214,19 +215,19 @@ def place(kind: str, plant_at_fc: complex, fc_hz: float, pm_deg: float, r_in: fl
     notes: list[str] = []
     mag = abs(plant_at_fc)
     if not (np.isfinite(mag) and mag > 0):
-        raise DesignError(f"plant gain at {fc_hz:.4g} Hz is {mag}; cannot place a crossover there")
+        raise DesignError(f"plant gain at {numfmt.eng(fc_hz, 'Hz')} is {mag}; cannot place a crossover there")
     lo, hi = BOOST_LIMITS[kind]
     boost = boost_needed(plant_at_fc, pm_deg)
     if kind == "type1":
-        notes.append(f"type1 gives no boost: phase margin about {pm_deg - boost:.1f}° "
-                     f"at {fc_hz:.4g} Hz")
+        notes.append(f"type1 gives no boost: phase margin about {numfmt.deg(pm_deg - boost)} "
+                     f"at {numfmt.eng(fc_hz, 'Hz')}")
         boost = 0.0
     elif boost > hi:
-        raise DesignError(f"{kind} cannot give the {boost:.1f}° of boost needed at {fc_hz:.4g} Hz "
+        raise DesignError(f"{kind} cannot give the {numfmt.deg(boost)} of boost needed at {numfmt.eng(fc_hz, 'Hz')} "
                           f"(at most {hi:.0f}°); use a lower crossover, a lower phase margin"
                           + (" or type3" if kind != "type3" else ""))
     elif boost < lo:
-        notes.append(f"plant phase needs only {boost:.1f}° of boost at {fc_hz:.4g} Hz; using "
+        notes.append(f"plant phase needs only {numfmt.deg(boost)} of boost at {numfmt.eng(fc_hz, 'Hz')}; using "
                      f"{lo:.0f}° (phase margin will exceed the target)")
         boost = lo
     k = k_from_boost(kind, boost)
@@ -404,7 +405,7 @@ def check_crossover_in_band(fc_hz: float, corners: Sequence[LoopPlant]) -> None:
     span = ("the band every plant is known on" if len(corners) > 1
             else "the band the plant is known on")
     raise DesignError(
-        f"--crossover {fc_hz:.4g} Hz is {which} {span}, {lo:.4g}..{hi:.4g} Hz (set by "
+        f"--crossover {numfmt.eng(fc_hz, 'Hz')} is {which} {span}, {numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')} (set by "
         f"{', '.join(edge)}: fit band, sweep span, or two decades past a bare model's poles and "
         "zeros); choose a crossover inside it, or measure and fit the plant over a band that "
         "holds it")
@@ -460,7 +461,7 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
         notes = list(res.notes) + extra
         roc = res.rate_of_closure_db
         if method == "crossing" and abs(roc - 20.0) > 10.0:
-            notes.append(f"rate of closure at {res.crossover_hz:.4g} Hz is {roc:.0f} dB/decade, "
+            notes.append(f"rate of closure at {numfmt.eng(res.crossover_hz, 'Hz')} is {roc:.0f} dB/decade, "
                          "not the 20 dB/decade the crossing method aims for")
         return Synthesis(**{**res.__dict__, "method": method, "notes": tuple(notes)})
 
@@ -474,22 +475,22 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
             # not even the target phase margin can be placed: say why
             place(kind, complex(corners[0].response(np.array([fc]))[0]), fc,
                   targets.phase_margin_deg, r_in)
-            raise DesignError(f"no {kind} placement at {fc:.4g} Hz")
-        why = (f"worst phase margin {pm:.1f}°, worst gain margin {gm:.1f} dB" if np.isfinite(pm)
+            raise DesignError(f"no {kind} placement at {numfmt.eng(fc, 'Hz')}")
+        why = (f"worst phase margin {numfmt.deg(pm)}, worst gain margin {numfmt.db(gm)}" if np.isfinite(pm)
                else "the closed loop is unstable or crosses over elsewhere on some plant")
-        return finish(fallback, [f"targets not met at {fc:.4g} Hz: {why}"])
+        return finish(fallback, [f"targets not met at {numfmt.eng(fc, 'Hz')}: {why}"])
     lo, hi = common_band(corners)
     if opamp is not None:
         hi = min(hi, opamp.gbw_hz)
     if not hi > lo * 1.01:
-        raise DesignError(f"the plants' common band {lo:.4g}..{hi:.4g} Hz is empty")
+        raise DesignError(f"the plants' common band {numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')} is empty")
     # keep clear of the band edges: slopes and data near them are least trusted
     grid = np.logspace(np.log10(lo * 2), np.log10(hi / 2), candidates)[::-1]
     if method == "crossing":
         roc = rate_of_closure(kind, corners[0], grid)
         grid = grid[np.abs(roc - 20.0) <= 10.0]
         if grid.size == 0:
-            raise DesignError(f"nowhere in {lo:.4g}..{hi:.4g} Hz does a {kind} network meet the "
+            raise DesignError(f"nowhere in {numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')} does a {kind} network meet the "
                               "plant with a 20 dB/decade rate of closure; try another network")
     best = (-np.inf, None)
     impractical = None  # highest crossover meeting the targets only with impractical parts
@@ -498,7 +499,7 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
         if res is not None:
             if not res.network.practical_warnings():
                 return finish(res, [f"crossover chosen automatically: highest of {len(grid)} "
-                                    f"tried in {grid[-1]:.4g}..{grid[0]:.4g} Hz meeting the "
+                                    f"tried in {numfmt.eng(grid[-1], 'Hz')} to {numfmt.eng(grid[0], 'Hz')} meeting the "
                                     "targets with parts in the practical range"])
             impractical = impractical or res
         if pm > best[0]:
@@ -508,7 +509,7 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
                                     "targets with parts in the practical range; the highest "
                                     "meeting them is used"])
     raise DesignError(
-        f"no crossover in {grid[-1]:.4g}..{grid[0]:.4g} Hz meets phase margin >= "
+        f"no crossover in {numfmt.eng(grid[-1], 'Hz')} to {numfmt.eng(grid[0], 'Hz')} meets phase margin >= "
         f"{targets.phase_margin_deg:g}° and gain margin >= {targets.gain_margin_db:g} dB with a "
         f"{kind} network" + ("" if best[1] is None else
-                             f" (best worst-corner phase margin {best[0]:.1f}° at {best[1]:.4g} Hz)"))
+                             f" (best worst-corner phase margin {numfmt.deg(best[0])} at {numfmt.eng(best[1], 'Hz')})"))

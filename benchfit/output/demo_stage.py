@@ -7,7 +7,9 @@ stage's 4 Ω open-loop output resistance.  The measured open-loop gain (with
 noise) is fitted, the feedback network is chosen automatically for 60° of
 phase margin at a closed-loop gain of 2.5, snapped to E96/E12, spread over
 tolerances, and the crossing picture, predictions and an HTML page are
-written beside the buck scenario's.
+written beside the buck scenario's; the step measured on the board as it is
+now (``refbuf_step_trace.csv``: only a lead capacitor, it rings) is overlaid on
+the new design's predicted step.
 """
 
 from __future__ import annotations
@@ -17,7 +19,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any
 
-from benchfit.data import read_sweep
+from benchfit.data import read_sweep, read_trace
 from benchfit.errors import InputError
 from benchfit.fileio import write_json_atomic
 from benchfit.fitting import fit
@@ -35,6 +37,8 @@ class StageScenario:
     """Files and design choices of the stage demo (a scenario of benchfit's own)."""
 
     aol_file: str = "refbuf_aol.csv"
+    step_file: str = "refbuf_step_trace.csv"   # the board as it is now (overlaid when present)
+    step_channel: str = "CH2"
     stage: str = "noninverting"
     closed_loop_gain: float = 2.5
     network: str = "auto"
@@ -81,9 +85,14 @@ def run_stage_demo(data_dir: str | Path, out_dir: str | Path, *, scenario: Stage
              "stage_report": out / "report_stage.html"}
     d.to_json(files["stage_design"])
     aol_fit.to_json(files["stage_fit"])
+    trace_path = Path(data_dir) / sc.step_file
+    trace = read_trace(trace_path) if trace_path.is_file() else None
+    if trace is not None:
+        log(f"read {trace_path}: the present board's step, overlaid on the new design's prediction")
     page, pred = stage_report_html(
         d, title="benchfit demo: reference buffer (op-amp + emitter follower) into 22 µF, gain 2.5",
-        step_v=sc.step_v, load_step_a=sc.load_step_a)
+        step_v=sc.step_v, load_step_a=sc.load_step_a, step_trace=trace,
+        step_channel=sc.step_channel if trace is not None else None)
     from benchfit.fileio import write_text_atomic
 
     write_text_atomic(files["stage_report"], page)

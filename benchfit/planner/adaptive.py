@@ -1,0 +1,852 @@
+"""The adaptive capture: measure, fit, place points where the margins are decided, stop when known.
+
+Steps (docs/capture.md, "Adaptive capture"):
+
+1. A coarse log pass over the band (:func:`~benchfit.planner.placement.coarse_grid`).
+2. Rounds: fit what was measured (:func:`benchfit.fitting.fit`), carry the
+   fit's covariance to PM and GM (:func:`~benchfit.planner.uncertainty.margin_spread`),
+   and, unless :func:`stop_reason` says stop, measure the points the
+   placement rules ask for: both sides of every crossing, across every
+   resonance, around every point the fit misses, and where a point removes
+   the most margin variance per second.
+3. Once a crossover is known, the linearity check (:mod:`benchfit.planner.linearity`);
+   with ``auto_level`` a level that changes the response is halved and the
+   sweep re-measured at the new level.
+
+Each point's bandwidth and readings come from the measured noise
+(:mod:`benchfit.planner.noise`).  Every point is in the capture log before the
+next is taken, and the sweep file is rebuilt from it (:mod:`benchfit.planner.record`).
+"""
+
+from __future__ import annotations
+
+import math
+import signal
+import threading
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from benchfit.data.response import QUANTITIES
+from benchfit.errors import FitError, InputError
+from benchfit.planner import linearity as lin
+from benchfit.planner import placement as pl
+from benchfit.planner.noise import (
+    NoiseMap,
+    TimeModel,
+    BURIED_RELATIVE_SIGMA,
+    choose_point_settings,
+    component_sigma,
+    noise_dominated,
+    point_sigma,
+    required_point_sigma,
+)
+from benchfit.planner.probe import Probe, Reading
+from benchfit.planner.record import (
+    LogRow,
+    append_row,
+    create_log,
+    log_path,
+    read_log,
+    sweep_rows,
+    write_sweep,
+)
+from benchfit.planner.uncertainty import MarginSpread, covariance_usable, margin_spread
+from benchfit.provenance import Provenance
+
+#: A fit whose reduced χ² exceeds this does not describe the data within the noise,
+#: so its covariance is not trusted to stop on (common practice, no source).
+REDCHI_OK = 2.0
+#: Most rounds of fit-and-place (a guard; the budgets normally end the capture first).
+MAX_ROUNDS = 40
+#: Points placed per round (crossing, resonance and residual rules first, the
+#: variance rule fills the rest, at least two).
+POINTS_PER_ROUND = 8
+#: Halvings of the level the auto-level search may make.
+MAX_HALVINGS = 4
+
+#: Purposes of the placement rules that must be satisfied before the capture may stop.
+RULE_PURPOSES = ("crossing", "resonance", "residual", "again")
+
+PRECISION = "precision reached"
+MAX_POINTS = "max points"
+MAX_TIME = "max time"
+NOTHING_LEFT = "no further point would reduce the uncertainty"
+INTERRUPTED = "interrupted"
+ROUNDS = "round limit"
+
+
+@dataclass(frozen=True)
+class AdaptiveSettings:
+    """What an adaptive capture measures and when it stops.
+
+    Parameters
+    ----------
+    start_hz, stop_hz
+        The band, Hz.
+    level_v
+        Source level, V.
+    bandwidth_hz
+        Widest measurement bandwidth, Hz (points use it where the noise allows).
+    min_bandwidth_hz
+        Narrowest bandwidth, Hz; beyond it readings are averaged.
+    pm_sigma_deg, gm_sigma_db
+        Asked σ of the phase margin and the gain margin.
+    max_points, max_time_s
+        Budgets: points measured, instrument time in s.
+    per_decade
+        Points per decade of the coarse pass.
+    max_repeats
+        Most readings at one point.
+    linearity
+        Run the linearity check around the crossover.
+    auto_level
+        Halve a level that changes the response and continue at a linear one.
+    quantity
+        What is measured (file header); ``loop`` for a loop gain.
+    """
+
+    start_hz: float
+    stop_hz: float
+    level_v: float = 0.01
+    bandwidth_hz: float = 1000.0
+    min_bandwidth_hz: float = 1.0
+    pm_sigma_deg: float = 0.5
+    gm_sigma_db: float = 0.5
+    max_points: int = 400
+    max_time_s: float = math.inf
+    per_decade: float = 4.0
+    max_repeats: int = 32
+    linearity: bool = True
+    auto_level: bool = False
+    quantity: str = "loop"
+
+    def validate(self) -> None:
+        """Raise :class:`InputError` naming the option that is out of range."""
+        def pos(v, opt, what="a positive value"):
+            if not (isinstance(v, (int, float)) and v > 0 and not math.isnan(v)):
+                raise InputError(f"{v!r}: expected {what}", source=opt)
+        pos(self.start_hz, "--start", "a positive frequency")
+        if not (math.isfinite(self.stop_hz) and self.stop_hz > self.start_hz):
+            raise InputError(f"{self.stop_hz} Hz: expected a frequency above --start", source="--stop")
+        pos(self.level_v, "--level")
+        pos(self.bandwidth_hz, "--bandwidth")
+        pos(self.min_bandwidth_hz, "--min-bandwidth")
+        if self.min_bandwidth_hz > self.bandwidth_hz:
+            raise InputError(f"{self.min_bandwidth_hz} Hz is above --bandwidth ({self.bandwidth_hz} Hz)",
+                             source="--min-bandwidth")
+        pos(self.pm_sigma_deg, "--pm-sigma", "a positive σ in degrees")
+        pos(self.gm_sigma_db, "--gm-sigma", "a positive σ in dB")
+        if int(self.max_points) < 5:
+            raise InputError(f"{self.max_points}: expected at least 5", source="--max-points")
+        pos(self.max_time_s, "--max-time", "a positive time in s")
+        pos(self.per_decade, "--coarse-per-decade")
+        if int(self.max_repeats) < 2:
+            raise InputError(f"{self.max_repeats}: expected at least 2", source="--max-repeats")
+        if self.quantity not in QUANTITIES:
+            raise InputError(f"{self.quantity!r}: expected one of {QUANTITIES}", source="--quantity")
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> AdaptiveSettings:
+        kw = {k: d[k] for k in cls.__dataclass_fields__ if k in d}
+        if kw.get("max_time_s") == "inf":
+            kw["max_time_s"] = math.inf
+        return cls(**kw)
+
+
+@dataclass(frozen=True)
+class AdaptiveResult:
+    """What an adaptive capture found and why it stopped.
+
+    ``points`` counts the points in the sweep file, ``points_measured`` every
+    point taken (linearity checks and points superseded by a level change
+    included), ``instrument_time_s`` the instrument time of all of them.
+    """
+
+    path: str
+    log_path: str
+    points: int
+    points_measured: int
+    readings: int
+    instrument_time_s: float
+    phase_margin_deg: float
+    phase_margin_sigma_deg: float
+    gain_margin_db: float
+    gain_margin_sigma_db: float
+    crossover_hz: float
+    phase_crossover_hz: float
+    stopped_because: str
+    rounds: int
+    level_v: float
+    settings: dict[str, Any]
+    history: tuple[dict[str, Any], ...] = ()
+    linearity: dict[str, Any] | None = None
+    warnings: tuple[str, ...] = ()
+    provenance: Provenance = field(default_factory=lambda: Provenance(step="adaptive_capture"))
+
+    @property
+    def known(self) -> bool:
+        """True when both margins reached the asked σ."""
+        return self.stopped_because == PRECISION
+
+    def to_dict(self) -> dict[str, Any]:
+        d = {k: getattr(self, k) for k in self.__dataclass_fields__}
+        d["history"] = [dict(h) for h in self.history]
+        d["warnings"] = list(self.warnings)
+        d["provenance"] = self.provenance.to_dict()
+        d["kind"] = "adaptive_capture_result"
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> AdaptiveResult:
+        from benchfit.fileio import as_float
+
+        if not isinstance(d, dict) or d.get("kind") != "adaptive_capture_result":
+            raise InputError("expected an adaptive capture result")
+        kw = {k: d[k] for k in cls.__dataclass_fields__ if k in d}
+        for k in ("instrument_time_s", "phase_margin_deg", "phase_margin_sigma_deg", "gain_margin_db",
+                  "gain_margin_sigma_db", "crossover_hz", "phase_crossover_hz", "level_v"):
+            kw[k] = as_float(kw.get(k))
+        kw["history"] = tuple(dict(h) for h in kw.get("history", ()))
+        kw["warnings"] = tuple(kw.get("warnings", ()))
+        kw["provenance"] = Provenance.from_dict(d.get("provenance"))
+        return cls(**kw)
+
+    def to_json(self, path) -> None:
+        from benchfit.fileio import write_json_atomic
+
+        write_json_atomic(path, self.to_dict())
+
+    @classmethod
+    def from_json(cls, path) -> AdaptiveResult:
+        from benchfit.fileio import malformed_as_input_error, read_json
+
+        with malformed_as_input_error(path, "adaptive capture result"):
+            return cls.from_dict(read_json(path))
+
+    def summary(self) -> str:
+        def pm(v, s, unit, fmt):
+            return "n/a" if math.isnan(v) else f"{v:{fmt}} ± {s:.2g} {unit}"
+        return (f"{self.points} points ({self.points_measured} measured, {self.readings} readings) in "
+                f"{self.instrument_time_s:.4g} s of instrument time into {self.path}\n"
+                f"phase margin {pm(self.phase_margin_deg, self.phase_margin_sigma_deg, 'deg', '.2f')} "
+                f"at {self.crossover_hz:.5g} Hz\n"
+                f"gain margin  {pm(self.gain_margin_db, self.gain_margin_sigma_db, 'dB', '.2f')} "
+                f"at {self.phase_crossover_hz:.5g} Hz\n"
+                f"stopped: {self.stopped_because}"
+                + (f"\nlinearity: {self.linearity['message']}" if self.linearity else ""))
+
+
+def slow_pole_as_integrator(fit, f_min_hz: float) -> bool:
+    """True when the fit holds a real pole below the band, a candidate for an integrator.
+
+    Evidence weighed: the fit's real pole frequencies against the band.  Above
+    its frequency a real pole falls as 1/f with a phase heading for −90°, so
+    one below ``f_min_hz`` looks over the band much like an integrator, and
+    its frequency and the gain can hardly be told apart (their covariance is
+    near singular, draws cross into the right half-plane).  A loop gain with
+    an integrator measured in noise often ends so.  The caller refits with one
+    more integrator and keeps that fit only when its residual stays within the
+    noise and its parameters are identified.
+    """
+    for p in fit.parameters:
+        if p.name.startswith("pole") and p.name.endswith("_hz") and 0 < p.value < f_min_hz:
+            return True
+    return False
+
+
+#: Orders below the automatic choice tried by simpler_fit.
+SIMPLER_STEPS = 3
+
+
+def simpler_fit(resp, result, resid, identified, *, integrators: int = 0):
+    """The fit to decide the margins with: ``result``, or a lower order whose parameters
+    the data identify.
+
+    Evidence weighed: whether the fit's covariance yields a σ (``identified``:
+    a usable covariance whose draws the data do not contradict) and whether
+    the residual stays within the noise (:func:`fit_adequate`).  The automatic
+    order may keep a pole or pair that lowers the residual a little but that
+    the data cannot place (two real poles at one frequency, a pair far outside
+    the points); the margins do not need it, and its degenerate covariance
+    hides the σ of those that matter.  Orders 1..SIMPLER_STEPS below are tried,
+    highest first; the first that is identified and adequate wins, otherwise
+    ``result`` stays.
+    """
+    from benchfit.fitting import fit
+
+    order = int(result.stats.get("order") or 0) - int(result.integrators)
+    for k in range(1, SIMPLER_STEPS + 1):
+        if order - k < 1:
+            break
+        try:
+            cand = fit(resp, order=order - k, integrators=integrators)
+        except FitError:
+            continue
+        r = np.abs(resp.response - cand.response(resp.freq_hz)) / resp.stddev
+        if fit_adequate(cand, r) and identified(cand, resp):
+            return cand, r
+    return result, resid
+
+
+def identified(result, resp) -> bool:
+    """True when the fit's parameter draws give the margins a σ: a usable covariance
+    whose draws the data do not mostly contradict (see benchfit.planner.uncertainty)."""
+    if not covariance_usable(result):
+        return False
+    spread = margin_spread(result, resp.f_min_hz, resp.f_max_hz, rng=np.random.default_rng(1),
+                           data=resp, draws=100)
+    return "contradict" not in spread.reason and "covariance" not in spread.reason
+
+
+def fit_for_margins(resp, integrators: int | None = None):
+    """The fit the margins are judged on, and ``|residual| / σ`` per point.
+
+    :func:`benchfit.fitting.fit` (integrators ``auto`` unless given), then, when
+    its parameters are not :func:`identified`: one more integrator when
+    :func:`slow_pole_as_integrator` says so (kept only if adequate and
+    identified), else :func:`simpler_fit`.  ``resp`` must carry a stddev column.
+    """
+    from benchfit.fitting import fit
+
+    result = fit(resp, integrators=integrators if integrators is not None else "auto")
+    resid = np.abs(resp.response - result.response(resp.freq_hz)) / resp.stddev
+    if identified(result, resp):
+        return result, resid
+    if slow_pole_as_integrator(result, resp.f_min_hz):
+        again = fit(resp, integrators=result.integrators + 1)
+        r2 = np.abs(resp.response - again.response(resp.freq_hz)) / resp.stddev
+        if fit_adequate(again, r2) and identified(again, resp):
+            return again, r2
+    return simpler_fit(resp, result, resid, identified, integrators=result.integrators)
+
+
+#: The planner's fit starts this many decades below the lowest deciding frequency.
+FIT_DECADES_BELOW = 1.5
+
+
+def fit_band_start(decisive_hz, start_hz: float) -> float:
+    """Where the planner's fit begins: :data:`FIT_DECADES_BELOW` below the lowest
+    frequency that decides a margin, and not below the capture's start.
+
+    Evidence weighed: the deciding frequencies of the last fit.  Far below the
+    crossover a loop gain is large, so an injected measurement is noisy there
+    (the injection is suppressed by the loop), and poles the data barely see
+    make the covariance degenerate without moving a margin; the fit that
+    decides the margins needs only the stretch around them.  The file keeps
+    every point.
+    """
+    f = [d for d in decisive_hz if math.isfinite(d) and d > 0]
+    if not f:
+        return float(start_hz)
+    return max(float(start_hz), min(f) * 10 ** -FIT_DECADES_BELOW)
+
+
+def fit_adequate(fit, normalised_residual: np.ndarray) -> bool:
+    """True when the fit describes the data within the noise, so its covariance can be trusted.
+
+    Evidence weighed: the fit's reduced χ² (at most :data:`REDCHI_OK`) and
+    whether any point is missed by more than
+    :data:`~benchfit.planner.placement.RESIDUAL_SIGMAS` of its σ.  A model
+    that misses structure has a covariance that speaks only for the wrong
+    model; its margins' σ says nothing about the true loop's.
+    """
+    chi = fit.stats.get("reduced_chi2")
+    chi = float(chi) if chi is not None else math.inf
+    return bool(chi <= REDCHI_OK and not np.any(np.asarray(normalised_residual) > pl.RESIDUAL_SIGMAS))
+
+
+def gm_known(gm_db: float, gm_sigma_db: float, settings: AdaptiveSettings) -> bool:
+    """True when the gain margin is known well enough to stop.
+
+    Evidence weighed: the GM and its σ.  Known when its σ is within the asked
+    one, or when even its lower 2σ bound lies beyond
+    :data:`~benchfit.planner.placement.DECIDING_GM_DB` (a margin that large is
+    known as "more than 30 dB", which is all a designer needs of it), or when
+    the model has no phase crossing in the band and nothing hides one (σ 0).
+    """
+    if gm_sigma_db <= settings.gm_sigma_db:
+        return True
+    return math.isfinite(gm_sigma_db) and gm_db - 2.0 * gm_sigma_db > pl.DECIDING_GM_DB
+
+
+def stop_reason(pm_sigma_deg: float, gm_db: float, gm_sigma_db: float, adequate: bool,
+                settings: AdaptiveSettings, points: int, elapsed_s: float,
+                pending: int = 0) -> str | None:
+    """Why the capture should stop now, or None to go on.
+
+    Evidence weighed, first match wins: both margins known (the PM to the asked
+    σ, the GM as :func:`gm_known` says) from an adequate fit
+    (:func:`fit_adequate`), with no point still asked for by the crossing,
+    resonance, residual or buried-point rules (``pending``: a σ from a fit
+    that has not yet seen both sides of a crossing or the width of a resonance
+    speaks only for the model's shape) -> :data:`PRECISION`; the point
+    budget spent -> :data:`MAX_POINTS`; the time budget spent -> :data:`MAX_TIME`.
+    """
+    if (adequate and pending == 0 and pm_sigma_deg <= settings.pm_sigma_deg
+            and gm_known(gm_db, gm_sigma_db, settings)):
+        return PRECISION
+    if points >= settings.max_points:
+        return MAX_POINTS
+    if elapsed_s >= settings.max_time_s:
+        return MAX_TIME
+    return None
+
+
+class _Budget(Exception):
+    """Raised inside a round when a budget runs out before the next point."""
+
+    def __init__(self, reason: str) -> None:
+        super().__init__(reason)
+        self.reason = reason
+
+
+class _StopFlag:
+    """Ctrl-C asks the capture to stop after the current point; a second one aborts."""
+
+    def __init__(self) -> None:
+        self.requested = False
+        self._old = None
+
+    def __enter__(self) -> _StopFlag:
+        if threading.current_thread() is threading.main_thread():
+            self._old = signal.signal(signal.SIGINT, self._handle)
+        return self
+
+    def _handle(self, signum, frame) -> None:
+        if self.requested:
+            raise KeyboardInterrupt
+        self.requested = True
+
+    def __exit__(self, *exc) -> None:
+        if self._old is not None:
+            signal.signal(signal.SIGINT, self._old)
+
+
+class AdaptiveCapture:
+    """One adaptive capture into ``out`` (see module notes).
+
+    Parameters
+    ----------
+    probe
+        Point readings through an instrument session.
+    settings
+        What to measure and when to stop.
+    out
+        The sweep file; the capture log sits beside it.
+    resource
+        Resource name recorded in the files.
+    seed
+        Seed of the parameter draws (the σ estimate), for repeatable runs.
+    progress
+        Called as ``progress(points_measured, message)`` after each point.
+    """
+
+    def __init__(self, probe: Probe, settings: AdaptiveSettings, out: str | Path, *, resource: str = "",
+                 seed: int = 0, progress: Callable[[int, str], None] | None = None) -> None:
+        settings.validate()
+        self.probe = probe
+        self.s = settings
+        self.out = Path(out)
+        self.log = log_path(out)
+        self.resource = resource or probe.session.name
+        self.rng = np.random.default_rng(seed)
+        self.progress = progress or (lambda n, msg: None)
+        self.rows: list[LogRow] = []
+        self.level = settings.level_v
+        self.noise: NoiseMap | None = None
+        self.times = TimeModel()
+        self.warnings: list[str] = []
+        self.history: list[dict[str, Any]] = []
+        self.linearity: lin.LinearityResult | None = None
+        self.last_linearity: lin.LinearityResult | None = None
+        self.linearity_notes: list[str] = []
+        self.halvings = 0
+        self.stop_flag: _StopFlag | None = None
+        self.band = (settings.start_hz, settings.stop_hz)
+        self.model = None
+        self.integrators: int | None = None
+        self.fit_from_hz: float | None = None
+        self.last: tuple | None = None
+        self.per_decade = settings.per_decade
+
+    # ----- bookkeeping ----------------------------------------------------------------
+    @property
+    def elapsed_s(self) -> float:
+        return float(sum(r.time_s for r in self.rows))
+
+    def _sweep(self) -> list[LogRow]:
+        return sweep_rows(self.rows, self.level)
+
+    def _stddev(self, rows: list[LogRow]) -> np.ndarray:
+        """σ of each sweep point from the smoothed noise map (steadier than its own 3 readings)."""
+        sd = np.array([r.stddev for r in rows])
+        if self.noise is None:
+            return sd
+        f = np.array([r.freq_hz for r in rows])
+        pred = np.array([self.noise.scatter(r.freq_hz, r.level_v, r.bandwidth_hz) / math.sqrt(r.repeats)
+                         for r in rows])
+        return np.where(np.isfinite(pred) & (pred > 0), pred, sd)
+
+    def _learn(self) -> None:
+        rows = [r for r in self.rows if r.repeats >= 2]
+        if rows:
+            self.noise = NoiseMap.from_points([r.freq_hz for r in rows],
+                                              [r.scatter * abs(r.response) for r in rows],
+                                              [r.level_v for r in rows], [r.bandwidth_hz for r in rows])
+            self.times = TimeModel.from_points([r.freq_hz for r in rows], [r.time_s for r in rows],
+                                               [r.repeats for r in rows], [r.bandwidth_hz for r in rows])
+
+    def _meta(self, complete: bool, stopped: str | None) -> dict[str, Any]:
+        return {"instrument": self.probe.session.idn, "profile": self.probe.profile.name,
+                "resource": self.resource, "adaptive": True, "settings": self.s.to_dict(),
+                "level_v": self.level, "capture_log": self.log.name, "complete": complete,
+                "stopped_because": stopped, "instrument_time_s": self.elapsed_s}
+
+    def _write_sweep(self, complete: bool = False, stopped: str | None = None) -> None:
+        rows = self._sweep()
+        prov = Provenance(step="adaptive_capture", sources=(self.resource,),
+                          settings={"profile": self.probe.profile.name, **self.s.to_dict()})
+        write_sweep(self.out, rows, self._stddev(rows), quantity=self.s.quantity,
+                    meta=self._meta(complete, stopped), provenance=prov)
+
+    # ----- measuring ------------------------------------------------------------------
+    def _check_budget(self) -> None:
+        if self.stop_flag is not None and self.stop_flag.requested:
+            raise _Budget(INTERRUPTED)
+        if len(self.rows) >= self.s.max_points:
+            raise _Budget(MAX_POINTS)
+        if self.elapsed_s >= self.s.max_time_s:
+            raise _Budget(MAX_TIME)
+
+    def measure(self, freq_hz: float, purpose: str, sigma_required: float, *, in_sweep: bool = True,
+                level_v: float | None = None) -> Reading:
+        """Take one point with settings chosen for ``sigma_required`` (absolute) and record it."""
+        self._check_budget()
+        level = self.level if level_v is None else level_v
+        ps = choose_point_settings(freq_hz, sigma_required, level, self.noise, self.s.bandwidth_hz,
+                                   self.s.min_bandwidth_hz, self.s.max_repeats)
+        r = self.probe.read(freq_hz, level, ps.bandwidth_hz, ps.repeats)
+        sd = r.sigma if r.repeats > 1 else math.nan
+        buried = noise_dominated(sd, abs(r.mean))
+        row = LogRow(freq_hz=r.freq_hz, response=r.mean, stddev=sd, level_v=level,
+                     bandwidth_hz=ps.bandwidth_hz, repeats=r.repeats, time_s=r.time_s,
+                     scatter=r.scatter, purpose=purpose + ("-buried" if buried and in_sweep else ""),
+                     in_sweep=in_sweep and not buried)
+        append_row(self.log, row)
+        self.rows.append(row)
+        self._learn()
+        if in_sweep:
+            self._write_sweep()
+        self.progress(len(self.rows), purpose)
+        return r
+
+    def _crossings(self, spread: MarginSpread) -> list[float]:
+        return [f for f, _ in pl.deciding_crossings(spread.margins.crossings)]
+
+    def _resonances(self, fit) -> list[tuple[float, float]]:
+        return pl.deciding_resonances(pl.model_resonances(fit.model), fit.model.response)
+
+    def _decisive(self, spread: MarginSpread, fit) -> list[tuple[float, float]]:
+        """(frequency, component σ) of everything that decides a margin (see required_point_sigma)."""
+        pm, gm = self.s.pm_sigma_deg, self.s.gm_sigma_db
+        out = [(f, component_sigma(kind, pm, gm)) for f, kind in
+               pl.deciding_crossings(spread.margins.crossings)]
+        out += [(f0, component_sigma("phase", pm, gm)) for f0, _ in self._resonances(fit)]
+        out += [(f, component_sigma("phase", pm, gm)) for f in self._buried(fit)]
+        return out
+
+    def _gm_sigma(self, spread: MarginSpread, fit) -> float:
+        """The GM's σ: infinite while buried points may hide a phase crossing."""
+        return math.inf if self._buried(fit, frontier=False) else spread.gm_sigma_db
+
+    def _buried(self, fit, *, frontier: bool = True) -> list[float]:
+        """Frequencies of buried points (at this level) that may hide a margin.
+
+        A buried point where the model's |T| lies between −30 dB and 0 dB (a
+        positive gain margin below :data:`~benchfit.planner.placement.DECIDING_GM_DB`
+        could sit there) leaves the gain margin unknown.  With
+        ``frontier``, only the lowest two not yet measured with the narrowest
+        bandwidth and the most readings are returned: they are measured again
+        with the effort a deciding point gets, so effort goes where the usable
+        data end rather than into a whole buried stretch at once.
+        """
+        usable = {r.freq_hz for r in self._sweep()}
+        out = []
+        for r in self.rows:
+            if (r.in_sweep or not r.purpose.endswith("-buried") or r.freq_hz in usable
+                    or not math.isclose(r.level_v, self.level, rel_tol=1e-9)):
+                continue
+            mag = float(abs(fit.model.response(np.array([r.freq_hz]))[0]))
+            if 0 < mag <= 1.0 and 20 * math.log10(mag) >= -pl.DECIDING_GM_DB:
+                out.append(r.freq_hz)
+        if not frontier:
+            return sorted(set(out))
+        gave_up = {r.freq_hz for r in self.rows if r.purpose.endswith("-buried")
+                   and r.repeats >= self.s.max_repeats and r.bandwidth_hz <= self.s.min_bandwidth_hz}
+        return sorted(set(out) - gave_up)[:2]
+
+    def _sigma_for(self, f: float, decisive: list[tuple[float, float]]) -> float:
+        """The absolute σ a point at ``f`` must reach: the relative rule times |T| of the model."""
+        rel = required_point_sigma(f, decisive)
+        if not math.isfinite(rel) or self.model is None:
+            return math.inf
+        return rel * float(abs(self.model.response(np.array([f]))[0]))
+
+    # ----- rounds ---------------------------------------------------------------------
+    def _coarse(self) -> None:
+        have = np.array([r.freq_hz for r in self._sweep()])
+        for f in pl.coarse_grid(self.s.start_hz, self.s.stop_hz, self.per_decade):
+            if have.size and np.min(np.abs(np.log10(have / f))) < pl.MIN_SPACING_DECADES:
+                continue
+            self.measure(float(f), "coarse", self._sigma_for(f, []))
+
+    def _fit(self):
+        """Fit the sweep so far; returns (response, fit result, |residual|/σ per point)."""
+        from benchfit.data.response import FrequencyResponse
+
+        rows = self._sweep()
+        if len(rows) < 2:
+            raise FitError("fewer than two points measured")
+        resp = FrequencyResponse(
+            freq_hz=np.array([r.freq_hz for r in rows]), response=np.array([r.response for r in rows]),
+            stddev=self._stddev(rows), quantity=self.s.quantity)
+        if self.fit_from_hz is not None and np.sum(resp.freq_hz >= self.fit_from_hz) >= 8:
+            resp = resp.band(self.fit_from_hz, None)
+        result, resid = fit_for_margins(resp, self.integrators)
+        if result.integrators:
+            self.integrators = result.integrators
+        return resp, result, resid
+
+    def _linearity(self, crossover_hz: float, decisive: list[tuple[float, float]]) -> bool:
+        """Run the check; True when the level changed (the sweep must be re-measured)."""
+        freqs = lin.check_frequencies(crossover_hz, self.band)
+        comps: list[lin.LevelComparison] = []
+        ref = self.level
+        for f in freqs:
+            sig = self._sigma_for(f, decisive)
+            base = self.measure(f, "linearity", sig, in_sweep=False, level_v=ref)
+            sd_b = base.sigma
+            for factor in (0.5, 2.0):
+                r = self.measure(f, "linearity", sig, in_sweep=False, level_v=ref * factor)
+                sd = r.sigma
+                comps.append(lin.compare(f, ref, base.mean, sd_b, ref * factor, r.mean, sd))
+        lo, hi = lin.linear_level_range(ref, comps)
+        changed = [c for c in comps if c.changed]
+        new_level = ref
+        if not changed:
+            msg = (f"linear: halving and doubling the level ({ref:g} V) changed nothing beyond the "
+                   f"noise; linear from {lo:g} to {hi:g} V")
+        else:
+            worst = max(changed, key=lambda c: abs(c.change_db))
+            if math.isnan(lo):
+                span = f"not linear at {ref:g} V: already {ref / 2:g} V reads differently"
+            else:
+                span = f"linear from {lo:g} to {hi:g} V"
+            msg = (f"NOT linear: at {worst.level_v:g} V the response at {worst.freq_hz:.4g} Hz changed "
+                   f"by {worst.change_db:+.2f} dB / {worst.change_deg:+.2f} deg (noise allows "
+                   f"±{worst.allowed_db:.2f} dB); {span}")
+            if math.isnan(lo) and self.s.auto_level:
+                if self.halvings < MAX_HALVINGS:
+                    new_level = ref / 2
+                    self.halvings += 1
+                    msg += f"; continuing at {new_level:g} V (--auto-level), checked again there"
+                else:
+                    msg += f"; still not linear after {MAX_HALVINGS} halvings of the level"
+                    self.warnings.append(msg)
+            elif math.isnan(lo):
+                msg += "; lower --level or pass --auto-level"
+                self.warnings.append(msg)
+            else:
+                msg += f"; continuing at {ref:g} V, inside it"
+        self.linearity_notes.append(msg)
+        self.linearity = lin.LinearityResult(linear=not changed, linear_from_v=lo, linear_to_v=hi,
+                                             level_v=new_level, comparisons=tuple(comps),
+                                             message=" | ".join(self.linearity_notes))
+        if new_level != self.level:
+            self.level = new_level
+            self.linearity = None              # check again at the new level
+            self.last_linearity = lin.LinearityResult(
+                linear=False, linear_from_v=lo, linear_to_v=hi, level_v=new_level,
+                comparisons=tuple(comps), message=" | ".join(self.linearity_notes))
+            return True
+        return False
+
+    def _next_points(self, resp, result, spread: MarginSpread, resid: np.ndarray,
+                     decisive: list[tuple[float, float]]) -> list[tuple[float, str]]:
+        measured = resp.freq_hz
+        asks: list[tuple[float, str]] = []
+        asks += [(f, "crossing") for f in pl.crossing_points(self._crossings(spread), measured)]
+        asks += [(f, "resonance") for f in pl.resonance_points(self._resonances(result),
+                                                                measured, self.band)]
+        asks += [(f, "residual") for f in pl.residual_points(measured, resid)]
+        asks += [(f, "again") for f in self._buried(result)]
+        if spread.log_draws.size:
+            grid = spread.grid_hz
+            far = np.min(np.abs(np.log10(grid)[:, None] - np.log10(measured)[None, :]), axis=1)
+            keep = far >= pl.MIN_SPACING_DECADES
+            cand = grid[keep]
+            plan = [choose_point_settings(f, self._sigma_for(f, decisive), self.level, self.noise,
+                                          self.s.bandwidth_hz, self.s.min_bandwidth_hz,
+                                          self.s.max_repeats) for f in cand]
+            sig = np.array([point_sigma(f, ps, self.level, self.noise) for f, ps in zip(cand, plan)])
+            sig = sig / np.abs(result.response(cand))          # relative, as the log draws are
+            # a point the noise would bury tells the fit nothing: not a candidate
+            sig = np.where(sig > BURIED_RELATIVE_SIGMA, np.inf, sig)
+            cost = np.array([float(self.times.point_time(f, ps.bandwidth_hz, ps.repeats))
+                             for f, ps in zip(cand, plan)])
+            n_var = max(2, POINTS_PER_ROUND - len(asks))
+            asks += [(f, "variance") for f in pl.variance_points(
+                cand, spread.log_draws[:, keep], [spread.pm_draws, spread.gm_draws],
+                [self.s.pm_sigma_deg, self.s.gm_sigma_db], lambda fs: sig, lambda fs: cost, n_var)]
+        if not (math.isfinite(spread.pm_sigma_deg) and math.isfinite(self._gm_sigma(spread, result))):
+            asks += [(f, "densify") for f in pl.densify_points([f for f, _ in decisive], measured)]
+        chosen = pl.merge_new_points([f for f, _ in asks if self._useful(f, decisive, result)],
+                                     measured, self.band)
+        why = {}
+        for f, p in asks:
+            why.setdefault(f, p)
+        return [(f, why.get(f, "variance")) for f in chosen]
+
+    def _useful(self, f: float, decisive, fit) -> bool:
+        """False when a point at ``f`` would be buried even with the settings planned for it."""
+        if self.noise is None:
+            return True
+        ps = choose_point_settings(f, self._sigma_for(f, decisive), self.level, self.noise,
+                                   self.s.bandwidth_hz, self.s.min_bandwidth_hz, self.s.max_repeats)
+        mag = float(abs(fit.model.response(np.array([f]))[0]))
+        return not noise_dominated(point_sigma(f, ps, self.level, self.noise), mag)
+
+    def run(self, *, resume: bool = False) -> AdaptiveResult:
+        """Capture until the margins are known or a budget ends it; returns the result."""
+        self.probe.session.identify()
+        if resume:
+            if not self.log.exists():
+                raise InputError("no capture log beside it; nothing to resume (remove the file to "
+                                 "start again)", source=str(self.out))
+            self.rows = read_log(self.log, self.s.to_dict(), repair=True)
+            if self.rows:
+                self.level = [r for r in self.rows if r.in_sweep][-1].level_v if any(
+                    r.in_sweep for r in self.rows) else self.s.level_v
+            if any(r.purpose == "linearity" for r in self.rows):
+                self.linearity = lin.LinearityResult(True, math.nan, math.nan, self.level,
+                                                     message="checked before the resume (see the log)")
+            self._learn()
+        else:
+            if self.out.exists():
+                raise InputError("output file exists; pass --resume to continue that capture or "
+                                 "choose another file", source=str(self.out))
+            create_log(self.log, self.s.to_dict())
+        self.probe.configure()
+        stopped = None
+        spread = None
+        result = None
+        rounds = 0
+        with _StopFlag() as flag:
+            self.stop_flag = flag
+            try:
+                stopped = self._loop()
+            except _Budget as b:
+                stopped = b.reason
+            except KeyboardInterrupt:
+                stopped = INTERRUPTED
+            self.stop_flag = None
+        rounds = len(self.history)
+        if self.last is not None and self.last[4] == len(self._sweep()):
+            resp, result, resid, spread, _ = self.last      # nothing measured since: keep it
+        else:
+            try:
+                resp, result, resid = self._fit()
+                spread = margin_spread(result, *self._fit_band(resp), rng=self.rng, data=resp)
+            except (FitError, InputError) as e:
+                self.warnings.append(f"the final fit failed: {e}")
+        if spread is not None and stopped == PRECISION and not fit_adequate(result, resid):
+            stopped = NOTHING_LEFT
+        self._write_sweep(complete=stopped != INTERRUPTED, stopped=stopped)
+        return self._result(spread, stopped, rounds, result)
+
+    def _fit_band(self, resp) -> tuple[float, float]:
+        return float(resp.freq_hz[0]), float(resp.freq_hz[-1])
+
+    def _loop(self) -> str:
+        while True:
+            self._coarse()
+            for _ in range(MAX_ROUNDS):
+                try:
+                    resp, result, resid = self._fit()
+                except FitError as e:
+                    self.warnings.append(f"fit of the points so far failed ({e}); adding points")
+                    self.per_decade *= 2
+                    break
+                spread = margin_spread(result, *self._fit_band(resp), rng=self.rng, data=resp)
+                self.model = result.model
+                self.last = (resp, result, resid, spread, len(self._sweep()))
+                decisive = self._decisive(spread, result)
+                self.fit_from_hz = fit_band_start([f for f, _ in decisive], self.s.start_hz)
+                adequate = fit_adequate(result, resid)
+                gm_sigma = self._gm_sigma(spread, result)
+                self.history.append({
+                    "points": len(resp), "instrument_time_s": self.elapsed_s,
+                    "phase_margin_deg": spread.margins.phase_margin_deg,
+                    "phase_margin_sigma_deg": spread.pm_sigma_deg,
+                    "gain_margin_db": spread.margins.gain_margin_db,
+                    "gain_margin_sigma_db": gm_sigma, "fit_adequate": adequate,
+                    "reduced_chi2": result.stats.get("reduced_chi2"), "order": result.stats.get("order"),
+                    "missed_points": int(np.sum(resid > pl.RESIDUAL_SIGMAS)),
+                    "why_unknown": spread.reason or ("buried points may hide a phase crossing"
+                                                      if math.isinf(gm_sigma) else "")})
+                fc = spread.margins.crossover_hz
+                if self.s.linearity and self.linearity is None and math.isfinite(fc):
+                    if self._linearity(fc, decisive):
+                        break                      # new level: measure the sweep again
+                todo = self._next_points(resp, result, spread, resid, decisive)
+                pending = sum(1 for _, why in todo if why in RULE_PURPOSES)
+                reason = stop_reason(spread.pm_sigma_deg, spread.margins.gain_margin_db, gm_sigma,
+                                     adequate, self.s, len(self.rows), self.elapsed_s, pending)
+                if reason:
+                    return reason
+                if not todo:
+                    return NOTHING_LEFT
+                for f, why in todo:
+                    self.measure(f, why, self._sigma_for(f, decisive))
+            else:
+                return ROUNDS
+
+    def _result(self, spread: MarginSpread | None, stopped: str, rounds: int,
+                final_fit=None) -> AdaptiveResult:
+        nan = math.nan
+        m = spread.margins if spread is not None else None
+        sweep = self._sweep()
+        if stopped == NOTHING_LEFT:
+            self.warnings.append("stopped before the margins reached the asked σ: no point the rules "
+                                 "could place would reduce it further (see the history)")
+        return AdaptiveResult(
+            path=str(self.out), log_path=str(self.log), points=len(sweep), points_measured=len(self.rows),
+            readings=int(sum(r.repeats for r in self.rows)), instrument_time_s=self.elapsed_s,
+            phase_margin_deg=m.phase_margin_deg if m else nan,
+            phase_margin_sigma_deg=spread.pm_sigma_deg if spread else nan,
+            gain_margin_db=m.gain_margin_db if m else nan,
+            gain_margin_sigma_db=self._gm_sigma(spread, final_fit) if spread else nan,
+            crossover_hz=m.crossover_hz if m else nan, phase_crossover_hz=m.phase_crossover_hz if m else nan,
+            stopped_because=stopped, rounds=rounds, level_v=self.level, settings=self.s.to_dict(),
+            history=tuple(self.history),
+            linearity=(self.linearity or self.last_linearity).to_dict()
+            if (self.linearity or self.last_linearity) else None,
+            warnings=tuple(dict.fromkeys(self.warnings)),
+            provenance=Provenance(step="adaptive_capture", sources=(self.resource,),
+                                  settings={"profile": self.probe.profile.name, "out": str(self.out),
+                                            **self.s.to_dict()}))
+
+
+def run_adaptive(probe: Probe, settings: AdaptiveSettings, out: str | Path, *, resume: bool = False,
+                 resource: str = "", seed: int = 0,
+                 progress: Callable[[int, str], None] | None = None) -> AdaptiveResult:
+    """Run an adaptive capture (see :class:`AdaptiveCapture`)."""
+    return AdaptiveCapture(probe, settings, out, resource=resource, seed=seed,
+                           progress=progress).run(resume=resume)
