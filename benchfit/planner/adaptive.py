@@ -499,7 +499,8 @@ class AdaptiveCapture:
         if rows:
             self.noise = NoiseMap.from_points([r.freq_hz for r in rows],
                                               [r.scatter * abs(r.response) for r in rows],
-                                              [r.level_v for r in rows], [r.bandwidth_hz for r in rows])
+                                              [r.level_v for r in rows], [r.bandwidth_hz for r in rows],
+                                              [r.repeats for r in rows])
             self.times = TimeModel.from_points([r.freq_hz for r in rows], [r.time_s for r in rows],
                                                [r.repeats for r in rows], [r.bandwidth_hz for r in rows])
 
