@@ -302,8 +302,9 @@ def test_result_json_round_trip():
                        gain_margin_db=math.inf, gain_margin_sigma_db=0.0, crossover_hz=1e3,
                        phase_crossover_hz=math.nan, stopped_because=PRECISION, rounds=3, level_v=0.01,
                        settings=AdaptiveSettings(10, 1e5).to_dict(), history=({"points": 10},))
-    from benchfit.fileio import to_json_text
     import json
+
+    from benchfit.fileio import to_json_text
     back = AdaptiveResult.from_dict(json.loads(to_json_text(r.to_dict())))
     assert back.gain_margin_db == math.inf and math.isnan(back.phase_crossover_hz)
     assert back.points == 10 and back.stopped_because == PRECISION and back.history == ({"points": 10},)
