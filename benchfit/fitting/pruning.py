@@ -285,7 +285,7 @@ def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: b
     ``ref`` may come from the thinned copy or from every point: the lmfit
     refinement starts from its values either way (from an optimum on every
     point it takes a few evaluations).  ``refined``: ``ref`` is lmfit's on every
-    point already.  With ``--order N`` a note says when the data would accept
+    point already.  With ``--order N`` a note says when the data may accept
     fewer poles (:func:`fewer_poles_note`).
     """
     refit, quick = pb.refiner(), pb.refiner(quick=True)
