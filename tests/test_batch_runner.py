@@ -263,3 +263,30 @@ def test_workers_run_the_task_without_numpy_notes(monkeypatch, capsys):
         warnings.simplefilter("error")               # any warning that escapes would raise here
         assert runner.quiet_task("x.csv", TaskSettings()) == {"file": "x.csv"}
     assert runner._pool.__defaults__[-1] is runner.quiet_task
+
+
+@pytest.mark.skipif(os.name != "posix", reason="process groups and SIGINT are POSIX")
+def test_ctrl_c_to_a_pool_lot_is_one_line_and_resumes(tmp_path):
+    # Ctrl-C reaches every process of the group: the pool's workers printed their own
+    # KeyboardInterrupt tracebacks over the message
+    lot = tmp_path / "lot"
+    make_lot(lot, 120, quantity="loop", seed=9)
+    out = tmp_path / "r.csv"
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1")
+    proc = subprocess.Popen(_cli(lot, "-o", out, "--workers", 2, "--quiet"), env=env, text=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, start_new_session=True)
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline and proc.poll() is None:
+        if out.exists() and out.read_text().count("\n") > 6:
+            break
+        time.sleep(0.02)
+    os.killpg(proc.pid, signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err and err.count("\n") == 1, err
+    assert err.startswith("benchfit: error: interrupted: ") and err.rstrip().endswith("--resume")
+    done = subprocess.run(_cli(lot, "-o", out, "--workers", 2, "--quiet", "--resume"), env=env,
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    rows = read_table(out)[1]
+    assert sorted(r["file"] for r in rows) == sorted(find_sweeps(lot))   # no gap, no duplicate

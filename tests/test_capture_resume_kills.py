@@ -16,8 +16,7 @@ import os
 import numpy as np
 import pytest
 
-from benchfit.bench.capture import (CaptureSettings, manifest_path, run_capture,
-                                    scan_capture_file)
+from benchfit.bench.capture import CaptureSettings, manifest_path, run_capture, scan_capture_file
 from benchfit.bench.profile import find_profile
 from benchfit.bench.sim_transport import simulated_session
 from benchfit.bench.simulator import SimulatedAnalyzer

@@ -21,6 +21,7 @@ from benchfit.loop.design import design
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.sensing import Sensing
 from benchfit.loop.synthesis import Targets, synthesize
+from benchfit.numfmt import eng
 
 BAND = (10.0, 1e6)
 
@@ -45,8 +46,9 @@ def test_crossover_outside_the_band_is_refused(fc, side, kind):
     with pytest.raises(DesignError) as e:
         synthesize(kind, plant(), Targets(fc, 55, 10))
     msg = str(e.value)
-    assert msg.startswith("--crossover ") and f"{fc:.4g} Hz is {side}" in msg
-    assert "known on, 10..1e+06 Hz (set by buck:" in msg and "\n" not in msg
+    # numbers written by benchfit.numfmt (issue 18 item 7; was f"{fc:.4g} Hz" and "10..1e+06 Hz")
+    assert msg.startswith("--crossover ") and f"{eng(fc, 'Hz')} is {side}" in msg
+    assert "known on, 10 Hz to 1 MHz (set by buck:" in msg and "\n" not in msg
 
 
 def test_band_edges_are_allowed():
@@ -59,7 +61,7 @@ def test_band_edges_are_allowed():
 def test_several_corners_use_the_common_band_and_name_the_limiting_corner():
     corners = [plant("light", (10, 1e6), 5.0), plant("heavy", (100, 2e5), 0.5)]
     with pytest.raises(DesignError, match=r"above the band every plant is known on, "
-                                          r"100\.\.2e\+05 Hz \(set by heavy:"):
+                                          r"100 Hz to 200 kHz \(set by heavy:"):
         synthesize("type3", corners, Targets(5e5, 50, 8))
     with pytest.raises(DesignError, match=r"below .*\(set by heavy:"):
         synthesize("type3", corners, Targets(50, 50, 8))
@@ -73,7 +75,7 @@ def test_design_refuses_before_writing(tmp_path, capsys):
     rc = main(["design", str(model), "--crossover", "5G", "--draws", "0", "-o", str(out)])
     err = capsys.readouterr().err
     assert rc == 2 and not out.exists()
-    assert err.startswith("benchfit: error: --crossover 5e+09 Hz is above") and err.count("\n") == 1
+    assert err.startswith("benchfit: error: --crossover 5 GHz is above") and err.count("\n") == 1
 
 
 def test_design_file_crossover_outside_the_band(tmp_path, capsys):
@@ -81,7 +83,7 @@ def test_design_file_crossover_outside_the_band(tmp_path, capsys):
     (tmp_path / "d.toml").write_text('[plant]\nfiles = ["buck.json"]\n[targets]\n'
                                      "crossover_hz = 5e9\n")
     assert main(["design", "--file", str(tmp_path / "d.toml"), "--draws", "0"]) == 2
-    assert "--crossover 5e+09 Hz is above" in capsys.readouterr().err
+    assert "--crossover 5 GHz is above" in capsys.readouterr().err
 
 
 # the option-value parser (benchfit.cli.values) refuses these before any design is tried

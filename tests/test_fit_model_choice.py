@@ -241,3 +241,13 @@ def test_a_pole_above_the_band_beside_a_resonance_is_not_mimicked_by_zeros():
                                                     "pair1_q"], seed
         assert res.parameter("pair1_q").value == pytest.approx(10.0, rel=0.05)
         assert _model_error(res, f, [], p, k) < 0.02
+
+
+def test_a_negative_delay_does_not_wreck_a_fixed_order_fit():
+    # scikit-rf's measured 'ring slot measured.s1p' at --order 5: the delay hypothesis
+    # refined to a negative delay, and dropping it as it stood left the fit at 80x the
+    # floor against 2.8x without a delay.  Now --delay auto is no worse than --delay none.
+    r = read_sweep(SKRF_DATA / "ring slot measured.s1p")
+    auto, none = fit(r, order=5), fit(r, order=5, delay="none")
+    assert auto.stats["order"] == 5 and auto.model.delay_s >= 0
+    assert auto.stats["reduced_chi2"] <= 1.05 * none.stats["reduced_chi2"]

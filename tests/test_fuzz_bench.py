@@ -13,7 +13,7 @@ retries; never another exception.
 
 import numpy as np
 import pytest
-from fuzz_mutate import expect_own_error, mutation
+from fuzz_mutate import MAX_MESSAGE, expect_own_error, mutation
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -59,7 +59,7 @@ _TOML_VALUES = st.sampled_from(['""', '"x"', "0", "-1", "1e400", "nan", "inf", "
 def damaged_profile(draw):
     text = draw(st.sampled_from(SHIPPED)).read_bytes()
     if draw(st.booleans()):
-        return draw(mutation(text))
+        return draw(mutation(text, issue21=True))
     # one 'key = value' line given a value of another type
     lines = text.split(b"\n")
     keyed = [i for i, ln in enumerate(lines) if b"=" in ln and not ln.lstrip().startswith(b"#")]
@@ -72,7 +72,8 @@ def damaged_profile(draw):
 def _profile_check(tmp_path_factory, data):
     p = tmp_path_factory.mktemp("prof") / "bench.toml"
     p.write_bytes(data)
-    prof = expect_own_error(lambda: load_profile_file(p), names=p.name)
+    prof = expect_own_error(lambda: load_profile_file(p), names=p.name, size=len(data),
+                            max_message=MAX_MESSAGE)
     if prof is not None:
         assert isinstance(prof, Profile) and prof.kind in ("analyzer", "scope")
         assert 0 < prof.timeout_s <= 3600

@@ -7,6 +7,8 @@ them: k = 1e3, M = 1e6, m = 1e-3, u/µ = 1e-6, n = 1e-9, p = 1e-12; Hz, s, V, A,
 import argparse
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from benchfit.cli import build_parser, main
 from benchfit.cli.values import (
@@ -21,6 +23,7 @@ from benchfit.cli.values import (
     RESISTANCE,
     SEED,
     TIME,
+    UNITS,
     VOLTAGE,
     Range,
     band,
@@ -154,3 +157,27 @@ def test_every_valued_option_goes_through_the_value_parser():
         elif action.type is not None:
             assert action.type.__module__ == "benchfit.cli.values", (command, action.dest)
     assert not plain, plain
+
+_PREFIXES = {"p": 1e-12, "n": 1e-9, "u": 1e-6, "m": 1e-3, "": 1.0, "k": 1e3, "M": 1e6, "G": 1e9}
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.text(max_size=30), st.sampled_from((*UNITS, NUMBER)))
+def test_any_text_is_a_value_or_one_input_error(text_, unit):
+    try:
+        x = parse_value(text_, "--x", unit, Range())
+    except InputError as e:
+        assert str(e).startswith("--x: ") and "\n" not in str(e) and len(str(e)) < 300
+    else:
+        assert x == x and abs(x) != float("inf")   # finite, never NaN
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.floats(1e-6, 1e6, allow_nan=False), st.sampled_from(sorted(_PREFIXES)),
+       st.sampled_from([u for u in UNITS if u.prefixes]))
+def test_number_prefix_unit_round_trip(x, prefix, unit):
+    text_ = f"{x!r}{prefix}{unit.spellings[0]}"
+    assert parse_value(text_, "--x", unit, Range()) == pytest.approx(x * _PREFIXES[prefix], rel=1e-12)
+    others = [u for u in UNITS if u is not unit and u.prefixes]
+    with pytest.raises(InputError, match="expected " + others[0].name):
+        parse_value(text_, "--x", others[0], Range())

@@ -162,6 +162,16 @@ def test_noise_map_recovers_a_trend_and_time_model_its_terms():
     assert tm.c0 == pytest.approx(0.003, rel=1e-6) and tm.c1 == pytest.approx(7.0, rel=1e-6)
 
 
+def test_log_scatter_bias_makes_the_mean_log_unbiased():
+    from benchfit.planner.noise import log_scatter_bias
+
+    rng = np.random.default_rng(4)
+    z = (rng.standard_normal((200000, 3)) + 1j * rng.standard_normal((200000, 3))) / np.sqrt(2)
+    s = np.sqrt(np.sum(np.abs(z - z.mean(axis=1, keepdims=True)) ** 2, axis=1) / 2)   # true sigma 1
+    assert np.mean(np.log10(s)) < -0.05                                                # biased low
+    assert np.mean(np.log10(s)) + log_scatter_bias(np.array([3]))[0] == pytest.approx(0.0, abs=2e-3)
+
+
 def test_noise_dominated():
     assert noise_dominated(0.5, 1.0) and not noise_dominated(0.1, 1.0)
     assert not noise_dominated(math.nan, 1.0)
@@ -292,8 +302,9 @@ def test_result_json_round_trip():
                        gain_margin_db=math.inf, gain_margin_sigma_db=0.0, crossover_hz=1e3,
                        phase_crossover_hz=math.nan, stopped_because=PRECISION, rounds=3, level_v=0.01,
                        settings=AdaptiveSettings(10, 1e5).to_dict(), history=({"points": 10},))
-    from benchfit.fileio import to_json_text
     import json
+
+    from benchfit.fileio import to_json_text
     back = AdaptiveResult.from_dict(json.loads(to_json_text(r.to_dict())))
     assert back.gain_margin_db == math.inf and math.isnan(back.phase_crossover_hz)
     assert back.points == 10 and back.stopped_because == PRECISION and back.history == ({"points": 10},)

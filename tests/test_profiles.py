@@ -142,3 +142,19 @@ def test_placeholders_are_plain_names(tmp_path, placeholder):
     with pytest.raises(InputError, match="commands.start") as e:
         load_profile_file(bad)
     assert len(str(e.value)) < 300
+
+
+@pytest.mark.parametrize("text", [
+    'name = "x"\nkind = "analyzer"\n[connection]\ntimeout_s = ' + "9" * 5000 + "\n",
+    'name = "x"\nkind = "' + "k" * 100_000 + '"\n',
+    'name = "x"\n' + "k" * 100_000 + ' = 1\n',
+])
+def test_damaged_profile_gives_one_short_error(tmp_path, text):
+    """A 5000-digit integer (Python refuses to convert it) or a 100 000-character key or
+    value: one InputError naming the file, its message a readable length."""
+    f = tmp_path / "bad.toml"
+    f.write_text(text)
+    with pytest.raises(InputError) as info:
+        load_profile_file(f)
+    msg = str(info.value)
+    assert "bad.toml" in msg and len(msg) < 400, msg

@@ -248,3 +248,9 @@ def test_report_command_matches_the_load_step_to_the_current_channel(tmp_path):
     page = html_path.read_text(encoding="utf-8")
     assert "load step: 500 mA, the current step measured on Iout of load_step_trace.csv" in page
     assert "measured load step" in page
+
+
+def test_unknown_current_channel_names_the_option():
+    with pytest.raises(InputError, match="no channel 'Ix'") as e:
+        load_step_size(_load_trace(0.5), "Ix", None)
+    assert e.value.source == "--load-current-channel"

@@ -257,3 +257,11 @@ def test_pole_trial_offers_a_pole_for_a_lagging_zero_just_above_the_band():
     st2, v2 = with_pole(*without(st, v, groups), f_pole)
     assert st2.names == ("gain", "pole1_hz", "pole2_hz")
     np.testing.assert_array_equal(v2, [2.0, 100.0, 249e3])
+
+
+def test_choose_sets_aside_a_hypothesis_whose_delay_came_out_negative():
+    st_d = Structure(real_poles=1, delay=True)
+    neg = Hypothesis(None, st_d, _ref(90.0, 200, 3, values=[1.0, 1e3, -1e-12]), [])
+    ok = Hypothesis(None, Structure(real_poles=1), _ref(100.0, 200, 2, values=[1.0, 1e3]), [])
+    assert choose([neg, ok], 200, 200, None) is ok
+    assert choose([neg], 200, 200, None) is neg      # nothing else to take

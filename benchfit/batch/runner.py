@@ -128,7 +128,8 @@ def _pool(files: Sequence[str], settings: TaskSettings, workers: int,
     A worker that dies (killed, out of memory, a crash in native code) breaks the
     whole pool and fails every file in flight.  Those files are then re-run one
     at a time in a fresh pool, so the one that kills its worker is found and gets
-    an error row, and the innocent ones get their real rows.
+    an error row, and the innocent ones get their real rows.  Workers ignore Ctrl-C:
+    the parent stops the lot (closing this generator) and says which files are missing.
     """
     import multiprocessing as mp
     from concurrent.futures.process import BrokenProcessPool
@@ -139,28 +140,41 @@ def _pool(files: Sequence[str], settings: TaskSettings, workers: int,
     queue = deque(files)
     suspects: deque[str] = deque()  # in flight when a pool broke: re-run one at a time
     while queue or suspects:
-        with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context(method)) as ex:
+        with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context(method),
+                                 initializer=_worker_ignores_ctrl_c) as ex:
             running: dict[Any, str] = {}
             alone = _fill(ex, task, settings, running, queue, suspects, 4 * workers)
             broken = False
-            while running:
-                finished, _ = wait(running, return_when=FIRST_COMPLETED)
-                for fut in finished:
-                    path = running.pop(fut)
-                    try:
-                        row = fut.result()
-                    except BrokenProcessPool as e:
-                        broken = True
-                        if path == alone:  # it broke the pool by itself: the culprit
-                            yield _failed_row(path, e)
-                        else:
-                            suspects.append(path)
-                        continue
-                    except Exception as e:  # noqa: BLE001
-                        row = _failed_row(path, e)
-                    yield row
-                if not broken:
-                    alone = _fill(ex, task, settings, running, queue, suspects, 4 * workers)
+            try:
+                while running:
+                    finished, _ = wait(running, return_when=FIRST_COMPLETED)
+                    for fut in finished:
+                        path = running.pop(fut)
+                        try:
+                            row = fut.result()
+                        except BrokenProcessPool as e:
+                            broken = True
+                            if path == alone:  # it broke the pool by itself: the culprit
+                                yield _failed_row(path, e)
+                            else:
+                                suspects.append(path)
+                            continue
+                        except Exception as e:  # noqa: BLE001
+                            row = _failed_row(path, e)
+                        yield row
+                    if not broken:
+                        alone = _fill(ex, task, settings, running, queue, suspects, 4 * workers)
+            except (GeneratorExit, KeyboardInterrupt):  # the lot stops: start nothing more
+                ex.shutdown(wait=True, cancel_futures=True)
+                raise
+
+
+def _worker_ignores_ctrl_c() -> None:
+    # Ctrl-C reaches the whole process group; the parent stops the lot and says what is
+    # missing, so a worker must not die printing a KeyboardInterrupt traceback of its own.
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 def _fill(ex, task, settings, running: dict, queue: deque, suspects: deque, window: int) -> str | None:

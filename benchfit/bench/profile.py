@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Any
 
 from benchfit.bench.blocks import BYTE_ORDERS, ENCODINGS
+from benchfit.data.quote import cut, quote
 from benchfit.errors import InputError
 
 KINDS = ("analyzer", "scope")
@@ -123,7 +124,7 @@ class Profile:
     def require(self, key: str, needed_for: str) -> None:
         """Raise :class:`InputError` unless the profile has command ``key``."""
         if not self.has(key):
-            raise InputError(f"profile {self.name!r} has no [commands] {key} (needed for {needed_for})",
+            raise InputError(f"profile {quote(self.name)} has no [commands] {key} (needed for {needed_for})",
                              source=self.source)
 
     def command(self, key: str, *, needed_for: str | None = None, **values: Any) -> str:
@@ -137,7 +138,7 @@ class Profile:
         text = self.commands.get(key)
         if not text:
             why = f" (needed for {needed_for})" if needed_for else ""
-            raise InputError(f"profile {self.name!r} has no [commands] {key}{why}", source=self.source)
+            raise InputError(f"profile {quote(self.name)} has no [commands] {key}{why}", source=self.source)
         return text.format(**{k: _fmt_value(v) for k, v in values.items()})
 
     @property
@@ -172,14 +173,14 @@ def _check_table(table: Any, allowed: dict[str, type], where: str, source: str) 
     out = {}
     for key, value in table.items():
         if key not in allowed:
-            raise InputError(f"unknown key {where}.{key}; expected one of {sorted(allowed)}", source=source)
+            raise InputError(f"unknown key {where}.{cut(key)}; expected one of {sorted(allowed)}", source=source)
         want = allowed[key]
         if want is float and isinstance(value, int) and not isinstance(value, bool):
             if abs(value) > 2**53:  # TOML integers are unbounded; float() would overflow
                 raise InputError(f"{where}.{key} = {value}: number too large", source=source)
             value = float(value)
         if not isinstance(value, want) or (want is int and isinstance(value, bool)):
-            raise InputError(f"{where}.{key} = {value!r}: expected a {want.__name__}", source=source)
+            raise InputError(f"{where}.{key} = {cut(repr(value))}: expected a {want.__name__}", source=source)
         out[key] = value
     return out
 
@@ -195,13 +196,13 @@ def parse_profile(raw: dict[str, Any], *, source: str = "profile") -> Profile:
     """
     for key in raw:
         if key not in _TOP:
-            raise InputError(f"unknown key {key!r}; expected {sorted(_TOP)}", source=source)
+            raise InputError(f"unknown key {quote(key)}; expected {sorted(_TOP)}", source=source)
     name = raw.get("name")
     if not isinstance(name, str) or not name.strip():
         raise InputError("missing key 'name' (a non-empty string)", source=source)
     kind = raw.get("kind")
     if kind not in KINDS:
-        raise InputError(f"kind = {kind!r}; expected one of {KINDS}", source=source)
+        raise InputError(f"kind = {quote(kind)}; expected one of {KINDS}", source=source)
     conn = _check_table(raw.get("connection", {}), _CONNECTION, "connection", source)
     data = _check_table(raw.get("data", {}), _DATA, "data", source)
     cmds = raw.get("commands")
@@ -232,25 +233,25 @@ def parse_profile(raw: dict[str, Any], *, source: str = "profile") -> Profile:
                                  source=source)
     encoding = data.get("encoding", "ascii")
     if encoding not in ENCODINGS:
-        raise InputError(f"data.encoding = {encoding!r}; expected one of {list(ENCODINGS)}", source=source)
+        raise InputError(f"data.encoding = {quote(encoding)}; expected one of {list(ENCODINGS)}", source=source)
     byte_order = data.get("byte_order", "big")
     if byte_order not in BYTE_ORDERS:
-        raise InputError(f"data.byte_order = {byte_order!r}; expected one of {list(BYTE_ORDERS)}",
+        raise InputError(f"data.byte_order = {quote(byte_order)}; expected one of {list(BYTE_ORDERS)}",
                          source=source)
     form = data.get("response_form", "re_im")
     if form not in RESPONSE_FORMS:
-        raise InputError(f"data.response_form = {form!r}; expected one of {list(RESPONSE_FORMS)}",
+        raise InputError(f"data.response_form = {quote(form)}; expected one of {list(RESPONSE_FORMS)}",
                          source=source)
     if kind == "scope" and encoding.startswith("int") and not cmds.get("volts_per_code"):
-        raise InputError(f"data.encoding = {encoding!r} sends ADC codes: the profile needs "
+        raise InputError(f"data.encoding = {quote(encoding)} sends ADC codes: the profile needs "
                          "commands.volts_per_code (and volts_at_code_zero when the zero is offset) "
                          "to turn them into volts", source=source)
     if kind == "analyzer" and encoding.startswith("int"):
-        raise InputError(f"data.encoding = {encoding!r}: an analyzer profile needs ascii, real32 "
+        raise InputError(f"data.encoding = {quote(encoding)}: an analyzer profile needs ascii, real32 "
                          "or real64", source=source)
     fmt_key = f"format_{encoding}"
     if fmt_key not in cmds and encoding != "ascii":
-        raise InputError(f"missing key commands.{fmt_key} (data.encoding is {encoding!r})", source=source)
+        raise InputError(f"missing key commands.{fmt_key} (data.encoding is {quote(encoding)})", source=source)
     timeout = conn.get("timeout_s", 10.0)
     if not 0 < timeout <= 3600:
         raise InputError(f"connection.timeout_s = {timeout}: expected 0 < value <= 3600", source=source)
@@ -280,7 +281,9 @@ def load_profile_file(path: str | os.PathLike) -> Profile:
     except (OSError, UnicodeDecodeError) as e:
         raise InputError(f"cannot read profile: {e}", source=str(path)) from None
     except tomllib.TOMLDecodeError as e:
-        raise InputError(f"not valid TOML ({e})", source=str(path)) from None
+        raise InputError(f"not valid TOML ({cut(str(e))})", source=str(path)) from None
+    except (ValueError, RecursionError) as e:  # an integer of thousands of digits, deep nesting
+        raise InputError(f"cannot read profile: {cut(str(e))}", source=str(path)) from None
     return parse_profile(raw, source=str(path))
 
 
@@ -342,9 +345,9 @@ def find_profile(name_or_path: str, *, kind: str | None = None, option: str = "-
                 break
         else:
             names = sorted({e.name for e in list_profiles()})
-            raise InputError(f"no profile named {text!r}; known: {names}", source=option)
+            raise InputError(f"no profile named {quote(text)}; known: {names}", source=option)
     if kind and prof.kind != kind:
         article = "an" if kind[0] in "aeiou" else "a"
-        raise InputError(f"profile {prof.name!r} is a {prof.kind} profile; expected {article} {kind} profile",
+        raise InputError(f"profile {quote(prof.name)} is a {prof.kind} profile; expected {article} {kind} profile",
                          source=option)
     return prof

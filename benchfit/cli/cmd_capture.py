@@ -66,7 +66,8 @@ def register(subparsers) -> None:
     sim.add_argument("--noise", type=value(NUMBER, NON_NEGATIVE), default=1e-3, help="relative rms noise (default 1e-3)")
     sim.add_argument("--sim-point-time", type=value(TIME, Range(ge=0, le=MAX_SIM_POINT_S)), default=2e-4,
                      metavar="S",
-                     help="simulated measurement time per point in s (default 2e-4)")
+                     help="simulated measurement time per point in s (default 2e-4; with --adaptive or "
+                          "the bench-like options below, the fixed part of each reading)")
     sim.add_argument("--seed", type=SEED, default=0, help="noise seed (default 0)")
     sim.add_argument("--transport", choices=("auto", "sim", "tcp"), default="auto",
                      help="sim: pyvisa-sim backend; tcp: pyvisa-py over a 127.0.0.1 socket")
@@ -102,17 +103,23 @@ def simulated_instrument(path: str, args: argparse.Namespace):
     """The simulated analyzer for --simulate, and the sweep it was built from (or, for a
     model file, the model)."""
     from benchfit.bench.benchlike import BenchAnalyzer
-    from benchfit.bench.simulator import interpolated_response
+    from benchfit.bench.simulator import SimulatedAnalyzer, analyzer_for_sweep, interpolated_response
 
-    opts = {"noise": args.noise, "seed": args.seed, "overhead_s": args.sim_point_time,
-            "noise_density_v": args.noise_density, "settle_cycles": args.settle_cycles,
-            "saturation_v": args.saturation,
-            "injection": (args.quantity or ("loop" if args.adaptive else "unknown")) == "loop"}
+    bench = bool(args.adaptive or args.noise_density or args.settle_cycles or args.saturation is not None)
+    if bench:
+        # the bench-like analyzer on simulated time (benchfit.bench.benchlike)
+        opts = {"noise": args.noise, "seed": args.seed, "overhead_s": args.sim_point_time,
+                "noise_density_v": args.noise_density, "settle_cycles": args.settle_cycles,
+                "saturation_v": args.saturation,
+                "injection": (args.quantity or ("loop" if args.adaptive else "unknown")) == "loop"}
+    else:
+        # the plain analyzer: relative noise, a fixed time per point that really passes
+        opts = {"noise": args.noise, "seed": args.seed, "time_per_point_s": args.sim_point_time}
     if str(path).lower().endswith(".json"):
         from benchfit.fitting.model import PlantModel
 
         model = PlantModel.from_json(path)
-        return BenchAnalyzer(model.response, **opts), model
+        return (BenchAnalyzer if bench else SimulatedAnalyzer)(model.response, **opts), model
     try:
         from benchfit.data import read_sweep
 
@@ -121,6 +128,8 @@ def simulated_instrument(path: str, args: argparse.Namespace):
         from benchfit.data import read_canonical_sweep
 
         resp = read_canonical_sweep(path)
+    if not bench:
+        return analyzer_for_sweep(resp, **opts), resp
     return BenchAnalyzer(interpolated_response(resp), f_min_hz=resp.f_min_hz, f_max_hz=resp.f_max_hz,
                          **opts), resp
 

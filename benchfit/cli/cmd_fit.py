@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.cmd_inspect import add_reader_flags, reader_options
-from benchfit.cli.common import add_json_flag, emit, warn
+from benchfit.cli.common import add_json_flag, emit, warn, warn_read
 from benchfit.cli.values import (
     FREQUENCY,
     NON_NEGATIVE,
@@ -108,7 +108,7 @@ def run(args: argparse.Namespace) -> int:
     from benchfit.fitting import fit
 
     fix, bounds = _fix(args.fix), _bounds(args.bound)
-    resp = read_sweep(args.sweep, **reader_options(args))
+    resp = warn_read(read_sweep(args.sweep, **reader_options(args)), args.sweep)
     result = fit(resp, order=args.order, delay=args.delay, band=args.band, fix=fix,
                  weighting=args.weighting, integrators=args.integrators, bounds=bounds,
                  stable=args.stable)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from benchfit.cli.common import add_json_flag, emit, warn
+from benchfit.cli.common import add_json_flag, emit, warn, warn_read
 from benchfit.cli.values import NUMBER, Range, text, value
 from benchfit.errors import InputError
 
@@ -40,7 +40,7 @@ def _number_or_sweep(textv: str, option: str):
     from benchfit.data import read_sweep
 
     if Path(textv).exists():
-        return read_sweep(textv)
+        return warn_read(read_sweep(textv), textv)
     try:
         return parse_value(textv, option, NUMBER)
     except InputError:
@@ -59,7 +59,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError("give one measurement pair: --closed with --beta (or --ideal-gain), "
                          "--tv with --ti, or --z-open with --z-closed", source="loopgain")
     if pairs["closed"]:
-        g = read_sweep(args.closed)
+        g = warn_read(read_sweep(args.closed), args.closed)
         if (args.beta is None) == (args.ideal_gain is None):
             raise InputError("--closed needs --beta or --ideal-gain (one of them)", source="--beta")
         t = lr.loop_from_closed_loop(g, _number_or_sweep(args.beta, "--beta")
@@ -68,13 +68,13 @@ def run(args: argparse.Namespace) -> int:
     elif pairs["injection"]:
         if args.tv is None or args.ti is None:
             raise InputError("injection needs both --tv and --ti", source="--tv" if args.tv is None else "--ti")
-        t = lr.loop_from_injection(read_sweep(args.tv), read_sweep(args.ti))
+        t = lr.loop_from_injection(warn_read(read_sweep(args.tv), args.tv), warn_read(read_sweep(args.ti), args.ti))
         how = "voltage and current injection"
     else:
         if args.z_open is None or args.z_closed is None:
             raise InputError("output impedance needs both --z-open and --z-closed",
                              source="--z-open" if args.z_open is None else "--z-closed")
-        t = lr.loop_from_output_impedance(read_sweep(args.z_open), read_sweep(args.z_closed))
+        t = lr.loop_from_output_impedance(warn_read(read_sweep(args.z_open), args.z_open), warn_read(read_sweep(args.z_closed), args.z_closed))
         how = "open- and closed-loop output impedance"
     path = write_sweep_csv(t, args.output)
     m = margins_of_loop(t)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from benchfit.cli.cmd_inspect import add_reader_flags, reader_options
-from benchfit.cli.common import add_json_flag, emit, warn
+from benchfit.cli.common import add_json_flag, emit, warn, warn_read
 from benchfit.cli.values import NON_NEGATIVE, TIME, band, count, value
 from benchfit.errors import InputError
 
@@ -88,7 +88,7 @@ def run(args: argparse.Namespace) -> int:
 
     opts = {k: v for k, v in reader_options(args).items()
             if k not in ("channel", "time_unit", "sample_interval_s")}
-    loop = read_loop(args.loop, which="ideal" if args.ideal else "snapped", **opts)
+    loop = warn_read(read_loop(args.loop, which="ideal" if args.ideal else "snapped", **opts), args.loop)
     check_added_delay(loop, args.delay, args.band)
     m = margins_of_loop(loop, unstable_open_loop_poles=args.unstable_poles, band=args.band,
                         extra_delay_s=args.delay, integrators=args.integrators)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from benchfit.cli.common import add_json_flag, emit
+from benchfit.cli.common import add_json_flag, emit, warn_read
 from benchfit.cli.values import (
     CURRENT,
     PERCENT,
@@ -103,7 +103,8 @@ def run(args: argparse.Namespace) -> int:
     channel = args.channel
     overrides = {"columns": args.columns, "time_unit": args.time_unit,
                  "sample_interval_s": args.sample_interval, "skip_bad_rows": args.skip_bad_rows}
-    trace = read_trace(args.trace, **{k: v for k, v in overrides.items() if v is not None})
+    trace = warn_read(read_trace(args.trace, **{k: v for k, v in overrides.items() if v is not None}),
+                      args.trace)
     if args.load_step:
         if args.model != "second-order" or loop_path:
             raise InputError("--model and --loop apply to reference steps, not --load-step",

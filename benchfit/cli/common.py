@@ -24,3 +24,14 @@ def emit(args: argparse.Namespace, data: dict[str, Any], text: str) -> None:
 def warn(message: str) -> None:
     """A warning line on stderr (never mixed into --json stdout)."""
     print(f"benchfit: warning: {message}", file=sys.stderr)
+
+
+def warn_read(obj: Any, path: Any) -> Any:
+    """Say on stderr what the reader warned of while reading ``path`` (skipped rows,
+    repeats that disagree, units guessed...), so that a command that goes on to fit or judge
+    the data does not hide it; return ``obj`` unchanged."""
+    meta = getattr(obj, "meta", None)
+    if isinstance(meta, dict):
+        for w in meta.get("warnings", []) or []:
+            warn(f"{path}: {w}")
+    return obj

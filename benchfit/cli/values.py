@@ -78,10 +78,11 @@ _NUMBER = re.compile(r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?|[+-]?inf)\s
 
 
 def quote(text: str) -> str:
-    """``text`` quoted for a message, cut to :data:`QUOTE_CHARS` characters."""
-    if len(text) > QUOTE_CHARS:
-        return repr(text[:QUOTE_CHARS]) + f"... ({len(text)} characters)"
-    return repr(text)
+    """``text`` quoted for a message, cut to about :data:`QUOTE_CHARS` characters."""
+    r = repr(text[:QUOTE_CHARS])
+    if len(text) > QUOTE_CHARS or len(r) > QUOTE_CHARS + 2:  # escapes make a repr longer
+        return r[: QUOTE_CHARS + 1] + f"'... ({len(text)} characters)"
+    return r
 
 
 def _unit_of(suffix: str) -> tuple[float, Unit] | None:

@@ -255,9 +255,11 @@ def choose(outcomes: list[Hypothesis], n_sub: int, n_all: int, refit_all) -> Hyp
     simpler explanation unless the data insist.  When the best ones on the
     thinned copy (``n_sub`` residuals) are within :data:`CLOSE_CALL`, they are
     refined on every point (``refit_all``, ``n_all`` residuals) and compared
-    again there.
+    again there.  A hypothesis whose delay came out negative is no model of a
+    transport delay: it competes only when every one did.
     """
-    outcomes = sorted(outcomes, key=lambda o: bic(o.ref, n_sub))
+    valid = [o for o in outcomes if not (o.st.delay and o.ref.values[-1] < 0)]
+    outcomes = sorted(valid or outcomes, key=lambda o: bic(o.ref, n_sub))
     best = bic(outcomes[0].ref, n_sub)
     close = [o for o in outcomes if bic(o.ref, n_sub) - best < CLOSE_CALL]
     if len(close) > 1 and n_sub != n_all:

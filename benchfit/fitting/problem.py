@@ -93,12 +93,16 @@ class Problem:
         """True when the user fixes or bounds a parameter whose name starts with a prefix."""
         return any(key.startswith(prefixes) for key in (*self.fixed, *self.bounds))
 
-    def bounds_for(self, st: Structure) -> dict[str, tuple[float, float]]:
-        """The user's bounds, and with :attr:`stable` every pole frequency and pair Q
-        held at or above zero (left half-plane) for the parameters of ``st``."""
-        if not self.stable:
-            return self.bounds
+    def bounds_for(self, st: Structure, causal: bool = False) -> dict[str, tuple[float, float]]:
+        """The user's bounds for the parameters of ``st``; with ``causal`` a delay held
+        at or above zero; with :attr:`stable` every pole frequency and pair Q held at
+        or above zero (left half-plane)."""
         out = dict(self.bounds)
+        if causal and st.delay:
+            lo, hi = out.get("delay_s", (-np.inf, np.inf))
+            out["delay_s"] = (max(lo, 0.0), hi)
+        if not self.stable:
+            return out
         for nm in st.names:
             if nm.startswith("pole") or (nm.startswith("pair") and nm.endswith(("_hz", "_q"))):
                 lo, hi = out.get(nm, (-np.inf, np.inf))
@@ -115,11 +119,12 @@ class Problem:
                       fix=fix, weighting=self.weighting,
                       sig_abs=None if self.sig_abs is None else self.sig_abs[sel])
 
-    def refiner(self, idx: np.ndarray | None = None, quick: bool = False) -> Refiner:
+    def refiner(self, idx: np.ndarray | None = None, quick: bool = False,
+                causal: bool = False) -> Refiner:
         """``(structure, values, max_nfev=200) -> Refined`` on the points ``idx`` (all when
         None).  ``quick``: scipy's least squares directly, for trial refinements that
         only compare χ² (:func:`benchfit.fitting.refine.refine`); the refinement a
-        result reports is lmfit's."""
+        result reports is lmfit's.  ``causal``: the delay may not go below zero."""
         s = 1j * TWO_PI * self.f
         h, sig = self.h, self.sigma
         sel = slice(None) if idx is None else idx
@@ -127,7 +132,8 @@ class Problem:
 
         def run(st: Structure, values: np.ndarray, max_nfev: int = 200) -> Refined:
             return refine(st, values, s[sel], h[sel], sig.mag[sel], sig.phase[sel],
-                          fix=self.fixed, bounds=self.bounds_for(st), weighting=self.weighting,
+                          fix=self.fixed, bounds=self.bounds_for(st, causal),
+                          weighting=self.weighting,
                           sig_abs=sig_abs, max_nfev=max_nfev, quick=quick)
 
         return run

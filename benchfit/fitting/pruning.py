@@ -27,7 +27,7 @@ from benchfit.fitting.groups import (
 from benchfit.fitting.parameters import TWO_PI, Structure
 from benchfit.fitting.problem import Problem
 from benchfit.fitting.refine import Refined
-from benchfit.fitting.selection import drop_allowed, prunable
+from benchfit.fitting.selection import bic, drop_allowed, prunable
 from benchfit.fitting.weights import PointSigma
 
 #: Evaluations a pruning trial gets: a group the data do not need leaves the rest
@@ -300,23 +300,43 @@ def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: b
             ref = refit(st, ref.values)
     if st.delay and "delay_s" not in pb.fixed:
         i = st.names.index("delay_s")
+        if ref.values[i] < 0:
+            # A negative delay is no transport delay, and dropping it as it stands
+            # changes the response (on a measured ring-slot file the fit went from 8x to
+            # 80x the floor, held at zero to 17 000x): of the two refinements, with the
+            # delay held at or above zero and without it, the lower BIC goes on.
+            keep = [j for j in range(len(st.names)) if j != i]
+            st0 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
+                            st.integrators, False)
+            held, gone = pb.refiner(causal=True)(st, ref.values), refit(st0, ref.values[keep])
+            if bic(gone, n_res) <= bic(held, n_res):
+                return _checked_final(pb, st0, gone, [*notes, "a negative delay was fitted; "
+                                                      "refined without delay"], quick, n_res)
+            ref = held
         tv, te = ref.values[i], ref.stderr[i]
         if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
-            # Under 2σ: refine without the delay, and keep that only when the drop test
-            # passes: a parameter strongly correlated with the delay can blow up its σ
-            # while the data still need it.
+            # At zero (its bound) or under 2σ: refine without the delay, and keep that
+            # only when the drop test passes: a parameter strongly correlated with the
+            # delay can blow up its σ while the data still need it.
             keep = [j for j in range(len(st.names)) if j != i]
             st2 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
                             st.integrators, False)
             ref2 = refit(st2, ref.values[keep])
-            if tv <= 0 or drop_allowed(ref, ref2, 1, n_res):
+            if drop_allowed(ref, ref2, 1, n_res):
                 st, ref = st2, ref2
                 notes = [*notes, "delay estimate not significant; fitted without delay"]
+    return _checked_final(pb, st, ref, notes, quick, n_res)
+
+
+def _checked_final(pb: Problem, st: Structure, ref: Refined, notes: list[str], quick, n_res: int
+                   ) -> tuple[Structure, Refined, list[str]]:
+    """The notes every final model gets: fewer poles would do (``--order N``), loosely
+    located groups above the band."""
     if pb.order != "auto":
         note = fewer_poles_note(pb, st, ref, quick, n_res)
         if note:
             notes = [*notes, note]
-    return st, ref, [*notes, *loose_notes(st, ref, f[-1])]
+    return st, ref, [*notes, *loose_notes(st, ref, pb.f[-1])]
 
 
 def loose_notes(st: Structure, ref: Refined, f_max: float) -> list[str]:

@@ -42,6 +42,7 @@ import math
 
 import numpy as np
 
+from benchfit import numfmt
 from benchfit.errors import DesignError
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import Network, check_kind
@@ -102,19 +103,19 @@ def place(kind: str, plant_at_fc: complex, fc_hz: float, pm_deg: float, r_in: fl
     notes: list[str] = []
     mag = abs(plant_at_fc)
     if not (np.isfinite(mag) and mag > 0):
-        raise DesignError(f"plant gain at {fc_hz:.4g} Hz is {mag}; cannot place a crossover there")
+        raise DesignError(f"plant gain at {numfmt.eng(fc_hz, 'Hz')} is {mag}; cannot place a crossover there")
     lo, hi = BOOST_LIMITS[kind]
     boost = boost_needed(plant_at_fc, pm_deg)
     if kind == "type1":
-        notes.append(f"type1 gives no boost: phase margin about {pm_deg - boost:.1f}° "
-                     f"at {fc_hz:.4g} Hz")
+        notes.append(f"type1 gives no boost: phase margin about {numfmt.deg(pm_deg - boost)} "
+                     f"at {numfmt.eng(fc_hz, 'Hz')}")
         boost = 0.0
     elif boost > hi:
-        raise DesignError(f"{kind} cannot give the {boost:.1f}° of boost needed at {fc_hz:.4g} Hz "
+        raise DesignError(f"{kind} cannot give the {numfmt.deg(boost)} of boost needed at {numfmt.eng(fc_hz, 'Hz')} "
                           f"(at most {hi:.0f}°); use a lower crossover, a lower phase margin"
                           + (" or type3" if kind != "type3" else ""))
     elif boost < lo:
-        notes.append(f"plant phase needs only {boost:.1f}° of boost at {fc_hz:.4g} Hz; using "
+        notes.append(f"plant phase needs only {numfmt.deg(boost)} of boost at {numfmt.eng(fc_hz, 'Hz')}; using "
                      f"{lo:.0f}° (phase margin will exceed the target)")
         boost = lo
     k = k_from_boost(kind, boost)

@@ -29,6 +29,7 @@ from typing import Any
 
 import numpy as np
 
+from benchfit import numfmt
 from benchfit.errors import DesignError, InputError
 from benchfit.loop.choices import METHODS
 from benchfit.loop.closure import rate_of_closure_db
@@ -338,7 +339,7 @@ def check_crossover_in_band(fc_hz: float, corners: Sequence[LoopPlant]) -> None:
     span = ("the band every plant is known on" if len(corners) > 1
             else "the band the plant is known on")
     raise DesignError(
-        f"--crossover {fc_hz:.4g} Hz is {which} {span}, {lo:.4g}..{hi:.4g} Hz (set by "
+        f"--crossover {numfmt.eng(fc_hz, 'Hz')} is {which} {span}, {numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')} (set by "
         f"{', '.join(edge)}: fit band, sweep span, or two decades past a bare model's poles and "
         "zeros); choose a crossover inside it, or measure and fit the plant over a band that "
         "holds it")
@@ -401,7 +402,7 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
         notes = list(res.notes) + extra
         roc = res.rate_of_closure_db
         if method == "crossing" and not closes_near_20db(roc):
-            notes.append(f"rate of closure at {res.crossover_hz:.4g} Hz is {roc:.0f} dB/decade, "
+            notes.append(f"rate of closure at {numfmt.eng(res.crossover_hz, 'Hz')} is {roc:.0f} dB/decade, "
                          "not the 20 dB/decade the crossing method aims for")
         return Synthesis(**{**res.__dict__, "method": method, "notes": tuple(notes)})
 
@@ -415,20 +416,20 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
             # not even the target phase margin can be placed: say why
             place(kind, complex(corners[0].response(np.array([fc]))[0]), fc,
                   targets.phase_margin_deg, r_in)
-            raise DesignError(f"no {kind} placement at {fc:.4g} Hz")
+            raise DesignError(f"no {kind} placement at {numfmt.eng(fc, 'Hz')}")
         why = miss_text(placer.verify(fallback.network, fc))
-        return finish(fallback, [f"targets not met at {fc:.4g} Hz: {why}"])
+        return finish(fallback, [f"targets not met at {numfmt.eng(fc, 'Hz')}: {why}"])
     lo, hi = common_band(corners)
     if opamp is not None:
         hi = min(hi, opamp.gbw_hz)
     if not hi > lo * 1.01:
-        raise DesignError(f"the plants' common band {lo:.4g}..{hi:.4g} Hz is empty")
+        raise DesignError(f"the plants' common band {numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')} is empty")
     # keep clear of the band edges: slopes and data near them are least trusted
     grid = np.logspace(np.log10(lo * 2), np.log10(hi / 2), candidates)[::-1]
     if method == "crossing":
         grid = grid[closes_near_20db(rate_of_closure(kind, corners[0], grid))]
         if grid.size == 0:
-            raise DesignError(f"nowhere in {lo:.4g}..{hi:.4g} Hz does a {kind} network meet the "
+            raise DesignError(f"nowhere in {numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')} does a {kind} network meet the "
                               "plant with a 20 dB/decade rate of closure; try another network")
     misses: list[tuple[float, Synthesis]] = []
 
@@ -443,16 +444,16 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
     res, practical = choose_automatic(meeting())
     if res is not None:
         return finish(res, [f"crossover chosen automatically: highest of {len(grid)} tried in "
-                            f"{grid[-1]:.4g}..{grid[0]:.4g} Hz meeting the targets with parts in "
+                            f"{numfmt.eng(grid[-1], 'Hz')} to {numfmt.eng(grid[0], 'Hz')} meeting the targets with parts in "
                             "the practical range" if practical else
                             "crossover chosen automatically: no crossover meets the targets with "
                             "parts in the practical range; the highest meeting them is used"])
     closest = ""
     if misses:
         _, near = misses[closest_candidate([m[0] for m in misses])]
-        closest = (f" (closest: at {near.crossover_hz:.4g} Hz, "
+        closest = (f" (closest: at {numfmt.eng(near.crossover_hz, 'Hz')}, "
                    f"{miss_text(placer.verify(near.network, near.crossover_hz))})")
     raise DesignError(
-        f"no crossover in {grid[-1]:.4g}..{grid[0]:.4g} Hz meets phase margin >= "
+        f"no crossover in {numfmt.eng(grid[-1], 'Hz')} to {numfmt.eng(grid[0], 'Hz')} meets phase margin >= "
         f"{targets.phase_margin_deg:g}° and gain margin >= {targets.gain_margin_db:g} dB "
         f"({describe(crossings)} counted) with a {kind} network{closest}")

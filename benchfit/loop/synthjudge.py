@@ -33,6 +33,7 @@ from typing import Any
 
 import numpy as np
 
+from benchfit import numfmt
 from benchfit.loop.featuregrid import feature_grid
 from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.networks import Network
@@ -207,16 +208,16 @@ def miss_text(v: Verification) -> str:
             val = "no crossover in the band" if math.isnan(g["value"]) else \
                 f"phase margin {shown(g['value'], g['target'])}°"
             at = "" if g["freq_hz"] == m.crossover_hz or math.isnan(g["freq_hz"]) else \
-                f" at the {g['freq_hz']:.4g} Hz crossing"
+                f" at the {numfmt.eng(g['freq_hz'], 'Hz')} crossing"
             parts.append(f"{val}{at}{on}")
         p = worst_of(short, "phase")
         if p is not None:
             what = "gain margin" if not p["value"] < 0 else "gain reduction margin"
             val = "not known" if math.isnan(p["value"]) else \
                 f"{shown(abs(p['value']), p['target'])} dB"
-            parts.append(f"{what} {val} at {p['freq_hz']:.4g} Hz{on}")
+            parts.append(f"{what} {val} at {numfmt.eng(p['freq_hz'], 'Hz')}{on}")
     if not v.placed:
-        parts.append(f"the main crossover is at {v.margins[0].crossover_hz:.4g} Hz, not the "
+        parts.append(f"the main crossover is at {numfmt.eng(v.margins[0].crossover_hz, 'Hz')}, not the "
                      "one placed (another crossing took over)")
     return "; ".join(parts) + " (dense analysis)"
 

@@ -46,7 +46,10 @@ def load_step_size(load_trace: TimeTrace | None, current_channel: str | None,
         if load_step_a is not None:
             raise InputError("give the load step size or the trace's current channel, not both",
                              source="--load-step")
-        di = float(measure_step(load_trace, channel=current_channel).step_v)
+        try:
+            di = float(measure_step(load_trace, channel=current_channel).step_v)
+        except InputError as e:
+            raise InputError(e.message, source="--load-current-channel") from None
         if not (math.isfinite(di) and di != 0):
             raise InputError(f"channel {current_channel!r} of {_name(load_trace)} shows no current step",
                              source="--load-current-channel")

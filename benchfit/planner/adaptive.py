@@ -24,20 +24,27 @@ import math
 import signal
 import threading
 from collections.abc import Callable
-from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from benchfit.data.response import QUANTITIES
 from benchfit.errors import FitError, InputError
 from benchfit.planner import linearity as lin
 from benchfit.planner import placement as pl
+from benchfit.planner.fitstep import (  # noqa: F401 - re-exported: the rules live there
+    REDCHI_OK,
+    fit_adequate,
+    fit_band_start,
+    fit_for_margins,
+    identified,
+    simpler_fit,
+    slow_pole_as_integrator,
+)
 from benchfit.planner.noise import (
+    BURIED_RELATIVE_SIGMA,
     NoiseMap,
     TimeModel,
-    BURIED_RELATIVE_SIGMA,
     choose_point_settings,
     component_sigma,
     noise_dominated,
@@ -54,12 +61,20 @@ from benchfit.planner.record import (
     sweep_rows,
     write_sweep,
 )
-from benchfit.planner.uncertainty import MarginSpread, covariance_usable, margin_spread
+from benchfit.planner.settings import (  # noqa: F401 - re-exported
+    INTERRUPTED,
+    MAX_POINTS,
+    MAX_TIME,
+    NOTHING_LEFT,
+    PRECISION,
+    ROUNDS,
+    AdaptiveResult,
+    AdaptiveSettings,
+)
+from benchfit.planner.stopping import RULE_PURPOSES, gm_known, stop_reason  # noqa: F401
+from benchfit.planner.uncertainty import MarginSpread, margin_spread
 from benchfit.provenance import Provenance
 
-#: A fit whose reduced χ² exceeds this does not describe the data within the noise,
-#: so its covariance is not trusted to stop on (common practice, no source).
-REDCHI_OK = 2.0
 #: Most rounds of fit-and-place (a guard; the budgets normally end the capture first).
 MAX_ROUNDS = 40
 #: Points placed per round (crossing, resonance and residual rules first, the
@@ -67,336 +82,6 @@ MAX_ROUNDS = 40
 POINTS_PER_ROUND = 8
 #: Halvings of the level the auto-level search may make.
 MAX_HALVINGS = 4
-
-#: Purposes of the placement rules that must be satisfied before the capture may stop.
-RULE_PURPOSES = ("crossing", "resonance", "residual", "again")
-
-PRECISION = "precision reached"
-MAX_POINTS = "max points"
-MAX_TIME = "max time"
-NOTHING_LEFT = "no further point would reduce the uncertainty"
-INTERRUPTED = "interrupted"
-ROUNDS = "round limit"
-
-
-@dataclass(frozen=True)
-class AdaptiveSettings:
-    """What an adaptive capture measures and when it stops.
-
-    Parameters
-    ----------
-    start_hz, stop_hz
-        The band, Hz.
-    level_v
-        Source level, V.
-    bandwidth_hz
-        Widest measurement bandwidth, Hz (points use it where the noise allows).
-    min_bandwidth_hz
-        Narrowest bandwidth, Hz; beyond it readings are averaged.
-    pm_sigma_deg, gm_sigma_db
-        Asked σ of the phase margin and the gain margin.
-    max_points, max_time_s
-        Budgets: points measured, instrument time in s.
-    per_decade
-        Points per decade of the coarse pass.
-    max_repeats
-        Most readings at one point.
-    linearity
-        Run the linearity check around the crossover.
-    auto_level
-        Halve a level that changes the response and continue at a linear one.
-    quantity
-        What is measured (file header); ``loop`` for a loop gain.
-    """
-
-    start_hz: float
-    stop_hz: float
-    level_v: float = 0.01
-    bandwidth_hz: float = 1000.0
-    min_bandwidth_hz: float = 1.0
-    pm_sigma_deg: float = 0.5
-    gm_sigma_db: float = 0.5
-    max_points: int = 400
-    max_time_s: float = math.inf
-    per_decade: float = 4.0
-    max_repeats: int = 32
-    linearity: bool = True
-    auto_level: bool = False
-    quantity: str = "loop"
-
-    def validate(self) -> None:
-        """Raise :class:`InputError` naming the option that is out of range."""
-        def pos(v, opt, what="a positive value"):
-            if not (isinstance(v, (int, float)) and v > 0 and not math.isnan(v)):
-                raise InputError(f"{v!r}: expected {what}", source=opt)
-        pos(self.start_hz, "--start", "a positive frequency")
-        if not (math.isfinite(self.stop_hz) and self.stop_hz > self.start_hz):
-            raise InputError(f"{self.stop_hz} Hz: expected a frequency above --start", source="--stop")
-        pos(self.level_v, "--level")
-        pos(self.bandwidth_hz, "--bandwidth")
-        pos(self.min_bandwidth_hz, "--min-bandwidth")
-        if self.min_bandwidth_hz > self.bandwidth_hz:
-            raise InputError(f"{self.min_bandwidth_hz} Hz is above --bandwidth ({self.bandwidth_hz} Hz)",
-                             source="--min-bandwidth")
-        pos(self.pm_sigma_deg, "--pm-sigma", "a positive σ in degrees")
-        pos(self.gm_sigma_db, "--gm-sigma", "a positive σ in dB")
-        if int(self.max_points) < 5:
-            raise InputError(f"{self.max_points}: expected at least 5", source="--max-points")
-        pos(self.max_time_s, "--max-time", "a positive time in s")
-        pos(self.per_decade, "--coarse-per-decade")
-        if int(self.max_repeats) < 2:
-            raise InputError(f"{self.max_repeats}: expected at least 2", source="--max-repeats")
-        if self.quantity not in QUANTITIES:
-            raise InputError(f"{self.quantity!r}: expected one of {QUANTITIES}", source="--quantity")
-
-    def to_dict(self) -> dict[str, Any]:
-        return asdict(self)
-
-    @classmethod
-    def from_dict(cls, d: dict[str, Any]) -> AdaptiveSettings:
-        kw = {k: d[k] for k in cls.__dataclass_fields__ if k in d}
-        if kw.get("max_time_s") == "inf":
-            kw["max_time_s"] = math.inf
-        return cls(**kw)
-
-
-@dataclass(frozen=True)
-class AdaptiveResult:
-    """What an adaptive capture found and why it stopped.
-
-    ``points`` counts the points in the sweep file, ``points_measured`` every
-    point taken (linearity checks and points superseded by a level change
-    included), ``instrument_time_s`` the instrument time of all of them.
-    """
-
-    path: str
-    log_path: str
-    points: int
-    points_measured: int
-    readings: int
-    instrument_time_s: float
-    phase_margin_deg: float
-    phase_margin_sigma_deg: float
-    gain_margin_db: float
-    gain_margin_sigma_db: float
-    crossover_hz: float
-    phase_crossover_hz: float
-    stopped_because: str
-    rounds: int
-    level_v: float
-    settings: dict[str, Any]
-    history: tuple[dict[str, Any], ...] = ()
-    linearity: dict[str, Any] | None = None
-    warnings: tuple[str, ...] = ()
-    provenance: Provenance = field(default_factory=lambda: Provenance(step="adaptive_capture"))
-
-    @property
-    def known(self) -> bool:
-        """True when both margins reached the asked σ."""
-        return self.stopped_because == PRECISION
-
-    def to_dict(self) -> dict[str, Any]:
-        d = {k: getattr(self, k) for k in self.__dataclass_fields__}
-        d["history"] = [dict(h) for h in self.history]
-        d["warnings"] = list(self.warnings)
-        d["provenance"] = self.provenance.to_dict()
-        d["kind"] = "adaptive_capture_result"
-        return d
-
-    @classmethod
-    def from_dict(cls, d: dict[str, Any]) -> AdaptiveResult:
-        from benchfit.fileio import as_float
-
-        if not isinstance(d, dict) or d.get("kind") != "adaptive_capture_result":
-            raise InputError("expected an adaptive capture result")
-        kw = {k: d[k] for k in cls.__dataclass_fields__ if k in d}
-        for k in ("instrument_time_s", "phase_margin_deg", "phase_margin_sigma_deg", "gain_margin_db",
-                  "gain_margin_sigma_db", "crossover_hz", "phase_crossover_hz", "level_v"):
-            kw[k] = as_float(kw.get(k))
-        kw["history"] = tuple(dict(h) for h in kw.get("history", ()))
-        kw["warnings"] = tuple(kw.get("warnings", ()))
-        kw["provenance"] = Provenance.from_dict(d.get("provenance"))
-        return cls(**kw)
-
-    def to_json(self, path) -> None:
-        from benchfit.fileio import write_json_atomic
-
-        write_json_atomic(path, self.to_dict())
-
-    @classmethod
-    def from_json(cls, path) -> AdaptiveResult:
-        from benchfit.fileio import malformed_as_input_error, read_json
-
-        with malformed_as_input_error(path, "adaptive capture result"):
-            return cls.from_dict(read_json(path))
-
-    def summary(self) -> str:
-        def pm(v, s, unit, fmt):
-            return "n/a" if math.isnan(v) else f"{v:{fmt}} ± {s:.2g} {unit}"
-        return (f"{self.points} points ({self.points_measured} measured, {self.readings} readings) in "
-                f"{self.instrument_time_s:.4g} s of instrument time into {self.path}\n"
-                f"phase margin {pm(self.phase_margin_deg, self.phase_margin_sigma_deg, 'deg', '.2f')} "
-                f"at {self.crossover_hz:.5g} Hz\n"
-                f"gain margin  {pm(self.gain_margin_db, self.gain_margin_sigma_db, 'dB', '.2f')} "
-                f"at {self.phase_crossover_hz:.5g} Hz\n"
-                f"stopped: {self.stopped_because}"
-                + (f"\nlinearity: {self.linearity['message']}" if self.linearity else ""))
-
-
-def slow_pole_as_integrator(fit, f_min_hz: float) -> bool:
-    """True when the fit holds a real pole below the band, a candidate for an integrator.
-
-    Evidence weighed: the fit's real pole frequencies against the band.  Above
-    its frequency a real pole falls as 1/f with a phase heading for −90°, so
-    one below ``f_min_hz`` looks over the band much like an integrator, and
-    its frequency and the gain can hardly be told apart (their covariance is
-    near singular, draws cross into the right half-plane).  A loop gain with
-    an integrator measured in noise often ends so.  The caller refits with one
-    more integrator and keeps that fit only when its residual stays within the
-    noise and its parameters are identified.
-    """
-    for p in fit.parameters:
-        if p.name.startswith("pole") and p.name.endswith("_hz") and 0 < p.value < f_min_hz:
-            return True
-    return False
-
-
-#: Orders below the automatic choice tried by simpler_fit.
-SIMPLER_STEPS = 3
-
-
-def simpler_fit(resp, result, resid, identified, *, integrators: int = 0):
-    """The fit to decide the margins with: ``result``, or a lower order whose parameters
-    the data identify.
-
-    Evidence weighed: whether the fit's covariance yields a σ (``identified``:
-    a usable covariance whose draws the data do not contradict) and whether
-    the residual stays within the noise (:func:`fit_adequate`).  The automatic
-    order may keep a pole or pair that lowers the residual a little but that
-    the data cannot place (two real poles at one frequency, a pair far outside
-    the points); the margins do not need it, and its degenerate covariance
-    hides the σ of those that matter.  Orders 1..SIMPLER_STEPS below are tried,
-    highest first; the first that is identified and adequate wins, otherwise
-    ``result`` stays.
-    """
-    from benchfit.fitting import fit
-
-    order = int(result.stats.get("order") or 0) - int(result.integrators)
-    for k in range(1, SIMPLER_STEPS + 1):
-        if order - k < 1:
-            break
-        try:
-            cand = fit(resp, order=order - k, integrators=integrators)
-        except FitError:
-            continue
-        r = np.abs(resp.response - cand.response(resp.freq_hz)) / resp.stddev
-        if fit_adequate(cand, r) and identified(cand, resp):
-            return cand, r
-    return result, resid
-
-
-def identified(result, resp) -> bool:
-    """True when the fit's parameter draws give the margins a σ: a usable covariance
-    whose draws the data do not mostly contradict (see benchfit.planner.uncertainty)."""
-    if not covariance_usable(result):
-        return False
-    spread = margin_spread(result, resp.f_min_hz, resp.f_max_hz, rng=np.random.default_rng(1),
-                           data=resp, draws=100)
-    return "contradict" not in spread.reason and "covariance" not in spread.reason
-
-
-def fit_for_margins(resp, integrators: int | None = None):
-    """The fit the margins are judged on, and ``|residual| / σ`` per point.
-
-    :func:`benchfit.fitting.fit` (integrators ``auto`` unless given), then, when
-    its parameters are not :func:`identified`: one more integrator when
-    :func:`slow_pole_as_integrator` says so (kept only if adequate and
-    identified), else :func:`simpler_fit`.  ``resp`` must carry a stddev column.
-    """
-    from benchfit.fitting import fit
-
-    result = fit(resp, integrators=integrators if integrators is not None else "auto")
-    resid = np.abs(resp.response - result.response(resp.freq_hz)) / resp.stddev
-    if identified(result, resp):
-        return result, resid
-    if slow_pole_as_integrator(result, resp.f_min_hz):
-        again = fit(resp, integrators=result.integrators + 1)
-        r2 = np.abs(resp.response - again.response(resp.freq_hz)) / resp.stddev
-        if fit_adequate(again, r2) and identified(again, resp):
-            return again, r2
-    return simpler_fit(resp, result, resid, identified, integrators=result.integrators)
-
-
-#: The planner's fit starts this many decades below the lowest deciding frequency.
-FIT_DECADES_BELOW = 1.5
-
-
-def fit_band_start(decisive_hz, start_hz: float) -> float:
-    """Where the planner's fit begins: :data:`FIT_DECADES_BELOW` below the lowest
-    frequency that decides a margin, and not below the capture's start.
-
-    Evidence weighed: the deciding frequencies of the last fit.  Far below the
-    crossover a loop gain is large, so an injected measurement is noisy there
-    (the injection is suppressed by the loop), and poles the data barely see
-    make the covariance degenerate without moving a margin; the fit that
-    decides the margins needs only the stretch around them.  The file keeps
-    every point.
-    """
-    f = [d for d in decisive_hz if math.isfinite(d) and d > 0]
-    if not f:
-        return float(start_hz)
-    return max(float(start_hz), min(f) * 10 ** -FIT_DECADES_BELOW)
-
-
-def fit_adequate(fit, normalised_residual: np.ndarray) -> bool:
-    """True when the fit describes the data within the noise, so its covariance can be trusted.
-
-    Evidence weighed: the fit's reduced χ² (at most :data:`REDCHI_OK`) and
-    whether any point is missed by more than
-    :data:`~benchfit.planner.placement.RESIDUAL_SIGMAS` of its σ.  A model
-    that misses structure has a covariance that speaks only for the wrong
-    model; its margins' σ says nothing about the true loop's.
-    """
-    chi = fit.stats.get("reduced_chi2")
-    chi = float(chi) if chi is not None else math.inf
-    return bool(chi <= REDCHI_OK and not np.any(np.asarray(normalised_residual) > pl.RESIDUAL_SIGMAS))
-
-
-def gm_known(gm_db: float, gm_sigma_db: float, settings: AdaptiveSettings) -> bool:
-    """True when the gain margin is known well enough to stop.
-
-    Evidence weighed: the GM and its σ.  Known when its σ is within the asked
-    one, or when even its lower 2σ bound lies beyond
-    :data:`~benchfit.planner.placement.DECIDING_GM_DB` (a margin that large is
-    known as "more than 30 dB", which is all a designer needs of it), or when
-    the model has no phase crossing in the band and nothing hides one (σ 0).
-    """
-    if gm_sigma_db <= settings.gm_sigma_db:
-        return True
-    return math.isfinite(gm_sigma_db) and gm_db - 2.0 * gm_sigma_db > pl.DECIDING_GM_DB
-
-
-def stop_reason(pm_sigma_deg: float, gm_db: float, gm_sigma_db: float, adequate: bool,
-                settings: AdaptiveSettings, points: int, elapsed_s: float,
-                pending: int = 0) -> str | None:
-    """Why the capture should stop now, or None to go on.
-
-    Evidence weighed, first match wins: both margins known (the PM to the asked
-    σ, the GM as :func:`gm_known` says) from an adequate fit
-    (:func:`fit_adequate`), with no point still asked for by the crossing,
-    resonance, residual or buried-point rules (``pending``: a σ from a fit
-    that has not yet seen both sides of a crossing or the width of a resonance
-    speaks only for the model's shape) -> :data:`PRECISION`; the point
-    budget spent -> :data:`MAX_POINTS`; the time budget spent -> :data:`MAX_TIME`.
-    """
-    if (adequate and pending == 0 and pm_sigma_deg <= settings.pm_sigma_deg
-            and gm_known(gm_db, gm_sigma_db, settings)):
-        return PRECISION
-    if points >= settings.max_points:
-        return MAX_POINTS
-    if elapsed_s >= settings.max_time_s:
-        return MAX_TIME
-    return None
 
 
 class _Budget(Exception):
@@ -489,7 +174,6 @@ class AdaptiveCapture:
         sd = np.array([r.stddev for r in rows])
         if self.noise is None:
             return sd
-        f = np.array([r.freq_hz for r in rows])
         pred = np.array([self.noise.scatter(r.freq_hz, r.level_v, r.bandwidth_hz) / math.sqrt(r.repeats)
                          for r in rows])
         return np.where(np.isfinite(pred) & (pred > 0), pred, sd)
@@ -499,7 +183,8 @@ class AdaptiveCapture:
         if rows:
             self.noise = NoiseMap.from_points([r.freq_hz for r in rows],
                                               [r.scatter * abs(r.response) for r in rows],
-                                              [r.level_v for r in rows], [r.bandwidth_hz for r in rows])
+                                              [r.level_v for r in rows], [r.bandwidth_hz for r in rows],
+                                              [r.repeats for r in rows])
             self.times = TimeModel.from_points([r.freq_hz for r in rows], [r.time_s for r in rows],
                                                [r.repeats for r in rows], [r.bandwidth_hz for r in rows])
 
@@ -695,12 +380,12 @@ class AdaptiveCapture:
             plan = [choose_point_settings(f, self._sigma_for(f, decisive), self.level, self.noise,
                                           self.s.bandwidth_hz, self.s.min_bandwidth_hz,
                                           self.s.max_repeats) for f in cand]
-            sig = np.array([point_sigma(f, ps, self.level, self.noise) for f, ps in zip(cand, plan)])
+            sig = np.array([point_sigma(f, ps, self.level, self.noise) for f, ps in zip(cand, plan, strict=True)])
             sig = sig / np.abs(result.response(cand))          # relative, as the log draws are
             # a point the noise would bury tells the fit nothing: not a candidate
             sig = np.where(sig > BURIED_RELATIVE_SIGMA, np.inf, sig)
             cost = np.array([float(self.times.point_time(f, ps.bandwidth_hz, ps.repeats))
-                             for f, ps in zip(cand, plan)])
+                             for f, ps in zip(cand, plan, strict=True)])
             n_var = max(2, POINTS_PER_ROUND - len(asks))
             asks += [(f, "variance") for f in pl.variance_points(
                 cand, spread.log_draws[:, keep], [spread.pm_draws, spread.gm_draws],

@@ -45,8 +45,8 @@ COLUMNS = ("freq_hz", "re", "im", "stddev", "level_v", "bandwidth_hz", "repeats"
 OPTION_OF = {"start_hz": "--start", "stop_hz": "--stop", "level_v": "--level",
              "bandwidth_hz": "--bandwidth", "min_bandwidth_hz": "--min-bandwidth",
              "pm_sigma_deg": "--pm-sigma", "gm_sigma_db": "--gm-sigma", "max_points": "--max-points",
-             "max_time_s": "--max-time", "per_decade": "--coarse-per-decade",
-             "max_repeats": "--max-repeats", "linearity": "--no-linearity-check",
+             "max_time_s": "--max-time", "per_decade": "AdaptiveSettings.per_decade",
+             "max_repeats": "AdaptiveSettings.max_repeats", "linearity": "--no-linearity-check",
              "auto_level": "--auto-level", "quantity": "--quantity"}
 
 
