@@ -157,15 +157,17 @@ def calibration(names, n: int) -> None:
         for name in names:
             build, band = SCENARIOS[name]
             pm_t, _ = true_margins(build(), band)
-            inside, known = 0, 0
+            inside, finite, known = 0, 0, 0
             for seed in range(n):
                 folder = Path(tmp) / f"{name}-{seed}"
                 folder.mkdir()
                 a = adaptive(name, 100 + seed, folder)
                 known += a.known
-                inside += abs(a.phase_margin_deg - pm_t) <= 2 * a.phase_margin_sigma_deg
-            print(f"  {name:<10} {inside}/{n} = {100 * inside / n:.0f} % inside "
-                  f"({known} of {n} stopped by precision)")
+                if math.isfinite(a.phase_margin_sigma_deg):     # an unknown σ covers nothing
+                    finite += 1
+                    inside += abs(a.phase_margin_deg - pm_t) <= 2 * a.phase_margin_sigma_deg
+            print(f"  {name:<10} {inside}/{finite} = {100 * inside / max(finite, 1):.0f} % inside, of the "
+                  f"{finite} captures with a finite PM σ ({known} of {n} stopped by precision)")
 
 
 def main() -> None:

@@ -18,12 +18,19 @@ A limits file (every table and key optional)::
     f_esr_hz = [15e3, 80e3]
     k = { min = 0.5 }
 
+The phase-margin minimum is judged at every gain crossing and the gain-margin
+minimum at every phase crossing a row lists (its ``crossings`` cell), with the
+pass rules the design uses (:mod:`benchfit.loop.passrules`); the reason names
+the crossing that fails.  A row without that cell (an older table) is judged
+on its main-crossover figures only.
+
 Unknown tables or keys raise :class:`~benchfit.errors.InputError` naming the key
 (and its line), so a misspelt limit never passes silently.
 """
 
 from __future__ import annotations
 
+import json
 import math
 import os
 import re
@@ -33,6 +40,7 @@ from typing import Any
 
 from benchfit.errors import InputError
 from benchfit.fileio import read_text
+from benchfit.loop.passrules import meets_gain_margin, meets_phase_margin
 from benchfit.provenance import Provenance
 
 #: margins-table key -> (row column, sense, plain name for the reason text)
@@ -248,14 +256,64 @@ def _as_float(v: Any) -> float | None:
         return None
 
 
+def _crossings_of(row: dict[str, Any]) -> list[tuple[str, float, float, bool]]:
+    """The (kind, freq_hz, margin, main) crossings of a row's ``crossings`` cell ([] if none)."""
+    cell = row.get("crossings")
+    if cell in (None, ""):
+        return []
+    items = json.loads(cell) if isinstance(cell, str) else cell
+    out = []
+    for kind, f, v, main in items:
+        v = math.nan if v is None else float(v)  # JSON null is NaN, "inf"/"-inf" are infinities
+        out.append((str(kind), float(f), v, bool(main)))
+    return out
+
+
+def crossing_reasons(row: dict[str, Any], limits: Limits) -> list[str]:
+    """Why the crossings other than the main pair miss the margin minimums (one reason each).
+
+    Evidence weighed: every gain crossing of the row except the main
+    crossover (judged by :func:`judge` on ``phase_margin_deg``) against the
+    phase-margin minimum with :func:`~benchfit.loop.passrules.meets_phase_margin`,
+    and every phase crossing except the one giving ``gain_margin_db`` (at
+    ``phase_crossover_hz``) against the gain-margin minimum with
+    :func:`~benchfit.loop.passrules.meets_gain_margin`: the rules the design
+    and its yield use, so a second crossing at a resonance fails a unit
+    exactly as it fails a design.  Each reason names the crossing's frequency
+    and its place among the crossings of its kind (1 = lowest frequency).
+    """
+    found = _crossings_of(row)
+    reasons: list[str] = []
+    checks = (("gain", limits.min_phase_margin_deg, meets_phase_margin, "phase margin", "deg",
+               "gain crossing"),
+              ("phase", limits.min_gain_margin_db, meets_gain_margin, "gain margin", "dB",
+               "phase crossing"))
+    main_phase = _as_float(row.get("phase_crossover_hz"))
+    main_gm = _as_float(row.get("gain_margin_db"))
+    for kind, lim, rule, name, unit, what in checks:
+        if lim is None:
+            continue
+        mine = sorted((c for c in found if c[0] == kind), key=lambda c: c[1])
+        for i, (_, f, v, main) in enumerate(mine, start=1):
+            if kind == "gain" and main:
+                continue            # the main crossover: judged on phase_margin_deg
+            if kind == "phase" and main_phase is not None and main_gm is not None and \
+                    math.isclose(f, main_phase, rel_tol=1e-12) and math.isclose(v, main_gm, rel_tol=1e-12):
+                continue            # the phase crossing behind gain_margin_db: judged on it
+            if not bool(rule(v, lim)):
+                reasons.append(f"{name} {v:.4g} {unit} < {lim:.4g} at the {what} at {f:.4g} Hz "
+                               f"({i} of {len(mine)})")
+    return reasons
+
+
 def judge(row: dict[str, Any], limits: Limits) -> tuple[str, list[str]]:
     """Judge one result row against ``limits``.
 
     Parameters
     ----------
     row
-        A result row (see :mod:`benchfit.batch.table`): margin figures, fit
-        figures and ``param:<name>`` values.  A missing figure that a limit
+        A result row (see :mod:`benchfit.batch.table`): margin figures, every
+        crossing (:func:`crossing_reasons`), fit figures and ``param:<name>`` values.  A missing figure that a limit
         needs fails that limit ("not available").
     limits
         What to check.
@@ -278,6 +336,7 @@ def judge(row: dict[str, Any], limits: Limits) -> tuple[str, list[str]]:
             reasons.append(f"{name} not available")
         elif v < lim:
             reasons.append(f"{name} {v:.4g} {unit} < {lim:.4g}".replace("  ", " "))
+    reasons += crossing_reasons(row, limits)
     if limits.crossover_hz is not None:
         why = limits.crossover_hz.check(_as_float(row.get("crossover_hz")))
         if why:

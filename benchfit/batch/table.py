@@ -40,6 +40,7 @@ BASE_COLUMNS: tuple[tuple[str, type], ...] = (
     ("modulus_margin", float),
     ("modulus_freq_hz", float),
     ("gain_crossings", int),      # times |T| crosses 1 (more than one: conditionally stable)
+    ("crossings", str),           # every crossing, JSON [[kind, freq_hz, margin, main], ...]
     ("closed_loop_stable", bool),
     ("fit_order", int),
     ("fit_delay_s", float),

@@ -178,6 +178,10 @@ def _margin_cells(m) -> dict[str, Any]:
         "modulus_margin": num(m.modulus_margin),
         "modulus_freq_hz": num(m.modulus_freq_hz),
         "gain_crossings": sum(1 for c in (m.crossings or ()) if c.get("kind") == "gain"),
+        # every crossing, so the limits judge each one (benchfit.batch.limits.crossing_reasons)
+        "crossings": to_json_text([[c["kind"], float(c["freq_hz"]), float(c["value"]),
+                                    bool(c.get("main", False))] for c in (m.crossings or ())],
+                                  indent=None),
         "closed_loop_stable": None if m.closed_loop_stable is None else bool(m.closed_loop_stable),
     }
 

@@ -129,6 +129,18 @@ def fit(
         raise InputError(f"expected a FrequencyResponse, got {type(resp).__name__}")
     _check_options(order, delay, weighting, integrators)
     check_fit_span(resp)
+    try:
+        return _fit_stages(resp, order, delay, band, fix, weighting, integrators, bounds, stable)
+    except FitError as e:
+        # every fit error names the sweep it is about (the stages know only the numbers)
+        src = ", ".join(resp.provenance.sources)
+        if src and not str(e).startswith(src):
+            raise FitError(f"{src}: {e}") from None
+        raise
+
+
+def _fit_stages(resp, order, delay, band, fix, weighting, integrators, bounds, stable) -> FitResult:
+    """The stages of :func:`fit` after its checks (see there)."""
     pb = prepare(resp, order, delay, band, fix, weighting, integrators, bounds, stable)
     result = _fit_with(pb, pb.ctx)
     if pb.stable:
