@@ -64,3 +64,20 @@ def test_stage_mistakes_are_one_line_errors(tmp_path):
     r = run_cli("design", str(tmp_path / "aol.csv"), "--stage", "noninverting", "--closed-loop-gain",
                 "2", "--network", "type3")
     assert r.returncode == 2 and "type3" in r.stderr
+
+
+def test_inverting_lag_place_agrees_in_text_and_json(tmp_path):
+    # In an inverting stage V+ is at ground, so the lag Rn–Cn is built from V- to ground (the
+    # nodal reference in test_stage_networks.py puts it there); text and JSON must both say so.
+    tf, model = true_plant(10e6, 20.0, 22e-6, 0.005)
+    f = np.logspace(1, 8, 281)
+    write_sweep_csv(FrequencyResponse(f, model.response(f), quantity="plant"), tmp_path / "aol.csv")
+    args = ("design", str(tmp_path / "aol.csv"), "--stage", "inverting", "--closed-loop-gain", "-2",
+            "--network", "lag-lead", "--phase-margin", "60", "--draws", "0")
+    for extra in ((), ("--lag-at", "across"), ("--lag-at", "ground")):
+        rj = run_cli(*args, *extra, "--json")
+        rt = run_cli(*args, *extra)
+        assert rj.returncode == 0 and rt.returncode == 0, rj.stderr + rt.stderr
+        d = json.loads(rj.stdout)
+        assert d["lag_at"] == "ground", extra
+        assert "lag to ground" in rt.stdout and "lag across" not in rt.stdout, rt.stdout

@@ -32,7 +32,10 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message: str):  # noqa: D401
         m = _BAD_VALUE.fullmatch(message)
-        where = f"{m.group(1)}: {m.group(2)}" if m else f"{self.prog}: {message}"
+        # the line already starts "benchfit: error:"; a sub-command's parser adds its name
+        command = self.prog.removeprefix("benchfit").strip()
+        where = (f"{m.group(1)}: {m.group(2)}" if m
+                 else f"{command}: {message}" if command else message)
         self.exit(2, "benchfit: error: " + " ".join(where.split("\n")) + "\n")
 
 

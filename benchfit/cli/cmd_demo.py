@@ -121,7 +121,7 @@ def register(subparsers) -> None:
                     "step and output impedance, read the present board's step, and write the design "
                     "and an HTML report into the output folder.")
     p.add_argument("--data", type=text, metavar="DIR", help="sample-data folder (default: sample_data/ of the repo)")
-    p.add_argument("--out", type=text, default="benchfit-out", metavar="DIR",
+    p.add_argument("-o", "--out", type=text, default="benchfit-out", metavar="DIR",
                    help="output folder (default ./benchfit-out/)")
     p.add_argument("--pdf", action="store_true", help="also write the report as PDF")
     p.add_argument("--read-only", action="store_true", help="only read and list the sample files")

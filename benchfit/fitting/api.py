@@ -129,6 +129,18 @@ def fit(
         raise InputError(f"expected a FrequencyResponse, got {type(resp).__name__}")
     _check_options(order, delay, weighting, integrators)
     check_fit_span(resp)
+    try:
+        return _fit_stages(resp, order, delay, band, fix, weighting, integrators, bounds, stable)
+    except FitError as e:
+        # every fit error names the sweep it is about (the stages know only the numbers)
+        src = ", ".join(resp.provenance.sources)
+        if src and not str(e).startswith(src):
+            raise FitError(f"{src}: {e}") from None
+        raise
+
+
+def _fit_stages(resp, order, delay, band, fix, weighting, integrators, bounds, stable) -> FitResult:
+    """The stages of :func:`fit` after its checks (see there)."""
     pb = prepare(resp, order, delay, band, fix, weighting, integrators, bounds, stable)
     result = _fit_with(pb, pb.ctx)
     if pb.stable:
@@ -165,8 +177,11 @@ def _stability_verdict(pb: Problem, unstable: FitResult) -> FitResult:
                f"(residual {stable.stats['residual_over_floor']:.2f}× the noise floor)" if demanded
                else f"the data do not clearly demand them: the best stable fit's BIC is only "
                f"{margin:.1f} higher; --stable holds the poles in the left half-plane")
-    return replace(unstable, warnings=(*unstable.warnings, f"the model has {n_rhp} right-half-"
-                                       f"plane pole(s) (unstable); {verdict}"))
+    # the verdict as figures too, for callers that act on it (benchfit.loop.openloop)
+    stats = {**unstable.stats, "rhp_poles": n_rhp, "rhp_demanded": demanded,
+             "rhp_bic_margin": float(margin)}
+    return replace(unstable, stats=stats, warnings=(*unstable.warnings, f"the model has {n_rhp} "
+                                                    f"right-half-plane pole(s) (unstable); {verdict}"))
 
 
 def _fit_with(pb: Problem, ctx: Context) -> FitResult:

@@ -202,7 +202,13 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
     if asym is not None and db[0] < 0 and asym.slope_n - 3 * asym.slope_sigma > 0.1:
         warnings.append(f"the loop gain is below 0 dB at the bottom of the band ({f[0]:.4g} Hz) "
                         "and rising towards lower frequencies: a crossing may lie below the band")
-    if verdict == UNDECIDED:
+    if v.inconsistent is not None and bool(v.inconsistent[0]):
+        warnings.append(f"closed-loop stability is UNDECIDED: the encirclement count gives a "
+                        f"negative number of closed-loop right-half-plane poles ({Z} with P = "
+                        f"{unstable}, N = {N}, {n_int} integrator(s)), which no loop has: the data "
+                        "are inconsistent (noise where |T| is large, a wrong integrator count, or "
+                        "open-loop right-half-plane poles not declared with --unstable-poles)")
+    elif verdict == UNDECIDED:
         warnings.append(f"closed-loop stability is UNDECIDED: {evidence}, and these counts give "
                         "different encirclement verdicts; extend the sweep downwards or state "
                         "the integrator count")

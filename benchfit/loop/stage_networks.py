@@ -102,7 +102,9 @@ class StageNetwork:
     lag_at
         Where the lag R–C sits: 'across' the inputs (non-inverting default: the
         ideal signal gain is untouched) or 'ground' (V- to ground: the signal
-        gain rises to the noise gain at high frequency).
+        gain rises to the noise gain at high frequency).  In an inverting stage
+        V+ is at ground, so both places are the same node and the network
+        records 'ground', the place it builds.
     """
 
     kind: str
@@ -137,6 +139,8 @@ class StageNetwork:
         object.__setattr__(self, "kind", kind)
         object.__setattr__(self, "stage", stage)
         object.__setattr__(self, "parts", clean)
+        if stage == "inverting":  # V+ is grounded: 'across the inputs' is V- to ground
+            object.__setattr__(self, "lag_at", "ground")
 
     # ----- the circuit ---------------------------------------------------------------
     def _branches(self, alg: Algebra, v: dict[str, Any]) -> list[tuple[str, str, tuple]]:

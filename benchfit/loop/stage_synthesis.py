@@ -285,7 +285,8 @@ def lag_cost_note(net: StageNetwork) -> str:
                 f"to {h:.4g}; the source must drive Rn–Cn")
     return (f"lag to ground: the noise gain rises to {h:.4g} above the Rn–Cn corner"
             + (f" and so does the signal gain (from {net.ideal_gain():.4g})"
-               if net.stage == "noninverting" else "; the inverting signal gain −Rf/Rg is kept"))
+               if net.stage == "noninverting" else "; the inverting signal gain −Rf/Rg is kept (V+ is at "
+               "ground, so across the inputs is the same place)"))
 
 
 def synthesize_stage(kind: str, lp: LoopPlant, targets: Targets, *, gain: float,

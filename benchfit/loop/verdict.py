@@ -33,6 +33,7 @@ class Verdicts:
     low_deviation: np.ndarray     # deg: the low end's distance from its asymptote
     high_deviation: np.ndarray    # deg: the high end's distance from its asymptote
     asymptotes: AsymptoteRows | None  # None when the count was given (``.row(i)``)
+    inconsistent: np.ndarray | None = None  # bool: some plausible count gives Z < 0
 
     @property
     def stable(self) -> np.ndarray:
@@ -47,14 +48,31 @@ def agreed_verdict(z_by_count: np.ndarray, plausible: np.ndarray) -> np.ndarray:
     right-half-plane poles the Nyquist count gives with n integrators, and
     ``plausible[row, n]`` whether the low end of that row allows n.  A row is
     "stable" when every plausible n gives Z = 0, "unstable" when every
-    plausible n gives Z ≠ 0, and "undecided" otherwise (or when no n is
-    plausible).
+    plausible n gives Z > 0, and "undecided" otherwise (or when no n is
+    plausible).  A plausible n with Z < 0 is impossible (a loop cannot have
+    fewer than zero closed-loop RHP poles): the data contradict that count's
+    assumptions, so such a row is "undecided" whatever the other counts say.
     """
-    z0 = np.asarray(z_by_count) == 0
+    z = np.asarray(z_by_count)
     pl = np.asarray(plausible, dtype=bool)
-    all_stable = np.all(z0 | ~pl, axis=1) & pl.any(axis=1)
-    all_unstable = np.all(~z0 | ~pl, axis=1) & pl.any(axis=1)
-    return np.where(all_stable, STABLE, np.where(all_unstable, UNSTABLE, UNDECIDED))
+    some = pl.any(axis=1)
+    negative = np.any((z < 0) & pl, axis=1)
+    all_stable = np.all((z == 0) | ~pl, axis=1) & some
+    all_unstable = np.all((z > 0) | ~pl, axis=1) & some
+    out = np.where(all_stable, STABLE, np.where(all_unstable, UNSTABLE, UNDECIDED))
+    return np.where(negative, UNDECIDED, out)
+
+
+def negative_count(z_by_count: np.ndarray, plausible: np.ndarray) -> np.ndarray:
+    """Rows where some plausible integrator count gives a negative closed-loop RHP pole count.
+
+    Evidence weighed: the same ``z_by_count`` and ``plausible`` as
+    :func:`agreed_verdict`; Z = P − N < 0 means the measured encirclements
+    contradict the declared open-loop RHP poles P and that integrator count
+    (noise, a wrong integrator count, or unstable open-loop poles not
+    declared).
+    """
+    return np.any((np.asarray(z_by_count) < 0) & np.asarray(plausible, dtype=bool), axis=1)
 
 
 def nyquist_verdict(freq_hz, T, unstable: int, integrators=None, *, cand=None,
@@ -114,7 +132,8 @@ def nyquist_verdict(freq_hz, T, unstable: int, integrators=None, *, cand=None,
         dev0[sel[mine]], devinf[sel[mine]] = d0[mine], dinf[mine]
     return Verdicts(integrators=n, encirclements=N, rhp=Z,
                     verdict=agreed_verdict(z_by, plausible), low_deviation=dev0,
-                    high_deviation=devinf, asymptotes=asym)
+                    high_deviation=devinf, asymptotes=asym,
+                    inconsistent=negative_count(z_by, plausible))
 
 
 def _rows_of(cand: tuple[np.ndarray, np.ndarray], sel: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
