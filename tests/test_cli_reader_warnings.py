@@ -1,6 +1,7 @@
 """Commands that read a sweep or trace and go on to fit or judge it repeat the reader's
 warnings on stderr (inspect shows them; fit, margins, step and loopgain must not hide them)."""
 
+import json
 from pathlib import Path
 
 from benchfit.cli import main
@@ -32,3 +33,20 @@ def test_without_the_option_the_row_is_an_error_naming_its_line(tmp_path, capsys
     assert main(["fit", str(p)]) == 2
     err = capsys.readouterr().err
     assert str(p) in err and f"line {line}" in err and "Traceback" not in err, err
+
+
+def test_design_from_a_sweep_repeats_what_reading_and_fitting_said(tmp_path, capsys):
+    """A design made straight from a sweep file says what the reader warned of (here: the
+    file holds two traces and only the first, 99 of 401 points, was taken)."""
+    lines = (SAMPLES / "buck_plant.csv").read_text(encoding="utf-8").splitlines()
+    first = next(i for i, ln in enumerate(lines) if ln[:1].isdigit())
+    lines.insert(first + 99, lines[first - 1])   # the header again, inside the data
+    p = tmp_path / "dup_header.csv"
+    p.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    assert main(["design", str(p), "--network", "type2", "--crossover", "30", "--phase-margin", "45",
+                 "--divider", "10k:3.24k", "--draws", "0", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert any("dup_header.csv: file holds 2 traces" in w for w in out["warnings"]), out["warnings"]
+    assert main(["design", str(p), "--network", "type2", "--crossover", "30", "--phase-margin", "45",
+                 "--divider", "10k:3.24k", "--draws", "0"]) == 0
+    assert "benchfit: warning: dup_header.csv: file holds 2 traces" in capsys.readouterr().err

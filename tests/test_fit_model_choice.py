@@ -108,6 +108,7 @@ def test_order_fix_and_delay_options_are_honoured():
     # Three poles asked for on two-pole data: three given, and a note says fewer would do.
     three = fit(r, order=3, delay="none")
     assert three.stats["order"] == 3
+    assert any("may accept 1 pole(s) fewer" in n for n in three.notes)
     # A name the asked order cannot hold is an error naming the option.
     from benchfit.errors import InputError
     with pytest.raises(InputError, match="pole3_hz") as e:
@@ -251,3 +252,31 @@ def test_a_negative_delay_does_not_wreck_a_fixed_order_fit():
     auto, none = fit(r, order=5), fit(r, order=5, delay="none")
     assert auto.stats["order"] == 5 and auto.model.delay_s >= 0
     assert auto.stats["reduced_chi2"] <= 1.05 * none.stats["reduced_chi2"]
+
+
+def test_fewer_poles_note_counts_the_poles_above_the_band_the_data_cannot_locate():
+    # The rule reads the final refinement's standard errors only (no extra fit): a pole
+    # group above the band with σ above its value counts (a pair as two poles); one in the
+    # band, or one above it that the data locate, does not; none when the user holds a pole.
+    from types import SimpleNamespace
+
+    from benchfit.fitting.parameters import Structure
+    from benchfit.fitting.pruning import fewer_poles_note
+    from benchfit.fitting.refine import Refined
+
+    st = Structure(real_poles=3, pole_pairs=1)
+    names = st.names  # gain, pole1..3_hz, pair1_f0_hz, pair1_q
+    values = dict(gain=1.0, pole1_hz=1e3, pole2_hz=5e5, pole3_hz=2e6, pair1_f0_hz=3e6, pair1_q=0.7)
+    stderr = dict(gain=1e-3, pole1_hz=1.0, pole2_hz=1e4, pole3_hz=5e6, pair1_f0_hz=1e5,
+                  pair1_q=2.0)
+    ref = Refined(values=np.array([values[n] for n in names]),
+                  stderr=np.array([stderr[n] for n in names]), varied=names,
+                  covariance=np.eye(len(names)), evaluations=1, success=True, chisqr=1.0,
+                  redchi=1.0, message="")
+    pb = SimpleNamespace(f=np.geomspace(10.0, 1e5, 11), order=5, held=lambda *kinds: False)
+    note = fewer_poles_note(pb, st, ref)
+    assert note is not None and "3 pole(s) fewer" in note and "--order 5" in note
+    held = SimpleNamespace(f=pb.f, order=5, held=lambda *kinds: True)
+    assert fewer_poles_note(held, st, ref) is None
+    sure = Refined(**{**ref.__dict__, "stderr": ref.stderr * 1e-3})
+    assert fewer_poles_note(pb, st, sure) is None

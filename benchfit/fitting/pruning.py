@@ -285,7 +285,7 @@ def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: b
     ``ref`` may come from the thinned copy or from every point: the lmfit
     refinement starts from its values either way (from an optimum on every
     point it takes a few evaluations).  ``refined``: ``ref`` is lmfit's on every
-    point already.  With ``--order N`` a note says when the data would accept
+    point already.  With ``--order N`` a note says when the data may accept
     fewer poles (:func:`fewer_poles_note`).
     """
     refit, quick = pb.refiner(), pb.refiner(quick=True)
@@ -311,7 +311,7 @@ def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: b
             held, gone = pb.refiner(causal=True)(st, ref.values), refit(st0, ref.values[keep])
             if bic(gone, n_res) <= bic(held, n_res):
                 return _checked_final(pb, st0, gone, [*notes, "a negative delay was fitted; "
-                                                      "refined without delay"], quick, n_res)
+                                                      "refined without delay"])
             ref = held
         tv, te = ref.values[i], ref.stderr[i]
         if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
@@ -325,26 +325,31 @@ def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: b
             if drop_allowed(ref, ref2, 1, n_res):
                 st, ref = st2, ref2
                 notes = [*notes, "delay estimate not significant; fitted without delay"]
-    return _checked_final(pb, st, ref, notes, quick, n_res)
+    return _checked_final(pb, st, ref, notes)
 
 
-def _checked_final(pb: Problem, st: Structure, ref: Refined, notes: list[str], quick, n_res: int
+def _checked_final(pb: Problem, st: Structure, ref: Refined, notes: list[str]
                    ) -> tuple[Structure, Refined, list[str]]:
     """The notes every final model gets: fewer poles would do (``--order N``), loosely
     located groups above the band."""
+    vague: set[str] = set()
     if pb.order != "auto":
-        note = fewer_poles_note(pb, st, ref, quick, n_res)
+        note = fewer_poles_note(pb, st, ref)
         if note:
             notes = [*notes, note]
-    return st, ref, [*notes, *loose_notes(st, ref, pb.f[-1])]
+            vague = set(unidentified(st, ref))  # named by that note; no drop test ran on them
+    return st, ref, [*notes, *loose_notes(st, ref, pb.f[-1], skip=vague)]
 
 
-def loose_notes(st: Structure, ref: Refined, f_max: float) -> list[str]:
+def loose_notes(st: Structure, ref: Refined, f_max: float, skip=()) -> list[str]:
     """Notes for the pole and zero groups above the band that the data locate only loosely
     (σ above :data:`~benchfit.fitting.assemble.LOOSE` of the frequency) but that survived pruning: the data
-    need them, so they stay with their large σ; ``--fix`` or ``--bound`` can pin them."""
+    need them, so they stay with their large σ; ``--fix`` or ``--bound`` can pin them.
+    Groups in ``skip`` (named by :func:`fewer_poles_note`) get no such note."""
     out = []
     for g, fr in groups_above(st, ref.values, f_max):
+        if g in skip:
+            continue
         key = f"{g}_f0_hz" if g.startswith(("pair", "zero_pair")) else f"{g}_hz"
         sd = ref.stderr[st.names.index(key)]
         if np.isfinite(sd) and sd > LOOSE * fr:
@@ -354,15 +359,24 @@ def loose_notes(st: Structure, ref: Refined, f_max: float) -> list[str]:
     return out
 
 
-def fewer_poles_note(pb: Problem, st: Structure, ref: Refined, quick, n_res: int) -> str | None:
-    """With ``--order N``: a note when the pole groups above the band could go by the
-    drop test (the model is kept with N poles, as asked)."""
-    kinds = {"poles": not pb.held("pole", "pair"), "zeros": not pb.held("zero")}
-    if not kinds["poles"]:
+def fewer_poles_note(pb: Problem, st: Structure, ref: Refined) -> str | None:
+    """With ``--order N``: a note when pole groups above the band look removable (the model
+    is kept with N poles, as asked).
+
+    Evidence weighed: the final refinement's own standard errors, no further
+    fit: a pole or pole pair above the band whose frequency (or Q) the data
+    cannot locate, σ above the value or not determined at all
+    (:func:`benchfit.fitting.groups.unidentified`).  Such a group is one
+    ``--order auto`` would try to drop (its drop test decides there); the
+    note is a hint, priced at nothing, not a verdict.
+    """
+    if pb.held("pole", "pair"):
         return None
-    st2, _, _ = prune_above(st, ref, quick, pb.f[-1], n_res, **kinds)
-    fewer = st.order - st2.order
+    vague = set(unidentified(st, ref))
+    fewer = sum(2 if g.startswith("pair") else 1
+                for g, _ in groups_above(st, ref.values, pb.f[-1], zeros=False) if g in vague)
     if fewer <= 0:
         return None
-    return (f"the data would accept {fewer} pole(s) fewer (order {st.order - st.integrators - fewer}"
-            f" by the drop test); kept at --order {pb.order} as asked")
+    return (f"the data may accept {fewer} pole(s) fewer: pole(s) above the band that they "
+            f"cannot locate (σ above the value); kept at --order {pb.order} as asked "
+            "(--order auto tests the drop)")

@@ -155,6 +155,7 @@ def design(corners: LoopPlant | Sequence[LoopPlant], kind: str, targets: Targets
     # below quote the dense margins the tables show instead
     warnings = [n for n in syn.notes if "meeting the targets with parts in the practical" not in n
                 and not n.startswith("targets not met at")]
+    warnings = [w for lp in corners for w in lp.warnings] + warnings  # what reading/fitting said
     warnings += sign_warnings(corners)
     warnings += snapped_net.practical_warnings("snapped")
     warnings += opamp_warnings(syn.network, opamp, syn.crossover_hz)
@@ -223,7 +224,8 @@ def check_parts(corners: LoopPlant | Sequence[LoopPlant], network: Network, *,
     pred = predict(corners, network, opamp)
     names = [lp.name for lp in corners]
     m = pred.worst_margins()
-    warnings = sign_warnings(corners) + network.practical_warnings("given")
+    warnings = [w for lp in corners for w in lp.warnings] + sign_warnings(corners)
+    warnings += network.practical_warnings("given")
     warnings += opamp_warnings(network, opamp, m.crossover_hz)
     warnings += target_warnings(pred, targets, names, "given", crossings)
     warnings += [f"{names[pred.worst]}: {w}" for w in m.warnings]

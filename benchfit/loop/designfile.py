@@ -172,21 +172,24 @@ def load_plant(path: str | os.PathLike, sensing: Sensing | None = None,
                                  "result or a frequency response")
     else:
         obj = read_sweep(path, trace=trace)
+    said = [f"{name}: {w}" for w in (getattr(obj, "meta", None) or {}).get("warnings", [])]
     if existing is not None:
         if isinstance(obj, FitResult):
             obj = obj.model
         if isinstance(obj, PlantModel):
             rest = obj.cascade(_inverse(existing.model(existing_opamp)), step="remove_compensator")
-            return LoopPlant(rest, Sensing.plain(), name=name)
+            return LoopPlant(rest, Sensing.plain(), name=name, warnings=tuple(said))
         return LoopPlant(plant_from_measured_loop(obj, existing, existing_opamp), Sensing.plain(),
-                         name=name)
+                         name=name, warnings=tuple(said))
     if isinstance(obj, FrequencyResponse):
         obj = fit(obj, **(fit_options or {}))
+        said += [f"{name} fit: {w}" for w in obj.warnings]
     if isinstance(obj, FitResult):
         lo, hi = obj.stats.get("f_min_hz"), obj.stats.get("f_max_hz")
         band = (float(lo), float(hi)) if lo and hi and np.isfinite([lo, hi]).all() else None
-        return LoopPlant(obj.model, sensing, name=name, band_hz=band, draws=obj.draw_responses)
-    return LoopPlant(obj, sensing, name=name)
+        return LoopPlant(obj.model, sensing, name=name, band_hz=band, draws=obj.draw_responses,
+                         warnings=tuple(said))
+    return LoopPlant(obj, sensing, name=name, warnings=tuple(said))
 
 
 # ----- TOML -------------------------------------------------------------------------------

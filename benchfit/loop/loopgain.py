@@ -74,6 +74,9 @@ class LoopPlant:
     draws
         Optional ``draw_responses(freq_hz, n, rng)`` of the plant's fit, for
         the Monte Carlo over fitted-parameter uncertainty.
+    warnings
+        What reading and fitting the plant's file warned of (skipped rows, a file holding
+        several traces, a fit above the noise floor...); a design repeats them.
     """
 
     plant: PlantModel | FrequencyResponse
@@ -81,6 +84,7 @@ class LoopPlant:
     name: str = "plant"
     band_hz: tuple[float, float] | None = None
     draws: Callable[..., np.ndarray] | None = None
+    warnings: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         if not isinstance(self.plant, (PlantModel, FrequencyResponse)):
