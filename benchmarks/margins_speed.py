@@ -90,7 +90,27 @@ def bench_delay_step() -> None:
               f"max error vs exact series {err:.2e}")
 
 
+def bench_openloop_screen(repeats: int = 20) -> None:
+    """The open-loop RHP screen ``margins LOOP.csv`` adds for a stable sweep (no fit runs)."""
+    from benchfit.data import FrequencyResponse
+    from benchfit.loop.openloop import check_open_loop
+
+    f = np.logspace(1, 5, 401)
+    resp = FrequencyResponse(freq_hz=f, response=resonant_loop().response(f), quantity="loop")
+    t0 = time.perf_counter()
+    for _ in range(repeats):
+        m = margins_from_data(f, resp.response)
+    t_ref = (time.perf_counter() - t0) / repeats
+    t0 = time.perf_counter()
+    for _ in range(repeats):
+        check_open_loop(resp, m)
+    t_scr = (time.perf_counter() - t0) / repeats
+    print(f"open-loop screen   401 points: margins_from_data {t_ref * 1e3:6.1f} ms, screen "
+          f"{t_scr * 1e3:6.1f} ms, ratio {t_scr / t_ref:.2f} (margins_batch does not run it)")
+
+
 if __name__ == "__main__":
+    bench_openloop_screen()
     bench_batch()
     bench_models()
     bench_delay_step()

@@ -234,3 +234,63 @@ def test_bounded_parameter_takes_the_start_inside_its_bounds():
     assert res.parameter("pole1_hz").value == pytest.approx(1e3, rel=1e-6)
     assert res.parameter("pole2_hz").value == pytest.approx(350e3, rel=1e-6)
     assert res.model.is_stable
+
+
+# ----- a parameter on its bound -----------------------------------------------------------
+def test_on_bound_is_a_tiny_relative_distance_to_either_bound():
+    from benchfit.fitting.uncertainty import AT_BOUND_REL, on_bound
+    inf = np.inf
+    v = np.array([250.0, 250.0 * (1 - 0.1 * AT_BOUND_REL), 250.0 * (1 - 100 * AT_BOUND_REL),
+                  0.0, 1e-12, 5.0])
+    lo = np.array([-inf, -inf, -inf, 0.0, 0.0, -inf])
+    hi = np.array([250.0, 250.0, 250.0, inf, inf, inf])
+    assert on_bound(v, lo, hi).tolist() == [True, True, False, True, False, False]
+
+
+def test_held_covariance_is_the_inverse_normal_matrix_without_the_held_column():
+    # Reference: (JᵀJ)⁻¹·χ²_red of the free columns only (Numerical Recipes, 3rd ed.,
+    # sec. 15.4), formed directly with numpy: holding a parameter removes its column.
+    from benchfit.fitting.uncertainty import held_covariance
+    rng = np.random.default_rng(4)
+    jac = rng.normal(size=(150, 4)) * np.array([1.0, 1e-3, 1e4, 2.0])
+    held = np.array([False, True, False, False])
+    c = held_covariance(jac, 1.7, held)
+    free = [0, 2, 3]
+    want = np.linalg.inv(jac[:, free].T @ jac[:, free]) * 1.7
+    np.testing.assert_allclose(c.matrix[np.ix_(free, free)], want, rtol=1e-9)
+    assert np.all(np.isnan(c.matrix[1])) and np.all(np.isnan(c.matrix[:, 1]))
+    assert c.undetermined == ()  # held for its bound, not for the data
+    assert np.isnan(correlation(c.matrix)[0, 1]) and correlation(c.matrix)[1, 1] == 1.0
+
+
+def test_a_parameter_on_its_bound_is_flagged_and_has_no_sigma(tmp_path):
+    # Two real poles, 1 kHz and 20 kHz (reference response: scipy.signal.freqs_zpk), with the
+    # low pole bounded below its true value: the fit ends on the bound, where the linearised
+    # covariance is not valid (the χ² gradient is not zero), so no σ may be given.
+    f = np.geomspace(10, 1e5, 201)
+    p = [-2 * np.pi * 1e3, -2 * np.pi * 20e3]
+    _, h = signal.freqs_zpk([], p, np.prod(np.abs(p)), 2 * np.pi * f)
+    rng = np.random.default_rng(2)
+    h = h * 10 ** (0.01 * rng.standard_normal(f.size) / 20) * np.exp(
+        1j * np.radians(0.05 * rng.standard_normal(f.size)))
+    r = FrequencyResponse(freq_hz=f, response=h)
+    res = fit(r, order=2, delay="none", bounds={"pole1_hz": (0.0, 800.0)})
+    pb = res.parameter("pole1_hz")
+    assert pb.value == pytest.approx(800.0, rel=1e-6)
+    assert pb.at_bound and not np.isfinite(pb.stderr)
+    assert res.at_bound == ("pole1_hz",) and "pole1_hz" not in res.undetermined
+    assert np.isfinite(res.parameter("pole2_hz").stderr)
+    assert any(w.startswith("at bound: pole1_hz") for w in res.warnings)
+    line = next(ln for ln in res.report().splitlines() if ln.rstrip().endswith("pole1_hz"))
+    assert "not determined" in line and "at bound" in line
+    out = tmp_path / "fit.json"
+    res.to_json(out)
+    d = json.loads(out.read_text())
+    row = next(x for x in d["parameters"] if x["name"] == "pole1_hz")
+    assert row["stderr"] is None and row["at_bound"] is True and d["at_bound"] == ["pole1_hz"]
+    assert type(res).from_json(out).at_bound == ("pole1_hz",)
+    # A bound the fit does not reach changes nothing: finite σ, no flag.
+    free = fit(r, order=2, delay="none", bounds={"pole1_hz": (0.0, 2000.0)})
+    assert not free.parameter("pole1_hz").at_bound and free.at_bound == ()
+    assert np.isfinite(free.parameter("pole1_hz").stderr)
+    assert not any(w.startswith("at bound") for w in free.warnings)

@@ -67,10 +67,11 @@ def test_text_output_and_unstable_poles_option(tmp_path, capsys):
     write_sweep_csv(FrequencyResponse(f, m.response(f), quantity="loop"), path)
     # without P the count is Z = 0 - 1 = -1, impossible (Z >= 0): the data contradict P = 0,
     # so the verdict is undecided and the warning points at --unstable-poles (it said
-    # "UNSTABLE: -1 closed-loop pole(s)" before)
+    # "UNSTABLE: -1 closed-loop pole(s)" before); the sweep's fit shows the RHP pole too and
+    # the warning names the count to give
     rc, out, err = run(capsys, "margins", str(path))
     assert rc == 0 and "closed loop     UNDECIDED" in out
-    assert "negative number of closed-loop" in err and "--unstable-poles" in err
+    assert "negative number of closed-loop" in err and "--unstable-poles 1" in err
     rc, out, err = run(capsys, "margins", str(path), "--unstable-poles", "1")
     assert rc == 0 and "closed loop     stable" in out and "Nyquist" in err
 

@@ -177,8 +177,11 @@ def _stability_verdict(pb: Problem, unstable: FitResult) -> FitResult:
                f"(residual {stable.stats['residual_over_floor']:.2f}× the noise floor)" if demanded
                else f"the data do not clearly demand them: the best stable fit's BIC is only "
                f"{margin:.1f} higher; --stable holds the poles in the left half-plane")
-    return replace(unstable, warnings=(*unstable.warnings, f"the model has {n_rhp} right-half-"
-                                       f"plane pole(s) (unstable); {verdict}"))
+    # the verdict as figures too, for callers that act on it (benchfit.loop.openloop)
+    stats = {**unstable.stats, "rhp_poles": n_rhp, "rhp_demanded": demanded,
+             "rhp_bic_margin": float(margin)}
+    return replace(unstable, stats=stats, warnings=(*unstable.warnings, f"the model has {n_rhp} "
+                                                    f"right-half-plane pole(s) (unstable); {verdict}"))
 
 
 def _fit_with(pb: Problem, ctx: Context) -> FitResult:

@@ -47,7 +47,7 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
     units = st.units(gain_unit)
     params = tuple(
         Parameter(name=nm, value=float(ref.values[i]), stderr=float(ref.stderr[i]), unit=units[i],
-                  fixed=nm in fixed)
+                  fixed=nm in fixed, at_bound=nm in ref.at_bound)
         for i, nm in enumerate(st.names))
     cov = np.asarray(ref.covariance, dtype=float)
     corr = correlation(cov)
@@ -62,6 +62,8 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
         warnings.append(f"refinement did not converge: {ref.message}")
     if ref.uncertainty_note:
         warnings.append(ref.uncertainty_note)
+    if ref.at_bound:
+        warnings.append(at_bound_warning(ref.at_bound, params))
     for p in params:
         if p.name.endswith("_hz") and not p.fixed and poorly_identified(p, f[0], f[-1]):
             warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "
@@ -120,6 +122,17 @@ def poorly_identified(p: Parameter, f_min: float, f_max: float) -> bool:
     if sd is None or not np.isfinite(sd):
         return True
     return bool(v < f_min and sd > LOOSE * v)
+
+
+def at_bound_warning(names, params) -> str:
+    """The warning for parameters that ended on the user's bound: no σ for them."""
+    val = {p.name: p for p in params}
+    said = ", ".join(f"{n} = {val[n].value:.4g}{' ' + val[n].unit if val[n].unit else ''}"
+                     for n in names)
+    return (f"at bound: {said}; the data pull it past the bound (the --bound given, or zero for "
+            "a stable pole or a causal delay), so the covariance is not valid there and no σ is "
+            "given for it (the others' σ hold it at the bound); widen the bound to let the data "
+            "place it")
 
 
 def residual_warnings(ref: Refined, chi: float) -> list[str]:

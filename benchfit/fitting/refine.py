@@ -26,7 +26,7 @@ from benchfit.errors import InputError
 from benchfit.fitting.factors import log_jacobian_at, log_response
 from benchfit.fitting.lsq import trust_region
 from benchfit.fitting.parameters import Structure, log_jacobian, renumbering, response
-from benchfit.fitting.uncertainty import covariance
+from benchfit.fitting.uncertainty import held_covariance, on_bound
 
 #: Residual given to a point where a trial model does not evaluate.
 _PENALTY = 1e6
@@ -48,6 +48,7 @@ class Refined:
     message: str
     undetermined: tuple[str, ...] = ()  # varied parameters the data cannot determine
     uncertainty_reason: str = ""  # why they are not, or why no σ at all ("" when all are given)
+    at_bound: tuple[str, ...] = ()  # varied parameters that ended on a bound (no σ: see on_bound)
 
     @property
     def uncertainty_note(self) -> str:
@@ -208,22 +209,29 @@ def refine(
     varied = tuple(out.var_names)
     return _with_covariance(names, vals, [names.index(n) for n in varied], jacobian(vals[var_idx]),
                             int(out.nfev), bool(out.success), float(out.chisqr),
-                            float(out.redchi), str(out.message))
+                            float(out.redchi), str(out.message), bounds)
 
 
 def _with_covariance(names, values: np.ndarray, var_idx, jac: np.ndarray, nfev: int,
-                     success: bool, chisqr: float, redchi: float, message: str) -> Refined:
+                     success: bool, chisqr: float, redchi: float, message: str,
+                     bounds: dict[str, tuple[float, float]] | None = None) -> Refined:
     """A :class:`Refined` whose σ and covariance come from ``jac`` at ``values``
-    (:func:`benchfit.fitting.uncertainty.covariance`: only what the data determine)."""
+    (:func:`benchfit.fitting.uncertainty.covariance`: only what the data determine;
+    a parameter on one of its ``bounds`` gets none, :func:`~benchfit.fitting.uncertainty.on_bound`)."""
     var_idx = np.asarray(var_idx, dtype=int)
     varied = tuple(names[i] for i in var_idx)
-    cov = covariance(jac, redchi)
+    bounds = bounds or {}
+    lo = np.array([bounds.get(n, (-np.inf, np.inf))[0] for n in varied], dtype=float)
+    hi = np.array([bounds.get(n, (-np.inf, np.inf))[1] for n in varied], dtype=float)
+    held = on_bound(values[var_idx], lo, hi)
+    cov = held_covariance(jac, redchi, held)
     stderr = np.full(len(names), np.nan)
     stderr[var_idx] = cov.stderr
     return Refined(values=values, stderr=stderr, varied=varied, covariance=cov.matrix,
                    evaluations=nfev, success=success, chisqr=chisqr, redchi=redchi,
                    message=message, undetermined=tuple(varied[k] for k in cov.undetermined),
-                   uncertainty_reason=cov.reason)
+                   uncertainty_reason=cov.reason,
+                   at_bound=tuple(varied[k] for k in np.flatnonzero(held)))
 
 
 def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
@@ -258,7 +266,7 @@ def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
     v = v0.copy()
     v[var_idx] = out.x
     return _with_covariance(names, v, var_idx, out.jac, int(out.nfev), bool(out.status > 0),
-                            chi, chi / dof, str(out.message))
+                            chi, chi / dof, str(out.message), bounds)
 
 
 def _kept_start(names, v0: np.ndarray, varied: tuple[str, ...], r0: np.ndarray,
@@ -334,4 +342,5 @@ def renumbered(st: Structure, ref: Refined) -> tuple[Refined, dict[str, str]]:
     cov = np.asarray(ref.covariance)[np.ix_(rows, rows)] if len(rows) else ref.covariance
     return replace(ref, values=ref.values[perm], stderr=ref.stderr[perm],
                    varied=tuple(sorted(varied, key=names.index)), covariance=cov,
-                   undetermined=tuple(moved.get(n, n) for n in ref.undetermined)), moved
+                   undetermined=tuple(moved.get(n, n) for n in ref.undetermined),
+                   at_bound=tuple(moved.get(n, n) for n in ref.at_bound)), moved

@@ -36,6 +36,9 @@ class Parameter:
         SI unit ("Hz", "s", "" for dimensionless).
     fixed
         True when held at a user-given value.
+    at_bound
+        True when the fit ended on one of the user's bounds: the covariance is
+        not valid there, so ``stderr`` is NaN (JSON null).
     """
 
     name: str
@@ -43,16 +46,17 @@ class Parameter:
     stderr: float = float("nan")
     unit: str = ""
     fixed: bool = False
+    at_bound: bool = False
 
     def to_dict(self) -> dict[str, Any]:
         return {"name": self.name, "value": self.value, "stderr": self.stderr,
-                "unit": self.unit, "fixed": self.fixed}
+                "unit": self.unit, "fixed": self.fixed, "at_bound": self.at_bound}
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> Parameter:
         return cls(name=str(d["name"]), value=as_float(d["value"]),
                    stderr=as_float(d.get("stderr")), unit=str(d.get("unit", "")),
-                   fixed=bool(d.get("fixed", False)))
+                   fixed=bool(d.get("fixed", False)), at_bound=bool(d.get("at_bound", False)))
 
 
 def _matrix(a: Any, n: int) -> np.ndarray:
@@ -126,9 +130,16 @@ class FitResult:
 
     @property
     def undetermined(self) -> tuple[str, ...]:
-        """Varied parameters the data cannot determine (their σ is NaN, JSON null)."""
+        """Varied parameters the data cannot determine (their σ is NaN, JSON null);
+        those on a bound are listed in :attr:`at_bound` instead."""
         return tuple(p.name for p in self.parameters
-                     if not p.fixed and p.name in self.varied and not np.isfinite(p.stderr))
+                     if not p.fixed and not p.at_bound and p.name in self.varied
+                     and not np.isfinite(p.stderr))
+
+    @property
+    def at_bound(self) -> tuple[str, ...]:
+        """Parameters that ended on one of the user's bounds (σ not determined)."""
+        return tuple(p.name for p in self.parameters if p.at_bound)
 
     def response(self, freq_hz: np.ndarray) -> np.ndarray:
         """Model response at ``freq_hz`` (Hz)."""
@@ -191,6 +202,8 @@ class FitResult:
             unit = p.unit or ""
             if p.fixed:
                 err, rel = "fixed", ""
+            elif p.at_bound:
+                err, rel = "not determined", "at bound"
             elif np.isfinite(p.stderr):
                 err = numfmt.quantity(p.stderr, unit, 2)
                 rel = f"{numfmt.sig(abs(p.stderr / p.value) * 100, 2)} %" if p.value else ""
@@ -243,6 +256,7 @@ class FitResult:
             "order_scan": [dict(d) for d in self.order_scan],
             "varied": list(self.varied),
             "undetermined": list(self.undetermined),
+            "at_bound": list(self.at_bound),
             "covariance": np.asarray(self.covariance).tolist(),
             "correlation": np.asarray(self.correlation).tolist(),
             "integrators": self.integrators,

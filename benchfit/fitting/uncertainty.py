@@ -125,6 +125,64 @@ def covariance(jac: np.ndarray, redchi: float, cond_max: float = COND_MAX) -> Co
     return Covariance(out, undetermined, float(np.inf if cond_all is None else cond_all), reason)
 
 
+#: A parameter within this relative distance of one of its bounds sits on it
+#: (common practice, no source: far below any σ the data give, above the
+#: optimiser's own tolerance of 1e-9 on the step).
+AT_BOUND_REL = 1e-6
+
+
+def on_bound(values: np.ndarray, lower: np.ndarray, upper: np.ndarray,
+             rel: float = AT_BOUND_REL) -> np.ndarray:
+    """Which parameters sit on a bound (within ``rel`` of it, relative to its size).
+
+    The linearised covariance assumes the optimum is a free minimum, where the
+    gradient of χ² is zero; on an active bound it is not (the data would pull
+    the parameter further), so neither its σ nor its correlations mean
+    anything.  Evidence weighed: only the distance to the bound, relative to
+    the larger of the bound and the value (absolute zero for a bound at 0).
+
+    Parameters
+    ----------
+    values, lower, upper
+        Values and their bounds (±inf for none), same shape.
+    rel
+        Relative distance counted as on the bound (:data:`AT_BOUND_REL`).
+
+    Returns
+    -------
+    ndarray of bool
+    """
+    v = np.asarray(values, dtype=float)
+    out = np.zeros(v.shape, dtype=bool)
+    for b in (np.asarray(lower, dtype=float), np.asarray(upper, dtype=float)):
+        fin = np.isfinite(b)
+        with np.errstate(invalid="ignore"):
+            near = np.abs(v - b) <= rel * np.maximum(np.abs(b), np.abs(v))
+        out |= fin & near
+    return out
+
+
+def held_covariance(jac: np.ndarray, redchi: float, held: np.ndarray,
+                    cond_max: float = COND_MAX) -> Covariance:
+    """:func:`covariance` with the ``held`` columns (parameters on a bound) set aside.
+
+    The others' covariance is the one with the held parameters at their
+    values; the held rows and columns are NaN (JSON null), and they are not
+    listed as undetermined (their reason is the bound, not the data).
+    """
+    jac = np.asarray(jac, dtype=float)
+    held = np.asarray(held, dtype=bool)
+    if not held.any():
+        return covariance(jac, redchi, cond_max)
+    p = jac.shape[1]
+    free = np.flatnonzero(~held)
+    sub = covariance(jac[:, free], redchi, cond_max)
+    out = np.full((p, p), np.nan)
+    out[np.ix_(free, free)] = sub.matrix
+    return Covariance(out, tuple(int(free[k]) for k in sub.undetermined), sub.condition,
+                      sub.reason)
+
+
 def correlation(cov: np.ndarray) -> np.ndarray:
     """Correlation matrix of a covariance: within [−1, 1], 1 on the whole diagonal.
 

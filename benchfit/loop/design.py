@@ -132,7 +132,8 @@ def design(corners: LoopPlant | Sequence[LoopPlant], kind: str, targets: Targets
     spread = None
     for _ in range(YIELD_ROUNDS):
         try:
-            syn_try = synthesize(kind, corners, aim, method=method, r_in=r_in, opamp=opamp)
+            syn_try = synthesize(kind, corners, aim, method=method, r_in=r_in, opamp=opamp,
+                                 crossings=crossings)
         except DesignError:
             if aim is targets:
                 raise

@@ -94,7 +94,9 @@ def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
         The loop gain T.
     unstable_open_loop_poles
         P for the Nyquist count: counted from a model's poles when None,
-        0 for a sweep when None.
+        0 for a sweep when None, and then the sweep is checked for signs of
+        open-loop right-half-plane poles (:func:`benchfit.loop.openloop.check_open_loop`:
+        the verdict becomes "undecided" when its fit demands them).
     band
         (f_min_hz, f_max_hz) to restrict to (either may be None).
     extra_delay_s
@@ -121,6 +123,11 @@ def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
         m = margins_from_data(sweep.freq_hz, T,
                               unstable_open_loop_poles=unstable_open_loop_poles or 0,
                               integrators=integrators, provenance=prov)
+        if unstable_open_loop_poles is None:
+            # P = 0 was assumed: check that the sweep does not look open-loop unstable
+            from benchfit.loop.openloop import check_open_loop
+
+            m = check_open_loop(sweep, m)
         if sweep.quantity in ("plant", "closed", "impedance", "compensator"):
             m = replace(m, warnings=(f"the sweep is marked as a {sweep.quantity} measurement, not a "
                                      "loop gain; these margins treat it as T",) + m.warnings)

@@ -1,38 +1,8 @@
 """Placing a compensation network's poles and zeros: K factor and 1/beta crossing.
 
-Sign conventions (see :mod:`benchfit.loop.networks`): the compensator C is
-the inverting stage's gain with the inversion folded into the loop sign, so
-``T = P·H·C`` (plant · sensing · compensator) is the return ratio and the
-phase margin is ``PM = 180° + ∠T(fc)``.
-
-**K-factor method** (Venable 1983).  The ideal networks are an integrator
-ωi/s times K-factor pairs:
-
-* type2: ``C = ωi/s · (1 + s/ωz)/(1 + s/ωp)``, ωz = ωc/K, ωp = K·ωc;
-  phase at ωc is −90° + boost with boost = 2·atan(K) − 90°, so
-  ``K = tan(boost/2 + 45°)``;
-* type3: two coincident pairs at ωc/√K and √K·ωc;
-  boost = 4·atan(√K) − 180°, so ``K = tan²(boost/4 + 45°)``;
-* pi: one zero at ωc/tan(boost) (its boost is atan(ωc/ωz));
-* type1: no boost; the phase margin is whatever the plant leaves.
-
-With φ = ∠(P·H)(fc), ``∠T(fc) = φ − 90° + boost`` so the boost needed is::
-
-    boost = PM_target − 90° − φ          (wrapped into (−180°, 180°])
-
-and the integrator gain ωi is set so |T(fc)| = 1 (type2/type3: |C(jωc)| =
-K·ωi/ωc).  The input resistor R1 is the designer's free choice of impedance
-level; every other part follows from it.
-
-**1/beta crossing method.**  Read the compensator as a 1/beta curve 1/|C|
-against the plant gain |P·H|; the loop crosses over where they meet.  The
-rate of closure there is ``ROC = slope(1/|C|) − slope(|P·H|)`` in dB/decade,
-with the network's slope in its boost region (type1 −20, type2/pi 0,
-type3 +20 dB/decade for |C|).  The method chooses the crossover where the
-rate of closure is 20 dB/decade (the classic stable crossing; common
-practice, no source), then places the corners around it with the boost the
-phase-margin target needs, exactly as above.  The two methods thus differ in
-how the crossover is chosen.
+The closed forms (K factor, Venable 1983; the 1/beta rate of closure) are in
+:mod:`benchfit.loop.kfactor`; this module chooses the crossover and the design
+phase margin and says whether the targets are met.
 
 **Finite op-amp and several plants (corners).**  The closed-form placement
 is exact for one plant and an ideal op-amp.  Otherwise the placement is
@@ -40,12 +10,20 @@ repeated with a larger design phase margin (and the gain corrected so
 |T(fc)| = 1 on the first corner with the real op-amp) until the worst corner
 meets the targets.  With ``crossover_hz=None`` the highest crossover in the
 plants' common band that meets every target is chosen.
+
+**When a candidate meets the targets.**  By the rule that judges the
+design's ``targets_met``, its snapping and its yield
+(:mod:`benchfit.loop.passrules`: stable, every counted crossing at or above
+its target, no slack), screened on the Monte Carlo's feature grid and
+verified with the dense analysis before it is returned
+(:mod:`benchfit.loop.synthjudge`).  A placement that misses is returned (a
+given crossover) or refused (automatic) with the dense analysis's numbers.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -55,16 +33,34 @@ from benchfit import numfmt
 from benchfit.errors import DesignError, InputError
 from benchfit.loop.choices import METHODS
 from benchfit.loop.closure import rate_of_closure_db
+from benchfit.loop.kfactor import (
+    BOOST_LIMITS,
+    NETWORK_SLOPE_DB,
+    boost_needed,
+    k_from_boost,
+    place,
+    plant_slope_db,
+    rate_of_closure,
+    wrap_deg,
+)
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import Network, check_kind
 from benchfit.loop.opamp import OpAmp
+from benchfit.loop.passrules import check_crossings, describe, meets_gain_margin, meets_phase_margin
+from benchfit.loop.synthjudge import (
+    Verification,
+    closest_candidate,
+    miss_text,
+    screen,
+    verify,
+)
 
-#: Boost (degrees) each network can give: (minimum used, maximum allowed).
-BOOST_LIMITS = {"type1": (0.0, 0.0), "pi": (5.0, 88.0), "type2": (5.0, 88.0), "type3": (5.0, 176.0)}
-#: Slope of |C| in the network's boost region, dB/decade.
-NETWORK_SLOPE_DB = {"type1": -20.0, "pi": 0.0, "type2": 0.0, "type3": 20.0}
-#: Numerical slack when judging "target met" (degrees / dB).
-TOL = 0.01
+#: the closed forms, importable from here as before
+__all__ = ["BOOST_LIMITS", "NETWORK_SLOPE_DB", "Synthesis", "Targets", "boost_needed",
+           "check_crossover_in_band", "choose_automatic", "closes_near_20db", "common_band",
+           "extra_margins", "k_from_boost", "place", "plant_slope_db", "rate_of_closure",
+           "synthesize", "wrap_deg"]
+
 # Extra design phase margins tried, in degrees, when one closed-form placement is not enough.
 _EXTRA_PM = (0.0, 0.25, 0.5, 1.0, 2.0, 3.0, 4.0, 6.0, 8.0, 10.0, 13.0, 16.0, 20.0, 25.0, 30.0,
              40.0, 50.0, 65.0, 80.0)
@@ -106,8 +102,16 @@ class Targets:
                              source="--gain-margin")
 
     def met(self, pm_deg: float, gm_db: float) -> bool:
-        return bool(np.isfinite(pm_deg) and pm_deg >= self.phase_margin_deg - TOL
-                    and not (gm_db < self.gain_margin_db - TOL))
+        """Whether a phase margin and a gain margin meet the targets, with no slack.
+
+        The rules are :func:`benchfit.loop.passrules.meets_phase_margin` and
+        :func:`~benchfit.loop.passrules.meets_gain_margin` (exact to the
+        arithmetic's resolution, 1e-9); a phase margin that is not finite
+        (no gain crossing, or the band misses it) does not meet a target here:
+        the caller judges a placed loop, which has a crossover.
+        """
+        return bool(np.isfinite(pm_deg) and meets_phase_margin(pm_deg, self.phase_margin_deg)
+                    and meets_gain_margin(gm_db, self.gain_margin_db))
 
     def to_dict(self) -> dict[str, Any]:
         return {"crossover_hz": self.crossover_hz, "phase_margin_deg": self.phase_margin_deg,
@@ -165,139 +169,35 @@ class Synthesis:
                 "rate_of_closure_db": self.rate_of_closure_db, "notes": list(self.notes)}
 
 
-# ----- closed-form placement ----------------------------------------------------------------
-def wrap_deg(x: float) -> float:
-    """Angle wrapped into (−180, 180]."""
-    return 180.0 - ((180.0 - x) % 360.0)
-
-
-def boost_needed(plant_at_fc: complex, pm_deg: float) -> float:
-    """Boost (degrees) a network must add at fc: PM − 90° − ∠(P·H)(fc), wrapped."""
-    return wrap_deg(pm_deg - 90.0 - math.degrees(np.angle(plant_at_fc)))
-
-
-def k_from_boost(kind: str, boost_deg: float) -> float:
-    """Venable's K for a boost: type2 tan(b/2 + 45°), type3 tan²(b/4 + 45°); pi ωc/ωz."""
-    b = math.radians(boost_deg)
-    if kind == "type2":
-        return math.tan(b / 2 + math.pi / 4)
-    if kind == "type3":
-        return math.tan(b / 4 + math.pi / 4) ** 2
-    if kind == "pi":
-        return math.tan(b)
-    return 1.0
-
-
-def place(kind: str, plant_at_fc: complex, fc_hz: float, pm_deg: float, r_in: float,
-          gain_scale: float = 1.0) -> tuple[Network, float, float, list[str]]:
-    """Closed-form K-factor placement for one plant value and an ideal op-amp.
-
-    Parameters
-    ----------
-    kind
-        Network kind.
-    plant_at_fc
-        (plant · sensing)(j2π fc), complex.
-    fc_hz
-        Crossover, Hz.
-    pm_deg
-        Phase margin to place for, degrees.
-    r_in
-        Input resistor R1, ohm.
-    gain_scale
-        Multiplies the compensator gain (used to correct for a finite op-amp).
-
-    Returns
-    -------
-    network, boost_deg, k, notes
-    """
-    kind = check_kind(kind)
-    notes: list[str] = []
-    mag = abs(plant_at_fc)
-    if not (np.isfinite(mag) and mag > 0):
-        raise DesignError(f"plant gain at {numfmt.eng(fc_hz, 'Hz')} is {mag}; cannot place a crossover there")
-    lo, hi = BOOST_LIMITS[kind]
-    boost = boost_needed(plant_at_fc, pm_deg)
-    if kind == "type1":
-        notes.append(f"type1 gives no boost: phase margin about {numfmt.deg(pm_deg - boost)} "
-                     f"at {numfmt.eng(fc_hz, 'Hz')}")
-        boost = 0.0
-    elif boost > hi:
-        raise DesignError(f"{kind} cannot give the {numfmt.deg(boost)} of boost needed at {numfmt.eng(fc_hz, 'Hz')} "
-                          f"(at most {hi:.0f}°); use a lower crossover, a lower phase margin"
-                          + (" or type3" if kind != "type3" else ""))
-    elif boost < lo:
-        notes.append(f"plant phase needs only {numfmt.deg(boost)} of boost at {numfmt.eng(fc_hz, 'Hz')}; using "
-                     f"{lo:.0f}° (phase margin will exceed the target)")
-        boost = lo
-    k = k_from_boost(kind, boost)
-    wc = 2 * math.pi * fc_hz
-    g = gain_scale / mag  # |C(jωc)| wanted
-    r1 = float(r_in)
-    if kind == "type1":
-        parts = {"R1": r1, "C1": 1.0 / (r1 * g * wc)}
-    elif kind == "pi":
-        wz = wc / k
-        wi = g * wc / math.sqrt(1.0 + k * k)
-        c1 = 1.0 / (r1 * wi)
-        parts = {"R1": r1, "R2": 1.0 / (wz * c1), "C1": c1}
-    elif kind == "type2":
-        wi = g * wc / k
-        ctot = 1.0 / (r1 * wi)
-        c2 = ctot / (k * k)            # ωp/ωz = (C1 + C2)/C2 = K²
-        c1 = ctot - c2
-        parts = {"R1": r1, "R2": 1.0 / ((wc / k) * c1), "C1": c1, "C2": c2}
-    else:  # type3
-        wi = g * wc / k
-        ctot = 1.0 / (r1 * wi)
-        sk = math.sqrt(k)
-        wz, wp = wc / sk, wc * sk
-        c2 = ctot / k                  # ωp1/ωz1 = (C1 + C2)/C2 = K
-        c1 = ctot - c2
-        c3 = (1.0 / wz - 1.0 / wp) / r1  # (R1 + R3)·C3 = 1/ωz, R3·C3 = 1/ωp
-        parts = {"R1": r1, "R2": 1.0 / (wz * c1), "R3": 1.0 / (wp * c3),
-                 "C1": c1, "C2": c2, "C3": c3}
-    return Network(kind, parts), boost, k, notes
-
-
-# ----- plant slope and the 1/beta rule ------------------------------------------------------
-def plant_slope_db(lp: LoopPlant, f_hz: np.ndarray) -> np.ndarray:
-    """d(20·log10|P·H|)/d(log10 f) in dB/decade (central difference, ±1/40 decade)."""
-    f = np.asarray(f_hz, dtype=float)
-    step = 10 ** (1 / 40)
-    up = np.abs(lp.response(f * step))
-    dn = np.abs(lp.response(f / step))
-    return 20 * np.log10(up / dn) / (2 / 40)
-
-
-def rate_of_closure(kind: str, lp: LoopPlant, f_hz: np.ndarray) -> np.ndarray:
-    """Asymptotic 1/beta rate of closure at ``f_hz``: −slope(|C|) − slope(|P·H|), dB/decade.
-
-    The network's slope is its boost-region asymptote (:data:`NETWORK_SLOPE_DB`): this
-    chooses candidate crossovers before any network is placed.  A placed network's figure
-    comes from :func:`benchfit.loop.closure.rate_of_closure_db` on its actual response.
-    """
-    return -NETWORK_SLOPE_DB[kind] - plant_slope_db(lp, f_hz)
-
-
 # ----- search over design phase margin, crossover -------------------------------------------
-def _margins_rows(freq_hz: np.ndarray, t: np.ndarray,
-                  unstable: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    from benchfit.loop.margins import margins_batch
+def extra_margins(corners: Sequence[LoopPlant], opamp: OpAmp | None) -> tuple[float, ...]:
+    """The design phase margins tried at one crossover, in degrees above the target.
 
-    out = margins_batch(freq_hz, t, unstable_open_loop_poles=unstable)
-    # an unstable closed loop meets nothing, whatever its main-crossover phase margin
-    pm = np.where(out["stable"], np.asarray(out["pm_deg"], dtype=float), -np.inf)
-    return pm, np.asarray(out["gm_db"], dtype=float), np.asarray(out["crossover_hz"], dtype=float)
+    The evidence is whether the closed form is exact: with one plant and an
+    ideal op-amp it places the phase margin at the crossover exactly, so only
+    the target itself is tried (a network designed for more phase margin
+    there is simply another design, chosen by the user's target).  With a
+    finite op-amp or several corners the first corner's closed form is not
+    the loop judged, and the placement is repeated for more phase margin
+    (:data:`_EXTRA_PM`) until the worst corner meets the targets.
+    """
+    if len(corners) == 1 and opamp is None:
+        return (0.0,)
+    return _EXTRA_PM
+
+
+#: Halvings of the design phase margin step between the last failing and the first passing
+#: candidate (a search step only: the candidate kept is verified by the pass rule).
+BISECTIONS = 6
 
 
 class _Placer:
     """Placement at one crossover across corners with a possibly finite op-amp."""
 
     def __init__(self, kind: str, corners: Sequence[LoopPlant], targets: Targets, r_in: float,
-                 opamp: OpAmp | None) -> None:
+                 opamp: OpAmp | None, crossings: str | tuple[float, float]) -> None:
         self.kind, self.corners, self.targets = kind, list(corners), targets
-        self.r_in, self.opamp = r_in, opamp
+        self.r_in, self.opamp, self.crossings = r_in, opamp, crossings
 
     def network(self, fc: float, pm: float) -> tuple[Network, float, float, list[str]]:
         p_fc = complex(self.corners[0].response(np.array([fc]))[0])
@@ -312,58 +212,65 @@ class _Placer:
                 net, boost, k, notes = place(self.kind, p_fc, fc, pm, self.r_in, scale)
         return net, boost, k, notes
 
-    def worst(self, nets: list[Network], fc: float) -> tuple[np.ndarray, np.ndarray]:
-        """Worst PM and GM over corners for each candidate network.
+    def screen(self, net: Network, fc: float) -> tuple[bool, float]:
+        """(passes the screening, worst-corner phase margin) of one candidate at ``fc``."""
+        s = screen(self.corners, [net], self.opamp, fc, self.targets, self.crossings)
+        return bool(s.passed[0]), float(s.pm_deg[0])
 
-        A candidate whose main crossover on the first corner is not at ``fc``
-        (another crossing took over) counts as failing: PM −inf.
+    def verify(self, net: Network, fc: float) -> Verification:
+        return verify(self.corners, net, self.opamp, fc, self.targets, self.crossings)
+
+    def at(self, fc: float) -> tuple[Synthesis | None, Synthesis | None, float]:
+        """Placement at ``fc``: (verified synthesis or None, closest miss or None, its PM).
+
+        The candidates (the target phase margin plus :func:`extra_margins`)
+        are screened in order; the first that passes is refined by bisection
+        on the design phase margin, and the dense analysis must then pass it
+        (:func:`benchfit.loop.synthjudge.verify`), else the next screened
+        candidate is tried.  When none is verified, the closest miss
+        (:func:`benchfit.loop.synthjudge.closest_candidate`) is returned with
+        its screening phase margin.
         """
-        pm_w = np.full(len(nets), np.inf)
-        gm_w = np.full(len(nets), np.inf)
-        hi = fc * 1e3 if self.opamp is None else max(fc * 1e3, self.opamp.gbw_hz * 10)
-        for i, lp in enumerate(self.corners):
-            g = lp.grid(fc / 1e3, hi)
-            t = np.array([lp.response(g) * n.response(g, self.opamp) for n in nets])
-            pm, gm, fx = _margins_rows(g, t, lp.unstable_poles)
-            if i == 0:
-                pm = np.where(np.abs(np.log(fx / fc)) < math.log(1.03), pm, -np.inf)
-            pm_w = np.minimum(pm_w, np.where(np.isfinite(pm), pm, -np.inf))
-            gm_w = np.minimum(gm_w, np.where(np.isnan(gm), -np.inf, gm))
-        return pm_w, gm_w
-
-    def at(self, fc: float) -> tuple[Synthesis | None, float, float, Synthesis | None]:
-        """Best placement at ``fc``: (meeting synthesis or None, worst pm, worst gm, fallback)."""
         target = self.targets.phase_margin_deg
-        cands = []
-        for extra in _EXTRA_PM:
+        cands, pms, first = [], [], None
+        for extra in extra_margins(self.corners, self.opamp):
             try:
-                cands.append((target + extra, *self.network(fc, target + extra)))
+                cand = (target + extra, *self.network(fc, target + extra))
             except DesignError:
                 break  # more boost than the network can give from here on
+            ok, pm = self.screen(cand[1], fc)
+            cands.append(cand)
+            pms.append(pm)
+            if ok:
+                first = len(cands) - 1
+                break
         if not cands:
-            return None, -np.inf, -np.inf, None
-        if len(self.corners) == 1 and self.opamp is None:
-            cands = cands[:1]  # closed form is exact: no search
-        pm_w, gm_w = self.worst([c[1] for c in cands], fc)
-        ok = [self.targets.met(p, g) for p, g in zip(pm_w, gm_w, strict=True)]
-        if any(ok):
-            i = ok.index(True)
-            if i > 0:  # bisect between the last failing and first passing design PM
-                lo, hi = cands[i - 1][0], cands[i][0]
-                best = cands[i]
-                for _ in range(6):
+            return None, None, -np.inf
+        if first is not None:
+            best = cands[first]
+            if first > 0:  # bisect between the last failing and first passing design PM
+                lo, hi = cands[first - 1][0], best[0]
+                for _ in range(BISECTIONS):
                     mid = 0.5 * (lo + hi)
-                    c = (mid, *self.network(fc, mid))
-                    p, g = self.worst([c[1]], fc)
-                    if self.targets.met(p[0], g[0]):
-                        hi, best = mid, c
+                    cand = (mid, *self.network(fc, mid))
+                    if self.screen(cand[1], fc)[0]:
+                        hi, best = mid, cand
                     else:
                         lo = mid
-                cands[i] = best
-                pm_w[i], gm_w[i] = (a[0] for a in self.worst([best[1]], fc))
-            return self._result(fc, cands[i]), float(pm_w[i]), float(gm_w[i]), None
-        j = int(np.argmax(pm_w))
-        return None, float(pm_w[j]), float(gm_w[j]), self._result(fc, cands[j])
+            if self.verify(best[1], fc).passed:
+                return self._result(fc, best), None, pms[first]
+            # screening passed it, the dense analysis did not: more design phase margin
+            for extra in [e for e in extra_margins(self.corners, self.opamp)
+                          if target + e > cands[first][0]]:
+                try:
+                    cand = (target + extra, *self.network(fc, target + extra))
+                except DesignError:
+                    break
+                if self.screen(cand[1], fc)[0] and self.verify(cand[1], fc).passed:
+                    return self._result(fc, cand), None, pms[first]
+            return None, self._result(fc, best), pms[first]
+        j = closest_candidate(pms)
+        return None, self._result(fc, cands[j]), pms[j]
 
     def _result(self, fc: float, cand: tuple, method: str = "k-factor") -> Synthesis:
         pm, net, boost, k, notes = cand
@@ -375,6 +282,33 @@ class _Placer:
                          plant_phase_deg=float(phase - 360.0 if phase > 0 else phase),
                          boost_deg=float(boost), k=float(k), design_pm_deg=float(pm),
                          rate_of_closure_db=roc, notes=tuple(notes))
+
+
+def choose_automatic(found: Iterable[Synthesis]) -> tuple[Synthesis | None, bool]:
+    """The automatic crossover: the first (highest) verified placement with practical parts.
+
+    ``found`` yields the placements that meet the targets, highest crossover
+    first; it is consumed only up to the first whose parts are all in the
+    practical range (:meth:`Network.practical_warnings` is empty).  When
+    none is, the highest placement meeting the targets is kept anyway.
+
+    Returns
+    -------
+    (synthesis or None, practical)
+    """
+    highest = None
+    for res in found:
+        if not res.network.practical_warnings():
+            return res, True
+        highest = highest or res
+    return highest, False
+
+
+def closes_near_20db(roc_db) -> np.ndarray:
+    """Whether a rate of closure is the one the 1/beta crossing method aims for: 20 dB/decade
+    give or take 10 (between the 0 and 40 dB/decade that mark a marginal crossing; common
+    practice, no source)."""
+    return np.abs(np.asarray(roc_db, dtype=float) - 20.0) <= 10.0
 
 
 def common_band(corners: Sequence[LoopPlant]) -> tuple[float, float]:
@@ -413,7 +347,7 @@ def check_crossover_in_band(fc_hz: float, corners: Sequence[LoopPlant]) -> None:
 
 def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Targets, *,
                method: str = "k-factor", r_in: float = 10e3, opamp: OpAmp | None = None,
-               candidates: int = 80) -> Synthesis:
+               candidates: int = 80, crossings: str | tuple[float, float] = "all") -> Synthesis:
     """Design a network of ``kind`` for the plant(s) ``corners``.
 
     Parameters
@@ -433,18 +367,24 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
         Finite op-amp, or None for an ideal one.
     candidates
         Number of crossover frequencies tried (automatic crossover only).
+    crossings
+        Which crossings must meet the targets ("all", "main" or a band in Hz,
+        :mod:`benchfit.loop.passrules`), as for the design's ``targets_met``.
 
     Returns
     -------
     Synthesis
-        With ``notes`` saying when the targets could not be met at a given crossover.
+        Meeting the targets by the pass rule on the dense analysis, or (given
+        crossover only) the closest miss with a note "targets not met at ...",
+        quoting the dense analysis's shortfalls.
 
     Raises
     ------
     DesignError
         When no crossover in the plants' common band meets the targets
-        (automatic), the given crossover lies outside that band, or the
-        network cannot give the boost needed (given crossover).
+        (automatic: the message quotes the closest miss), the given crossover
+        lies outside that band, or the network cannot give the boost needed
+        (given crossover).
     """
     kind = check_kind(kind)
     if method not in METHODS:
@@ -452,15 +392,16 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
                          source="--method")
     if not (math.isfinite(r_in) and r_in > 0):
         raise InputError(f"input resistor {r_in!r}; expected a value > 0 ohm", source="--r-in")
+    crossings = check_crossings(crossings)
     corners = [corners] if isinstance(corners, LoopPlant) else list(corners)
     if not corners:
         raise InputError("no plant given")
-    placer = _Placer(kind, corners, targets, float(r_in), opamp)
+    placer = _Placer(kind, corners, targets, float(r_in), opamp, crossings)
 
     def finish(res: Synthesis, extra: list[str]) -> Synthesis:
         notes = list(res.notes) + extra
         roc = res.rate_of_closure_db
-        if method == "crossing" and abs(roc - 20.0) > 10.0:
+        if method == "crossing" and not closes_near_20db(roc):
             notes.append(f"rate of closure at {numfmt.eng(res.crossover_hz, 'Hz')} is {roc:.0f} dB/decade, "
                          "not the 20 dB/decade the crossing method aims for")
         return Synthesis(**{**res.__dict__, "method": method, "notes": tuple(notes)})
@@ -468,7 +409,7 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
     if targets.crossover_hz is not None:
         fc = float(targets.crossover_hz)
         check_crossover_in_band(fc, corners)
-        res, pm, gm, fallback = placer.at(fc)
+        res, fallback, _ = placer.at(fc)
         if res is not None:
             return finish(res, [])
         if fallback is None:
@@ -476,8 +417,7 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
             place(kind, complex(corners[0].response(np.array([fc]))[0]), fc,
                   targets.phase_margin_deg, r_in)
             raise DesignError(f"no {kind} placement at {numfmt.eng(fc, 'Hz')}")
-        why = (f"worst phase margin {numfmt.deg(pm)}, worst gain margin {numfmt.db(gm)}" if np.isfinite(pm)
-               else "the closed loop is unstable or crosses over elsewhere on some plant")
+        why = miss_text(placer.verify(fallback.network, fc))
         return finish(fallback, [f"targets not met at {numfmt.eng(fc, 'Hz')}: {why}"])
     lo, hi = common_band(corners)
     if opamp is not None:
@@ -487,29 +427,33 @@ def synthesize(kind: str, corners: LoopPlant | Sequence[LoopPlant], targets: Tar
     # keep clear of the band edges: slopes and data near them are least trusted
     grid = np.logspace(np.log10(lo * 2), np.log10(hi / 2), candidates)[::-1]
     if method == "crossing":
-        roc = rate_of_closure(kind, corners[0], grid)
-        grid = grid[np.abs(roc - 20.0) <= 10.0]
+        grid = grid[closes_near_20db(rate_of_closure(kind, corners[0], grid))]
         if grid.size == 0:
             raise DesignError(f"nowhere in {numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')} does a {kind} network meet the "
                               "plant with a 20 dB/decade rate of closure; try another network")
-    best = (-np.inf, None)
-    impractical = None  # highest crossover meeting the targets only with impractical parts
-    for fc in grid:
-        res, pm, gm, _ = placer.at(float(fc))
-        if res is not None:
-            if not res.network.practical_warnings():
-                return finish(res, [f"crossover chosen automatically: highest of {len(grid)} "
-                                    f"tried in {numfmt.eng(grid[-1], 'Hz')} to {numfmt.eng(grid[0], 'Hz')} meeting the "
-                                    "targets with parts in the practical range"])
-            impractical = impractical or res
-        if pm > best[0]:
-            best = (pm, fc)
-    if impractical is not None:
-        return finish(impractical, ["crossover chosen automatically: no crossover meets the "
-                                    "targets with parts in the practical range; the highest "
-                                    "meeting them is used"])
+    misses: list[tuple[float, Synthesis]] = []
+
+    def meeting():
+        for fc in grid:
+            res, fallback, pm = placer.at(float(fc))
+            if res is not None:
+                yield res
+            elif fallback is not None:
+                misses.append((pm, fallback))
+
+    res, practical = choose_automatic(meeting())
+    if res is not None:
+        return finish(res, [f"crossover chosen automatically: highest of {len(grid)} tried in "
+                            f"{numfmt.eng(grid[-1], 'Hz')} to {numfmt.eng(grid[0], 'Hz')} meeting the targets with parts in "
+                            "the practical range" if practical else
+                            "crossover chosen automatically: no crossover meets the targets with "
+                            "parts in the practical range; the highest meeting them is used"])
+    closest = ""
+    if misses:
+        _, near = misses[closest_candidate([m[0] for m in misses])]
+        closest = (f" (closest: at {numfmt.eng(near.crossover_hz, 'Hz')}, "
+                   f"{miss_text(placer.verify(near.network, near.crossover_hz))})")
     raise DesignError(
         f"no crossover in {numfmt.eng(grid[-1], 'Hz')} to {numfmt.eng(grid[0], 'Hz')} meets phase margin >= "
-        f"{targets.phase_margin_deg:g}° and gain margin >= {targets.gain_margin_db:g} dB with a "
-        f"{kind} network" + ("" if best[1] is None else
-                             f" (best worst-corner phase margin {numfmt.deg(best[0])} at {numfmt.eng(best[1], 'Hz')})"))
+        f"{targets.phase_margin_deg:g}° and gain margin >= {targets.gain_margin_db:g} dB "
+        f"({describe(crossings)} counted) with a {kind} network{closest}")
