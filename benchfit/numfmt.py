@@ -166,6 +166,22 @@ def quantity(value: float, unit: str, digits: int = DIGITS) -> str:
     return eng(value, sym, digits)
 
 
+def to_resolution(value: float, resolution: float) -> float:
+    """``value`` with what lies below half of ``resolution`` read as zero.
+
+    For a figure known only to a step (a sample time is known to the sample
+    interval): ``to_resolution(-1.36e-20, 500e-9) -> 0.0``, so the text reads
+    ``0 s`` rather than the rounding residue of the time axis.  Larger values
+    are returned as they are; a resolution that is not a finite positive
+    number changes nothing.
+    """
+    x = _finite(value)
+    r = _finite(resolution)
+    if x is None or r is None or r <= 0:
+        return value
+    return 0.0 if abs(x) < 0.5 * r else x
+
+
 def or_reason(value: float, text: str, reason: str) -> str:
     """``text`` when ``value`` is a finite number, else ``reason`` (the words saying why it is not defined)."""
     return text if _finite(value) is not None else reason

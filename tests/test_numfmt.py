@@ -52,3 +52,13 @@ def test_not_finite_in_words():
     assert numfmt.deg(None) == "not defined"
     assert numfmt.or_reason(math.nan, "x", "no phase crossing in the band") == "no phase crossing in the band"
     assert numfmt.or_reason(3.0, "x", "why") == "x"
+
+
+def test_a_figure_known_to_a_resolution_reads_zero_below_half_of_it():
+    # The measured step instant is a sample time: -1.36e-20 s on a 500 ns grid is the
+    # time axis's rounding residue of the sample at 0, and reads as 0 s.
+    assert numfmt.eng(numfmt.to_resolution(-1.36e-20, 500e-9), "s") == "0 s"
+    assert numfmt.to_resolution(-1e-6, 500e-9) == -1e-6
+    assert numfmt.to_resolution(300e-9, 500e-9) == 300e-9
+    assert numfmt.to_resolution(1e-20, float("nan")) == 1e-20
+    assert math.isnan(numfmt.to_resolution(float("nan"), 1e-6))

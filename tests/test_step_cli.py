@@ -135,3 +135,36 @@ def test_bad_traces_one_line_exit_2(tmp_path, capsys):
         assert code == 2
         assert err.startswith("benchfit: error:") and err.count("\n") == 1
         assert needle in err
+
+
+SAMPLE_LOAD = __import__("pathlib").Path(__file__).resolve().parents[1] / "sample_data" / "load_step_trace.csv"
+
+
+def test_undetermined_zeta_gives_no_phase_margin_and_the_channel_is_named(capsys):
+    # The sample load-step file holds Iout (A) and Vout AC (V); without --channel the reference
+    # step mode measures the first column, a square current step sampled too coarsely to show
+    # its shape (rise within one sample): ζ is not determined, so neither is the margin.
+    code, out, err = _run(capsys, "step", SAMPLE_LOAD)
+    assert code == 0, err
+    sec = out.split("Phase margin estimated")[1].split("\n\n")[0]
+    assert "not determined" in sec and "±" not in sec and "100·ζ" not in sec, sec
+    assert "step instant             0 s" in out, out
+    assert "measured 'Iout', the first column" in out and "--load-step" in out
+    code, out, err = _run(capsys, "step", SAMPLE_LOAD, "--json")
+    d = json.loads(out)
+    assert d["phase_margin_estimate_deg"] is None and d["phase_margin_rule_of_thumb_deg"] is None
+    assert d["phase_margin"]["not_determined"].startswith("the step rises within")
+    # A load step takes the voltage channel and says why.
+    code, out, err = _run(capsys, "step", SAMPLE_LOAD, "--load-step", "--json")
+    d = json.loads(out)
+    assert d["measurement"]["channel"] == "Vout AC"
+    assert any("measured 'Vout AC', the first channel in volts" in w for w in d["warnings"])
+
+
+def test_a_given_step_time_on_an_unresolved_edge_is_no_traceback(capsys):
+    # --step-time just after the edge of a current step that rises within one sample: the
+    # measured rise is 0; the fit starts from one sample instead of dividing by it.
+    code, out, err = _run(capsys, "step", SAMPLE_LOAD, "--step-time", "100n")
+    assert code == 0, err
+    assert "step instant             100 ns" in out  # given, so printed as given
+    assert "not determined" in out.split("Phase margin estimated")[1]

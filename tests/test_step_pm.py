@@ -1,5 +1,7 @@
 """Phase margin from ζ against python-control's margins on the equivalent open loop."""
 
+import json
+
 import control
 import numpy as np
 import pytest
@@ -65,3 +67,27 @@ def test_end_to_end_step_of_a_loop_gives_its_margin():
     _, pm, _, _, wc, _ = control.stability_margins(control.tf([wn**2], [1, 2 * zeta * wn, 0]))
     assert abs(est.phase_margin_deg - pm) < 3 * est.phase_margin_stderr_deg + 0.05
     assert est.crossover_hz == pytest.approx(wc / (2 * np.pi), rel=0.01)
+
+
+def test_zeta_not_determined_weighs_the_edge_resolution_and_the_sigma():
+    from benchfit.steps.pm import MIN_RISE_SAMPLES, zeta_not_determined
+    dt = 1e-6
+    assert zeta_not_determined(0.5, 0.05, 20 * dt, dt) == ""
+    assert "rises within" in zeta_not_determined(0.5, 0.05, 0.8 * dt, dt)
+    assert zeta_not_determined(0.5, 0.05, MIN_RISE_SAMPLES * dt, dt) == ""
+    assert "standard error" in zeta_not_determined(0.6, 4.3, 20 * dt, dt)
+    assert zeta_not_determined(0.3, float("nan")) == ""  # a ζ of the log decrement: no σ
+
+
+def test_an_estimate_from_an_undetermined_zeta_has_no_figure():
+    from benchfit.fileio import to_json_text
+    from benchfit.steps.pm import PhaseMarginEstimate, estimate_phase_margin
+    e = estimate_phase_margin(0.6, 4.3, 1.2e6, not_determined="ζ = 0.6 ± 4.3")
+    assert not e.determined and e.not_determined == "ζ = 0.6 ± 4.3"
+    assert all(np.isnan(x) for x in (e.phase_margin_deg, e.phase_margin_stderr_deg,
+                                     e.rule_of_thumb_deg, e.crossover_hz))
+    d = json.loads(to_json_text(e.to_dict()))
+    assert d["phase_margin_deg"] is None and d["rule_of_thumb_deg"] is None
+    back = PhaseMarginEstimate.from_dict(d)
+    assert back.not_determined == e.not_determined and not back.determined
+    assert estimate_phase_margin(0.5, 0.05, 1e3).determined

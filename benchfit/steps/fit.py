@@ -47,6 +47,7 @@ from benchfit.steps.models import (
     unit_second_order_slope,
     zeta_from_overshoot_pct,
 )
+from benchfit.steps.pm import MIN_RISE_SAMPLES
 
 MODELS = ("second-order", "third-order", "loop")
 #: Every model a StepFit can hold (the load-step model is fitted by fit_load_step).
@@ -149,7 +150,10 @@ def _unit_crossings(zeta: float) -> tuple[float, float]:
 
 def _second_order_start(m: StepMeasurement, zeta: float) -> dict[str, float]:
     a10, a90 = _unit_crossings(round(zeta, 4))
-    wn = (a90 - a10) / m.rise_time_s
+    # A rise measured as 0 (both crossings on one sample, e.g. with --step-time) is one
+    # sample at most: start from there rather than divide by zero.
+    rise = m.rise_time_s if math.isfinite(m.rise_time_s) and m.rise_time_s > 0 else m.sample_interval_s
+    wn = (a90 - a10) / rise
     t0 = 0.5 * ((m.t10_s - a10 / wn) + (m.t90_s - a90 / wn))
     return {"zeta": zeta, "fn_hz": wn / TWO_PI, "initial_v": m.initial_v, "step_v": m.step_v, "t0_s": t0}
 
@@ -439,7 +443,7 @@ def _package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source
     if rho > 0.3:
         warnings.append(f"residuals are correlated (lag-1 {rho:.2f}): noise is band-limited or the model "
                         f"misses something; standard errors widened by {infl:.2f}x")
-    if getattr(m, "rise_time_s", np.inf) < 3.0 * m.sample_interval_s:
+    if getattr(m, "rise_time_s", np.inf) < MIN_RISE_SAMPLES * m.sample_interval_s:
         warnings.append(f"the step rises within {m.rise_time_s / m.sample_interval_s:.2g} samples: the "
                         "record does not resolve its shape, so ζ and fn are not determined by it")
     ratio = rms / m.noise_v if m.noise_v > 0 else float("nan")

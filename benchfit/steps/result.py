@@ -154,12 +154,12 @@ class StepResult:
                  f"{m.samples} samples at {_si(m.sample_interval_s, 's')}", "", "Measured (model-free)"]
         rows = [("initial level", _si(m.initial_v, "V")), ("final level", _si(m.final_v, "V"))]
         if isinstance(m, StepMeasurement):
-            rows += [("step", _si(m.step_v, "V")), ("step instant", _si(m.step_time_s, "s")),
+            rows += [("step", _si(m.step_v, "V")), ("step instant", _instant(m)),
                      ("overshoot", _si(m.overshoot_pct, "%")), ("undershoot", _si(m.undershoot_pct, "%")),
                      ("rise time 10-90 %", _si(m.rise_time_s, "s")), ("peak time", _si(m.peak_time_s, "s")),
                      (f"settling time ±{numfmt.sig(100 * m.band)} %", _si(m.settling_time_s, "s"))]
         else:
-            rows += [("level shift", _si(m.shift_v, "V")), ("step instant", _si(m.step_time_s, "s")),
+            rows += [("level shift", _si(m.shift_v, "V")), ("step instant", _instant(m)),
                      ("peak deviation", _si(m.deviation_v, "V")), ("time of peak", _si(m.peak_time_s, "s")),
                      (f"recovery time ±{_si(m.band_v, 'V')}", _si(m.recovery_time_s, "s"))]
             if math.isfinite(m.current_step_a):
@@ -178,10 +178,14 @@ class StepResult:
         if self.phase_margin:
             pm = self.phase_margin
             basis = "fitted ζ" if self.fits else "ζ of the log decrement"
-            lines += ["", f"Phase margin estimated from the {basis}",
-                      f"  {'exact second order':<24} {numfmt.deg(pm.phase_margin_deg)} ± "
-                      f"{numfmt.deg(pm.phase_margin_stderr_deg)} (crossover {_si(pm.crossover_hz, 'Hz')})",
-                      f"  {'100·ζ':<24} {numfmt.deg(pm.rule_of_thumb_deg)}  [{RULE_OF_THUMB_NOTE}]"]
+            if not pm.determined:
+                lines += ["", f"Phase margin estimated from the {basis}",
+                          f"  {'phase margin':<24} not determined: {pm.not_determined}"]
+            else:
+                lines += ["", f"Phase margin estimated from the {basis}",
+                          f"  {'exact second order':<24} {numfmt.deg(pm.phase_margin_deg)} ± "
+                          f"{numfmt.deg(pm.phase_margin_stderr_deg)} (crossover {_si(pm.crossover_hz, 'Hz')})",
+                          f"  {'100·ζ':<24} {numfmt.deg(pm.rule_of_thumb_deg)}  [{RULE_OF_THUMB_NOTE}]"]
         if self.comparison:
             c = self.comparison
             lines += ["", f"Measured vs predicted ({c.against})",
@@ -207,6 +211,17 @@ def _si(x: float, unit: str) -> str:
     if x is None or not math.isfinite(x):
         return numfmt.NOT_DEFINED
     return numfmt.quantity(x + 0.0, unit)   # + 0.0 turns -0 into 0
+
+
+def _instant(m) -> str:
+    """The step instant: found from the trace it is a sample time, so known to the sample
+    interval; given by the user (--step-time) it is printed as given."""
+    t_s = m.step_time_s
+    if t_s is None or not math.isfinite(t_s):
+        return numfmt.NOT_DEFINED
+    if m.provenance.settings.get("step_time_s") is not None:
+        return _si(t_s, "s")
+    return numfmt.eng(numfmt.to_resolution(t_s, m.sample_interval_s), "s")
 
 
 def _ringing_text(freq_hz: float, log_decrement: float, lobes: int) -> tuple[str, str]:
