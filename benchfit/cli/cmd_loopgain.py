@@ -78,13 +78,15 @@ def run(args: argparse.Namespace) -> int:
         how = "open- and closed-loop output impedance"
     path = write_sweep_csv(t, args.output)
     m = margins_of_loop(t)
-    extra = lr.amplification_warning(t, "injection" if pairs["injection"] else "ratio")
+    extra = [w for w in (lr.noise_drop_warning(t),
+                         lr.amplification_warning(t, "injection" if pairs["injection"] else "ratio"))
+             if w]
     if not args.json:
-        for w in ((extra,) if extra else ()) + m.warnings:
+        for w in tuple(extra) + m.warnings:
             warn(w)
     data = {"output": str(path), "method": how, "points": len(t), "f_min_hz": t.f_min_hz,
-            "f_max_hz": t.f_max_hz, "margins": m.to_dict(), "warnings": [extra] if extra else []}
+            "f_max_hz": t.f_max_hz, "margins": m.to_dict(), "warnings": extra}
     emit(args, data, f"loop gain from {how}: {len(t)} points, {t.f_min_hz:.4g}..{t.f_max_hz:.4g} Hz\n"
                      f"PM {m.phase_margin_deg:.1f}° at {m.crossover_hz:.4g} Hz, GM {m.gain_margin_db:.1f} dB"
-                     f"{'' if m.closed_loop_stable else '  UNSTABLE'}\nwrote {path}")
+                     f"{'' if m.closed_loop_stable else '  ' + (m.verdict or 'unstable').upper()}\nwrote {path}")
     return 0

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from benchfit import numfmt
 from benchfit.fitting.model import PlantModel
 from benchfit.fitting.order import Attempt
 from benchfit.fitting.parameters import TWO_PI, to_zpk
@@ -127,7 +128,7 @@ def poorly_identified(p: Parameter, f_min: float, f_max: float) -> bool:
 def at_bound_warning(names, params) -> str:
     """The warning for parameters that ended on the user's bound: no σ for them."""
     val = {p.name: p for p in params}
-    said = ", ".join(f"{n} = {val[n].value:.4g}{' ' + val[n].unit if val[n].unit else ''}"
+    said = ", ".join(f"{n} = {numfmt.quantity(val[n].value, val[n].unit, numfmt.FIT_DIGITS)}"
                      for n in names)
     return (f"at bound: {said}; the data pull it past the bound (the --bound given, or zero for "
             "a stable pole or a causal delay), so the covariance is not valid there and no σ is "

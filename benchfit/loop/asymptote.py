@@ -189,13 +189,16 @@ def fit_asymptote_rows(freq_hz, T) -> AsymptoteRows:
         b_n = -n * np.pi / 2 + np.pi * np.rint((b_free + n * np.pi / 2) / np.pi)
         rp = _rss(ph_m[:, 1:], yph - b_n[:, None])
         chi[:, j] = (rm - rss_m) / s2_m + (rp - rss_p) / s2_p
-    best, decided, plausible = choose_integrators(chi, n_free, sigma_n)
+    sigma_b = np.sqrt(np.linalg.pinv(ph_m.T @ ph_m)[0, 0] * s2_p)
+    best, decided, plausible = choose_integrators(chi, n_free, sigma_n,
+                                                  -b_free / (np.pi / 2), sigma_b / (np.pi / 2))
     return AsymptoteRows(n=best, decided=decided, plausible=plausible, slope_n=n_free,
                          slope_sigma=sigma_n, phase_deg=np.degrees(b_free),
                          f_lo_hz=float(f[w[0]]), f_hi_hz=float(f[w[-1]]))
 
 
-def choose_integrators(chi2, slope_n, slope_sigma) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def choose_integrators(chi2, slope_n, slope_sigma, phase_n=None,
+                       phase_sigma=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The integrator count the low end supports, and whether it is decided (rows at once).
 
     Evidence weighed: for each whole n = 0 … :data:`MAX_INTEGRATORS`, ``chi2[row, n]``
@@ -209,6 +212,20 @@ def choose_integrators(chi2, slope_n, slope_sigma) -> tuple[np.ndarray, np.ndarr
     sweep has not reached its asymptote) it also holds the whole numbers
     either side of the slope's 3σ range (``slope_n`` ± 3 ``slope_sigma``; a
     slope within :data:`SLOPE_SNAP` of a whole n does not open its neighbour).
+
+    When the phase is given too (``phase_n`` = −B/90°, the free fit's
+    asymptotic phase in units of one integrator, ± ``phase_sigma``), a sweep
+    that has not reached its asymptote is judged by the phase instead of
+    the magnitude slope: the magnitude slope at the bottom of the band is
+    still bending (a corner just below or above it), while the asymptotic
+    phase of a minimum-phase loop lies between −90°·n and the next corner's
+    −90°.  ``plausible`` is then every n within the phase's 3σ range (with
+    :data:`SLOPE_SNAP`), plus every n whose χ², rescaled so that the best n
+    just fits (its misfit taken as the scatter, σ scaled by √(χ²/ACCEPT)),
+    is within :data:`DECIDE_CHI2` of the best.  A slope of 0.02 ± 0.001
+    with a phase of 0° then allows 0 only (1 integrator costs −90° of phase
+    the data do not show); a sweep starting above its first pole (slope
+    1.04, phase −74°) allows 0 or 1, never 2.
 
     Returns
     -------
@@ -226,6 +243,17 @@ def choose_integrators(chi2, slope_n, slope_sigma) -> tuple[np.ndarray, np.ndarr
     hi = np.minimum(np.ceil(slope_n + 3 * slope_sigma - SLOPE_SNAP), ns[-1])
     hi = np.maximum(hi, lo)
     around = (ns[None, :] >= lo[:, None]) & (ns[None, :] <= hi[:, None])
+    if phase_n is not None:
+        phase_n = np.atleast_1d(np.asarray(phase_n, dtype=float))
+        phase_sigma = np.atleast_1d(np.asarray(
+            np.zeros_like(phase_n) if phase_sigma is None else phase_sigma, dtype=float))
+        plo = np.maximum(np.floor(phase_n - 3 * phase_sigma + SLOPE_SNAP), 0)
+        phi = np.minimum(np.ceil(phase_n + 3 * phase_sigma - SLOPE_SNAP), ns[-1])
+        phi = np.maximum(phi, plo)
+        by_phase = (ns[None, :] >= plo[:, None]) & (ns[None, :] <= phi[:, None])
+        scaled = chi2 * (ACCEPT_CHI2 / np.maximum(low, ACCEPT_CHI2))[:, None]
+        by_chi2 = scaled - scaled.min(axis=1, keepdims=True) < DECIDE_CHI2
+        around = by_phase | by_chi2
     plausible |= ~fits[:, None] & around
     decided = fits & (plausible.sum(axis=1) == 1)
     return best, decided, plausible

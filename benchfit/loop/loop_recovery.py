@@ -28,6 +28,21 @@ number for β and the ideal gain) and returns a loop-gain sweep
 (``quantity = "loop"``) on the first sweep's frequencies; a second sweep on
 other frequencies is interpolated (log magnitude and unwrapped phase, linear
 in log f) and points outside its span are dropped.
+
+**Noise.**  From the closed loop, T = x/(1 − x) with x = Gβ, so a relative
+error ε of the measured G becomes a relative error of about |1 + T|·ε in T;
+from the impedances, T = Z_ol/Z_cl − 1 and the error is |1 + T|/|T|·ε.  The
+closed-loop sweep's own relative noise σ (its point-to-point scatter,
+:func:`benchfit.fitting.weights.point_sigma`, or its stddev / coherence /
+weight columns; a β sweep's noise adds in quadrature) gives the expected
+error σ·|1 + T| of every recovered point, and :func:`noise_limited` drops the
+points where it exceeds :data:`MAX_RECOVERED_ERROR` (where |T| is large, T
+there is the noise multiplied by |1 + T|: its phase is random and its
+Nyquist count means nothing).  What was dropped is recorded in the
+provenance settings and :func:`noise_drop_warning` says it.  The injection
+and impedance pairs are not trimmed (the impedances' error grows where |T|
+is small, not large; the scatter of a clean but sparse sweep's curvature
+would read as noise there).
 """
 
 from __future__ import annotations
@@ -36,6 +51,7 @@ import numpy as np
 
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError
+from benchfit.fitting.weights import point_sigma
 from benchfit.loop.loopgain import interp_response
 
 #: |1 − x| (or |Tv + Ti + 2|, |Z_cl|) below this, relative, makes a point unusable: T is infinite there.
@@ -68,16 +84,77 @@ def _subset(r: FrequencyResponse, keep: np.ndarray) -> FrequencyResponse:
                              quantity=r.quantity, meta=dict(r.meta), provenance=r.provenance)
 
 
+#: Largest expected relative error of a recovered point that is kept: σ·|1 + T| at most 0.1, i.e. about 0.9 dB and 6 deg of noise on T (our own
+#: figure: small beside any margin a designer reads, and it keeps the Nyquist curve's phase
+#: within a fraction of a turn between neighbouring points)
+MAX_RECOVERED_ERROR = 0.1
+
+
+def measured_sigma(r: FrequencyResponse) -> np.ndarray:
+    """Relative noise σ of each point of a measured sweep (per component: nepers of ln|H|,
+    radians of phase, their rms), from its own scatter or columns
+    (:func:`benchfit.fitting.weights.point_sigma`)."""
+    if np.all(r.response == r.response[0]):        # a constant (β as a sweep): no scatter
+        return np.zeros(len(r))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ps = point_sigma(r.response, stddev=r.stddev, coherence=r.coherence, weight=r.weight)
+    return np.sqrt(0.5 * (ps.mag ** 2 + ps.phase ** 2))
+
+
+def noise_limited(expected_error: np.ndarray, bound: float = MAX_RECOVERED_ERROR) -> np.ndarray:
+    """The recovered points to keep: those whose expected relative error is within ``bound``.
+
+    Evidence weighed: ``expected_error`` per point, the measurement's relative
+    noise σ (from its scatter) times the factor by which the recovery
+    multiplies it (|1 + T| for T = x/(1 − x)).  A point is kept when that error is at most ``bound``
+    (:data:`MAX_RECOVERED_ERROR`); nothing else (|T| itself, the frequency) is
+    weighed.  Returns a boolean mask.
+    """
+    e = np.asarray(expected_error, dtype=float)
+    return np.isfinite(e) & (e <= bound)
+
+
 def _result(base: FrequencyResponse, num: np.ndarray, den: np.ndarray, method: str,
-            settings: dict) -> FrequencyResponse:
+            settings: dict, sigma: np.ndarray | None = None) -> FrequencyResponse:
     bad = np.abs(den) <= SINGULAR * np.maximum(np.abs(num), 1.0)
     if bad.all():
         raise InputError(f"{method}: the measurements give an infinite loop gain at every point")
-    base = _subset(base, ~bad)
     t = num[~bad] / den[~bad]
-    return base.with_response(t, quantity="loop", step="loop_recovery",
-                              settings={"method": method, **settings,
-                                        "dropped_points": int(bad.sum())})
+    settings = {"method": method, **settings, "dropped_points": int(bad.sum())}
+    keep = ~bad
+    if sigma is not None:
+        sig = np.asarray(sigma, dtype=float)[~bad]
+        amp = np.abs(1.0 + t)
+        ok = noise_limited(sig * amp)
+        if not ok.any():
+            raise InputError(f"{method}: the measured noise (relative {np.median(sig):.2g}) times "
+                             f"the recovery's error gain leaves no point of T within "
+                             f"{MAX_RECOVERED_ERROR:g} relative error")
+        if not ok.all():
+            fd = base.freq_hz[~bad][~ok]
+            settings.update(noise_sigma=float(np.median(sig)), noise_bound=MAX_RECOVERED_ERROR,
+                            noisy_points=int((~ok).sum()), noisy_from_hz=float(fd.min()),
+                            noisy_to_hz=float(fd.max()),
+                            noisy_error_max=float(np.max(sig[~ok] * amp[~ok])),
+                            noisy_factor="|1+T|")
+        keep = keep.copy()
+        keep[np.flatnonzero(~bad)[~ok]] = False
+        t = t[ok]
+    base = _subset(base, keep)
+    return base.with_response(t, quantity="loop", step="loop_recovery", settings=settings)
+
+
+def noise_drop_warning(t: FrequencyResponse) -> str | None:
+    """The warning for the points :func:`noise_limited` dropped from a recovered T, or None."""
+    s = t.provenance.settings
+    if not s.get("noisy_points"):
+        return None
+    return (f"dropped {s['noisy_points']} point(s) of the recovered T between "
+            f"{s['noisy_from_hz']:.4g} and {s['noisy_to_hz']:.4g} Hz: there the measurement's "
+            f"relative noise (about {s['noise_sigma']:.2g}, from its scatter) times "
+            f"{s['noisy_factor']} gives T an expected relative error above "
+            f"{s['noise_bound']:g} (up to {s['noisy_error_max']:.3g}), so T there is noise; the "
+            "verdict and margins use the rest")
 
 
 def loop_from_closed_loop(closed: FrequencyResponse, beta: FrequencyResponse | complex | float
@@ -99,6 +176,7 @@ def loop_from_closed_loop(closed: FrequencyResponse, beta: FrequencyResponse | c
     if (beta is None) == (ideal_gain is None):
         raise InputError("give the feedback factor β or the ideal closed-loop gain, one of them",
                          source="--beta")
+    other = beta if beta is not None else ideal_gain
     if beta is not None:
         base, b = _on_grid(closed, beta, "beta")
         x = base.response * b
@@ -108,7 +186,18 @@ def loop_from_closed_loop(closed: FrequencyResponse, beta: FrequencyResponse | c
         x = base.response / g
         how = {"ideal_gain": "sweep" if isinstance(ideal_gain, FrequencyResponse)
                else complex(ideal_gain).real}
-    return _result(base, x, 1.0 - x, "closed-loop", how)
+    sig = measured_sigma(base)
+    if isinstance(other, FrequencyResponse):
+        sig = np.hypot(sig, _sigma_on(other, base.freq_hz))
+    return _result(base, x, 1.0 - x, "closed-loop", how, sig)
+
+
+def _sigma_on(r: FrequencyResponse, freq_hz: np.ndarray) -> np.ndarray:
+    """:func:`measured_sigma` of ``r`` at ``freq_hz`` (nearest point in log f)."""
+    sig = measured_sigma(r)
+    if np.array_equal(r.freq_hz, freq_hz):
+        return sig
+    return np.interp(np.log10(freq_hz), np.log10(r.freq_hz), sig)
 
 
 def loop_from_injection(tv: FrequencyResponse, ti: FrequencyResponse) -> FrequencyResponse:
