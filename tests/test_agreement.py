@@ -120,9 +120,11 @@ def test_rate_of_closure_has_one_value_and_says_where(views):
     for view in (views["text"], views["html"], views["figs"]["crossing"]):
         found = set(re.findall(r"rate of closure (-?\d+) dB/decade", view))
         assert found == {f"{s['rate_of_closure_db']:.0f}"}, found
-    # the placement record in design.json is the same computation (ideal parts at the target)
-    assert db_per_decade(views["design_json"]["synthesis"]["rate_of_closure_db"]) == \
-        db_per_decade(s["rate_of_closure_db"])
+    # the placement record in design.json is the same computation on the ideal parts at the
+    # target crossover (no view quotes it): close to the snapped figure, never the network's
+    # asymptotic slope (which read 21 dB/decade where the actual responses give 25)
+    ideal = views["design_json"]["synthesis"]["rate_of_closure_db"]
+    assert abs(ideal - s["rate_of_closure_db"]) < 1.5, (ideal, s["rate_of_closure_db"])
 
 
 def test_q_of_the_plant_reads_the_same_in_fit_report_table_and_picture(views):
