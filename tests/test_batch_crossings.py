@@ -23,7 +23,7 @@ def _write(path, sys_, f):
     T = sys_(2j * np.pi * f)
     with open(path, "w") as fh:
         fh.write("Frequency (Hz),Gain (dB),Phase (deg)\n")
-        for a, b, c in zip(f, 20 * np.log10(np.abs(T)), np.degrees(np.unwrap(np.angle(T)))):
+        for a, b, c in zip(f, 20 * np.log10(np.abs(T)), np.degrees(np.unwrap(np.angle(T))), strict=True):
             fh.write(f"{a:.9g},{b:.9f},{c:.9f}\n")
 
 
@@ -37,13 +37,13 @@ def test_second_gain_crossing_fails_the_unit_and_is_named(tmp_path):
     # gain crossing (wc) with its phase margin (pm); the main one passes 45 deg, others do not.
     gm, pm, sm, wpc, wgc, wms = ct.stability_margins(sys_, returnall=True)
     fgc, pm = np.asarray(wgc) / (2 * np.pi), np.asarray(pm)
-    ref_bad = sorted(fc for fc, m in zip(fgc, pm) if m < 45 and fc > 10e3)
+    ref_bad = sorted(fc for fc, m in zip(fgc, pm, strict=True) if m < 45 and fc > 10e3)
     assert len(ref_bad) >= 1
     assert pm[np.argmin(np.abs(fgc - 2.4e3))] > 45           # the main crossover alone passes
     assert row["status"] == "fail", row
     named = [float(x) for x in re.findall(r"at the gain crossing at ([0-9.e+]+) Hz", row["reason"])]
     assert len(named) == len(ref_bad)
-    for fc, ref in zip(sorted(named), ref_bad):
+    for fc, ref in zip(sorted(named), ref_bad, strict=True):
         assert abs(fc / ref - 1) < 0.01                       # 2001 log points: well inside 1 %
     assert "phase margin" in row["reason"]
 

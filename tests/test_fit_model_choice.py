@@ -132,7 +132,7 @@ def test_cli_order_fix_delay_none(tmp_path):
     mag = 20 * np.log10(np.abs(r.response))
     ph = np.degrees(np.angle(r.response))
     src.write_text("freq_hz,mag_db,phase_deg\n" + "".join(
-        f"{float(a)!r},{float(b)!r},{float(c)!r}\n" for a, b, c in zip(r.freq_hz, mag, ph)))
+        f"{float(a)!r},{float(b)!r},{float(c)!r}\n" for a, b, c in zip(r.freq_hz, mag, ph, strict=True)))
     out = subprocess.run([sys.executable, "-m", "benchfit", "fit", str(src), "--order", "2",
                           "--delay", "none", "--fix", "pole2_hz=350k", "--json"],
                          capture_output=True, text=True)

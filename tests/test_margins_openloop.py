@@ -7,8 +7,13 @@ import pytest
 import benchfit.fitting
 from benchfit.data import FrequencyResponse
 from benchfit.loop.loopfile import margins_of_loop
-from benchfit.loop.openloop import (RISE_SUSPECT_DEG, OpenLoopEvidence, excess_phase_rise,
-                                    minimum_phase_deg, rhp_verdict)
+from benchfit.loop.openloop import (
+    RISE_SUSPECT_DEG,
+    OpenLoopEvidence,
+    excess_phase_rise,
+    minimum_phase_deg,
+    rhp_verdict,
+)
 from benchfit.provenance import Provenance
 
 W = 2 * np.pi

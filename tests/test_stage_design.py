@@ -18,10 +18,10 @@ from benchfit.fitting.model import PlantModel
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.passrules import margins_meet
 from benchfit.loop.stage import StageDesign, design_stage, stage_spread
-from benchfit.loop.stage_snapping import pick_snapped
-from benchfit.loop.stage_synthesis import ON_TARGET_DEG
 from benchfit.loop.stage_crossing import closure_reading, crossing
 from benchfit.loop.stage_load import StageLoad
+from benchfit.loop.stage_snapping import pick_snapped
+from benchfit.loop.stage_synthesis import ON_TARGET_DEG
 from benchfit.loop.synthesis import Targets
 
 A0 = 1e5

@@ -46,7 +46,7 @@ def test_load_step_matches_the_converter_load_step():
     # the same loop for timeresponse.load_step: T and the open-loop impedance at the load node
     # Z_ol = Ro ‖ (ESR + 1/sC) ‖ (Rf + Rg‖...) written by hand (the feedback string loads it too)
     t_model = aol.cascade(net.model())
-    ro, c, esr, rfb = 20.0, 1e-6, 0.05, 20e3
+    ro, c, esr = 20.0, 1e-6, 0.05
     f = np.logspace(1, 8, 50)
     z_vals = net.at(f, "z_ol")
     s = 2j * np.pi * f

@@ -183,7 +183,9 @@ def test_type0_loop_verdict_and_margins_match_python_control(start_hz, noise):
     import control
 
     s_ = control.tf("s")
-    w = lambda x: 2 * np.pi * x
+    def w(x):
+        return 2 * np.pi * x
+
     true = 5 / ((1 + s_ / w(100)) * (1 + s_ / w(2e3)) * (1 + s_ / w(5e3)))
     gm, pm, _, _ = control.margin(true)
     assert np.all(np.real(control.poles(control.feedback(true, 1))) < 0)

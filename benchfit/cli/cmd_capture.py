@@ -103,7 +103,11 @@ def simulated_instrument(path: str, args: argparse.Namespace):
     """The simulated analyzer for --simulate, and the sweep it was built from (or, for a
     model file, the model)."""
     from benchfit.bench.benchlike import BenchAnalyzer
-    from benchfit.bench.simulator import SimulatedAnalyzer, analyzer_for_sweep, interpolated_response
+    from benchfit.bench.simulator import (
+        SimulatedAnalyzer,
+        analyzer_for_sweep,
+        interpolated_response,
+    )
 
     bench = bool(args.adaptive or args.noise_density or args.settle_cycles or args.saturation is not None)
     if bench:

@@ -20,13 +20,21 @@ from benchfit.fitting.delay import (
     excess_phase_delay,
     refine_delay,
 )
-from benchfit.fitting.order import CHI_OK, Attempt, Context, attempt, choose_order, max_order, polish
 from benchfit.fitting.groups import (
     conform,
     dropped_phase_as_delay,
     groups_above,
     in_groups,
     without,
+)
+from benchfit.fitting.order import (
+    CHI_OK,
+    Attempt,
+    Context,
+    attempt,
+    choose_order,
+    max_order,
+    polish,
 )
 from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk
 from benchfit.fitting.problem import SCAN_POINTS, Problem

@@ -18,9 +18,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from benchfit.fitting.delay import DELAY_MIN_PHASE
 from benchfit.fitting.groups import RHP_NEAR_TOP, cancelling, groups_above, in_groups, unidentified
 from benchfit.fitting.order import CHI_OK, NEGLIGIBLE, PLATEAU, Attempt
-from benchfit.fitting.delay import DELAY_MIN_PHASE
 from benchfit.fitting.parameters import TWO_PI, Structure
 from benchfit.fitting.problem import Problem
 from benchfit.fitting.refine import Refined

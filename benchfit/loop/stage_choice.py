@@ -9,11 +9,15 @@ from benchfit.errors import DesignError
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.stage_load import StageLoad
 from benchfit.loop.stage_networks import StageNetwork
-from benchfit.loop.stage_synthesis import (StageSynthesis, _margins, gain_resistors, stage_grid,
-                                           synthesize_stage)
+from benchfit.loop.stage_synthesis import (
+    StageSynthesis,
+    _margins,
+    gain_resistors,
+    stage_grid,
+    synthesize_stage,
+)
 from benchfit.loop.synthesis import Targets
 from benchfit.numfmt import eng
-
 
 #: The order networks are tried in by :func:`choose_network` (fewest parts, least cost first).
 AUTO_ORDER = ("lead", "lag-lead", "lag", "isolation", "snubber")

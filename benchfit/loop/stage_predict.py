@@ -35,8 +35,8 @@ from benchfit.loop.rational import POLY, VALUES, Algebra
 from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_response import closed_loop_values
 from benchfit.loop.timeresponse import StepResponse, state_space, step_metrics
-from benchfit.provenance import Provenance
 from benchfit.numfmt import eng
+from benchfit.provenance import Provenance
 
 #: Time samples of a predicted step.
 STEP_POINTS = 800
@@ -104,7 +104,7 @@ class _Lti:
         if abs(self.d) > 0:
             raise InputError("the op-amp model has a direct feed-through; a time response needs "
                              "a strictly proper Aol (more poles than zeros)")
-        n1, n2 = self.a.shape[0], h.a.shape[0]
+        n2 = h.a.shape[0]
         a = np.block([[self.a - self.b @ (h.d * self.c), -self.b @ h.c], [h.b @ self.c, h.a]])
         return _Lti(a, np.vstack([self.b, np.zeros((n2, 1))]), np.hstack([self.c, np.zeros((1, n2))]),
                     0.0)

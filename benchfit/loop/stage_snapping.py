@@ -15,8 +15,13 @@ from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.prediction import predict
 from benchfit.loop.stage_crossing import worst_pm
 from benchfit.loop.stage_networks import StageNetwork
-from benchfit.loop.stage_synthesis import (GAIN_TOL, StageSynthesis, _margins, snapped_gain_pairs,
-                                           stage_grid)
+from benchfit.loop.stage_synthesis import (
+    GAIN_TOL,
+    StageSynthesis,
+    _margins,
+    snapped_gain_pairs,
+    stage_grid,
+)
 from benchfit.loop.synthesis import Targets
 
 #: Gain pairs (impedance levels) tried when snapping.

@@ -39,8 +39,8 @@ import numpy as np
 from benchfit.errors import DesignError, InputError
 from benchfit.loop import eseries
 from benchfit.loop.loopgain import LoopPlant
-from benchfit.loop.stage_load import StageLoad
 from benchfit.loop.passrules import margins_meet
+from benchfit.loop.stage_load import StageLoad
 from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_refine import exact_margins, exact_pm, refine_on_exact
 from benchfit.loop.synthesis import Targets

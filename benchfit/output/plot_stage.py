@@ -18,8 +18,18 @@ from matplotlib.figure import Figure
 from benchfit.data.trace import TimeTrace
 from benchfit.numfmt import eng
 from benchfit.output.plot_common import FREQ_LABEL, dense_grid
-from benchfit.output.style import (EXTRA, MEASURED, MODEL, SECOND, TARGET, WARN, log_axis,
-                                   new_figure, note, styled)
+from benchfit.output.style import (
+    EXTRA,
+    MEASURED,
+    MODEL,
+    SECOND,
+    TARGET,
+    WARN,
+    log_axis,
+    new_figure,
+    note,
+    styled,
+)
 
 
 def _band(design) -> tuple[float, float]:

@@ -29,7 +29,11 @@ def stage_report_html(design: Any, *, title: str | None = None, step_trace: Any 
                       load_channel: str | None = None, measured_closed: Any = None,
                       step_v: float = 0.01, load_step_a: float = 0.01) -> tuple[str, Any]:
     """(HTML text, the prediction) of a stage design."""
-    from benchfit.output.plot_stage import crossing_figure, stage_prediction, stage_prediction_figure
+    from benchfit.output.plot_stage import (
+        crossing_figure,
+        stage_prediction,
+        stage_prediction_figure,
+    )
 
     pred = stage_prediction(design, step_v=step_v, load_step_a=load_step_a)
     figs = [("Where 1/β meets Aol", crossing_figure(design, measured_closed=measured_closed)),
