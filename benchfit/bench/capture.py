@@ -332,14 +332,14 @@ def resume_offset(scan: CaptureFile, rows_acknowledged: int, last_freq_hz: float
     return scan.row_ends[n - 1]
 
 
-class _StopFlag:
+class StopFlag:
     """First Ctrl-C asks the loop to stop after the current point; a second aborts."""
 
     def __init__(self) -> None:
         self.requested = False
         self._old = None
 
-    def __enter__(self) -> _StopFlag:
+    def __enter__(self) -> StopFlag:
         if threading.current_thread() is threading.main_thread():
             self._old = signal.signal(signal.SIGINT, self._handle)
         return self
@@ -641,7 +641,7 @@ class Capture:
         total = self.settings.points
         status = "complete"
         self.progress(m["rows"], total)
-        with _StopFlag() as stop:
+        with StopFlag() as stop:
             try:
                 for k in range(int(m["segments_done"]), len(segs)):
                     if stop.requested:

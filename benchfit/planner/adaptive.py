@@ -21,14 +21,13 @@ next is taken, and the sweep file is rebuilt from it (:mod:`benchfit.planner.rec
 from __future__ import annotations
 
 import math
-import signal
-import threading
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from benchfit.bench.capture import StopFlag  # Ctrl-C: stop after the current point
 from benchfit.errors import FitError, InputError
 from benchfit.planner import linearity as lin
 from benchfit.planner import placement as pl
@@ -92,28 +91,6 @@ class _Budget(Exception):
         self.reason = reason
 
 
-class _StopFlag:
-    """Ctrl-C asks the capture to stop after the current point; a second one aborts."""
-
-    def __init__(self) -> None:
-        self.requested = False
-        self._old = None
-
-    def __enter__(self) -> _StopFlag:
-        if threading.current_thread() is threading.main_thread():
-            self._old = signal.signal(signal.SIGINT, self._handle)
-        return self
-
-    def _handle(self, signum, frame) -> None:
-        if self.requested:
-            raise KeyboardInterrupt
-        self.requested = True
-
-    def __exit__(self, *exc) -> None:
-        if self._old is not None:
-            signal.signal(signal.SIGINT, self._old)
-
-
 class AdaptiveCapture:
     """One adaptive capture into ``out`` (see module notes).
 
@@ -153,7 +130,7 @@ class AdaptiveCapture:
         self.last_linearity: lin.LinearityResult | None = None
         self.linearity_notes: list[str] = []
         self.halvings = 0
-        self.stop_flag: _StopFlag | None = None
+        self.stop_flag: StopFlag | None = None
         self.band = (settings.start_hz, settings.stop_hz)
         self.model = None
         self.integrators: int | None = None
@@ -433,7 +410,7 @@ class AdaptiveCapture:
         spread = None
         result = None
         rounds = 0
-        with _StopFlag() as flag:
+        with StopFlag() as flag:
             self.stop_flag = flag
             try:
                 stopped = self._loop()
