@@ -29,17 +29,24 @@ import os
 import signal
 import threading
 from collections.abc import Callable
-from dataclasses import asdict, dataclass, field
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from benchfit.bench.blocks import parse_ascii
+from benchfit.bench.capturefile import (  # noqa: F401 - re-exported
+    CaptureFile,
+    _header_text,
+    _row,
+    manifest_path,
+    resume_offset,
+    scan_capture_file,
+)
+from benchfit.bench.capturesettings import MAX_POINTS, CaptureResult, CaptureSettings  # noqa: F401
 from benchfit.bench.profile import Profile
 from benchfit.bench.session import Session
-from benchfit.data.canonical import SWEEP_MAGIC, read_canonical_sweep
-from benchfit.data.response import QUANTITIES, FrequencyResponse
+from benchfit.data.canonical import read_canonical_sweep
+from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError, InstrumentError
 from benchfit.fileio import (
     append_lines_durable,
@@ -50,147 +57,9 @@ from benchfit.fileio import (
 )
 from benchfit.provenance import Provenance
 
-MAX_POINTS = 100001
-
 
 def _now() -> str:
     return _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
-
-
-@dataclass(frozen=True)
-class CaptureSettings:
-    """What to measure.
-
-    Parameters
-    ----------
-    start_hz, stop_hz
-        Sweep limits in Hz.
-    points
-        Points in the whole grid.
-    spacing
-        ``"log"`` or ``"lin"``.
-    level_v
-        Source level in V (None: leave the instrument's setting).
-    bandwidth_hz
-        Measurement bandwidth in Hz (None: leave it).
-    mode
-        ``"sweep"`` (instrument sweeps each segment) or ``"step"`` (point by point).
-    segment_points
-        Points per native sweep in sweep mode; 0 sweeps the whole grid at once.
-    quantity
-        What is measured (written to the file header).
-    """
-
-    start_hz: float
-    stop_hz: float
-    points: int
-    spacing: str = "log"
-    level_v: float | None = None
-    bandwidth_hz: float | None = None
-    mode: str = "sweep"
-    segment_points: int = 0
-    quantity: str = "unknown"
-
-    def validate(self) -> None:
-        """Raise :class:`InputError` naming the option that is out of range."""
-        if not (np.isfinite(self.start_hz) and self.start_hz > 0):
-            raise InputError(f"{self.start_hz} Hz: expected a positive frequency", source="--start")
-        if not (np.isfinite(self.stop_hz) and self.stop_hz > self.start_hz):
-            raise InputError(f"{self.stop_hz} Hz: expected a frequency above --start "
-                             f"({self.start_hz} Hz)", source="--stop")
-        if not 2 <= int(self.points) <= MAX_POINTS:
-            raise InputError(f"{self.points}: expected 2..{MAX_POINTS}", source="--points")
-        if self.spacing not in ("log", "lin"):
-            raise InputError(f"{self.spacing!r}: expected log or lin", source="--spacing")
-        if self.mode not in ("sweep", "step"):
-            raise InputError(f"{self.mode!r}: expected sweep or step", source="--mode")
-        if self.level_v is not None and not self.level_v > 0:
-            raise InputError(f"{self.level_v} V: expected a positive level", source="--level")
-        if self.bandwidth_hz is not None and not self.bandwidth_hz > 0:
-            raise InputError(f"{self.bandwidth_hz} Hz: expected a positive bandwidth", source="--bandwidth")
-        if self.segment_points < 0 or self.segment_points == 1:
-            raise InputError(f"{self.segment_points}: expected 0 (whole sweep) or at least 2",
-                             source="--segment-points")
-        if self.quantity not in QUANTITIES:
-            raise InputError(f"{self.quantity!r}: expected one of {QUANTITIES}", source="--quantity")
-
-    def grid(self) -> np.ndarray:
-        """The requested frequencies in Hz."""
-        i = np.arange(self.points) / (self.points - 1)
-        if self.spacing == "log":
-            return self.start_hz * (self.stop_hz / self.start_hz) ** i
-        return self.start_hz + (self.stop_hz - self.start_hz) * i
-
-    def segments(self) -> list[tuple[int, int]]:
-        """Index ranges ``[i0, i1)`` of the grid, one per native sweep or point."""
-        n = int(self.points)
-        if self.mode == "step":
-            return [(i, i + 1) for i in range(n)]
-        seg = self.segment_points if 0 < self.segment_points < n else n
-        out = [(i, min(i + seg, n)) for i in range(0, n, seg)]
-        if len(out) > 1 and out[-1][1] - out[-1][0] < 2:  # a sweep needs two points
-            out[-2:] = [(out[-2][0], n)]
-        return out
-
-    def to_dict(self) -> dict[str, Any]:
-        return asdict(self)
-
-    @classmethod
-    def from_dict(cls, d: dict[str, Any]) -> CaptureSettings:
-        return cls(**{k: d[k] for k in cls.__dataclass_fields__ if k in d})
-
-
-@dataclass(frozen=True)
-class CaptureResult:
-    """What a capture run did.
-
-    ``points_saved`` counts rows acknowledged in the manifest (on disk and fsync'd).
-    ``status`` is ``"complete"`` or ``"interrupted"`` (Ctrl-C).
-    """
-
-    path: str
-    manifest_path: str
-    status: str
-    points_saved: int
-    points_total: int
-    instrument: str
-    profile: str
-    resource: str
-    started: str
-    finished: str
-    settings: dict[str, Any]
-    session: dict[str, int] = field(default_factory=dict)
-    warnings: tuple[str, ...] = ()
-    provenance: Provenance = field(default_factory=lambda: Provenance(step="capture"))
-
-    @property
-    def complete(self) -> bool:
-        return self.status == "complete"
-
-    def to_dict(self) -> dict[str, Any]:
-        d = {k: getattr(self, k) for k in self.__dataclass_fields__}
-        d["warnings"] = list(self.warnings)
-        d["provenance"] = self.provenance.to_dict()
-        d["kind"] = "capture_result"
-        return d
-
-    @classmethod
-    def from_dict(cls, d: dict[str, Any]) -> CaptureResult:
-        kw = {k: d[k] for k in cls.__dataclass_fields__ if k in d}
-        kw["warnings"] = tuple(kw.get("warnings", ()))
-        kw["provenance"] = Provenance.from_dict(d.get("provenance"))
-        return cls(**kw)
-
-    def summary(self) -> str:
-        if self.complete:
-            return f"captured {self.points_saved} points into {self.path}"
-        return (f"stopped: {self.points_saved} of {self.points_total} points saved in {self.path}; "
-                "run the same command with --resume to continue")
-
-
-def manifest_path(out: str | os.PathLike) -> Path:
-    """Where the manifest of capture ``out`` lives."""
-    return Path(str(out) + ".capture.json")
 
 
 def to_complex(values: np.ndarray, form: str, *, what: str = "data") -> np.ndarray:
@@ -207,129 +76,6 @@ def to_complex(values: np.ndarray, form: str, *, what: str = "data") -> np.ndarr
         return a + 1j * b
     mag = 10.0 ** (a / 20.0) if form == "db_deg" else a
     return mag * np.exp(1j * np.radians(b))
-
-
-def _row(f: float, h: complex) -> str:
-    return f"{f:.12e},{h.real:.12e},{h.imag:.12e}"
-
-
-def _header_text(meta: dict[str, Any], prov: Provenance, quantity: str) -> str:
-    # The canonical sweep header (benchfit.data.canonical), written before any row.
-    return (f"{SWEEP_MAGIC}\n# quantity: {quantity}\n# meta: {json.dumps(meta, default=str)}\n"
-            f"# provenance: {json.dumps(prov.to_dict(), default=str)}\nfreq_hz,re,im\n")
-
-
-@dataclass(frozen=True)
-class CaptureFile:
-    """What is in a capture file, read line by line the way it was written.
-
-    Attributes
-    ----------
-    meta
-        The ``# meta:`` object of the header (settings, instrument, ``complete``).
-    header_end
-        Byte offset just after the column-name line.
-    row_ends
-        Byte offset just after each complete row, in order.
-    row_freqs
-        Frequency of each complete row, Hz.
-    size
-        Bytes in the file; past ``row_ends[-1]`` (or ``header_end``) is a torn or foreign tail.
-    """
-
-    meta: dict[str, Any]
-    header_end: int
-    row_ends: tuple[int, ...]
-    row_freqs: tuple[float, ...]
-    size: int
-
-    @property
-    def rows(self) -> int:
-        return len(self.row_ends)
-
-
-def scan_capture_file(path: str | os.PathLike) -> CaptureFile:
-    """Read the header and every complete row of a capture file (finished or not).
-
-    A row is complete when its line ends in a newline and holds three finite numbers with
-    a frequency above the previous row's; the scan stops at the first line that is not one.
-
-    Raises
-    ------
-    InputError
-        The file is not a capture file (no canonical sweep header with a meta line).
-    """
-    path = check_output_path(path)  # a regular file: reading a pipe would wait forever
-    try:
-        data = path.read_bytes()
-    except OSError as e:
-        raise InputError(f"cannot read: {e.strerror}", source=str(path)) from None
-    lines = data.split(b"\n")
-    if not lines or lines[0].rstrip(b"\r").decode("utf-8", "replace") != SWEEP_MAGIC:
-        raise InputError("not a capture file (no benchfit sweep header); it is left as it is",
-                         source=str(path))
-    meta: dict[str, Any] | None = None
-    offset = 0
-    for i, raw in enumerate(lines[:-1]):
-        offset += len(raw) + 1
-        text = raw.decode("utf-8", "replace")
-        if text.startswith("# meta: "):
-            try:
-                meta = json.loads(text[len("# meta: "):])
-            except (ValueError, RecursionError):
-                meta = None
-        if text.strip() == "freq_hz,re,im":
-            header_end, first = offset, i + 1
-            break
-        if not text.startswith("#"):
-            break
-    else:
-        first = None
-    if first is None or not isinstance(meta, dict):
-        raise InputError("capture file has no complete header (column names and meta line); "
-                         "it is left as it is", source=str(path))
-    ends: list[int] = []
-    freqs: list[float] = []
-    for raw in lines[first:-1]:  # the last piece has no newline after it: never a complete row
-        try:
-            f, re_, im = (float(c) for c in raw.decode("ascii").split(","))
-        except (ValueError, UnicodeDecodeError):
-            break
-        if not (np.isfinite(f) and np.isfinite(re_) and np.isfinite(im) and f > 0) or \
-                (freqs and f <= freqs[-1]):
-            break
-        offset += len(raw) + 1
-        ends.append(offset)
-        freqs.append(f)
-    return CaptureFile(meta=meta, header_end=header_end, row_ends=tuple(ends),
-                       row_freqs=tuple(freqs), size=len(data))
-
-
-def resume_offset(scan: CaptureFile, rows_acknowledged: int, last_freq_hz: float | None,
-                  source: str) -> int:
-    """Byte offset a resumed capture continues from: just after the last acknowledged row.
-
-    The evidence is the manifest's row count (written only after those rows were fsync'd)
-    and its last frequency, checked against the rows the file really holds.  The offset is
-    never before an acknowledged row: when the file holds fewer complete rows than were
-    acknowledged, or its last acknowledged row is not at the recorded frequency, the file was
-    changed after the capture and nothing is cut (InputError).  Rows after that (written but
-    never acknowledged) and a torn last line lie after the offset and are measured again.
-    The header's size plays no part, so a header rewritten at the end cannot move the cut.
-    """
-    n = int(rows_acknowledged)
-    if scan.rows < n:
-        raise InputError(f"holds {scan.rows} complete rows but {n} were saved by the capture; "
-                         "it was changed afterwards, so it is not resumed (nothing was cut)",
-                         source=source)
-    if n == 0:
-        return scan.header_end
-    f = scan.row_freqs[n - 1]
-    if last_freq_hz is None or not np.isclose(f, float(last_freq_hz), rtol=1e-9, atol=0.0):
-        raise InputError(f"row {n} is at {f:g} Hz but the capture saved {last_freq_hz} Hz there; "
-                         "it was changed afterwards, so it is not resumed (nothing was cut)",
-                         source=source)
-    return scan.row_ends[n - 1]
 
 
 class StopFlag:
