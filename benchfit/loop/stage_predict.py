@@ -35,7 +35,7 @@ from benchfit.loop.rational import POLY, VALUES, Algebra
 from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_response import closed_loop_values
 from benchfit.loop.timeresponse import StepResponse, state_space, step_metrics
-from benchfit.numfmt import eng
+from benchfit.numfmt import db, eng, sig
 from benchfit.provenance import Provenance
 
 #: Time samples of a predicted step.
@@ -182,11 +182,11 @@ class StagePrediction:
 
     def report(self) -> str:
         lines = [f"closed-loop bandwidth {eng(self.bandwidth_hz(), 'Hz')} (-3 dB from "
-                 f"{abs(self.closed[0]):.4g} V/V), peaking "
-                 f"{20 * math.log10(np.max(np.abs(self.closed)) / abs(self.closed[0])):.1f} dB"]
+                 f"{sig(abs(self.closed[0]))} V/V), peaking "
+                 f"{db(20 * math.log10(np.max(np.abs(self.closed)) / abs(self.closed[0])))}"]
         if self.step is not None:
             s = self.step
-            lines.append(f"small-signal step {s.step_size:g} V: overshoot {s.overshoot_pct:.1f} %, "
+            lines.append(f"small-signal step {eng(s.step_size, 'V')}: overshoot {sig(s.overshoot_pct)} %, "
                          f"rise {eng(s.rise_time_s, 's')}, settling ({s.settle_band * 100:g} %) "
                          f"{eng(s.settling_time_s, 's')}")
         if np.any(self.z_closed):
@@ -195,8 +195,8 @@ class StagePrediction:
                          f"{eng(self.freq_hz[j], 'Hz')}")
         if self.load is not None:
             ld = self.load
-            lines.append(f"load step {ld.step_size:g} A into the capacitor: peak deviation "
-                         f"{ld.peak_value * 1e3:.4g} mV at {eng(ld.peak_time_s, 's')}")
+            lines.append(f"load step {eng(ld.step_size, 'A')} into the capacitor: peak deviation "
+                         f"{eng(ld.peak_value, 'V')} at {eng(ld.peak_time_s, 's')}")
         lines += [f"warning: {w}" for w in self.warnings]
         return "\n".join(lines)
 

@@ -27,6 +27,7 @@ from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.stage import design_stage
 from benchfit.loop.stage_load import StageLoad
 from benchfit.loop.synthesis import Targets
+from benchfit.numfmt import eng
 from benchfit.output.curves import write_curve_csv
 from benchfit.output.plot_stage import stage_curve
 from benchfit.output.stage_report import stage_report_html
@@ -69,7 +70,7 @@ def run_stage_demo(data_dir: str | Path, out_dir: str | Path, *, scenario: Stage
     if not path.is_file():
         raise InputError(f"the demo needs {sc.aol_file} in {data_dir}; it is missing", source="--data")
     sweep = read_sweep(path)
-    log(f"read {path}: {len(sweep)} points, {sweep.f_min_hz:.3g} Hz to {sweep.f_max_hz:.3g} Hz")
+    log(f"read {path}: {len(sweep)} points, {eng(sweep.f_min_hz, 'Hz')} to {eng(sweep.f_max_hz, 'Hz')}")
     aol_fit = fit(sweep)
     log(aol_fit.report() + "\n")
     lp = LoopPlant(aol_fit.model, name=path.stem, band_hz=(sweep.f_min_hz, sweep.f_max_hz),
