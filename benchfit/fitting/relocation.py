@@ -26,6 +26,8 @@ rule reads it.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from scipy import linalg
 from scipy.linalg.lapack import dgeev as _dgeev
@@ -130,6 +132,32 @@ def _solve_upper(r: np.ndarray, b: np.ndarray, rel: float) -> np.ndarray:
     return np.linalg.lstsq(r * sc, b, rcond=None)[0] * sc
 
 
+@functools.lru_cache(maxsize=256)
+def _layout(n: int, n_real: int) -> tuple:
+    """For ``n`` arranged poles of which ``n_real`` are real: the transform of the columns
+    ``1/(s-p)`` to the real basis, b of the state matrix (a column), the flat indices of
+    the pairs' off-diagonal entries in that matrix, and the pairs' upper members (read-only)."""
+    tr = np.eye(n, dtype=complex)
+    k = np.arange(n_real, n - 1, 2)
+    # columns (1/(s-a), 1/(s-a*)) -> (sum, j·difference)
+    tr[k + 1, k] = 1.0
+    tr[k, k + 1], tr[k + 1, k + 1] = 1j, -1j
+    bm = np.zeros((n, 1))
+    bm[:n_real], bm[n_real::2] = 1.0, 2.0
+    out = (tr, bm, k * (n + 1) + 1, (k + 1) * (n + 1) - 1, k)
+    for a in out:
+        a.flags.writeable = False
+    return out
+
+
+@functools.lru_cache(maxsize=64)
+def _upper(n: int) -> np.ndarray:
+    """n × n mask of the upper triangle (read-only)."""
+    m = np.triu(np.ones((n, n)))
+    m.flags.writeable = False
+    return m
+
+
 class System:
     """The weighted relocation system of one data set, for a fixed number of poles.
 
@@ -154,8 +182,7 @@ class System:
         self._s = s[:, None]
         self._w = w[:, None]
         self._mh = -h[:, None]
-        ncol = self.n_num + 1 + n
-        c = np.zeros((n_s, ncol), dtype=complex, order="F")
+        c = np.zeros((n_s, self.n_num + 1 + n), dtype=complex, order="F")
         j = n
         if direct:
             c[:, j] = w
@@ -167,46 +194,21 @@ class System:
         self._c = c
         # The same memory as 2·n_s real rows, column-major, for LAPACK.
         self._a = c.T.view(np.float64).T
-        self._phi = np.empty((n_s, n), dtype=complex)
         # Relaxation row Re sum_k sigma(s_k) = n_s, weighted like the data rows.
-        relax = float(np.linalg.norm(wh)) / n_s
-        self._g = np.zeros(n + 2)
-        self._g[0] = self._g[n + 1] = n_s * relax
-        self._relax = relax
-        self._z = np.zeros((n + 2, n + 2), order="F")
-        self._upper = np.triu(np.ones((n + 1, n + 1)))
-        self._upper_num = np.triu(np.ones((self.n_num, self.n_num)))
-        self._by_real: dict[int, tuple] = {}
+        self._relax = float(np.sqrt(np.vdot(wh, wh).real)) / n_s
+        self._phi = np.empty((n_s, n), dtype=complex)
         self._last: tuple[np.ndarray | None, int] = (None, 0)
-        self._ones = np.ones(n_s)
 
     def _count_real(self, poles: np.ndarray) -> int:
         """:func:`count_real`, known already for the poles the last relocation returned."""
         last, n_real = self._last
         return n_real if poles is last else count_real(poles)
 
-    def _layout(self, n_real: int) -> tuple:
-        """Per count of real poles: the basis transform, b of the state matrix, and the flat
-        indices of the pairs' off-diagonal entries."""
-        got = self._by_real.get(n_real)
-        if got is None:
-            n = self.n
-            tr = np.eye(n, dtype=complex)
-            k = np.arange(n_real, n - 1, 2)
-            # columns (1/(s-a), 1/(s-a*)) -> (sum, j·difference)
-            tr[k + 1, k] = 1.0
-            tr[k, k + 1], tr[k + 1, k + 1] = 1j, -1j
-            bm = np.zeros((n, 1))
-            bm[:n_real], bm[n_real::2] = 1.0, 2.0
-            got = (tr, bm, k * (n + 1) + 1, (k + 1) * (n + 1) - 1, k)
-            self._by_real[n_real] = got
-        return got
-
     def _fill(self, poles: np.ndarray, n_real: int, den: bool) -> None:
         """Write the weighted numerator basis (and ``-h·Φ``) for ``poles`` into the system;
         the unweighted basis Φ is left in ``self._phi``."""
         n = self.n
-        np.matmul(1.0 / (self._s - poles), self._layout(n_real)[0], out=self._phi)
+        np.matmul(1.0 / (self._s - poles), _layout(n, n_real)[0], out=self._phi)
         num = self._c[:, :n]
         np.multiply(self._phi, self._w, out=num)
         if den:
@@ -221,21 +223,22 @@ class System:
         ``mirror`` is False), and the weighted residual norm of the best fit
         of ``h`` with the *given* poles (the stop rule's evidence).
         """
-        n, n_num = self.n, self.n_num
+        n, n_num, n_s = self.n, self.n_num, self.n_s
         n_real = self._count_real(poles)
-        tr, bm, up_idx, lo_idx, k = self._layout(n_real)
+        _, bm, up_idx, lo_idx, k = _layout(n, n_real)
         self._fill(poles, n_real, den=True)
         r = _r_factor(self._a)
         resid = abs(float(r[n_num, n_num]))
         # sigma's unknowns [d~, c~]: the R22 block (data rows, zero right-hand
         # side) and the relaxation row, by one small QR.
-        z = self._z
-        np.multiply(r[n_num:, n_num:], self._upper, out=z[: n + 1, : n + 1])
-        g = self._g
-        np.multiply((self._ones @ self._phi).real, self._relax, out=g[1: n + 1])
-        z[n + 1] = g
+        upper = _upper(n + 1)
+        z = np.empty((n + 2, n + 2), order="F")
+        np.multiply(r[n_num:, n_num:], upper, out=z[: n + 1, : n + 1])
+        z[: n + 1, n + 1] = 0.0
+        z[n + 1, 0] = z[n + 1, n + 1] = n_s * self._relax
+        np.multiply(self._phi.real.sum(axis=0), self._relax, out=z[n + 1, 1: n + 1])
         rz = _r_factor(z)
-        y = _solve_upper(rz[: n + 1, : n + 1] * self._upper, rz[: n + 1, n + 1], _SINGULAR_SIGMA)
+        y = _solve_upper(rz[: n + 1, : n + 1] * upper, rz[: n + 1, n + 1], _SINGULAR_SIGMA)
         d_sig = y[0]
         if abs(d_sig) < RELAX_TOL or not np.isfinite(d_sig):
             # Degenerate relaxed solution (Gustavsen 2006, sec. III): fix d~ and re-solve
@@ -298,7 +301,7 @@ class System:
         n_real = self._count_real(poles)
         self._fill(poles, n_real, den=False)
         r = _r_factor(self._a[:, : n_num + 1])
-        x = _solve_upper(r[:n_num, :n_num] * self._upper_num, -r[:n_num, n_num],
+        x = _solve_upper(r[:n_num, :n_num] * _upper(n_num), -r[:n_num, n_num],
                          _SINGULAR_RESIDUES) if n_num else np.zeros(0)
         res = coeffs_to_residues(x[:n], n_real)
         d = float(x[n]) if self.direct else 0.0
