@@ -20,6 +20,7 @@ import numpy as np
 from scipy import linalg, ndimage, stats
 
 from benchfit.errors import FitError
+from benchfit.fitting.relocation import arrange
 from benchfit.fitting.vectfit import VFResult, initial_poles, vector_fit
 from benchfit.fitting.weights import PointSigma
 
@@ -116,7 +117,7 @@ def attempt(ctx: Context, order: int, tau_s: float = 0.0, poles0=None, max_iter:
         vf = vector_fit(ctx.s, g, w, p0, direct=ctx.direct, proportional=ctx.proportional,
                         max_iter=max_iter, tol=tol, mirror=ctx.mirror)
     except (ValueError, linalg.LinAlgError):
-        p0 = np.asarray(p0, dtype=complex)
+        p0 = arrange(np.asarray(p0, dtype=complex))
         vf = VFResult(poles=p0, residues=np.zeros_like(p0), d=0.0, e=0.0, iterations=0,
                       converged=False, flipped=np.zeros(0, dtype=complex))
         return Attempt(order, tau_s, vf, np.inf, np.inf, np.inf)
