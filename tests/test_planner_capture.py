@@ -18,7 +18,7 @@ from benchfit.bench.simulator import Faults
 from benchfit.data.canonical import read_canonical_sweep
 from benchfit.errors import InputError, InstrumentError
 from benchfit.loop.margins import margins_of_sweep
-from benchfit.planner.adaptive import MAX_POINTS, PRECISION, AdaptiveSettings, run_adaptive
+from benchfit.planner.adaptive import MAX_POINTS, PM_ONLY, PRECISION, AdaptiveSettings, run_adaptive
 from benchfit.planner.probe import Probe
 from benchfit.planner.record import log_path, read_log
 from benchfit.planner.scenarios import SCENARIOS
@@ -174,3 +174,41 @@ def test_cli_adaptive_json_and_fixed_sweep_report_time(tmp_path, capsys):
     assert main(["capture", "--simulate", str(plant), "--adaptive", "--points", "50", "-o",
                  str(tmp_path / "x.csv")]) == 2
     assert "--points" in capsys.readouterr().err
+
+
+def test_gain_margin_beyond_the_band_stops_on_the_phase_margin_and_reports_null(tmp_path):
+    # converter: phase crossing near 25.5 kHz (python-control, test above); a band that ends
+    # at 12 kHz holds no phase crossing, so the gain margin is "beyond the band", not a number
+    from benchfit.fileio import to_json_text
+
+    res, model, band, _ = capture(tmp_path, "converter", settings=AdaptiveSettings(20.0, 12e3))
+    pm, _ = true_margins(model, SCENARIOS["converter"][1])
+    assert res.stopped_because == PM_ONLY
+    assert res.gain_margin_status == "beyond the band" and "12 kHz" in res.gain_margin_note
+    assert math.isnan(res.gain_margin_db) and math.isnan(res.gain_margin_sigma_db)
+    assert res.phase_margin_sigma_deg <= 0.5 and abs(res.phase_margin_deg - pm) < 0.5
+    d = json.loads(to_json_text(res.to_dict()))
+    assert d["gain_margin_db"] is None and d["gain_margin_sigma_db"] is None
+    assert any("beyond the band" in w for w in res.warnings)
+
+
+def test_cli_refuses_adaptive_capture_of_what_is_not_a_loop_gain(tmp_path, capsys):
+    from benchfit.cli import main
+    from benchfit.fitting.model import PlantModel
+
+    # an output impedance (|Z| far below 1 ohm): no gain crossing, refused after the coarse pass
+    z = PlantModel(zeros=np.array([-2 * np.pi * 1e3]), poles=np.array([-2 * np.pi * 1e5]), k=0.1)
+    plant = tmp_path / "zout.json"
+    z.to_json(plant)
+    out = tmp_path / "z.csv"
+    assert main(["capture", "--simulate", str(plant), "--adaptive", "-o", str(out), "--no-progress"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "no gain crossing" in err[0] and "loop-gain measurement" in err[0]
+    assert "--adaptive" in err[0]
+    # declared as a plant: refused at once, before anything is measured
+    out2 = tmp_path / "p.csv"
+    assert main(["capture", "--simulate", str(plant), "--adaptive", "--quantity", "plant", "-o", str(out2),
+                 "--no-progress"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--quantity" in err[0] and "loop-gain measurement" in err[0]
+    assert not out2.exists() and not log_path(out2).exists()

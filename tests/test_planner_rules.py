@@ -1,5 +1,6 @@
 """Each choosing rule of the sweep planner on its own."""
 
+import functools
 import math
 
 import numpy as np
@@ -7,11 +8,13 @@ import pytest
 
 from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
+from benchfit.planner import gainmargin as gmm
 from benchfit.planner import linearity as lin
 from benchfit.planner import placement as pl
 from benchfit.planner.adaptive import (
     MAX_POINTS,
     MAX_TIME,
+    PM_ONLY,
     PRECISION,
     AdaptiveResult,
     AdaptiveSettings,
@@ -20,6 +23,7 @@ from benchfit.planner.adaptive import (
     slow_pole_as_integrator,
     stop_reason,
 )
+from benchfit.planner.gainmargin import GainMarginState
 from benchfit.planner.noise import (
     NoiseMap,
     PointSettings,
@@ -31,6 +35,7 @@ from benchfit.planner.noise import (
     required_point_sigma,
 )
 from benchfit.planner.record import LogRow, append_row, create_log, log_path, read_log
+from benchfit.planner.stopping import not_a_loop_gain
 from benchfit.planner.uncertainty import consistent_draws, robust_sigma
 
 # ----------------------------------------------------------------------------- placement
@@ -182,12 +187,85 @@ def test_noise_dominated():
 
 def test_stop_reason_each_branch():
     s = AdaptiveSettings(10, 1e5, pm_sigma_deg=0.5, gm_sigma_db=0.5, max_points=50, max_time_s=100)
-    assert stop_reason(0.4, 10.0, 0.4, True, s, 20, 10.0) == PRECISION
-    assert stop_reason(0.4, 10.0, 0.4, False, s, 20, 10.0) is None           # fit not adequate
-    assert stop_reason(0.4, 10.0, 0.4, True, s, 20, 10.0, pending=2) is None  # a rule still asks
-    assert stop_reason(0.6, 10.0, 0.4, True, s, 20, 10.0) is None
-    assert stop_reason(0.6, 10.0, 0.4, True, s, 50, 10.0) == MAX_POINTS
-    assert stop_reason(0.6, 10.0, 0.4, True, s, 20, 100.0) == MAX_TIME
+    known = GainMarginState(gmm.GM_KNOWN, 0.4)
+    assert stop_reason(0.4, known, True, s, 20, 10.0) == PRECISION
+    assert stop_reason(0.4, known, False, s, 20, 10.0) is None           # fit not adequate
+    assert stop_reason(0.4, known, True, s, 20, 10.0, pending=2) is None  # a rule still asks
+    assert stop_reason(0.6, known, True, s, 20, 10.0) is None
+    assert stop_reason(0.6, known, True, s, 50, 10.0) == MAX_POINTS
+    assert stop_reason(0.6, known, True, s, 20, 100.0) == MAX_TIME
+    # the gain margin cannot be known from this capture: stop on the phase margin alone
+    for status in (gmm.GM_BEYOND, gmm.GM_UNDETERMINED):
+        assert stop_reason(0.4, GainMarginState(status, math.inf, "why"), True, s, 20, 10.0) == PM_ONLY
+    assert stop_reason(0.6, GainMarginState(gmm.GM_BEYOND, math.nan), True, s, 20, 10.0) is None
+    # not known yet (the rules still place points for it, or its sigma is too wide): go on
+    assert stop_reason(0.4, GainMarginState(gmm.GM_PENDING, 0.8), True, s, 20, 10.0) is None
+
+
+def test_gain_margin_state_each_branch():
+    s = AdaptiveSettings(10, 1e5, gm_sigma_db=0.5)
+    st = functools.partial(gmm.gain_margin_state, settings=s, phase_crossing_hz=5e5, usable_top_hz=6e5)
+    assert st(20.0, 0.3, hiding=[], pending=0).status == gmm.GM_KNOWN
+    assert st(45.0, 3.0, hiding=[], pending=0).status == gmm.GM_LARGE
+    beyond = st(math.inf, 0.0, hiding=[], pending=0)
+    assert beyond.status == gmm.GM_BEYOND and "600 kHz" in beyond.reason and not beyond.has_value
+    assert st(20.0, math.inf, hiding=[], pending=2).status == gmm.GM_PENDING
+    lost = st(20.0, math.inf, hiding=[], pending=0, why_unknown="the phase crossing is lost")
+    assert lost.status == gmm.GM_UNDETERMINED and "lost" in lost.reason and lost.settled
+    assert st(20.0, 0.3, hiding=[7e5], pending=1).status == gmm.GM_PENDING
+    hidden = st(20.0, 0.3, hiding=[7e5, 8e5], pending=0)
+    assert hidden.status == gmm.GM_UNDETERMINED and "buried" in hidden.reason
+    assert st(20.0, 0.8, hiding=[], pending=0).status == gmm.GM_PENDING     # finite, too wide
+
+
+def test_hidden_by_noise_frontier_and_giving_up():
+    mag = {1e5: 0.5, 2e5: 0.1, 3e5: 0.05, 4e5: 0.01}.get       # -6, -20, -26, -40 dB
+    buried = [(1e5, 1000.0, 3), (2e5, 1.0, 32), (3e5, 1000.0, 3), (4e5, 1000.0, 3)]
+    hiding, again = gmm.hidden_by_noise(buried, [5e4], mag, min_bandwidth_hz=1.0, max_repeats=32)
+    assert hiding == [1e5, 2e5, 3e5]              # 4e5 is 40 dB down: a crossing there is > 30 dB
+    assert again == [1e5, 3e5]                    # 2e5 was measured at 1 Hz with 32 readings
+    # measured above the noise since (a usable point within 0.004 decade): hides nothing
+    hiding, again = gmm.hidden_by_noise(buried, [1.0005e5], mag, min_bandwidth_hz=1.0, max_repeats=32)
+    assert 1e5 not in hiding
+
+
+def test_beyond_crossing_points_pin_a_crossing_at_the_end_of_the_data():
+    usable = list(np.logspace(4, math.log10(5.4e5), 20))      # data end 0.006 decade above 532 kHz
+    got = pl.beyond_crossing_points([5.32e5], usable, 3e6, lambda f: True)
+    assert len(got) == 2 and got[-1] == pytest.approx(5.32e5 * 10 ** pl.BEYOND_DECADES)
+    assert all(f > 5.4e5 for f in got)
+    assert pl.beyond_crossing_points([5.32e5], usable + [7e5], 3e6, lambda f: True) == []
+    assert pl.beyond_crossing_points([5.32e5], usable, 3e6, lambda f: False) == []   # would be buried
+    capped = pl.beyond_crossing_points([5.32e5], usable, 6e5, lambda f: True)
+    assert max(capped) == pytest.approx(6e5)                    # not beyond the band's top
+
+
+def test_not_a_loop_gain():
+    f = np.logspace(1, 5, 17)
+    loop = 1e4 / (1j * f)                                       # crosses 0 dB at 10 kHz
+    assert not_a_loop_gain(f, loop) == ""
+    why = not_a_loop_gain(f, 0.1 / (1 + 1j * f / 1e3))         # an impedance far below 1
+    assert "no gain crossing" in why and "-20.0 dB" in why
+    assert "no gain crossing" in not_a_loop_gain(f, 100 / (1 + 1j * f / 1e6))
+    assert "above the noise" in not_a_loop_gain(f[:1], loop[:1])
+
+
+def test_level_verdict_each_branch():
+    def comp(level, changed):
+        return lin.LevelComparison(1e3, level, 0.01, -1.0 if changed else 0.0, 0.0, 0.1, changed)
+    ok = lin.level_verdict(0.01, [comp(0.005, False), comp(0.02, False)], auto_level=False,
+                           halvings=0, max_halvings=4)
+    assert ok.message.startswith("linear") and ok.level_v == 0.01 and not ok.warn
+    inside = lin.level_verdict(0.01, [comp(0.005, False), comp(0.02, True)], auto_level=False,
+                               halvings=0, max_halvings=4)
+    assert "continuing at 10 mV, inside it" in inside.message and not inside.warn
+    high = [comp(0.005, True), comp(0.02, True)]
+    told = lin.level_verdict(0.01, high, auto_level=False, halvings=0, max_halvings=4)
+    assert "lower --level" in told.message and told.warn and told.level_v == 0.01
+    halved = lin.level_verdict(0.01, high, auto_level=True, halvings=1, max_halvings=4)
+    assert halved.level_v == 0.005 and "--auto-level" in halved.message
+    spent = lin.level_verdict(0.01, high, auto_level=True, halvings=4, max_halvings=4)
+    assert spent.warn and spent.level_v == 0.01 and "4 halvings" in spent.message
 
 
 def test_gm_known_beyond_the_deciding_range():
@@ -195,6 +273,7 @@ def test_gm_known_beyond_the_deciding_range():
     assert gm_known(10.0, 0.4, s) and not gm_known(10.0, 0.6, s)
     assert gm_known(45.0, 3.0, s)           # 45 - 2*3 = 39 dB > 30 dB: known to be large
     assert not gm_known(32.0, 3.0, s) and not gm_known(45.0, math.inf, s)
+    assert not gm_known(math.inf, 0.0, s) and not gm_known(math.nan, 0.0, s)   # beyond the band
 
 
 def test_slow_pole_and_fit_band():

@@ -232,6 +232,12 @@ def _run_adaptive(args: argparse.Namespace, profile, inst, sweep, out: str) -> i
                                                           else "--segment-points")
         raise InputError("the adaptive capture places its own points one by one; leave it out",
                          source=bad)
+    from benchfit.planner.settings import LOOP_QUANTITIES, NEEDS_LOOP_GAIN
+
+    declared = getattr(sweep, "quantity", None)
+    if args.quantity is None and declared is not None and declared not in LOOP_QUANTITIES:
+        raise InputError(f"a sweep of {declared!r}, not a loop gain; {NEEDS_LOOP_GAIN}",
+                         source=args.simulate)
     lo, hi = _band(args, sweep)
     for given, opt in ((args.start if args.start is not None else lo, "--start"),
                        (args.stop if args.stop is not None else hi, "--stop")):

@@ -40,16 +40,8 @@ from benchfit.planner.fitstep import (  # noqa: F401 - re-exported: the rules li
     simpler_fit,
     slow_pole_as_integrator,
 )
-from benchfit.planner.noise import (
-    BURIED_RELATIVE_SIGMA,
-    NoiseMap,
-    TimeModel,
-    choose_point_settings,
-    component_sigma,
-    noise_dominated,
-    point_sigma,
-    required_point_sigma,
-)
+from benchfit.planner.gainmargin import GM_PENDING, GainMarginState
+from benchfit.planner.noise import NoiseMap, TimeModel, choose_point_settings, noise_dominated
 from benchfit.planner.probe import Probe, Reading
 from benchfit.planner.record import (
     LogRow,
@@ -60,25 +52,29 @@ from benchfit.planner.record import (
     sweep_rows,
     write_sweep,
 )
+from benchfit.planner.rounds import POINTS_PER_ROUND, RoundPlanner  # noqa: F401 - re-exported
 from benchfit.planner.settings import (  # noqa: F401 - re-exported
     INTERRUPTED,
     MAX_POINTS,
     MAX_TIME,
     NOTHING_LEFT,
+    PM_ONLY,
     PRECISION,
     ROUNDS,
     AdaptiveResult,
     AdaptiveSettings,
 )
-from benchfit.planner.stopping import RULE_PURPOSES, gm_known, stop_reason  # noqa: F401
+from benchfit.planner.stopping import (  # noqa: F401 - gm_known re-exported
+    NEEDS_LOOP_GAIN,
+    gm_known,
+    not_a_loop_gain,
+    stop_reason,
+)
 from benchfit.planner.uncertainty import MarginSpread, margin_spread
 from benchfit.provenance import Provenance
 
 #: Most rounds of fit-and-place (a guard; the budgets normally end the capture first).
 MAX_ROUNDS = 40
-#: Points placed per round (crossing, resonance and residual rules first, the
-#: variance rule fills the rest, at least two).
-POINTS_PER_ROUND = 8
 #: Halvings of the level the auto-level search may make.
 MAX_HALVINGS = 4
 
@@ -91,7 +87,7 @@ class _Budget(Exception):
         self.reason = reason
 
 
-class AdaptiveCapture:
+class AdaptiveCapture(RoundPlanner):
     """One adaptive capture into ``out`` (see module notes).
 
     Parameters
@@ -136,6 +132,7 @@ class AdaptiveCapture:
         self.integrators: int | None = None
         self.fit_from_hz: float | None = None
         self.last: tuple | None = None
+        self.last_gm: GainMarginState | None = None
         self.per_decade = settings.per_decade
 
     # ----- bookkeeping ----------------------------------------------------------------
@@ -209,58 +206,6 @@ class AdaptiveCapture:
         self.progress(len(self.rows), purpose)
         return r
 
-    def _crossings(self, spread: MarginSpread) -> list[float]:
-        return [f for f, _ in pl.deciding_crossings(spread.margins.crossings)]
-
-    def _resonances(self, fit) -> list[tuple[float, float]]:
-        return pl.deciding_resonances(pl.model_resonances(fit.model), fit.model.response)
-
-    def _decisive(self, spread: MarginSpread, fit) -> list[tuple[float, float]]:
-        """(frequency, component σ) of everything that decides a margin (see required_point_sigma)."""
-        pm, gm = self.s.pm_sigma_deg, self.s.gm_sigma_db
-        out = [(f, component_sigma(kind, pm, gm)) for f, kind in
-               pl.deciding_crossings(spread.margins.crossings)]
-        out += [(f0, component_sigma("phase", pm, gm)) for f0, _ in self._resonances(fit)]
-        out += [(f, component_sigma("phase", pm, gm)) for f in self._buried(fit)]
-        return out
-
-    def _gm_sigma(self, spread: MarginSpread, fit) -> float:
-        """The GM's σ: infinite while buried points may hide a phase crossing."""
-        return math.inf if self._buried(fit, frontier=False) else spread.gm_sigma_db
-
-    def _buried(self, fit, *, frontier: bool = True) -> list[float]:
-        """Frequencies of buried points (at this level) that may hide a margin.
-
-        A buried point where the model's |T| lies between −30 dB and 0 dB (a
-        positive gain margin below :data:`~benchfit.planner.placement.DECIDING_GM_DB`
-        could sit there) leaves the gain margin unknown.  With
-        ``frontier``, only the lowest two not yet measured with the narrowest
-        bandwidth and the most readings are returned: they are measured again
-        with the effort a deciding point gets, so effort goes where the usable
-        data end rather than into a whole buried stretch at once.
-        """
-        usable = {r.freq_hz for r in self._sweep()}
-        out = []
-        for r in self.rows:
-            if (r.in_sweep or not r.purpose.endswith("-buried") or r.freq_hz in usable
-                    or not math.isclose(r.level_v, self.level, rel_tol=1e-9)):
-                continue
-            mag = float(abs(fit.model.response(np.array([r.freq_hz]))[0]))
-            if 0 < mag <= 1.0 and 20 * math.log10(mag) >= -pl.DECIDING_GM_DB:
-                out.append(r.freq_hz)
-        if not frontier:
-            return sorted(set(out))
-        gave_up = {r.freq_hz for r in self.rows if r.purpose.endswith("-buried")
-                   and r.repeats >= self.s.max_repeats and r.bandwidth_hz <= self.s.min_bandwidth_hz}
-        return sorted(set(out) - gave_up)[:2]
-
-    def _sigma_for(self, f: float, decisive: list[tuple[float, float]]) -> float:
-        """The absolute σ a point at ``f`` must reach: the relative rule times |T| of the model."""
-        rel = required_point_sigma(f, decisive)
-        if not math.isfinite(rel) or self.model is None:
-            return math.inf
-        return rel * float(abs(self.model.response(np.array([f]))[0]))
-
     # ----- rounds ---------------------------------------------------------------------
     def _coarse(self) -> None:
         have = np.array([r.freq_hz for r in self._sweep()])
@@ -301,32 +246,13 @@ class AdaptiveCapture:
                 comps.append(lin.compare(f, ref, base.mean, sd_b, ref * factor, r.mean, sd))
         lo, hi = lin.linear_level_range(ref, comps)
         changed = [c for c in comps if c.changed]
-        new_level = ref
-        if not changed:
-            msg = (f"linear: halving and doubling the level ({ref:g} V) changed nothing beyond the "
-                   f"noise; linear from {lo:g} to {hi:g} V")
-        else:
-            worst = max(changed, key=lambda c: abs(c.change_db))
-            if math.isnan(lo):
-                span = f"not linear at {ref:g} V: already {ref / 2:g} V reads differently"
-            else:
-                span = f"linear from {lo:g} to {hi:g} V"
-            msg = (f"NOT linear: at {worst.level_v:g} V the response at {worst.freq_hz:.4g} Hz changed "
-                   f"by {worst.change_db:+.2f} dB / {worst.change_deg:+.2f} deg (noise allows "
-                   f"±{worst.allowed_db:.2f} dB); {span}")
-            if math.isnan(lo) and self.s.auto_level:
-                if self.halvings < MAX_HALVINGS:
-                    new_level = ref / 2
-                    self.halvings += 1
-                    msg += f"; continuing at {new_level:g} V (--auto-level), checked again there"
-                else:
-                    msg += f"; still not linear after {MAX_HALVINGS} halvings of the level"
-                    self.warnings.append(msg)
-            elif math.isnan(lo):
-                msg += "; lower --level or pass --auto-level"
-                self.warnings.append(msg)
-            else:
-                msg += f"; continuing at {ref:g} V, inside it"
+        verdict = lin.level_verdict(ref, comps, auto_level=self.s.auto_level, halvings=self.halvings,
+                                    max_halvings=MAX_HALVINGS)
+        msg, new_level = verdict.message, verdict.level_v
+        if verdict.warn:
+            self.warnings.append(msg)
+        if new_level != ref:
+            self.halvings += 1
         self.linearity_notes.append(msg)
         self.linearity = lin.LinearityResult(linear=not changed, linear_from_v=lo, linear_to_v=hi,
                                              level_v=new_level, comparisons=tuple(comps),
@@ -339,51 +265,6 @@ class AdaptiveCapture:
                 comparisons=tuple(comps), message=" | ".join(self.linearity_notes))
             return True
         return False
-
-    def _next_points(self, resp, result, spread: MarginSpread, resid: np.ndarray,
-                     decisive: list[tuple[float, float]]) -> list[tuple[float, str]]:
-        measured = resp.freq_hz
-        asks: list[tuple[float, str]] = []
-        asks += [(f, "crossing") for f in pl.crossing_points(self._crossings(spread), measured)]
-        asks += [(f, "resonance") for f in pl.resonance_points(self._resonances(result),
-                                                                measured, self.band)]
-        asks += [(f, "residual") for f in pl.residual_points(measured, resid)]
-        asks += [(f, "again") for f in self._buried(result)]
-        if spread.log_draws.size:
-            grid = spread.grid_hz
-            far = np.min(np.abs(np.log10(grid)[:, None] - np.log10(measured)[None, :]), axis=1)
-            keep = far >= pl.MIN_SPACING_DECADES
-            cand = grid[keep]
-            plan = [choose_point_settings(f, self._sigma_for(f, decisive), self.level, self.noise,
-                                          self.s.bandwidth_hz, self.s.min_bandwidth_hz,
-                                          self.s.max_repeats) for f in cand]
-            sig = np.array([point_sigma(f, ps, self.level, self.noise) for f, ps in zip(cand, plan, strict=True)])
-            sig = sig / np.abs(result.response(cand))          # relative, as the log draws are
-            # a point the noise would bury tells the fit nothing: not a candidate
-            sig = np.where(sig > BURIED_RELATIVE_SIGMA, np.inf, sig)
-            cost = np.array([float(self.times.point_time(f, ps.bandwidth_hz, ps.repeats))
-                             for f, ps in zip(cand, plan, strict=True)])
-            n_var = max(2, POINTS_PER_ROUND - len(asks))
-            asks += [(f, "variance") for f in pl.variance_points(
-                cand, spread.log_draws[:, keep], [spread.pm_draws, spread.gm_draws],
-                [self.s.pm_sigma_deg, self.s.gm_sigma_db], lambda fs: sig, lambda fs: cost, n_var)]
-        if not (math.isfinite(spread.pm_sigma_deg) and math.isfinite(self._gm_sigma(spread, result))):
-            asks += [(f, "densify") for f in pl.densify_points([f for f, _ in decisive], measured)]
-        chosen = pl.merge_new_points([f for f, _ in asks if self._useful(f, decisive, result)],
-                                     measured, self.band)
-        why = {}
-        for f, p in asks:
-            why.setdefault(f, p)
-        return [(f, why.get(f, "variance")) for f in chosen]
-
-    def _useful(self, f: float, decisive, fit) -> bool:
-        """False when a point at ``f`` would be buried even with the settings planned for it."""
-        if self.noise is None:
-            return True
-        ps = choose_point_settings(f, self._sigma_for(f, decisive), self.level, self.noise,
-                                   self.s.bandwidth_hz, self.s.min_bandwidth_hz, self.s.max_repeats)
-        mag = float(abs(fit.model.response(np.array([f]))[0]))
-        return not noise_dominated(point_sigma(f, ps, self.level, self.noise), mag)
 
     def run(self, *, resume: bool = False) -> AdaptiveResult:
         """Capture until the margins are known or a budget ends it; returns the result."""
@@ -420,18 +301,29 @@ class AdaptiveCapture:
                 stopped = INTERRUPTED
             self.stop_flag = None
         rounds = len(self.history)
+        gm = None
         if self.last is not None and self.last[4] == len(self._sweep()):
             resp, result, resid, spread, _ = self.last      # nothing measured since: keep it
+            gm = self.last_gm
         else:
             try:
                 resp, result, resid = self._fit()
                 spread = margin_spread(result, *self._fit_band(resp), rng=self.rng, data=resp)
+                gm = self.plan_round(resp, result, spread, resid).gm
             except (FitError, InputError) as e:
                 self.warnings.append(f"the final fit failed: {e}")
-        if spread is not None and stopped == PRECISION and not fit_adequate(result, resid):
+        if spread is not None and stopped in (PRECISION, PM_ONLY) and not fit_adequate(result, resid):
             stopped = NOTHING_LEFT
         self._write_sweep(complete=stopped != INTERRUPTED, stopped=stopped)
-        return self._result(spread, stopped, rounds, result)
+        return self._result(spread, stopped, rounds, gm)
+
+    def _refuse_unless_loop_gain(self) -> None:
+        """Raise InputError when the coarse pass shows no gain crossing (:func:`not_a_loop_gain`)."""
+        rows = self._sweep()
+        why = not_a_loop_gain([r.freq_hz for r in rows], [r.response for r in rows])
+        if why:
+            raise InputError(f"{why}; {NEEDS_LOOP_GAIN} (the coarse pass is saved in {self.out.name})",
+                             source="--adaptive")
 
     def _fit_band(self, resp) -> tuple[float, float]:
         return float(resp.freq_hz[0]), float(resp.freq_hz[-1])
@@ -439,6 +331,7 @@ class AdaptiveCapture:
     def _loop(self) -> str:
         while True:
             self._coarse()
+            self._refuse_unless_loop_gain()
             for _ in range(MAX_ROUNDS):
                 try:
                     resp, result, resid = self._fit()
@@ -451,50 +344,44 @@ class AdaptiveCapture:
                 self.last = (resp, result, resid, spread, len(self._sweep()))
                 decisive = self._decisive(spread, result)
                 self.fit_from_hz = fit_band_start([f for f, _ in decisive], self.s.start_hz)
-                adequate = fit_adequate(result, resid)
-                gm_sigma = self._gm_sigma(spread, result)
-                self.history.append({
-                    "points": len(resp), "instrument_time_s": self.elapsed_s,
-                    "phase_margin_deg": spread.margins.phase_margin_deg,
-                    "phase_margin_sigma_deg": spread.pm_sigma_deg,
-                    "gain_margin_db": spread.margins.gain_margin_db,
-                    "gain_margin_sigma_db": gm_sigma, "fit_adequate": adequate,
-                    "reduced_chi2": result.stats.get("reduced_chi2"), "order": result.stats.get("order"),
-                    "missed_points": int(np.sum(resid > pl.RESIDUAL_SIGMAS)),
-                    "why_unknown": spread.reason or ("buried points may hide a phase crossing"
-                                                      if math.isinf(gm_sigma) else "")})
                 fc = spread.margins.crossover_hz
                 if self.s.linearity and self.linearity is None and math.isfinite(fc):
                     if self._linearity(fc, decisive):
                         break                      # new level: measure the sweep again
-                todo = self._next_points(resp, result, spread, resid, decisive)
-                pending = sum(1 for _, why in todo if why in RULE_PURPOSES)
-                reason = stop_reason(spread.pm_sigma_deg, spread.margins.gain_margin_db, gm_sigma,
-                                     adequate, self.s, len(self.rows), self.elapsed_s, pending)
+                plan = self.plan_round(resp, result, spread, resid)
+                self.last_gm = plan.gm
+                adequate = fit_adequate(result, resid)
+                self.history.append(self._round_record(resp, result, resid, spread, plan.gm, adequate))
+                reason = stop_reason(spread.pm_sigma_deg, plan.gm, adequate, self.s, len(self.rows),
+                                     self.elapsed_s, plan.pending)
                 if reason:
                     return reason
-                if not todo:
+                if not plan.points:
                     return NOTHING_LEFT
-                for f, why in todo:
-                    self.measure(f, why, self._sigma_for(f, decisive))
+                for f, why in plan.points:
+                    self.measure(f, why, self._sigma_for(f, plan.decisive))
             else:
                 return ROUNDS
 
     def _result(self, spread: MarginSpread | None, stopped: str, rounds: int,
-                final_fit=None) -> AdaptiveResult:
+                gm: GainMarginState | None) -> AdaptiveResult:
         nan = math.nan
         m = spread.margins if spread is not None else None
         sweep = self._sweep()
         if stopped == NOTHING_LEFT:
             self.warnings.append("stopped before the margins reached the asked σ: no point the rules "
                                  "could place would reduce it further (see the history)")
+        if gm is not None and not gm.has_value:
+            self.warnings.append(f"gain margin {gm.status}: {gm.reason}")
         return AdaptiveResult(
             path=str(self.out), log_path=str(self.log), points=len(sweep), points_measured=len(self.rows),
             readings=int(sum(r.repeats for r in self.rows)), instrument_time_s=self.elapsed_s,
             phase_margin_deg=m.phase_margin_deg if m else nan,
             phase_margin_sigma_deg=spread.pm_sigma_deg if spread else nan,
-            gain_margin_db=m.gain_margin_db if m else nan,
-            gain_margin_sigma_db=self._gm_sigma(spread, final_fit) if spread else nan,
+            gain_margin_db=m.gain_margin_db if m and gm and gm.has_value else nan,
+            gain_margin_sigma_db=gm.sigma_db if gm and gm.has_value else nan,
+            gain_margin_status=gm.status if gm else GM_PENDING,
+            gain_margin_note=gm.reason if gm else "",
             crossover_hz=m.crossover_hz if m else nan, phase_crossover_hz=m.phase_crossover_hz if m else nan,
             stopped_because=stopped, rounds=rounds, level_v=self.level, settings=self.s.to_dict(),
             history=tuple(self.history),

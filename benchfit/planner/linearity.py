@@ -18,6 +18,8 @@ from typing import Any
 
 import numpy as np
 
+from benchfit import numfmt
+
 #: A level change is flagged when the readings differ by more than this many σ of
 #: their difference (complex): P(|e| > 4σ) = exp(-16) for noise alone.
 CHANGE_SIGMAS = 4.0
@@ -140,3 +142,49 @@ def check_frequencies(crossover_hz: float, band: tuple[float, float]) -> list[fl
         if band[0] <= f <= band[1]:
             out.append(float(f))
     return out
+
+
+@dataclass(frozen=True)
+class LevelVerdict:
+    """What the capture does after a check: the sentence for the user, the level to go on at,
+    and whether the sentence is a warning."""
+
+    message: str
+    level_v: float
+    warn: bool
+
+
+def level_verdict(ref_level: float, comparisons: Sequence[LevelComparison], *, auto_level: bool,
+                  halvings: int, max_halvings: int) -> LevelVerdict:
+    """The capture's answer to one linearity check at ``ref_level``.
+
+    Evidence weighed: the comparisons and :func:`linear_level_range`.  Nothing
+    changed: linear, go on.  A higher level changed the response but the lower
+    agreed: the reference lies inside the linear range, go on at it.  Already
+    half the reference reads differently: the reference is too high; with
+    ``auto_level`` it is halved (the check runs again at the new level) until
+    ``max_halvings`` halvings were made, otherwise the user is told to lower it.
+    """
+    v = lambda x: numfmt.eng(x, "V")  # noqa: E731
+    lo, hi = linear_level_range(ref_level, comparisons)
+    changed = [c for c in comparisons if c.changed]
+    if not changed:
+        return LevelVerdict(f"linear: halving and doubling the level ({v(ref_level)}) changed nothing "
+                            f"beyond the noise; linear from {v(lo)} to {v(hi)}", ref_level, False)
+    worst = max(changed, key=lambda c: abs(c.change_db))
+    if math.isnan(lo):
+        span = f"not linear at {v(ref_level)}: already {v(ref_level / 2)} reads differently"
+    else:
+        span = f"linear from {v(lo)} to {v(hi)}"
+    msg = (f"NOT linear: at {v(worst.level_v)} the response at {numfmt.eng(worst.freq_hz, 'Hz')} "
+           f"changed by {worst.change_db:+.2f} dB / {worst.change_deg:+.2f}° (noise allows "
+           f"±{worst.allowed_db:.2f} dB); {span}")
+    if not math.isnan(lo):
+        return LevelVerdict(msg + f"; continuing at {v(ref_level)}, inside it", ref_level, False)
+    if not auto_level:
+        return LevelVerdict(msg + "; lower --level or pass --auto-level", ref_level, True)
+    if halvings < max_halvings:
+        return LevelVerdict(msg + f"; continuing at {v(ref_level / 2)} (--auto-level), checked again "
+                            "there", ref_level / 2, False)
+    return LevelVerdict(msg + f"; still not linear after {max_halvings} halvings of the level",
+                        ref_level, True)

@@ -4,6 +4,8 @@
 * :func:`crossing_points`: every gain and phase crossing of the fitted model
   that decides a margin (:func:`deciding_crossings`) gets measured points on
   both sides, close to it.
+* :func:`beyond_crossing_points`: a phase crossing where the usable data end
+  gets usable points above it.
 * :func:`resonance_points`: every lightly damped pole or zero pair of the
   model near enough to 0 dB to matter (:func:`deciding_resonances`) gets
   enough points across its −3 dB width to locate f0 and Q.
@@ -25,6 +27,8 @@ import numpy as np
 
 #: Points measured on each side of a crossing must lie within this (decades).
 CROSSING_SIDE_DECADES = 0.04
+#: Usable data must reach this far (decades) above a deciding phase crossing.
+BEYOND_DECADES = 0.1
 #: Pole or zero pairs with Q at least this have a resonance worth resolving.
 RESONANCE_MIN_Q = 1.0
 #: Points wanted inside a resonance's −3 dB width.
@@ -73,6 +77,37 @@ def crossing_points(crossings_hz: Sequence[float], measured_hz: Sequence[float],
             out.append(10 ** (xc - side_decades / 2))
         if not above:
             out.append(10 ** (xc + side_decades / 2))
+    return out
+
+
+def beyond_crossing_points(phase_crossings_hz: Sequence[float], usable_hz: Sequence[float],
+                           band_top_hz: float, reachable: Callable[[float], bool],
+                           beyond_decades: float = BEYOND_DECADES) -> list[float]:
+    """Points above each phase crossing until the usable data reach ``beyond_decades`` past it.
+
+    Evidence weighed: the model's phase crossings and the highest usable
+    (not buried) point.  Above crossover |T| falls, and with it the signal a
+    loop measurement by injection reads, so the usable data often end just
+    above a phase crossing.  The draws that give the gain margin its σ move
+    the crossing, and a draw whose crossing moves past the last usable point
+    loses it: the margin is then decided by the model beyond the data.  A
+    point half-way and one at ``beyond_decades`` past the crossing (at most the
+    top of the band), each only when ``reachable`` says it can be measured
+    above the noise, make the crossing one the data pin on both sides.  0.1
+    decade is several times the spread of a crossing whose phase is known
+    to a degree or two (common practice, no source).
+    """
+    top = max((float(f) for f in usable_hz), default=0.0)
+    out = []
+    for fc in phase_crossings_hz:
+        if not (math.isfinite(fc) and 0 < fc < band_top_hz):
+            continue
+        target = min(fc * 10 ** beyond_decades, float(band_top_hz))
+        if top >= target * 10 ** -MIN_SPACING_DECADES:
+            continue
+        for f in (math.sqrt(max(top, fc) * target), target):
+            if f > top * 10 ** MIN_SPACING_DECADES and reachable(f):
+                out.append(float(f))
     return out
 
 

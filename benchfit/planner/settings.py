@@ -12,11 +12,22 @@ from benchfit.errors import InputError
 from benchfit.provenance import Provenance
 
 PRECISION = "precision reached"
+#: The phase margin is known and the gain margin cannot be from this capture
+#: (benchfit.planner.gainmargin).
+PM_ONLY = "phase margin known; gain margin not determined"
 MAX_POINTS = "max points"
 MAX_TIME = "max time"
 NOTHING_LEFT = "no further point would reduce the uncertainty"
 INTERRUPTED = "interrupted"
 ROUNDS = "round limit"
+
+#: What the data of a capture may be declared as for the adaptive capture: a loop gain, or
+#: not said (then the coarse pass decides, see :func:`not_a_loop_gain`).
+LOOP_QUANTITIES = ("loop", "unknown")
+
+#: What to do, said with every refusal of a measurement that is not a loop gain.
+NEEDS_LOOP_GAIN = ("adaptive capture needs a loop-gain measurement: inject into the closed loop "
+                   "(T = -B/A) with a band around its crossover, or capture this without --adaptive")
 
 
 @dataclass(frozen=True)
@@ -88,6 +99,8 @@ class AdaptiveSettings:
             raise InputError(f"{self.max_repeats}: expected at least 2", source="max_repeats")
         if self.quantity not in QUANTITIES:
             raise InputError(f"{self.quantity!r}: expected one of {QUANTITIES}", source="--quantity")
+        if self.quantity not in LOOP_QUANTITIES:
+            raise InputError(f"{self.quantity!r}: {NEEDS_LOOP_GAIN} (--quantity loop)", source="--quantity")
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -107,6 +120,10 @@ class AdaptiveResult:
     ``points`` counts the points in the sweep file, ``points_measured`` every
     point taken (linearity checks and points superseded by a level change
     included), ``instrument_time_s`` the instrument time of all of them.
+    ``gain_margin_status`` is one of benchfit.planner.gainmargin's words
+    (known, more than 30 dB, beyond the band, not determined, not known yet);
+    beyond the band and not determined have no value (``gain_margin_db`` and
+    its σ are NaN, JSON null) and ``gain_margin_note`` says why.
     """
 
     path: str
@@ -126,6 +143,8 @@ class AdaptiveResult:
     level_v: float
     settings: dict[str, Any]
     history: tuple[dict[str, Any], ...] = ()
+    gain_margin_status: str = "not known yet"
+    gain_margin_note: str = ""
     linearity: dict[str, Any] | None = None
     warnings: tuple[str, ...] = ()
     provenance: Provenance = field(default_factory=lambda: Provenance(step="adaptive_capture"))
@@ -171,13 +190,17 @@ class AdaptiveResult:
             return cls.from_dict(read_json(path))
 
     def summary(self) -> str:
+        from benchfit import numfmt
+
         def pm(v, s, unit, fmt):
             return "n/a" if math.isnan(v) else f"{v:{fmt}} ± {s:.2g} {unit}"
+        gm = (f"gain margin  {pm(self.gain_margin_db, self.gain_margin_sigma_db, 'dB', '.2f')} at "
+              f"{numfmt.eng(self.phase_crossover_hz, 'Hz', 5)}" if not math.isnan(self.gain_margin_db)
+              else f"gain margin  {self.gain_margin_status}" + (f": {self.gain_margin_note}"
+                                                                if self.gain_margin_note else ""))
         return (f"{self.points} points ({self.points_measured} measured, {self.readings} readings) in "
-                f"{self.instrument_time_s:.4g} s of instrument time into {self.path}\n"
+                f"{numfmt.eng(self.instrument_time_s, 's', 4)} of instrument time into {self.path}\n"
                 f"phase margin {pm(self.phase_margin_deg, self.phase_margin_sigma_deg, 'deg', '.2f')} "
-                f"at {self.crossover_hz:.5g} Hz\n"
-                f"gain margin  {pm(self.gain_margin_db, self.gain_margin_sigma_db, 'dB', '.2f')} "
-                f"at {self.phase_crossover_hz:.5g} Hz\n"
+                f"at {numfmt.eng(self.crossover_hz, 'Hz', 5)}\n{gm}\n"
                 f"stopped: {self.stopped_because}"
                 + (f"\nlinearity: {self.linearity['message']}" if self.linearity else ""))

@@ -1,48 +1,79 @@
-"""When an adaptive capture stops."""
+"""When an adaptive capture stops, and when it refuses to start."""
 
 from __future__ import annotations
 
-import math
+import numpy as np
 
-from benchfit.planner import placement as pl
-from benchfit.planner.settings import MAX_POINTS, MAX_TIME, PRECISION, AdaptiveSettings
+from benchfit import numfmt
+from benchfit.planner.gainmargin import (  # noqa: F401 - gm_known re-exported
+    GM_GIVEN_UP,
+    GM_KNOWN,
+    GM_LARGE,
+    gm_known,
+)
+from benchfit.planner.settings import (  # noqa: F401 - NEEDS_LOOP_GAIN re-exported
+    LOOP_QUANTITIES,
+    MAX_POINTS,
+    MAX_TIME,
+    NEEDS_LOOP_GAIN,
+    PM_ONLY,
+    PRECISION,
+    AdaptiveSettings,
+)
 
 #: Purposes of the placement rules that must be satisfied before the capture may stop.
-RULE_PURPOSES = ("crossing", "resonance", "residual", "again")
+RULE_PURPOSES = ("crossing", "resonance", "residual", "again", "beyond")
 
 
-def gm_known(gm_db: float, gm_sigma_db: float, settings: AdaptiveSettings) -> bool:
-    """True when the gain margin is known well enough to stop.
-
-    Evidence weighed: the GM and its σ.  Known when its σ is within the asked
-    one, or when even its lower 2σ bound lies beyond
-    :data:`~benchfit.planner.placement.DECIDING_GM_DB` (a margin that large is
-    known as "more than 30 dB", which is all a designer needs of it), or when
-    the model has no phase crossing in the band and nothing hides one (σ 0).
-    """
-    if gm_sigma_db <= settings.gm_sigma_db:
-        return True
-    return math.isfinite(gm_sigma_db) and gm_db - 2.0 * gm_sigma_db > pl.DECIDING_GM_DB
-
-
-def stop_reason(pm_sigma_deg: float, gm_db: float, gm_sigma_db: float, adequate: bool,
-                settings: AdaptiveSettings, points: int, elapsed_s: float,
-                pending: int = 0) -> str | None:
+def stop_reason(pm_sigma_deg: float, gm, adequate: bool, settings: AdaptiveSettings, points: int,
+                elapsed_s: float, pending: int = 0) -> str | None:
     """Why the capture should stop now, or None to go on.
 
-    Evidence weighed, first match wins: both margins known (the PM to the asked
-    σ, the GM as :func:`gm_known` says) from an adequate fit
-    (:func:`fit_adequate`), with no point still asked for by the crossing,
-    resonance, residual or buried-point rules (``pending``: a σ from a fit
-    that has not yet seen both sides of a crossing or the width of a resonance
-    speaks only for the model's shape) -> :data:`PRECISION`; the point
-    budget spent -> :data:`MAX_POINTS`; the time budget spent -> :data:`MAX_TIME`.
+    ``gm`` is the gain margin's :class:`~benchfit.planner.gainmargin.GainMarginState`.
+    Evidence weighed, first match wins: the phase margin known to the asked σ
+    from an adequate fit (:func:`~benchfit.planner.fitstep.fit_adequate`), with
+    no point still asked for by the crossing, resonance, residual, beyond-the-
+    crossing or buried-point rules (``pending``: a σ from a fit that has not yet
+    seen both sides of a crossing or the width of a resonance speaks only for
+    the model's shape), and the gain margin known (:func:`gm_known`) ->
+    :data:`PRECISION`; the same with a gain margin that cannot be known from
+    this capture (beyond the band, or not determined once every rule that
+    could pin it is spent) -> :data:`PM_ONLY`; the point budget spent ->
+    :data:`MAX_POINTS`; the time budget spent -> :data:`MAX_TIME`.
     """
-    if (adequate and pending == 0 and pm_sigma_deg <= settings.pm_sigma_deg
-            and gm_known(gm_db, gm_sigma_db, settings)):
-        return PRECISION
+    if adequate and pending == 0 and pm_sigma_deg <= settings.pm_sigma_deg:
+        if gm.status in (GM_KNOWN, GM_LARGE):
+            return PRECISION
+        if gm.status in GM_GIVEN_UP:
+            return PM_ONLY
     if points >= settings.max_points:
         return MAX_POINTS
     if elapsed_s >= settings.max_time_s:
         return MAX_TIME
     return None
+
+
+def not_a_loop_gain(freq_hz, response) -> str:
+    """Why the coarse pass is not a loop gain the adaptive capture can work on ("" when it is).
+
+    Evidence weighed: the coarse pass's usable points (those above the noise).
+    Every rule of the capture (points where the margins are decided, the stop
+    when they are known) starts from the gain crossing, |T| = 1; a measurement
+    whose |T| stays above or below 1 over the whole band has none (a plant, an
+    impedance, a loop gain measured in a band that misses its crossover), so
+    no point could ever make a margin known and the capture would only spend
+    its budget.  A crossing between two neighbouring usable points (their
+    log-magnitudes of opposite sign) is enough.
+    """
+    f = np.asarray(freq_hz, float)
+    mag = np.abs(np.asarray(response, complex))
+    ok = np.isfinite(mag) & (mag > 0) & np.isfinite(f)
+    f, mag = f[ok], mag[ok]
+    if f.size < 2:
+        return (f"{f.size} of the coarse pass's points stand above the noise: nothing to find a "
+                "gain crossing in")
+    db = 20.0 * np.log10(mag[np.argsort(f)])
+    if np.any(np.sign(db[:-1]) * np.sign(db[1:]) <= 0):
+        return ""
+    return (f"no gain crossing (|T| = 1) in {numfmt.eng(f.min(), 'Hz')}..{numfmt.eng(f.max(), 'Hz')}: "
+            f"|T| stays between {numfmt.db(db.min())} and {numfmt.db(db.max())}")
