@@ -17,9 +17,11 @@ import numpy as np
 from scipy import optimize
 
 from benchfit.errors import InputError
+from benchfit.loop.asymptote import fit_asymptote, low_end_gain_db
 from benchfit.loop.crossings import main_score, to_db, wrap180
 from benchfit.loop.densegrid import LIVE_DB, LoopFn
 from benchfit.loop.marginsresult import Margins
+from benchfit.loop.sweeprules import dc_phase_crossing
 from benchfit.loop.verdict import STABLE, UNDECIDED, UNSTABLE, nyquist_verdict
 from benchfit.provenance import Provenance
 
@@ -197,6 +199,8 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
     verdict = str(v.verdict[0])
     dev0, devinf = v.low_deviation, v.high_deviation
     asym = v.asymptotes.row(0) if v.asymptotes is not None else None
+    # a sweep's low end is always fitted: it is the evidence a given count is checked against
+    low_end = (asym if asym is not None else fit_asymptote(f, T)[0]) if data else None
     evidence = asym.describe() if asym is not None else f"{n_int} integrator(s), {'given' if data else 'of the model'}"
     stable = Z == 0          # with the chosen count: which margins apply
     if asym is not None and db[0] < 0 and asym.slope_n - 3 * asym.slope_sigma > 0.1:
@@ -243,8 +247,8 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
         if (~pos).any():
             gm_down = float(np.max(gms[~pos]))
     # a real negative T at DC is a phase crossing at f = 0 (open-loop-unstable plants)
-    if n_int == 0 and float(dev0[0]) < 1.0 and abs(float(wrap180(ph[0] + 180.0))) < 1.0:
-        g0 = -float(db[0])
+    if dc_phase_crossing(n_int, float(ph[0]), float(dev0[0]), low_end):
+        g0 = -float(db[0]) if low_end is None else -low_end_gain_db(f, T)
         if c.exact is not None:        # a model can be evaluated at DC itself
             with np.errstate(all="ignore"):
                 t0 = np.asarray(c.exact(np.array([0.0])), dtype=complex).reshape(-1)[0]
