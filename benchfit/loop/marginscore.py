@@ -21,7 +21,7 @@ from benchfit.loop.asymptote import fit_asymptote, low_end_gain_db
 from benchfit.loop.crossings import main_score, to_db, wrap180
 from benchfit.loop.densegrid import LIVE_DB, LoopFn
 from benchfit.loop.marginsresult import Margins
-from benchfit.loop.sweeprules import dc_phase_crossing
+from benchfit.loop.sweeprules import dc_phase_crossing, given_count_conflict, phase_gaps
 from benchfit.loop.verdict import STABLE, UNDECIDED, UNSTABLE, nyquist_verdict
 from benchfit.provenance import Provenance
 
@@ -161,6 +161,14 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
                 f"the phase jumps {pstep[j]:.0f} deg between {f[j]:.4g} and {f[j + 1]:.4g} Hz "
                 f"({jumps.size} such gap(s)): a resonance is under-sampled; crossings and margins "
                 "near there cannot be trusted; sweep with more points per decade")
+        gaps = [g for g in phase_gaps(db, pstep) if g not in set(jumps.tolist())]
+        if gaps:
+            g = int(gaps[np.argmax(pstep[gaps])])
+            warnings.append(
+                f"the phase changes {pstep[g]:.0f} deg between {f[g]:.4g} and {f[g + 1]:.4g} Hz "
+                f"(|T| {db[g]:.0f} to {db[g + 1]:.0f} dB; {len(gaps)} such gap(s)): a phase "
+                "crossing, and with it the gain margin, may lie in the gap; sweep there with "
+                "more points")
         peaks = np.flatnonzero((db[1:-1] > db[:-2] + 3.0) & (db[1:-1] > db[2:] + 3.0))
         for p in peaks[:3]:
             warnings.append(f"sharp peak at {f[p + 1]:.4g} Hz is defined by one point; "
@@ -216,7 +224,12 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
         warnings.append(f"closed-loop stability is UNDECIDED: {evidence}, and these counts give "
                         "different encirclement verdicts; extend the sweep downwards or state "
                         "the integrator count")
-    if float(dev0[0]) > 60.0:
+    conflict = data and integrators is not None and given_count_conflict(low_end, n_int)
+    if conflict:
+        warnings.append(f"{n_int} integrator(s) were given, but the sweep's low-frequency "
+                        f"asymptote does not allow that count: {low_end.describe()}; the "
+                        "verdict uses the given count; check --integrators")
+    elif float(dev0[0]) > 60.0:
         warnings.append(f"at the bottom of the band ({f[0]:.4g} Hz) the loop phase is still "
                         f"{float(dev0[0]):.0f} deg from its low-frequency asymptote: the stability "
                         "verdict assumes nothing happens below the band; extend it downwards")
