@@ -241,19 +241,23 @@ def loose_above(st: Structure, ref: Refined, f_max: float, poles: bool = True,
 
 def prune_loose(st: Structure, ref: Refined, refit, f_max: float, n_res: int, poles: bool = True,
                 zeros: bool = True) -> tuple[Structure, Refined, int]:
-    """Drop groups above the band that the data locate only loosely (:func:`loose_above`)
-    when the drop test allows it: all of them at once, then one at a time from the
-    highest, by the rule of :func:`prune_above` (:func:`benchfit.fitting.selection.drop_allowed`).
+    """The trials of :func:`prune_above` when the user gave the order (see
+    :func:`benchfit.fitting.selection.above_band_trials`): every group above the
+    band at once, then each one the data locate only loosely (:func:`loose_above`),
+    highest first; a drop goes when :func:`benchfit.fitting.selection.drop_allowed`
+    allows it.
 
-    The trials :func:`prune_above` runs when the user gave the order (see
-    :func:`benchfit.fitting.selection.above_band_trials`): a group above the band
-    located to better than :data:`~benchfit.fitting.assemble.LOOSE` of its value
-    has a linearised drop cost, (f/σ)², over 25, four times the drop test's bar
-    (ln N at N = 400 residuals), and stays.
+    The joint trial stays because spare zeros above the band go together or not
+    at all: on the noiseless 8-pole benchmark plant three of them (five
+    parameters) passed only together.  A group alone is tried only when loosely
+    located: one located to better than :data:`~benchfit.fitting.assemble.LOOSE`
+    of its value has a linearised drop cost, (f/σ)², over 25, four times the drop
+    test's bar (ln N at N = 400 residuals), and stays.
     """
     def candidates(st_: Structure, ref_: Refined) -> list[list[str]]:
-        gs = loose_above(st_, ref_, f_max, poles=poles, zeros=zeros)
-        return ([gs] if len(gs) > 1 else []) + [[g] for g in gs]
+        every = [g for g, _ in groups_above(st_, ref_.values, f_max, poles=poles, zeros=zeros)]
+        loose = loose_above(st_, ref_, f_max, poles=poles, zeros=zeros)
+        return ([every] if every else []) + [[g] for g in loose if [g] != every]
 
     return drop_unneeded(st, ref, refit, n_res, candidates)
 
@@ -288,7 +292,7 @@ def pruned(pb: Problem, hyp_st: Structure, ref: Refined, notes: list[str], idx: 
         st, ref, n_drop = prune_loose(st, ref, trial, f[-1], n_res, **kinds)
         if n_drop:
             notes.append(f"dropped {n_drop} pole or zero group(s) above the band that the data "
-                         "locate only loosely and do not need")
+                         "do not need")
     elif kinds["poles"] or kinds["zeros"]:
         had_delay = st.delay
         st, ref, n_drop = prune_above(st, ref, trial, f[-1], n_res, TWO_PI * f[idx],

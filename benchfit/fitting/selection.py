@@ -139,20 +139,20 @@ def drop_allowed(kept: Refined, dropped: Refined, n_params: int, n_res: int,
 
 
 def above_band_trials(pb: Problem) -> bool:
-    """True when the pruning tries every zero group above the band for removal
-    (:func:`benchfit.fitting.pruning.prune_above`); False when it tries only the
-    groups there that the data locate loosely (:func:`benchfit.fitting.pruning.prune_loose`).
+    """True when the pruning runs every trial of :func:`benchfit.fitting.pruning.prune_above`;
+    False when it tries the groups above the band all at once and then only those the
+    data locate loosely (:func:`benchfit.fitting.pruning.prune_loose`).
 
     Evidence weighed: the options.  With ``--order auto`` every group above the
     band must earn its place (docs/fitting.md, model choice).  With ``--order
     N`` the user has set the model's size and no pole may go; a zero above the
-    band that the refinement locates to better than 20 % stays part of it (its
-    linearised drop cost is over four times the drop test's bar), and one
-    located more loosely is still tried.  Trying every such zero cost a third
-    to a half of a fixed-order fit on 201-point files and on the 8-pole
-    benchmark plant, and none of those trials passed on
-    ``benchmarks/fit_vs_reference.py``'s cases; the zeros that did pass (the
-    two-pole family's spare zero) were loosely located.  A delay that could
+    band that the refinement locates to better than 20 % is not tried alone (its
+    linearised drop cost is over four times the drop test's bar), one located
+    more loosely is.  Trying each such zero alone cost a third to a half of a
+    fixed-order fit on 201-point files and on the noisy 8-pole benchmark plant,
+    and none of those trials passed on ``benchmarks/fit_vs_reference.py``'s
+    cases; the drops that did pass were all the zeros above the band at once
+    (noiseless 8-pole plant) or a loosely located one (the two-pole family).  A delay that could
     take over lagging zeros (``--delay auto``) is a hypothesis of its own and
     keeps the full set of trials.
     """
