@@ -259,3 +259,36 @@ def test_zero_tolerance_monte_carlo_is_the_nominal(kind, plant):
     m = z.snapped.corners[0]
     assert z.spread.percentiles["pm_deg"]["p1"] == pytest.approx(m.phase_margin_deg, rel=1e-9)
     assert z.spread.yield_fraction == (1.0 if z.targets_met else 0.0)
+
+
+def test_report_says_in_words_when_the_gain_margin_is_unbounded():
+    # a lag-lead stage on a two-pole op-amp with a capacitive load: conditionally stable.
+    # python-control's margin (reference library) finds only a gain-reduction margin
+    # (gm < 1: -27 dB), so no gain *increase* destabilises the loop
+    tf, model = true_plant(2e6, 30.0, 10e-6, 0.005)
+    d = design_stage(LoopPlant(model), "lag-lead", Targets(phase_margin_deg=60), gain=2,
+                     load=StageLoad(30.0, 10e-6, 0.005), draws=20, seed=1)
+    gm_ref, _, _, _ = control.margin(tf * comp_tf(d.to_dict()))
+    assert gm_ref < 1
+    m = d.snapped.corners[0]
+    assert math.isinf(m.gain_margin_db) and m.gain_margin_db > 0
+    assert 20 * math.log10(gm_ref) == pytest.approx(m.gain_reduction_margin_db, abs=0.5)
+    text = d.report()
+    # the same words as the margins command (Margins.gain_margin_text)
+    assert f"gain margin {m.gain_margin_text()}" in text
+    assert "gain margin unbounded: every phase crossing (∠T = −180°)" in text
+    assert "∞" not in text and "none" not in text
+    assert "no crossing" in text.split("Monte Carlo")[1]
+
+
+def test_margins_text_without_any_phase_crossing():
+    # a single-pole loop K/(s/p + 1): phase never reaches −180°, python-control's margin
+    # returns gm = inf (reference library)
+    from benchfit.loop.margins import margins_of_model
+    k, p = 100.0, 2 * np.pi * 1e3
+    gm_ref, _, _, _ = control.margin(control.tf([k], [1 / p, 1]))
+    assert math.isinf(gm_ref)
+    m = margins_of_model(PlantModel(zeros=np.array([]), poles=np.array([-p + 0j]), k=k * p))
+    assert math.isinf(m.gain_margin_db)
+    assert m.gain_margin_line().startswith("gain margin not defined: no phase crossing (∠T = −180°)")
+    assert "unbounded" not in m.gain_margin_text()

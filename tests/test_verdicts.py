@@ -10,11 +10,16 @@ compensator, python-control margins, no slack).
 
 import math
 import re
+import warnings
 
+import control
 import numpy as np
 import pytest
 from verdict_cases import (
+    compensator_tf,
+    control_tf,
     double_integrator_loop,
+    frequency_scale,
     independent_yield,
     noisy,
     random_loops,
@@ -23,6 +28,7 @@ from verdict_cases import (
     true_stable,
 )
 
+from benchfit.fitting.model import PlantModel
 from benchfit.loop.asymptote import choose_integrators, fit_asymptote
 from benchfit.loop.design import check_parts, design
 from benchfit.loop.loopgain import Loop, LoopPlant
@@ -226,6 +232,38 @@ def test_servo_yield_matches_an_independent_monte_carlo(gm_target):
     # draws within 0.01 dB of the target may fall either way between two exact evaluations
     edge = int(np.sum(np.abs(gm_w - gm_t) < 0.01))
     assert abs(s.yield_fraction - ref) * draws <= edge, (s.yield_fraction, ref, edge)
+
+
+def test_servo_reference_in_scaled_s_has_no_overflow_and_the_true_margins():
+    # The analytic reference (12th-order Padé × resonance × PI) written in s̃ = s/ω0:
+    # python-control's margin finder overflowed on the unscaled polynomials (RuntimeWarning
+    # in polyval).  It must now run with RuntimeWarning as an error and give the margins of
+    # the other reference path, python-control on the dense frequency response with the
+    # delay exact (true_crossings), the loop being the same.
+    lp, d = _servo_design(120.0)
+    parts = d.snapped.network.parts
+    plant = servo_plant()
+    w0 = frequency_scale(plant)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        loop = control_tf(plant, 12, w0) * compensator_tf("pi", parts, w0)
+        gm, pm, _sm, wpc, wgc, _wms = control.stability_margins(loop, returnall=True)
+        ref, _, _ = independent_yield(plant, "pi", parts, 40.0, 0.0, 0.01, 0.05, 5, 1)
+    assert 0.0 <= ref <= 1.0
+    c = compensator_tf("pi", parts)
+    true = PlantModel(zeros=np.concatenate([plant.zeros, np.roots(np.ravel(c.num[0][0]))]),
+                      poles=np.concatenate([plant.poles, np.roots(np.ravel(c.den[0][0]))]),
+                      k=plant.k * float(np.ravel(c.num[0][0])[0] / np.ravel(c.den[0][0])[0]),
+                      delay_s=plant.delay_s)
+    pm_ref, wgc_ref, gm_ref, wpc_ref = true_crossings(true, 1.0, 100e3)
+    wgc_hz = np.sort(np.asarray(wgc) * w0 / (2 * np.pi))
+    np.testing.assert_allclose(wgc_hz, np.sort(wgc_ref), rtol=2e-3)
+    np.testing.assert_allclose(np.sort(np.asarray(pm)), np.sort(pm_ref), atol=0.2)
+    # phase crossings below 10 kHz (ωτ < 9.4 rad, where a 12th-order Padé still holds the delay)
+    wpc_hz = np.asarray(wpc) * w0 / (2 * np.pi)
+    low = np.sort(20 * np.log10(np.asarray(gm)[wpc_hz < 10e3]))
+    assert low.size >= 2
+    np.testing.assert_allclose(low, np.sort(np.asarray(gm_ref)[np.asarray(wpc_ref) < 10e3]), atol=0.05)
 
 
 def test_servo_second_crossing_counts_for_the_yield_and_targets_met():

@@ -80,14 +80,38 @@ def random_loops(count: int, seed: int) -> list[PlantModel]:
 
 
 # ----------------------------------------------------------------------------- references
-def control_tf(model: PlantModel, pade_order: int = 0):
-    """The model as a python-control transfer function (delay as a Padé approximant)."""
-    num = np.real_if_close(np.poly(model.zeros) * model.k) if model.zeros.size else \
-        np.array([model.k], dtype=float)
-    den = np.real_if_close(np.poly(model.poles))
+def frequency_scale(model: PlantModel) -> float:
+    """A frequency (rad/s) in the middle of the model's poles, zeros and delay corner.
+
+    The geometric mean of the nonzero |poles|, |zeros| and 1/delay.  The references
+    below write the loop in s̃ = s/ω0 with this ω0, so that the coefficients of
+    its polynomials (a 12th-order Padé times a resonance and a compensator) are
+    of order one instead of spanning 10^±60: python-control's margin finder
+    evaluates them at (jω)^30 and overflowed in unscaled s.
+    """
+    roots = np.abs(np.concatenate([model.zeros, model.poles]))
+    scales = list(roots[roots > 0])
+    if model.delay_s:
+        scales.append(1.0 / model.delay_s)
+    return float(np.exp(np.mean(np.log(scales)))) if scales else 1.0
+
+
+def control_tf(model: PlantModel, pade_order: int = 0, w0: float = 1.0):
+    """The model as a python-control transfer function (delay as a Padé approximant).
+
+    With ``w0`` the function is written in the scaled variable s̃ = s/ω0
+    (roots divided by ω0, the gain by ω0^(poles − zeros), the delay times ω0):
+    the same loop with its frequency axis in units of ω0, so the margins are
+    unchanged, crossing frequencies come out divided by ω0, and closed-loop
+    poles keep their signs.
+    """
+    z, p = model.zeros / w0, model.poles / w0
+    k = model.k * w0 ** (model.zeros.size - model.poles.size)
+    num = np.real_if_close(np.poly(z) * k) if z.size else np.array([k], dtype=float)
+    den = np.real_if_close(np.poly(p))
     g = control.tf(np.real(num), np.real(den))
     if model.delay_s and pade_order:
-        pn, pd = control.pade(model.delay_s, pade_order)
+        pn, pd = control.pade(model.delay_s * w0, pade_order)
         g = g * control.tf(pn, pd)
     return g
 
@@ -99,7 +123,7 @@ def true_stable(model: PlantModel, pade_order: int = 12) -> tuple[bool, float]:
     (stable, max real part of the closed-loop poles relative to their size):
     a value near 0 says the truth itself is marginal.
     """
-    g = control_tf(model, pade_order)
+    g = control_tf(model, pade_order, frequency_scale(model))  # scaled s: same pole signs
     cl = control.feedback(g, 1)
     p = np.asarray(control.poles(cl))
     rel = float(np.max(p.real / np.maximum(np.abs(p), 1e-9)))
@@ -125,14 +149,18 @@ def true_crossings(model: PlantModel, f_lo: float, f_hi: float, points: int = 40
             20 * np.log10(gm) if gm.size else gm, np.asarray(wpc, dtype=float) / TWO_PI)
 
 
-def compensator_tf(kind: str, parts: dict[str, float]):
+def compensator_tf(kind: str, parts: dict[str, float], w0: float = 1.0):
     """The ideal-op-amp compensator C = Zf/Zi (inversion folded into the loop sign), written
-    from the textbook impedances of the network, for python-control."""
-    r1, r2, c1 = parts["R1"], parts["R2"], parts["C1"]
+    from the textbook impedances of the network, for python-control.
+
+    With ``w0`` it is written in s̃ = s/ω0 (see :func:`control_tf`): every capacitor
+    enters as C·ω0, since 1/(sC) = 1/(s̃·ω0·C).
+    """
+    r1, r2, c1 = parts["R1"], parts["R2"], parts["C1"] * w0
     if kind == "pi":          # Zf = R2 + 1/(sC1), Zi = R1
         return control.tf([r2 * c1, 1.0], [r1 * c1, 0.0])
     if kind == "type2":       # Zf = (R2 + 1/(sC1)) || 1/(sC2), Zi = R1
-        c2 = parts["C2"]
+        c2 = parts["C2"] * w0
         return control.tf([r2 * c1, 1.0], [r1 * r2 * c1 * c2, r1 * (c1 + c2), 0.0])
     raise ValueError(f"no textbook form here for {kind}")
 
@@ -158,13 +186,14 @@ def independent_yield(plant: PlantModel, kind: str, parts: dict[str, float], pm_
     names = list(parts)
     tol = np.array([r_tol if n[0] == "R" else c_tol for n in names])
     factors = 1.0 + tol * rng.uniform(-1.0, 1.0, size=(draws, len(names)))
-    g = control_tf(plant, pade_order)
+    w0 = frequency_scale(plant)  # scaled s: the margins are those of the unscaled loop
+    g = control_tf(plant, pade_order, w0)
     ok = np.zeros(draws, dtype=bool)
     pm_w = np.full(draws, np.inf)
     gm_w = np.full(draws, np.inf)
     for i in range(draws):
         drawn = {n: parts[n] * factors[i, j] for j, n in enumerate(names)}
-        loop = g * compensator_tf(kind, drawn)
+        loop = g * compensator_tf(kind, drawn, w0)
         poles = np.asarray(control.poles(control.feedback(loop, 1)))
         gm, pm, _sm, _wpc, _wgc, _wms = control.stability_margins(loop, returnall=True)
         pm = (np.asarray(pm, dtype=float) + 180.0) % 360.0 - 180.0

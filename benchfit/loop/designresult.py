@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 import os
 from dataclasses import dataclass, field
 from typing import Any
@@ -209,8 +208,7 @@ class Design:
         for label, p in preds:
             m = p.worst_margins()
             name = f" (worst: {self.corners[p.worst].name})" if len(self.corners) > 1 else ""
-            gm = (f"GM {numfmt.db(m.gain_margin_db)} at {numfmt.eng(m.phase_crossover_hz, 'Hz')}"
-                  if math.isfinite(m.gain_margin_db) else "GM not defined (no phase crossing in the band)")
+            gm = m.gain_margin_line()
             lines.append(f"{label:8} PM {numfmt.deg(m.phase_margin_deg):>6} at {numfmt.eng(m.crossover_hz, 'Hz')}, "
                          f"{gm}{name}"
                          + ("" if m.closed_loop_stable else "  UNSTABLE"))

@@ -177,7 +177,18 @@ class Margins:
             return f"{numfmt.db(self.gain_margin_db)} at {numfmt.eng(self.phase_crossover_hz, 'Hz')}"
         top = (f"below {numfmt.eng(self.f_max_hz, 'Hz')}" if math.isfinite(self.f_max_hz)
                else "in the examined band")
-        return f"not defined in the measured band: no phase crossing (∠T = −180°) {top}"
+        if math.isinf(self.gain_margin_db) and self.gain_margin_db > 0 and any(
+                c.get("kind") == "phase" for c in self.crossings):
+            # conditionally stable: phase crossings exist, but all where |T| > 1
+            return (f"unbounded: every phase crossing (∠T = −180°) {top} is where |T| > 1, "
+                    "so raising the gain does not make the loop unstable (see the gain reduction)")
+        return f"not defined: no phase crossing (∠T = −180°) {top}"
+
+    def gain_margin_line(self) -> str:
+        """'GM 32.8 dB at 247 kHz', or 'gain margin not defined: no phase crossing …' (one line of a report)."""
+        if math.isfinite(self.gain_margin_db) and math.isfinite(self.phase_crossover_hz):
+            return f"GM {self.gain_margin_text()}"
+        return f"gain margin {self.gain_margin_text()}"
 
     def report(self) -> str:
         """A short human-readable summary (numbers by :mod:`benchfit.numfmt`, gaps said in words)."""

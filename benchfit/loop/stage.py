@@ -218,7 +218,7 @@ class StageDesign:
         for label, p in (("ideal", self.ideal), ("snapped", self.snapped)):
             m = p.corners[0]
             lines.append(f"{label:8} PM {deg(m.phase_margin_deg)} at {eng(m.crossover_hz, 'Hz')}, "
-                         f"GM {db(m.gain_margin_db)}" + ("" if m.closed_loop_stable else "  UNSTABLE")
+                         f"{m.gain_margin_line()}" + ("" if m.closed_loop_stable else "  UNSTABLE")
                          + (f"; another gain crossing at {eng(m.min_phase_margin_hz, 'Hz')} has PM "
                             f"{deg(m.min_phase_margin_deg)}" if worst_pm(m) < m.phase_margin_deg - 0.05
                             else ""))

@@ -109,15 +109,22 @@ class Spread:
                  + (", plant from fit covariance" if self.plant_uncertainty else ""),
                  "                 " + "".join(f"{str(p) + ' %':>12}" for p in PERCENTILES)]
         for key, label, fmt in (("pm_deg", "phase margin", numfmt.deg),
-                                ("gm_db", "gain margin", numfmt.db),
+                                ("gm_db", "gain margin", _gain_margin_cell),
                                 ("crossover_hz", "crossover", lambda v: numfmt.eng(v, "Hz"))):
             lines.append(f"{label:17}" + "".join(f"{fmt(pc[key][f'p{p}']):>12}" for p in PERCENTILES))
+        if any(math.isinf(v) and v > 0 for v in pc["gm_db"].values()):
+            lines.append("(gain margin 'no crossing': those draws have no phase crossing where |T| < 1 in the band)")
         undecided = (f", stability undecided {numfmt.pct(self.undecided_fraction)}"
                      if self.undecided_fraction else "")
         lines.append(f"yield {numfmt.pct(self.yield_fraction)} "
                      f"(unstable {numfmt.pct(self.unstable_fraction)}{undecided}; "
                      f"counting {describe(self.crossings)})")
         return "\n".join(lines)
+
+
+def _gain_margin_cell(v: float) -> str:
+    """A gain-margin percentile: 'no crossing' where the draws have no phase crossing (GM = +inf)."""
+    return "no crossing" if math.isinf(v) and v > 0 else numfmt.db(v)
 
 
 def _check_tol(v: float, what: str) -> float:
