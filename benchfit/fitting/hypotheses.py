@@ -216,7 +216,8 @@ def drop_far(pb: Problem, st: Structure, values: np.ndarray, idx: np.ndarray | N
 
 def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
     """Start, prune and compare the candidates; the winner (not yet refined on every
-    point unless the second value, ``refined``, is True).
+    point unless the second value, ``refined``, is True: a single hypothesis, or a
+    close call decided on every point).
 
     Hypotheses are refined, pruned and compared on the thinned copy the scans
     used (each decision is a χ² difference against ln N, valid at any N);
@@ -268,7 +269,17 @@ def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
     if not outcomes:
         raise FitError("vector fitting failed: the model does not evaluate on the band "
                        "(check the data for gaps or exact zeros)")
-    return choose(outcomes, n_sub, 2 * n_pts, pb.refiner()), single
+    # When the call is close, choose() refines the contenders on every point: the
+    # winner's refinement is then the one on every point the result reports, and
+    # final() does not repeat it.
+    refit_all, on_all = pb.refiner(), []
+
+    def refit_all_points(st: Structure, values: np.ndarray, **kw) -> Refined:
+        on_all.append(refit_all(st, values, **kw))
+        return on_all[-1]
+
+    best = choose(outcomes, n_sub, 2 * n_pts, refit_all_points)
+    return best, single or any(best.ref is r for r in on_all)
 
 
 def choose(outcomes: list[Hypothesis], n_sub: int, n_all: int, refit_all) -> Hypothesis:
