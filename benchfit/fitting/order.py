@@ -71,10 +71,12 @@ class Context:
 
     def target(self, tau_s: float) -> tuple[np.ndarray, np.ndarray]:
         """Data and weights for VF with integrators and delay taken out."""
-        g = self.h * self.s ** self.integrators
+        g, w = self.h, self.w
+        if self.integrators:  # without, the powers would only multiply by one
+            g = g * self.s ** self.integrators
+            w = w / np.abs(self.s) ** self.integrators
         if tau_s:
             g = g * np.exp(self.s * self.scale * tau_s)
-        w = self.w / np.abs(self.s) ** self.integrators
         return g, w / np.max(w)
 
 

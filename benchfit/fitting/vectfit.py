@@ -127,8 +127,7 @@ def _pole_change(old: np.ndarray, new: np.ndarray) -> float:
     Both sets are in :func:`~benchfit.fitting.relocation.arrange` order; a
     different count of real poles is an infinite change.
     """
-    if old.shape != new.shape or np.count_nonzero(old.imag == 0.0) != np.count_nonzero(
-            new.imag == 0.0):
+    if old.shape != new.shape or count_real(old) != count_real(new):
         return np.inf
     if not old.size:
         return 0.0
