@@ -14,7 +14,7 @@ import pytest
 from benchfit.bench.profile import find_profile
 from benchfit.bench.scope import capture_trace
 from benchfit.bench.sim_transport import simulated_session
-from benchfit.bench.simulator import SimulatedScope
+from benchfit.bench.simscope import SimulatedScope
 from benchfit.data.canonical import read_canonical_trace
 from benchfit.errors import InputError, InstrumentError
 

@@ -44,6 +44,12 @@ from benchfit.bench.capturefile import (  # noqa: F401 - re-exported
 )
 from benchfit.bench.capturesettings import MAX_POINTS, CaptureResult, CaptureSettings  # noqa: F401
 from benchfit.bench.profile import Profile
+from benchfit.bench.readings import (  # noqa: F401 - to_complex re-exported
+    prepare_instrument,
+    read_cw_point,
+    to_complex,
+    trigger_and_wait,
+)
 from benchfit.bench.session import Session
 from benchfit.data.canonical import read_canonical_sweep
 from benchfit.data.response import FrequencyResponse
@@ -60,22 +66,6 @@ from benchfit.provenance import Provenance
 
 def _now() -> str:
     return _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
-
-
-def to_complex(values: np.ndarray, form: str, *, what: str = "data") -> np.ndarray:
-    """Interleaved pairs per point -> complex response.
-
-    ``re_im``: real, imaginary; ``db_deg``: 20·log10|H| in dB, phase in deg;
-    ``lin_deg``: |H|, phase in deg.
-    """
-    v = np.asarray(values, dtype=float)
-    if v.size % 2:
-        raise InstrumentError(f"{what}: {v.size} values, expected pairs (two per point)")
-    a, b = v[0::2], v[1::2]
-    if form == "re_im":
-        return a + 1j * b
-    mag = 10.0 ** (a / 20.0) if form == "db_deg" else a
-    return mag * np.exp(1j * np.radians(b))
 
 
 class StopFlag:
@@ -272,18 +262,10 @@ class Capture:
     # ----- instrument ----------------------------------------------------------------
     def _configure(self) -> None:
         p, s, ses = self.profile, self.settings, self.session
-        if p.has("clear_status"):
-            ses.write(p.command("clear_status"))
-        if p.reset_on_start and p.has("reset"):
-            ses.write(p.command("reset"))
-        stale = ses.drain_errors()  # entries from before this capture are not ours
+        stale = prepare_instrument(ses, p, reset=p.reset_on_start)  # earlier errors are not ours
         if stale:
             self.warnings.append("cleared earlier instrument errors: "
                                  + "; ".join(f"{c} {t}" for c, t in stale))
-        if p.has(f"format_{p.encoding}"):
-            ses.configure(p.command(f"format_{p.encoding}"))
-        if p.is_binary and p.has(f"byte_order_{p.byte_order}"):
-            ses.configure(p.command(f"byte_order_{p.byte_order}"))
         if s.level_v is not None:
             ses.configure(p.command("level", level_v=s.level_v))
         if s.bandwidth_hz is not None:
@@ -295,20 +277,12 @@ class Capture:
         elif p.has("step_mode"):
             ses.configure(p.command("step_mode"))
 
-    def _trigger_and_wait(self) -> None:
-        # The error queue is read only after *OPC? answers: an instrument that runs commands
-        # in sequence would hold a SYSTem:ERRor? sent mid-sweep until the sweep ends.
-        cmd = self.profile.command("trigger")
-        self.session.write(cmd)
-        self.session.wait_complete()
-        self.session.check_errors(cmd)
-
     def _measure_sweep(self, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         p, ses = self.profile, self.session
         ses.configure(p.command("start", start_hz=float(f[0])))
         ses.configure(p.command("stop", stop_hz=float(f[-1])))
         ses.configure(p.command("points", points=int(f.size)))
-        self._trigger_and_wait()
+        trigger_and_wait(self.session, self.profile)
         axis = self._sweep_axis(f)
         data_cmd = p.command("data_query")
         h = to_complex(ses.query_values(data_cmd), p.response_form, what=data_cmd)
@@ -349,18 +323,8 @@ class Capture:
         return lo * (hi / lo) ** i if s.spacing == "log" else lo + (hi - lo) * i
 
     def _measure_point(self, f: float) -> tuple[np.ndarray, np.ndarray]:
-        p, ses = self.profile, self.session
-        ses.configure(p.command("cw", freq_hz=f))
-        self._trigger_and_wait()
-        if p.has("cw_query"):
-            cmd = p.command("cw_query")
-            f = float(parse_ascii(ses.query(cmd), what=cmd)[0])
-        data_cmd = p.command("data_query")
-        h = to_complex(ses.query_values(data_cmd), p.response_form, what=data_cmd)
-        if h.size != 1:
-            raise InstrumentError(f"expected one point, the instrument returned {h.size}",
-                                  resource=self.session.name, command=data_cmd)
-        return np.array([f]), h
+        f_read, h = read_cw_point(self.session, self.profile, f)
+        return np.array([f_read]), h
 
     # ----- the loop ------------------------------------------------------------------
     def run(self, *, resume: bool = False) -> CaptureResult:

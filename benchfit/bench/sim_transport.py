@@ -26,8 +26,8 @@ from pathlib import Path
 from typing import Any
 
 from benchfit.bench.profile import Profile
+from benchfit.bench.scpidevice import ScpiDevice
 from benchfit.bench.session import Session, open_session
-from benchfit.bench.simulator import ScpiDevice
 from benchfit.errors import InputError
 
 _SIM_YAML = 'spec: "1.1"\nresources: {}\ndevices: {}\n'

@@ -63,7 +63,7 @@ def run(args: argparse.Namespace) -> int:
     from benchfit.bench.profile import find_profile
     from benchfit.bench.scope import capture_trace
     from benchfit.bench.sim_transport import bench_session
-    from benchfit.bench.simulator import scope_for_trace
+    from benchfit.bench.simscope import scope_for_trace
 
     if bool(args.simulate) == bool(args.resource):
         raise InputError("give exactly one of RESOURCE or --simulate", source="RESOURCE")

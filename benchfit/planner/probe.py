@@ -1,8 +1,9 @@
 """Readings of single points through an instrument session, with their settings and time.
 
-The planner sets the level, the bandwidth and the CW frequency with the
-profile's commands (checking the error queue after each, as every capture
-does), then triggers and reads the point ``repeats`` times.  Time comes from
+The planner sets the level and the bandwidth with the profile's commands
+(only when they change), then reads the point ``repeats`` times with
+:func:`benchfit.bench.readings.read_cw_point`, the same CW reading the
+step-mode capture makes.  Time comes from
 a clock the caller gives: the wall clock on the bench, the simulator's own
 (simulated) clock without hardware.
 """
@@ -16,10 +17,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from benchfit.bench.blocks import parse_ascii
-from benchfit.bench.capture import to_complex
+from benchfit.bench.readings import prepare_instrument, read_cw_point
 from benchfit.bench.session import Session
-from benchfit.errors import InputError, InstrumentError
+from benchfit.errors import InputError
 
 
 @dataclass(frozen=True)
@@ -99,13 +99,7 @@ class Probe:
     def configure(self) -> None:
         """Clear the status, drop stale errors, set the data format and the CW mode."""
         p, ses = self.profile, self.session
-        if p.has("clear_status"):
-            ses.write(p.command("clear_status"))
-        ses.drain_errors()
-        if p.has(f"format_{p.encoding}"):
-            ses.configure(p.command(f"format_{p.encoding}"))
-        if p.is_binary and p.has(f"byte_order_{p.byte_order}"):
-            ses.configure(p.command(f"byte_order_{p.byte_order}"))
+        prepare_instrument(ses, p)
         if p.has("step_mode"):
             ses.configure(p.command("step_mode"))
 
@@ -119,22 +113,6 @@ class Probe:
         if self._bandwidth != bandwidth_hz:
             ses.configure(p.command("bandwidth", bandwidth_hz=bandwidth_hz))
             self._bandwidth = bandwidth_hz
-        ses.configure(p.command("cw", freq_hz=freq_hz))
-        f_read = float(freq_hz)
-        values = []
-        trig = p.command("trigger")
-        data_cmd = p.command("data_query")
-        for _ in range(int(repeats)):
-            ses.write(trig)
-            ses.wait_complete()
-            ses.check_errors(trig)
-            h = to_complex(ses.query_values(data_cmd), p.response_form, what=data_cmd)
-            if h.size != 1 or not np.isfinite(h[0]):
-                raise InstrumentError(f"expected one finite point, the instrument returned {h}",
-                                      resource=ses.name, command=data_cmd)
-            values.append(complex(h[0]))
-        if p.has("cw_query"):
-            cmd = p.command("cw_query")
-            f_read = float(parse_ascii(ses.query(cmd), what=cmd)[0])
+        f_read, values = read_cw_point(ses, p, freq_hz, repeats)
         return Reading(freq_hz=f_read, values=np.asarray(values, complex), level_v=float(level_v),
                        bandwidth_hz=float(bandwidth_hz), time_s=float(self.clock() - t0))

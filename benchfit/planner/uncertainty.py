@@ -31,6 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from benchfit.loop.margins import Margins, margins_batch, margins_of_model
+from benchfit.planner.draws import covariance_scale, draw_responses
 
 #: Parameter draws per estimate.
 DRAWS = 400
@@ -153,11 +154,12 @@ def margin_spread(fit, f_lo: float, f_hi: float, *, draws: int = DRAWS,
         return MarginSpread(m, math.inf, math.inf, empty, empty, grid,
                             np.zeros((0, grid.size), complex), "the fit has no usable covariance")
     if data is not None:
-        both = fit.draw_responses(np.concatenate([grid, data.freq_hz]), draws, rng)
+        both = draw_responses(fit, np.concatenate([grid, data.freq_hz]), draws, rng)
         T, at_data = both[:, :grid.size], both[:, grid.size:]
+        redchi = float(fit.stats.get("reduced_chi2") or 1.0)
         keep = consistent_draws(at_data, data.response, data.stddev,
                                 fit.response(data.freq_hz), len(fit.varied),
-                                float(fit.stats.get("reduced_chi2") or 1.0))
+                                redchi * covariance_scale(redchi))
         if keep.mean() < MIN_CONSISTENT:
             empty = np.full(0, np.nan)
             return MarginSpread(m, math.inf, math.inf, empty, empty, grid,
@@ -167,7 +169,7 @@ def margin_spread(fit, f_lo: float, f_hi: float, *, draws: int = DRAWS,
         T = T[keep]
         draws = T.shape[0]
     else:
-        T = fit.draw_responses(grid, draws, rng)
+        T = draw_responses(fit, grid, draws, rng)
     b = margins_batch(grid, np.vstack([nominal, T]),
                       unstable_open_loop_poles=m.open_loop_unstable_poles)
     pm, gm = b["pm_deg"], b["gm_db"]
@@ -182,7 +184,8 @@ def margin_spread(fit, f_lo: float, f_hi: float, *, draws: int = DRAWS,
         dgm = np.zeros(draws)            # no phase crossing in the band in any draw
         gm_sigma = 0.0
     else:
-        dgm = gm[1:] - gm[0]
+        with np.errstate(invalid="ignore"):      # inf - inf: a draw without the crossing
+            dgm = gm[1:] - gm[0]
         if not math.isfinite(gm[0]) or np.mean(~np.isfinite(dgm)) > LOST_FRACTION:
             gm_sigma = math.inf
             reason = reason or "the phase crossing is lost in too many parameter draws"
