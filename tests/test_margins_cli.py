@@ -92,6 +92,8 @@ def test_extra_delay_reduces_the_phase_margin(tmp_path, capsys):
     (["margins", "missing.csv"], "file not found"),
     (["margins", "{json}", "--unstable-poles", "-1"], "--unstable-poles"),
     (["margins", "{other}"], "holds no loop gain"),
+    # the low-end fit weighs 0..4 integrators (docs/margins.md); 7 was accepted
+    (["margins", "{json}", "--integrators", "7"], "--integrators: '7': expected a whole number 0..4"),
 ])
 def test_user_errors_are_one_line_and_exit_2(tmp_path, capsys, argv, needle):
     good = tmp_path / "m.json"

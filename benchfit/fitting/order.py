@@ -297,7 +297,7 @@ def polish(ctx: Context, a: Attempt) -> Attempt:
     """Carry the poles of ``a`` (found on a thinned sweep) to ``ctx`` (every point).
 
     Only the residues are re-solved: the poles are a starting point, and the
-    lmfit refinement that follows is the estimator.  The iteration count and
+    least-squares refinement that follows is the estimator.  The iteration count and
     convergence flag of ``a`` are kept.
     """
     b = attempt(ctx, a.order, a.tau_s, poles0=a.vf.poles, max_iter=0)

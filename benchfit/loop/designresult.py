@@ -18,7 +18,7 @@ from benchfit.loop.opamp import OpAmp
 from benchfit.loop.passrules import check_crossings
 from benchfit.loop.prediction import Prediction, target_warnings
 from benchfit.loop.sensing import Sensing
-from benchfit.loop.synthesis import Synthesis, Targets
+from benchfit.loop.targets import Synthesis, Targets
 from benchfit.loop.tolerance import Spread
 from benchfit.provenance import Provenance
 

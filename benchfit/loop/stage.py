@@ -45,7 +45,7 @@ from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_response import closed_loop_values
 from benchfit.loop.stage_snapping import snap_stage
 from benchfit.loop.stage_synthesis import GAIN_TOL, StageSynthesis, stage_grid, synthesize_stage
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 from benchfit.loop.tolerance import Spread, monte_carlo
 from benchfit.numfmt import eng
 from benchfit.provenance import Provenance

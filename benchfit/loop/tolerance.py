@@ -31,7 +31,7 @@ from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.passrules import check_crossings, describe, draws_pass
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 
 #: Percentiles reported.
 PERCENTILES = (1, 5, 50, 95, 99)
