@@ -134,6 +134,7 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
     # --- phase crossings (∠T = -180° + 360°·m)
     k = np.floor((ph + 180.0) / 360.0)
     phase_x: list[dict[str, Any]] = []
+    coarse_x: list[tuple[float, float]] = []   # (f, GM dB) of phase crossings on a coarse sweep
     for i in np.flatnonzero(k[:-1] != k[1:]):
         if c.exact is not None and max(db[i], db[i + 1]) < LIVE_DB:
             continue            # the dense grid does not resolve the phase down there
@@ -147,9 +148,14 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
             phase_x.append({"kind": "phase", "freq_hz": fp, "value": -gdb, "direction": direction})
             if data and (dstep[max(i - 1, 0):i + 2].max() > _COARSE_DB
                          or pstep[max(i - 1, 0):i + 2].max() > 3 * _COARSE_PHASE_DEG):
-                warnings.append(
-                    f"phase crossing at {fp:.4g} Hz: the sweep is coarse there; its gain margin "
-                    f"({-gdb:.1f} dB) is uncertain")
+                coarse_x.append((fp, -gdb))
+    if coarse_x:
+        # one line however many (a long delay gives a phase crossing every 1/τ Hz)
+        fp, gm = min(coarse_x, key=lambda x: abs(x[1]))
+        more = (f"; {len(coarse_x) - 1} more phase crossing(s) up to {coarse_x[-1][0]:.4g} Hz "
+                "where the sweep is as coarse") if len(coarse_x) > 1 else ""
+        warnings.append(f"phase crossing at {fp:.4g} Hz: the sweep is coarse there; its gain "
+                        f"margin ({gm:.1f} dB) is uncertain{more}")
 
     # --- resolution of the whole sweep (data): under-sampled resonances
     if data:
