@@ -162,7 +162,7 @@ def _task_that_kills_its_worker(path, settings):
 
 
 def test_a_file_that_kills_its_worker_gets_an_error_row_and_the_rest_real_rows(lot, tmp_path):
-    from benchfit.batch.runner import _pool
+    from benchfit.batch.paths import pool_rows as _pool
 
     files = [str(p) for p in sorted(lot.glob("unit_*.csv"))[:6]]
     killer = tmp_path / "killer.csv"
@@ -252,17 +252,17 @@ def test_workers_run_the_task_without_numpy_notes(monkeypatch, capsys):
     # a pool or Dask worker prints straight to its stderr: the task it runs drops them itself
     import warnings
 
-    import benchfit.batch.runner as runner
+    import benchfit.batch.paths as paths
 
     def noisy(path, settings):
         np.log10(np.zeros(2))
         return {"file": path}
 
-    monkeypatch.setattr(runner, "run_task", noisy)
+    monkeypatch.setattr(paths, "run_task", noisy)
     with warnings.catch_warnings():
         warnings.simplefilter("error")               # any warning that escapes would raise here
-        assert runner.quiet_task("x.csv", TaskSettings()) == {"file": "x.csv"}
-    assert runner._pool.__defaults__[-1] is runner.quiet_task
+        assert paths.quiet_task("x.csv", TaskSettings()) == {"file": "x.csv"}
+    assert paths.pool_rows.__defaults__[-1] is paths.quiet_task
 
 
 @pytest.mark.skipif(os.name != "posix", reason="process groups and SIGINT are POSIX")

@@ -114,3 +114,34 @@ def test_headerless_table_stays_a_sweep_error(tmp_path, capsys):
     p.write_text("1,2,3\n2,3,4\n3,4,5\n")
     assert main(["inspect", str(p)]) == 2
     assert "no header line" in capsys.readouterr().err
+
+
+def test_inspect_of_ordinary_files_needs_no_pandas():
+    # numpy converts a block below PANDAS_MIN_CELLS; pandas' 0.37 s import is not paid
+    files = [BUCK, SAMPLES / "opamp_buffer.s2p", SAMPLES / "step_trace.csv",
+             *sorted((SAMPLES / "dialects").iterdir())]
+    code = ("import sys, io, contextlib\nfrom benchfit.cli import main\n"
+            f"for f in {[str(f) for f in files]!r}:\n"
+            "    with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):\n"
+            "        assert main(['inspect', f]) == 0, f\n"
+            "print('pandas' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False", out.stdout + out.stderr
+
+
+def test_numpy_and_pandas_conversions_read_the_same_numbers(monkeypatch):
+    # reference: pandas' C parser (read_csv) on the same rows; every sample file and dialect
+    # is read once through each path, and the responses must be identical to the last bit
+    import benchfit.data.rowparse as rowparse
+    import benchfit.data.touchstone as touchstone
+
+    files = [BUCK, SAMPLES / "ldo_loop.csv", SAMPLES / "opamp_buffer.s2p",
+             *sorted((SAMPLES / "dialects").iterdir())]
+    got = {}
+    for cells in (10**12, 0):
+        monkeypatch.setattr(rowparse, "PANDAS_MIN_CELLS", cells)
+        monkeypatch.setattr(touchstone, "PANDAS_MIN_CELLS", cells)
+        got[cells] = [read_sweep(f, trace=1 if "two_loads" in f.name or "stacked" in f.name else None)
+                      for f in files]
+    for a, b in zip(got[10**12], got[0], strict=True):
+        assert np.array_equal(a.freq_hz, b.freq_hz) and np.array_equal(a.response, b.response)

@@ -260,8 +260,8 @@ def test_fewer_poles_note_counts_the_poles_above_the_band_the_data_cannot_locate
     # band, or one above it that the data locate, does not; none when the user holds a pole.
     from types import SimpleNamespace
 
+    from benchfit.fitting.final import fewer_poles_note
     from benchfit.fitting.parameters import Structure
-    from benchfit.fitting.pruning import fewer_poles_note
     from benchfit.fitting.refine import Refined
 
     st = Structure(real_poles=3, pole_pairs=1)

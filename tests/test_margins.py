@@ -420,3 +420,14 @@ def test_margins_are_invariant_to_frequency_scaling(seed):
         assert c2["value"] == pytest.approx(c1["value"], abs=1e-6)
     assert m2.closed_loop_stable == m1.closed_loop_stable
     assert m2.modulus_margin == pytest.approx(m1.modulus_margin, rel=1e-6)
+
+
+def test_coarse_phase_crossings_of_a_long_delay_warn_on_one_line():
+    # a 200 µs delay past a 1 kHz crossover crosses -180° every 5 kHz; on a 20-point-a-decade
+    # sweep each of them is coarse: one warning names the one nearest 0 dB and counts the rest
+    f = np.logspace(1, 6, 101)
+    s = 2j * np.pi * f
+    T = (2 * np.pi * 1e3 / s) * np.exp(-s * 200e-6)
+    m = margins_from_data(f, T)
+    coarse = [w for w in m.warnings if w.startswith("phase crossing at") and "coarse" in w]
+    assert len(coarse) == 1 and "more phase crossing(s)" in coarse[0]

@@ -92,6 +92,8 @@ def test_extra_delay_reduces_the_phase_margin(tmp_path, capsys):
     (["margins", "missing.csv"], "file not found"),
     (["margins", "{json}", "--unstable-poles", "-1"], "--unstable-poles"),
     (["margins", "{other}"], "holds no loop gain"),
+    # the low-end fit weighs 0..4 integrators (docs/margins.md); 7 was accepted
+    (["margins", "{json}", "--integrators", "7"], "--integrators: '7': expected a whole number 0..4"),
 ])
 def test_user_errors_are_one_line_and_exit_2(tmp_path, capsys, argv, needle):
     good = tmp_path / "m.json"
@@ -122,3 +124,12 @@ def test_design_with_measured_loop_and_band_and_quantity_warning(tmp_path, capsy
     write_sweep_csv(FrequencyResponse(f, m.response(f), quantity="plant"), plant)
     rc, _, err = run(capsys, "margins", str(plant))
     assert rc == 0 and "plant measurement" in err
+    # ... and so does a model fitted to it (its provenance says what it was fitted to),
+    # while a fit of a loop-gain sweep does not
+    for quantity, warned in (("plant", True), ("loop", False)):
+        src = tmp_path / f"{quantity}.csv"
+        write_sweep_csv(FrequencyResponse(f, m.response(f), quantity=quantity), src)
+        fitted = tmp_path / f"{quantity}_fit.json"
+        assert run(capsys, "fit", str(src), "--quantity", quantity, "-o", str(fitted))[0] == 0
+        rc, _, err = run(capsys, "margins", str(fitted))
+        assert rc == 0 and ("fitted to a sweep that is marked as a plant" in err) == warned

@@ -93,3 +93,24 @@ def test_open_loop_unstable_sweep_is_undecided_then_right_with_the_count(sys_, t
     assert _ct_closed_loop_stable(sys_) == truly_stable
     told = margins_of_loop(resp, unstable_open_loop_poles=1)
     assert told.verdict == ("stable" if truly_stable else "unstable")
+
+
+@pytest.mark.parametrize("noise", [0.0, 0.002])
+def test_open_loop_unstable_sweep_reports_the_gain_reduction_limit_at_dc(noise):
+    # T(0) = -2 (P = 1): lowering the gain by 6.06 dB destabilises the loop.
+    # Reference: python-control stability_margins gives GM -6.056 dB at 0 Hz on the true
+    # loop, and the closed-loop poles of feedback(10**(-6.2/20) T) are in the right
+    # half-plane (tester finding 3: the sweep path said "gain margin not defined", -inf).
+    t = (1 + s / (W * 100)) / ((s / (W * 50) - 1) * (1 + s / (W * 20e3)))
+    loop = t / abs(complex(t(1j * W * 2e3)))
+    gm, *_ = ct.stability_margins(loop, returnall=True)
+    assert np.isclose(20 * np.log10(gm[0]), -6.056, atol=0.01)
+    assert max(ct.poles(ct.feedback(loop * 10 ** (-6.2 / 20), 1)).real) > 0
+    assert max(ct.poles(ct.feedback(loop * 10 ** (-5.9 / 20), 1)).real) < 0
+    f = np.logspace(0, 6, 601)
+    m = margins_of_loop(_sweep(loop, f, noise=noise), unstable_open_loop_poles=1)
+    assert m.verdict == "stable"
+    assert np.isclose(m.gain_reduction_margin_db, 20 * np.log10(gm[0]), atol=0.05)
+    dc = [c for c in m.crossings if c["kind"] == "phase" and c["freq_hz"] == 0.0]
+    assert len(dc) == 1 and np.isclose(dc[0]["value"], m.gain_reduction_margin_db)
+    assert any("lowering it by 6.1 dB" in w for w in m.warnings)

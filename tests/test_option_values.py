@@ -181,3 +181,17 @@ def test_number_prefix_unit_round_trip(x, prefix, unit):
     others = [u for u in UNITS if u is not unit and u.prefixes]
     with pytest.raises(InputError, match="expected " + others[0].name):
         parse_value(text_, "--x", others[0], Range())
+
+
+def test_negative_values_with_units_reach_the_option_and_name_it_once(tmp_path, capsys):
+    # "--delay -1u" was taken for an option ("expected one argument"), and a value the
+    # option's own parser refused named the option twice ("--band: --band: ...")
+    sweep = tmp_path / "t.csv"
+    sweep.write_text("freq_hz,mag_db,phase_deg\n10,20,-90\n100,0,-100\n1000,-20,-120\n")
+    for argv, needle in ((["margins", str(sweep), "--delay", "-1u"],
+                          "benchfit: error: --delay: '-1u': expected a time at least 0 s"),
+                         (["step", str(sweep), "--band", "200%"],
+                          "benchfit: error: --band: '200%': expected a percentage below 100%")):
+        rc = main(argv)
+        err = capsys.readouterr().err.strip()
+        assert rc == 2 and err == needle

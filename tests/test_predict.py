@@ -25,6 +25,7 @@ from test_margins import tf_model
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
+from benchfit.loop.loopsim import state_space
 from benchfit.loop.predict import (
     Prediction,
     closed_loop,
@@ -34,7 +35,6 @@ from benchfit.loop.predict import (
     reference_step,
     step_metrics,
 )
-from benchfit.loop.timeresponse import state_space
 
 RATIONAL = [
     ([5], [1, 3, 2, 0]),

@@ -27,6 +27,7 @@ from benchfit.fitting.problem import passive, prepare
 from benchfit.fitting.refine import Refined
 from benchfit.fitting.selection import (
     CLOSE_CALL,
+    above_band_trials,
     bic,
     delay_worth_testing,
     drop_allowed,
@@ -208,6 +209,35 @@ def test_prunable_honours_the_order_and_what_the_user_holds():
     assert prunable(_pb(order=2)) == {"poles": False, "zeros": True, "cancelling": False}
     assert prunable(_pb(fix={"zero1_hz": 5e3})) == {"poles": True, "zeros": False,
                                                     "cancelling": False}
+
+
+def test_above_band_trials_run_with_auto_order_or_a_delay_to_offer():
+    # --order auto: every group above the band is tried; --order N without a delay to
+    # offer: only the groups the data cannot locate (prune_unidentified); --order N with
+    # --delay auto keeps the delay swap and so the full set.
+    assert above_band_trials(_pb())
+    assert not above_band_trials(_pb(order=2))
+    m = from_factors(1.0, poles_hz=(1e3,))
+    r = sweep(m, np.geomspace(10, 1e5, 60))
+    assert above_band_trials(prepare(r, 2, "auto", None, None, "relative", 0, None))
+    assert not above_band_trials(prepare(r, 2, 1e-6, None, None, "relative", 0, None))
+
+
+def test_fixed_order_keeps_a_located_zero_and_drops_one_the_data_cannot_locate():
+    # Two poles, 1 kHz and 350 kHz above a 100 kHz band; order 2 given.  Vector fitting's
+    # spare zero above the band is one the data cannot locate: it is still tried and goes
+    # (prune_unidentified).  A real zero at 60 kHz, which the data locate, stays.
+    from benchfit.fitting import fit
+    f = np.geomspace(10.0, 1e5, 201)
+    rng = np.random.default_rng(0)
+    r = sweep(from_factors(1.0, poles_hz=(1e3, 350e3)), f, noise_db=0.01, noise_deg=0.05, rng=rng)
+    assert [p.name for p in fit(r, order=2, delay="none").parameters] == \
+        ["gain", "pole1_hz", "pole2_hz"]
+    r = sweep(from_factors(1.0, poles_hz=(1e3, 350e3), zeros_hz=(60e3,)), f, noise_db=0.01,
+              noise_deg=0.05, rng=rng)
+    res = fit(r, order=2, delay="none")
+    assert [p.name for p in res.parameters] == ["gain", "pole1_hz", "pole2_hz", "zero1_hz"]
+    assert res.parameter("zero1_hz").value == pytest.approx(60e3, rel=0.05)
 
 
 def test_passive_data_are_impedances_and_scattering_never_above_one():

@@ -164,6 +164,12 @@ def test_round_trip_and_target_check():
     assert back.crossing == d.crossing
     assert back.targets_met == d.targets_met
     assert d.spread is not None and 0 <= d.spread.yield_fraction <= 1
+    # a stage design handed to a command that reads compensator designs says what it is
+    from benchfit.errors import InputError
+    from benchfit.loop.designresult import Design
+
+    with pytest.raises(InputError, match="a stage design .* `check` takes a compensator"):
+        Design.from_dict(d.to_dict())
 
 
 def test_gain_band_check_against_python_control():

@@ -118,10 +118,11 @@ def test_residues_and_residual_match_a_plain_least_squares_solve():
         x, *_ = np.linalg.lstsq(np.vstack([a.real, a.imag]), np.concatenate([b.real, b.imag]),
                                 rcond=None)
         resid = np.linalg.norm(np.vstack([a.real, a.imag]) @ x - np.concatenate([b.real, b.imag]))
-        res, d, e, r = System(s, h, w, poles.size, direct, prop).residues(poles)
+        res, d, e, r, fitted = System(s, h, w, poles.size, direct, prop).residues(poles)
         model = (res / (s[:, None] - poles)).sum(axis=1) + d + e * s
         want = (np.hstack(cols) @ x)
         assert np.allclose(model, want, rtol=1e-9, atol=0)
+        assert np.allclose(fitted, want, rtol=1e-9, atol=0)
         assert r == pytest.approx(resid, rel=1e-9)
         # the relocation reads the same residual off its own QR, for the poles it was given
         _, _, r_reloc = System(s, h, w, poles.size, direct, prop).relocate(poles)

@@ -434,3 +434,27 @@ def test_inverting_measured_plant_with_an_integrator_is_flagged_from_the_asympto
     bad = LoopPlant(FrequencyResponse(f, noisy(-h, 0.05, 0.3, 1), quantity="plant"))
     assert sign_warnings([ok]) == []
     assert len(sign_warnings([bad])) == 1 and "inverting" in sign_warnings([bad])[0]
+
+
+@pytest.mark.parametrize("given", [0, 1, 2, 3, 4, 7])
+def test_a_stated_integrator_count_the_low_end_rules_out_is_flagged(given):
+    # A type-1 loop (low-frequency slope fitted 1.00 +- 0.00). Reference: python-control
+    # feedback poles on the true loop, stable. Tester finding 4: a count off by two (3)
+    # gave UNSTABLE without a hint, since the phase asymptote agrees modulo 180 deg; the
+    # slope must be weighed too.
+    s = control.tf("s")
+    w = 2 * np.pi
+    t = (1 + s / (w * 1e3)) ** 2 / (s * (1 + s / (w * 100)) ** 2 * (1 + s / (w * 50e3)) ** 2)
+    loop = t / abs(complex(t(1j * w * 5e3)))
+    assert max(control.poles(control.feedback(loop, 1)).real) < 0
+    f = np.logspace(0, 6, 601)
+    T = np.array([complex(loop(1j * w * x)) for x in f])
+    m = margins_from_data(f, T, integrators=given)
+    flagged = [x for x in m.warnings if "low-frequency asymptote does not allow" in x]
+    assert m.integrators == given and m.integrators_evidence == f"{given} integrator(s), given"
+    assert len(flagged) == (given != 1)
+    if given == 1:
+        assert m.verdict == "stable"
+    else:
+        assert "slope n = 1.00" in flagged[0]
+

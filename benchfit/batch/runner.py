@@ -4,6 +4,8 @@ or on Dask), append each row as it finishes, resume an interrupted lot.
 All three paths submit :func:`benchfit.batch.task.run_task` with the same
 settings and keep at most a small window of files in flight, so memory does
 not grow with the lot: a sweep is read inside the task and dropped with it.
+The paths are in :mod:`benchfit.batch.paths`; here are the lot's record
+(:class:`LotRun`), its rows file and resume, and :func:`run_lot`.
 """
 
 from __future__ import annotations
@@ -11,14 +13,21 @@ from __future__ import annotations
 import os
 import sys
 import time
-from collections import deque
-from collections.abc import Callable, Iterator, Sequence
-from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
 
 from benchfit.batch.lotfiles import SWEEP_SUFFIXES, find_lot, find_sweeps  # noqa: F401 (re-exported)
+from benchfit.batch.paths import (  # noqa: F401 (LotIncomplete, quiet_task, NO_WORKER_TIMEOUT_S re-exported)
+    NO_WORKER_TIMEOUT_S,
+    LotIncomplete,
+    dask_rows,
+    dask_workers,
+    pool_rows,
+    quiet_task,
+    serial_rows,
+)
 from benchfit.batch.progress import Progress
 from benchfit.batch.table import (
     columns,
@@ -28,8 +37,8 @@ from benchfit.batch.table import (
     repair_torn_tail,
     write_parquet,
 )
-from benchfit.batch.task import TaskSettings, run_task, unit_id
-from benchfit.errors import BenchfitError, InputError
+from benchfit.batch.task import TaskSettings
+from benchfit.errors import InputError
 from benchfit.fileio import append_lines_durable, write_text_atomic
 from benchfit.provenance import Provenance
 
@@ -93,222 +102,6 @@ class LotRun:
                    counts={k: int(v) for k, v in d["counts"].items()},
                    seconds=float(d["seconds"]), workers=int(d["workers"]),
                    executor=str(d["executor"]), provenance=Provenance.from_dict(d.get("provenance")))
-
-
-# ----- execution paths: each yields rows as they finish, with a bounded window in flight -----
-def _failed_row(path: str, exc: BaseException) -> dict[str, Any]:
-    # The task itself never raises; this is a worker that died (killed, out of memory...).
-    return {"file": path, "unit": unit_id(path), "status": "error",
-            "error": f"worker failed ({type(exc).__name__}: {exc})".replace("\n", " ")}
-
-
-def quiet_task(path: str, settings: TaskSettings) -> dict[str, Any]:
-    """:func:`run_task` with numpy's floating-point notes (RuntimeWarning) dropped.
-
-    In this process the CLI drops them; a pool or Dask worker prints straight to its stderr,
-    so the task the workers run drops them itself.  Every value that matters is checked by
-    the task and reported in its row.
-    """
-    import warnings
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        return run_task(path, settings)
-
-
-def _serial(files: Sequence[str], settings: TaskSettings) -> Iterator[dict[str, Any]]:
-    for p in files:
-        yield run_task(p, settings)
-
-
-def _pool(files: Sequence[str], settings: TaskSettings, workers: int,
-          task: Callable[[str, TaskSettings], dict[str, Any]] = quiet_task) -> Iterator[dict[str, Any]]:
-    """Rows from a local process pool, at most ``4 * workers`` files in flight.
-
-    A worker that dies (killed, out of memory, a crash in native code) breaks the
-    whole pool and fails every file in flight.  Those files are then re-run one
-    at a time in a fresh pool, so the one that kills its worker is found and gets
-    an error row, and the innocent ones get their real rows.  Workers ignore Ctrl-C:
-    the parent stops the lot (closing this generator) and says which files are missing.
-    """
-    import multiprocessing as mp
-    from concurrent.futures.process import BrokenProcessPool
-
-    # forkserver: children start from a clean process, safe even when the parent
-    # runs threads (a Dask client, a notebook); spawn where it is not available.
-    method = "forkserver" if "forkserver" in mp.get_all_start_methods() else "spawn"
-    queue = deque(files)
-    suspects: deque[str] = deque()  # in flight when a pool broke: re-run one at a time
-    while queue or suspects:
-        with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context(method),
-                                 initializer=_worker_ignores_ctrl_c) as ex:
-            running: dict[Any, str] = {}
-            alone = _fill(ex, task, settings, running, queue, suspects, 4 * workers)
-            broken = False
-            try:
-                while running:
-                    finished, _ = wait(running, return_when=FIRST_COMPLETED)
-                    for fut in finished:
-                        path = running.pop(fut)
-                        try:
-                            row = fut.result()
-                        except BrokenProcessPool as e:
-                            broken = True
-                            if path == alone:  # it broke the pool by itself: the culprit
-                                yield _failed_row(path, e)
-                            else:
-                                suspects.append(path)
-                            continue
-                        except Exception as e:  # noqa: BLE001
-                            row = _failed_row(path, e)
-                        yield row
-                    if not broken:
-                        alone = _fill(ex, task, settings, running, queue, suspects, 4 * workers)
-            except (GeneratorExit, KeyboardInterrupt):  # the lot stops: start nothing more
-                ex.shutdown(wait=True, cancel_futures=True)
-                raise
-
-
-def _worker_ignores_ctrl_c() -> None:
-    # Ctrl-C reaches the whole process group; the parent stops the lot and says what is
-    # missing, so a worker must not die printing a KeyboardInterrupt traceback of its own.
-    import signal
-
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-
-
-def _fill(ex, task, settings, running: dict, queue: deque, suspects: deque, window: int) -> str | None:
-    """Submit work to the pool: one suspect by itself, else ordinary files up to ``window``.
-
-    Returns the suspect running alone (None when ordinary files run).
-    """
-    if suspects:
-        if running:
-            return None
-        path = suspects.popleft()
-        running[ex.submit(task, path, settings)] = path
-        return path
-    while queue and len(running) < window:
-        path = queue.popleft()
-        running[ex.submit(task, path, settings)] = path
-    return None
-
-
-def _dask_client(address: Any):
-    try:
-        from distributed import Client
-    except ImportError:
-        raise InputError("running on Dask needs the 'distributed' package: "
-                         "pip install 'benchfit[cluster]'", source="--dask") from None
-    if hasattr(address, "submit"):  # already a client (notebooks, tests)
-        return address, False
-    try:
-        return Client(str(address), timeout="10s"), True
-    except (OSError, TimeoutError) as e:
-        raise InputError(f"cannot reach a Dask scheduler at {address} ({e})", source="--dask") from None
-
-
-#: How long a lot on Dask waits while the cluster has no worker, s (run_lot's default).
-NO_WORKER_TIMEOUT_S = 60.0
-#: How often the Dask loop looks at the cluster while nothing finishes, s.
-_POLL_S = 0.5
-
-
-class LotIncomplete(BenchfitError):
-    """A lot stopped before every sweep had its row: which are missing, and how to finish.
-
-    Attributes
-    ----------
-    missing
-        The files with no row yet (in the lot's order).
-    written, total
-        Rows written by this run, files this run had to do.
-    """
-
-    def __init__(self, why: str, missing: Sequence[str], written: int, total: int, rows_csv: str,
-                 *, exit_code: int = 2) -> None:
-        self.missing, self.written, self.total = list(missing), written, total
-        self.exit_code = exit_code
-        names = ", ".join(Path(m).name for m in self.missing[:8])
-        more = f" and {len(self.missing) - 8} more" if len(self.missing) > 8 else ""
-        self.resume_hint = "run the same command with --resume to complete them"
-        super().__init__(f"{why}: {written} of {total} sweeps written to {rows_csv}; "
-                         f"{len(self.missing)} missing ({names}{more}); {self.resume_hint}")
-
-
-def _no_worker_for(client: Any, since: float | None) -> float | None:
-    """When the cluster was first seen without a worker (None while it has one).
-
-    The evidence is the scheduler's own list of workers; a lot then waits for
-    ``worker_timeout_s`` before it gives up, so a worker restarting or a cluster scaling
-    up from zero has time to arrive.
-    """
-    try:
-        n = len(client.scheduler_info().get("workers", {}))
-    except Exception:  # noqa: BLE001 - the scheduler itself is gone: no worker either
-        n = 0
-    if n:
-        return None
-    return since if since is not None else time.monotonic()
-
-
-def _dask(files: Sequence[str], settings: TaskSettings, address: Any,
-          worker_timeout_s: float = NO_WORKER_TIMEOUT_S) -> Iterator[dict[str, Any]]:
-    """Rows from a Dask cluster, at most ``4 * threads`` files in flight.
-
-    Raises :class:`LotIncomplete` naming the files without a row when the cluster has had no
-    worker for ``worker_timeout_s`` (it used to wait for ever, silently).
-    """
-    from distributed import wait as dask_wait
-
-    client, owned = _dask_client(address)
-    try:
-        nworkers = max(1, sum(w.get("nthreads", 1)
-                              for w in client.scheduler_info().get("workers", {}).values()))
-        window = 4 * nworkers
-        todo = deque(files)
-        running: dict[Any, str] = {}
-        idle_since: float | None = None
-        while todo or running:
-            while todo and len(running) < window:
-                p = todo.popleft()
-                running[client.submit(quiet_task, p, settings, pure=False)] = p
-            try:
-                done = dask_wait(list(running), timeout=_POLL_S, return_when="FIRST_COMPLETED").done
-            except TimeoutError:
-                done = set()
-            if not done:
-                idle_since = _no_worker_for(client, idle_since)
-                if idle_since is not None and time.monotonic() - idle_since > worker_timeout_s:
-                    left = set(running.values()) | set(todo)
-                    raise LotIncomplete(
-                        f"no Dask worker left for {worker_timeout_s:g} s",
-                        [f for f in files if f in left], len(files) - len(left), len(files),
-                        "the result table")
-                continue
-            idle_since = None
-            for fut in done:
-                path = running.pop(fut)
-                try:
-                    row = fut.result()
-                except Exception as e:  # noqa: BLE001
-                    row = _failed_row(path, e)
-                fut.release()
-                yield row
-    finally:
-        if owned:
-            client.close()
-
-
-def dask_workers(address: Any) -> int:
-    """Worker threads on the cluster at ``address`` (a client or scheduler address)."""
-    client, owned = _dask_client(address)
-    try:
-        return max(1, sum(w.get("nthreads", 1)
-                          for w in client.scheduler_info().get("workers", {}).values()))
-    finally:
-        if owned:
-            client.close()
 
 
 # ----- the lot ----------------------------------------------------------------------------------
@@ -391,14 +184,14 @@ def run_lot(files: Sequence[str], settings: TaskSettings, output: str | os.PathL
     todo = [f for f in files if _norm(f) not in done]
     if dask is not None:
         executor, nworkers = "dask", dask_workers(dask)
-        rows = _dask(todo, settings, dask, worker_timeout_s)
+        rows = dask_rows(todo, settings, dask, worker_timeout_s)
     else:
         nworkers = max(1, int(workers or os.cpu_count() or 1))
         nworkers = min(nworkers, max(1, len(todo)))
         if nworkers == 1:
-            executor, rows = "serial", _serial(todo, settings)
+            executor, rows = "serial", serial_rows(todo, settings)
         else:
-            executor, rows = "pool", _pool(todo, settings, nworkers)
+            executor, rows = "pool", pool_rows(todo, settings, nworkers)
     bar = Progress(len(todo), stream=progress)
     counts: dict[str, int] = {}
     t0 = time.perf_counter()

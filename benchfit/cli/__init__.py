@@ -30,6 +30,14 @@ class _Parser(argparse.ArgumentParser):
     form of every other user error, ``benchfit: error: --option: reason``.
     """
 
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        # A value such as "-1u" or "-3dB" is a (negative) value, not an option: argparse's
+        # own pattern takes only plain numbers, and "--delay -1u" said "expected one
+        # argument" instead of what is wrong with the value.  No option name starts with
+        # a digit, so nothing else is read differently.
+        self._negative_number_matcher = re.compile(r"^-\.?\d")
+
     def error(self, message: str):  # noqa: D401
         m = _BAD_VALUE.fullmatch(message)
         # the line already starts "benchfit: error:"; a sub-command's parser adds its name

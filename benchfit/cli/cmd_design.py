@@ -108,7 +108,7 @@ def spec_from_args(args: argparse.Namespace) -> DesignSpec:
     from benchfit.loop.designfile import DesignSpec, merge_plant_files, read_design_file
     from benchfit.loop.opamp import OpAmp
     from benchfit.loop.sensing import Sensing
-    from benchfit.loop.synthesis import Targets
+    from benchfit.loop.targets import Targets
 
     spec = read_design_file(args.file) if args.file else DesignSpec()
     spec = merge_plant_files(spec, args.plants)

@@ -74,9 +74,10 @@ def register(subparsers) -> None:
                    help="open-loop right-half-plane poles (default: counted from a model, 0 for a sweep)")
     p.add_argument("--band", type=band, metavar="FMIN:FMAX", help="restrict to this band in Hz (k/M allowed)")
     p.add_argument("--delay", type=value(TIME, NON_NEGATIVE), default=0.0, metavar="S", help="add a pure delay to the loop, e.g. 2u")
-    p.add_argument("--integrators", type=count(0), metavar="N",
-                   help="open-loop poles at s = 0 of a sweep (default: from the fit of its "
-                        "low-frequency asymptote; a model counts its own)")
+    # 0..4: the counts the low-end fit weighs (benchfit.loop.asymptote.MAX_INTEGRATORS)
+    p.add_argument("--integrators", type=count(0, 4), metavar="N",
+                   help="open-loop poles at s = 0 of a sweep, 0 to 4 (default: from the fit of "
+                        "its low-frequency asymptote; a model counts its own)")
     p.add_argument("--ideal", action="store_true", help="for a design: use the ideal parts, not snapped")
     add_reader_flags(p)
     add_json_flag(p)

@@ -56,7 +56,7 @@ def run_stage(args: argparse.Namespace) -> int:
     from benchfit.loop.stage import design_stage
     from benchfit.loop.stage_load import StageLoad
     from benchfit.loop.stage_networks import check_stage_kind
-    from benchfit.loop.synthesis import Targets
+    from benchfit.loop.targets import Targets
 
     if args.file:
         raise InputError("a design file describes a converter loop; give the stage's options on "

@@ -197,7 +197,9 @@ def argtype(fn: Callable[[str], object], name: str) -> Callable[[str], object]:
         try:
             return fn(text)
         except InputError as e:  # its source, when it has one, is the file the value names
-            raise argparse.ArgumentTypeError(str(e)) from None
+            # ... or the option itself, which argparse names already
+            own = str(e.source or "").startswith("-") and e.line is None and e.column is None
+            raise argparse.ArgumentTypeError(e.message if own else str(e)) from None
         except ValueError as e:
             raise argparse.ArgumentTypeError(str(e)) from None
     convert.__name__ = name

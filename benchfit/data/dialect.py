@@ -151,7 +151,7 @@ class Dialect:
                rf"(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity)")
         if self.separator == ",":  # an unquoted comma ends the cell: no grouping there
             num = (rf"[+-]?(?:\d+(?:{dm}\d*)?|{dm}\d+)(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity)")
-            quoted = (rf"[+-]?(?:\d{{1,3}}(?:,\d{{3}})+(?:{dm}\d*)?|\d+(?:{dm}\d*)?|{dm}\d+)"
+            quoted = (rf"[+-]?(?:\d{{1,3}}(?:{tm}\d{{3}})+(?:{dm}\d*)?|\d+(?:{dm}\d*)?|{dm}\d+)"
                       rf"(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity)")
         else:
             quoted = num
@@ -206,11 +206,39 @@ def sniff(lines: list[str], source: str, *, min_columns: int = 2) -> Dialect:
     best = _best_dialect(sample, header, min_columns, grouping=False) or \
         _best_dialect(sample, header, min_columns, grouping=True)
     if best is None:
+        k = first_unsplit_line(lines, head + tail[::-1], min_columns)
+        text = lines[k].strip()
         raise InputError(
-            f"could not split the numeric rows into {min_columns} or more columns with any "
-            "separator (comma, semicolon, tab, whitespace) and decimal mark ('.' or ',')",
-            source=source)
+            f"could not split the numeric rows into {min_columns} or more columns "
+            "with any separator (comma, semicolon, tab, whitespace) and decimal mark ('.' or ','); "
+            f"first failing row: {text[:60]!r}" + ("..." if len(text) > 60 else ""),
+            source=source, line=k + 1)
     return best
+
+
+def first_unsplit_line(lines: list[str], numbered: list[int], min_columns: int) -> int:
+    """The first of the sampled numeric lines that no dialect splits into ``min_columns``
+    numbers (or the first sampled line, when each splits alone but not alike)."""
+    for k in numbered:
+        ln = lines[k].strip()
+        for sep in SEPARATORS:
+            for dec in (".", ","):
+                d = Dialect(sep, dec)
+                cells = d.split(ln)
+                if len(cells) >= min_columns and _parses(d, cells, True):
+                    break
+            else:
+                continue
+            break
+        else:
+            return k
+    return numbered[0]
+
+
+def quoted_cells(sample: list[str]) -> bool:
+    """True when every sampled row quotes its cells (``"12,5893","39,9993"``): only then can a
+    comma-separated file carry a decimal comma, the quotes telling the two commas apart."""
+    return bool(sample) and all(ln.lstrip().startswith('"') and ln.count('"') >= 4 for ln in sample)
 
 
 def _best_dialect(sample: list[str], header: str | None, min_columns: int,
@@ -220,7 +248,7 @@ def _best_dialect(sample: list[str], header: str | None, min_columns: int,
     for sep in SEPARATORS:
         for dec in (".", ","):
             order -= 1
-            if sep == "," and dec == ",":
+            if sep == "," and dec == "," and not quoted_cells(sample):
                 continue
             d = Dialect(sep, dec)
             counts = Counter()

@@ -21,6 +21,7 @@ import numpy as np
 from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_sweep
 from benchfit.data.columns import Column, TracePair, check_units, classify_all, pair_traces
 from benchfit.data.dialect import load_text, sniff
+from benchfit.data.phaseunit import decide_phase_unit
 from benchfit.data.quote import cut, quote, quote_list
 from benchfit.data.repeats import order_and_average
 from benchfit.data.response import QUANTITIES, FrequencyResponse
@@ -124,31 +125,6 @@ def _decide_mag(values: np.ndarray, col: Column, override: str, lines: np.ndarra
     return form
 
 
-def _decide_phase(values: np.ndarray, col: Column, override: str, warnings: list[str]) -> str:
-    form = override if override != "auto" else col.form
-    if override == "auto" and values.size >= 3:
-        peak = float(np.max(np.abs(values)))
-        # A wrapped phase in radians never leaves ±π; one in degrees seldom stays inside it,
-        # and an unwrapped one in radians seldom passes two turns (common practice, no source).
-        if form == "deg" and 0.2 < peak <= np.pi * 1.001:
-            warnings.append(f"phase column {quote(col.name)} is labelled degrees but every value lies "
-                            f"within ±π (largest {peak:.3g}); if it is in radians, use phase='rad' "
-                            "(--phase-rad)")
-        elif form == "rad" and peak > 4 * np.pi:
-            warnings.append(f"phase column {quote(col.name)} is labelled radians but holds values up "
-                            f"to {peak:.4g}, more than two turns; if it is in degrees, use "
-                            "phase='deg' (--phase-deg)")
-    if form == "auto":
-        peak = float(np.max(np.abs(values)))
-        if 0.2 < peak <= np.pi * 1.001:
-            form = "rad"
-            warnings.append(f"phase column {quote(col.name)} states no unit and stays within ±π; read as "
-                            "radians (use --phase-deg if it is degrees)")
-        else:
-            form = "deg"
-    return form
-
-
 @dataclass
 class _Table:
     """What the table path found: one trace's values and how they were read."""
@@ -228,7 +204,9 @@ def _table_sweep(text: str, source: str, *, columns, trace, freq_unit, mag, phas
     a, b = data[:, pair.first.index], data[:, pair.second.index]
     if pair.kind == "mag_phase":
         mag_form = _decide_mag(a, pair.first, mag, lines_no, source, warnings)
-        ph_form = _decide_phase(b, pair.second, phase, warnings)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            a_db = a if mag_form == "db" else 20 * np.log10(a)
+        ph_form = decide_phase_unit(b, pair.second, phase, warnings, freq_hz=f, mag_db=a_db)
         with np.errstate(over="ignore", invalid="ignore"):
             m = 10.0 ** (a / 20.0) if mag_form == "db" else a
             h = m * np.exp(1j * (b if ph_form == "rad" else np.radians(b)))

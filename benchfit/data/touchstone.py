@@ -24,9 +24,9 @@ import re
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 
 from benchfit.data.quote import cut, quote
+from benchfit.data.rowparse import PANDAS_MIN_CELLS
 from benchfit.data.rows import is_marker, value_problem
 from benchfit.data.units import freq_to_hz
 from benchfit.errors import InputError
@@ -145,13 +145,27 @@ def _param_index(param: str, ports: int, kind: str, source: str) -> tuple[int, i
 
 
 def _fast_table(lines: list[str], m: int) -> np.ndarray | None:
-    """One point per line, parsed by pandas' C parser; None when anything is off."""
-    try:
-        frame = pd.read_csv(io.StringIO("\n".join(lines)), sep=r"\s+", header=None, dtype=float,
-                            engine="c")
-    except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
-        return None
-    table = frame.to_numpy(dtype=float)
+    """One point per line, converted at once (pandas' C parser for a large file, numpy below
+    :data:`~benchfit.data.rowparse.PANDAS_MIN_CELLS`); None when anything is off."""
+    if len(lines) * m < PANDAS_MIN_CELLS:
+        if any(not ln.isascii() or "_" in ln or '"' in ln for ln in lines):
+            return None  # what pandas' parser refuses too (Python's float takes '1_0', '١')
+        cells = [ln.split() for ln in lines]
+        if any(len(c) != m for c in cells):
+            return None
+        try:
+            table = np.array([c for row in cells for c in row], dtype=float).reshape(len(lines), m)
+        except ValueError:
+            return None
+    else:
+        import pandas as pd  # here: its import costs more than it saves on an ordinary file
+
+        try:
+            frame = pd.read_csv(io.StringIO("\n".join(lines)), sep=r"\s+", header=None, dtype=float,
+                                engine="c")
+        except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
+            return None
+        table = frame.to_numpy(dtype=float)
     if table.shape != (len(lines), m) or not np.all(np.isfinite(table)) or np.any(is_marker(table)):
         return None
     return table

@@ -1,4 +1,4 @@
-"""Fitting: vector fitting, delay estimate, order choice, lmfit refinement.
+"""Fitting: vector fitting, delay estimate, order choice, least-squares refinement.
 
 Knows nothing of loops, compensation or output.
 """

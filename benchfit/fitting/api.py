@@ -9,8 +9,8 @@ The stages, in the order docs/fitting.md describes them:
 3. :func:`benchfit.fitting.hypotheses.race` — each candidate factored into
    physical parameters, refined, pruned (pruning.py) and compared by the
    rules of selection.py;
-4. :func:`benchfit.fitting.pruning.final` — the winner refined with lmfit on
-   every point (refine.py);
+4. :func:`benchfit.fitting.final.final` — the winner refined on every point
+   (refine.py: trust-region least squares, checked against lmfit's);
 5. :func:`benchfit.fitting.assemble.build_result` — statistics and warnings;
 6. stability: with ``stable`` (the default for passive data) every pole is held
    in the left half-plane; otherwise, when vector fitting had to mirror poles,
@@ -28,10 +28,10 @@ import numpy as np
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import FitError, InputError
 from benchfit.fitting.assemble import build_result
+from benchfit.fitting.final import final
 from benchfit.fitting.hypotheses import candidates, race
 from benchfit.fitting.order import Context
 from benchfit.fitting.problem import Problem, prepare
-from benchfit.fitting.pruning import final
 from benchfit.fitting.result import FitResult
 from benchfit.fitting.selection import unstable_demanded, unstable_wins
 

@@ -113,7 +113,7 @@ def poorly_identified(p: Parameter, f_min: float, f_max: float) -> bool:
     :data:`LOOSE` of the value below the band.
 
     Above the band a finite but large σ gets a note instead
-    (:func:`benchfit.fitting.pruning.loose_notes`: the data need the group);
+    (:func:`benchfit.fitting.final.loose_notes`: the data need the group);
     one located to a few percent by its effect in the band is not a warning.
     """
     v = abs(p.value)

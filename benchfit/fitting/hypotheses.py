@@ -96,7 +96,11 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
         att = attempt(sub, n, fixed_tau)
         if att.chi > CHI_OK:
             # A fresh start may miss a weak feature; build up to n as the scan does.
-            scan = choose_order(sub, fixed_tau, n_min=1, n_max=n, scan_all=True)[1]
+            # Two orders below n are enough for the warm starts (the poles of n−1
+            # plus a real pole, of n−2 plus a pair): from order 1 up gave the same
+            # start on the scikit-rf files of benchmarks/fit_vs_reference.py at
+            # twice the cost.
+            scan = choose_order(sub, fixed_tau, n_min=max(1, n - 2), n_max=n, scan_all=True)[1]
             att = min([att, scan[-1]], key=lambda x: x.chi)
         if delay == "auto" and (try_delay or delay_worth_testing(tau0, f[-1], att.chi)):
             with_delay = refine_delay(sub, delay_stepper(sub, tau0)(n))
@@ -135,7 +139,16 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
     return out, scan
 
 
-def start(pb: Problem, att: Attempt, refit, idx: np.ndarray | None = None) -> Hypothesis:
+#: Evaluations of a start's first refinement (spurious zeros above the band make it slow:
+#: one drifting off to infinity took all of 200 evaluations on the noisy 8-pole benchmark
+#: plant, and they are pruned next).
+START_NFEV = 40
+#: Evaluations of a refinement that is meant to end at the optimum (the refiner's default).
+FULL_NFEV = 200
+
+
+def start(pb: Problem, att: Attempt, refit, idx: np.ndarray | None = None,
+          max_nfev: int = START_NFEV) -> Hypothesis:
     """VF attempt -> physical parameters -> a first, capped refinement (and notes).
 
     No pole or zero vector fitting found is dropped unconditionally, however
@@ -144,7 +157,7 @@ def start(pb: Problem, att: Attempt, refit, idx: np.ndarray | None = None) -> Hy
     (:func:`drop_far`), the others are the pruning's question (:func:`pruned`).
     The structure is conformed to the parameters the user fixes or bounds
     (:func:`benchfit.fitting.groups.conform`).  ``refit`` refines on the points
-    ``idx`` the scans used (all when None).
+    ``idx`` the scans used (all when None), with at most ``max_nfev`` evaluations.
     """
     ctx = pb.ctx
     m, scale = ctx.integrators, ctx.scale
@@ -155,8 +168,7 @@ def start(pb: Problem, att: Attempt, refit, idx: np.ndarray | None = None) -> Hy
     st, v0 = from_zpk(zeros, poles, k_h, att.tau_s, integrators=m, delay=has_delay)
     st, v0 = conform(st, v0, pb.fixed, pb.bounds, order_given=pb.order != "auto")
     st, v0, notes = drop_far(pb, st, v0, idx)
-    # Capped: spurious zeros above the band make it slow, and they are pruned next.
-    return Hypothesis(att, st, refit(st, v0, max_nfev=40), notes)
+    return Hypothesis(att, st, refit(st, v0, max_nfev=max_nfev), notes)
 
 
 #: Groups beyond this multiple of the top frequency are tested for removal before the
@@ -204,11 +216,14 @@ def drop_far(pb: Problem, st: Structure, values: np.ndarray, idx: np.ndarray | N
 
 def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
     """Start, prune and compare the candidates; the winner (not yet refined on every
-    point unless the second value, ``refined``, is True).
+    point unless the second value, ``refined``, is True: a single hypothesis, or a
+    close call decided on every point).
 
     Hypotheses are refined, pruned and compared on the thinned copy the scans
     used (each decision is a χ² difference against ln N, valid at any N);
-    a single one is refined with lmfit and pruned on every point straight away.
+    a single one is refined and pruned on every point straight away, and the
+    pruned outcome refined to the end there: that refinement is the one the
+    result reports.
     """
     f, n_pts = pb.f, pb.n_points
     idx = pb.idx
@@ -216,9 +231,9 @@ def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
     single = len(worth) == 1
     if single:
         idx = np.arange(n_pts)
-        refit_sub, trial_sub = pb.refiner(), pb.refiner(quick=True)
+        refit_sub = trial_sub = pb.refiner()
     else:
-        refit_sub = trial_sub = pb.refiner(idx, quick=True)
+        refit_sub = trial_sub = pb.refiner(idx)
     n_sub = 2 * idx.shape[0]
     starts: list[Hypothesis] = []
     missing: InputError | None = None
@@ -242,17 +257,29 @@ def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
                 bic(o.ref, n_sub) for o in outcomes) + CLOSE_CALL:
             continue
         outcomes.append(Hypothesis(hyp.att, *pruned(pb, hyp.st, hyp.ref, hyp.notes, idx,
-                                                    refit_sub, trial=trial_sub)))
+                                                    refit_sub, trial=trial_sub,
+                                                    final_nfev=FULL_NFEV if single else None)))
     # A hypothesis whose refinement stopped at its cap is refined to the end when
-    # it is still in the running; one far behind is left where it stopped.
+    # it is still in the running; one far behind is left where it stopped.  (A
+    # single one has had the whole budget already.)
     for i, o in enumerate(outcomes):
-        if not o.ref.success and bic(o.ref, n_sub) - min(
+        if not single and not o.ref.success and bic(o.ref, n_sub) - min(
                 bic(x.ref, n_sub) for x in outcomes) < 2 * CLOSE_CALL:
             outcomes[i] = o._replace(ref=refit_sub(o.st, o.ref.values))
     if not outcomes:
         raise FitError("vector fitting failed: the model does not evaluate on the band "
                        "(check the data for gaps or exact zeros)")
-    return choose(outcomes, n_sub, 2 * n_pts, pb.refiner(quick=True)), single
+    # When the call is close, choose() refines the contenders on every point: the
+    # winner's refinement is then the one on every point the result reports, and
+    # final() does not repeat it.
+    refit_all, on_all = pb.refiner(), []
+
+    def refit_all_points(st: Structure, values: np.ndarray, **kw) -> Refined:
+        on_all.append(refit_all(st, values, **kw))
+        return on_all[-1]
+
+    best = choose(outcomes, n_sub, 2 * n_pts, refit_all_points)
+    return best, single or any(best.ref is r for r in on_all)
 
 
 def choose(outcomes: list[Hypothesis], n_sub: int, n_all: int, refit_all) -> Hypothesis:

@@ -1,8 +1,9 @@
-"""Trust-region least squares for the many trial refinements of one fit.
+"""Trust-region least squares for the refinements of one fit.
 
-The trial refinements (``refine(..., quick=True)``) only compare χ² between
-candidate models; they are small (a dozen or two parameters, a few hundred to
-a few thousand residuals) and called dozens of times per fit.  scipy's
+The refinements (:func:`benchfit.fitting.refine.refine`: the many trials that
+compare χ² between candidate models, and the one a result reports) are small
+(a dozen or two parameters, a few hundred to a few thousand residuals) and
+called dozens of times per fit.  scipy's
 trust-region solver (:func:`scipy.optimize.least_squares`, ``method="trf"``
 without bounds, ``tr_solver="exact"``, ``x_scale="jac"``) spends most of such
 a call on an SVD of the M × P Jacobian per iteration.  This is the same
@@ -16,6 +17,10 @@ those and S·Uᵀr = Vᵀ·Jᵀr, so Q is never formed).  The QR costs about a t
 of the SVD of a tall matrix and keeps its accuracy (the normal matrix JᵀJ
 would square the condition number, and trial fits here are often ill
 conditioned).
+
+With bounds, :func:`least_squares` tries the unbounded problem first (see
+:func:`inactive_bounds`) and runs scipy's bounded TRF only when the bounds
+matter.
 """
 
 from __future__ import annotations
@@ -24,6 +29,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import optimize
 from scipy.linalg.lapack import dgeqrf as _dgeqrf
 
 _EPS = np.finfo(float).eps
@@ -37,11 +43,13 @@ class LsqOutcome:
     fun: np.ndarray
     jac: np.ndarray
     nfev: int
-    status: int  # 0: evaluation cap; 1: gtol; 2: ftol; 3: xtol; 4: ftol and xtol
+    status: int  # 0: evaluation cap; 1: gtol; 2: ftol; 3: xtol; 4: ftol and xtol;
+    #             -3: a step would have left the box (x is the last point inside)
     message: str
 
 
-_MESSAGES = {0: "The maximum number of function evaluations is exceeded.",
+_MESSAGES = {-3: "A step would have left the bounds; stopped at the last point inside.",
+             0: "The maximum number of function evaluations is exceeded.",
              1: "`gtol` termination condition is satisfied.",
              2: "`ftol` termination condition is satisfied.",
              3: "`xtol` termination condition is satisfied.",
@@ -93,7 +101,8 @@ def _subproblem(suf: np.ndarray, s2: np.ndarray, v: np.ndarray, delta: float, al
 def trust_region(fun: Callable[[np.ndarray], np.ndarray],
                  jac: Callable[[np.ndarray], np.ndarray], x0: np.ndarray, *,
                  max_nfev: int, f0: np.ndarray | None = None, ftol: float = 1e-9,
-                 xtol: float = 1e-9, gtol: float = 1e-10) -> LsqOutcome:
+                 xtol: float = 1e-9, gtol: float = 1e-10,
+                 box: tuple[np.ndarray, np.ndarray] | None = None) -> LsqOutcome:
     """Minimise ½‖fun(x)‖² from ``x0`` (no bounds), as scipy's TRF with ``x_scale="jac"``.
 
     Parameters
@@ -168,6 +177,10 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
                 break
             alpha *= delta / delta_new
             delta = delta_new
+        if reduction > 0 and box is not None and not (
+                np.all(x_new >= box[0]) and np.all(x_new <= box[1])):
+            status = -3
+            break
         if reduction > 0:
             x, f, cost = x_new, f_new, cost_new
             j = jac(x)
@@ -175,3 +188,53 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
             scale_inv = np.maximum(scale_inv, np.sqrt(np.einsum("ij,ij->j", j, j)))
     status = 0 if status is None else status
     return LsqOutcome(x=x, fun=f, jac=j, nfev=nfev, status=status, message=_MESSAGES[status])
+
+
+def inactive_bounds(out: LsqOutcome, lower: np.ndarray, upper: np.ndarray) -> bool:
+    """True when an unbounded optimum ``out`` is also the optimum within the bounds.
+
+    Evidence weighed: the unbounded search stopped on a convergence test (not
+    at its evaluation cap) at a point strictly inside ``lower``..``upper``.
+    A local minimum of the unbounded problem that lies inside the feasible
+    box is a local minimum of the bounded one, with every constraint inactive
+    (Karush–Kuhn–Tucker conditions with zero multipliers, e.g. J. Nocedal and
+    S. J. Wright, *Numerical Optimization*, 2nd ed., sec. 12.3); scipy's
+    bounded solver started at the same point would end there too, to within
+    its tolerances (its steps are scaled by the distance to the bounds, so the
+    iterates differ).  A point outside, on a bound, or a search that ran out
+    of evaluations says nothing about the bounded optimum.
+    """
+    x = out.x
+    return bool(out.status > 0 and np.all(x > lower) and np.all(x < upper))
+
+
+def least_squares(fun: Callable[[np.ndarray], np.ndarray],
+                  jac: Callable[[np.ndarray], np.ndarray], x0: np.ndarray,
+                  lower: np.ndarray, upper: np.ndarray, *, max_nfev: int,
+                  f0: np.ndarray | None = None, ftol: float = 1e-9, xtol: float = 1e-9,
+                  gtol: float = 1e-10) -> LsqOutcome:
+    """Minimise ½‖fun(x)‖² within ``lower``..``upper`` (±inf: no bound), from ``x0`` inside.
+
+    Without finite bounds this is :func:`trust_region`.  With them, the
+    unbounded problem is solved first, stopped where a step would leave the
+    bounds; when it reaches an optimum inside (:func:`inactive_bounds`) that
+    is the result.  Otherwise scipy's bounded trust-region reflective solver
+    (``scipy.optimize.least_squares``, ``method="trf"``, ``x_scale="jac"``:
+    lmfit's ``least_squares`` method) goes on from the last point inside, with
+    what is left of ``max_nfev`` (at least half of it); the evaluations of both
+    runs are counted.  A held-stable fit (every pole bounded at zero) whose
+    data want no right-half-plane pole so skips the bounded solver's SVD per
+    iteration, and one that does want it loses no evaluations on the way out.
+    """
+    lower, upper = np.asarray(lower, dtype=float), np.asarray(upper, dtype=float)
+    bounded = bool(np.any(np.isfinite(lower)) or np.any(np.isfinite(upper)))
+    free = trust_region(fun, jac, x0, max_nfev=max_nfev, f0=f0, ftol=ftol, xtol=xtol, gtol=gtol,
+                        box=(lower, upper) if bounded else None)
+    if not bounded or inactive_bounds(free, lower, upper) or (
+            free.status == 0 and free.nfev >= max_nfev):
+        return free
+    out = optimize.least_squares(fun, free.x, jac=jac, bounds=(lower, upper), method="trf",
+                                 x_scale="jac", ftol=ftol, xtol=xtol, gtol=gtol,
+                                 max_nfev=max(max_nfev - free.nfev, max_nfev // 2))
+    return LsqOutcome(x=out.x, fun=out.fun, jac=out.jac, nfev=free.nfev + int(out.nfev),
+                      status=int(out.status), message=str(out.message))

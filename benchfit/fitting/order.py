@@ -71,10 +71,12 @@ class Context:
 
     def target(self, tau_s: float) -> tuple[np.ndarray, np.ndarray]:
         """Data and weights for VF with integrators and delay taken out."""
-        g = self.h * self.s ** self.integrators
+        g, w = self.h, self.w
+        if self.integrators:  # without, the powers would only multiply by one
+            g = g * self.s ** self.integrators
+            w = w / np.abs(self.s) ** self.integrators
         if tau_s:
             g = g * np.exp(self.s * self.scale * tau_s)
-        w = self.w / np.abs(self.s) ** self.integrators
         return g, w / np.max(w)
 
 
@@ -122,14 +124,15 @@ def attempt(ctx: Context, order: int, tau_s: float = 0.0, poles0=None, max_iter:
                       converged=False, flipped=np.zeros(0, dtype=complex))
         return Attempt(order, tau_s, vf, np.inf, np.inf, np.inf)
     with np.errstate(all="ignore"):
-        r = np.log(vf.at(ctx.s) / g)
-    if not np.all(np.isfinite(r)):
+        # the log's imaginary part is the angle of the ratio, already in (-pi, pi]
+        r = np.log(vf.fitted / g)
+    if not np.isfinite(r.sum()):
         return Attempt(order, tau_s, vf, np.inf, np.inf, np.inf)
-    rm = r.real
-    rp = np.pi - np.mod(np.pi - r.imag, 2.0 * np.pi)
-    chi = float(np.sqrt(0.5 * np.mean((rm / ctx.sigma.mag) ** 2 + (rp / ctx.sigma.phase) ** 2)))
-    return Attempt(order, tau_s, vf, float(_DB * np.sqrt(np.mean(rm ** 2))),
-                   float(np.degrees(np.sqrt(np.mean(rp ** 2)))), chi)
+    ms_m, ms_p = np.mean(r.real ** 2), np.mean(r.imag ** 2)
+    chi = float(np.sqrt(0.5 * np.mean((r.real / ctx.sigma.mag) ** 2
+                                      + (r.imag / ctx.sigma.phase) ** 2)))
+    return Attempt(order, tau_s, vf, float(_DB * np.sqrt(ms_m)), float(np.degrees(np.sqrt(ms_p))),
+                   chi)
 
 
 def add_pole(ctx: Context, a: Attempt, count: int = 1) -> np.ndarray:
@@ -294,7 +297,7 @@ def polish(ctx: Context, a: Attempt) -> Attempt:
     """Carry the poles of ``a`` (found on a thinned sweep) to ``ctx`` (every point).
 
     Only the residues are re-solved: the poles are a starting point, and the
-    lmfit refinement that follows is the estimator.  The iteration count and
+    least-squares refinement that follows is the estimator.  The iteration count and
     convergence flag of ``a`` are kept.
     """
     b = attempt(ctx, a.order, a.tau_s, poles0=a.vf.poles, max_iter=0)

@@ -119,12 +119,10 @@ class Problem:
                       fix=fix, weighting=self.weighting,
                       sig_abs=None if self.sig_abs is None else self.sig_abs[sel])
 
-    def refiner(self, idx: np.ndarray | None = None, quick: bool = False,
-                causal: bool = False) -> Refiner:
+    def refiner(self, idx: np.ndarray | None = None, causal: bool = False) -> Refiner:
         """``(structure, values, max_nfev=200) -> Refined`` on the points ``idx`` (all when
-        None).  ``quick``: scipy's least squares directly, for trial refinements that
-        only compare χ² (:func:`benchfit.fitting.refine.refine`); the refinement a
-        result reports is lmfit's.  ``causal``: the delay may not go below zero."""
+        None), by :func:`benchfit.fitting.refine.refine`.  ``causal``: the delay may
+        not go below zero."""
         s = 1j * TWO_PI * self.f
         h, sig = self.h, self.sigma
         sel = slice(None) if idx is None else idx
@@ -134,7 +132,7 @@ class Problem:
             return refine(st, values, s[sel], h[sel], sig.mag[sel], sig.phase[sel],
                           fix=self.fixed, bounds=self.bounds_for(st, causal),
                           weighting=self.weighting,
-                          sig_abs=sig_abs, max_nfev=max_nfev, quick=quick)
+                          sig_abs=sig_abs, max_nfev=max_nfev)
 
         return run
 

@@ -27,7 +27,7 @@ from benchfit.fitting.groups import (
 from benchfit.fitting.parameters import TWO_PI, Structure
 from benchfit.fitting.problem import Problem
 from benchfit.fitting.refine import Refined
-from benchfit.fitting.selection import bic, drop_allowed, prunable
+from benchfit.fitting.selection import above_band_trials, drop_allowed, prunable
 from benchfit.fitting.weights import PointSigma
 
 #: Evaluations a pruning trial gets: a group the data do not need leaves the rest
@@ -221,19 +221,64 @@ def prune_unidentified(st: Structure, ref: Refined, refit, n_res: int, poles: bo
                          lambda st_, ref_: [[g] for g in unidentified(st_, ref_) if kind_ok(g)])
 
 
-def _cancel_note(n: int) -> str:
+def loose_above(st: Structure, ref: Refined, f_max: float, poles: bool = True,
+                zeros: bool = True) -> list[str]:
+    """Groups above the band that the data locate only loosely: a frequency (or Q)
+    whose σ exceeds :data:`~benchfit.fitting.assemble.LOOSE` of its value, or that is
+    not determined; highest first."""
+    out = []
+    for g, _ in sorted(groups_above(st, ref.values, f_max, poles=poles, zeros=zeros),
+                       key=lambda x: -x[1]):
+        keys = [f"{g}_f0_hz", f"{g}_q"] if g.startswith(("pair", "zero_pair")) else [f"{g}_hz"]
+        for k in keys:
+            i = st.names.index(k)
+            sd = ref.stderr[i]
+            if k in ref.undetermined or (np.isfinite(sd) and sd > LOOSE * abs(ref.values[i])):
+                out.append(g)
+                break
+    return out
+
+
+def prune_loose(st: Structure, ref: Refined, refit, f_max: float, n_res: int, poles: bool = True,
+                zeros: bool = True) -> tuple[Structure, Refined, int]:
+    """The trials of :func:`prune_above` when the user gave the order (see
+    :func:`benchfit.fitting.selection.above_band_trials`): every group above the
+    band at once, then each one the data locate only loosely (:func:`loose_above`),
+    highest first; a drop goes when :func:`benchfit.fitting.selection.drop_allowed`
+    allows it.
+
+    The joint trial stays because spare zeros above the band go together or not
+    at all: on the noiseless 8-pole benchmark plant three of them (five
+    parameters) passed only together.  A group alone is tried only when loosely
+    located: one located to better than :data:`~benchfit.fitting.assemble.LOOSE`
+    of its value has a linearised drop cost, (f/σ)², over 25, four times the drop
+    test's bar (ln N at N = 400 residuals), and stays.
+    """
+    def candidates(st_: Structure, ref_: Refined) -> list[list[str]]:
+        every = [g for g, _ in groups_above(st_, ref_.values, f_max, poles=poles, zeros=zeros)]
+        loose = loose_above(st_, ref_, f_max, poles=poles, zeros=zeros)
+        return ([every] if every else []) + [[g] for g in loose if [g] != every]
+
+    return drop_unneeded(st, ref, refit, n_res, candidates)
+
+
+def cancel_note(n: int) -> str:
+    """The note for ``n`` dropped cancelling groups."""
     return f"dropped {n} nearly cancelling pole/zero group(s) that the data do not need"
 
 
 def pruned(pb: Problem, hyp_st: Structure, ref: Refined, notes: list[str], idx: np.ndarray,
-           refit, trial=None) -> tuple[Structure, Refined, list[str]]:
+           refit, trial=None, final_nfev: int | None = None
+           ) -> tuple[Structure, Refined, list[str]]:
     """A started hypothesis (:func:`~benchfit.fitting.hypotheses.start`) with the groups
     the data do not need pruned.
 
     Only groups of the kinds :func:`~benchfit.fitting.selection.prunable` allows
     are tried (never a pole when the user gave the order, never a kind the user
     holds or bounds).  ``refit`` refines on the points ``idx`` (``trial``, the
-    pruning trials, when given).
+    pruning trials, when given).  A pruned or capped outcome is refined again
+    with ``final_nfev`` evaluations (the hypothesis is the only one: this is
+    its refinement to the end), or with :data:`PRUNED_NFEV` when None.
     """
     st = hyp_st
     f = pb.f
@@ -243,7 +288,12 @@ def pruned(pb: Problem, hyp_st: Structure, ref: Refined, notes: list[str], idx: 
     n_drop = 0
     may = prunable(pb)
     kinds = {"poles": may["poles"], "zeros": may["zeros"]}
-    if kinds["poles"] or kinds["zeros"]:
+    if (kinds["poles"] or kinds["zeros"]) and not above_band_trials(pb):
+        st, ref, n_drop = prune_loose(st, ref, trial, f[-1], n_res, **kinds)
+        if n_drop:
+            notes.append(f"dropped {n_drop} pole or zero group(s) above the band that the data "
+                         "do not need")
+    elif kinds["poles"] or kinds["zeros"]:
         had_delay = st.delay
         st, ref, n_drop = prune_above(st, ref, trial, f[-1], n_res, TWO_PI * f[idx],
                                       delay_free="delay_s" not in pb.fixed,
@@ -259,7 +309,7 @@ def pruned(pb: Problem, hyp_st: Structure, ref: Refined, notes: list[str], idx: 
         # The point spacing that matters is the full sweep's, not the thinned copy's.
         st, ref, n_cancel = prune_cancelling(st, ref, trial, n_res, f, pb.sigma)
         if n_cancel:
-            notes.append(_cancel_note(n_cancel))
+            notes.append(cancel_note(n_cancel))
             n_drop += n_cancel
     if kinds["poles"] or kinds["zeros"]:
         st, ref, n_vague = prune_unidentified(st, ref, trial, n_res, **kinds)
@@ -268,115 +318,8 @@ def pruned(pb: Problem, hyp_st: Structure, ref: Refined, notes: list[str], idx: 
                          "could not pin (σ above the value) and do not need")
             n_drop += n_vague
     if not ref.success or n_drop:
-        # The capped runs above may have stopped short.  Capped again: only a
-        # hypothesis still in the running is refined to the end (see race()).
-        ref = refit(st, ref.values, max_nfev=PRUNED_NFEV)
+        # The capped runs above may have stopped short.  Capped again unless this is
+        # the only hypothesis: only one still in the running is refined to the end
+        # (see race()).
+        ref = refit(st, ref.values, max_nfev=final_nfev or PRUNED_NFEV)
     return st, ref, notes
-
-
-def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: bool = False
-          ) -> tuple[Structure, Refined, list[str]]:
-    """Refine the chosen structure on every point with lmfit; drop a delay that is not
-    significant.
-
-    On every point a pair the thinned copy could not see (a spike between its
-    points) may appear and cancel with a zero pair: the cancelling check runs
-    again here, its trials refined quickly (:func:`refine` with ``quick``).
-    ``ref`` may come from the thinned copy or from every point: the lmfit
-    refinement starts from its values either way (from an optimum on every
-    point it takes a few evaluations).  ``refined``: ``ref`` is lmfit's on every
-    point already.  With ``--order N`` a note says when the data may accept
-    fewer poles (:func:`fewer_poles_note`).
-    """
-    refit, quick = pb.refiner(), pb.refiner(quick=True)
-    f = pb.f
-    n_res = 2 * f.shape[0]
-    if not refined:
-        ref = refit(st, ref.values)
-    if prunable(pb)["cancelling"]:
-        st, ref, n_cancel = prune_cancelling(st, ref, quick, n_res, f, pb.sigma)
-        if n_cancel:
-            notes = [*notes, _cancel_note(n_cancel)]
-            ref = refit(st, ref.values)
-    if st.delay and "delay_s" not in pb.fixed:
-        i = st.names.index("delay_s")
-        if ref.values[i] < 0:
-            # A negative delay is no transport delay, and dropping it as it stands
-            # changes the response (on a measured ring-slot file the fit went from 8x to
-            # 80x the floor, held at zero to 17 000x): of the two refinements, with the
-            # delay held at or above zero and without it, the lower BIC goes on.
-            keep = [j for j in range(len(st.names)) if j != i]
-            st0 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
-                            st.integrators, False)
-            held, gone = pb.refiner(causal=True)(st, ref.values), refit(st0, ref.values[keep])
-            if bic(gone, n_res) <= bic(held, n_res):
-                return _checked_final(pb, st0, gone, [*notes, "a negative delay was fitted; "
-                                                      "refined without delay"])
-            ref = held
-        tv, te = ref.values[i], ref.stderr[i]
-        if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
-            # At zero (its bound) or under 2σ: refine without the delay, and keep that
-            # only when the drop test passes: a parameter strongly correlated with the
-            # delay can blow up its σ while the data still need it.
-            keep = [j for j in range(len(st.names)) if j != i]
-            st2 = Structure(st.real_poles, st.pole_pairs, st.real_zeros, st.zero_pairs,
-                            st.integrators, False)
-            ref2 = refit(st2, ref.values[keep])
-            if drop_allowed(ref, ref2, 1, n_res):
-                st, ref = st2, ref2
-                notes = [*notes, "delay estimate not significant; fitted without delay"]
-    return _checked_final(pb, st, ref, notes)
-
-
-def _checked_final(pb: Problem, st: Structure, ref: Refined, notes: list[str]
-                   ) -> tuple[Structure, Refined, list[str]]:
-    """The notes every final model gets: fewer poles would do (``--order N``), loosely
-    located groups above the band."""
-    vague: set[str] = set()
-    if pb.order != "auto":
-        note = fewer_poles_note(pb, st, ref)
-        if note:
-            notes = [*notes, note]
-            vague = set(unidentified(st, ref))  # named by that note; no drop test ran on them
-    return st, ref, [*notes, *loose_notes(st, ref, pb.f[-1], skip=vague)]
-
-
-def loose_notes(st: Structure, ref: Refined, f_max: float, skip=()) -> list[str]:
-    """Notes for the pole and zero groups above the band that the data locate only loosely
-    (σ above :data:`~benchfit.fitting.assemble.LOOSE` of the frequency) but that survived pruning: the data
-    need them, so they stay with their large σ; ``--fix`` or ``--bound`` can pin them.
-    Groups in ``skip`` (named by :func:`fewer_poles_note`) get no such note."""
-    out = []
-    for g, fr in groups_above(st, ref.values, f_max):
-        if g in skip:
-            continue
-        key = f"{g}_f0_hz" if g.startswith(("pair", "zero_pair")) else f"{g}_hz"
-        sd = ref.stderr[st.names.index(key)]
-        if np.isfinite(sd) and sd > LOOSE * fr:
-            out.append(f"{key} = {fr:.4g} Hz lies above the band and the data locate it only "
-                       f"loosely (σ {100 * sd / fr:.0f} %), but dropping it costs more than the "
-                       "noise; it stays (--fix or --bound can pin it)")
-    return out
-
-
-def fewer_poles_note(pb: Problem, st: Structure, ref: Refined) -> str | None:
-    """With ``--order N``: a note when pole groups above the band look removable (the model
-    is kept with N poles, as asked).
-
-    Evidence weighed: the final refinement's own standard errors, no further
-    fit: a pole or pole pair above the band whose frequency (or Q) the data
-    cannot locate, σ above the value or not determined at all
-    (:func:`benchfit.fitting.groups.unidentified`).  Such a group is one
-    ``--order auto`` would try to drop (its drop test decides there); the
-    note is a hint, priced at nothing, not a verdict.
-    """
-    if pb.held("pole", "pair"):
-        return None
-    vague = set(unidentified(st, ref))
-    fewer = sum(2 if g.startswith("pair") else 1
-                for g, _ in groups_above(st, ref.values, pb.f[-1], zeros=False) if g in vague)
-    if fewer <= 0:
-        return None
-    return (f"the data may accept {fewer} pole(s) fewer: pole(s) above the band that they "
-            f"cannot locate (σ above the value); kept at --order {pb.order} as asked "
-            "(--order auto tests the drop)")

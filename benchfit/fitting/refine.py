@@ -1,4 +1,4 @@
-"""Nonlinear least-squares refinement of the physical parameters (lmfit).
+"""Nonlinear least-squares refinement of the physical parameters.
 
 Vector fitting's fixed point is not the least-squares optimum (Lefteriu &
 Antoulas, "On the convergence of the vector-fitting algorithm", IEEE Trans.
@@ -10,26 +10,36 @@ difference of unwrapped phases), each divided by its σ.  The Jacobian is
 analytic (:func:`benchfit.fitting.parameters.log_jacobian`, evaluated by
 :mod:`benchfit.fitting.factors`).
 
+The solver is trust-region reflective least squares with Jacobian scaling,
+the algorithm of lmfit's ``least_squares`` method (scipy's TRF), run through
+:func:`benchfit.fitting.lsq.least_squares` without lmfit's parameter objects
+(their construction and per-call bookkeeping cost more than a whole
+refinement of a 201-point sweep).  ``tests/test_fit_solvers.py`` checks that
+it reaches lmfit's optimum (``lmfit.Minimizer.least_squares``, the outside
+reference) on the same residual, bounded and unbounded.
+
 With ``weighting="absolute"`` the residual is the plain complex error
 ``(H_model − H_data)/σ_abs`` instead.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 
-import lmfit
 import numpy as np
-from scipy import optimize
 
 from benchfit.errors import InputError
 from benchfit.fitting.factors import log_jacobian_at, log_response
-from benchfit.fitting.lsq import trust_region
+from benchfit.fitting.lsq import least_squares
 from benchfit.fitting.parameters import Structure, log_jacobian, renumbering, response
 from benchfit.fitting.uncertainty import held_covariance, on_bound
 
 #: Residual given to a point where a trial model does not evaluate.
 _PENALTY = 1e6
+#: The solver's stopping tests (scipy's names): chosen when the refinement went through
+#: lmfit, kept so the optimum is the one lmfit reaches.
+FTOL, XTOL, GTOL = 1e-9, 1e-9, 1e-10
 
 
 @dataclass(frozen=True)
@@ -72,6 +82,102 @@ def log_residual(st: Structure, values, s, log_h) -> np.ndarray:
     return d.real + 1j * wrap(d.imag)
 
 
+@dataclass(frozen=True)
+class Objective:
+    """The weighted residual of one refinement over its varied parameters.
+
+    ``residual(x)`` and ``jacobian(x)`` take the varied values ``x`` (in the
+    order of ``var_idx``); ``full(x)`` is the whole parameter vector.
+    """
+
+    names: tuple[str, ...]
+    v0: np.ndarray                   # start, every parameter (fixed ones at their values)
+    var_idx: np.ndarray              # indices of the varied parameters
+    lower: np.ndarray                # bounds of the varied parameters (±inf: none)
+    upper: np.ndarray
+    residual: Callable[[np.ndarray], np.ndarray]
+    jacobian: Callable[[np.ndarray], np.ndarray]
+
+    def full(self, x: np.ndarray) -> np.ndarray:
+        v = self.v0.copy()
+        v[self.var_idx] = x
+        return v
+
+
+def objective(st: Structure, values0: np.ndarray, s: np.ndarray, h: np.ndarray,
+              sig_mag: np.ndarray, sig_phase: np.ndarray, *,
+              fix: dict[str, float] | None = None,
+              bounds: dict[str, tuple[float, float]] | None = None,
+              weighting: str = "relative", sig_abs: np.ndarray | None = None) -> Objective:
+    """The :class:`Objective` :func:`refine` minimises (parameters as there).
+
+    Raises
+    ------
+    InputError
+        A fixed or bounded name the model does not have (naming ``--fix`` or ``--bound``).
+    """
+    names = st.names
+    fix = dict(fix or {})
+    bounds = dict(bounds or {})
+    for key in list(fix) + list(bounds):
+        if key not in names:
+            raise InputError(f"no parameter {key!r} in this model; it has {', '.join(names)}",
+                             source="--fix" if key in fix else "--bound")
+    v0 = start_beside_fixed(st, np.array(values0, dtype=float), fix, bounds)
+    for i, name in enumerate(names):
+        if name in fix:
+            v0[i] = float(fix[name])
+    var_idx = np.array([i for i, n in enumerate(names) if n not in fix], dtype=int)
+    lo = np.array([bounds.get(names[i], (-np.inf, np.inf))[0] for i in var_idx], dtype=float)
+    hi = np.array([bounds.get(names[i], (-np.inf, np.inf))[1] for i in var_idx], dtype=float)
+    v0[var_idx] = np.clip(v0[var_idx], lo, hi)
+    n_s = s.shape[0]
+    log_h = np.log(h.astype(complex))
+    w_m, w_p = 1.0 / sig_mag, 1.0 / sig_phase
+    absolute = weighting == "absolute"
+    w_a = None if not absolute else 1.0 / (sig_abs if sig_abs is not None else np.ones(n_s))
+
+    def current(x: np.ndarray) -> np.ndarray:
+        v = v0.copy()
+        v[var_idx] = x
+        return v
+
+    last: list = [None]  # factor terms of the last residual, for the Jacobian at that point
+
+    def residual(x: np.ndarray) -> np.ndarray:
+        v = current(x)
+        with np.errstate(all="ignore"):
+            if absolute:
+                d = (response(st, v, s) - h) * w_a
+                out = np.concatenate([d.real, d.imag])
+            else:
+                lg, last[0] = log_response(st, v, s)
+                d = lg - log_h
+                out = np.concatenate([d.real * w_m, wrap(d.imag) * w_p])
+        # A trial step onto a singular model (a frequency at 0...) must look bad, not NaN.
+        return np.where(np.isfinite(out), out, _PENALTY)
+
+    def jacobian(x: np.ndarray) -> np.ndarray:
+        v = current(x)
+        with np.errstate(all="ignore"):
+            if absolute:
+                j = log_jacobian(st, v, s)[:, var_idx]
+                j = j * (response(st, v, s) * w_a)[:, None]
+                out = np.vstack([j.real, j.imag])
+            else:
+                terms = last[0]
+                if terms is None or not np.array_equal(terms.values, v):
+                    terms = log_response(st, v, s)[1]
+                jt = log_jacobian_at(st, terms, s)[var_idx]
+                out = np.empty((var_idx.size, 2 * n_s))
+                out[:, :n_s] = jt.real * w_m
+                out[:, n_s:] = jt.imag * w_p
+                out = out.T
+        return np.where(np.isfinite(out), out, 0.0)
+
+    return Objective(names, v0, var_idx, lo, hi, residual, jacobian)
+
+
 def refine(
     st: Structure,
     values0: np.ndarray,
@@ -85,7 +191,6 @@ def refine(
     weighting: str = "relative",
     sig_abs: np.ndarray | None = None,
     max_nfev: int = 400,
-    quick: bool = False,
 ) -> Refined:
     """Refine parameter values by weighted nonlinear least squares.
 
@@ -105,111 +210,39 @@ def refine(
         ``"relative"`` (log residual) or ``"absolute"`` (complex residual / ``sig_abs``).
     max_nfev
         Cap on residual evaluations.
-    quick
-        Call scipy's trust-region least squares directly, without lmfit's
-        parameter objects: the same algorithm, options and outcome, at a
-        fraction of the overhead per call.  For the many trial refinements
-        that only compare χ² between candidate models; the refinement a fit
-        reports goes through lmfit.
+
+    Notes
+    -----
+    Trust-region reflective least squares (lmfit's ``least_squares`` method,
+    scipy's TRF) with the analytic Jacobian and Jacobian-based scaling of the
+    parameters (Hz and Q differ by six decades), tolerances :data:`FTOL`,
+    :data:`XTOL`, :data:`GTOL`; bounds as
+    :func:`benchfit.fitting.lsq.least_squares` handles them.  Not MINPACK's
+    lmder: it crashed the process on some trial steps here.  The covariance is
+    :func:`benchfit.fitting.uncertainty.covariance`'s.
     """
-    names = st.names
-    fix = dict(fix or {})
-    bounds = dict(bounds or {})
-    for key in list(fix) + list(bounds):
-        if key not in names:
-            raise InputError(f"no parameter {key!r} in this model; it has {', '.join(names)}",
-                             source="--fix" if key in fix else "--bound")
-    params = lmfit.Parameters()
-    v0 = start_beside_fixed(st, np.array(values0, dtype=float), fix, bounds)
-    for i, name in enumerate(names):
-        if name in fix:
-            v0[i] = float(fix[name])
-        lo, hi = bounds.get(name, (-np.inf, np.inf))
-        val = min(max(v0[i], lo), hi)
-        params.add(name, value=val, vary=name not in fix, min=lo, max=hi)
-    var_idx = np.array([i for i, n in enumerate(names) if n not in fix], dtype=int)
-    n_s = s.shape[0]
-    log_h = np.log(h.astype(complex))
-    w_m, w_p = 1.0 / sig_mag, 1.0 / sig_phase
-    absolute = weighting == "absolute"
-    w_a = None if not absolute else 1.0 / (sig_abs if sig_abs is not None else np.ones(n_s))
-
-    def current(p) -> np.ndarray:
-        if isinstance(p, np.ndarray):  # the quick path's varied values
-            v = v0.copy()
-            v[var_idx] = p
-            return v
-        v = v0.copy()
-        for i in var_idx:
-            v[i] = p[names[i]].value
-        return v
-
-    last: list = [None]  # factor terms of the last residual, for the Jacobian at that point
-
-    def residual(p):
-        v = current(p)
-        with np.errstate(all="ignore"):
-            if absolute:
-                d = (response(st, v, s) - h) * w_a
-                out = np.concatenate([d.real, d.imag])
-            else:
-                lg, last[0] = log_response(st, v, s)
-                d = lg - log_h
-                out = np.concatenate([d.real * w_m, wrap(d.imag) * w_p])
-        # A trial step onto a singular model (a frequency at 0...) must look bad, not NaN.
-        return np.where(np.isfinite(out), out, _PENALTY)
-
-    def jacobian(p):
-        v = current(p)
-        with np.errstate(all="ignore"):
-            if absolute:
-                j = log_jacobian(st, v, s)[:, var_idx]
-                j = j * (response(st, v, s) * w_a)[:, None]
-                out = np.vstack([j.real, j.imag])
-            else:
-                terms = last[0]
-                if terms is None or not np.array_equal(terms.values, v):
-                    terms = log_response(st, v, s)[1]
-                jt = log_jacobian_at(st, terms, s)[var_idx]
-                out = np.empty((var_idx.size, 2 * n_s))
-                out[:, :n_s] = jt.real * w_m
-                out[:, n_s:] = jt.imag * w_p
-                out = out.T
-        return np.where(np.isfinite(out), out, 0.0)
-
-    if quick and var_idx.size:
-        return _quick(names, v0, var_idx, residual, jacobian, bounds, max_nfev)
+    ob = objective(st, values0, s, h, sig_mag, sig_phase, fix=fix, bounds=bounds,
+                   weighting=weighting, sig_abs=sig_abs)
+    names, v0, var_idx = ob.names, ob.v0, ob.var_idx
+    x0 = v0[var_idx]
+    r0 = ob.residual(x0)
+    chi0 = float(r0 @ r0)
     if var_idx.size == 0:
-        r = residual(params)
-        chi = float(r @ r)
         return Refined(values=v0, stderr=np.full(len(names), np.nan), varied=(),
                        covariance=np.zeros((0, 0)), evaluations=1, success=True,
-                       chisqr=chi, redchi=chi / max(r.size, 1), message="all parameters fixed")
-    first: list[np.ndarray] = []
-
-    def recorded(p):
-        r = residual(p)
-        if not first:
-            first.append(r)  # the start's residual, to judge the outcome against
-        return r
-
-    mini = lmfit.Minimizer(recorded, params, nan_policy="raise")
-    # Trust-region reflective least squares (lmfit's "least_squares" method), with
-    # the analytic Jacobian and Jacobian-based scaling of the parameters (Hz and Q
-    # differ by six decades).  Not MINPACK's lmder: it crashed the process on
-    # some trial steps here.
+                       chisqr=chi0, redchi=chi0 / max(r0.size, 1), message="all parameters fixed")
     with np.errstate(all="ignore"):
-        out = mini.least_squares(jac=lambda p, *a, **k: jacobian(p), max_nfev=max_nfev,
-                                 x_scale="jac", ftol=1e-9, xtol=1e-9, gtol=1e-10)
-    vals = current(out.params)
-    r0 = first[0] if first else residual(params)
-    if not np.all(np.isfinite(out.residual)) or out.chisqr > 1.001 * float(r0 @ r0) + 1e-300:
+        out = least_squares(ob.residual, ob.jacobian, x0, ob.lower, ob.upper, f0=r0,
+                            max_nfev=max_nfev, ftol=FTOL, xtol=XTOL, gtol=GTOL)
+    varied = tuple(names[i] for i in var_idx)
+    dof = max(r0.size - var_idx.size, 1)
+    chi = float(out.fun @ out.fun)
+    if not np.all(np.isfinite(out.fun)) or chi > 1.001 * chi0 + 1e-300:
         # The search wandered off (a badly under-modelled start): keep the start.
-        return _kept_start(names, v0, tuple(out.var_names), r0, int(out.nfev))
-    varied = tuple(out.var_names)
-    return _with_covariance(names, vals, [names.index(n) for n in varied], jacobian(vals[var_idx]),
-                            int(out.nfev), bool(out.success), float(out.chisqr),
-                            float(out.redchi), str(out.message), bounds)
+        return _kept_start(names, v0, varied, r0, int(out.nfev))
+    bounds = dict(bounds or {})
+    return _with_covariance(names, ob.full(out.x), var_idx, out.jac, int(out.nfev),
+                            bool(out.status > 0), chi, chi / dof, str(out.message), bounds)
 
 
 def _with_covariance(names, values: np.ndarray, var_idx, jac: np.ndarray, nfev: int,
@@ -232,41 +265,6 @@ def _with_covariance(names, values: np.ndarray, var_idx, jac: np.ndarray, nfev: 
                    message=message, undetermined=tuple(varied[k] for k in cov.undetermined),
                    uncertainty_reason=cov.reason,
                    at_bound=tuple(varied[k] for k in np.flatnonzero(held)))
-
-
-def _quick(names, v0: np.ndarray, var_idx: np.ndarray, residual, jacobian,
-           bounds: dict[str, tuple[float, float]], max_nfev: int) -> Refined:
-    """:func:`refine` without lmfit (``quick=True``).
-
-    The trust-region method of the lmfit call above (TRF, analytic Jacobian,
-    Jacobian scaling, same tolerances): without bounds through
-    :func:`benchfit.fitting.lsq.trust_region` (the same algorithm on the normal
-    matrix instead of an SVD per iteration), with bounds through
-    ``scipy.optimize.least_squares``.  The covariance is
-    :func:`benchfit.fitting.uncertainty.covariance`'s.
-    """
-    lo = np.array([bounds.get(names[i], (-np.inf, np.inf))[0] for i in var_idx], dtype=float)
-    hi = np.array([bounds.get(names[i], (-np.inf, np.inf))[1] for i in var_idx], dtype=float)
-    x0 = np.clip(v0[var_idx], lo, hi)
-    r0 = residual(x0)
-    chi0 = float(r0 @ r0)
-    with np.errstate(all="ignore"):
-        if np.all(np.isinf(lo)) and np.all(np.isinf(hi)):
-            out = trust_region(residual, jacobian, x0, f0=r0, max_nfev=max_nfev,
-                               ftol=1e-9, xtol=1e-9, gtol=1e-10)
-        else:
-            out = optimize.least_squares(residual, x0, jac=jacobian, bounds=(lo, hi),
-                                         method="trf", x_scale="jac", ftol=1e-9, xtol=1e-9,
-                                         gtol=1e-10, max_nfev=max_nfev)
-    varied = tuple(names[i] for i in var_idx)
-    dof = max(r0.size - var_idx.size, 1)
-    chi = float(out.fun @ out.fun)
-    if not np.all(np.isfinite(out.fun)) or chi > 1.001 * chi0 + 1e-300:
-        return _kept_start(names, v0, varied, r0, int(out.nfev))
-    v = v0.copy()
-    v[var_idx] = out.x
-    return _with_covariance(names, v, var_idx, out.jac, int(out.nfev), bool(out.status > 0),
-                            chi, chi / dof, str(out.message), bounds)
 
 
 def _kept_start(names, v0: np.ndarray, varied: tuple[str, ...], r0: np.ndarray,

@@ -27,6 +27,7 @@ rule reads it.
 from __future__ import annotations
 
 import functools
+import math
 
 import numpy as np
 from scipy import linalg
@@ -231,14 +232,21 @@ class System:
         resid = abs(float(r[n_num, n_num]))
         # sigma's unknowns [d~, c~]: the R22 block (data rows, zero right-hand
         # side) and the relaxation row, by one small QR.
-        upper = _upper(n + 1)
         z = np.empty((n + 2, n + 2), order="F")
-        np.multiply(r[n_num:, n_num:], upper, out=z[: n + 1, : n + 1])
+        np.multiply(r[n_num:, n_num:], _upper(n + 1), out=z[: n + 1, : n + 1])
         z[: n + 1, n + 1] = 0.0
         z[n + 1, 0] = z[n + 1, n + 1] = n_s * self._relax
         np.multiply(self._phi.real.sum(axis=0), self._relax, out=z[n + 1, 1: n + 1])
+        # column norms of z are those of its R: the singularity check needs no triangle mask
+        norms = np.sqrt(np.einsum("ij,ij->j", z[:, : n + 1], z[:, : n + 1]))
         rz = _r_factor(z)
-        y = _solve_upper(rz[: n + 1, : n + 1] * upper, rz[: n + 1, n + 1], _SINGULAR_SIGMA)
+        diag = np.abs(rz.diagonal()[: n + 1]) / np.where(norms > 0, norms, 1.0)
+        y = None
+        if diag.min() > _SINGULAR_SIGMA * diag.max():
+            y, info = _dtrtrs(rz[: n + 1, : n + 1], rz[: n + 1, n + 1])
+            y = y if info == 0 else None
+        if y is None:
+            y = _solve_upper(np.triu(rz[: n + 1, : n + 1]), rz[: n + 1, n + 1], _SINGULAR_SIGMA)
         d_sig = y[0]
         if abs(d_sig) < RELAX_TOL or not np.isfinite(d_sig):
             # Degenerate relaxed solution (Gustavsen 2006, sec. III): fix d~ and re-solve
@@ -256,35 +264,40 @@ class System:
         wr, wi, _, _, info = _dgeev(am, compute_vl=0, compute_vr=0, overwrite_a=1)
         if info != 0:
             raise linalg.LinAlgError(f"eigenvalues did not converge (info {info})")
-        if mirror:
-            out = wr > 0
-            flipped = -wr[out] + 1j * wi[out] if out.any() else np.zeros(0, dtype=complex)
-            wr = -np.abs(wr)
-        else:
-            flipped = np.zeros(0, dtype=complex)
-        return self._arranged(wr, wi), flipped, resid
+        return (*self._arranged(wr.tolist(), wi.tolist(), mirror), resid)
 
-    def _arranged(self, wr: np.ndarray, wi: np.ndarray) -> np.ndarray:
-        """:func:`arrange` of the eigenvalues ``wr + j·wi`` from LAPACK (each pair's
-        upper member first), shifted off the imaginary axis when they sit on it."""
-        mag = np.hypot(wr, wi)
+    def _arranged(self, wr: list[float], wi: list[float], mirror: bool
+                  ) -> tuple[np.ndarray, np.ndarray]:
+        """The eigenvalues ``wr + j·wi`` (LAPACK's: a real one has ``wi`` exactly 0, a pair
+        is two conjugates) mirrored into the left half-plane when ``mirror``, shifted off
+        the imaginary axis when they sit on it, in :func:`arrange` order; and the mirrored
+        ones (after mirroring).  Plain Python: the lists hold a few dozen numbers at most,
+        where each numpy call would cost more than the loop."""
+        flipped = []
+        if mirror:
+            for i, a in enumerate(wr):
+                if a > 0:
+                    wr[i] = -a
+                    flipped.append(complex(-a, wi[i]))
+        mags = [math.hypot(a, b) for a, b in zip(wr, wi, strict=True)]
         # A pole exactly on the axis would make the basis singular on a measured point.
-        tiny = 1e-12 * max(float(mag.max()), 1e-300)
-        if np.abs(wr).min() < tiny:
-            wr = np.where(np.abs(wr) < tiny, wr - tiny, wr)
-        isreal = np.abs(wi) <= REAL_TOL * mag
-        n_real = int(np.count_nonzero(isreal))
-        out = np.empty(self.n, dtype=complex)
-        out.real[:n_real] = np.sort(wr[isreal])
-        out.imag[:n_real] = 0.0
-        if n_real < self.n:
-            up = (wi > 0) & ~isreal
-            order = np.argsort(mag[up])
-            cx = out[n_real::2]
-            cx.real, cx.imag = wr[up][order], wi[up][order]
-            out[n_real + 1::2] = np.conj(cx)
-        self._last = (out, n_real)
-        return out
+        tiny = 1e-12 * max(max(mags, default=0.0), 1e-300)
+        reals, pairs = [], []
+        for a, b, m in zip(wr, wi, mags, strict=True):
+            if abs(a) < tiny:
+                a -= tiny
+            if abs(b) <= REAL_TOL * m:
+                reals.append(a)
+            elif b > 0:
+                pairs.append((m, a, b))
+        reals.sort()
+        pairs.sort()
+        seq: list[complex] = [complex(a) for a in reals]
+        for _, a, b in pairs:
+            seq += [complex(a, b), complex(a, -b)]
+        out = np.array(seq, dtype=complex)
+        self._last = (out, len(reals))
+        return out, np.array(flipped, dtype=complex)
 
     def residues(self, poles: np.ndarray) -> tuple[np.ndarray, float, float, float]:
         """Weighted least-squares residues, d and e for the arranged ``poles``.
@@ -295,7 +308,7 @@ class System:
 
         Returns
         -------
-        residues, d, e, residual norm
+        residues, d, e, residual norm, the model at every ``s``
         """
         n, n_num = self.n, self.n_num
         n_real = self._count_real(poles)
@@ -306,4 +319,7 @@ class System:
         res = coeffs_to_residues(x[:n], n_real)
         d = float(x[n]) if self.direct else 0.0
         e = float(x[n + int(self.direct)]) if self.proportional else 0.0
-        return res, d, e, abs(float(r[n_num, n_num]))
+        model = self._phi @ x[:n] + d
+        if e:
+            model += e * self._s[:, 0]
+        return res, d, e, abs(float(r[n_num, n_num])), model

@@ -60,6 +60,9 @@ class VFResult:
         The poles (scaled, after mirroring) that came out unstable in the last
         relocation and were mirrored into the left half-plane (a hint the
         plant may really be unstable).
+    fitted
+        The model at the frequencies it was fitted at (None when not computed),
+        so a caller judging the fit need not evaluate it again.
     """
 
     poles: np.ndarray
@@ -69,6 +72,7 @@ class VFResult:
     iterations: int
     converged: bool
     flipped: np.ndarray
+    fitted: np.ndarray | None = None
 
     def at(self, s: np.ndarray) -> np.ndarray:
         """Evaluate at scaled complex frequency ``s``."""
@@ -123,8 +127,7 @@ def _pole_change(old: np.ndarray, new: np.ndarray) -> float:
     Both sets are in :func:`~benchfit.fitting.relocation.arrange` order; a
     different count of real poles is an infinite change.
     """
-    if old.shape != new.shape or np.count_nonzero(old.imag == 0.0) != np.count_nonzero(
-            new.imag == 0.0):
+    if old.shape != new.shape or count_real(old) != count_real(new):
         return np.inf
     if not old.size:
         return 0.0
@@ -242,11 +245,11 @@ def vector_fit(
         converged = settled(_pole_change(poles, new), resid, tol, rtol)
         poles = new
     try:
-        res, d, e, _ = system.residues(poles)
+        res, d, e, _, fitted = system.residues(poles)
     except (linalg.LinAlgError, ValueError) as exc:
         raise linalg.LinAlgError(f"vector fitting: residues not solvable ({exc})") from exc
     return VFResult(poles=poles, residues=res, d=d, e=e, iterations=it,
-                    converged=converged, flipped=flipped)
+                    converged=converged, flipped=flipped, fitted=fitted)
 
 
 def vf_to_zpk(vf: VFResult, scale: float) -> tuple[np.ndarray, np.ndarray, float]:

@@ -259,6 +259,32 @@ def choose_integrators(chi2, slope_n, slope_sigma, phase_n=None,
     return best, decided, plausible
 
 
+def low_end_gain_db(freq_hz, T) -> float:
+    """|T(0)| in dB of a sweep without integrators, from its low-frequency asymptote.
+
+    The magnitude model of the module notes with n = 0, ln|T| = A + b2·u², is
+    fitted over the window (:func:`window`) and read at u = 0: the DC gain, the
+    even-power correction of the corners above the window removed.
+
+    Parameters
+    ----------
+    freq_hz, T
+        One sweep: frequencies (Hz, increasing) and its complex loop gain.
+
+    Returns
+    -------
+    float
+        20·log10|T(0)|.
+    """
+    f = np.asarray(freq_hz, dtype=float).reshape(-1)
+    T = np.asarray(T, dtype=complex).reshape(-1)
+    x = np.log10(f)
+    w = window(x)
+    _, mag_m, _ = _design(x[w], x[w][-1])
+    coef, *_ = np.linalg.lstsq(mag_m[:, [0, 2]], np.log(np.abs(T[w])), rcond=None)
+    return float(20.0 / np.log(10.0) * coef[0])
+
+
 def low_end_phase(freq_hz, T, n: np.ndarray) -> np.ndarray:
     """∠(1+T) (degrees) at ω → 0+, on the branch of ∠(1+T[:, 0]), from the fitted asymptote.
 

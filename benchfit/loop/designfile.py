@@ -62,12 +62,13 @@ import numpy as np
 from benchfit.errors import InputError
 from benchfit.fileio import malformed_as_input_error, read_json
 from benchfit.fitting.model import PlantModel
+from benchfit.loop.choices import METHODS
 from benchfit.loop.design import Design, design
 from benchfit.loop.loopgain import LoopPlant, plant_from_measured_loop
 from benchfit.loop.networks import Network, check_kind
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.sensing import Sensing
-from benchfit.loop.synthesis import METHODS, Targets
+from benchfit.loop.targets import Targets
 
 #: Known sections and their keys.
 SCHEMA: dict[str, tuple[str, ...]] = {

@@ -18,7 +18,7 @@ from benchfit.loop.opamp import OpAmp
 from benchfit.loop.passrules import check_crossings
 from benchfit.loop.prediction import Prediction, target_warnings
 from benchfit.loop.sensing import Sensing
-from benchfit.loop.synthesis import Synthesis, Targets
+from benchfit.loop.targets import Synthesis, Targets
 from benchfit.loop.tolerance import Spread
 from benchfit.provenance import Provenance
 
@@ -134,6 +134,10 @@ class Design:
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> Design:
+        if isinstance(d, dict) and d.get("kind") == "stage_design":
+            raise InputError("a stage design (op-amp stage, 1/β crossing), not a compensator design: "
+                             "`benchfit predict`, `report` and `margins` read it; `check` takes a "
+                             "compensator design (\"kind\": \"design\")")
         if not isinstance(d, dict) or d.get("kind") != "design":
             raise InputError("not a design file (expected a JSON object with \"kind\": \"design\")")
         try:

@@ -111,11 +111,16 @@ def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
     if not math.isfinite(d) or d < 0:
         raise InputError(f"delay must be >= 0 s, found {extra_delay_s}", source="--delay")
     if isinstance(loop, PlantModel):
+        fitted = fitted_quantity(loop)
         if d:
             loop = PlantModel(loop.zeros, loop.poles, loop.k, delay_s=loop.delay_s + d,
                               provenance=loop.provenance.derive("add_delay", {"delay_s": d}))
-        return margins_of_model(loop, f_min_hz=lo, f_max_hz=hi,
-                                unstable_open_loop_poles=unstable_open_loop_poles)
+        m = margins_of_model(loop, f_min_hz=lo, f_max_hz=hi,
+                             unstable_open_loop_poles=unstable_open_loop_poles)
+        if fitted is not None:
+            m = replace(m, warnings=(_not_a_loop(fitted, "the model is fitted to a sweep that"),)
+                        + m.warnings)
+        return m
     if isinstance(loop, FrequencyResponse):
         sweep = loop.band(lo, hi) if (lo is not None or hi is not None) else loop
         T = sweep.response * np.exp(-2j * np.pi * sweep.freq_hz * d) if d else sweep.response
@@ -128,9 +133,36 @@ def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
             from benchfit.loop.openloop import check_open_loop
 
             m = check_open_loop(sweep, m)
-        if sweep.quantity in ("plant", "closed", "impedance", "compensator"):
-            m = replace(m, warnings=(f"the sweep is marked as a {sweep.quantity} measurement, not a "
-                                     "loop gain; these margins treat it as T",) + m.warnings)
+        if sweep.quantity in NOT_A_LOOP:
+            m = replace(m, warnings=(_not_a_loop(sweep.quantity, "the sweep"),) + m.warnings)
         return m
     raise InputError(f"a loop must be a model or a sweep, found {type(loop).__name__}")
 
+
+
+#: Quantities a sweep can be marked with that are not a loop gain T.
+NOT_A_LOOP = ("plant", "closed", "impedance", "compensator")
+
+
+def _not_a_loop(quantity: str, what: str) -> str:
+    return (f"{what} is marked as a {quantity} measurement, not a loop gain; these margins "
+            "treat it as T (a plant's margins are those of the loop with unity compensation "
+            "and sensing; `benchfit design` closes the loop with a network)")
+
+
+def fitted_quantity(model: PlantModel) -> str | None:
+    """The quantity of the sweep a model was fitted to, when it is not a loop gain.
+
+    Evidence weighed: the model's own provenance only: its step is ``fit`` and the
+    step it came from read a sweep marked (``--quantity`` or the file's header) as one
+    of :data:`NOT_A_LOOP`.  A model derived further (a design's loop) has another step
+    and is not judged; a sweep whose quantity was not stated gives None.
+    """
+    prov = model.provenance
+    if prov.step != "fit":
+        return None
+    for parent in prov.parents:
+        q = (parent.get("settings") or {}).get("quantity") if isinstance(parent, dict) else None
+        if parent.get("step") == "read_sweep" and q in NOT_A_LOOP:
+            return str(q)
+    return None

@@ -17,9 +17,11 @@ import numpy as np
 from scipy import optimize
 
 from benchfit.errors import InputError
+from benchfit.loop.asymptote import fit_asymptote, low_end_gain_db
 from benchfit.loop.crossings import main_score, to_db, wrap180
 from benchfit.loop.densegrid import LIVE_DB, LoopFn
 from benchfit.loop.marginsresult import Margins
+from benchfit.loop.sweeprules import dc_phase_crossing, given_count_conflict, phase_gaps
 from benchfit.loop.verdict import STABLE, UNDECIDED, UNSTABLE, nyquist_verdict
 from benchfit.provenance import Provenance
 
@@ -132,6 +134,7 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
     # --- phase crossings (∠T = -180° + 360°·m)
     k = np.floor((ph + 180.0) / 360.0)
     phase_x: list[dict[str, Any]] = []
+    coarse_x: list[tuple[float, float]] = []   # (f, GM dB) of phase crossings on a coarse sweep
     for i in np.flatnonzero(k[:-1] != k[1:]):
         if c.exact is not None and max(db[i], db[i + 1]) < LIVE_DB:
             continue            # the dense grid does not resolve the phase down there
@@ -145,9 +148,14 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
             phase_x.append({"kind": "phase", "freq_hz": fp, "value": -gdb, "direction": direction})
             if data and (dstep[max(i - 1, 0):i + 2].max() > _COARSE_DB
                          or pstep[max(i - 1, 0):i + 2].max() > 3 * _COARSE_PHASE_DEG):
-                warnings.append(
-                    f"phase crossing at {fp:.4g} Hz: the sweep is coarse there; its gain margin "
-                    f"({-gdb:.1f} dB) is uncertain")
+                coarse_x.append((fp, -gdb))
+    if coarse_x:
+        # one line however many (a long delay gives a phase crossing every 1/τ Hz)
+        fp, gm = min(coarse_x, key=lambda x: abs(x[1]))
+        more = (f"; {len(coarse_x) - 1} more phase crossing(s) up to {coarse_x[-1][0]:.4g} Hz "
+                "where the sweep is as coarse") if len(coarse_x) > 1 else ""
+        warnings.append(f"phase crossing at {fp:.4g} Hz: the sweep is coarse there; its gain "
+                        f"margin ({gm:.1f} dB) is uncertain{more}")
 
     # --- resolution of the whole sweep (data): under-sampled resonances
     if data:
@@ -159,6 +167,14 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
                 f"the phase jumps {pstep[j]:.0f} deg between {f[j]:.4g} and {f[j + 1]:.4g} Hz "
                 f"({jumps.size} such gap(s)): a resonance is under-sampled; crossings and margins "
                 "near there cannot be trusted; sweep with more points per decade")
+        gaps = [g for g in phase_gaps(db, pstep) if g not in set(jumps.tolist())]
+        if gaps:
+            g = int(gaps[np.argmax(pstep[gaps])])
+            warnings.append(
+                f"the phase changes {pstep[g]:.0f} deg between {f[g]:.4g} and {f[g + 1]:.4g} Hz "
+                f"(|T| {db[g]:.0f} to {db[g + 1]:.0f} dB; {len(gaps)} such gap(s)): a phase "
+                "crossing, and with it the gain margin, may lie in the gap; sweep there with "
+                "more points")
         peaks = np.flatnonzero((db[1:-1] > db[:-2] + 3.0) & (db[1:-1] > db[2:] + 3.0))
         for p in peaks[:3]:
             warnings.append(f"sharp peak at {f[p + 1]:.4g} Hz is defined by one point; "
@@ -197,6 +213,8 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
     verdict = str(v.verdict[0])
     dev0, devinf = v.low_deviation, v.high_deviation
     asym = v.asymptotes.row(0) if v.asymptotes is not None else None
+    # a sweep's low end is always fitted: it is the evidence a given count is checked against
+    low_end = (asym if asym is not None else fit_asymptote(f, T)[0]) if data else None
     evidence = asym.describe() if asym is not None else f"{n_int} integrator(s), {'given' if data else 'of the model'}"
     stable = Z == 0          # with the chosen count: which margins apply
     if asym is not None and db[0] < 0 and asym.slope_n - 3 * asym.slope_sigma > 0.1:
@@ -212,7 +230,12 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
         warnings.append(f"closed-loop stability is UNDECIDED: {evidence}, and these counts give "
                         "different encirclement verdicts; extend the sweep downwards or state "
                         "the integrator count")
-    if float(dev0[0]) > 60.0:
+    conflict = data and integrators is not None and given_count_conflict(low_end, n_int)
+    if conflict:
+        warnings.append(f"{n_int} integrator(s) were given, but the sweep's low-frequency "
+                        f"asymptote does not allow that count: {low_end.describe()}; the "
+                        "verdict uses the given count; check --integrators")
+    elif float(dev0[0]) > 60.0:
         warnings.append(f"at the bottom of the band ({f[0]:.4g} Hz) the loop phase is still "
                         f"{float(dev0[0]):.0f} deg from its low-frequency asymptote: the stability "
                         "verdict assumes nothing happens below the band; extend it downwards")
@@ -243,8 +266,8 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
         if (~pos).any():
             gm_down = float(np.max(gms[~pos]))
     # a real negative T at DC is a phase crossing at f = 0 (open-loop-unstable plants)
-    if n_int == 0 and float(dev0[0]) < 1.0 and abs(float(wrap180(ph[0] + 180.0))) < 1.0:
-        g0 = -float(db[0])
+    if dc_phase_crossing(n_int, float(ph[0]), float(dev0[0]), low_end):
+        g0 = -float(db[0]) if low_end is None else -low_end_gain_db(f, T)
         if c.exact is not None:        # a model can be evaluated at DC itself
             with np.errstate(all="ignore"):
                 t0 = np.asarray(c.exact(np.array([0.0])), dtype=complex).reshape(-1)[0]

@@ -152,7 +152,7 @@ def draws_pass(stable, pm_main, gm_min, gains: tuple[np.ndarray, np.ndarray, np.
         (row, frequency Hz, value) arrays of every gain crossing's phase
         margin and every phase crossing's gain margin, over all draws.
     targets
-        :class:`~benchfit.loop.synthesis.Targets`.
+        :class:`~benchfit.loop.targets.Targets`.
     which
         Which crossings count (:func:`crossing_counts`).
 

@@ -20,7 +20,8 @@ from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
 from benchfit.loop.closedloop import ClosedLoop, OutputImpedance, closed_loop, output_impedance
 from benchfit.loop.margins import Margins, margins_of_model, margins_of_sweep
-from benchfit.loop.timeresponse import StepResponse, load_step, reference_step, step_metrics
+from benchfit.loop.stepresponse import StepResponse, step_metrics
+from benchfit.loop.timeresponse import load_step, reference_step
 from benchfit.provenance import Provenance
 
 __all__ = [

@@ -20,7 +20,7 @@ from benchfit.loop.marginsresult import Margins
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.passrules import shortfalls, worst_of
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 
 #: Op-amp phase lost at the crossover that earns a warning, degrees.
 OPAMP_PHASE_WARN_DEG = 3.0

@@ -12,7 +12,7 @@ from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.passrules import draws_pass, margins_meet
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 
 #: screened part sets checked with the dense analysis, at most (each costs one prediction)
 VERIFY_AT_MOST = 8

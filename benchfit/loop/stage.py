@@ -40,12 +40,12 @@ from benchfit.loop.passrules import margins_meet
 from benchfit.loop.prediction import Prediction, predict, target_warnings
 from benchfit.loop.stage_choice import choose_network
 from benchfit.loop.stage_crossing import crossing, worst_pm
-from benchfit.loop.stage_load import StageLoad
+from benchfit.loop.stage_load import LoadEvidence, StageLoad, load_pole_evidence
 from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_response import closed_loop_values
 from benchfit.loop.stage_snapping import snap_stage
 from benchfit.loop.stage_synthesis import GAIN_TOL, StageSynthesis, stage_grid, synthesize_stage
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 from benchfit.loop.tolerance import Spread, monte_carlo
 from benchfit.numfmt import eng
 from benchfit.provenance import Provenance
@@ -83,6 +83,41 @@ def band_gain_error(lp: LoopPlant, net: StageNetwork, want: float,
     err = np.abs(np.abs(g) / abs(want) - 1.0)
     k = int(np.nanargmax(err))
     return float(err[k]), float(f[k])
+
+
+def fitted_pole_sigma(lp: LoopPlant):
+    """``rel_sigma(f_hz)``: the relative standard error of the fitted real pole nearest
+    ``f_hz`` (from the fit's parameters), or None when the plant is not a fit."""
+    from benchfit.fitting.result import FitResult
+
+    fit = getattr(lp.draws, "__self__", None)  # LoopPlant.draws is the fit's draw_responses
+    if not isinstance(fit, FitResult):
+        return None
+    known = [(abs(p.value), p.stderr / abs(p.value)) for p in fit.parameters
+             if p.name.startswith("pole") and p.name.endswith("_hz") and p.value
+             and p.stderr is not None and math.isfinite(p.stderr)]
+    if not known:
+        return None
+    f = np.array([k[0] for k in known])
+    return lambda f_hz: known[int(np.argmin(np.abs(np.log(f / f_hz))))][1]
+
+
+def load_warning(lp: LoopPlant, net: StageNetwork, label: str = "snapped") -> tuple[LoadEvidence | None, str | None]:
+    """The stated load checked against the measured Aol (:func:`load_pole_evidence`),
+    and the warning when they disagree; when the data name the load's CL the warning
+    also gives the network's smallest phase margin with that CL (the Aol stays the
+    measured one), so its effect on this network is in the numbers."""
+    if lp.is_data:
+        return None, None
+    ev = load_pole_evidence(lp.plant, net.load, lp.band_hz, fitted_pole_sigma(lp))
+    msg = ev.message(net.load) if ev is not None else None
+    if msg and ev.data_cap_f is not None:
+        other = replace(net, load=replace(net.load, c_f=ev.data_cap_f))
+        pm_data = worst_pm(predict([lp], other, None).corners[0])
+        pm_said = worst_pm(predict([lp], net, None).corners[0])
+        msg += (f"; with CL = {eng(ev.data_cap_f, 'F')} the {label} network's smallest phase margin "
+                f"would be {pm_data:.1f}° (designed {pm_said:.1f}° with the stated load)")
+    return ev, msg
 
 
 def dc_gain(lp: LoopPlant, net: StageNetwork) -> float:
@@ -324,6 +359,9 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
         warnings.append(f"snapped DC closed-loop gain {cg['snapped']:.5g} is more than 1 % from the "
                         f"{want:g} asked; use a finer resistor series (--series E96:E12)")
     warnings += target_warnings(snapped, targets, ["Aol"], "snapped")
+    load_ev, load_msg = load_warning(lp, snapped_net)
+    if load_msg:
+        warnings.append(load_msg)
     if spread is not None:
         if min_yield is not None and spread.yield_fraction < min_yield:
             warnings.append(f"the {min_yield * 100:g} % yield asked for was not reached: "
@@ -340,7 +378,8 @@ def design_stage(lp: LoopPlant, kind: str, targets: Targets, *, gain: float,
     settings = {"network": kind, "stage": stage, "gain": gain, "r_level": r_level, "lag_at": lag_at,
                 "series": [r_series, c_series], "tolerances": [rt, ct], "draws": draws, "seed": seed,
                 "targets": targets.to_dict(), "load": load.to_dict(), "min_yield": min_yield,
-                "designed_for": used.to_dict()}
+                "designed_for": used.to_dict(),
+                "load_check": None if load_ev is None else load_ev.to_dict()}
     if not math.isfinite(m.crossover_hz):
         raise DesignError("the snapped stage has no gain crossover in the plant's band")
     return StageDesign(stage=stage, kind=syn.network.kind, gain=want, ideal=ideal, snapped=snapped,

@@ -16,7 +16,7 @@ from benchfit.loop.stage_synthesis import (
     stage_grid,
     synthesize_stage,
 )
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 from benchfit.numfmt import eng
 
 #: The order networks are tried in by :func:`choose_network` (fewest parts, least cost first).

@@ -30,11 +30,12 @@ from scipy.linalg import expm, matrix_balance
 
 from benchfit.errors import InputError
 from benchfit.fitting.model import PlantModel
+from benchfit.loop.loopsim import state_space
 from benchfit.loop.nodal import trim
 from benchfit.loop.rational import POLY, VALUES, Algebra
 from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_response import closed_loop_values
-from benchfit.loop.timeresponse import StepResponse, state_space, step_metrics
+from benchfit.loop.stepresponse import StepResponse, step_metrics
 from benchfit.numfmt import db, eng, sig
 from benchfit.provenance import Provenance
 

@@ -22,7 +22,7 @@ from collections.abc import Callable
 from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.passrules import margins_meet
 from benchfit.loop.stage_networks import StageNetwork
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 
 #: Bisection steps on the exact margins (a bracket of a sweep step shrinks by 2**-EXACT_STEPS).
 EXACT_STEPS = 40

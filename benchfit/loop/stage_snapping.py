@@ -22,7 +22,7 @@ from benchfit.loop.stage_synthesis import (
     snapped_gain_pairs,
     stage_grid,
 )
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 
 #: Gain pairs (impedance levels) tried when snapping.
 PAIRS = 8

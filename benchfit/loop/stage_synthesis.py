@@ -43,7 +43,7 @@ from benchfit.loop.passrules import margins_meet
 from benchfit.loop.stage_load import StageLoad
 from benchfit.loop.stage_networks import StageNetwork
 from benchfit.loop.stage_refine import exact_margins, exact_pm, refine_on_exact
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 
 #: Points of each placement sweep.
 SWEEP_POINTS = 90

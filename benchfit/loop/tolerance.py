@@ -31,7 +31,7 @@ from benchfit.loop.loopgain import Loop, LoopPlant
 from benchfit.loop.networks import Network
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.passrules import check_crossings, describe, draws_pass
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 
 #: Percentiles reported.
 PERCENTILES = (1, 5, 50, 95, 99)
@@ -65,6 +65,10 @@ class Spread:
         they do not pass.
     crossings
         Which crossings counted for the yield ("all", "main" or a band in Hz).
+        ``percentiles`` also holds ``pm_worst_deg`` and ``gm_worst_db``
+        (:func:`worst_crossings`: every counted crossing, the GM nearest 0 dB signed).
+    nominal_stable
+        The verdict of the nominal parts on the same grid (None: undecided or not known).
     """
 
     draws: int
@@ -77,6 +81,7 @@ class Spread:
     unstable_fraction: float
     undecided_fraction: float = 0.0
     crossings: str | tuple[float, float] = "all"
+    nominal_stable: bool | None = None
 
     def to_dict(self) -> dict[str, Any]:
         return {"draws": self.draws, "seed": self.seed, "r_tol": self.r_tol, "c_tol": self.c_tol,
@@ -84,6 +89,7 @@ class Spread:
                 "percentiles": {k: dict(v) for k, v in self.percentiles.items()},
                 "yield": self.yield_fraction, "unstable_fraction": self.unstable_fraction,
                 "undecided_fraction": self.undecided_fraction,
+                "nominal_stable": self.nominal_stable,
                 "crossings": self.crossings if isinstance(self.crossings, str)
                 else list(self.crossings)}
 
@@ -100,18 +106,34 @@ class Spread:
                    yield_fraction=float(d["yield"]),
                    unstable_fraction=float(d.get("unstable_fraction", 0.0)),
                    undecided_fraction=float(d.get("undecided_fraction", 0.0)),
-                   crossings=check_crossings(d.get("crossings", "all")))
+                   crossings=check_crossings(d.get("crossings", "all")),
+                   nominal_stable=d.get("nominal_stable"))
 
     def report(self) -> str:
+        """The table: main-crossover rows, and (when they differ anywhere) the worst over every
+        counted crossing, first of all a line saying when the nominal loop is unstable."""
         pc = self.percentiles
-        lines = [f"Monte Carlo: {self.draws} draws, R ±{numfmt.sig(self.r_tol * 100)} %, "
-                 f"C ±{numfmt.sig(self.c_tol * 100)} %"
-                 + (", plant from fit covariance" if self.plant_uncertainty else ""),
-                 "                 " + "".join(f"{str(p) + ' %':>12}" for p in PERCENTILES)]
-        for key, label, fmt in (("pm_deg", "phase margin", numfmt.deg),
-                                ("gm_db", "gain margin", _gain_margin_cell),
-                                ("crossover_hz", "crossover", lambda v: numfmt.eng(v, "Hz"))):
+        lines = []
+        if self.nominal_stable is False:
+            lines.append("the nominal loop is UNSTABLE: the percentiles below are of draws around "
+                         "an unstable loop (see the worst-crossing rows)")
+        lines += [f"Monte Carlo: {self.draws} draws, R ±{numfmt.sig(self.r_tol * 100)} %, "
+                  f"C ±{numfmt.sig(self.c_tol * 100)} %"
+                  + (", plant from fit covariance" if self.plant_uncertainty else ""),
+                  "                 " + "".join(f"{str(p) + ' %':>12}" for p in PERCENTILES)]
+        rows = [("pm_deg", "phase margin", numfmt.deg)]
+        if "pm_worst_deg" in pc and pc["pm_worst_deg"] != pc["pm_deg"]:
+            rows.append(("pm_worst_deg", "PM, worst cross.", numfmt.deg))
+        rows.append(("gm_db", "gain margin", _gain_margin_cell))
+        if "gm_worst_db" in pc and pc["gm_worst_db"] != pc["gm_db"]:
+            rows.append(("gm_worst_db", "GM, nearest 0 dB", _gain_margin_cell))
+        rows.append(("crossover_hz", "crossover", lambda v: numfmt.eng(v, "Hz")))
+        for key, label, fmt in rows:
             lines.append(f"{label:17}" + "".join(f"{fmt(pc[key][f'p{p}']):>12}" for p in PERCENTILES))
+        if len(rows) > 3:
+            lines.append("(phase margin, gain margin: main crossover and smallest positive GM; the "
+                         "'worst'/'nearest 0 dB' rows take every counted crossing, a negative GM "
+                         "where |T| > 1 at a phase crossing)")
         if any(math.isinf(v) and v > 0 for v in pc["gm_db"].values()):
             lines.append("(gain margin 'no crossing': those draws have no phase crossing where |T| < 1 in the band)")
         undecided = (f", stability undecided {numfmt.pct(self.undecided_fraction)}"
@@ -120,6 +142,37 @@ class Spread:
                      f"(unstable {numfmt.pct(self.unstable_fraction)}{undecided}; "
                      f"counting {describe(self.crossings)})")
         return "\n".join(lines)
+
+
+def worst_crossings(n: int, gains: tuple, phases: tuple,
+                    which: str | tuple[float, float]) -> tuple[np.ndarray, np.ndarray]:
+    """Per row: the smallest phase margin over the counted gain crossings, and the counted
+    phase crossing's gain margin nearest 0 dB (signed: negative where |T| > 1 there).
+
+    The crossings counted are those the yield counts (:func:`benchfit.loop.passrules.crossing_counts`;
+    under "main" every crossing is shown, as the yield then judges the main pair only), so a
+    resonance that crosses 0 dB again shows in the table, not only in the yield.  Rows with no
+    gain crossing get +inf PM, rows with no phase crossing +inf GM.
+    """
+    from benchfit.loop.passrules import crossing_counts
+
+    which = "all" if which == "main" else which
+    pm = np.full(n, np.inf)
+    gm = np.full(n, np.inf)
+    for (rows, f, v), out, key in ((gains, pm, None), (phases, gm, "abs")):
+        rows, f, v = (np.asarray(a) for a in (rows, f, v))
+        if not rows.size:
+            continue
+        keep = crossing_counts(f, np.zeros(np.shape(f), bool), which) & ~np.isnan(v)
+        rows, v = rows[keep].astype(int), v[keep].astype(float)
+        if key is None:
+            np.minimum.at(out, rows, v)
+            continue
+        best = np.full(n, np.inf)
+        np.minimum.at(best, rows, np.abs(v))
+        hit = np.abs(v) == best[rows]
+        out[rows[hit]] = v[hit]
+    return pm, gm
 
 
 def _gain_margin_cell(v: float) -> str:
@@ -151,6 +204,7 @@ def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
         the band never reaches the crossover), ``stable`` (verdict "stable" on
         every corner), ``undecided`` (some corner's verdict undecided) and
         ``passed`` (:func:`benchfit.loop.passrules.draws_pass` on every
+        corner), ``pm_worst_deg`` and ``gm_worst_db`` (:func:`worst_crossings`, worst
         corner), and ``plant_uncertainty`` (True when some plant was drawn).
     """
     from benchfit.loop.margins import margins_batch
@@ -170,6 +224,8 @@ def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
 
     pm_w = np.full(draws, np.inf)
     gm_w = np.full(draws, np.inf)
+    pm_x = np.full(draws, np.inf)   # worst over the counted crossings (worst_crossings)
+    gm_x = np.full(draws, np.inf)
     fc_w = np.full(draws, np.nan)
     stable_all = np.ones(draws, dtype=bool)
     undecided = np.zeros(draws, dtype=bool)
@@ -196,6 +252,9 @@ def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
             gm = np.asarray(out["gm_db"], dtype=float)
             passed[a:b] &= draws_pass(stable, pm, gm, out["gains_pm_deg"],
                                       out["phases_gm_db"], targets, crossings)
+            wp, wg = worst_crossings(b - a, out["gains_pm_deg"], out["phases_gm_db"], crossings)
+            pm_x[a:b] = np.minimum(pm_x[a:b], np.where(np.isnan(pm), -np.inf, np.minimum(pm, wp)))
+            gm_x[a:b] = np.where(np.abs(wg) < np.abs(gm_x[a:b]), wg, gm_x[a:b])
             pm = np.where(np.isnan(pm), -np.inf, pm)
             worse = pm < pm_w[a:b]
             fc_w[a:b] = np.where(worse, out["crossover_hz"], fc_w[a:b])
@@ -204,6 +263,7 @@ def draw_margins(corners: LoopPlant | Sequence[LoopPlant], network: Network,
             stable_all[a:b] &= stable
             undecided[a:b] |= np.asarray(out["verdict"]) == "undecided"
     return {"pm_deg": pm_w, "gm_db": gm_w, "crossover_hz": fc_w, "stable": stable_all,
+            "pm_worst_deg": pm_x, "gm_worst_db": gm_x,
             "undecided": undecided, "passed": passed, "plant_uncertainty": used_plant,
             "r_tol": r_tol, "c_tol": c_tol, "draws": draws, "crossings": crossings}
 
@@ -257,15 +317,23 @@ def monte_carlo(corners: LoopPlant | Sequence[LoopPlant], network: Network,
                      seed=seed, plant_uncertainty=plant_uncertainty, freq_hz=freq_hz,
                      crossings=crossings)
     pcs: dict[str, dict[str, float]] = {}
-    for key in ("pm_deg", "gm_db", "crossover_hz"):
+    for key in ("pm_deg", "gm_db", "crossover_hz", "pm_worst_deg", "gm_worst_db"):
         arr = d[key]
         # inf GM (no phase crossing) stays inf in the upper percentiles, as it should
         vals = np.percentile(np.where(np.isnan(arr), -np.inf, arr), PERCENTILES,
                              method="inverted_cdf")
+        if key == "gm_worst_db":  # percentiles of the distance from 0 dB, shown signed
+            order = np.argsort(np.abs(arr), kind="stable")
+            idx = np.clip(np.ceil(np.array(PERCENTILES) / 100 * arr.size).astype(int) - 1, 0,
+                          arr.size - 1)
+            vals = arr[order][idx]
         pcs[key] = {f"p{p}": float(v) for p, v in zip(PERCENTILES, vals, strict=True)}
+    nom = draw_margins(corners, network, opamp, targets, r_tol=0.0, c_tol=0.0, draws=1,
+                       plant_uncertainty=False, freq_hz=freq_hz, crossings=crossings)
     return Spread(draws=d["draws"], seed=seed, r_tol=d["r_tol"], c_tol=d["c_tol"],
                   plant_uncertainty=d["plant_uncertainty"], percentiles=pcs,
                   yield_fraction=float(d["passed"].mean()),
                   unstable_fraction=float(np.mean(~d["stable"] & ~d["undecided"])),
                   undecided_fraction=float(d["undecided"].mean()),
-                  crossings=d["crossings"])
+                  crossings=d["crossings"],
+                  nominal_stable=bool(nom["stable"][0]) if not nom["undecided"][0] else None)

@@ -32,7 +32,7 @@ from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.networks import network_label
 from benchfit.loop.opamp import OpAmp
 from benchfit.loop.sensing import Sensing
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 from benchfit.numfmt import deg, eng, sig
 from benchfit.output.assemble import assemble
 from benchfit.output.curves import write_curve_csv

@@ -26,7 +26,7 @@ from benchfit.fitting import fit
 from benchfit.loop.loopgain import LoopPlant
 from benchfit.loop.stage import design_stage
 from benchfit.loop.stage_load import StageLoad
-from benchfit.loop.synthesis import Targets
+from benchfit.loop.targets import Targets
 from benchfit.numfmt import eng
 from benchfit.output.curves import write_curve_csv
 from benchfit.output.plot_stage import stage_curve

@@ -3,7 +3,8 @@
 The HTML file needs nothing but itself: the pictures are PNG data URIs, the
 style sheet is inline, there is no script and no external reference.  Every
 string that came from a user or a file (names, settings, instrument
-identity, warnings) goes through :func:`html.escape`.
+identity, warnings) goes through :func:`html.escape`.  The PDF form is
+:mod:`benchfit.output.report_pdf` (:func:`render_pdf`, re-exported here).
 """
 
 from __future__ import annotations
@@ -18,7 +19,6 @@ from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
-from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
 from benchfit import __version__
@@ -28,9 +28,11 @@ from benchfit.loop.networks import network_label
 from benchfit.numfmt import FIT_DIGITS, db, deg, eng, pct, quantity, sig, unit_symbol
 from benchfit.output.report_figures import ReportFigure, report_figures
 from benchfit.output.report_inputs import ReportInputs
-from benchfit.output.style import new_figure, plot_style
+from benchfit.output.report_pdf import render_pdf
 from benchfit.output.summary import design_summary, rate_of_closure_text, summary_lines
 from benchfit.safety import CAUTION
+
+__all__ = ["SAFETY_NOTE", "default_report_path", "render_html", "render_pdf", "write_report"]
 
 #: The short caution every report ends with (the full text: README.md "Safety", docs/capture.md).
 SAFETY_NOTE = CAUTION
@@ -353,40 +355,6 @@ def render_html(inputs: ReportInputs, figures: Sequence[ReportFigure]) -> str:
             f"<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\"><title>{esc(title)}</title>"
             f"<style>{_CSS}</style></head><body><main>\n" + "\n".join(b for b in body if b)
             + "\n</main></body></html>\n")
-
-
-def _text_page(title: str, lines: Sequence[str]) -> Figure:
-    with plot_style():
-        fig = new_figure(8.27, 11.69)   # A4 portrait, inches
-        fig.text(0.06, 0.95, title, fontsize=14, fontweight="bold", va="top", wrap=True)
-        fig.text(0.06, 0.90, "\n".join(lines), fontsize=9, va="top", family="monospace", wrap=True)
-    return fig
-
-
-def render_pdf(inputs: ReportInputs, figures: Sequence[ReportFigure]) -> bytes:
-    """The report as PDF bytes: a text page with the summary, part list and margins, then every picture."""
-    d = inputs.design
-    s = design_summary(d)
-    lines = [*summary_lines(s), "", d.report()]
-    if inputs.fit is not None:
-        lines += ["", inputs.fit.report()]
-    if d.warnings:
-        lines += ["", "Warnings:", *(f"- {w}" for w in d.warnings)]
-    lines += ["", SAFETY_NOTE]
-    wrapped: list[str] = []
-    for line in "\n".join(lines).splitlines():
-        while len(line) > 100:
-            wrapped.append(line[:100])
-            line = "    " + line[100:]
-        wrapped.append(line)
-    buf = io.BytesIO()
-    with PdfPages(buf, metadata={"Title": inputs.title or f"benchfit {network_label(d.kind)} design",
-                                 "Creator": "benchfit"}) as pdf:
-        for i in range(0, max(len(wrapped), 1), 90):
-            pdf.savefig(_text_page("Loop design report" + (" (continued)" if i else ""), wrapped[i:i + 90]))
-        for f in figures:
-            pdf.savefig(f.figure)
-    return buf.getvalue()
 
 
 def write_report(inputs: ReportInputs, path: str | os.PathLike, *, pdf_path: str | os.PathLike | None = None,

@@ -250,7 +250,30 @@ class Ringing:
     log_decrement: float
 
 
-def ringing(t: np.ndarray, dev: np.ndarray, hysteresis: float) -> Ringing:
+#: A lobe counts for the ringing figures only while its peak stands this many noise σ above
+#: the final level (the noise-floor lobes' crossings and peaks are mostly noise).  Common
+#: practice, no source.
+LOBE_SNR = 10.0
+
+
+def lobes_kept(peaks: list[float], noise: float) -> int:
+    """How many lobes, from the first, the ringing figures use: up to the first lobe whose
+    |peak| falls below :data:`LOBE_SNR` × ``noise`` (every lobe when ``noise`` is 0).
+
+    A crossing's time error is about σ/|slope| and a lobe peak's log error σ/|peak|, so the
+    last lobes near the noise floor carry little information and a biased one (their peaks
+    are maxima of noisy samples); stopping there keeps them out of the straight-line fits.
+    """
+    if not noise > 0:
+        return len(peaks)
+    for k, p in enumerate(peaks):
+        if abs(p) < LOBE_SNR * noise:
+            return k
+    return len(peaks)
+
+
+def ringing(t: np.ndarray, dev: np.ndarray, hysteresis: float, noise: float = 0.0,
+            raw: np.ndarray | None = None) -> Ringing:
     """Find lobes of ``dev`` (signal minus its final level) with a Schmitt trigger.
 
     A lobe is a stretch between two zero crossings whose peak exceeds
@@ -258,7 +281,12 @@ def ringing(t: np.ndarray, dev: np.ndarray, hysteresis: float) -> Ringing:
     sign change before the signal passes the opposite threshold.  The ringing
     frequency comes from a straight-line fit of crossing time against crossing
     number (half a period apart), the log decrement from a straight-line fit of
-    ln|peak| against lobe number (doubled: per full period).
+    ln|peak| against lobe number (doubled: per full period).  Only the lobes
+    :func:`lobes_kept` keeps (peaks above :data:`LOBE_SNR` × ``noise``) and the
+    crossings around them enter the fits, each crossing weighted by the amplitude of
+    the lobes beside it and each ln|peak| by |peak| (their errors scale as 1/amplitude).
+    With ``raw`` (the unsmoothed deviation) a lobe's peak is :func:`fitted_peak` of it
+    (polynomials on the raw samples), not the largest sample.
     """
     dev = np.asarray(dev, float)
     decisive = np.where(dev > hysteresis, 1, np.where(dev < -hysteresis, -1, 0))
@@ -283,18 +311,32 @@ def ringing(t: np.ndarray, dev: np.ndarray, hysteresis: float) -> Ringing:
     for a, b in zip(bounds[:-1], bounds[1:], strict=True):  # lobes closed on both sides
         seg = np.abs(dev[a:b])
         j = a + int(np.argmax(seg))
-        peaks.append(float(dev[j]))
-        ptimes.append(float(t[j]))
+        sign = 1.0 if dev[j] > 0 else -1.0
+        if raw is not None and b - a >= PEAK_MIN_SAMPLES:
+            pk = fitted_peak(t[a:b], sign * np.asarray(raw[a:b], float), sign * dev[a:b])
+            peaks.append(sign * pk.value)
+            ptimes.append(pk.time_s)
+        else:
+            peaks.append(float(dev[j]))
+            ptimes.append(float(t[j]))
+    keep = lobes_kept(peaks, noise)
+    # crossing k closes lobe k-1 and opens lobe k (lobe k lies between crossings k and k+1)
+    crossings_used = crossings[: keep + 1] if noise > 0 else crossings
+    amp = np.array([max(abs(peaks[k - 1]) if 0 < k <= len(peaks) else 0.0,
+                        abs(peaks[k]) if k < len(peaks) else 0.0) for k in range(len(crossings_used))])
     freq = float("nan")
-    if len(crossings) >= 3:  # at least one swing past the level and back: ringing, not one overshoot
+    if len(crossings_used) >= 3:  # at least one swing past the level and back: ringing, not one overshoot
         # The first crossing is the rise itself; a pure second-order response crosses at
         # equal spacing from it on, higher orders do not, so leave it out when there are enough.
-        use = crossings[1:] if len(crossings) >= 4 else crossings
-        half = np.polyfit(np.arange(len(use)), use, 1)[0]
+        first = 1 if len(crossings_used) >= 4 else 0
+        use, w = np.asarray(crossings_used[first:]), amp[first:]
+        w = w if np.all(w > 0) else None
+        half = np.polyfit(np.arange(len(use)), use, 1, w=w)[0]
         freq = float(1.0 / (2.0 * half)) if half > 0 else float("nan")
     dec = float("nan")
-    if len(peaks) >= 2:
-        slope = np.polyfit(np.arange(len(peaks)), np.log(np.abs(peaks)), 1)[0]
+    kp = np.asarray(peaks[:keep])
+    if kp.size >= 2:
+        slope = np.polyfit(np.arange(kp.size), np.log(np.abs(kp)), 1, w=np.abs(kp))[0]
         dec = float(-2.0 * slope)
     return Ringing(tuple(crossings), tuple(peaks), tuple(ptimes), freq, dec)
 

@@ -17,23 +17,23 @@ are lmfit's (covariance scaled by the reduced χ²), multiplied by
 √((1+ρ)/(1−ρ)) when the residuals' lag-1 autocorrelation ρ is positive (the
 AR(1) variance-inflation factor, a common approximation for correlated noise
 such as a band-limited scope front end).
+
+Here: the starting values, the fits (:func:`fit_step`, :func:`fit_load_step`)
+and loop mode (:func:`dominant_pair`, :func:`loop_with`).  The result object
+and the packaging of an lmfit outcome (statistics, the inflation above) are in
+:mod:`benchfit.steps.stepfit`, re-exported here.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
 from functools import lru_cache
-from typing import Any
 
 import lmfit
 import numpy as np
 
 from benchfit.errors import FitError, InputError
-from benchfit.fileio import as_float
 from benchfit.fitting.model import PlantModel
-from benchfit.fitting.result import Parameter
-from benchfit.provenance import Provenance
 from benchfit.steps.features import clipped_runs, difference_sigma, trace_arrays
 from benchfit.steps.loadstep import LoadStepMeasurement, measure_load_step
 from benchfit.steps.measure import StepMeasurement, measure_step
@@ -47,95 +47,9 @@ from benchfit.steps.models import (
     unit_second_order_slope,
     zeta_from_overshoot_pct,
 )
-from benchfit.steps.pm import MIN_RISE_SAMPLES
+from benchfit.steps.stepfit import ALL_MODELS, MAX_EVALUATIONS, MODELS, StepFit, package
 
-MODELS = ("second-order", "third-order", "loop")
-#: Every model a StepFit can hold (the load-step model is fitted by fit_load_step).
-ALL_MODELS = (*MODELS, "load-step")
-#: Most model evaluations one least-squares run may use.
-MAX_EVALUATIONS = 2000
-_UNITS = {"zeta": "", "fn_hz": "Hz", "fp_hz": "Hz", "initial_v": "V", "step_v": "V", "t0_s": "s",
-          "droop_v": "V", "resonant_v": "V",
-          "loop_gain": "", "pair_fn_hz": "Hz", "pair_zeta": ""}
-
-
-@dataclass(frozen=True, eq=False)
-class StepFit:
-    """A step model fitted to a trace.
-
-    Parameters
-    ----------
-    model
-        One of :data:`ALL_MODELS`.
-    parameters
-        Fitted parameters with one-sigma standard errors (zeta, fn_hz, initial_v,
-        step_v, t0_s; plus fp_hz, or loop_gain / pair_fn_hz / pair_zeta).
-    stats
-        ``rms_v`` (residual rms), ``noise_v`` (noise of the flat part),
-        ``rms_over_noise``, ``reduced_chi2``, ``points``, ``excluded_points``
-        (clipped), ``evaluations``, ``converged``, ``residual_lag1`` and
-        ``stderr_inflation``.
-    time_s, fitted_v
-        The fitted curve on the trace's time axis.
-    loop_model
-        The refined loop gain T (``"loop"`` model only).
-    warnings
-        What to be careful about.
-    provenance
-        Source and settings.
-    """
-
-    model: str
-    parameters: tuple[Parameter, ...]
-    stats: dict[str, Any]
-    time_s: np.ndarray
-    fitted_v: np.ndarray
-    loop_model: PlantModel | None = None
-    warnings: tuple[str, ...] = ()
-    provenance: Provenance = field(default_factory=lambda: Provenance(step="fit_step"))
-
-    def parameter(self, name: str) -> Parameter:
-        for p in self.parameters:
-            if p.name == name:
-                return p
-        raise KeyError(f"no parameter {name!r}; have {[p.name for p in self.parameters]}")
-
-    def value(self, name: str) -> float:
-        return self.parameter(name).value
-
-    def stderr(self, name: str) -> float:
-        return self.parameter(name).stderr
-
-    def to_dict(self, include_curve: bool = True) -> dict[str, Any]:
-        d = {
-            "kind": "step_fit",
-            "model": self.model,
-            "parameters": [p.to_dict() for p in self.parameters],
-            "stats": dict(self.stats),
-            "loop_model": self.loop_model.to_dict() if self.loop_model is not None else None,
-            "warnings": list(self.warnings),
-            "provenance": self.provenance.to_dict(),
-        }
-        if include_curve:
-            d["curve"] = {"time_s": self.time_s.tolist(), "fitted_v": self.fitted_v.tolist()}
-        return d
-
-    @classmethod
-    def from_dict(cls, d: dict[str, Any]) -> StepFit:
-        try:
-            curve = d.get("curve") or {"time_s": [], "fitted_v": []}
-            return cls(
-                model=str(d["model"]),
-                parameters=tuple(Parameter.from_dict(p) for p in d["parameters"]),
-                stats=dict(d.get("stats", {})),
-                time_s=np.asarray([as_float(v) for v in curve["time_s"]], float),
-                fitted_v=np.asarray([as_float(v) for v in curve["fitted_v"]], float),
-                loop_model=PlantModel.from_dict(d["loop_model"]) if d.get("loop_model") else None,
-                warnings=tuple(d.get("warnings", ())),
-                provenance=Provenance.from_dict(d.get("provenance")),
-            )
-        except KeyError as e:
-            raise InputError(f"step fit has no {e.args[0]!r}") from None
+__all__ = ["ALL_MODELS", "MODELS", "StepFit", "dominant_pair", "fit_load_step", "fit_step", "loop_with"]
 
 
 # ----- starting values -----------------------------------------------------------------
@@ -257,7 +171,7 @@ def fit_step(data, *, model: str = "second-order", channel: str | int | None = N
         out, fn, extra = _loop_fit(t, y, keep, sigma, m, loop)
     if not out.success and out.nfev == 0:
         raise FitError(f"step fit did not run: {out.message}")
-    return _package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source)
+    return package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source)
 
 
 def _weights(y, m, scale: float, exclude_clipped: bool) -> tuple[np.ndarray, float, list[str]]:
@@ -348,7 +262,7 @@ def fit_load_step(data, *, channel: str | int | None = None,
         r = _run(_ls, s, t, y, keep, sigma)
         if best is None or r.chisqr < best.chisqr:
             best = r
-    return _package("load-step", best, _ls, t, y, keep, sigma, m, warnings, {}, name, source)
+    return package("load-step", best, _ls, t, y, keep, sigma, m, warnings, {}, name, source)
 
 
 # ----- loop mode -----------------------------------------------------------------------
@@ -423,49 +337,3 @@ def _loop_fit(t, y, keep, sigma, m, loop):
     refined = loop_with(loop, v["loop_gain"], pair, v.get("pair_fn_hz"), v.get("pair_zeta"))
     notes = [] if pair is not None else ["the loop gain has no pole pair to refine; only its gain was fitted"]
     return out, fn, {"loop_model": refined, "notes": notes}
-
-
-# ----- statistics and packaging ----------------------------------------------------------
-def _package(model, out, fn, t, y, keep, sigma, m, warnings, extra, name, source) -> StepFit:
-    v = out.params.valuesdict()
-    curve = fn(t, v)
-    r = (y - curve)[keep]
-    rms = float(np.sqrt(np.mean(r * r)))
-    rho = float(np.corrcoef(r[:-1], r[1:])[0, 1]) if r.size > 3 and np.std(r) > 0 else 0.0
-    infl = math.sqrt((1.0 + rho) / (1.0 - rho)) if 0.0 < rho < 0.99 else (1.0 if rho <= 0 else 10.0)
-    warnings = list(warnings) + list(extra.get("notes", ()))
-    if not out.success or out.nfev >= MAX_EVALUATIONS:
-        warnings.append(f"the fit stopped after {out.nfev} evaluations without converging; "
-                        "the model may not describe this trace")
-    if not out.errorbars:
-        warnings.append("standard errors could not be estimated (singular fit); parameters may be "
-                        "poorly determined by this trace")
-    if rho > 0.3:
-        warnings.append(f"residuals are correlated (lag-1 {rho:.2f}): noise is band-limited or the model "
-                        f"misses something; standard errors widened by {infl:.2f}x")
-    if getattr(m, "rise_time_s", np.inf) < MIN_RISE_SAMPLES * m.sample_interval_s:
-        warnings.append(f"the step rises within {m.rise_time_s / m.sample_interval_s:.2g} samples: the "
-                        "record does not resolve its shape, so ζ and fn are not determined by it")
-    ratio = rms / m.noise_v if m.noise_v > 0 else float("nan")
-    if ratio > 1.5:
-        warnings.append(f"residual rms is {ratio:.2g}x the noise of the flat part: the {model} model does "
-                        "not describe the whole trace")
-    params = []
-    for p in out.params.values():
-        se = float(p.stderr) * infl if p.stderr is not None and np.isfinite(p.stderr) else float("nan")
-        params.append(Parameter(name=p.name, value=float(p.value), stderr=se, unit=_UNITS.get(p.name, "")))
-    if model == "loop" and "pair_zeta" in v and not 0 < v["pair_zeta"] < 50:
-        warnings.append("fitted pair ζ reached a bound")
-    stats = {
-        "rms_v": rms, "noise_v": float(m.noise_v), "rms_over_noise": ratio,
-        "reduced_chi2": float(out.redchi), "points": int(keep.sum()),
-        "excluded_points": int((~keep).sum()), "evaluations": int(out.nfev),
-        "converged": bool(out.success), "residual_lag1": rho, "stderr_inflation": infl,
-        "weight_sigma_v": float(sigma),
-    }
-    return StepFit(
-        model=model, parameters=tuple(params), stats=stats, time_s=t.copy(), fitted_v=curve,
-        loop_model=extra.get("loop_model"), warnings=tuple(warnings),
-        provenance=Provenance(step="fit_step", sources=(source,) if source else (),
-                              settings={"model": model, "channel": name}),
-    )

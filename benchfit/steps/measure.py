@@ -219,11 +219,11 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
         if smoother.width <= edge:
             break
         max_width = edge
-    t_s = float(step_time_s) if given else float(t[i_s])
     if pre_n < MIN_PRE_SAMPLES:
         warnings.append(f"only {pre_n} samples before the step: initial level from the first samples, "
                         "noise from sample-to-sample differences")
     rel_noise = noise * smoother.gain / abs(step)  # smoothed noise, fraction of the step
+    t_s = float(step_time_s) if given else step_instant(t, u, i_s, t10, rel_noise)
     i90 = int(np.searchsorted(t, t90)) if np.isfinite(t90) else n
     if not np.isfinite(t90) or i90 >= n - k_tail or (t[-1] - t_s) < 1.5 * (t90 - t_s):
         raise InputError(
@@ -259,7 +259,8 @@ def measure_step(data, *, channel: str | int | None = None, band: float = 0.02,
     t_set, settled = last_exit(t, u - 1.0, band_frac, i_s)
     if not settled:
         warnings.append(f"the output does not stay within ±{100 * band_frac:.3g} % before the record ends")
-    ring = ringing(t[i_s:], post - 1.0, max(floor, 1e-4))
+    ring = ringing(t[i_s:], post - 1.0, max(floor, 1e-4), noise=rel_noise,
+                   raw=(y[i_s:] - y0) / step - 1.0)
     zeta_dec = zeta_from_log_decrement(ring.log_decrement) if ring.log_decrement > 0 else float("nan")
 
     mask, levels = clipped_runs(y, ignore_levels=(y0, y1) if noise == 0 else ())
@@ -309,6 +310,46 @@ def _check_step(y0, y1, sigma, y, name, source):
         f"channel {name!r}: no step found; the start ({y0:.6g}) and end ({y1:.6g}) levels differ by "
         f"{abs(y1 - y0):.3g}, less than {MIN_STEP_SIGMAS:g}x the noise ({sigma:.3g}); expected a "
         "trace that steps from one level to another", source=source)
+
+
+#: The power-law start is read at three levels a factor STEP_LEVEL_RATIO apart, the lowest at
+#: max(4σ, 0.2 %) of the step (the threshold of :func:`_step_index`).
+STEP_LEVEL_RATIO = 4.0
+#: ... and the highest at most this fraction of the step (the leading power of the start holds
+#: best low down; a noisier record gets a smaller ratio, at least 1.5).
+STEP_TOP_LEVEL = 0.08
+
+
+def step_instant(t: np.ndarray, u: np.ndarray, i_s: int, t10: float, rel_noise: float) -> float:
+    """The step instant, extrapolated back from how the output leaves its initial level.
+
+    Any linear response starts as a power of the time since the step, u ≈ c·(t − t0)^r
+    (r the relative degree: 1 for a single pole, 2 for a second-order step).  Its
+    crossings t1, t2, t3 of three levels L, qL, q²L (q = :data:`STEP_LEVEL_RATIO`, L =
+    max(4σ, 0.2 %) of the step, all below 10 %) then satisfy (t2 − t0)/(t1 − t0) =
+    (t3 − t0)/(t2 − t0), so t0 = (t1·t3 − t2²)/(t1 + t3 − 2·t2) whatever c and r are
+    (q is lowered so that q²L stays within :data:`STEP_TOP_LEVEL`).
+    Evidence weighed: the three crossings of the smoothed output; the estimate is kept
+    when the crossings are distinct and below the 10 % crossing and t0 lies inside the
+    record no further before t1 than t3 − t1; otherwise
+    the last quiet sample ``t[i_s]`` (the older, late-by-a-few-samples reading) is returned.
+    """
+    fallback = float(t[i_s])
+    lo = max(4.0 * rel_noise, 2e-3)
+    q = min(STEP_LEVEL_RATIO, math.sqrt(STEP_TOP_LEVEL / lo))  # the top level stays at 8 % or below
+    if q < 1.5:
+        return fallback
+    levels = [lo, lo * q, lo * q * q]
+    t1, t2, t3 = (first_crossing(t, u, lv, i_s) for lv in levels)
+    if not (np.isfinite([t1, t2, t3]).all() and t1 < t2 < t3 <= t10):
+        return fallback
+    den = t1 + t3 - 2.0 * t2
+    if not den > 0:   # not a power law with r >= 1 (e.g. a noise-driven or concave start)
+        return fallback
+    t0 = (t1 * t3 - t2 * t2) / den
+    if not (max(float(t[0]), t1 - (t3 - t1)) <= t0 <= t1):   # a start no slower than (t − t0)^4
+        return fallback
+    return float(t0)
 
 
 def _step_index(u: np.ndarray, rel_noise: float) -> int:

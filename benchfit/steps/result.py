@@ -12,10 +12,10 @@ from benchfit.errors import InputError
 from benchfit.fileio import read_json, write_json_atomic
 from benchfit.provenance import Provenance
 from benchfit.steps.compare import Comparison
-from benchfit.steps.fit import StepFit
 from benchfit.steps.loadstep import LoadStepMeasurement
 from benchfit.steps.measure import StepMeasurement
 from benchfit.steps.pm import RULE_OF_THUMB_NOTE, PhaseMarginEstimate
+from benchfit.steps.stepfit import StepFit
 
 MODES = ("step", "load_step")
 _NAN = float("nan")
