@@ -1,4 +1,4 @@
-"""Findings of the tester session (2026-12-03) on main, written as checks that fail today.
+"""Findings of the tester session (2026-12-03), kept as checks against python-control (they failed on main before the fixes).
 
 Each check compares benchfit's margins of a sampled loop with python-control 0.10
 (``stability_margins`` and ``feedback`` poles on the true transfer function).
