@@ -19,7 +19,7 @@ from benchfit.data.response import FrequencyResponse
 from benchfit.errors import FitError, InputError
 from benchfit.fitting.order import Context
 from benchfit.fitting.parameters import TWO_PI, Structure
-from benchfit.fitting.refine import Refined, refine
+from benchfit.fitting.refine import Refined, objective, refine
 from benchfit.fitting.weights import PointSigma, point_sigma, scatter_sigma, vf_weight
 
 #: Orders and delays are scanned, and hypotheses compared, on at most this many points
@@ -118,6 +118,33 @@ class Problem:
         return refine(st, values, s, self.h[sel], self.sigma.mag[sel], self.sigma.phase[sel],
                       fix=fix, weighting=self.weighting,
                       sig_abs=None if self.sig_abs is None else self.sig_abs[sel])
+
+    def linearised(self, idx: np.ndarray | None = None) -> Callable[[Structure, np.ndarray], float]:
+        """``(structure, values) -> χ²``: the χ² on the points ``idx`` (all when None)
+        after one Gauss–Newton step from ``values``, the varied parameters moved to
+        the least-squares optimum of the residual linearised there (bounds not
+        applied); one evaluation of the residual and its Jacobian, nothing refined."""
+        s = 1j * TWO_PI * self.f
+        sel = slice(None) if idx is None else idx
+        sig_abs = None if self.sig_abs is None else self.sig_abs[sel]
+
+        def run(st: Structure, values: np.ndarray) -> float:
+            ob = objective(st, values, s[sel], self.h[sel], self.sigma.mag[sel],
+                           self.sigma.phase[sel], fix=self.fixed, weighting=self.weighting,
+                           sig_abs=sig_abs)
+            x = ob.v0[ob.var_idx]
+            r = ob.residual(x)
+            j = ob.jacobian(x)
+            if not (np.all(np.isfinite(r)) and np.all(np.isfinite(j))):
+                return float("nan")
+            # column scaling keeps the least-squares solve accurate (Hz beside Q)
+            norm = np.linalg.norm(j, axis=0)
+            norm[norm == 0] = 1.0
+            step = np.linalg.lstsq(j / norm, -r, rcond=None)[0]
+            rest = r + (j / norm) @ step
+            return float(rest @ rest)
+
+        return run
 
     def refiner(self, idx: np.ndarray | None = None, causal: bool = False) -> Refiner:
         """``(structure, values, max_nfev=200) -> Refined`` on the points ``idx`` (all when
