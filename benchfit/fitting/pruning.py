@@ -181,7 +181,13 @@ def hopeless(kept: Refined, predicted_chisqr: float, n_params: int, n_res: int) 
     was 14 % above scipy's refined optimum (tests/test_fit_refine_stops.py).  A
     trial is skipped only when the guess is over ten times the bar, so a guess
     wrong by less than that factor skips no trial that could pass.  NaN (a
-    start that does not evaluate) is not hopeless.
+    start that does not evaluate) is not hopeless.  Only the trials of groups
+    above the band ask it (:func:`prune_loose`): there a group's log response
+    is nearly linear in its inverse frequency.  A group the data cannot locate,
+    or one of a cancelling pair, can leave the others to move far: order 3 on
+    the two-pole plant of tests/test_fit_model_choice.py put a zero at 25 Hz
+    (σ 48 Hz) beside a pole; the guess for dropping it was over ten bars,
+    the refined trial passed with the pole moved to 3.6e11 Hz.
     """
     if not (np.isfinite(kept.redchi) and kept.redchi > 0 and np.isfinite(predicted_chisqr)):
         return False
@@ -221,7 +227,7 @@ def drop_unneeded(st: Structure, ref: Refined, refit, n_res: int, candidates, wa
 
 
 def prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: np.ndarray,
-                      sigma: PointSigma, predict=None) -> tuple[Structure, Refined, int]:
+                      sigma: PointSigma) -> tuple[Structure, Refined, int]:
     """Drop pole/zero groups that nearly cancel when the data do not need them.
 
     Inside the band such a pair (often with Q in the hundreds) fits a noise
@@ -238,11 +244,11 @@ def prune_cancelling(st: Structure, ref: Refined, refit, n_res: int, freq_hz: np
                 or below_noise(st_, ref_.values, drop, freq_hz, sigma))
 
     return drop_unneeded(st, ref, refit, n_res, lambda st_, ref_: cancelling(st_, ref_.values),
-                          waive, predict)
+                          waive)
 
 
 def prune_unidentified(st: Structure, ref: Refined, refit, n_res: int, poles: bool = True,
-                       zeros: bool = True, predict=None) -> tuple[Structure, Refined, int]:
+                       zeros: bool = True) -> tuple[Structure, Refined, int]:
     """Drop pole or zero groups the data cannot locate (σ above the value), one at a
     time, by the ln N rule of :func:`prune_above`.
 
@@ -254,8 +260,7 @@ def prune_unidentified(st: Structure, ref: Refined, refit, n_res: int, poles: bo
         return zeros if g.startswith("zero") else poles
 
     return drop_unneeded(st, ref, refit, n_res,
-                         lambda st_, ref_: [[g] for g in unidentified(st_, ref_) if kind_ok(g)],
-                         predict=predict)
+                         lambda st_, ref_: [[g] for g in unidentified(st_, ref_) if kind_ok(g)])
 
 
 def loose_above(st: Structure, ref: Refined, f_max: float, poles: bool = True,
@@ -289,7 +294,8 @@ def prune_loose(st: Structure, ref: Refined, refit, f_max: float, n_res: int, po
     parameters) passed only together.  A group alone is tried only when loosely
     located: one located to better than :data:`~benchfit.fitting.assemble.LOOSE`
     of its value has a linearised drop cost, (f/σ)², over 25, four times the drop
-    test's bar (ln N at N = 400 residuals), and stays.
+    test's bar (ln N at N = 400 residuals), and stays.  ``predict``: as for
+    :func:`drop_unneeded`, a trial :func:`hopeless` rules out is not refined.
     """
     def candidates(st_: Structure, ref_: Refined) -> list[list[str]]:
         every = [g for g, _ in groups_above(st_, ref_.values, f_max, poles=poles, zeros=zeros)]
@@ -345,12 +351,12 @@ def pruned(pb: Problem, hyp_st: Structure, ref: Refined, notes: list[str], idx: 
                          "do not need")
     if may["cancelling"]:
         # The point spacing that matters is the full sweep's, not the thinned copy's.
-        st, ref, n_cancel = prune_cancelling(st, ref, trial, n_res, f, pb.sigma, predict)
+        st, ref, n_cancel = prune_cancelling(st, ref, trial, n_res, f, pb.sigma)
         if n_cancel:
             notes.append(cancel_note(n_cancel))
             n_drop += n_cancel
     if kinds["poles"] or kinds["zeros"]:
-        st, ref, n_vague = prune_unidentified(st, ref, trial, n_res, predict=predict, **kinds)
+        st, ref, n_vague = prune_unidentified(st, ref, trial, n_res, **kinds)
         if n_vague:
             notes.append(f"dropped {n_vague} pole or zero group(s) whose frequency the data "
                          "could not pin (σ above the value) and do not need")
