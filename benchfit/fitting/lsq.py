@@ -127,7 +127,8 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
         ``settle(cost)``: a further stop, the decrease of the cost ½‖f‖² below
         which a step that went well (ratio of actual to predicted decrease
         over 0.25, as for ``ftol``) ends the search, given the cost before the
-        step; it stops with status 5 at the point the step reached.
+        step; it stops with status 5 at the point the step reached, or where
+        it is, before a step, when the whole cost is below the threshold.
     """
     x = np.array(x0, dtype=float)
     f = fun(x) if f0 is None else np.asarray(f0, dtype=float)
@@ -144,6 +145,8 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
     while True:
         if np.max(np.abs(g), initial=0.0) < gtol:
             status = 1
+        elif settle is not None and cost < settle(cost):
+            status = 5  # no step could lower the cost by the caller's threshold
         if status is not None or nfev >= max_nfev:
             break
         d = 1.0 / scale_inv

@@ -27,7 +27,7 @@ from benchfit.fitting.groups import (
 from benchfit.fitting.parameters import TWO_PI, Structure
 from benchfit.fitting.problem import Problem
 from benchfit.fitting.refine import Refined
-from benchfit.fitting.selection import above_band_trials, drop_allowed, prunable
+from benchfit.fitting.selection import above_band_trials, drop_allowed, noise_scale, prunable
 from benchfit.fitting.weights import PointSigma
 
 #: Evaluations a pruning trial gets: a group the data do not need leaves the rest
@@ -43,7 +43,7 @@ def trial(refit, st: Structure, values: np.ndarray, ref: Refined, bar: float) ->
     it stopped at the cap within twice the ``bar`` (χ² rise in units of the reduced
     χ² of ``ref``) of passing."""
     ref2 = refit(st, values, max_nfev=TRIAL_NFEV)
-    if not ref2.success and (ref2.chisqr - ref.chisqr) / ref.redchi <= 2.0 * bar:
+    if not ref2.success and (ref2.chisqr - ref.chisqr) / noise_scale(ref) <= 2.0 * bar:
         ref2 = refit(st, ref2.values, max_nfev=TRIAL_NFEV)
     return ref2
 
@@ -172,7 +172,8 @@ def hopeless(kept: Refined, predicted_chisqr: float, n_params: int, n_res: int) 
     Gauss–Newton step from its start (the kept model's values without the
     dropped groups; :meth:`benchfit.fitting.problem.Problem.linearised`),
     against the bar of :func:`~benchfit.fitting.selection.ic_allows` (ln N per
-    parameter removed, in units of ``kept``'s reduced χ²) raised
+    parameter removed, in units of ``kept``'s noise scale,
+    :func:`~benchfit.fitting.selection.noise_scale`) raised
     :data:`HOPELESS` times.  The linearised step is a guess of the trial's
     outcome, not a bound: on the trials of ``benchmarks/fit_vs_reference.py``'s
     fixed-order cases (2026-12-03) it matched the refined trial to 2 % where the
@@ -189,9 +190,9 @@ def hopeless(kept: Refined, predicted_chisqr: float, n_params: int, n_res: int) 
     (σ 48 Hz) beside a pole; the guess for dropping it was over ten bars,
     the refined trial passed with the pole moved to 3.6e11 Hz.
     """
-    if not (np.isfinite(kept.redchi) and kept.redchi > 0 and np.isfinite(predicted_chisqr)):
+    if not (np.isfinite(kept.redchi) and np.isfinite(predicted_chisqr)):
         return False
-    rise = (predicted_chisqr - kept.chisqr) / kept.redchi
+    rise = (predicted_chisqr - kept.chisqr) / noise_scale(kept)
     return bool(rise > HOPELESS * np.log(n_res) * n_params)
 
 
