@@ -132,19 +132,33 @@ def redchi_allows(kept: Refined, dropped: Refined) -> bool:
     return bool(dropped.redchi <= max(kept.redchi, CHI_OK ** 2) * (1.0 + REDCHI_RISE))
 
 
+def noise_scale(kept: Refined) -> float:
+    """The unit a χ² difference between ``kept`` and a model nested in it is measured in:
+    ``kept``'s reduced χ² (its noise scale), floored at NEGLIGIBLE²
+    (:data:`~benchfit.fitting.order.NEGLIGIBLE`), where :func:`bic` counts fits as
+    equally exact.
+
+    Without the floor a noiseless fit (the 8-pole benchmark plant, σ floored at
+    1e-10, reduced χ² 2.5e-13 at its vector-fitting start) measured differences
+    at rounding level against a bar of ln N, and which nested model won
+    depended on how far each refinement had chased rounding.
+    """
+    return max(float(kept.redchi), NEGLIGIBLE ** 2)
+
+
 def ic_allows(kept: Refined, dropped: Refined, n_params: int, n_res: int) -> bool:
     """True when the information criterion prefers (or ties) the smaller model.
 
     Evidence weighed: the rise of χ², in units of the kept model's reduced χ²
-    (its noise scale), against Schwarz's penalty ln N per parameter removed
+    (its noise scale, :func:`noise_scale`), against Schwarz's penalty ln N per parameter removed
     (G. Schwarz, Ann. Statist. 6(2), 1978): the smaller model's BIC is not
     higher.  Above the band a zero's phase, −ω/ω_z, is a delay's phase, so a
     plain 95 % likelihood-ratio test (3.8 per parameter) let noise buy a
     spurious zero that stole part of the delay and shrank its error bar.
     """
-    if not (np.isfinite(kept.redchi) and kept.redchi > 0 and np.isfinite(dropped.chisqr)):
+    if not (np.isfinite(kept.redchi) and np.isfinite(dropped.chisqr)):
         return False
-    return bool((dropped.chisqr - kept.chisqr) / kept.redchi <= np.log(n_res) * n_params)
+    return bool((dropped.chisqr - kept.chisqr) / noise_scale(kept) <= np.log(n_res) * n_params)
 
 
 def drop_allowed(kept: Refined, dropped: Refined, n_params: int, n_res: int,
