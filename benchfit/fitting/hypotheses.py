@@ -263,10 +263,6 @@ def race(pb: Problem, cands: list[Attempt]) -> tuple[Hypothesis, bool]:
     starts.sort(key=lambda o: bic(o.ref, n_sub))
     outcomes: list[Hypothesis] = []
     for hyp in starts:
-        if outcomes and not hyp.ref.success:
-            # A capped start has no floor yet (bic_floor): refined on, it usually gets
-            # one, and is set aside without its pruning (most of its cost).
-            hyp = hyp._replace(ref=refit_sub(hyp.st, hyp.ref.values, max_nfev=START_NFEV))
         if outcomes and bic_floor(hyp.st, hyp.ref, f[-1], n_sub, pb.may_add_delay) > min(
                 bic(o.ref, n_sub) for o in outcomes) + CLOSE_CALL:
             continue
