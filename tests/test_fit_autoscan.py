@@ -104,3 +104,48 @@ def test_prune_above_skips_hopeless_drops_and_chooses_the_same():
     assert z == pytest.approx(200e3, rel=0.05)
     # ... and its drop trial, hopeless by one Gauss-Newton step, was not refined
     assert n_full >= 1 and len(calls) < n_full
+
+
+def _scan_ctx(resp):
+    return prepare(resp, "auto", "auto", None, None, "relative", 0, None).ctx.subsample(SCAN_POINTS)
+
+
+def test_polish_ruled_out_only_where_no_delay_in_its_span_reaches_the_floor():
+    from benchfit.fitting.delay import finer_delay_may_reach_floor, refine_delay, search_delay
+    from benchfit.fitting.order import attempt, choose_order
+    from benchfit.fitting.synthetic import converter_plant
+
+    # The noisy 8-pole benchmark plant (no delay; its right-half-plane zero fakes one) at
+    # order 6, two poles short: the coarse delay search leaves it at 1.56, the rule rules
+    # the polish out, and the finest search over the same span indeed stays above the floor.
+    r = sweep(converter_plant(), noise_db=0.1, noise_deg=0.5, rng=np.random.default_rng(0))
+    ctx = _scan_ctx(r)
+    _, scan = choose_order(ctx, 0.0, n_min=1, n_max=6, scan_all=True)
+    a = search_delay(ctx, 6, 0.0, 1.3e-7, scan[-1].vf.poles, level="coarse", grid=7)
+    assert CHI_OK < a.chi and not finer_delay_may_reach_floor(ctx, a)
+    assert refine_delay(ctx, a, level="fine").chi > CHI_OK
+    # The buck plant with little noise, at its order with the delay 20 % off its 300 ns:
+    # the rule lets the polish run, and the polish reaches the floor near the truth.
+    m = from_factors(8.0, **BUCK)
+    r = sweep(m, np.geomspace(20.0, 500e3, 601), noise_db=0.01, noise_deg=0.05,
+              rng=np.random.default_rng(0))
+    ctx = _scan_ctx(r)
+    a = attempt(ctx, 3, 360e-9, max_iter=6, tol=1e-4)
+    assert CHI_OK < a.chi and finer_delay_may_reach_floor(ctx, a)
+    b = refine_delay(ctx, a, level="polish")
+    assert b.chi <= CHI_OK and abs(b.tau_s - 300e-9) < abs(a.tau_s - 300e-9)
+
+
+def test_exact_one_lower_finds_the_generating_order_on_noiseless_data():
+    from benchfit.fitting.delay import exact_one_lower
+    from benchfit.fitting.order import attempt, exact
+    from benchfit.fitting.synthetic import converter_plant
+
+    # The noiseless 8-pole benchmark plant (no delay): an exact fit at order 9 steps down
+    # to an exact one at order 8, the generating model's, and no further.
+    ctx = _scan_ctx(sweep(converter_plant()))
+    a9 = attempt(ctx, 9, 0.0)
+    assert exact(a9)
+    a8 = exact_one_lower(ctx, a9, None)
+    assert a8 is not None and a8.order == 8 and exact(a8)
+    assert exact_one_lower(ctx, a8, None) is None
