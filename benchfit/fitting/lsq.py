@@ -27,6 +27,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from math import sqrt
 
 import numpy as np
 from scipy import optimize
@@ -44,7 +45,8 @@ class LsqOutcome:
     jac: np.ndarray
     nfev: int
     status: int  # 0: evaluation cap; 1: gtol; 2: ftol; 3: xtol; 4: ftol and xtol;
-    #             -3: a step would have left the box (x is the last point inside)
+    #             5: the caller's ``settle`` threshold; -3: a step would have left the box
+    #             (x is the last point inside)
     message: str
 
 
@@ -53,7 +55,8 @@ _MESSAGES = {-3: "A step would have left the bounds; stopped at the last point i
              1: "`gtol` termination condition is satisfied.",
              2: "`ftol` termination condition is satisfied.",
              3: "`xtol` termination condition is satisfied.",
-             4: "Both `ftol` and `xtol` termination conditions are satisfied."}
+             4: "Both `ftol` and `xtol` termination conditions are satisfied.",
+             5: "The cost decrease of a step is below the caller's `settle` threshold."}
 
 
 def _r_factor(a: np.ndarray) -> np.ndarray:
@@ -65,22 +68,34 @@ def _r_factor(a: np.ndarray) -> np.ndarray:
     return np.triu(qr[:n, :n])
 
 
+def _norm(x: np.ndarray) -> float:
+    """Euclidean norm of a vector (``np.linalg.norm`` without its dispatch: it is called
+    tens of times per iteration here)."""
+    return sqrt(float(x @ x))
+
+
 def _subproblem(suf: np.ndarray, s2: np.ndarray, v: np.ndarray, delta: float, alpha: float,
                 full_rank: bool) -> tuple[np.ndarray, float]:
     """Step of length ≤ ``delta`` minimising the quadratic model (scipy's
     ``solve_lsq_trust_region`` written with S² and S·Uᵀr = ``suf``)."""
     if full_rank:
         p = -v @ (suf / s2)
-        if np.linalg.norm(p) <= delta:
+        if _norm(p) <= delta:
             return p, 0.0
+    suf2 = suf * suf
 
     def phi(a: float) -> tuple[float, float]:
-        denom = s2 + a
-        p_norm = np.linalg.norm(suf / denom)
-        return p_norm - delta, -float(np.sum(suf ** 2 / denom ** 3)) / p_norm
+        inv = 1.0 / (s2 + a)
+        w = suf2 * inv * inv
+        p_norm = sqrt(float(w.sum()))
+        return p_norm - delta, -float(w @ inv) / p_norm
 
-    alpha_upper = np.linalg.norm(suf) / delta
-    alpha_lower = -phi(0.0)[0] / phi(0.0)[1] if full_rank else 0.0
+    alpha_upper = _norm(suf) / delta
+    if full_rank:
+        ph0, dph0 = phi(0.0)
+        alpha_lower = -ph0 / dph0
+    else:
+        alpha_lower = 0.0
     if not full_rank and alpha == 0.0:
         alpha = max(0.001 * alpha_upper, (alpha_lower * alpha_upper) ** 0.5)
     for _ in range(10):
@@ -95,14 +110,15 @@ def _subproblem(suf: np.ndarray, s2: np.ndarray, v: np.ndarray, delta: float, al
         if abs(ph) < 0.01 * delta:
             break
     p = -v @ (suf / (s2 + alpha))
-    return p * (delta / np.linalg.norm(p)), alpha
+    return p * (delta / _norm(p)), alpha
 
 
 def trust_region(fun: Callable[[np.ndarray], np.ndarray],
                  jac: Callable[[np.ndarray], np.ndarray], x0: np.ndarray, *,
                  max_nfev: int, f0: np.ndarray | None = None, ftol: float = 1e-9,
                  xtol: float = 1e-9, gtol: float = 1e-10,
-                 box: tuple[np.ndarray, np.ndarray] | None = None) -> LsqOutcome:
+                 box: tuple[np.ndarray, np.ndarray] | None = None,
+                 settle: Callable[[float], float] | None = None) -> LsqOutcome:
     """Minimise ½‖fun(x)‖² from ``x0`` (no bounds), as scipy's TRF with ``x_scale="jac"``.
 
     Parameters
@@ -120,6 +136,12 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
         scipy's stopping tests: relative reduction of the cost under ``ftol``
         on a step that went well, a step under ``xtol`` relative to x, the
         gradient's largest component under ``gtol``.
+    settle
+        ``settle(cost)``: a further stop, the decrease of the cost ½‖f‖² below
+        which a step that went well (ratio of actual to predicted decrease
+        over 0.25, as for ``ftol``) ends the search, given the cost before the
+        step; it stops with status 5 at the point the step reached, or where
+        it is, before a step, when the whole cost is below the threshold.
     """
     x = np.array(x0, dtype=float)
     f = fun(x) if f0 is None else np.asarray(f0, dtype=float)
@@ -130,12 +152,14 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
     g = j.T @ f
     scale_inv = np.sqrt(np.einsum("ij,ij->j", j, j))
     scale_inv[scale_inv == 0] = 1.0
-    delta = float(np.linalg.norm(x * scale_inv)) or 1.0
+    delta = _norm(x * scale_inv) or 1.0
     alpha = 0.0
     status = None
     while True:
         if np.max(np.abs(g), initial=0.0) < gtol:
             status = 1
+        elif settle is not None and cost < settle(cost):
+            status = 5  # no step could lower the cost by the caller's threshold
         if status is not None or nfev >= max_nfev:
             break
         d = 1.0 / scale_inv
@@ -155,7 +179,7 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
             x_new = x + step
             f_new = fun(x_new)
             nfev += 1
-            step_h_norm = float(np.linalg.norm(step_h))
+            step_h_norm = _norm(step_h)
             if not np.all(np.isfinite(f_new)):
                 delta = 0.25 * step_h_norm
                 continue
@@ -171,9 +195,12 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
             elif ratio > 0.75 and step_h_norm > 0.95 * delta:
                 delta_new = 2.0 * delta
             ftol_ok = reduction < ftol * cost and ratio > 0.25
-            xtol_ok = np.linalg.norm(step) < xtol * (xtol + np.linalg.norm(x))
+            xtol_ok = _norm(step) < xtol * (xtol + _norm(x))
             if ftol_ok or xtol_ok:
                 status = 4 if ftol_ok and xtol_ok else 2 if ftol_ok else 3
+                break
+            if settle is not None and ratio > 0.25 and 0 < reduction < settle(cost):
+                status = 5
                 break
             alpha *= delta / delta_new
             delta = delta_new
@@ -212,7 +239,8 @@ def least_squares(fun: Callable[[np.ndarray], np.ndarray],
                   jac: Callable[[np.ndarray], np.ndarray], x0: np.ndarray,
                   lower: np.ndarray, upper: np.ndarray, *, max_nfev: int,
                   f0: np.ndarray | None = None, ftol: float = 1e-9, xtol: float = 1e-9,
-                  gtol: float = 1e-10) -> LsqOutcome:
+                  gtol: float = 1e-10, settle: Callable[[float], float] | None = None
+                  ) -> LsqOutcome:
     """Minimise ½‖fun(x)‖² within ``lower``..``upper`` (±inf: no bound), from ``x0`` inside.
 
     Without finite bounds this is :func:`trust_region`.  With them, the
@@ -229,10 +257,14 @@ def least_squares(fun: Callable[[np.ndarray], np.ndarray],
     lower, upper = np.asarray(lower, dtype=float), np.asarray(upper, dtype=float)
     bounded = bool(np.any(np.isfinite(lower)) or np.any(np.isfinite(upper)))
     free = trust_region(fun, jac, x0, max_nfev=max_nfev, f0=f0, ftol=ftol, xtol=xtol, gtol=gtol,
-                        box=(lower, upper) if bounded else None)
+                        box=(lower, upper) if bounded else None, settle=settle)
     if not bounded or inactive_bounds(free, lower, upper) or (
             free.status == 0 and free.nfev >= max_nfev):
         return free
+    if settle is not None:
+        # scipy's ftol is relative to the cost: the threshold at the point handed over
+        cost = 0.5 * float(free.fun @ free.fun)
+        ftol = min(max(ftol, settle(cost) / cost), 0.1) if cost > 0 else ftol
     out = optimize.least_squares(fun, free.x, jac=jac, bounds=(lower, upper), method="trf",
                                  x_scale="jac", ftol=ftol, xtol=xtol, gtol=gtol,
                                  max_nfev=max(max_nfev - free.nfev, max_nfev // 2))
