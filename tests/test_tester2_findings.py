@@ -193,3 +193,32 @@ def test_report_headline_order_with_an_integrator():
     head = res.report().splitlines()[0]
     m = re.search(r"order (\d+) \(\+1 integrator\)", head)
     assert m and int(m.group(1)) == 3, head
+
+
+# --- options that ask for two things (fixed in cli/cmd_fit.py)
+
+@pytest.mark.parametrize(("argv", "option", "words"), [
+    # docs/fitting.md: "--delay none gives no delay, whatever the phase says"; main fitted a
+    # 1 µs fixed delay (--fix) or a 403 ns free one (--bound) and exited 0
+    (["--delay", "none", "--fix", "delay_s=1u"], "--delay", "--fix delay_s"),
+    (["--delay", "none", "--bound", "delay_s=0:1u"], "--delay", "--bound delay_s"),
+    (["--delay", "400n", "--fix", "delay_s=1u"], "--delay", "--fix delay_s"),
+    # main kept the last of two --fix gain (6), and faked the measured gain 5 with a
+    # pole/zero doublet at 0.03 Hz
+    (["--fix", "gain=5", "--fix", "gain=6"], "--fix", "given twice"),
+    (["--bound", "gain=1:2", "--bound", "gain=3:4"], "--bound", "given twice"),
+    (["--fix", "gain=5", "--bound", "gain=4:6"], "--bound", "both fixed"),
+])
+def test_fit_options_that_contradict_are_one_line_errors(tmp_path, capsys, argv, option, words):
+    # Project rule (docs/errors.md, issue 14 item 2): an option that cannot be honoured is an
+    # error naming the option, exit 2.  Data: 5/((1+s/ω2k)(1+s/ω150k)) (scipy.signal.freqs_zpk).
+    from benchfit.cli import main
+
+    f = np.logspace(1, 5, 60)
+    _, h = signal.freqs_zpk([], [-_w(2e3), -_w(150e3)], 5 * _w(2e3) * _w(150e3), worN=_w(f))
+    p = tmp_path / "a.csv"
+    p.write_text("freq_hz,gain_db,phase_deg\n" + "".join(
+        f"{a:.10g},{20 * np.log10(abs(b)):.6f},{np.degrees(np.angle(b)):.5f}\n" for a, b in zip(f, h, strict=True)))
+    assert main(["fit", str(p), *argv]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith(f"benchfit: error: {option}:") and words in err[0], err
