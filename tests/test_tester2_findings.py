@@ -222,3 +222,26 @@ def test_fit_options_that_contradict_are_one_line_errors(tmp_path, capsys, argv,
     assert main(["fit", str(p), *argv]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith(f"benchfit: error: {option}:") and words in err[0], err
+
+
+@pytest.mark.xfail(strict=True, reason="fitting: fix={'pole1_hz': 0} (a pole at the origin) "
+                   "gives a NaN residual, reduced chi2 1e12 and 'nan× the noise floor', exit 0")
+def test_a_pole_fixed_at_zero_hz_is_refused_or_fitted():
+    # Project rule (docs/errors.md): a user error is one clear line naming the option.  A pole
+    # at 0 Hz is an integrator (docs/fitting.md: --integrators); the data, 5/((1+s/ω2k)
+    # (1+s/ω150k)) by scipy.signal.freqs_zpk, have none.  Either an InputError naming the
+    # parameter, or a fit whose residual is a number.
+    from benchfit.errors import InputError
+
+    f = np.logspace(1, 5, 101)
+    _, h = signal.freqs_zpk([], [-_w(2e3), -_w(150e3)], 5 * _w(2e3) * _w(150e3), worN=_w(f))
+    resp = FrequencyResponse(freq_hz=f, response=h)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = fit(resp, order=2, fix={"pole1_hz": 0.0})
+    except InputError as e:
+        assert "pole1_hz" in str(e)
+        return
+    assert math.isfinite(res.stats["reduced_chi2"]) and res.stats["reduced_chi2"] < 1e6
+    assert math.isfinite(res.rms_db)
