@@ -68,3 +68,17 @@ def test_modulus_gaps_take_the_phase_gaps_and_a_hole_beside_the_minimum():
     even = np.linspace(0.0, 1.0, 8)
     assert modulus_gaps(even, 3, np.array([], dtype=int)).tolist() == []
     assert HOLE_STEP_RATIO > 2.0
+
+
+def test_modulus_gaps_leave_out_phase_gaps_too_deep_to_matter():
+    from benchfit.loop.sweeprules import HIDDEN_PEAK_DB
+
+    x = np.log10(np.arange(1.0, 9.0))
+    db = np.array([10.0, 0.0, -22.0, -38.0, -50.0, -55.0, -56.0, -60.0])
+    gaps = np.array([2, 5])
+    # at -22 dB a hidden peak can reach -1 (python-control: min |1+T| 0.733 in such a gap);
+    # at -55 dB even a 30 dB peak leaves |1+T| >= 0.94, above a sampled minimum of 0.05
+    assert modulus_gaps(x, 0, gaps, db, 0.05).tolist() == [2]
+    assert modulus_gaps(x, 0, gaps, db, 0.95).tolist() == [2, 5]
+    assert modulus_gaps(x, 0, gaps).tolist() == [2, 5]
+    assert 20.0 <= HIDDEN_PEAK_DB <= 40.0

@@ -332,7 +332,7 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
                         "the modulus margin there is an upper bound")
     mod_gap_hz: tuple[tuple[float, float], ...] = ()
     if data:
-        mod_gap_hz = tuple((float(f[g]), float(f[g + 1])) for g in modulus_gaps(x, j, hidden))
+        mod_gap_hz = tuple((float(f[g]), float(f[g + 1])) for g in modulus_gaps(x, j, hidden, db, mm))
         if mod_gap_hz:
             lo, hi = mod_gap_hz[0]
             warnings.append(f"|1+T| may dip below its smallest sampled value ({mm:.3g} at "

@@ -100,7 +100,13 @@ def phase_gaps(db: np.ndarray, phase_step_deg: np.ndarray) -> np.ndarray:
 HOLE_STEP_RATIO = 4.0
 
 
-def modulus_gaps(log_f: np.ndarray, j_min: int, phase_gap_idx: np.ndarray) -> np.ndarray:
+#: A resonance hidden between two points may rise this far above the louder of them (our own
+#: figure: a pole pair of Q 30 peaks about 30 dB above its asymptotes).
+HIDDEN_PEAK_DB = 30.0
+
+
+def modulus_gaps(log_f: np.ndarray, j_min: int, phase_gap_idx: np.ndarray,
+                 db: np.ndarray | None = None, r_min: float = 0.0) -> np.ndarray:
     """Indices i where |1 + T| may dip below its smallest sampled value unseen, between
     points i and i+1 of a sweep (so the modulus margin found is only an upper bound).
 
@@ -116,8 +122,18 @@ def modulus_gaps(log_f: np.ndarray, j_min: int, phase_gap_idx: np.ndarray) -> np
       minimum then sits at the edge of a stretch nobody measured, with |1 + T| falling
       towards it (a 2–8 kHz hole in a 100 point/decade sweep: sampled 0.938 at 8.1 kHz,
       true 0.919 at 4 kHz).
+
+    With ``db`` (|T| in dB at every point) and the sampled minimum ``r_min`` of |1 + T|, a
+    phase gap counts only when a peak :data:`HIDDEN_PEAK_DB` above its louder neighbour could
+    bring T nearer −1 than ``r_min`` (|1 + T| ≥ 1 − |T|): a long delay's phase gaps at
+    −55 dB cannot hide a modulus margin of 0.05.
     """
-    out = {int(i) for i in np.asarray(phase_gap_idx, dtype=int)}
+    gaps = np.asarray(phase_gap_idx, dtype=int)
+    if db is not None and gaps.size:
+        db = np.asarray(db, dtype=float)
+        peak = 10.0 ** ((np.maximum(db[gaps], db[gaps + 1]) + HIDDEN_PEAK_DB) / 20.0)
+        gaps = gaps[1.0 - peak < r_min]
+    out = {int(i) for i in gaps}
     steps = np.diff(np.asarray(log_f, dtype=float))
     if steps.size >= 2:
         med = float(np.median(steps))
