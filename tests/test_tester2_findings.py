@@ -245,3 +245,32 @@ def test_a_pole_fixed_at_zero_hz_is_refused_or_fitted():
         return
     assert math.isfinite(res.stats["reduced_chi2"]) and res.stats["reduced_chi2"] < 1e6
     assert math.isfinite(res.rms_db)
+
+
+# --- a sweep that ends above 0 dB (fixed in loop/verdict.py, open_at_top)
+
+def test_sweep_cut_below_its_crossover_is_not_called_unstable():
+    # LDO loop 1000(1+s/ω30k)/((1+s/ω100)(1+s/ω5k)(1+s/ω400k)), swept only 100 Hz-1 kHz where
+    # |T| is still +40 dB.  Reference: python-control, the closed-loop poles of the true loop
+    # (control.feedback) are all in the left half-plane, PM 47.9° at 25.3 kHz
+    # (stability_margins).  main said "UNSTABLE: 1 closed-loop pole(s) in the right
+    # half-plane" and a delay margin of 0 s.
+    from benchfit.loop.verdict import open_at_top
+
+    s = control.tf("s")
+    loop = 1000 * (1 + s / float(_w(30e3))) / (
+        (1 + s / float(_w(100))) * (1 + s / float(_w(5e3))) * (1 + s / float(_w(400e3))))
+    assert np.all(np.real(control.poles(control.feedback(loop, 1))) < 0)
+    _gm, pm, *_ = control.stability_margins(loop)
+    assert math.isclose(pm, 47.93, abs_tol=0.01)
+    f = np.logspace(2, 3, 41)
+    m = margins_from_data(f, _sample(loop, f))
+    assert m.verdict == "undecided" and not m.closed_loop_stable
+    assert not math.isfinite(m.delay_margin_s) or m.delay_margin_s > 0
+    assert any("ends at" in w and "extend the sweep" in w for w in m.warnings)
+    # the whole loop swept 10 Hz-2 MHz: stable, PM as python-control's
+    f_all = np.logspace(1, np.log10(2e6), 401)
+    m_all = margins_from_data(f_all, _sample(loop, f_all))
+    assert m_all.verdict == "stable" and abs(m_all.phase_margin_deg - pm) < 0.05
+    # the rule on its own: only the last point's magnitude counts
+    assert open_at_top(np.array([[0.5, 2.0], [2.0, 0.5]])).tolist() == [True, False]

@@ -217,7 +217,8 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
                             f"{pm_main:.1f} deg")
 
     # --- closed-loop stability (Nyquist)
-    v = nyquist_verdict(f, T, unstable, integrators, carry_low_end=data or integrators is None)
+    v = nyquist_verdict(f, T, unstable, integrators, carry_low_end=data or integrators is None,
+                        sweep=data)
     n_int, N, Z = int(v.integrators[0]), int(v.encirclements[0]), int(v.rhp[0])
     verdict = str(v.verdict[0])
     dev0, devinf = v.low_deviation, v.high_deviation
@@ -235,6 +236,10 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
                         f"{unstable}, N = {N}, {n_int} integrator(s)), which no loop has: the data "
                         "are inconsistent (noise where |T| is large, a wrong integrator count, or "
                         "open-loop right-half-plane poles not declared with --unstable-poles)")
+    elif verdict == UNDECIDED and data and db[-1] >= 0:
+        warnings.append(f"closed-loop stability is UNDECIDED: the sweep ends at {f[-1]:.4g} Hz "
+                        f"with |T| {db[-1]:+.1f} dB, so the crossings that decide the "
+                        "encirclement count lie above it; extend the sweep")
     elif verdict == UNDECIDED:
         warnings.append(f"closed-loop stability is UNDECIDED: {evidence}, and these counts give "
                         "different encirclement verdicts; extend the sweep downwards or state "
@@ -304,7 +309,9 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
             gm, f_gm = math.nan, math.nan
 
     # --- delay margin
-    if not stable:
+    if data and db[-1] >= 0 and not gain:
+        dm = math.nan           # the crossover lies above the sweep: no delay margin known
+    elif not stable:
         dm = 0.0
     elif gain:
         taus = [(np.mod(g["value"], 360.0) or 360.0) * math.pi / 180.0 / (2 * math.pi * g["freq_hz"])

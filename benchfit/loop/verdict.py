@@ -75,8 +75,22 @@ def negative_count(z_by_count: np.ndarray, plausible: np.ndarray) -> np.ndarray:
     return np.any((np.asarray(z_by_count) < 0) & np.asarray(plausible, dtype=bool), axis=1)
 
 
+def open_at_top(T: np.ndarray) -> np.ndarray:
+    """Rows of sampled loops whose last point still has |T| ≥ 1 (the count is left open).
+
+    Evidence weighed: the magnitude at the top of a sweep.  The encirclement count closes
+    the curve from the last point towards T(∞) = 0; with |T| ≥ 1 there, the crossover and
+    any phase crossing that decide the count lie above the band, so the data support
+    neither verdict.  (An LDO loop with its crossover at 25 kHz, swept 100 Hz-1 kHz where
+    |T| is still +40 dB, was called unstable with N = −1; python-control's closed-loop poles
+    of the true loop are all stable.)  Used for sweeps only: a model is known above its band.
+    """
+    T = np.atleast_2d(np.asarray(T, dtype=complex))
+    return np.abs(T[:, -1]) >= 1.0
+
+
 def nyquist_verdict(freq_hz, T, unstable: int, integrators=None, *, cand=None,
-                    carry_low_end: bool = True) -> Verdicts:
+                    carry_low_end: bool = True, sweep: bool = False) -> Verdicts:
     """Verdicts of the rows of ``T`` (see the module notes).
 
     Parameters
@@ -96,6 +110,9 @@ def nyquist_verdict(freq_hz, T, unstable: int, integrators=None, *, cand=None,
         Follow a fitted low-end model down to ω → 0+ for the start angle
         (data); False snaps the first point's own angle (a model evaluated
         far below its corners).
+    sweep
+        The rows are measured sweeps: a row that ends with |T| ≥ 1 is "undecided"
+        (:func:`open_at_top`).
     """
     f = np.asarray(freq_hz, dtype=float).reshape(-1)
     T = np.atleast_2d(np.asarray(T, dtype=complex))
@@ -130,8 +147,11 @@ def nyquist_verdict(freq_hz, T, unstable: int, integrators=None, *, cand=None,
         mine = n[sel] == k
         N[sel[mine]], Z[sel[mine]] = nk[mine], zk[mine]
         dev0[sel[mine]], devinf[sel[mine]] = d0[mine], dinf[mine]
+    verdict = agreed_verdict(z_by, plausible)
+    if sweep:
+        verdict = np.where(open_at_top(T), UNDECIDED, verdict)
     return Verdicts(integrators=n, encirclements=N, rhp=Z,
-                    verdict=agreed_verdict(z_by, plausible), low_deviation=dev0,
+                    verdict=verdict, low_deviation=dev0,
                     high_deviation=devinf, asymptotes=asym,
                     inconsistent=negative_count(z_by, plausible))
 
