@@ -7,10 +7,10 @@ Run: .venv/bin/python benchmarks/read_sweep.py
 from __future__ import annotations
 
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
+from _timing import best_wall
 
 from benchfit.data import read_sweep, read_trace
 
@@ -45,15 +45,6 @@ def _trace_text() -> str:
         f"{ti * 1e6:.3f},{a:.5f},{-a:.5f}" for ti, a in zip(t, y, strict=True)) + "\n"
 
 
-def _best(fn, repeat=5) -> float:
-    best = float("inf")
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - t0)
-    return best
-
-
 def main() -> None:
     cases = [
         ("comma . dB/deg", "a.csv", _sweep_text(",", ".", "db_deg"), read_sweep),
@@ -69,7 +60,7 @@ def main() -> None:
             p = Path(tmp) / fname
             p.write_text(text)
             n = text.count("\n")
-            dt = _best(lambda p=p, reader=reader: reader(p))
+            dt = best_wall(lambda p=p, reader=reader: reader(p))
             print(f"{name:<22} {n:>8} {dt:>8.3f} {n / dt:>10.0f}")
 
 

@@ -11,9 +11,9 @@ from __future__ import annotations
 
 import subprocess
 import sys
-import time
 
 import numpy as np
+from _timing import best_wall
 
 from benchfit.data import rowparse
 from benchfit.data.dialect import sniff
@@ -21,18 +21,9 @@ from benchfit.data.dialect import sniff
 HEAD = "Frequency (Hz),Gain (dB),Phase (deg)"
 
 
-def _best(fn, repeat=5) -> float:
-    best = float("inf")
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - t0)
-    return best
-
-
 def main() -> None:
-    t_pd_import = (_best(lambda: subprocess.run([sys.executable, "-c", "import pandas"], check=True), 3)
-                   - _best(lambda: subprocess.run([sys.executable, "-c", "pass"], check=True), 3))
+    t_pd_import = (best_wall(lambda: subprocess.run([sys.executable, "-c", "import pandas"], check=True), 3)
+                   - best_wall(lambda: subprocess.run([sys.executable, "-c", "pass"], check=True), 3))
     print(f"pandas import (fresh interpreter, less `python -c pass`)  {t_pd_import * 1e3:7.1f} ms")
     per_cell = []
     for n in (1_000, 10_000, 100_000, 300_000):
@@ -43,9 +34,9 @@ def main() -> None:
         saved = rowparse.PANDAS_MIN_CELLS
         try:
             rowparse.PANDAS_MIN_CELLS = 10 ** 12
-            t_np = _best(lambda texts=texts, d=d: rowparse.fast_rows(texts, d, 3))
+            t_np = best_wall(lambda texts=texts, d=d: rowparse.fast_rows(texts, d, 3))
             rowparse.PANDAS_MIN_CELLS = 0
-            t_pd = _best(lambda texts=texts, d=d: rowparse.fast_rows(texts, d, 3))
+            t_pd = best_wall(lambda texts=texts, d=d: rowparse.fast_rows(texts, d, 3))
         finally:
             rowparse.PANDAS_MIN_CELLS = saved
         per_cell.append((t_np - t_pd) / (3 * n))

@@ -295,3 +295,36 @@ def test_choose_sets_aside_a_hypothesis_whose_delay_came_out_negative():
     ok = Hypothesis(None, Structure(real_poles=1), _ref(100.0, 200, 2, values=[1.0, 1e3]), [])
     assert choose([neg, ok], 200, 200, None) is ok
     assert choose([neg], 200, 200, None) is neg      # nothing else to take
+
+
+def _att(order, tau_s, chi):
+    from benchfit.fitting.order import Attempt
+    from benchfit.fitting.vectfit import VFResult
+    vf = VFResult(poles=np.zeros(order, complex), residues=np.zeros(order, complex), d=0.0, e=0.0,
+                  iterations=1, converged=True, flipped=np.zeros(0, complex))
+    return Attempt(order, tau_s, vf, 0.0, 0.0, chi)
+
+
+def test_distinct_keeps_the_best_start_of_each_order_and_delay():
+    from benchfit.fitting.selection import distinct, screen
+    a, b, c, d = _att(8, 0.0, 2e-7), _att(8, 0.0, 1e-7), _att(9, 0.0, 3e-7), _att(8, 5e-8, 1e-7)
+    # b repeats a's hypothesis (order 8, no delay) with the lower residual; c and d differ
+    assert distinct([a, b, c, d]) == [b, c, d]
+    assert distinct([b, a]) == [b]
+    assert screen([a, b, c, d], N) == [b, c, d]
+
+
+def test_exact_attempts_end_the_order_scan():
+    from benchfit.fitting.order import NEGLIGIBLE, choose_order, exact
+    assert exact(_att(3, 0.0, NEGLIGIBLE)) and not exact(_att(3, 0.0, 1.01 * NEGLIGIBLE))
+    chis = {1: 50.0, 2: 1e-6, 3: 1e-7, 4: 1e-8}
+    seen = []
+
+    def step(n):
+        seen.append(n)
+        return _att(n, 0.0, chis[n])
+
+    from types import SimpleNamespace
+    best, scan = choose_order(SimpleNamespace(s=np.zeros(100)), step=step, n_min=1, n_max=4)
+    # order 2 is exact: nothing above it could replace it, so the scan stops there
+    assert best.order == 2 and seen == [1, 2]

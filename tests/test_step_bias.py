@@ -11,7 +11,8 @@ import math
 import numpy as np
 import pytest
 
-from benchfit.steps.features import fitted_peak, quantum, robust_sigma
+from benchfit.steps.features import quantum, robust_sigma
+from benchfit.steps.lobes import fitted_peak
 from benchfit.steps.measure import measure_step
 
 

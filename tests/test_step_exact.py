@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 import scipy.signal as ss
 
-from benchfit.steps.features import LOBE_SNR, lobes_kept
+from benchfit.steps.lobes import LOBE_SNR, lobes_kept
 from benchfit.steps.measure import measure_step
 
 CASES = [  # zeta, fn, t0, v0, dv, samples, span, pre-trigger

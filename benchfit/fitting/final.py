@@ -59,7 +59,9 @@ def final(pb: Problem, st: Structure, ref: Refined, notes: list[str], refined: b
                                                       "refined without delay"])
             ref = held
         tv, te = ref.values[i], ref.stderr[i]
-        if tv <= 0 or (np.isfinite(te) and tv < 2.0 * te):
+        # A delay the user bounds is one they ask for: it stays (and its bound would name a
+        # parameter the model without it lacks).
+        if "delay_s" not in pb.bounds and (tv <= 0 or (np.isfinite(te) and tv < 2.0 * te)):
             # At zero (its bound) or under 2σ: refine without the delay, and keep that
             # only when the drop test passes: a parameter strongly correlated with the
             # delay can blow up its σ while the data still need it.

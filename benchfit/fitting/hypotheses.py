@@ -9,6 +9,7 @@ criterion picks one (:func:`race`, rules in :mod:`benchfit.fitting.selection`).
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import NamedTuple
 
 import numpy as np
@@ -28,7 +29,6 @@ from benchfit.fitting.groups import (
     without,
 )
 from benchfit.fitting.order import (
-    CHI_OK,
     Attempt,
     Context,
     attempt,
@@ -37,7 +37,12 @@ from benchfit.fitting.order import (
     polish,
 )
 from benchfit.fitting.parameters import TWO_PI, Structure, from_zpk
-from benchfit.fitting.problem import SCAN_POINTS, Problem
+from benchfit.fitting.problem import (
+    SCAN_POINTS,
+    Problem,
+    other_direct_worth_trying,
+    rebuild_worth_trying,
+)
 from benchfit.fitting.pruning import pruned
 from benchfit.fitting.refine import Refined
 from benchfit.fitting.selection import (
@@ -94,7 +99,12 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
     if order != "auto":
         n = int(order)
         att = attempt(sub, n, fixed_tau)
-        if att.chi > CHI_OK:
+        if other_direct_worth_trying(att):
+            ctx2 = replace(ctx, direct=not ctx.direct)
+            alt = attempt(ctx2.subsample(SCAN_POINTS), n, fixed_tau)
+            if alt.chi < att.chi:
+                ctx, sub, att = ctx2, ctx2.subsample(SCAN_POINTS), alt
+        if rebuild_worth_trying(att):
             # A fresh start may miss a weak feature; build up to n as the scan does.
             # Two orders below n are enough for the warm starts (the poles of n−1
             # plus a real pole, of n−2 plus a pair): from order 1 up gave the same

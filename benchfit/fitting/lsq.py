@@ -44,7 +44,8 @@ class LsqOutcome:
     jac: np.ndarray
     nfev: int
     status: int  # 0: evaluation cap; 1: gtol; 2: ftol; 3: xtol; 4: ftol and xtol;
-    #             -3: a step would have left the box (x is the last point inside)
+    #             5: the caller's ``settle`` threshold; -3: a step would have left the box
+    #             (x is the last point inside)
     message: str
 
 
@@ -53,7 +54,8 @@ _MESSAGES = {-3: "A step would have left the bounds; stopped at the last point i
              1: "`gtol` termination condition is satisfied.",
              2: "`ftol` termination condition is satisfied.",
              3: "`xtol` termination condition is satisfied.",
-             4: "Both `ftol` and `xtol` termination conditions are satisfied."}
+             4: "Both `ftol` and `xtol` termination conditions are satisfied.",
+             5: "The cost decrease of a step is below the caller's `settle` threshold."}
 
 
 def _r_factor(a: np.ndarray) -> np.ndarray:
@@ -102,7 +104,8 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
                  jac: Callable[[np.ndarray], np.ndarray], x0: np.ndarray, *,
                  max_nfev: int, f0: np.ndarray | None = None, ftol: float = 1e-9,
                  xtol: float = 1e-9, gtol: float = 1e-10,
-                 box: tuple[np.ndarray, np.ndarray] | None = None) -> LsqOutcome:
+                 box: tuple[np.ndarray, np.ndarray] | None = None,
+                 settle: Callable[[float], float] | None = None) -> LsqOutcome:
     """Minimise ½‖fun(x)‖² from ``x0`` (no bounds), as scipy's TRF with ``x_scale="jac"``.
 
     Parameters
@@ -120,6 +123,12 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
         scipy's stopping tests: relative reduction of the cost under ``ftol``
         on a step that went well, a step under ``xtol`` relative to x, the
         gradient's largest component under ``gtol``.
+    settle
+        ``settle(cost)``: a further stop, the decrease of the cost ½‖f‖² below
+        which a step that went well (ratio of actual to predicted decrease
+        over 0.25, as for ``ftol``) ends the search, given the cost before the
+        step; it stops with status 5 at the point the step reached, or where
+        it is, before a step, when the whole cost is below the threshold.
     """
     x = np.array(x0, dtype=float)
     f = fun(x) if f0 is None else np.asarray(f0, dtype=float)
@@ -136,6 +145,8 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
     while True:
         if np.max(np.abs(g), initial=0.0) < gtol:
             status = 1
+        elif settle is not None and cost < settle(cost):
+            status = 5  # no step could lower the cost by the caller's threshold
         if status is not None or nfev >= max_nfev:
             break
         d = 1.0 / scale_inv
@@ -175,6 +186,9 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
             if ftol_ok or xtol_ok:
                 status = 4 if ftol_ok and xtol_ok else 2 if ftol_ok else 3
                 break
+            if settle is not None and ratio > 0.25 and 0 < reduction < settle(cost):
+                status = 5
+                break
             alpha *= delta / delta_new
             delta = delta_new
         if reduction > 0 and box is not None and not (
@@ -212,7 +226,8 @@ def least_squares(fun: Callable[[np.ndarray], np.ndarray],
                   jac: Callable[[np.ndarray], np.ndarray], x0: np.ndarray,
                   lower: np.ndarray, upper: np.ndarray, *, max_nfev: int,
                   f0: np.ndarray | None = None, ftol: float = 1e-9, xtol: float = 1e-9,
-                  gtol: float = 1e-10) -> LsqOutcome:
+                  gtol: float = 1e-10, settle: Callable[[float], float] | None = None
+                  ) -> LsqOutcome:
     """Minimise ½‖fun(x)‖² within ``lower``..``upper`` (±inf: no bound), from ``x0`` inside.
 
     Without finite bounds this is :func:`trust_region`.  With them, the
@@ -229,10 +244,14 @@ def least_squares(fun: Callable[[np.ndarray], np.ndarray],
     lower, upper = np.asarray(lower, dtype=float), np.asarray(upper, dtype=float)
     bounded = bool(np.any(np.isfinite(lower)) or np.any(np.isfinite(upper)))
     free = trust_region(fun, jac, x0, max_nfev=max_nfev, f0=f0, ftol=ftol, xtol=xtol, gtol=gtol,
-                        box=(lower, upper) if bounded else None)
+                        box=(lower, upper) if bounded else None, settle=settle)
     if not bounded or inactive_bounds(free, lower, upper) or (
             free.status == 0 and free.nfev >= max_nfev):
         return free
+    if settle is not None:
+        # scipy's ftol is relative to the cost: the threshold at the point handed over
+        cost = 0.5 * float(free.fun @ free.fun)
+        ftol = min(max(ftol, settle(cost) / cost), 0.1) if cost > 0 else ftol
     out = optimize.least_squares(fun, free.x, jac=jac, bounds=(lower, upper), method="trf",
                                  x_scale="jac", ftol=ftol, xtol=xtol, gtol=gtol,
                                  max_nfev=max(max_nfev - free.nfev, max_nfev // 2))

@@ -158,6 +158,7 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
                         f"margin ({gm:.1f} dB) is uncertain{more}")
 
     # --- resolution of the whole sweep (data): under-sampled resonances
+    gap_hz: tuple[tuple[float, float], ...] = ()   # where a phase crossing may hide unseen
     if data:
         live = np.maximum(db[:-1], db[1:]) > -20.0
         jumps = np.flatnonzero(live & (pstep > _JUMP_PHASE_DEG))
@@ -167,7 +168,9 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
                 f"the phase jumps {pstep[j]:.0f} deg between {f[j]:.4g} and {f[j + 1]:.4g} Hz "
                 f"({jumps.size} such gap(s)): a resonance is under-sampled; crossings and margins "
                 "near there cannot be trusted; sweep with more points per decade")
-        gaps = [g for g in phase_gaps(db, pstep) if g not in set(jumps.tolist())]
+        hidden = phase_gaps(db, pstep)
+        gap_hz = tuple((float(f[g]), float(f[g + 1])) for g in hidden)
+        gaps = [g for g in hidden if g not in set(jumps.tolist())]
         if gaps:
             g = int(gaps[np.argmax(pstep[gaps])])
             warnings.append(
@@ -280,6 +283,8 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
             gm_down = max(gm_down, g0)
     if stable:
         gm, f_gm = gm_up, f_up
+        if gap_hz and math.isinf(gm):
+            gm = math.nan       # none found, but one may hide in a gap: not "unbounded"
         if math.isfinite(gm_down) and not unstable:
             warnings.append(f"conditionally stable: lowering the loop gain by {-gm_down:.1f} dB "
                             "makes the loop unstable")
@@ -335,5 +340,5 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
         open_loop_unstable_poles=int(unstable), closed_loop_stable=verdict == STABLE,
         verdict=verdict, integrators_evidence=evidence,
         encirclements=N, integrators=n_int, f_min_hz=float(f[0]), f_max_hz=float(f[-1]),
-        warnings=tuple(dict.fromkeys(warnings)), provenance=provenance,
+        gain_margin_gaps_hz=gap_hz, warnings=tuple(dict.fromkeys(warnings)), provenance=provenance,
     )

@@ -68,6 +68,11 @@ class Margins:
         Where that count came from: the model, the caller, or the fit of the
         sweep's low-frequency asymptote (slope with its standard error,
         asymptotic phase, window).
+    gain_margin_gaps_hz
+        Intervals (lo, hi) of a sweep, Hz, between neighbouring points where a phase
+        crossing may lie unseen (:func:`benchfit.loop.sweeprules.phase_gaps`).  When there
+        are any, ``gain_margin_db`` is only an upper bound (a crossing in a gap may give
+        a smaller one), and NaN ("not determined") when no phase crossing was found at all.
     f_min_hz, f_max_hz
         The band examined.
     warnings
@@ -96,6 +101,7 @@ class Margins:
     integrators_evidence: str = ""
     f_min_hz: float = math.nan
     f_max_hz: float = math.nan
+    gain_margin_gaps_hz: tuple[tuple[float, float], ...] = ()
     warnings: tuple[str, ...] = ()
     provenance: Provenance = field(default_factory=lambda: Provenance(step="margins"))
 
@@ -115,6 +121,8 @@ class Margins:
         d["integrators"] = int(self.integrators)
         d["verdict"] = self.verdict or ("stable" if self.closed_loop_stable else "unstable")
         d["integrators_evidence"] = self.integrators_evidence
+        d["gain_margin_known"] = self.gain_margin_known
+        d["gain_margin_gaps_hz"] = [[float(lo), float(hi)] for lo, hi in self.gain_margin_gaps_hz]
         d["warnings"] = list(self.warnings)
         d["provenance"] = self.provenance.to_dict()
         return d
@@ -139,6 +147,8 @@ class Margins:
             verdict=str(d.get("verdict") or ("stable" if d.get("closed_loop_stable", True)
                                              else "unstable")),
             integrators_evidence=str(d.get("integrators_evidence", "")),
+            gain_margin_gaps_hz=tuple((as_float(g[0]), as_float(g[1]))
+                                      for g in d.get("gain_margin_gaps_hz", ())),
             warnings=tuple(str(w) for w in d.get("warnings", ())),
             provenance=Provenance.from_dict(d.get("provenance")),
             **kw,
@@ -171,10 +181,29 @@ class Margins:
             return f"{numfmt.deg(self.phase_margin_deg)} at {numfmt.eng(self.crossover_hz, 'Hz')}"
         return f"not defined: |T| does not cross 1 (0 dB) {self.band_text()}"
 
+    @property
+    def gain_margin_known(self) -> bool:
+        """False when a phase crossing may lie in a gap of the sweep (``gain_margin_gaps_hz``)."""
+        return not self.gain_margin_gaps_hz
+
+    def _gaps_text(self) -> str:
+        spans = ", ".join(f"{numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')}"
+                          for lo, hi in self.gain_margin_gaps_hz[:3])
+        more = f" and {len(self.gain_margin_gaps_hz) - 3} more" if len(self.gain_margin_gaps_hz) > 3 else ""
+        return f"{spans}{more}"
+
     def gain_margin_text(self) -> str:
         """'32.8 dB at 247 kHz', or in words why there is none."""
         if math.isfinite(self.gain_margin_db) and math.isfinite(self.phase_crossover_hz):
-            return f"{numfmt.db(self.gain_margin_db)} at {numfmt.eng(self.phase_crossover_hz, 'Hz')}"
+            at = f"{numfmt.db(self.gain_margin_db)} at {numfmt.eng(self.phase_crossover_hz, 'Hz')}"
+            if self.gain_margin_gaps_hz:
+                return (f"{at} or less: a phase crossing may lie unseen where the sweep has too "
+                        f"few points ({self._gaps_text()})")
+            return at
+        if self.gain_margin_gaps_hz and math.isnan(self.gain_margin_db):
+            return ("not determined: no phase crossing between the points, but one may lie "
+                    f"unseen where the sweep has too few points ({self._gaps_text()}); sweep "
+                    "there with more points")
         top = (f"below {numfmt.eng(self.f_max_hz, 'Hz')}" if math.isfinite(self.f_max_hz)
                else "in the examined band")
         if math.isinf(self.gain_margin_db) and self.gain_margin_db > 0 and any(

@@ -37,10 +37,10 @@ from benchfit.steps.features import (
     difference_sigma,
     last_exit,
     make_smoother,
-    ringing,
     robust_sigma,
     trace_arrays,
 )
+from benchfit.steps.lobes import ringing
 from benchfit.steps.measure import MIN_PRE_SAMPLES, MIN_STEP_SIGMAS, TAIL_FRACTION
 from benchfit.steps.models import rational_unit_step, zeta_from_log_decrement
 from benchfit.steps.record import record_from_dict, record_to_dict

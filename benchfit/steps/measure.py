@@ -35,13 +35,12 @@ from benchfit.steps.features import (
     clipped_runs,
     difference_sigma,
     first_crossing,
-    fitted_peak,
     last_exit,
     make_smoother,
-    ringing,
     robust_sigma,
     trace_arrays,
 )
+from benchfit.steps.lobes import fitted_peak, ringing
 from benchfit.steps.models import zeta_from_log_decrement
 from benchfit.steps.record import record_from_dict, record_to_dict
 
@@ -92,7 +91,7 @@ class StepMeasurement:
         How the peak (and so the overshoot) was found: a polynomial fitted to
         the raw samples of the lobe's upper half (unbiased on noise), or the
         smoothed maximum when the lobe has too few samples
-        (:func:`benchfit.steps.features.fitted_peak`).
+        (:func:`benchfit.steps.lobes.fitted_peak`).
     warnings
         Anything that makes a figure less trustworthy.
     provenance
