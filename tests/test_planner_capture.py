@@ -196,14 +196,20 @@ def test_cli_refuses_adaptive_capture_of_what_is_not_a_loop_gain(tmp_path, capsy
     from benchfit.cli import main
     from benchfit.fitting.model import PlantModel
 
-    # an output impedance (|Z| far below 1 ohm): no gain crossing, refused after the coarse pass
+    # an output impedance (|Z| from 1 mohm to 0.1 ohm, far below 1): no gain crossing, refused
+    # after the coarse pass.  Every input is pinned (band, seed, level, noise) so that nothing
+    # but the rule decides; stderr goes into the message should it ever pass through
     z = PlantModel(zeros=np.array([-2 * np.pi * 1e3]), poles=np.array([-2 * np.pi * 1e5]), k=0.1)
     plant = tmp_path / "zout.json"
     z.to_json(plant)
     out = tmp_path / "z.csv"
-    assert main(["capture", "--simulate", str(plant), "--adaptive", "-o", str(out), "--no-progress"]) == 2
-    err = capsys.readouterr().err.strip().splitlines()
+    code = main(["capture", "--simulate", str(plant), "--adaptive", "--start", "100", "--stop", "1M",
+                 "--level", "10m", "--noise", "1e-3", "--seed", "0", "-o", str(out), "--no-progress"])
+    text = capsys.readouterr().err
+    assert code == 2, text
+    err = text.strip().splitlines()
     assert len(err) == 1 and "no gain crossing" in err[0] and "loop-gain measurement" in err[0]
+    assert "100 Hz..1 MHz" in err[0]
     assert "--adaptive" in err[0]
     # declared as a plant: refused at once, before anything is measured
     out2 = tmp_path / "p.csv"
