@@ -15,6 +15,8 @@ and integrates 1/bandwidth per reading (benchfit.bench.benchlike).  Printed per 
 
     .venv/bin/python benchmarks/adaptive_capture.py                  # the three plants
     .venv/bin/python benchmarks/adaptive_capture.py --calibration 50 # + 50-seed coverage
+    .venv/bin/python benchmarks/adaptive_capture.py --plants servo --calibration 50 \
+        --noise-density 0 --noise 1e-3 --settle-cycles 0           # the CLI's quiet default
 
 Target (issue 20): at least 3x less instrument time than the fixed sweep for the same σ,
 with the PM within 0.5° of the true plant's.  ``--calibration N`` runs N captures of each
@@ -190,7 +192,14 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--calibration", type=int, default=0, metavar="N",
                     help="also run N seeds per plant for the ±2σ coverage")
+    ap.add_argument("--noise-density", type=float, default=BENCH["noise_density_v"], metavar="V/rtHz",
+                    help="simulated noise density of each channel (default 5e-6)")
+    ap.add_argument("--noise", type=float, default=0.0,
+                    help="relative noise of each reading on top (default 0; the CLI's default is 1e-3)")
+    ap.add_argument("--settle-cycles", type=float, default=BENCH["settle_cycles"])
     args = ap.parse_args()
+    # e.g. the CLI's default simulator: --noise-density 0 --noise 1e-3 --settle-cycles 0
+    BENCH.update(noise_density_v=args.noise_density, noise=args.noise, settle_cycles=args.settle_cycles)
     compare(args.plants, args.seed)
     if args.calibration:
         calibration(args.plants, args.calibration)
