@@ -171,7 +171,7 @@ def decode_complex(pairs: Any, *, what: str = "value") -> np.ndarray:
                 continue
         except (TypeError, ValueError, OverflowError):
             pass
-        raise InputError(f"{what}: expected [re, im] pairs of numbers, found {str(p)[:60]}")
+        raise InputError(f"{what}: expected [re, im] pairs of numbers, found {str(p)[:60]!r}")
     return np.asarray(out, dtype=complex)
 
 

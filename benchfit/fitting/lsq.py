@@ -27,6 +27,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from math import sqrt
 
 import numpy as np
 from scipy import optimize
@@ -67,22 +68,34 @@ def _r_factor(a: np.ndarray) -> np.ndarray:
     return np.triu(qr[:n, :n])
 
 
+def _norm(x: np.ndarray) -> float:
+    """Euclidean norm of a vector (``np.linalg.norm`` without its dispatch: it is called
+    tens of times per iteration here)."""
+    return sqrt(float(x @ x))
+
+
 def _subproblem(suf: np.ndarray, s2: np.ndarray, v: np.ndarray, delta: float, alpha: float,
                 full_rank: bool) -> tuple[np.ndarray, float]:
     """Step of length ≤ ``delta`` minimising the quadratic model (scipy's
     ``solve_lsq_trust_region`` written with S² and S·Uᵀr = ``suf``)."""
     if full_rank:
         p = -v @ (suf / s2)
-        if np.linalg.norm(p) <= delta:
+        if _norm(p) <= delta:
             return p, 0.0
+    suf2 = suf * suf
 
     def phi(a: float) -> tuple[float, float]:
-        denom = s2 + a
-        p_norm = np.linalg.norm(suf / denom)
-        return p_norm - delta, -float(np.sum(suf ** 2 / denom ** 3)) / p_norm
+        inv = 1.0 / (s2 + a)
+        w = suf2 * inv * inv
+        p_norm = sqrt(float(w.sum()))
+        return p_norm - delta, -float(w @ inv) / p_norm
 
-    alpha_upper = np.linalg.norm(suf) / delta
-    alpha_lower = -phi(0.0)[0] / phi(0.0)[1] if full_rank else 0.0
+    alpha_upper = _norm(suf) / delta
+    if full_rank:
+        ph0, dph0 = phi(0.0)
+        alpha_lower = -ph0 / dph0
+    else:
+        alpha_lower = 0.0
     if not full_rank and alpha == 0.0:
         alpha = max(0.001 * alpha_upper, (alpha_lower * alpha_upper) ** 0.5)
     for _ in range(10):
@@ -97,7 +110,7 @@ def _subproblem(suf: np.ndarray, s2: np.ndarray, v: np.ndarray, delta: float, al
         if abs(ph) < 0.01 * delta:
             break
     p = -v @ (suf / (s2 + alpha))
-    return p * (delta / np.linalg.norm(p)), alpha
+    return p * (delta / _norm(p)), alpha
 
 
 def trust_region(fun: Callable[[np.ndarray], np.ndarray],
@@ -139,7 +152,7 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
     g = j.T @ f
     scale_inv = np.sqrt(np.einsum("ij,ij->j", j, j))
     scale_inv[scale_inv == 0] = 1.0
-    delta = float(np.linalg.norm(x * scale_inv)) or 1.0
+    delta = _norm(x * scale_inv) or 1.0
     alpha = 0.0
     status = None
     while True:
@@ -166,7 +179,7 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
             x_new = x + step
             f_new = fun(x_new)
             nfev += 1
-            step_h_norm = float(np.linalg.norm(step_h))
+            step_h_norm = _norm(step_h)
             if not np.all(np.isfinite(f_new)):
                 delta = 0.25 * step_h_norm
                 continue
@@ -182,7 +195,7 @@ def trust_region(fun: Callable[[np.ndarray], np.ndarray],
             elif ratio > 0.75 and step_h_norm > 0.95 * delta:
                 delta_new = 2.0 * delta
             ftol_ok = reduction < ftol * cost and ratio > 0.25
-            xtol_ok = np.linalg.norm(step) < xtol * (xtol + np.linalg.norm(x))
+            xtol_ok = _norm(step) < xtol * (xtol + _norm(x))
             if ftol_ok or xtol_ok:
                 status = 4 if ftol_ok and xtol_ok else 2 if ftol_ok else 3
                 break
