@@ -7,7 +7,12 @@ References: python-control 0.10 ``stability_margins`` on the true transfer funct
 import numpy as np
 
 from benchfit.loop.asymptote import Asymptote
-from benchfit.loop.sweeprules import dc_phase_crossing, given_count_conflict, phase_gaps
+from benchfit.loop.sweeprules import (
+    dc_phase_crossing,
+    given_count_conflict,
+    modulus_gaps,
+    phase_gaps,
+)
 
 
 def _asym(n=0, decided=True, phase=-180.0):
@@ -49,3 +54,17 @@ def test_phase_gaps_flag_large_steps_above_the_floor_only():
     # 0: a 176° step between -24 and -42 dB; 2: as large but below the floor; 4: under 90°
     assert phase_gaps(db, step).tolist() == [0]
     assert GAP_FLOOR_DB < -40.0
+
+
+def test_modulus_gaps_take_the_phase_gaps_and_a_hole_beside_the_minimum():
+    from benchfit.loop.sweeprules import HOLE_STEP_RATIO
+
+    x = np.log10(np.array([1.0, 1.1, 1.2, 1.3, 5.0, 5.5, 6.0, 6.6]))
+    # the sampled minimum at point 4, right after the 1.3-5 hole (step far above the median)
+    assert modulus_gaps(x, 4, np.array([], dtype=int)).tolist() == [3]
+    # a minimum away from the hole: only the phase gaps count
+    assert modulus_gaps(x, 6, np.array([1])).tolist() == [1]
+    # an even sweep has no hole
+    even = np.linspace(0.0, 1.0, 8)
+    assert modulus_gaps(even, 3, np.array([], dtype=int)).tolist() == []
+    assert HOLE_STEP_RATIO > 2.0

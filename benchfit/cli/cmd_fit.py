@@ -45,7 +45,11 @@ def _fix(items: list[str] | None) -> dict[str, float]:
         name, sep, v = item.partition("=")
         if not sep or not name.strip():
             raise InputError(f"{quote(item)}: expected name=value, e.g. zero1_hz=12k", source="--fix")
-        out[name.strip()] = parse_value(v, "--fix", parameter_unit(name.strip()), Range())
+        value = parse_value(v, "--fix", parameter_unit(name.strip()), Range())
+        if name.strip() in out:
+            raise InputError(f"{quote(name.strip())} is given twice ({out[name.strip()]:g} and "
+                             f"{value:g}); give it once", source="--fix")
+        out[name.strip()] = value
     return out
 
 
@@ -62,8 +66,32 @@ def _bounds(items: list[str] | None) -> dict[str, tuple[float, float]]:
         hi = float("inf") if hi is None else hi
         if not lo < hi:
             raise InputError(f"{quote(item)}: the low limit must be below the high one", source="--bound")
+        if name.strip() in out:
+            raise InputError(f"{quote(name.strip())} is given twice; give it once", source="--bound")
         out[name.strip()] = (lo, hi)
     return out
+
+
+def _conflicts(delay: float | str, fix: dict[str, float],
+               bounds: dict[str, tuple[float, float]]) -> None:
+    """Refuse options that ask for two different things (one line naming both).
+
+    ``--delay none`` (no delay) against a fixed or bounded ``delay_s`` (a delay), a known
+    ``--delay S`` against another ``--fix delay_s``, and a parameter both fixed and bounded:
+    the fit would honour one silently and drop the other.
+    """
+    both = sorted(set(fix) & set(bounds))
+    if both:
+        raise InputError(f"{quote(both[0])} is both fixed (--fix) and bounded (--bound); give one",
+                         source="--bound")
+    if "delay_s" in fix or "delay_s" in bounds:
+        given = "--fix delay_s" if "delay_s" in fix else "--bound delay_s"
+        if delay == "none":
+            raise InputError(f"none asks for no delay, {given} for one; give one of them",
+                             source="--delay")
+        if not isinstance(delay, str):
+            raise InputError(f"{delay:g} s already holds the delay fixed; {given} asks again; "
+                             "give one of them", source="--delay")
 
 
 #: --integrators: poles at the origin, 0..3, or auto
@@ -108,6 +136,7 @@ def run(args: argparse.Namespace) -> int:
     from benchfit.fitting import fit
 
     fix, bounds = _fix(args.fix), _bounds(args.bound)
+    _conflicts(args.delay, fix, bounds)
     resp = warn_read(read_sweep(args.sweep, **reader_options(args)), args.sweep)
     result = fit(resp, order=args.order, delay=args.delay, band=args.band, fix=fix,
                  weighting=args.weighting, integrators=args.integrators, bounds=bounds,

@@ -21,7 +21,12 @@ from benchfit.loop.asymptote import fit_asymptote, low_end_gain_db
 from benchfit.loop.crossings import main_score, to_db, wrap180
 from benchfit.loop.densegrid import LIVE_DB, LoopFn
 from benchfit.loop.marginsresult import Margins
-from benchfit.loop.sweeprules import dc_phase_crossing, given_count_conflict, phase_gaps
+from benchfit.loop.sweeprules import (
+    dc_phase_crossing,
+    given_count_conflict,
+    modulus_gaps,
+    phase_gaps,
+)
 from benchfit.loop.verdict import STABLE, UNDECIDED, UNSTABLE, nyquist_verdict
 from benchfit.provenance import Provenance
 
@@ -159,6 +164,7 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
 
     # --- resolution of the whole sweep (data): under-sampled resonances
     gap_hz: tuple[tuple[float, float], ...] = ()   # where a phase crossing may hide unseen
+    hidden = np.zeros(0, dtype=int)
     if data:
         live = np.maximum(db[:-1], db[1:]) > -20.0
         jumps = np.flatnonzero(live & (pstep > _JUMP_PHASE_DEG))
@@ -324,6 +330,15 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
     if j == 0 and len(f) > 1 and r[0] < r[1]:
         warnings.append(f"|1+T| is smallest at the bottom of the band ({f[0]:.4g} Hz); "
                         "the modulus margin there is an upper bound")
+    mod_gap_hz: tuple[tuple[float, float], ...] = ()
+    if data:
+        mod_gap_hz = tuple((float(f[g]), float(f[g + 1])) for g in modulus_gaps(x, j, hidden))
+        if mod_gap_hz:
+            lo, hi = mod_gap_hz[0]
+            warnings.append(f"|1+T| may dip below its smallest sampled value ({mm:.3g} at "
+                            f"{fmm:.4g} Hz) between {lo:.4g} and {hi:.4g} Hz ({len(mod_gap_hz)} "
+                            "such gap(s)): the modulus margin is an upper bound (Ms a lower "
+                            "bound); sweep there with more points")
 
     worst = min(gain, key=lambda g: abs(g["value"]), default=None)
     crossings = sorted(
@@ -340,5 +355,6 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
         open_loop_unstable_poles=int(unstable), closed_loop_stable=verdict == STABLE,
         verdict=verdict, integrators_evidence=evidence,
         encirclements=N, integrators=n_int, f_min_hz=float(f[0]), f_max_hz=float(f[-1]),
-        gain_margin_gaps_hz=gap_hz, warnings=tuple(dict.fromkeys(warnings)), provenance=provenance,
+        gain_margin_gaps_hz=gap_hz, modulus_margin_gaps_hz=mod_gap_hz,
+        warnings=tuple(dict.fromkeys(warnings)), provenance=provenance,
     )

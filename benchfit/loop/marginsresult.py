@@ -73,6 +73,10 @@ class Margins:
         crossing may lie unseen (:func:`benchfit.loop.sweeprules.phase_gaps`).  When there
         are any, ``gain_margin_db`` is only an upper bound (a crossing in a gap may give
         a smaller one), and NaN ("not determined") when no phase crossing was found at all.
+    modulus_margin_gaps_hz
+        Intervals (lo, hi) of a sweep, Hz, where |1 + T| may dip below its smallest
+        sampled value unseen (:func:`benchfit.loop.sweeprules.modulus_gaps`).  When there
+        are any, ``modulus_margin`` is only an upper bound (``peak_sensitivity`` a lower one).
     f_min_hz, f_max_hz
         The band examined.
     warnings
@@ -102,6 +106,7 @@ class Margins:
     f_min_hz: float = math.nan
     f_max_hz: float = math.nan
     gain_margin_gaps_hz: tuple[tuple[float, float], ...] = ()
+    modulus_margin_gaps_hz: tuple[tuple[float, float], ...] = ()
     warnings: tuple[str, ...] = ()
     provenance: Provenance = field(default_factory=lambda: Provenance(step="margins"))
 
@@ -123,6 +128,8 @@ class Margins:
         d["integrators_evidence"] = self.integrators_evidence
         d["gain_margin_known"] = self.gain_margin_known
         d["gain_margin_gaps_hz"] = [[float(lo), float(hi)] for lo, hi in self.gain_margin_gaps_hz]
+        d["modulus_margin_known"] = self.modulus_margin_known
+        d["modulus_margin_gaps_hz"] = [[float(lo), float(hi)] for lo, hi in self.modulus_margin_gaps_hz]
         d["warnings"] = list(self.warnings)
         d["provenance"] = self.provenance.to_dict()
         return d
@@ -149,6 +156,8 @@ class Margins:
             integrators_evidence=str(d.get("integrators_evidence", "")),
             gain_margin_gaps_hz=tuple((as_float(g[0]), as_float(g[1]))
                                       for g in d.get("gain_margin_gaps_hz", ())),
+            modulus_margin_gaps_hz=tuple((as_float(g[0]), as_float(g[1]))
+                                         for g in d.get("modulus_margin_gaps_hz", ())),
             warnings=tuple(str(w) for w in d.get("warnings", ())),
             provenance=Provenance.from_dict(d.get("provenance")),
             **kw,
@@ -186,10 +195,15 @@ class Margins:
         """False when a phase crossing may lie in a gap of the sweep (``gain_margin_gaps_hz``)."""
         return not self.gain_margin_gaps_hz
 
-    def _gaps_text(self) -> str:
-        spans = ", ".join(f"{numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')}"
-                          for lo, hi in self.gain_margin_gaps_hz[:3])
-        more = f" and {len(self.gain_margin_gaps_hz) - 3} more" if len(self.gain_margin_gaps_hz) > 3 else ""
+    @property
+    def modulus_margin_known(self) -> bool:
+        """False when |1 + T| may dip lower in a gap of the sweep (``modulus_margin_gaps_hz``)."""
+        return not self.modulus_margin_gaps_hz
+
+    def _gaps_text(self, gaps: tuple[tuple[float, float], ...] | None = None) -> str:
+        gaps = self.gain_margin_gaps_hz if gaps is None else gaps
+        spans = ", ".join(f"{numfmt.eng(lo, 'Hz')} to {numfmt.eng(hi, 'Hz')}" for lo, hi in gaps[:3])
+        more = f" and {len(gaps) - 3} more" if len(gaps) > 3 else ""
         return f"{spans}{more}"
 
     def gain_margin_text(self) -> str:
@@ -238,7 +252,10 @@ class Margins:
             f"delay margin    {delay}",
             f"modulus margin  {numfmt.sig(self.modulus_margin)} (Ms {numfmt.sig(ms)}, "
             f"{numfmt.db(20 * math.log10(ms) if ms > 0 else math.nan)}) "
-            f"at {numfmt.eng(self.modulus_freq_hz, 'Hz')}",
+            f"at {numfmt.eng(self.modulus_freq_hz, 'Hz')}"
+            + ("" if self.modulus_margin_known else
+               f" or less: |1+T| may dip lower unseen where the sweep has too few points "
+               f"({self._gaps_text(self.modulus_margin_gaps_hz)})"),
             f"closed loop     {self._verdict_word()} "
             f"(open-loop RHP poles {self.open_loop_unstable_poles}, encirclements of -1: {self.encirclements})",
         ]

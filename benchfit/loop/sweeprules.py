@@ -92,3 +92,36 @@ def phase_gaps(db: np.ndarray, phase_step_deg: np.ndarray) -> np.ndarray:
     step = np.asarray(phase_step_deg, dtype=float)
     loud = np.maximum(db[:-1], db[1:]) > GAP_FLOOR_DB
     return np.flatnonzero(loud & (step >= GAP_STEP_DEG))
+
+
+#: An interval of a sweep whose log-frequency step is at least this many times the sweep's
+#: median step is a hole in it (our own figure: a sweep's spacing varies by a factor 2 or so
+#: when an instrument changes range or an adaptive capture adds points).
+HOLE_STEP_RATIO = 4.0
+
+
+def modulus_gaps(log_f: np.ndarray, j_min: int, phase_gap_idx: np.ndarray) -> np.ndarray:
+    """Indices i where |1 + T| may dip below its smallest sampled value unseen, between
+    points i and i+1 of a sweep (so the modulus margin found is only an upper bound).
+
+    Evidence weighed:
+
+    * the phase gaps (:func:`phase_gaps`): the phase turns by 90° or more between two
+      neighbours above −60 dB; a resonance peaks between them, or a phase crossing hides
+      there, and either may bring T nearer −1 than any sampled point (a Q 20 resonance
+      with its peak in a 30–55 kHz hole: sampled min |1 + T| 0.92, python-control's
+      ``stability_margins`` on the true loop 0.73);
+    * a hole beside the sampled minimum ``j_min``: an interval next to it whose step in
+      log f is at least :data:`HOLE_STEP_RATIO` times the median step.  The sampled
+      minimum then sits at the edge of a stretch nobody measured, with |1 + T| falling
+      towards it (a 2–8 kHz hole in a 100 point/decade sweep: sampled 0.938 at 8.1 kHz,
+      true 0.919 at 4 kHz).
+    """
+    out = {int(i) for i in np.asarray(phase_gap_idx, dtype=int)}
+    steps = np.diff(np.asarray(log_f, dtype=float))
+    if steps.size >= 2:
+        med = float(np.median(steps))
+        for i in (j_min - 1, j_min):
+            if 0 <= i < steps.size and steps[i] >= HOLE_STEP_RATIO * med:
+                out.add(i)
+    return np.array(sorted(out), dtype=int)
