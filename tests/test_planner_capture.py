@@ -196,14 +196,20 @@ def test_cli_refuses_adaptive_capture_of_what_is_not_a_loop_gain(tmp_path, capsy
     from benchfit.cli import main
     from benchfit.fitting.model import PlantModel
 
-    # an output impedance (|Z| far below 1 ohm): no gain crossing, refused after the coarse pass
+    # an output impedance (|Z| from 1 mohm to 0.1 ohm, far below 1): no gain crossing, refused
+    # after the coarse pass.  Every input is pinned (band, seed, level, noise) so that nothing
+    # but the rule decides; stderr goes into the message should it ever pass through
     z = PlantModel(zeros=np.array([-2 * np.pi * 1e3]), poles=np.array([-2 * np.pi * 1e5]), k=0.1)
     plant = tmp_path / "zout.json"
     z.to_json(plant)
     out = tmp_path / "z.csv"
-    assert main(["capture", "--simulate", str(plant), "--adaptive", "-o", str(out), "--no-progress"]) == 2
-    err = capsys.readouterr().err.strip().splitlines()
+    code = main(["capture", "--simulate", str(plant), "--adaptive", "--start", "100", "--stop", "1M",
+                 "--level", "10m", "--noise", "1e-3", "--seed", "0", "-o", str(out), "--no-progress"])
+    text = capsys.readouterr().err
+    assert code == 2, text
+    err = text.strip().splitlines()
     assert len(err) == 1 and "no gain crossing" in err[0] and "loop-gain measurement" in err[0]
+    assert "100 Hz..1 MHz" in err[0]
     assert "--adaptive" in err[0]
     # declared as a plant: refused at once, before anything is measured
     out2 = tmp_path / "p.csv"
@@ -212,3 +218,59 @@ def test_cli_refuses_adaptive_capture_of_what_is_not_a_loop_gain(tmp_path, capsy
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "--quantity" in err[0] and "loop-gain measurement" in err[0]
     assert not out2.exists() and not log_path(out2).exists()
+
+
+def test_margins_of_the_captured_file_agree_with_the_planners_within_sigma(tmp_path, capsys):
+    """`benchfit margins` on the captured converter sweep against the margins the planner reports.
+
+    The command reads the file's points alone (interpolated between the two that bracket each
+    crossing), so its margins carry the noise of those points, which the planner's σ (from a
+    fit of every point) does not include; that noise is known from the file's own stddev
+    column, so the file's σ is found by redrawing every point from it.  The two must agree
+    within 3x the combined σ, and each must hold the true plant's margins (python-control's
+    stability_margins, the reference library) within 3x its own σ.
+    """
+    from benchfit.cli import main
+    from benchfit.planner.uncertainty import robust_sigma
+
+    res, model, band, _ = capture(tmp_path, "converter", seed=2)
+    pm_true, gm_true = true_margins(model, band)
+    assert res.stopped_because == PRECISION
+    assert main(["margins", str(tmp_path / "loop.csv"), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    sweep = read_canonical_sweep(tmp_path / "loop.csv")
+    rng = np.random.default_rng(0)
+    pm_d, gm_d = [], []
+    for _ in range(200):
+        n = sweep.stddev / np.sqrt(2) * (rng.standard_normal(len(sweep)) + 1j * rng.standard_normal(len(sweep)))
+        m = margins_of_sweep(sweep.with_response(sweep.response + n))
+        pm_d.append(m.phase_margin_deg)
+        gm_d.append(m.gain_margin_db)
+    s_pm, s_gm = robust_sigma(np.array(pm_d)), robust_sigma(np.array(gm_d))
+    assert s_pm > res.phase_margin_sigma_deg          # the file's margins are the noisier ones
+    assert abs(d["phase_margin_deg"] - res.phase_margin_deg) <= 3 * math.hypot(res.phase_margin_sigma_deg, s_pm)
+    assert abs(d["gain_margin_db"] - res.gain_margin_db) <= 3 * math.hypot(res.gain_margin_sigma_db, s_gm)
+    assert abs(res.phase_margin_deg - pm_true) <= 3 * res.phase_margin_sigma_deg
+    assert abs(res.gain_margin_db - gm_true) <= 3 * res.gain_margin_sigma_db
+    assert abs(d["phase_margin_deg"] - pm_true) <= 3 * s_pm
+    assert abs(d["gain_margin_db"] - gm_true) <= 3 * s_gm
+
+
+def test_cli_refuses_adaptive_capture_of_a_sweep_whose_header_says_plant(tmp_path, capsys):
+    # sample_data/buck_plant.csv is a control-to-output sweep that says so in its header
+    # ("Measurement;control-to-output, buck converter") and whose |H| happens to cross 1, so
+    # the coarse pass alone would not tell it from a loop gain: the declaration refuses it
+    from pathlib import Path
+
+    from benchfit.cli import main
+    from benchfit.data import read_sweep
+
+    src = Path(__file__).resolve().parents[1] / "sample_data" / "buck_plant.csv"
+    mag = np.abs(read_sweep(src).response)
+    assert mag.max() > 1 > mag.min()
+    out = tmp_path / "b.csv"
+    assert main(["capture", "--simulate", str(src), "--adaptive", "-o", str(out), "--no-progress"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "buck_plant.csv" in err[0] and "control-to-output" in err[0]
+    assert "'plant'" in err[0] and "loop-gain measurement" in err[0]
+    assert not out.exists() and not log_path(out).exists()

@@ -113,6 +113,14 @@ def test_variance_points_go_where_the_margin_is_decided_per_second():
     sig = np.full(k, 1e-3)
     sig[2] = np.inf
     assert cand[2] not in pl.variance_points(cand, y, [pm], [0.5], lambda f: sig, lambda f: np.ones(k), 3)
+    # a GM whose crossing some draws lost (deviation inf) still steers the choice from the
+    # draws that kept it, without a floating-point error (the PM target is flat here)
+    gm = 40.0 * y[:, 4].real
+    gm[:20] = np.inf
+    with np.errstate(all="raise"):
+        picks = pl.variance_points(cand, y, [np.zeros(n), gm], [0.5, 0.5], lambda f: np.full(k, 1e-3),
+                                   lambda f: np.ones(k), 1)
+    assert picks == [pytest.approx(cand[4])]
 
 
 def test_densify_and_merge():
@@ -323,6 +331,24 @@ def test_consistent_draws_drop_what_the_data_contradict():
     flipped = 1 / (1 - 1j * f / p_hat)              # the pole drawn into the right half-plane
     keep = consistent_draws(np.vstack([draws, flipped]), meas, sd, h(p_hat), 1, 1.0)
     assert keep[:-1].mean() > 0.98 and not keep[-1]
+
+
+def test_consistent_draws_reject_far_draws_without_overflow():
+    # a loose parameter drawn far in log coordinates gives |T| ~ 1e160 (its square overflows
+    # a double) or a non-finite response: both are rejected, with no floating-point error,
+    # and the verdict on ordinary draws is the plain chi-square sum's (chi-square law, scipy.stats)
+    rng = np.random.default_rng(4)
+    f = np.logspace(1, 3, 30)
+    meas = 1 / (1 + 1j * f / 100)
+    sd = np.full(30, 0.01)
+    near = meas[None, :] + 0.003 * (rng.standard_normal((50, 30)) + 1j * rng.standard_normal((50, 30)))
+    far = np.vstack([np.full(30, 1e160 + 0j), np.where(f > 500, np.nan + 0j, meas)])
+    with np.errstate(all="raise"):
+        keep = consistent_draws(np.vstack([near, far]), meas, sd, meas, 2, 1.0)
+    from scipy.stats import chi2
+    c = np.sum(2 / sd ** 2 * np.abs(near - meas) ** 2, axis=1)
+    assert np.array_equal(keep[:50], c <= chi2.ppf(1 - 1e-3, 2))
+    assert not keep[50] and not keep[51]
 
 
 def test_robust_sigma_is_sigma_for_a_normal_spread():

@@ -236,8 +236,10 @@ def _run_adaptive(args: argparse.Namespace, profile, inst, sweep, out: str) -> i
 
     declared = getattr(sweep, "quantity", None)
     if args.quantity is None and declared is not None and declared not in LOOP_QUANTITIES:
-        raise InputError(f"a sweep of {declared!r}, not a loop gain; {NEEDS_LOOP_GAIN}",
-                         source=args.simulate)
+        line = (getattr(sweep, "meta", None) or {}).get("declared_quantity", {}).get("line")
+        said = f" (its header says {line!r})" if line else ""
+        raise InputError(f"a sweep of {declared!r}{said}, not a loop gain; {NEEDS_LOOP_GAIN} "
+                         "(or --quantity loop if it is one)", source=args.simulate)
     lo, hi = _band(args, sweep)
     for given, opt in ((args.start if args.start is not None else lo, "--start"),
                        (args.stop if args.stop is not None else hi, "--stop")):

@@ -20,6 +20,7 @@ import numpy as np
 
 from benchfit.data.canonical import SWEEP_MAGIC, TRACE_MAGIC, read_canonical_sweep
 from benchfit.data.columns import Column, TracePair, check_units, classify_all, pair_traces
+from benchfit.data.declared import declared_quantity
 from benchfit.data.dialect import load_text, sniff
 from benchfit.data.phaseunit import decide_phase_unit
 from benchfit.data.quote import cut, quote, quote_list
@@ -278,7 +279,9 @@ def read_sweep(path: str | os.PathLike, *, columns: str | list[str] | None = Non
         for a one-port.
     quantity
         What was measured, one of :data:`benchfit.data.QUANTITIES` (default: 'impedance'
-        when the columns say ohms, else 'unknown').
+        when the columns say ohms, else what a keyed header line declares
+        (:func:`benchfit.data.declared.declared_quantity`, kept in
+        ``meta["declared_quantity"]``), else 'unknown').
     skip_bad_rows
         Leave out the rows of a text table that cannot be read (text among the numbers,
         '#N/A', NaN, a SCPI 9.91E37 marker, a non-positive frequency) instead of
@@ -371,8 +374,10 @@ def _read_sweep(path, *, columns, trace, freq_unit, mag, phase, param, quantity,
         i = int(np.flatnonzero(~np.isfinite(h))[0])
         raise InputError(f"response at {f[i]:g} Hz overflows (magnitude too large to represent)",
                          source=source)
+    declared = declared_quantity(notes)
     if quantity is None:
-        quantity = "impedance" if impedance else "unknown"
+        # ohms in the columns, else the export's own "Measurement;..." line, else unknown
+        quantity = "impedance" if impedance else (declared[0] if declared else "unknown")
     coherence = extras.get("coherence")
     meta = {
         "source": Path(source).name,
@@ -382,6 +387,8 @@ def _read_sweep(path, *, columns, trace, freq_unit, mag, phase, param, quantity,
         "notes": [cut(x, 200) for x in notes[:40]],
         "skipped_rows": [b.to_dict() for b in skipped],
     }
+    if declared:
+        meta["declared_quantity"] = {"quantity": declared[0], "line": cut(declared[1], 200)}
     if skipped:
         settings["skipped_rows"] = [b.line for b in skipped]
     try:

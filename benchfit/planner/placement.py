@@ -250,12 +250,14 @@ def variance_points(candidates_hz: np.ndarray, log_draws: np.ndarray, targets: S
     y = np.asarray(log_draws)
     if cand.size == 0 or y.shape[0] < 10:
         return []
-    rows = np.ones(y.shape[0], bool)
+    rows = np.all(np.isfinite(y), axis=1)
     cols = []
     for t, s in zip(targets, target_sigmas, strict=True):
         t = np.asarray(t, float)
-        if t.size == y.shape[0] and np.any(np.isfinite(t)) and np.nanstd(t) > 0:
-            rows &= np.isfinite(t)
+        # a draw that lost the crossing has an infinite deviation: it tells no covariance
+        fin = np.isfinite(t)
+        if t.size == y.shape[0] and fin.sum() >= 2 and np.std(t[fin]) > 0:
+            rows &= fin
             cols.append(t / s)
     if not cols or rows.sum() < 10:
         return []

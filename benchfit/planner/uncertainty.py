@@ -127,15 +127,26 @@ def consistent_draws(at_data: np.ndarray, measured: np.ndarray, stddev: np.ndarr
     (a poorly identified pole drawn through zero into the right half-plane
     turns the phase of the whole band) and is dropped.  For a fit the
     covariance describes well this drops a fraction REJECT_P of the draws.
+
+    A draw whose response is not finite at a point is dropped.  One point
+    alone that exceeds the whole allowance rejects its draw, so each point's
+    deviation is capped at that (a loose parameter's far draw can reach
+    1e160, whose square would overflow); the capped sum still exceeds the
+    limit, and no verdict changes.
     """
     from scipy.stats import chi2
 
     sd = np.asarray(stddev, float)
     w = 2.0 / sd ** 2                       # complex σ: σ²/2 in each component
     c_nom = float(np.sum(w * np.abs(nominal - measured) ** 2))
-    c = np.sum(w * np.abs(at_data - measured[None, :]) ** 2, axis=1)
     limit = chi2.ppf(1.0 - REJECT_P, max(int(n_params), 1)) * max(redchi, 1e-12)
-    return (c - c_nom) <= limit
+    dev = np.abs(at_data - measured[None, :])
+    finite = np.all(np.isfinite(dev), axis=1)
+    # w·cap² = 2·(limit + c_nom): a point at its cap alone puts the draw past the limit
+    cap = np.sqrt(2.0 * (limit + c_nom) / w)
+    dev = np.minimum(np.where(np.isfinite(dev), dev, cap), cap)
+    c = np.sum(w * dev ** 2, axis=1)
+    return finite & ((c - c_nom) <= limit)
 
 
 def margin_spread(fit, f_lo: float, f_hi: float, *, draws: int = DRAWS,
