@@ -180,8 +180,6 @@ def test_bound_on_a_named_zero_is_honoured_by_that_name():
     assert all(abs(z) < 1e9 for z in res.model.zeros), "a zero added far above the band"
 
 
-@pytest.mark.xfail(strict=True, reason="fitting: the report headline counts the integrator "
-                   "twice: 'order 4 (+1 integrator)' for 3 poles and an integrator (--order 3)")
 def test_report_headline_order_with_an_integrator():
     # docs/fitting.md: "--order N gives exactly N poles"; integrators are counted apart
     # (--integrators).  The model asked: 3 poles + 1 integrator (the order scan prints 3:).
@@ -224,8 +222,6 @@ def test_fit_options_that_contradict_are_one_line_errors(tmp_path, capsys, argv,
     assert len(err) == 1 and err[0].startswith(f"benchfit: error: {option}:") and words in err[0], err
 
 
-@pytest.mark.xfail(strict=True, reason="fitting: fix={'pole1_hz': 0} (a pole at the origin) "
-                   "gives a NaN residual, reduced chi2 1e12 and 'nan× the noise floor', exit 0")
 def test_a_pole_fixed_at_zero_hz_is_refused_or_fitted():
     # Project rule (docs/errors.md): a user error is one clear line naming the option.  A pole
     # at 0 Hz is an integrator (docs/fitting.md: --integrators); the data, 5/((1+s/ω2k)

@@ -53,6 +53,24 @@ def _check_options(order, delay, weighting, integrators) -> None:
 
 
 
+def _check_fixed_values(fix: dict[str, float] | None) -> None:
+    """Refuse a held frequency or Q that no group of the model can have (InputError naming it).
+
+    A pole, zero or pair at 0 Hz is a factor s (an integrator or a differentiator), which the
+    normalised factors (1 + s/ω) cannot hold: it made every residual NaN.  Integrators are
+    asked for with ``integrators``; a Q of 0 or a non-finite value is no group either.
+    """
+    for name, value in (fix or {}).items():
+        if not name.endswith(("_hz", "_q")):
+            continue
+        v = float(value)
+        if not np.isfinite(v) or v == 0.0:
+            hint = (" (a pole at 0 Hz is an integrator: use --integrators)"
+                    if name.startswith("pole") and v == 0.0 else "")
+            raise InputError(f"{name}={value!r}: expected a finite, non-zero "
+                             f"{'Q' if name.endswith('_q') else 'frequency'}{hint}", source="--fix")
+
+
 #: Frequencies a fit accepts, Hz: far beyond any bench measurement on both sides (common
 #: practice, no source); past about 1e150 Hz the squares of ω leave the float range.
 FIT_SPAN_HZ = (1e-12, 1e15)
@@ -128,6 +146,7 @@ def fit(
     if not isinstance(resp, FrequencyResponse):
         raise InputError(f"expected a FrequencyResponse, got {type(resp).__name__}")
     _check_options(order, delay, weighting, integrators)
+    _check_fixed_values(fix)
     check_fit_span(resp)
     try:
         return _fit_stages(resp, order, delay, band, fix, weighting, integrators, bounds, stable)

@@ -191,7 +191,12 @@ class FitResult:
         """
         st = self.stats
         src = ", ".join(self.provenance.sources) or "in-memory data"
-        lines = [f"fit of {src}: order {st.get('order')}"
+        # stats["order"] counts every pole, the integrators too (JSON fit.order); the headline
+        # says the poles --order asks for and the integrators apart, as the order scan does
+        order = st.get("order")
+        if order is not None and self.integrators:
+            order = int(order) - int(self.integrators)
+        lines = [f"fit of {src}: order {order}"
                  + (f" (+{self.integrators} integrator{'s' * (self.integrators > 1)})"
                     if self.integrators else "")
                  + f", {st.get('points')} points, {numfmt.eng(st.get('f_min_hz', 0), 'Hz')} to "
