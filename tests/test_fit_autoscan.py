@@ -7,6 +7,8 @@ models are the truth the choices are checked against, and scipy.signal.freqs_zpk
 evaluates the reference responses.
 """
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from scipy import signal
@@ -149,3 +151,16 @@ def test_exact_one_lower_finds_the_generating_order_on_noiseless_data():
     a8 = exact_one_lower(ctx, a9, None)
     assert a8 is not None and a8.order == 8 and exact(a8)
     assert exact_one_lower(ctx, a8, None) is None
+
+
+def test_no_delay_scan_top_is_bounded_only_by_a_delay_hypothesis_at_the_floor():
+    # Rule of hypotheses.no_delay_scan_top: a delay hypothesis at the floor bounds the
+    # no-delay scan a few orders above its own order; one above the floor does not.
+    from benchfit.fitting.hypotheses import DELAY_ORDER_SPAN, no_delay_scan_top
+
+    at_floor = replace(_att(0.9 * CHI_OK), order=2)
+    above = replace(_att(6e6), order=2)
+    assert no_delay_scan_top(at_floor, 40) == 2 + DELAY_ORDER_SPAN
+    assert no_delay_scan_top(at_floor, 4) == 4
+    assert no_delay_scan_top(above, 40) == 40
+    assert no_delay_scan_top(replace(_att(np.inf), order=2), 40) == 40

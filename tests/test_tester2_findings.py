@@ -124,9 +124,6 @@ def test_servo_plant_with_rounded_frequencies_gets_no_phantom_pairs():
         assert q.stderr is None or not math.isfinite(q.stderr) or abs(q.stderr) < 1e3 * abs(q.value), q
 
 
-@pytest.mark.xfail(strict=True, reason="fitting: the automatic order on scikit-rf's "
-                   "wr2p2,line1.s2p S21 stops at order 6, reduced chi2 1.2e4, while order 8 "
-                   "reaches 0.57")
 def test_automatic_fit_of_wr2p2_line1_reaches_the_floor():
     # Reference: scikit-rf's VectorFitting at order 8 on the same file: rms relative error
     # 2.1e-6; benchfit's own fit(order=8, delay="none") reaches reduced chi2 0.57; the

@@ -29,6 +29,7 @@ from benchfit.fitting.groups import (
     without,
 )
 from benchfit.fitting.order import (
+    CHI_OK,
     Attempt,
     Context,
     attempt,
@@ -59,6 +60,30 @@ from benchfit.fitting.vectfit import vf_to_zpk
 #: When the no-delay scan's first order already reaches the floor, it restarts this
 #: many orders lower.
 DROP_STEP = 3
+
+
+#: Orders the no-delay scan looks beyond the delay hypothesis's order when that one
+#: reached the floor (common practice, no source: a delay near the top of the band
+#: costs a pole or two, as a Padé-like pair, to model without the delay).
+DELAY_ORDER_SPAN = 4
+
+
+def no_delay_scan_top(with_delay: Attempt, n_cap: int) -> int:
+    """Highest order the no-delay scan tries after the delay scan chose ``with_delay``.
+
+    Evidence weighed: whether the delay hypothesis reached the noise floor
+    (``chi <= CHI_OK``).  Only then does its order bound the no-delay scan: a
+    delay mistaken for poles needs more of them, never fewer, and a few more
+    (:data:`DELAY_ORDER_SPAN`) cover it.  A delay hypothesis still above the
+    floor says nothing about the order without a delay (scikit-rf's
+    ``wr2p2,line1.s2p`` S21: the delay scan stopped at order 2, 6e6 times the
+    floor, and the bound it set, 6, stopped the no-delay scan at 377 times the
+    floor while order 8 reaches it), so the no-delay scan runs to ``n_cap``
+    under its own stopping rules (:func:`benchfit.fitting.order.choose_order`).
+    """
+    if np.isfinite(with_delay.chi) and with_delay.chi <= CHI_OK:
+        return min(with_delay.order + DELAY_ORDER_SPAN, n_cap)
+    return n_cap
 
 
 class Hypothesis(NamedTuple):
@@ -123,7 +148,7 @@ def candidates(ctx: Context, f: np.ndarray, order, delay) -> tuple[list[Attempt]
         # floor (the delay scan's is already), so the no-delay scan starts there,
         # warm-started from the delay scan's poles; it restarts DROP_STEP orders
         # lower whenever its first order already reaches the floor.
-        top = min(with_delay.order + 4, max_order(sub.s.shape[0]))
+        top = no_delay_scan_top(with_delay, max_order(sub.s.shape[0]))
         n0 = with_delay.order - 2 + DROP_STEP
         while True:
             n0 = max(1, n0 - DROP_STEP)
