@@ -162,6 +162,21 @@ def test_boost_plant_rhp_zero_is_found():
     assert res.stats["reduced_chi2"] < 1.5
     assert abs(res.parameter("zero1_hz").value / -20e3 - 1) < 0.005
     assert abs(res.parameter("zero2_hz").value / 60e3 - 1) < 0.005
+    # the report says which zero lies in the right half-plane (tester2: no hint of the sign
+    # convention); the ESR zero is not marked
+    rows = {line.split()[-1]: line for line in res.report().splitlines() if line.startswith("  real zero")}
+    assert "(RHP)" in rows["zero1_hz"] and "(RHP)" not in rows["zero2_hz"]
+    assert "right half-plane: a negative frequency" in res.report()
+
+
+def test_in_right_half_plane_follows_the_documented_sign_convention():
+    # docs/fitting.md: negative pole/zero frequency = RHP; negative Q = RHP pair
+    from benchfit.fitting.result import in_right_half_plane as rhp
+
+    assert rhp("zero1_hz", -2e4) and rhp("pole2_hz", -1.0) and rhp("pair1_q", -0.5)
+    assert rhp("zero_pair1_q", -3.0)
+    assert not rhp("zero1_hz", 2e4) and not rhp("pair1_f0_hz", -1.0) and not rhp("gain", -1.0)
+    assert not rhp("delay_s", -1e-9) and not rhp("pair1_q", float("nan"))
 
 
 @pytest.mark.xfail(strict=True, reason="fitting: --bound zero2_hz=70k: leaves zero2_hz at "

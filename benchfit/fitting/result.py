@@ -20,6 +20,19 @@ STAT_KEYS = ("rms_db", "rms_deg", "max_db", "max_deg", "reduced_chi2", "points",
              "f_max_hz", "order", "iterations", "converged", "noise_floor_db")
 
 
+
+def in_right_half_plane(name: str, value: float) -> bool:
+    """True when parameter ``name`` at ``value`` puts its root in the right half-plane.
+
+    The sign convention of docs/fitting.md: a real pole or zero at a negative
+    frequency, a pair (of poles or zeros) with a negative Q.  Natural
+    frequencies, the gain and the delay carry no half-plane.
+    """
+    if not (value < 0):
+        return False
+    real = name.startswith(("pole", "zero")) and name.endswith("_hz") and "pair" not in name
+    return real or name.endswith("_q")
+
 @dataclass(frozen=True)
 class Parameter:
     """One physical parameter of the fitted model.
@@ -216,8 +229,12 @@ class FitResult:
                 err, rel = "not determined", ""
             else:
                 err, rel = "not estimated", ""
-            lines.append(f"  {parameter_label(p.name):<32} {numfmt.quantity(p.value, unit, numfmt.FIT_DIGITS):>12} "
+            label = parameter_label(p.name) + (" (RHP)" if in_right_half_plane(p.name, p.value) else "")
+            lines.append(f"  {label:<32} {numfmt.quantity(p.value, unit, numfmt.FIT_DIGITS):>12} "
                          f"{err:>14} {rel:>9}  {p.name}")
+        if any(in_right_half_plane(p.name, p.value) for p in self.parameters):
+            lines.append("  (RHP) right half-plane: a negative frequency or Q (docs/fitting.md); "
+                         "an RHP zero adds phase lag, an RHP pole is unstable")
         strong = []
         c = np.asarray(self.correlation)
         for i in range(len(self.varied)):
