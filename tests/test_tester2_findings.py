@@ -3,7 +3,6 @@
 Each check names its reference beside it: python-control 0.10 (``stability_margins`` on
 the true loop, sampled densely as an FRD so a delay is exact), scipy.signal.freqs_zpk
 (the generating models), scikit-rf's VectorFitting and its shipped Touchstone files.
-The checks marked xfail are defects inside ``benchfit/fitting/`` left for its owners.
 """
 
 import math
@@ -103,10 +102,6 @@ def _servo_plant_six_digit_frequencies(n_points: int) -> FrequencyResponse:
     return FrequencyResponse(freq_hz=f6, response=10 ** (db / 20) * np.exp(1j * np.radians(deg)))
 
 
-@pytest.mark.xfail(strict=True, reason="fitting: on a servo plant exported with 6-digit "
-                   "frequencies the automatic fit keeps 3 cancelling pole/zero pairs at 1-14 Hz "
-                   "(9 poles for 3), one with Q -1e77 ± 5e151 shown as a determined σ, "
-                   "and calls its 2 RHP poles demanded by the data")
 def test_servo_plant_with_rounded_frequencies_gets_no_phantom_pairs():
     # Reference: the generating model (scipy.signal.freqs_zpk): 3 poles besides the
     # integrator, all stable (python-control: control.poles of the same zpk).  At
@@ -179,8 +174,6 @@ def test_in_right_half_plane_follows_the_documented_sign_convention():
     assert not rhp("delay_s", -1e-9) and not rhp("pair1_q", float("nan"))
 
 
-@pytest.mark.xfail(strict=True, reason="fitting: --bound zero2_hz=70k: leaves zero2_hz at "
-                   "60 kHz and puts the bound on an added zero3_hz at 6.6e63 Hz (σ 1e119)")
 def test_bound_on_a_named_zero_is_honoured_by_that_name():
     # docs/fitting.md: --bound works on any parameter a model of the order has, and a
     # parameter that ends on its bound is flagged at bound.  Reference for the names: the

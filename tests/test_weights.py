@@ -59,3 +59,62 @@ def test_relative_complex_noise_gives_equal_sigma_for_magnitude_and_phase():
     sg = point_sigma(h)
     assert np.median(sg.mag) == pytest.approx(0.004, rel=0.1)
     assert np.median(sg.phase) == pytest.approx(0.004, rel=0.1)
+
+
+# --- rounded frequency columns (weights.printed_digits, frequency_sigma)
+
+def test_printed_digits_counts_the_significant_digits_of_a_column():
+    from benchfit.fitting.weights import printed_digits
+
+    f = np.logspace(0, 4, 301)
+    assert printed_digits(np.array([float(f"{x:.6g}") for x in f])) == 6
+    assert printed_digits(np.array([10.0, 20.0, 50.0, 100.0])) == 1
+    assert printed_digits(f) is None  # full float precision
+
+
+def test_a_six_digit_log_sweep_carries_the_rounding_error_of_its_last_digit():
+    # Handbook: rounding to a unit u leaves a uniform error on [−u/2, u/2], σ = u/√12.
+    from benchfit.fitting.weights import frequency_sigma
+
+    f = np.logspace(0, 4, 301)
+    f6 = np.array([float(f"{x:.6g}") for x in f])
+    sf = frequency_sigma(f6)
+    unit = 10.0 ** (np.floor(np.log10(f6)) - 5)
+    assert np.allclose(sf, unit / np.sqrt(12.0))
+    # the rounding really is that size: the printed column departs from the true one by it
+    assert np.std((f6 - f) / unit) == pytest.approx(1 / np.sqrt(12.0), rel=0.15)
+
+
+@pytest.mark.parametrize("column", [
+    np.logspace(0, 4, 301),                                   # full precision
+    np.array([100.0, 150.0, 220.0, 330.0, 470.0, 680.0, 1e3, 1.5e3, 2.2e3]),  # E6 set list
+    np.arange(100.0, 2100.0, 100.0),                           # exact linear grid
+])
+def test_exact_or_set_frequencies_get_no_rounding_error(column):
+    # IEC 60063 E6 values (the list above) are frequencies an instrument is set to, not
+    # a rounded sweep; neither they nor an exact grid gain a σ.
+    from benchfit.fitting.weights import frequency_sigma
+
+    assert not np.any(frequency_sigma(column) > 0)
+
+
+def test_rounded_frequencies_widen_sigma_only_where_the_response_moves_fast():
+    # A resonance at 800 Hz, Q 20 (values by scipy.signal.freqs): the phase of a second-order
+    # pair turns at 2Q rad per neper of frequency at its centre (handbook: dφ/d ln ω = 2Q at
+    # ω0), so a 6-digit frequency error of ~3e-7 relative adds ~40·3e-7 rad there, in
+    # quadrature, and next to nothing far from it.
+    from scipy import signal
+
+    f = np.logspace(2.5, 3.2, 2001)
+    f6 = np.array([float(f"{x:.6g}") for x in f])
+    w0 = 2 * np.pi * 800
+    _, h = signal.freqs([w0 ** 2], [1, w0 / 20, w0 ** 2], worN=2 * np.pi * f)
+    plain = point_sigma(h)
+    rounded = point_sigma(h, freq_hz=f6)
+    near = np.argmin(np.abs(f - 800))
+    added = np.sqrt(rounded.phase ** 2 - plain.phase ** 2)
+    sf_rel = 10.0 ** (np.floor(np.log10(f6[near])) - 5) / np.sqrt(12) / f6[near]
+    assert added[near] == pytest.approx(40 * sf_rel, rel=0.02)
+    assert added[0] < 0.05 * added[near]
+    assert "rounded frequencies" in rounded.source
+    assert point_sigma(h, freq_hz=f).source == plain.source

@@ -130,8 +130,9 @@ def at_bound_warning(names, params) -> str:
     val = {p.name: p for p in params}
     said = ", ".join(f"{n} = {numfmt.quantity(val[n].value, val[n].unit, numfmt.FIT_DIGITS)}"
                      for n in names)
-    return (f"at bound: {said}; the data pull it past the bound (the --bound given, or zero for "
-            "a stable pole or a causal delay), so the covariance is not valid there and no σ is "
+    return (f"at bound: {said}; the data pull it past the bound (the --bound given, the one that "
+            "keeps a bounded or fixed frequency at the rank its name gives, or zero for a stable "
+            "pole or a causal delay), so the covariance is not valid there and no σ is "
             "given for it (the others' σ hold it at the bound); widen the bound to let the data "
             "place it")
 

@@ -15,6 +15,7 @@ import re
 import numpy as np
 
 from benchfit.errors import InputError
+from benchfit.fitting.ordering import magnitude_range
 from benchfit.fitting.parameters import TWO_PI, Structure, response
 from benchfit.fitting.refine import Refined
 from benchfit.fitting.weights import PointSigma
@@ -270,7 +271,7 @@ def conform(st: Structure, values: np.ndarray, fixed: dict[str, float],
     zp = [(v[f"zero_pair{i}_f0_hz"], v[f"zero_pair{i}_q"]) for i in range(1, st.zero_pairs + 1)]
     if need["pole"] <= len(rp) and need["pair"] <= len(pp) and need["zero"] <= len(rz) \
             and need["zero_pair"] <= len(zp) and ("delay_s" not in names or st.delay):
-        return _held_in_place(st, values, fixed)
+        return _held_in_place(st, values, fixed, bounds)
     poles = _split_pairs(rp, pp, need["pole"], need["pair"])
     if poles is None:
         asked = [n for n in names if n.startswith(("pole", "pair"))]
@@ -304,28 +305,53 @@ def conform(st: Structure, values: np.ndarray, fixed: dict[str, float],
         tau = float(np.clip(tau, *bounds["delay_s"]))
     st2 = Structure(len(rp), len(pp), len(rz), len(zp), st.integrators, delay)
     vals = [v["gain"], *rp, *[x for p in pp for x in p], *rz, *[x for p in zp for x in p]]
-    return _held_in_place(st2, np.asarray(vals + ([tau] if delay else []), dtype=float), fixed)
+    return _held_in_place(st2, np.asarray(vals + ([tau] if delay else []), dtype=float), fixed,
+                          bounds)
 
 
-def _held_in_place(st: Structure, values: np.ndarray, fixed: dict[str, float]
+def bound_target(lo: float, hi: float) -> float | None:
+    """The frequency a bound points at, for choosing the group it holds (None: no place).
+
+    The middle of the allowed magnitudes in log terms (√(a·b)), or the finite edge
+    of a one-sided range (``:250`` points at 250 Hz); a range from 0 to infinity (a
+    sign only) points nowhere.
+    """
+    if lo < 0 < hi:  # spans zero: the edge the user wrote
+        edge = hi if np.isfinite(hi) else -lo
+        return float(edge) if np.isfinite(edge) else None
+    a, b = magnitude_range(lo, hi)
+    if a > 0 and np.isfinite(b):
+        return float(np.sqrt(a * b))
+    if a > 0:
+        return float(a)
+    return float(b) if np.isfinite(b) and b > 0 else None
+
+
+def _held_in_place(st: Structure, values: np.ndarray, fixed: dict[str, float],
+                   bounds: dict[str, tuple[float, float]] | None = None
                    ) -> tuple[Structure, np.ndarray]:
-    """Values with the group nearest (in log frequency) to each fixed frequency moved to
-    the fixed name's place.
+    """Values with the group nearest (in log frequency) to each fixed frequency, or to the
+    range a bound allows (:func:`bound_target`), moved to the held name's place.
 
     Holding ``pole1_hz`` at 350 kHz when vector fitting put the poles at 1 kHz
     and 350 kHz must hold the 350 kHz pole, not drag the 1 kHz one up and
     send the other looking for it (it wandered off to −9e11 Hz).
     """
+    targets = dict(fixed)
+    for name, (lo, hi) in (bounds or {}).items():
+        t = bound_target(float(lo), float(hi))
+        if name not in targets and t is not None:
+            targets[name] = t
     v = np.array(values, dtype=float)
     names = st.names
-    for name, target in fixed.items():
+    for name, target in targets.items():
         m = _GROUP_NAME.match(name)
         if m is None or m.group(3) == "q" or name not in names or not target:
             continue
         kind, key = m.group(1), m.group(3)
         same = [i for i, nm in enumerate(names)
                 if (mm := _GROUP_NAME.match(nm)) and mm.group(1) == kind and mm.group(3) == key
-                and nm not in fixed]
+                and nm not in targets]
         if not same:
             continue
         here = names.index(name)

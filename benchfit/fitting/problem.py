@@ -18,6 +18,7 @@ import numpy as np
 from benchfit.data.response import FrequencyResponse
 from benchfit.errors import FitError, InputError
 from benchfit.fitting.order import CHI_OK, Attempt, Context
+from benchfit.fitting.ordering import rank_bounds
 from benchfit.fitting.parameters import TWO_PI, Structure
 from benchfit.fitting.refine import Refined, objective, refine
 from benchfit.fitting.weights import PointSigma, point_sigma, scatter_sigma, vf_weight
@@ -132,11 +133,15 @@ class Problem:
         """True when the user fixes or bounds a parameter whose name starts with a prefix."""
         return any(key.startswith(prefixes) for key in (*self.fixed, *self.bounds))
 
-    def bounds_for(self, st: Structure, causal: bool = False) -> dict[str, tuple[float, float]]:
+    def bounds_for(self, st: Structure, causal: bool = False, values: np.ndarray | None = None
+                   ) -> dict[str, tuple[float, float]]:
         """The user's bounds for the parameters of ``st``; with ``causal`` a delay held
         at or above zero; with :attr:`stable` every pole frequency and pair Q held at
-        or above zero (left half-plane)."""
-        out = dict(self.bounds)
+        or above zero (left half-plane); with the start ``values``, the bounds that
+        keep a held frequency at the rank its name gives
+        (:func:`benchfit.fitting.ordering.rank_bounds`)."""
+        out = dict(self.bounds) if values is None else rank_bounds(st, values, self.bounds,
+                                                                   self.fixed)
         if causal and st.delay:
             lo, hi = out.get("delay_s", (-np.inf, np.inf))
             out["delay_s"] = (max(lo, 0.0), hi)
@@ -196,7 +201,7 @@ class Problem:
 
         def run(st: Structure, values: np.ndarray, max_nfev: int = 200) -> Refined:
             return refine(st, values, s[sel], h[sel], sig.mag[sel], sig.phase[sel],
-                          fix=self.fixed, bounds=self.bounds_for(st, causal),
+                          fix=self.fixed, bounds=self.bounds_for(st, causal, values),
                           weighting=self.weighting,
                           sig_abs=sig_abs, max_nfev=max_nfev)
 
@@ -248,7 +253,7 @@ def prepare(resp: FrequencyResponse, order: int | str, delay: float | str, band,
     if np.ptp(lnm) < 1e-9 and np.ptp(ph) < 1e-9:
         raise FitError("the response is constant over the band: there is nothing for poles and "
                        "zeros to fit (a pure gain)")
-    sigma = point_sigma(h, resp.stddev, resp.coherence, resp.weight)
+    sigma = point_sigma(h, resp.stddev, resp.coherence, resp.weight, freq_hz=f)
     m = detect_integrators(f, h) if integrators == "auto" else int(integrators)
     scale = TWO_PI * float(np.sqrt(f[0] * f[-1]))
     direct, prop = hf_terms(f, h, m)

@@ -11,6 +11,15 @@ match wins):
 * its ``weight`` column (σ ∝ 1/weight), scaled by the scatter,
 * otherwise the point-to-point scatter of the data itself.
 
+A frequency column printed to a few significant digits (an analyzer export
+that rounds a log sweep to 6 digits) puts a second error on every point: the
+response was measured at a frequency up to half a unit of the last digit away
+from the one written down.  Where the response moves fast (a Q-20 resonance
+turns the phase by 2Q rad per neper of frequency) that error dwarfs the
+printed gain and phase digits; :func:`frequency_sigma` gives its σ and
+:func:`point_sigma` adds slope × σ_f in quadrature, so the fit does not add
+phantom pole/zero pairs to chase it.
+
 A coherence or weight column is used only when it explains the scatter at
 least as well as the running scatter estimate does (likelihood of the third
 differences); otherwise the scatter wins and the source says so.
@@ -127,14 +136,108 @@ def scatter_sigma(x: np.ndarray, rel: np.ndarray | None = None) -> np.ndarray:
     return np.maximum(local, SIGMA_MIN)
 
 
-def point_sigma(h: np.ndarray, stddev=None, coherence=None, weight=None) -> PointSigma:
+#: Most significant digits a frequency column is tested for: a column that needs more is
+#: taken as printed at full precision (no rounding error to add).
+MAX_PRINTED_DIGITS = 12
+
+
+def printed_digits(freq_hz: np.ndarray) -> int | None:
+    """Fewest significant digits that reproduce every frequency of the column, or None.
+
+    None means no count up to :data:`MAX_PRINTED_DIGITS` does: the column is full
+    precision.  Values are compared to their rounded selves within 1e-12 relative.
+    """
+    f = np.abs(np.asarray(freq_hz, dtype=float))
+    f = f[np.isfinite(f) & (f > 0)]
+    if f.size == 0:
+        return None
+    exp10 = np.floor(np.log10(f))
+    for d in range(1, MAX_PRINTED_DIGITS + 1):
+        unit = 10.0 ** (exp10 - d + 1)
+        if np.all(np.abs(np.round(f / unit) * unit - f) <= 1e-12 * f):
+            return d
+    return None
+
+
+#: A printed column reads as a rounded sweep only where its rounding unit is below this
+#: fraction of the spacing between points; coarser digits (an E6 list, 100/200/300 Hz)
+#: are the frequencies the instrument was set to (common practice, no source).
+ROUNDED_GRID_SPACING = 0.05
+
+
+def frequency_sigma(freq_hz: np.ndarray) -> np.ndarray:
+    """σ (Hz) of each frequency from the rounding of a printed column; zeros when exact.
+
+    Evidence weighed: the column reads as a regular sweep rounded to ``d``
+    significant digits when (a) :func:`printed_digits` finds ``d``; (b) one unit
+    of the ``d``-th digit is below :data:`ROUNDED_GRID_SPACING` of the spacing to
+    the neighbouring points everywhere (digits that fine cannot be the set
+    values of a sweep that coarse, they are a finer value written short); and
+    (c) the column departs from the straight log (or linear) grid through its
+    points by no more than one unit anywhere, and by something somewhere.  Then
+    each frequency carries the error of rounding, uniform over one unit:
+    σ = unit/√12.  A column that *is* its grid exactly, or is no regular grid
+    (points placed by an adaptive capture), is taken as the frequencies the
+    instrument was set to: σ 0.
+    """
+    f = np.asarray(freq_hz, dtype=float)
+    zero = np.zeros_like(f)
+    d = printed_digits(f)
+    if d is None or f.size < 4 or np.any(~np.isfinite(f)) or np.any(f <= 0):
+        return zero
+    unit = 10.0 ** (np.floor(np.log10(f)) - d + 1)
+    gap = np.abs(np.diff(f))
+    spacing = np.minimum(np.r_[gap[0], gap], np.r_[gap, gap[-1]])
+    if not np.all(unit < ROUNDED_GRID_SPACING * spacing):
+        return zero
+    k = np.arange(f.size, dtype=float)
+    for grid in (np.exp(np.polyval(np.polyfit(k, np.log(f), 1), k)),
+                 np.polyval(np.polyfit(k, f, 1), k)):
+        dev = np.abs(f - grid)
+        # one unit, not half: the grid is fitted to the rounded points, so it is itself
+        # off by a part of a unit where the unit is smallest (just below a decade)
+        if np.all(dev <= unit) and np.any(dev > 1e-3 * unit):
+            return unit / np.sqrt(12.0)
+    return zero
+
+
+def point_sigma(h: np.ndarray, stddev=None, coherence=None, weight=None,
+                freq_hz: np.ndarray | None = None) -> PointSigma:
     """σ of ln|H| and of phase per point (see module docstring).
+
+    Parameters
+    ----------
+    h
+        Complex response.
+    stddev, coherence, weight
+        Optional per-point columns of the file (first match wins).
+    freq_hz
+        The frequency column; when given and rounded (:func:`frequency_sigma`), the
+        response's slope times the frequency's σ is added in quadrature.
 
     Raises
     ------
     FitError
         When the given stddev/coherence/weight column has no usable value.
     """
+    ps = _data_sigma(h, stddev, coherence, weight)
+    if freq_hz is None:
+        return ps
+    f = np.asarray(freq_hz, dtype=float)
+    sf = frequency_sigma(f)
+    if not np.any(sf > 0) or f.size < 3:
+        return ps
+    h = np.asarray(h, dtype=complex)
+    lnf = np.log(f)
+    rel_f = sf / f  # σ of ln f
+    slope_m = np.gradient(np.log(np.abs(h)), lnf)
+    slope_p = np.gradient(np.unwrap(np.angle(h)), lnf)
+    return PointSigma(np.hypot(ps.mag, slope_m * rel_f), np.hypot(ps.phase, slope_p * rel_f),
+                      ps.source + " + rounded frequencies")
+
+
+def _data_sigma(h: np.ndarray, stddev=None, coherence=None, weight=None) -> PointSigma:
+    """σ of ln|H| and phase from the response's own columns or scatter (module docstring)."""
     h = np.asarray(h, dtype=complex)
     mag = np.abs(h)
     if np.any(mag == 0):
