@@ -30,7 +30,7 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
     s = 1j * TWO_PI * f
     # Each group numbered from the lowest frequency up, as the names promise.
     ref, moved = renumbered(st, ref)
-    held = sorted(k for k in moved if k in fixed or k in (settings.get("bounds") or {}))
+    held = held_names_moved(st, ref.values, moved, fixed, settings.get("bounds") or {})
     if held:
         notes = [*notes, "numbered from the lowest frequency up: " + ", ".join(
             f"{k} is now {moved[k]}" for k in held)]
@@ -123,6 +123,29 @@ def poorly_identified(p: Parameter, f_min: float, f_max: float) -> bool:
     if sd is None or not np.isfinite(sd):
         return True
     return bool(v < f_min and sd > LOOSE * v)
+
+
+def held_names_moved(st, values, moved: dict[str, str], fixed: dict[str, float],
+                     bounds: dict) -> list[str]:
+    """The names the user fixed or bounded that the lowest-first renumbering gave away.
+
+    Evidence weighed: a fixed name that moved (its value now sits under another
+    name); a bounded name that moved *and* whose name now holds a value outside
+    the user's bound.  When the group now under a bounded name keeps the bound
+    (two pole pairs both held above it by :func:`~benchfit.fitting.ordering.rank_bounds`
+    trade slots), the user's name still means what they asked: nothing to say.
+    """
+    v = dict(zip(st.names, np.asarray(values, dtype=float), strict=True))
+    out = []
+    for k in sorted(moved):
+        if k in fixed:
+            out.append(k)
+        elif k in bounds and k in v:
+            lo, hi = (float(x) for x in bounds[k])
+            tol = 1e-9 * max(abs(v[k]), 1e-300)
+            if not (lo - tol <= v[k] <= hi + tol):
+                out.append(k)
+    return out
 
 
 def at_bound_warning(names, params) -> str:

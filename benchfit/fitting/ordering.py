@@ -41,7 +41,10 @@ def rank_bounds(st: Structure, values: np.ndarray, bounds: dict[str, tuple[float
     passes through 0 Hz or infinity, which the bounds also forbid).  Pair
     frequencies are positive, so their bound is direct.  Nothing is added for
     groups whose start already breaks the order, nor where the user bounds the
-    group too: their own bound stands.
+    group too: their own bound stands.  A bounded range that spans zero
+    (``--bound zero1_hz=:50k``) is narrowed to the side of zero where the group
+    starts, for the same reason: through the sign the group could leave the
+    range's intent while keeping to its letter, and another take its name.
     """
     out = dict(bounds)
     held: dict[str, tuple[float, float]] = {k: v for k, v in bounds.items() if _FREQ.match(k)}
@@ -51,6 +54,12 @@ def rank_bounds(st: Structure, values: np.ndarray, bounds: dict[str, tuple[float
     if not held:
         return out
     v = dict(zip(st.names, np.asarray(values, dtype=float), strict=True))
+    for name, (lo, hi) in list(held.items()):
+        if name in v and name in bounds and lo < 0 < hi and v[name] != 0:
+            # a range across zero holds its group on the side it starts: ``:50k`` is a zero
+            # below 50 kHz, not one that escapes to -20 MHz (an RHP zero is "below" too)
+            lo, hi = (0.0, hi) if v[name] > 0 else (lo, 0.0)
+            held[name] = out[name] = (lo, hi)
     for name, (lo, hi) in held.items():
         m = _FREQ.match(name)
         if name not in v:
