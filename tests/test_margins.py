@@ -431,3 +431,27 @@ def test_coarse_phase_crossings_of_a_long_delay_warn_on_one_line():
     m = margins_from_data(f, T)
     coarse = [w for w in m.warnings if w.startswith("phase crossing at") and "coarse" in w]
     assert len(coarse) == 1 and "more phase crossing(s)" in coarse[0]
+
+
+@pytest.mark.parametrize("im", [1.372e-17, 5e-17, -1e-17, 0.0, -0.0])
+def test_a_grid_point_exactly_on_the_phase_crossover_keeps_the_gain_margin(im):
+    # An op-amp buffer loop, 1e5/((1+s/ω10)(1+s/ω500k)(1+s/ω5M)); reference: python-control
+    # stability_margins on the transfer function itself.  A grid point placed at the phase
+    # crossover (as the capture planner's dense grid does) has Im T at rounding level, so
+    # its phase reads +180° or -180°: the crossing was lost and the gain margin read as
+    # infinite (seen on a simulated capture: GM 'not determined' with the crossing
+    # bracketed by measured points).
+    w = [2 * np.pi * x for x in (10.0, 500e3, 5e6)]
+    s = control.tf("s")
+    loop = 1e5 / ((1 + s / w[0]) * (1 + s / w[1]) * (1 + s / w[2]))
+    gm_ref, _, _, wpc, _, _ = control.stability_margins(loop)
+    fpc = wpc / (2 * np.pi)
+    f = np.unique(np.concatenate([np.logspace(3, 7.5, 300), [fpc]]))
+    T = np.array([complex(loop(2j * np.pi * x)) for x in f])
+    i = int(np.argmin(np.abs(f - fpc)))
+    T[i] = complex(-abs(T[i]), im)  # |T| is 0.18 there; 1.372e-17 is the value seen
+    b = margins_batch(f, T)
+    assert b["gm_db"][0] == pytest.approx(20 * np.log10(gm_ref), abs=0.01)
+    assert b["phase_crossover_hz"][0] == pytest.approx(fpc, rel=1e-6)
+    assert len(b["phases_gm_db"][0]) == 1  # counted once
+    assert margins_from_data(f, T).gain_margin_db == pytest.approx(20 * np.log10(gm_ref), abs=0.01)

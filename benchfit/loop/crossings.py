@@ -81,6 +81,10 @@ def wrap_rad(a):
     return np.pi - np.mod(np.pi - a, 2 * np.pi)
 
 
+#: Rounding allowance (rad) for an interval that ends exactly on ±π (see branch_crossings).
+_ON_PI = 1e-9
+
+
 def branch_crossings(T: np.ndarray, cand: tuple[np.ndarray, np.ndarray], offset: float = 0.0):
     """Intervals where ∠(T + offset) (stepping by the wrapped difference) passes ±180°.
 
@@ -89,10 +93,17 @@ def branch_crossings(T: np.ndarray, cand: tuple[np.ndarray, np.ndarray], offset:
     of the interval at which the crossing lies.
     """
     r, c = cand
-    a = np.angle(T[r, c] + offset)
+    t0 = T[r, c] + offset
+    # Im exactly 0 counts on the Im <= 0 side (the sign test above); np.angle gives +π for
+    # a negative real with +0 imaginary part, the other side's value
+    a = np.where((t0.imag == 0) & (t0.real < 0), -np.pi, np.angle(t0))
     step = wrap_rad(np.angle(T[r, c + 1] + offset) - a)
     end = a + step
-    keep = (end > np.pi) | (end <= -np.pi)
+    # A point sitting on the crossing (Im T ~ 1e-17: a grid point placed at the nominal
+    # phase crossover) ends its interval at ±π up to rounding, a hair inside: the sign
+    # change of Im T already says a crossing of 0 or ±π lies here, and |end| near π says
+    # which, so the test allows rounding (an interval that passes 0 ends near 0).
+    keep = (end > np.pi - _ON_PI) | (end <= -np.pi + _ON_PI)
     r, c, a, step = r[keep], c[keep], a[keep], step[keep]
     target = np.where(step > 0, np.pi, -np.pi)
-    return r, c, a, step, (target - a) / step
+    return r, c, a, step, np.clip((target - a) / step, 0.0, 1.0)
