@@ -117,6 +117,31 @@ def test_budget_stop_says_so(tmp_path):
     assert any("asked" in w for w in res.warnings) or res.stopped_because != PRECISION
 
 
+def test_a_budget_inside_the_coarse_pass_warns_first_and_null_sigmas_in_json(tmp_path):
+    # tester: --max-points 20 under a 32-point coarse pass gave no word up front, a σ of
+    # "inf" (a string) in the JSON beside null elsewhere
+    s = AdaptiveSettings(*SCENARIOS["converter"][1], max_points=12)
+    res, *_ = capture(tmp_path, "converter", settings=s)
+    assert res.stopped_because == MAX_POINTS
+    assert any("below the" in w and "coarse pass" in w for w in res.warnings)
+    d = json.loads(json.dumps(res.to_dict()))
+    for entry in [d, *d["history"]]:
+        for k in ("phase_margin_sigma_deg", "gain_margin_sigma_db"):
+            assert entry.get(k) is None or isinstance(entry[k], float), (k, entry.get(k))
+
+
+def test_a_capture_buried_in_noise_writes_no_sweep_and_says_why(tmp_path):
+    # a level far too small for the noise: every point is buried, no sweep file can exist;
+    # the result says so instead of naming a file that was never written
+    build, band = SCENARIOS["converter"]
+    s = AdaptiveSettings(*band, max_points=6, level_v=1e-6, max_repeats=2, linearity=False)
+    res, *_ = capture(tmp_path, "converter", settings=s, noise_density_v=1e-2)
+    assert res.path == "" and not (tmp_path / "loop.csv").exists()
+    assert any("no sweep file written" in w and "buried" in w for w in res.warnings)
+    assert not any("fewer than two points measured" in w for w in res.warnings)
+    assert "no sweep file" in res.summary()
+
+
 def test_resume_after_a_lost_connection_continues_without_duplicates(tmp_path):
     s = AdaptiveSettings(*SCENARIOS["converter"][1])
     with pytest.raises(InstrumentError):

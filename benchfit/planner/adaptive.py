@@ -220,7 +220,7 @@ class AdaptiveCapture(RoundPlanner):
 
         rows = self._sweep()
         if len(rows) < 2:
-            raise FitError("fewer than two points measured")
+            raise FitError(self._too_few(rows))
         resp = FrequencyResponse(
             freq_hz=np.array([r.freq_hz for r in rows]), response=np.array([r.response for r in rows]),
             stddev=self._stddev(rows), quantity=self.s.quantity)
@@ -230,6 +230,13 @@ class AdaptiveCapture(RoundPlanner):
         if result.integrators:
             self.integrators = result.integrators
         return resp, result, resid
+
+    def _too_few(self, rows) -> str:
+        """Why there is no sweep to fit: fewer than two points rose above the noise."""
+        buried = sum(1 for r in self.rows if r.purpose.endswith("-buried"))
+        return (f"only {len(rows)} point(s) in the sweep: {len(self.rows)} measured, {buried} of "
+                "them buried in the noise (raise --level, lower --bandwidth, or narrow the band "
+                "with --start/--stop)")
 
     def _linearity(self, crossover_hz: float, decisive: list[tuple[float, float]]) -> bool:
         """Run the check; True when the level changed (the sweep must be re-measured)."""
@@ -287,6 +294,11 @@ class AdaptiveCapture(RoundPlanner):
                                  "choose another file", source=str(self.out))
             create_log(self.log, self.s.to_dict())
         self.probe.configure()
+        n_coarse = len(pl.coarse_grid(self.s.start_hz, self.s.stop_hz, self.per_decade))
+        if self.s.max_points < n_coarse:
+            self.warnings.append(f"--max-points {self.s.max_points} is below the {n_coarse} points of "
+                                 "the coarse pass over the band: the capture stops inside it, before "
+                                 "the planner places any point")
         stopped = None
         spread = None
         result = None
@@ -311,10 +323,14 @@ class AdaptiveCapture(RoundPlanner):
                 spread = margin_spread(result, *self._fit_band(resp), rng=self.rng, data=resp)
                 gm = self.plan_round(resp, result, spread, resid).gm
             except (FitError, InputError) as e:
-                self.warnings.append(f"the final fit failed: {e}")
+                if len(self._sweep()) >= 2:  # else the no-sweep warning below says why
+                    self.warnings.append(f"the final fit failed: {e}")
         if spread is not None and stopped in (PRECISION, PM_ONLY) and not fit_adequate(result, resid):
             stopped = NOTHING_LEFT
         self._write_sweep(complete=stopped != INTERRUPTED, stopped=stopped)
+        if len(self._sweep()) < 2:
+            self.warnings.append(f"no sweep file written ({self._too_few(self._sweep())}); every "
+                                 f"reading is in {self.log.name}")
         return self._result(spread, stopped, rounds, gm)
 
     def _refuse_unless_loop_gain(self) -> None:
@@ -374,7 +390,7 @@ class AdaptiveCapture(RoundPlanner):
         if gm is not None and not gm.has_value:
             self.warnings.append(f"gain margin {gm.status}: {gm.reason}")
         return AdaptiveResult(
-            path=str(self.out), log_path=str(self.log), points=len(sweep), points_measured=len(self.rows),
+            path=str(self.out) if len(sweep) >= 2 else "", log_path=str(self.log), points=len(sweep), points_measured=len(self.rows),
             readings=int(sum(r.repeats for r in self.rows)), instrument_time_s=self.elapsed_s,
             phase_margin_deg=m.phase_margin_deg if m else nan,
             phase_margin_sigma_deg=spread.pm_sigma_deg if spread else nan,

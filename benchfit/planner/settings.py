@@ -113,6 +113,15 @@ class AdaptiveSettings:
         return cls(**kw)
 
 
+#: The σ fields of a result and of its history entries.
+_SIGMAS = ("phase_margin_sigma_deg", "gain_margin_sigma_db")
+
+
+def _known_sigma(v: Any) -> float | None:
+    """A σ as JSON gives it: the number when finite, else None (not known)."""
+    return float(v) if isinstance(v, (int, float)) and math.isfinite(v) else None
+
+
 @dataclass(frozen=True)
 class AdaptiveResult:
     """What an adaptive capture found and why it stopped.
@@ -123,7 +132,10 @@ class AdaptiveResult:
     ``gain_margin_status`` is one of benchfit.planner.gainmargin's words
     (known, more than 30 dB, beyond the band, not determined, not known yet);
     beyond the band and not determined have no value (``gain_margin_db`` and
-    its σ are NaN, JSON null) and ``gain_margin_note`` says why.
+    its σ are NaN, JSON null) and ``gain_margin_note`` says why.  A σ not
+    known yet (the budget ended first) is null in JSON too; the history's
+    ``why_unknown`` says why.  ``path`` is "" when fewer than two points rose
+    above the noise, so no sweep file was written (a warning says so).
     """
 
     path: str
@@ -155,8 +167,13 @@ class AdaptiveResult:
         return self.stopped_because == PRECISION
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain data for JSON; a σ not known (infinite, NaN) is None (JSON null), in the
+        history too, so a script finds either a number or null, never a string."""
         d = {k: getattr(self, k) for k in self.__dataclass_fields__}
-        d["history"] = [dict(h) for h in self.history]
+        for k in _SIGMAS:
+            d[k] = _known_sigma(d[k])
+        d["history"] = [{k: (_known_sigma(v) if k in _SIGMAS else v) for k, v in h.items()}
+                        for h in self.history]
         d["warnings"] = list(self.warnings)
         d["provenance"] = self.provenance.to_dict()
         d["kind"] = "adaptive_capture_result"
@@ -199,7 +216,8 @@ class AdaptiveResult:
               else f"gain margin  {self.gain_margin_status}" + (f": {self.gain_margin_note}"
                                                                 if self.gain_margin_note else ""))
         return (f"{self.points} points ({self.points_measured} measured, {self.readings} readings) in "
-                f"{numfmt.eng(self.instrument_time_s, 's', 4)} of instrument time into {self.path}\n"
+                f"{numfmt.eng(self.instrument_time_s, 's', 4)} of instrument time "
+                + (f"into {self.path}\n" if self.path else f"(no sweep file: see {self.log_path})\n") +
                 f"phase margin {pm(self.phase_margin_deg, self.phase_margin_sigma_deg, 'deg', '.2f')} "
                 f"at {numfmt.eng(self.crossover_hz, 'Hz', 5)}\n{gm}\n"
                 f"stopped: {self.stopped_because}"
