@@ -299,3 +299,23 @@ def test_cli_refuses_adaptive_capture_of_a_sweep_whose_header_says_plant(tmp_pat
     assert len(err) == 1 and "buck_plant.csv" in err[0] and "control-to-output" in err[0]
     assert "'plant'" in err[0] and "loop-gain measurement" in err[0]
     assert not out.exists() and not log_path(out).exists()
+
+
+def test_margins_of_an_adaptive_sweep_with_gaps_say_where_the_gaps_come_from():
+    # tester: `benchfit margins` on an adaptive capture's file warned of under-sampled
+    # resonances and a gain margin "or less" with no word that the gaps are the plan's.
+    # Loop: 1e3·e^(-s·200ns)/((1+s/ω100)(1+s/ω200k)), sparse above crossover as a plan
+    # leaves it (values by python-control's frequency response of the same tf).
+    from benchfit.data.response import FrequencyResponse
+    from benchfit.loop.loopfile import ADAPTIVE_GAPS, margins_of_loop
+
+    s = control.tf("s")
+    loop = 1e3 / ((1 + s / (2 * np.pi * 100)) * (1 + s / (2 * np.pi * 200e3)))
+    f = np.r_[np.logspace(1, 5, 17), np.logspace(5.2, 6.3, 30), np.logspace(6.5, 7.3, 4)]
+    T = np.array([complex(loop(2j * np.pi * x)) for x in f]) * np.exp(-2j * np.pi * f * 200e-9)
+    adaptive = FrequencyResponse(freq_hz=f, response=T, quantity="loop", meta={"adaptive": True})
+    m = margins_of_loop(adaptive)
+    assert m.gain_margin_gaps_hz or m.modulus_margin_gaps_hz
+    assert ADAPTIVE_GAPS in m.warnings
+    plain = margins_of_loop(FrequencyResponse(freq_hz=f, response=T, quantity="loop"))
+    assert ADAPTIVE_GAPS not in plain.warnings

@@ -135,9 +135,20 @@ def margins_of_loop(loop: PlantModel | FrequencyResponse, *,
             m = check_open_loop(sweep, m)
         if sweep.quantity in NOT_A_LOOP:
             m = replace(m, warnings=(_not_a_loop(sweep.quantity, "the sweep"),) + m.warnings)
+        if (m.gain_margin_gaps_hz or m.modulus_margin_gaps_hz) and (sweep.meta or {}).get("adaptive"):
+            m = replace(m, warnings=m.warnings + (ADAPTIVE_GAPS,))
         return m
     raise InputError(f"a loop must be a model or a sweep, found {type(loop).__name__}")
 
+
+
+#: Said of an adaptive capture's sweep read point by point where the gap checks fire: its
+#: points were placed where a fitted model decides the margins, so the gaps are the plan's.
+ADAPTIVE_GAPS = ("this sweep is an adaptive capture's: its points were placed where a model "
+                 "fitted during the capture decides the margins, so the gaps above are spaces "
+                 "the plan left between points, read here without a model; the capture's JSON "
+                 "gives the margins with σ, and `benchfit fit` then `benchfit margins` on the "
+                 "fit's JSON reads them from the model")
 
 
 #: Quantities a sweep can be marked with that are not a loop gain T.

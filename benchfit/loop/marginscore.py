@@ -172,7 +172,7 @@ def analyse(c: Curve, *, unstable: int, integrators: int | None, data: bool,
             j = int(jumps[np.argmax(pstep[jumps])])
             warnings.append(
                 f"the phase jumps {pstep[j]:.0f} deg between {f[j]:.4g} and {f[j + 1]:.4g} Hz "
-                f"({jumps.size} such gap(s)): a resonance is under-sampled; crossings and margins "
+                f"({jumps.size} such gap(s)): a resonance (or a delay's phase) is under-sampled; crossings and margins "
                 "near there cannot be trusted; sweep with more points per decade")
         hidden = phase_gaps(db, pstep)
         gap_hz = tuple((float(f[g]), float(f[g + 1])) for g in hidden)
