@@ -69,6 +69,9 @@ def build_result(resp, st, ref: Refined, att: Attempt, scan, sigma, notes, fixed
         if p.name.endswith("_hz") and not p.fixed and poorly_identified(p, f[0], f[-1]):
             warnings.append(f"{p.name} = {p.value:.4g} Hz lies outside the measured band "
                             f"{f[0]:.4g}..{f[-1]:.4g} Hz: poorly identified")
+    hint = integrator_hint(st, params, f[0])
+    if hint:
+        warnings.append(hint)
     fl = np.abs(att.vf.flipped) * att_scale
     n_fl = int(np.sum((fl <= MIRROR_NEAR * TWO_PI * f[-1]) & (fl >= TWO_PI * f[0] / MIRROR_NEAR)))
     if n_fl:
@@ -146,6 +149,33 @@ def held_names_moved(st, values, moved: dict[str, str], fixed: dict[str, float],
             if not (lo - tol <= v[k] <= hi + tol):
                 out.append(k)
     return out
+
+
+#: A real pole this far below the bottom of the band acts there as an integrator
+#: (within 1/INTEGRATOR_BELOW rad of −90°; common practice, no source).
+INTEGRATOR_BELOW = 30.0
+
+
+def integrator_hint(st, params, f_min: float) -> str | None:
+    """A hint to fit an integrator as one, or None.
+
+    Evidence weighed: the model has no integrator (``--integrators`` 0) and a
+    stable real pole below ``f_min / INTEGRATOR_BELOW``.  Over the band such a
+    pole is −20 dB/decade and −90° to within a degree or two: an integrator whose
+    frequency and gain the data can only trade against each other (gain and pole
+    come out with σ of 100 % and more, and the refinement crawls along that
+    valley), where ``--integrators 1`` fits the same response with one parameter.
+    """
+    if st.integrators:
+        return None
+    low = [p for p in params if p.name.startswith("pole") and not p.fixed
+           and 0 < p.value < f_min / INTEGRATOR_BELOW]
+    if not low:
+        return None
+    p = low[0]
+    return (f"{p.name} = {p.value:.3g} Hz lies far below the band ({f_min:.4g} Hz up): over the "
+            "band it acts as an integrator; --integrators 1 (or auto) fits it as one, with a "
+            "gain the data determine")
 
 
 def at_bound_warning(names, params) -> str:

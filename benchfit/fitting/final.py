@@ -16,7 +16,7 @@ from benchfit.fitting.groups import groups_above, unidentified
 from benchfit.fitting.parameters import Structure
 from benchfit.fitting.problem import Problem
 from benchfit.fitting.pruning import cancel_note, prune_cancelling
-from benchfit.fitting.refine import Refined
+from benchfit.fitting.refine import Refined, renumbered
 from benchfit.fitting.selection import bic, drop_allowed, prunable
 
 
@@ -79,30 +79,39 @@ def _checked_final(pb: Problem, st: Structure, ref: Refined, notes: list[str]
                    ) -> tuple[Structure, Refined, list[str]]:
     """The notes every final model gets: fewer poles would do (``--order N``), loosely
     located groups above the band."""
+    # the notes name parameters as the result will: numbered from the lowest frequency up
+    named, _ = renumbered(st, ref)
     vague: set[str] = set()
     if pb.order != "auto":
-        note = fewer_poles_note(pb, st, ref)
+        note = fewer_poles_note(pb, st, named)
         if note:
             notes = [*notes, note]
-            vague = set(unidentified(st, ref))  # named by that note; no drop test ran on them
-    return st, ref, [*notes, *loose_notes(st, ref, pb.f[-1], skip=vague)]
+            vague = set(unidentified(st, named))  # named by that note; no drop test ran on them
+    return st, ref, [*notes, *loose_notes(st, named, pb.f[-1], skip=vague,
+                                          order_given=pb.order != "auto")]
 
 
-def loose_notes(st: Structure, ref: Refined, f_max: float, skip=()) -> list[str]:
+def loose_notes(st: Structure, ref: Refined, f_max: float, skip=(), order_given: bool = False
+                ) -> list[str]:
     """Notes for the pole and zero groups above the band that the data locate only loosely
     (σ above :data:`~benchfit.fitting.assemble.LOOSE` of the frequency) but that survived pruning: the data
     need them, so they stay with their large σ; ``--fix`` or ``--bound`` can pin them.
-    Groups in ``skip`` (named by :func:`fewer_poles_note`) get no such note."""
+    Groups in ``skip`` (named by :func:`fewer_poles_note`) get no such note; a pole group
+    kept by ``--order N`` (``order_given``) is said to be kept as asked, since no drop test
+    ran on it.  ``ref`` is numbered as the result will be (lowest frequency first)."""
     out = []
     for g, fr in groups_above(st, ref.values, f_max):
         if g in skip:
             continue
         key = f"{g}_f0_hz" if g.startswith(("pair", "zero_pair")) else f"{g}_hz"
-        sd = ref.stderr[st.names.index(key)]
+        i = st.names.index(key)
+        sd = ref.stderr[i]
         if np.isfinite(sd) and sd > LOOSE * fr:
-            out.append(f"{key} = {fr:.4g} Hz lies above the band and the data locate it only "
-                       f"loosely (σ {100 * sd / fr:.0f} %), but dropping it costs more than the "
-                       "noise; it stays (--fix or --bound can pin it)")
+            why = ("it is kept as --order asks" if order_given and g.startswith(("pole", "pair"))
+                   else "dropping it costs more than the noise; it stays")
+            out.append(f"{key} = {ref.values[i]:.4g} Hz lies above the band and the data locate "
+                       f"it only loosely (σ {100 * sd / fr:.0f} %), but {why} (--fix or --bound "
+                       "can pin it)")
     return out
 
 

@@ -34,7 +34,7 @@ from benchfit.fitting.factors import log_jacobian_at, log_response
 from benchfit.fitting.lsq import least_squares
 from benchfit.fitting.order import NEGLIGIBLE
 from benchfit.fitting.parameters import Structure, log_jacobian, renumbering, response
-from benchfit.fitting.uncertainty import held_covariance, on_bound
+from benchfit.fitting.uncertainty import SIGMA_REL_MAX, beyond_linear, held_covariance, on_bound
 
 #: Residual given to a point where a trial model does not evaluate.
 _PENALTY = 1e6
@@ -300,12 +300,29 @@ def _with_covariance(names, values: np.ndarray, var_idx, jac: np.ndarray, nfev: 
     hi = np.array([bounds.get(n, (-np.inf, np.inf))[1] for n in varied], dtype=float)
     held = on_bound(values[var_idx], lo, hi)
     cov = held_covariance(jac, redchi, held)
+    # A σ far beyond its value is no σ (uncertainty.beyond_linear): set aside like an
+    # ill-conditioned direction, the worst first, and the rest's σ held at its value.
+    loose = np.zeros(len(varied), dtype=bool)
+    while True:
+        wild = beyond_linear(values[var_idx], cov.stderr) & ~loose & ~held
+        if not wild.any():
+            break
+        ratio = np.where(wild, cov.stderr / np.maximum(np.abs(values[var_idx]), 1e-300), -1.0)
+        loose[int(np.argmax(ratio))] = True
+        cov = held_covariance(jac, redchi, held | loose)
+    undetermined = sorted({*cov.undetermined, *np.flatnonzero(loose).tolist()})
+    reason = cov.reason
+    if loose.any():
+        big = (f"{', '.join(varied[k] for k in np.flatnonzero(loose))}: σ over "
+               f"{SIGMA_REL_MAX:g}× the value, far beyond what the linearised covariance "
+               "describes (the data bound them only loosely)")
+        reason = f"{reason}; {big}" if reason else big
     stderr = np.full(len(names), np.nan)
     stderr[var_idx] = cov.stderr
     return Refined(values=values, stderr=stderr, varied=varied, covariance=cov.matrix,
                    evaluations=nfev, success=success, chisqr=chisqr, redchi=redchi,
-                   message=message, undetermined=tuple(varied[k] for k in cov.undetermined),
-                   uncertainty_reason=cov.reason,
+                   message=message, undetermined=tuple(varied[k] for k in undetermined),
+                   uncertainty_reason=reason,
                    at_bound=tuple(varied[k] for k in np.flatnonzero(held)))
 
 

@@ -183,6 +183,28 @@ def held_covariance(jac: np.ndarray, redchi: float, held: np.ndarray,
                       sub.reason)
 
 
+#: A σ above this multiple of its parameter's magnitude is not reported (see
+#: :func:`beyond_linear`; common practice, no source).
+SIGMA_REL_MAX = 100.0
+
+
+def beyond_linear(values: np.ndarray, stderr: np.ndarray, rel_max: float = SIGMA_REL_MAX
+                  ) -> np.ndarray:
+    """Which standard errors are too large to mean anything (boolean mask).
+
+    Evidence weighed: each σ against its parameter's magnitude.  The linearised
+    covariance describes χ² near the optimum; a σ of ``rel_max`` times the value
+    (a pole at 6.5 MHz ± 1.1 THz) spans both signs of the parameter and decades
+    where the response is nothing like linear in it.  The data only bound such a
+    parameter loosely, and the figure would read as a measurement: it is named
+    *not determined* instead.  A NaN σ (fixed, or set aside already) is not flagged.
+    """
+    v = np.abs(np.asarray(values, dtype=float))
+    sd = np.asarray(stderr, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.isfinite(sd) & (sd > rel_max * v)
+
+
 def correlation(cov: np.ndarray) -> np.ndarray:
     """Correlation matrix of a covariance: within [−1, 1], 1 on the whole diagonal.
 
