@@ -88,3 +88,19 @@ def test_an_integrator_fitted_as_a_pole_far_below_the_band_gets_a_hint():
     with_int = _fit(resp, integrators=1)
     assert not any("--integrators 1" in w for w in with_int.warnings)
     assert with_int.parameter("gain").value == pytest.approx(50.0, rel=0.01)
+
+
+def test_order_above_the_data_says_a_cancelling_pair_could_go():
+    # docs/fitting.md: "--order N gives N poles (a note may say the data would accept
+    # fewer)"; --order 4 on the 3-pole op-amp left a pole/zero pair at 1.67 Hz cancelling
+    # to 1e-4 with no such note
+    res = _fit(_opamp(), order=4, delay="none")
+    assert int(np.sum(np.abs(res.model.poles) > 0)) == 4
+    assert any("may accept 1 pole(s) fewer" in n and "cancels" in n for n in res.notes), res.notes
+
+
+def test_a_zero_no_model_of_the_order_can_hold_names_the_limit():
+    from benchfit.errors import InputError
+
+    with pytest.raises(InputError, match=r"zero30_hz.*at most \d+ zero\(s\); 30 asked"):
+        _fit(_opamp(), fix={"zero30_hz": 1.0})

@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from benchfit.fitting.assemble import LOOSE
-from benchfit.fitting.groups import groups_above, unidentified
+from benchfit.fitting.groups import cancelling, groups_above, unidentified
 from benchfit.fitting.parameters import Structure
 from benchfit.fitting.problem import Problem
 from benchfit.fitting.pruning import cancel_note, prune_cancelling
@@ -129,10 +129,17 @@ def fewer_poles_note(pb: Problem, st: Structure, ref: Refined) -> str | None:
     if pb.held("pole", "pair"):
         return None
     vague = set(unidentified(st, ref))
-    fewer = sum(2 if g.startswith("pair") else 1
-                for g, _ in groups_above(st, ref.values, pb.f[-1], zeros=False) if g in vague)
-    if fewer <= 0:
+    above = [g for g, _ in groups_above(st, ref.values, pb.f[-1], zeros=False) if g in vague]
+    fewer = sum(2 if g.startswith("pair") else 1 for g in above)
+    # a pole group that a zero group cancels (groups.cancelling) adds nothing either
+    cancel = [pair for pair in cancelling(st, ref.values) if pair[0] not in above]
+    n_cancel = sum(2 if p.startswith("pair") else 1 for p, _ in cancel)
+    if fewer + n_cancel <= 0:
         return None
-    return (f"the data may accept {fewer} pole(s) fewer: pole(s) above the band that they "
-            f"cannot locate (σ above the value); kept at --order {pb.order} as asked "
-            "(--order auto tests the drop)")
+    why = []
+    if fewer:
+        why.append("pole(s) above the band that they cannot locate (σ above the value)")
+    if n_cancel:
+        why.append("pole(s) that a zero cancels (" + ", ".join(f"{p}~{z}" for p, z in cancel) + ")")
+    return (f"the data may accept {fewer + n_cancel} pole(s) fewer: {' and '.join(why)}; kept at "
+            f"--order {pb.order} as asked (--order auto tests the drop)")

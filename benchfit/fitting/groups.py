@@ -284,8 +284,9 @@ def conform(st: Structure, values: np.ndarray, fixed: dict[str, float],
     n_zeros = need["zero"] + 2 * need["zero_pair"]
     if n_zeros > max(st.order, st.n_zeros):
         asked = [n for n in names if n.startswith("zero")]
-        raise InputError(f"no parameter {asked[-1]!r}: a model of {st.order} pole(s) and "
-                         f"{st.n_zeros} zero(s) gets no more zeros than poles; {n_zeros} asked", source=names[asked[-1]])
+        raise InputError(f"no parameter {asked[-1]!r}: a model of {st.order} pole(s) has at most "
+                         f"{max(st.order, st.n_zeros)} zero(s); {n_zeros} asked",
+                         source=names[asked[-1]])
     while len(rz) + 2 * len(zp) < n_zeros:
         # A zero the model lacks: start it where the user puts it.
         key = f"zero{len(rz) + 1}_hz"
