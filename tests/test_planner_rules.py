@@ -413,3 +413,27 @@ def test_result_json_round_trip():
     back = AdaptiveResult.from_dict(json.loads(to_json_text(r.to_dict())))
     assert back.gain_margin_db == math.inf and math.isnan(back.phase_crossover_hz)
     assert back.points == 10 and back.stopped_because == PRECISION and back.history == ({"points": 10},)
+
+
+def test_stability_warnings_say_what_the_nyquist_verdict_adds():
+    # Loops checked against python-control (closed-loop poles of feedback(T, 1)):
+    # T1 = 10(s+1)/(s(s-1)) is open-loop unstable (one RHP pole) and stable in closed loop;
+    # T2 = 2/((s+1)^3) (gain 2 < 8) is stable both ways; T3 = 20/((s+1)^3) is unstable closed.
+    import control
+
+    from benchfit.fitting.model import PlantModel
+    from benchfit.loop.margins import margins_of_model
+    from benchfit.planner.stability import stability_warnings
+
+    s = control.tf("s")
+    cases = [(10 * (s + 1) / (s * (s - 1)), [0.0, 1.0], [-1.0], 10.0),
+             (2 / (s + 1) ** 3, [-1.0] * 3, [], 2.0), (20 / (s + 1) ** 3, [-1.0] * 3, [], 20.0)]
+    said = []
+    for tf, poles, zeros, k in cases:
+        cl_stable = bool(np.all(control.poles(control.feedback(tf, 1)).real < 0))
+        m = margins_of_model(PlantModel(np.array(zeros, complex), np.array(poles, complex), k))
+        assert m.closed_loop_stable == cl_stable
+        said.append(stability_warnings(m))
+    assert len(said[0]) == 1 and "right-half-plane" in said[0][0]
+    assert said[1] == []
+    assert any("not stable in closed loop" in w for w in said[2])

@@ -64,6 +64,7 @@ from benchfit.planner.settings import (  # noqa: F401 - re-exported
     AdaptiveResult,
     AdaptiveSettings,
 )
+from benchfit.planner.stability import stability_warnings
 from benchfit.planner.stopping import (  # noqa: F401 - gm_known re-exported
     NEEDS_LOOP_GAIN,
     gm_known,
@@ -389,6 +390,8 @@ class AdaptiveCapture(RoundPlanner):
                                  "could place would reduce it further (see the history)")
         if gm is not None and not gm.has_value:
             self.warnings.append(f"gain margin {gm.status}: {gm.reason}")
+        if m is not None:
+            self.warnings.extend(stability_warnings(m))
         return AdaptiveResult(
             path=str(self.out) if len(sweep) >= 2 else "", log_path=str(self.log), points=len(sweep), points_measured=len(self.rows),
             readings=int(sum(r.repeats for r in self.rows)), instrument_time_s=self.elapsed_s,
