@@ -18,6 +18,9 @@ def stability_warnings(m) -> list[str]:
                    "plane pole(s) (open-loop unstable): its margins are read with that count; "
                    "check them with `benchfit margins` on the fit")
     if not m.closed_loop_stable:
-        out.append(f"the loop fitted to this capture is not stable in closed loop (Nyquist: "
-                   f"{m.verdict or 'unstable'}); its margins describe an unstable loop")
+        out.append(f"the loop fitted to this capture reads as {m.verdict or 'unstable'} in closed "
+                   f"loop (Nyquist count on the fitted model, with {m.open_loop_unstable_poles} "
+                   f"open-loop right-half-plane pole(s) and {m.integrators} integrator(s)): its "
+                   "margins do not describe a stable loop; if the plant is open-loop unstable, "
+                   "check with `benchfit margins --unstable-poles N` on the sweep")
     return out
