@@ -104,3 +104,16 @@ def test_a_zero_no_model_of_the_order_can_hold_names_the_limit():
 
     with pytest.raises(InputError, match=r"zero30_hz.*at most \d+ zero\(s\); 30 asked"):
         _fit(_opamp(), fix={"zero30_hz": 1.0})
+
+
+def test_order_scan_line_lists_each_order_once_without_then_with_delay():
+    # tester: "--band 1:2" printed "1:" twice, and a servo scan ended with "6:" after the
+    # "+τ" entries (a delay search that ended at zero; the order above the chosen one)
+    res = _fit(_opamp(), band=(1.0, 2.0))
+    line = next(ln for ln in res.report().splitlines() if ln.startswith("  order scan"))
+    keys = [e.split(":")[0] for e in line.split(") ", 1)[1].split(", ")]
+    assert len(keys) == len(set(keys)), line
+    kinds = [k.endswith("+τ") for k in keys]
+    assert kinds == sorted(kinds), line  # all without delay first
+    plain = [int(k) for k in keys if not k.endswith("+τ")]
+    assert plain == sorted(plain)

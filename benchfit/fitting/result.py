@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 from dataclasses import dataclass, field
 from typing import Any
@@ -256,8 +257,15 @@ class FitResult:
             f" {st.get('evaluations', 0)} refinement evaluations)",
         ]
         if self.order_scan:
-            scan = ", ".join(f"{d['order']}{'+τ' if d.get('delay_s') else ''}:{d['rms_db']:.2g}dB"
-                             for d in self.order_scan)
+            # one entry per order and kind (without delay first, then with), the best of
+            # its tries: the scans visit orders twice (a delay search that ends at zero, the
+            # order above the chosen one); JSON keeps every attempt in scan order
+            best: dict[tuple[bool, int], float] = {}
+            for d in self.order_scan:
+                key = (bool(d.get("delay_s")), int(d["order"]))
+                best[key] = min(best.get(key, math.inf), float(d["rms_db"]))
+            scan = ", ".join(f"{n}{'+τ' if tau else ''}:{rms:.2g}dB"
+                             for (tau, n), rms in sorted(best.items()))
             lines.append(f"  order scan (order[+τ: with delay]:rms) {scan}")
         lines += [f"  note: {n}" for n in self.notes]
         if warnings:
