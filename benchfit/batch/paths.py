@@ -64,10 +64,17 @@ def pool_rows(files: Sequence[str], settings: TaskSettings, workers: int,
     # forkserver: children start from a clean process, safe even when the parent
     # runs threads (a Dask client, a notebook); spawn where it is not available.
     method = "forkserver" if "forkserver" in mp.get_all_start_methods() else "spawn"
+    ctx = mp.get_context(method)
+    if method == "forkserver":
+        # Import the workers' code once, in the server: a worker forked from it then starts
+        # without importing matplotlib & co., so a Ctrl-C to the process group cannot land
+        # in that import before the worker ignores it (the server printed an ImportError
+        # traceback over the one-line message).
+        ctx.set_forkserver_preload([__name__])
     queue = deque(files)
     suspects: deque[str] = deque()  # in flight when a pool broke: re-run one at a time
     while queue or suspects:
-        with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context(method),
+        with ProcessPoolExecutor(max_workers=workers, mp_context=ctx,
                                  initializer=_worker_ignores_ctrl_c) as ex:
             running: dict[Any, str] = {}
             alone = _fill(ex, task, settings, running, queue, suspects, 4 * workers)
