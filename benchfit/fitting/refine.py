@@ -313,9 +313,10 @@ def _with_covariance(names, values: np.ndarray, var_idx, jac: np.ndarray, nfev: 
     undetermined = sorted({*cov.undetermined, *np.flatnonzero(loose).tolist()})
     reason = cov.reason
     if loose.any():
-        big = (f"{', '.join(varied[k] for k in np.flatnonzero(loose))}: σ over "
-               f"{SIGMA_REL_MAX:g}× the value, far beyond what the linearised covariance "
-               "describes (the data bound them only loosely)")
+        # no names here: the note lists the undetermined ones under their final names (the
+        # renumbering renames the tuple, not this text)
+        big = (f"{int(loose.sum())} with σ over {SIGMA_REL_MAX:g}× the value, far beyond what "
+               "the linearised covariance describes (the data bound them only loosely)")
         reason = f"{reason}; {big}" if reason else big
     stderr = np.full(len(names), np.nan)
     stderr[var_idx] = cov.stderr
